@@ -1,0 +1,312 @@
+"""The bench profile as plain frozen dataclasses.
+
+``meas.profile`` reads and validates the TOML into these; everything downstream (poll plan,
+poller, simulator, checks, runner, dataset) consumes only these types, never raw TOML.
+Electrical values are on the bench side, in SI units (V, A, W, var, VA, ohm, S).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+RegisterKind = Literal["holding", "input"]
+DataType = Literal["int16", "uint16", "int32", "uint32", "float32", "float64"]
+Order = Literal["big", "little"]
+BranchKind = Literal["source", "line", "transformer", "load", "shunt"]
+StepKind = Literal["manual", "remote", "capture", "hold", "note"]
+SwitchState = Literal["open", "closed"]
+
+REGISTER_COUNT: dict[str, int] = {
+    "int16": 1,
+    "uint16": 1,
+    "int32": 2,
+    "uint32": 2,
+    "float32": 2,
+    "float64": 4,
+}
+
+
+@dataclass(frozen=True)
+class Zone:
+    """A voltage level of the bench and the network voltage it stands for."""
+
+    id: str
+    bench_v_ll: float
+    network_v_ll: float
+
+    @property
+    def voltage_scale(self) -> float:
+        return self.network_v_ll / self.bench_v_ll
+
+
+@dataclass(frozen=True)
+class Bench:
+    name: str
+    frequency_hz: float
+    power_scale: float  # network W per bench W
+    s_base_va: float  # three-phase per-unit power base on the bench side
+    zones: tuple[Zone, ...]
+    description: str = ""
+
+    def zone(self, zone_id: str) -> Zone:
+        for z in self.zones:
+            if z.id == zone_id:
+                return z
+        raise KeyError(zone_id)
+
+
+@dataclass(frozen=True)
+class RegisterSpec:
+    """Where one quantity lives in a meter's register space and how to turn words into units."""
+
+    key: str  # "<quantity>.<phase>", see meas.quantities
+    kind: RegisterKind
+    address: int
+    dtype: DataType
+    word_order: Order = "big"
+    byte_order: Order = "big"
+    scale: float = 1.0  # engineering value = raw * scale + offset
+    offset: float = 0.0
+    unit: str = ""
+
+    @property
+    def count(self) -> int:
+        return REGISTER_COUNT[self.dtype]
+
+    @property
+    def end(self) -> int:
+        """One past the last register used."""
+        return self.address + self.count
+
+
+@dataclass(frozen=True)
+class RegisterMap:
+    """One meter model's register layout, reusable by many meters."""
+
+    id: str
+    registers: tuple[RegisterSpec, ...]
+    description: str = ""
+    apparent_power: Literal["vector", "arithmetic"] = "arithmetic"  # IEEE 1459 definition of S_total
+    max_read: int = 125  # some meters accept fewer registers per read than the spec allows
+
+    def has(self, key: str) -> bool:
+        return any(r.key == key for r in self.registers)
+
+    def spec(self, key: str) -> RegisterSpec:
+        for r in self.registers:
+            if r.key == key:
+                return r
+        raise KeyError(key)
+
+
+@dataclass(frozen=True)
+class TcpTransport:
+    host: str
+    port: int = 502
+
+    @property
+    def endpoint(self) -> str:
+        return f"tcp://{self.host}:{self.port}"
+
+
+@dataclass(frozen=True)
+class RtuTransport:
+    device: str
+    baudrate: int = 9600
+    parity: Literal["N", "E", "O"] = "E"
+    stopbits: int = 1
+    bytesize: int = 8
+
+    @property
+    def endpoint(self) -> str:
+        return f"rtu://{self.device}"
+
+
+Transport = TcpTransport | RtuTransport
+
+
+@dataclass(frozen=True)
+class AccuracyClasses:
+    """Class designations as printed on the meter: "0.2S", "0.5S", "1", "2", "3"."""
+
+    p: str = "1"
+    q: str = "2"
+    v: str = "0.5"
+    i: str = "0.5"
+
+
+@dataclass(frozen=True)
+class Meter:
+    id: str
+    label: str
+    transport: Transport
+    unit_id: int
+    map_id: str
+    bus: str  # where the voltage is measured
+    branch: str | None  # the branch whose current it measures; None = voltage-only meter
+    # Sign convention: positive P/Q = power flowing from ``bus`` into ``branch``.
+    timeout_s: float = 0.5
+    retries: int = 1
+    reports: Literal["primary", "secondary"] = "primary"
+    ct_ratio: float = 1.0  # primary A per secondary A, applied when reports == "secondary"
+    vt_ratio: float = 1.0  # primary V per secondary V, applied when reports == "secondary"
+    ct_primary_a: float | None = None  # rated primary current, for out-of-range checks
+    classes: AccuracyClasses = field(default_factory=AccuracyClasses)
+
+
+@dataclass(frozen=True)
+class Bus:
+    id: str
+    zone: str
+    label: str = ""
+
+
+@dataclass(frozen=True)
+class Branch:
+    """A source, line, transformer, load or shunt. One-ended kinds have ``to_bus`` None.
+
+    ``sim`` keeps the electrical parameters for the simulated bench as given in the profile;
+    ``meas.sim.network`` validates and interprets them.
+    """
+
+    id: str
+    kind: BranchKind
+    from_bus: str
+    to_bus: str | None = None
+    label: str = ""
+    sim: dict[str, Any] = field(default_factory=dict, compare=False, hash=False)
+
+    @property
+    def buses(self) -> tuple[str, ...]:
+        return (self.from_bus,) if self.to_bus is None else (self.from_bus, self.to_bus)
+
+
+@dataclass(frozen=True)
+class StatusPoint:
+    kind: Literal["coil", "discrete"]
+    address: int
+
+
+@dataclass(frozen=True)
+class Plc:
+    """The controller that operates and reports switches."""
+
+    id: str
+    transport: Transport
+    unit_id: int = 1
+    timeout_s: float = 0.5
+
+
+@dataclass(frozen=True)
+class Switch:
+    id: str
+    branch: str
+    label: str = ""
+    operation: Literal["manual", "remote"] = "manual"
+    normal: SwitchState = "closed"
+    plc: str | None = None
+    command_coil: int | None = None  # write True = close, False = open; only if remote
+    status: StatusPoint | None = None  # True = closed
+    operate_time_s: float = 0.2  # simulated bench: mechanism time before status follows
+
+
+@dataclass(frozen=True)
+class Control:
+    """Whether the tool may ever write to a device. Off unless the profile says otherwise."""
+
+    enabled: bool = False
+    verify_timeout_s: float = 3.0
+
+
+@dataclass(frozen=True)
+class PollSettings:
+    interval_s: float = 0.2
+    max_gap: int = 8  # unused registers a read may bridge to save a request
+    backoff_initial_s: float = 0.5
+    backoff_max_s: float = 10.0
+
+
+@dataclass(frozen=True)
+class CheckSettings:
+    coverage_k: float = 2.0  # expansion factor, GUM 6.2.1: k = 2 ~ 95 %
+    warn_fraction: float = 0.7  # warn when |residual| exceeds this fraction of the limit
+    frequency_band_hz: float = 0.5
+    frozen_cycles: int = 10
+    voltage_band: float = 0.15  # fraction of zone nominal
+    unbalance_warn_pct: float = 2.0
+    overrides: dict[str, float] = field(default_factory=dict, compare=False, hash=False)
+
+
+@dataclass(frozen=True)
+class SettleCriterion:
+    window_s: float = 2.0
+    rel_spread: float = 0.005  # max (max-min)/|mean| of P, Q, V in the window
+    timeout_s: float = 30.0
+
+
+@dataclass(frozen=True)
+class CapturePolicy:
+    snapshots: int = 5
+    interval_s: float = 0.5
+    settle: SettleCriterion = field(default_factory=SettleCriterion)
+
+
+@dataclass(frozen=True)
+class Step:
+    id: str
+    title: str
+    instruction: str
+    kind: StepKind
+    expect: dict[str, SwitchState] = field(default_factory=dict, compare=False, hash=False)
+    operate: dict[str, SwitchState] = field(default_factory=dict, compare=False, hash=False)
+    capture: CapturePolicy | None = field(default_factory=CapturePolicy)
+    gate: Literal["block", "allow"] = "block"  # allow = may accept failing checks with a reason
+
+
+@dataclass(frozen=True)
+class Profile:
+    path: str
+    sha256: str  # of the profile file and any companion files, in order
+    bench: Bench
+    maps: dict[str, RegisterMap]
+    meters: tuple[Meter, ...]
+    buses: tuple[Bus, ...]
+    branches: tuple[Branch, ...]
+    switches: tuple[Switch, ...]
+    plcs: tuple[Plc, ...] = ()
+    control: Control = field(default_factory=Control)
+    poll: PollSettings = field(default_factory=PollSettings)
+    checks: CheckSettings = field(default_factory=CheckSettings)
+    steps: tuple[Step, ...] = ()
+    sim: dict[str, Any] = field(default_factory=dict, compare=False, hash=False)
+
+    def meter(self, meter_id: str) -> Meter:
+        for m in self.meters:
+            if m.id == meter_id:
+                return m
+        raise KeyError(meter_id)
+
+    def meter_map(self, meter_id: str) -> RegisterMap:
+        return self.maps[self.meter(meter_id).map_id]
+
+    def branch(self, branch_id: str) -> Branch:
+        for b in self.branches:
+            if b.id == branch_id:
+                return b
+        raise KeyError(branch_id)
+
+    def bus(self, bus_id: str) -> Bus:
+        for b in self.buses:
+            if b.id == bus_id:
+                return b
+        raise KeyError(bus_id)
+
+    def switch(self, switch_id: str) -> Switch:
+        for s in self.switches:
+            if s.id == switch_id:
+                return s
+        raise KeyError(switch_id)
+
+    def zone_of_bus(self, bus_id: str) -> Zone:
+        return self.bench.zone(self.bus(bus_id).zone)
