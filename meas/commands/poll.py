@@ -1,0 +1,85 @@
+"""``benchwalk poll PROFILE``: read every meter a few times and show a live table.
+
+A quick wiring look without starting a session: values in primary units and the
+communication state per meter. Read-only: nothing is ever written to a device.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import math
+
+from rich.console import Console
+from rich.live import Live
+from rich.table import Table
+
+from ..poller import Poller
+from ..profile import load_profile
+from ..snapshot import MeterBlock, Snapshot
+
+HELP = "poll the profile's meters and show V, I, P, Q, PF, f and comm state (read-only)"
+
+COLUMNS = [  # header, candidate keys (first present wins), format
+    ("V", ("v_ln.A", "v_ll.AB"), "{:.1f}"),
+    ("I", ("i.A",), "{:.3f}"),
+    ("P", ("p.T",), "{:.0f}"),
+    ("Q", ("q.T",), "{:.0f}"),
+    ("PF", ("pf.T",), "{:.3f}"),
+    ("f", ("f.T",), "{:.3f}"),
+]
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("profile", metavar="PROFILE", help="bench profile (.toml)")
+    parser.add_argument("--cycles", type=int, default=10, metavar="N", help="poll cycles (default 10)")
+    parser.add_argument("--interval", type=float, default=None, metavar="S",
+                        help="seconds between cycles (default: the profile's poll interval)")
+
+
+def _cell(block: MeterBlock, keys: tuple[str, ...], fmt: str) -> str:
+    for k in keys:
+        if k in block.values:
+            v = block.get(k)
+            return "-" if math.isnan(v) else fmt.format(v)
+    return ""
+
+
+def render(snap: Snapshot, total: int) -> Table:
+    table = Table(title=f"cycle {snap.seq}/{total}  {snap.time_utc:%H:%M:%S} UTC  {snap.cycle_s * 1000:.0f} ms")
+    table.add_column("meter")
+    for head, _, _ in COLUMNS:
+        table.add_column(head, justify="right")
+    table.add_column("comm")
+    table.add_column("note", no_wrap=True, overflow="ellipsis", max_width=36)
+    for mid, block in snap.meters.items():
+        table.add_row(mid, *(_cell(block, keys, fmt) for _, keys, fmt in COLUMNS),
+                      str(block.state), block.error)
+    if snap.switches:
+        table.caption = "  ".join(f"{k}: {v}" for k, v in snap.switches.items())
+    return table
+
+
+async def _poll(args: argparse.Namespace) -> Snapshot | None:
+    profile = load_profile(args.profile)
+    poller = Poller(profile)
+    console = Console()
+    last: Snapshot | None = None
+    try:
+        await poller.start()
+        with Live(console=console, auto_refresh=False, transient=False) as live:
+            async for snap in poller.run(args.interval):
+                last = snap
+                live.update(render(snap, args.cycles), refresh=True)
+                if snap.seq >= args.cycles:
+                    break
+    finally:
+        await poller.close()
+    return last
+
+
+def main(args: argparse.Namespace) -> int:
+    if args.cycles < 1:
+        args.cycles = 1
+    asyncio.run(_poll(args))
+    return 0

@@ -1,0 +1,594 @@
+"""Poll every meter and PLC status point once per cycle over Modbus TCP/RTU -> ``Snapshot``.
+
+One pymodbus client per endpoint (TCP host:port or serial device), because a client carries
+one request at a time and real gateways accept few connections; units behind one endpoint
+are polled in turn under that endpoint's lock, endpoints run concurrently. Connection
+handling is ours alone (pymodbus ``reconnect_delay=0``): capped exponential backoff with
+jitter around ``connect()``, and a separate backoff per unit id so a dead meter behind a
+gateway costs its neighbours one timeout, not one per cycle, and never drops their link.
+A unit that stops answering skips the rest of its reads for the cycle, which bounds its
+cost to ``timeout_s * (retries + 1)``.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import math
+import random
+import struct
+import time
+from collections.abc import AsyncIterator
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+
+from pymodbus.client import AsyncModbusSerialClient, AsyncModbusTcpClient
+from pymodbus.exceptions import ConnectionException, ModbusException, ModbusIOException
+
+from .model import Meter, Plc, Profile, RegisterMap, RegisterSpec, RtuTransport, Switch, Transport
+from .plan import MeterPlan, ReadRequest, plan_profile
+from .quantities import split_key
+from .scaling import ratio
+from .snapshot import CommState, MeterBlock, Quality, Snapshot
+
+log = logging.getLogger(__name__)
+
+GATEWAY_NO_TARGET = {0x0A, 0x0B}  # gateway path unavailable / target failed to respond
+MAX_BIT_READ = 2000  # coils / discrete inputs per read, Modbus Application Protocol V1.1b3
+BIT_GAP = 16  # unused status bits one read may bridge
+RECONNECT_AFTER_SILENT = 3  # consecutive unanswered reads on an open link before we redial
+RTU_QUIET_S = 0.05  # after an RTU timeout: let a late reply drain before the next request
+_READ_METHOD = {"holding": "read_holding_registers", "input": "read_input_registers",
+                "coil": "read_coils", "discrete": "read_discrete_inputs"}
+
+
+def tame_pymodbus_logging(level: int = logging.CRITICAL) -> None:
+    """pymodbus logs every timeout at ERROR with frame dumps; quiet it unless configured."""
+    lg = logging.getLogger("pymodbus")
+    if lg.level == logging.NOTSET:
+        lg.setLevel(level)
+
+
+def backoff_delay(failures: int, initial_s: float, max_s: float, rng: random.Random) -> float:
+    """Delay before the next try after ``failures`` (>= 1) failed ones: doubling, capped, +-20 %."""
+    base = min(max_s, initial_s * 2 ** max(0, failures - 1))
+    return min(max_s, base * rng.uniform(0.8, 1.2))
+
+
+@dataclass
+class Backoff:
+    initial_s: float
+    max_s: float
+    rng: random.Random
+    failures: int = 0
+    next_try: float = 0.0  # monotonic
+
+    def ready(self, now: float) -> bool:
+        return now >= self.next_try
+
+    def fail(self, now: float) -> float:
+        self.failures += 1
+        delay = backoff_delay(self.failures, self.initial_s, self.max_s, self.rng)
+        self.next_try = now + delay
+        return delay
+
+    def reset(self) -> None:
+        self.failures = 0
+        self.next_try = 0.0
+
+
+@dataclass(frozen=True)
+class MeterStatus:
+    state: CommState
+    last_good_utc: datetime | None
+    error_count: int
+    last_error: str
+    exception_code: int | None
+    latency_s: float = math.nan
+
+
+class _Disconnected(Exception):
+    pass
+
+
+class _NoAnswer(Exception):
+    pass
+
+
+class _BadReply(Exception):
+    pass
+
+
+class _DeviceException(Exception):
+    def __init__(self, code: int):
+        super().__init__(code)
+        self.code = code
+
+
+@dataclass
+class _StatusRead:
+    kind: str  # "coil" | "discrete"
+    address: int
+    count: int
+    switches: tuple[tuple[str, int], ...]  # (switch id, bit address)
+
+
+@dataclass
+class _Unit:
+    """A meter or a PLC behind an endpoint, with its own backoff and status."""
+
+    id: str
+    unit_id: int
+    timeout_s: float
+    retries: int
+    backoff: Backoff
+    meter: Meter | None = None
+    regmap: RegisterMap | None = None
+    plan: MeterPlan | None = None
+    specs: dict[str, RegisterSpec] = field(default_factory=dict)
+    decoders: dict[int, RequestDecoder] = field(default_factory=dict)  # by request index
+    status_reads: list[_StatusRead] = field(default_factory=list)
+    state: CommState = CommState.OFFLINE
+    last_good_utc: datetime | None = None
+    error_count: int = 0
+    last_error: str = "not polled yet"
+    exception_code: int | None = None
+    latency_s: float = math.nan
+
+
+@dataclass
+class EndpointLink:
+    """One client, its lock and its connection backoff; ``control.py`` reuses it for writes."""
+
+    endpoint: str
+    transport: Transport
+    timeout_s: float
+    backoff: Backoff
+    units: list[_Unit] = field(default_factory=list)
+    client: AsyncModbusTcpClient | AsyncModbusSerialClient | None = None
+    lock: asyncio.Lock = field(default_factory=asyncio.Lock)
+    last_error: str = ""
+    silent_reads: int = 0
+    uniform_timeout: bool = True  # every unit has the same timeout: pymodbus can enforce it
+    connects: int = 0  # successful connects, for tests and diagnostics
+
+    @property
+    def connected(self) -> bool:
+        return self.client is not None and self.client.connected
+
+
+    @property
+    def is_serial(self) -> bool:
+        return isinstance(self.transport, RtuTransport)
+
+
+def _make_client(transport: Transport, timeout_s: float):
+    """A pymodbus client with its own reconnect and retries off (we do both)."""
+    if isinstance(transport, RtuTransport):
+        client = AsyncModbusSerialClient(
+            transport.device, baudrate=transport.baudrate, parity=transport.parity,
+            stopbits=transport.stopbits, bytesize=transport.bytesize,
+            timeout=timeout_s, retries=0, reconnect_delay=0,
+        )
+    else:
+        client = AsyncModbusTcpClient(
+            transport.host, port=transport.port, timeout=timeout_s, retries=0, reconnect_delay=0,
+        )
+    client.set_max_no_responses(1 << 30)  # never let one dead unit drop a shared link
+    return client
+
+
+_BOUNDS = {  # no healthy meter reports values outside these (primary units): DECODE quality
+    # negative magnitudes, |PF| > 1 (+ one count of a 0.001 resolution), angles beyond a turn
+    **dict.fromkeys(("v_ln", "v_ll", "i", "s", "f", "e_imp", "e_exp"), (0.0, math.inf)),
+    "pf": (-1.001, 1.001),
+    "v_ang": (-360.0, 360.0),
+    "i_ang": (-360.0, 360.0),
+}
+_STRUCT_CHAR = {"int16": "h", "uint16": "H", "int32": "i", "uint32": "I", "float32": "f", "float64": "d"}
+
+
+class RequestDecoder:
+    """Decode every value of one read in a single pass; same result as ``registers.decode``.
+
+    Per value it precomputes the struct, the byte permutation for the word/byte order, the
+    scale, offset and CT/VT ratio, so a cycle of many meters costs little CPU beside pymodbus
+    (``tests/test_poller.py`` checks it against ``registers.decode`` + ``scaling.to_primary``).
+    """
+
+    def __init__(self, req: ReadRequest, specs: dict[str, RegisterSpec], meter: Meter):
+        self.count = req.count
+        self._pack = struct.Struct(f">{req.count}H").pack
+        self.items = []
+        for key in req.keys:
+            sp = specs[key]
+            off = 2 * (sp.address - req.address)
+            nb = 2 * sp.count
+            words = list(range(sp.count))
+            if sp.word_order == "little":
+                words.reverse()
+            perm = []
+            for w in words:
+                perm += [off + 2 * w, off + 2 * w + 1] if sp.byte_order == "big" else [off + 2 * w + 1, off + 2 * w]
+            direct = perm == list(range(off, off + nb))
+            lo, hi = _BOUNDS.get(split_key(key)[0], (-math.inf, math.inf))
+            self.items.append((key, struct.Struct(">" + _STRUCT_CHAR[sp.dtype]), off, None if direct else perm,
+                               sp.scale, sp.offset, ratio(meter, key), lo, hi))
+
+    def decode(self, words: list[int], values: dict, quality: dict, errors: list[str]) -> None:
+        buf = self._pack(*words)
+        for key, st, off, perm, scale, offset, r, lo, hi in self.items:
+            raw = st.unpack_from(buf, off)[0] if perm is None else st.unpack(bytes(buf[i] for i in perm))[0]
+            v = (raw * scale + offset) * r
+            if not math.isfinite(v):
+                errors.append(f"{key}: register value is {raw}")
+                quality[key] = Quality.DECODE
+            elif not lo <= v <= hi:
+                errors.append(f"{key}: impossible value {v:g}")
+                quality[key] = Quality.DECODE
+            else:
+                values[key] = v
+                quality[key] = Quality.OK
+
+
+def _status_reads(switches: list[Switch]) -> list[_StatusRead]:
+    """Coalesce a PLC's status points per kind into few bit reads."""
+    reads: list[_StatusRead] = []
+    for kind in ("coil", "discrete"):
+        pts = sorted((s.status.address, s.id) for s in switches if s.status and s.status.kind == kind)
+        group: list[tuple[int, str]] = []
+        for addr, sid in pts:
+            if group and (addr - group[-1][0] > BIT_GAP or addr - group[0][0] >= MAX_BIT_READ):
+                reads.append(_bits_read(kind, group))
+                group = []
+            group.append((addr, sid))
+        if group:
+            reads.append(_bits_read(kind, group))
+    return reads
+
+
+def _bits_read(kind: str, group: list[tuple[int, str]]) -> _StatusRead:
+    start = group[0][0]
+    return _StatusRead(kind, start, group[-1][0] - start + 1, tuple((sid, a) for a, sid in group))
+
+
+class Poller:
+    """Concurrent cycles over every endpoint; see the module docstring for the strategy."""
+
+    def __init__(self, profile: Profile, *, plans: dict[str, MeterPlan] | None = None):
+        self.profile = profile
+        self.plans = plans if plans is not None else plan_profile(profile)
+        self._rng = random.Random()
+        self._links: dict[str, EndpointLink] = {}
+        self._units: dict[str, _Unit] = {}
+        self._plc_units: dict[str, _Unit] = {}
+        self._seq = 0
+        self._started = False
+        for m in profile.meters:
+            regmap = profile.maps[m.map_id]
+            unit = _Unit(m.id, m.unit_id, m.timeout_s, m.retries, self._backoff(),
+                         meter=m, regmap=regmap, plan=self.plans[m.id],
+                         specs={s.key: s for s in regmap.registers})
+            unit.decoders = {i: RequestDecoder(r, unit.specs, m) for i, r in enumerate(unit.plan.requests)}
+            self._attach(m.transport, unit)
+            self._units[m.id] = unit
+        for p in profile.plcs:
+            sw = [s for s in profile.switches if s.plc == p.id and s.status is not None]
+            unit = _Unit(p.id, p.unit_id, p.timeout_s, 0, self._backoff(), status_reads=_status_reads(sw))
+            self._attach(p.transport, unit)
+            self._plc_units[p.id] = unit
+        tame_pymodbus_logging()
+
+    def _backoff(self) -> Backoff:
+        return Backoff(self.profile.poll.backoff_initial_s, self.profile.poll.backoff_max_s, self._rng)
+
+    def _attach(self, transport: Transport, unit: _Unit) -> None:
+        link = self._links.get(transport.endpoint)
+        if link is None:
+            link = EndpointLink(transport.endpoint, transport, unit.timeout_s, self._backoff())
+            self._links[transport.endpoint] = link
+        link.timeout_s = max(link.timeout_s, unit.timeout_s)
+        link.units.append(unit)
+        link.uniform_timeout = len({u.timeout_s for u in link.units}) == 1
+
+    # ------------------------------------------------------------ public API
+
+    @property
+    def endpoint_clients(self) -> dict[str, EndpointLink]:
+        """Endpoint -> link (client + lock). Use ``link_for(transport)`` to find one."""
+        return self._links
+
+    def link_for(self, transport: Transport) -> EndpointLink:
+        return self._links[transport.endpoint]
+
+    async def ensure_link(self, transport: Transport) -> EndpointLink:
+        """The endpoint's link, dialled now if down (a technician is waiting: no backoff)."""
+        link = self._links[transport.endpoint]
+        if not link.connected:
+            await self._connect(link, time.monotonic())
+        return link
+
+    async def read_switch(self, switch_id: str) -> str:
+        """One fresh read of a switch's status point: "open", "closed" or "unknown"."""
+        sw = self.profile.switch(switch_id)
+        if sw.plc is None or sw.status is None:
+            return "unknown"
+        unit = self._plc_units.get(sw.plc)
+        if unit is None:
+            return "unknown"
+        link = self._links[plc_of(self.profile, sw.plc).transport.endpoint]
+        try:
+            bits, _ = await self._read(link, unit, sw.status.kind, sw.status.address, 1)
+        except (_NoAnswer, _DeviceException, _BadReply, _Disconnected):
+            return "unknown"
+        return "closed" if bits[0] else "open"
+
+    async def start(self) -> None:
+        """Connect every endpoint concurrently; an unreachable one just enters backoff."""
+        self._started = True
+        now = time.monotonic()
+        await asyncio.gather(*(self._connect(link, now) for link in self._links.values()))
+
+    async def poll_once(self) -> Snapshot:
+        if not self._started:
+            await self.start()
+        t_mono = time.monotonic()
+        time_utc = datetime.now(UTC)
+        results = await asyncio.gather(*(self._poll_link(link, time_utc) for link in self._links.values()))
+        blocks: dict[str, MeterBlock] = {}
+        bits: dict[tuple[str, str], bool] = {}
+        for b, s in results:
+            blocks.update(b)
+            bits.update(s)
+        switches = {sw.id: self._switch_state(sw, bits) for sw in self.profile.switches}
+        self._seq += 1
+        return Snapshot(
+            seq=self._seq, time_utc=time_utc, t_mono=t_mono,
+            meters={m.id: blocks[m.id] for m in self.profile.meters},
+            switches=switches, cycle_s=time.monotonic() - t_mono,
+        )
+
+    async def run(self, interval_s: float | None = None) -> AsyncIterator[Snapshot]:
+        """Cycles on a fixed grid; an overrun skips to the next free slot instead of bursting."""
+        interval = self.profile.poll.interval_s if interval_s is None else interval_s
+        t0 = time.monotonic()
+        k = 0
+        while True:
+            yield await self.poll_once()
+            k += 1
+            now = time.monotonic()
+            if t0 + k * interval < now:
+                k = math.ceil((now - t0) / interval)
+            await asyncio.sleep(max(0.0, t0 + k * interval - time.monotonic()))
+
+    def meter_status(self) -> dict[str, MeterStatus]:
+        return {mid: self._status(u) for mid, u in self._units.items()}
+
+    def plc_status(self) -> dict[str, MeterStatus]:
+        return {pid: self._status(u) for pid, u in self._plc_units.items()}
+
+    async def close(self) -> None:
+        for link in self._links.values():
+            if link.client is not None:
+                link.client.close()
+                link.client = None
+        self._started = False
+
+    # ------------------------------------------------------------ connection
+
+    async def _connect(self, link: EndpointLink, now: float) -> bool:
+        if link.client is None:
+            # one timeout for every unit: pymodbus enforces it; else ours does and theirs is a backstop
+            link.client = _make_client(link.transport, link.timeout_s + (0 if link.uniform_timeout else 0.5))
+        else:
+            link.client.close()
+        try:
+            async with asyncio.timeout(max(link.timeout_s, 0.1) * 2):
+                ok = await link.client.connect()
+        except (TimeoutError, OSError, ModbusException) as exc:
+            ok, link.last_error = False, f"connect failed: {exc or type(exc).__name__}"
+        if ok:
+            link.backoff.reset()
+            link.silent_reads = 0
+            link.connects += 1
+            link.last_error = ""
+            return True
+        link.client.close()
+        delay = link.backoff.fail(now)
+        link.last_error = f"cannot connect to {link.endpoint}; next try in {delay:.1f} s"
+        return False
+
+    def _drop(self, link: EndpointLink, why: str) -> None:
+        """Close a link that went bad; the next cycle after backoff redials it."""
+        if link.client is not None:
+            link.client.close()
+        link.backoff.fail(time.monotonic())
+        link.last_error = why
+
+    # ------------------------------------------------------------ one cycle
+
+    async def _poll_link(self, link: EndpointLink, time_utc: datetime):
+        now = time.monotonic()
+        if not link.connected and link.backoff.ready(now):
+            await self._connect(link, now)  # first redial after a drop is immediate
+        blocks: dict[str, MeterBlock] = {}
+        bits: dict[tuple[str, str], bool] = {}
+        for unit in link.units:
+            if unit.meter is not None:
+                blocks[unit.id] = await self._poll_meter(link, unit, time_utc)
+            else:
+                bits.update(await self._poll_plc(link, unit, time_utc))
+        return blocks, bits
+
+    async def _read(self, link: EndpointLink, unit: _Unit, kind: str, address: int, count: int):
+        """One read with the unit's timeout and retries -> (values, retried)."""
+        for attempt in range(unit.retries + 1):
+            if not link.connected:
+                raise _Disconnected(link.last_error or f"{link.endpoint} not connected")
+            client = link.client
+            assert client is not None
+            fn = getattr(client, _READ_METHOD[kind])
+            async with link.lock:
+                try:
+                    if link.uniform_timeout:  # the client's own timeout is this unit's
+                        rr = await fn(address, count=count, device_id=unit.unit_id)
+                    else:
+                        async with asyncio.timeout(unit.timeout_s):
+                            rr = await fn(address, count=count, device_id=unit.unit_id)
+                except (TimeoutError, ModbusIOException):
+                    link.silent_reads += 1
+                    if link.is_serial:
+                        await asyncio.sleep(RTU_QUIET_S)
+                    continue
+                except ConnectionException as exc:
+                    raise _Disconnected(str(exc)) from exc
+            link.silent_reads = 0
+            if rr.isError():
+                raise _DeviceException(int(getattr(rr, "exception_code", 0) or 0))
+            data = list(rr.bits[:count]) if kind in ("coil", "discrete") else list(rr.registers)
+            if len(data) != count:
+                raise _BadReply(f"asked for {count} values at {address}, got {len(data)}")
+            return data, attempt > 0
+        if link.silent_reads >= RECONNECT_AFTER_SILENT * (unit.retries + 1) and all(
+            u.backoff.failures > 0 or u is unit for u in link.units
+        ):
+            self._drop(link, f"no unit on {link.endpoint} answers; reconnecting")
+        raise _NoAnswer(f"no answer within {unit.timeout_s:g} s x {unit.retries + 1}")
+
+    async def _poll_meter(self, link: EndpointLink, unit: _Unit, time_utc: datetime) -> MeterBlock:
+        assert unit.plan is not None and unit.meter is not None
+        keys = [k for r in unit.plan.requests for k in r.keys]
+        values = dict.fromkeys(keys, math.nan)
+        quality: dict[str, Quality] = {}
+        errors: list[str] = []
+        exception_code: int | None = None
+        retried = no_answer = False
+        latency = math.nan
+        now = time.monotonic()
+        if not link.connected or not unit.backoff.ready(now):
+            reason = (link.last_error or f"{link.endpoint} not connected") if not link.connected else (
+                f"unit {unit.unit_id} silent; next try in {max(0.0, unit.backoff.next_try - now):.1f} s")
+            quality = dict.fromkeys(keys, Quality.OFFLINE)
+            return self._finish(unit, values, quality, CommState.OFFLINE, reason, None, latency, time_utc)
+        t0 = time.monotonic()
+        requests = unit.plan.requests
+        for i, req in enumerate(requests):
+            try:
+                words, r = await self._read(link, unit, req.kind, req.address, req.count)
+                retried |= r
+                unit.decoders[i].decode(words, values, quality, errors)
+                continue
+            except _NoAnswer as exc:
+                no_answer = True
+                errors.append(str(exc))
+                rest = Quality.TIMEOUT
+            except _DeviceException as exc:
+                exception_code = exception_code or exc.code
+                errors.append(f"exception {exc.code:#04x} reading FC{req.function_code} {req.address}+{req.count}")
+                quality.update(dict.fromkeys(req.keys, Quality.EXCEPTION))
+                if exc.code not in GATEWAY_NO_TARGET:
+                    continue
+                no_answer = True  # the gateway could not reach the unit: same as silence
+                rest = Quality.TIMEOUT
+            except _BadReply as exc:
+                errors.append(str(exc))
+                quality.update(dict.fromkeys(req.keys, Quality.DECODE))
+                continue
+            except _Disconnected as exc:
+                errors.append(str(exc))
+                rest = Quality.OFFLINE
+            for rq in requests[i:]:  # give up on this unit for the cycle
+                for k in rq.keys:
+                    quality.setdefault(k, rest)
+            break
+        latency = time.monotonic() - t0
+        n_ok = sum(q is Quality.OK for q in quality.values())
+        if n_ok:
+            unit.backoff.reset()
+        elif no_answer:
+            unit.backoff.fail(time.monotonic())
+        if all(q is Quality.OFFLINE for q in quality.values()):
+            state = CommState.OFFLINE
+        elif n_ok == 0:
+            state = CommState.FAILING
+        elif n_ok < len(quality) or retried:
+            state = CommState.DEGRADED
+        else:
+            state = CommState.OK
+        return self._finish(unit, values, quality, state, "; ".join(errors), exception_code, latency, time_utc)
+
+    def _finish(self, unit: _Unit, values, quality, state: CommState, error: str,
+                exception_code: int | None, latency: float, time_utc: datetime) -> MeterBlock:
+        unit.state = state
+        unit.latency_s = latency
+        if state in (CommState.OK, CommState.DEGRADED):
+            unit.last_good_utc = time_utc
+        if state in (CommState.FAILING, CommState.OFFLINE):
+            unit.error_count += 1
+        else:
+            unit.error_count = 0
+        unit.last_error = error
+        unit.exception_code = exception_code
+        return MeterBlock(
+            meter=unit.id, values=values, quality=quality, state=state, exception_code=exception_code,
+            error=error, last_good_utc=unit.last_good_utc, error_count=unit.error_count, latency_s=latency,
+        )
+
+    async def _poll_plc(self, link: EndpointLink, unit: _Unit, time_utc: datetime) -> dict[tuple[str, str], bool]:
+        out: dict[tuple[str, str], bool] = {}
+        now = time.monotonic()
+        if not unit.status_reads:
+            return out
+        if not link.connected or not unit.backoff.ready(now):
+            unit.state, unit.last_error = CommState.OFFLINE, link.last_error or "in backoff"
+            unit.error_count += 1
+            return out
+        errors: list[str] = []
+        no_answer = False
+        t0 = time.monotonic()
+        for rd in unit.status_reads:
+            try:
+                bits, _ = await self._read(link, unit, rd.kind, rd.address, rd.count)
+            except _NoAnswer as exc:
+                errors.append(str(exc))
+                no_answer = True
+                break
+            except _DeviceException as exc:
+                errors.append(f"exception {exc.code:#04x} reading {rd.kind} {rd.address}+{rd.count}")
+                unit.exception_code = exc.code
+                continue
+            except (_BadReply, _Disconnected) as exc:
+                errors.append(str(exc))
+                continue
+            for sid, addr in rd.switches:
+                out[(unit.id, sid)] = bool(bits[addr - rd.address])
+        unit.latency_s = time.monotonic() - t0
+        if out:
+            unit.backoff.reset()
+            unit.last_good_utc = time_utc
+            unit.error_count = 0
+            unit.state = CommState.DEGRADED if errors else CommState.OK
+        else:
+            if no_answer:
+                unit.backoff.fail(time.monotonic())
+            unit.error_count += 1
+            unit.state = CommState.FAILING
+        unit.last_error = "; ".join(errors)
+        return out
+
+    def _switch_state(self, sw: Switch, bits: dict[tuple[str, str], bool]) -> str:
+        if sw.plc is None or sw.status is None:
+            return "unknown"
+        closed = bits.get((sw.plc, sw.id))
+        return "unknown" if closed is None else ("closed" if closed else "open")
+
+    @staticmethod
+    def _status(u: _Unit) -> MeterStatus:
+        return MeterStatus(u.state, u.last_good_utc, u.error_count, u.last_error, u.exception_code, u.latency_s)
+
+
+def plc_of(profile: Profile, plc_id: str) -> Plc:
+    for p in profile.plcs:
+        if p.id == plc_id:
+            return p
+    raise KeyError(plc_id)
