@@ -1,0 +1,124 @@
+"""Solve time and iterations of the phase-frame Newton-Raphson load flow.
+
+Run:  /work/venv/bin/python benchmarks/bench_solver.py [--repeat N]
+
+Cases: the demo bench in several switch states, and a generated 100-bus radial three-phase
+feeder (seeded, invented data) with unbalanced constant-power loads and sequence-coupled lines.
+For the feeder, pandapower's ``runpp_3ph`` is timed side by side on the same network (a ratio,
+not an absolute claim: pandapower runs here without numba). Times are medians of N runs of
+``build_network`` + ``solve`` (``ideal_readings`` caches per switch state on top of this).
+The solver uses dense numpy linear algebra; on a machine shared by several jobs, set
+OPENBLAS_NUM_THREADS=1 (BLAS threads oversubscribing the cores slowed the 300-node case ~25x).
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import pathlib
+import statistics
+import sys
+import time
+import warnings
+
+import numpy as np
+
+from meas.model import Bench, Branch, Bus, Profile, Zone
+from meas.profile import load_profile
+from meas.sim.network import build_network, element_models
+from meas.sim.solver import solve
+
+DEMO = pathlib.Path(__file__).resolve().parent.parent / "profiles_demo" / "feeder_bench.toml"
+DEMO_STATES = {
+    "normal": {},
+    "meshed (TIE closed)": {"TIE": "closed"},
+    "reactor in": {"RX": "closed"},
+    "meshed + reactor": {"TIE": "closed", "RX": "closed"},
+    "B2 islanded (SW2 open)": {"SW2": "open"},
+}
+
+
+def feeder(n: int = 100, seed: int = 7) -> tuple[Profile, list[tuple], list[tuple]]:
+    """A random radial 400 V feeder: bus k hangs off one of the previous few buses."""
+    rng = np.random.default_rng(seed)
+    buses = [Bus(f"N{k}", "lv") for k in range(n)]
+    branches = [Branch("SRC", "source", "N0", sim={"v_ll": 410.0, "sc_va": 2e6, "x_r": 6.0})]
+    lines, loads = [], []
+    for k in range(1, n):
+        parent = int(rng.integers(max(0, k - 4), k))
+        r, x = rng.uniform(0.004, 0.012), rng.uniform(0.003, 0.008)
+        b = rng.uniform(2.0, 8.0)
+        lines.append((f"L{k}", parent, k, r, x, b, 3 * r, 3.5 * x, 0.6 * b))
+        branches.append(Branch(f"L{k}", "line", f"N{parent}", f"N{k}",
+                               sim={"r_ohm": r, "x_ohm": x, "b_us": b, "r0_ohm": 3 * r, "x0_ohm": 3.5 * x, "b0_us": 0.6 * b}))
+        p = rng.uniform(50.0, 300.0, 3)
+        q = p * np.tan(np.arccos(rng.uniform(0.9, 0.99, 3)))
+        loads.append((k, p, q))
+        branches.append(Branch(f"LD{k}", "load", f"N{k}", sim={"model": "pq", "p_w": p.tolist(), "q_var": q.tolist()}))
+    bench = Bench("feeder100", 50.0, 1.0, 100e3, (Zone("lv", 400.0, 400.0),))
+    return Profile("feeder100", "", bench, {}, (), tuple(buses), tuple(branches), ()), lines, loads
+
+
+def time_ours(p: Profile, states: dict, repeat: int) -> tuple[float, int, float, float]:
+    models = element_models(p)
+    times, sol = [], None
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        sol = solve(build_network(p, states, models))
+        times.append(time.perf_counter() - t0)
+    vmin = min(float(np.min(np.abs(v[np.abs(v) > 0]))) for v in sol.v.values() if np.any(np.abs(v) > 0))
+    return statistics.median(times), sol.iterations, sol.max_mismatch_va, vmin / (400 / math.sqrt(3))
+
+
+def time_pandapower(lines: list[tuple], loads: list[tuple], n: int, repeat: int) -> float | None:
+    try:
+        import pandapower as pp
+        from pandapower.pf.runpp_3ph import runpp_3ph
+    except ImportError:
+        return None
+    warnings.filterwarnings("ignore")
+    net = pp.create_empty_network(f_hz=50.0, sn_mva=0.1)
+    bus = [pp.create_bus(net, 0.4) for _ in range(n)]
+    emf = pp.create_bus(net, 0.4)
+    pp.create_ext_grid(net, emf, vm_pu=410 / 400, s_sc_max_mva=1e6, rx_max=0.1, x0x_max=1.0, r0x0_max=0.1)
+    z = 410.0**2 / 2e6
+    r = z / math.sqrt(37)
+    pp.create_line_from_parameters(net, emf, bus[0], 1.0, r, 6 * r, 0.0, 10.0, r0_ohm_per_km=r, x0_ohm_per_km=6 * r,
+                                   c0_nf_per_km=0.0)
+    w = 2 * math.pi * 50
+    for _, f, t, r, x, b, r0, x0, b0 in lines:
+        pp.create_line_from_parameters(net, bus[f], bus[t], 1.0, r, x, b / w * 1e3, 10.0, r0_ohm_per_km=r0,
+                                       x0_ohm_per_km=x0, c0_nf_per_km=b0 / w * 1e3)
+    for k, p, q in loads:
+        pp.create_asymmetric_load(net, bus[k], *(p / 1e6), *(q / 1e6), type="wye")
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        runpp_3ph(net, tolerance_mva=1e-10)
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=21)
+    args = ap.parse_args(argv)
+    rows = []
+    demo = load_profile(str(DEMO))
+    for name, states in DEMO_STATES.items():
+        rows.append((f"demo: {name}", 3 * sum(1 for _ in demo.buses), *time_ours(demo, states, args.repeat)))
+    p, lines, loads = feeder()
+    t100 = time_ours(p, {}, args.repeat)
+    rows.append(("feeder 100 buses, unbalanced", 300, *t100))
+    print(f"{'case':34} {'nodes':>5} {'median ms':>10} {'iter':>4} {'max |dS| VA':>12} {'min |V| pu':>10}")
+    for name, nodes, t, it, mis, vmin in rows:
+        print(f"{name:34} {nodes:5d} {t * 1e3:10.2f} {it:4d} {mis:12.2e} {vmin:10.4f}")
+    tp = time_pandapower(lines, loads, 100, max(3, args.repeat // 4))
+    if tp is not None:
+        print(f"\nfeeder 100: pandapower runpp_3ph median {tp * 1e3:.1f} ms; ours {t100[0] * 1e3:.1f} ms; "
+              f"ratio pandapower/ours = {tp / t100[0]:.1f}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
