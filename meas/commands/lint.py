@@ -1,0 +1,40 @@
+"""``benchwalk lint PROFILE``: list every problem in a profile, or summarize it when clean.
+
+Runs the same validation as every other command (``meas.profile``), but prints all findings
+itself, one per line, so a profile can be fixed in one pass before a session starts.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+from ..profile import check_profile
+
+HELP = "check a bench profile and its sequence file; list every problem"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("profile", metavar="PROFILE", help="bench profile (.toml)")
+
+
+def main(args: argparse.Namespace) -> int:
+    profile, problems = check_profile(args.profile)
+    if profile is None:
+        for p in problems:
+            print(p)
+        print(f"{_plural(len(problems), 'problem')} in {args.profile}")
+        return 2
+    counts = [
+        (len(profile.meters), "meter"),
+        (len(profile.maps), "map"),
+        (len(profile.buses), "bus"),
+        (len(profile.branches), "branch"),
+        (len(profile.switches), "switch"),
+        (len(profile.steps), "step"),
+    ]
+    print(f"{profile.bench.name}: ok - " + ", ".join(_plural(n, word) for n, word in counts))
+    return 0
+
+
+def _plural(n: int, word: str) -> str:
+    return f"{n} {word}" if n == 1 else f"{n} {word}{'es' if word[-1] in 'sh' else 's'}"
