@@ -1,0 +1,425 @@
+"""The simulated bench: PLC, transients, meter noise and faults, served as real Modbus on loopback.
+
+``SimulatedBench(profile)`` starts one pymodbus server per TCP endpoint of the profile (meters
+that share a host:port become unit ids behind one gateway; a PLC gets its coils and discrete
+inputs), then an update loop at ``[sim] update_hz`` advances the PLC and the transient,
+recomputes the load flow only when the switch states change (cached per state), applies
+faults and noise, and writes every meter's registers with ``meas.registers.encode``.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import dataclasses
+import logging
+import math
+import time
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import BenchwalkError
+from ..model import Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
+from ..registers import encode
+from ..scaling import to_primary
+from ..snapshot import Snapshot
+from .faults import Fault, find, validate_faults
+from .meters import Phasors, phasors_from_ideal, snapshot_of, values_from_phasors
+from .plc import PlcSim, Transient, settle_settings
+from .readings import ideal_readings
+from .server import (
+    FC_COIL,
+    FC_DISCRETE,
+    FC_HOLDING,
+    FC_INPUT,
+    DelayFront,
+    UnitGate,
+    meter_device,
+    plc_device,
+    start_rtu,
+    start_tcp,
+    stop_server,
+)
+
+log = logging.getLogger(__name__)
+_FC = {"holding": FC_HOLDING, "input": FC_INPUT}
+
+
+@dataclass(frozen=True)
+class Endpoint:
+    """One served unit, as printed by ``benchwalk sim``."""
+
+    kind: str  # "meter" | "plc"
+    id: str
+    label: str
+    host: str
+    port: int
+    unit_id: int
+
+
+@dataclass
+class _RegisterLayout:
+    """Where one meter's values go: per register kind the span start and each spec's offset."""
+
+    blocks: dict[str, tuple[int, int, list]]  # kind -> (start, length, [spec, ...])
+
+    @classmethod
+    def of(cls, specs) -> _RegisterLayout:
+        blocks = {}
+        for kind in ("holding", "input"):
+            mine = [s for s in specs if s.kind == kind]
+            if mine:
+                lo = min(s.address for s in mine)
+                blocks[kind] = (lo, max(s.end for s in mine) - lo, mine)
+        return cls(blocks)
+
+    def words(self, values: Mapping[str, float]) -> list[tuple[int, int, list[int]]]:
+        out = []
+        for kind, (lo, n, specs) in self.blocks.items():
+            regs = [0] * n
+            for s in specs:
+                regs[s.address - lo : s.end - lo] = encode(s, values[s.key])
+            out.append((_FC[kind], lo, regs))
+        return out
+
+
+def _phasors(state, meter_id: str, ideal: Mapping[str, float], f0: float) -> Phasors:
+    """The load flow's own phasors when it gives them, else rebuilt from magnitudes and angles."""
+    given = getattr(state, "phasors", {}).get(meter_id)
+    if given is None:
+        return phasors_from_ideal(ideal, f0)
+    v, i = given
+    return Phasors(np.array(v, dtype=complex), np.array(i, dtype=complex), float(ideal.get("f.T", f0)))
+
+
+class SimulatedBench:
+    """The whole simulated bench in this event loop. Bind is 127.0.0.1 unless ``host`` says else.
+
+    ``port_map``: None = the profile's ports; ``"free"`` = ports from the OS; or a mapping
+    profile port -> port to use. ``readings`` replaces the load flow (tests with hand-made
+    ideal readings); ``clock`` is the time source (seconds, monotonic).
+    """
+
+    def __init__(
+        self,
+        profile: Profile,
+        faults: Sequence[Fault] = (),
+        *,
+        host: str = "127.0.0.1",
+        port_map: str | Mapping[int, int] | None = None,
+        seed: int | None = None,
+        noise: bool = True,
+        readings: Callable[[Profile, dict[str, str]], object] | None = None,
+        clock: Callable[[], float] = time.monotonic,
+    ):
+        validate_faults(profile, faults)
+        self.profile = profile
+        self.host = host
+        self.port_map = port_map
+        self.noise = noise
+        seed = profile.sim.get("seed") if seed is None else seed
+        self.rng = np.random.default_rng(seed)
+        self._readings = readings
+        self.clock = clock
+        self.update_hz = float(profile.sim.get("update_hz", 10))
+        if not math.isfinite(self.update_hz) or self.update_hz < 10:
+            raise BenchwalkError(f"{profile.path}: sim.update_hz must be at least 10, got {self.update_hz:g}")
+        self.tau, self.transient_kind = settle_settings(profile)
+        self.plc = PlcSim(profile, t=clock())
+        self._faults: tuple[Fault, ...] = tuple(faults)
+        self._gates: dict[str, UnitGate] = {m.id: UnitGate() for m in profile.meters}
+        self._cache: dict[tuple, dict[str, Phasors]] = {}
+        self._transient: Transient | None = None
+        self._layouts = {m.id: _RegisterLayout.of(profile.maps[m.map_id].registers) for m in profile.meters}
+        self._targets: dict[str, list] = {m.id: [] for m in profile.meters}  # meter -> [(server, unit)]
+        self._plc_targets: list[tuple[object, int]] = []
+        self._servers: list = []
+        self._fronts: list[DelayFront] = []
+        self._energy = {m.id: [0.0, 0.0] for m in profile.meters}
+        self._last_pt = {m.id: 0.0 for m in profile.meters}
+        self._last_t: float | None = None
+        self._task: asyncio.Task | None = None
+        self.values: dict[str, dict[str, float]] = {}  # last written, engineering units, meter's side
+        self.endpoints: list[Endpoint] = []
+        self.bound: Profile | None = None  # the profile as served, once started
+        self._front_meters: dict[int, set[str]] = {}
+        self.update_times: list[float] = []  # clock() of each update, for rate measurements
+        self.loads: int = 0  # load flows computed (cache misses)
+        self._apply_gates()
+
+    # ------------------------------------------------------------------ faults
+
+    @property
+    def faults(self) -> tuple[Fault, ...]:
+        return self._faults
+
+    def set_faults(self, faults: Sequence[Fault]) -> None:
+        """Change the injected faults while running (``frozen`` freezes from this moment)."""
+        validate_faults(self.profile, faults)
+        if self._servers:
+            fronted = {m for f in self._fronts for m in self._front_meters.get(id(f), ())}
+            for f in faults:
+                if f.kind == "slow" and f.meter not in fronted:
+                    raise BenchwalkError(f"fault {f.text!r}: slow faults must be given when the bench starts")
+        self._faults = tuple(faults)
+        self._apply_gates()
+
+    def _apply_gates(self) -> None:
+        for mid, gate in self._gates.items():
+            gate.offline = find(mid, self._faults, "offline") is not None
+            exc = find(mid, self._faults, "exception")
+            gate.exception_code = int(exc.arg) if exc else None  # type: ignore[arg-type]
+            slow = find(mid, self._faults, "slow")
+            gate.delay_s = float(slow.arg) if slow else 0.0  # type: ignore[arg-type]
+
+    def requests_seen(self, meter_id: str) -> int:
+        """Client requests that reached this meter (the bench's own updates not counted)."""
+        return self._gates[meter_id].requests
+
+    # ------------------------------------------------------------------ switches and readings
+
+    def switch_states(self) -> dict[str, SwitchState]:
+        return self.plc.states()
+
+    def operate_by_hand(self, switch_id: str, state: SwitchState) -> None:
+        """The simulated technician operates a switch at its panel (not a Modbus write)."""
+        self.plc.operate_by_hand(switch_id, state, self.clock())
+
+    def _ideal(self, states: Mapping[str, str]) -> dict[str, Phasors]:
+        key = tuple(sorted(states.items()))
+        hit = self._cache.get(key)
+        if hit is None:
+            bench_state = (self._readings or ideal_readings)(self.profile, dict(states))
+            hit = {mid: _phasors(bench_state, mid, r, self.profile.bench.frequency_hz) for mid, r in bench_state.meters.items()}  # type: ignore[attr-defined]
+            self._cache[key] = hit
+            self.loads += 1
+        return hit
+
+    def steady(self) -> dict[str, Phasors]:
+        """The ideal phasors of every meter for the present switch states (no transient)."""
+        return self._ideal(self.plc.states())
+
+    def compute(self, t: float) -> dict[str, dict[str, float]]:
+        """Advance PLC, transient and energy counters to ``t``; the values every meter reports.
+
+        Frozen meters keep their last values. Pure of I/O: ``update`` writes the result.
+        """
+        changed = self.plc.advance(t)
+        if self._transient is None:
+            self._transient = Transient(self.transient_kind, self.tau, self.steady(), t)
+        elif changed:  # the transient starts when the contacts moved, even if asked later
+            self._transient.retarget(self.steady(), min(self.plc.changed_at, t))
+        now = self._transient.at(t)
+        dt_h = 0.0 if self._last_t is None else max(t - self._last_t, 0.0) / 3600.0
+        self._last_t = t
+        out = {}
+        for meter in self.profile.meters:
+            if find(meter.id, self._faults, "frozen") and meter.id in self.values:
+                out[meter.id] = self.values[meter.id]
+                continue
+            e = self._energy[meter.id]
+            p = self._last_pt[meter.id]
+            if p > 0:
+                e[0] += p * dt_h
+            else:
+                e[1] -= p * dt_h
+            vals = values_from_phasors(self.profile, meter.id, now[meter.id], self._faults, self.rng, self.noise, (e[0], e[1]))
+            self._last_pt[meter.id] = to_primary(meter, "p.T", vals["p.T"]) if "p.T" in vals else 0.0
+            out[meter.id] = vals
+        return out
+
+    def snapshot(self, t: float, seq: int = 0, previous: Snapshot | None = None) -> Snapshot:
+        """Advance to ``t`` and return what a poller would decode then, without sockets.
+
+        For testing settle and checks over many snapshots through real transients. Does not
+        write registers; do not mix with a running update loop.
+        """
+        self.values = self.compute(t)
+        return snapshot_of(self.profile, self.values, self._faults, seq, self.plc.states(), t_mono=t, previous=previous)
+
+    async def update(self, t: float | None = None) -> None:
+        """One update: compute and write every meter's registers and the PLC's status points."""
+        t = self.clock() if t is None else t
+        values = self.compute(t)
+        for mid, vals in values.items():
+            if vals is self.values.get(mid):
+                continue  # frozen: the registers keep what they hold
+            blocks = self._layouts[mid].words(vals)
+            for server, unit in self._targets[mid]:
+                for fc, lo, regs in blocks:
+                    await server.async_setValues(unit, fc, lo, regs)
+        self.values = values
+        await self._write_plc()
+        self.update_times.append(t)
+        if len(self.update_times) > 10000:
+            del self.update_times[:5000]
+
+    async def _write_plc(self) -> None:
+        if not self._plc_targets:
+            return
+        discretes = [(a, v) for kind, a, v in self.plc.status_bits() if kind == "discrete"]
+        coils = [(a, v) for kind, a, v in self.plc.status_bits() if kind == "coil"]
+        for server, unit in self._plc_targets:
+            if discretes:
+                bits = [False] * (max(a for a, _ in discretes) + 1)
+                for a, v in discretes:
+                    bits[a] = v
+                await server.async_setValues(unit, FC_DISCRETE, 0, bits)
+            for a, v in coils:
+                await server.async_setValues(unit, FC_COIL, a, [v])
+
+    # ------------------------------------------------------------------ servers
+
+    def _port_for(self, port: int) -> int:
+        if self.port_map == "free":
+            return 0
+        if isinstance(self.port_map, Mapping):
+            return int(self.port_map.get(port, port))
+        return port
+
+    def _plc_device(self, plc: Plc):
+        switches = [s for s in self.profile.switches if s.plc == plc.id]
+        coils = [s.command_coil for s in switches if s.command_coil is not None]
+        coils += [s.status.address for s in switches if s.status and s.status.kind == "coil"]
+        discretes = [s.status.address for s in switches if s.status and s.status.kind == "discrete"]
+
+        def on_write(address: int, value: bool) -> bool:
+            ok = self.plc.command_coil(address, value, self.clock())
+            if ok:
+                log.info("PLC %s: coil %d <- %s", plc.id, address, value)
+            return ok
+
+        return plc_device(plc.unit_id, coils, discretes, on_write)
+
+    async def start(self) -> Profile:
+        """Serve every TCP endpoint and start updating; the profile as actually bound."""
+        groups: dict[tuple[str, int], list[Meter | Plc]] = {}
+        for item in (*self.profile.meters, *self.profile.plcs):
+            if isinstance(item.transport, TcpTransport):
+                groups.setdefault((item.transport.host, item.transport.port), []).append(item)
+        bound: dict[tuple[str, int], int] = {}
+        try:
+            for (host, port), items in groups.items():
+                units = [i.unit_id for i in items]
+                if len(set(units)) != len(units):
+                    raise BenchwalkError(f"{self.profile.path}: two devices on {host}:{port} share a unit id")
+                devices = [
+                    meter_device(i.unit_id, self.profile.maps[i.map_id], self._gates[i.id]) if isinstance(i, Meter) else self._plc_device(i)
+                    for i in items
+                ]
+                slow = [i.id for i in items if isinstance(i, Meter) and find(i.id, self._faults, "slow")]
+                want = self._port_for(port)
+                if slow:  # pymodbus behind, a delaying front on the public port
+                    server, back_port = await start_tcp(devices, "127.0.0.1", 0)
+                    front = DelayFront(self.host, want, ("127.0.0.1", back_port), {i.unit_id: self._gates[i.id] for i in items if isinstance(i, Meter)})
+                    self._servers.append(server)
+                    bound[(host, port)] = await front.start()
+                    self._fronts.append(front)
+                    self._front_meters[id(front)] = {i.id for i in items if isinstance(i, Meter)}
+                else:
+                    server, bound[(host, port)] = await start_tcp(devices, self.host, want)
+                    self._servers.append(server)
+                for i in items:
+                    if isinstance(i, Meter):
+                        self._targets[i.id].append((server, i.unit_id))
+                    else:
+                        self._plc_targets.append((server, i.unit_id))
+                    self.endpoints.append(
+                        Endpoint("meter" if isinstance(i, Meter) else "plc", i.id, getattr(i, "label", ""), self.host, bound[(host, port)], i.unit_id)
+                    )
+            await self.update()
+        except BaseException:
+            await self.stop()
+            raise
+        self._task = asyncio.create_task(self._run(), name="benchwalk-sim-update")
+        self.bound = self.bound_profile(bound)
+        return self.bound
+
+    def bound_profile(self, bound: Mapping[tuple[str, int], int]) -> Profile:
+        """A copy of the profile whose TCP transports point at the bound host and ports."""
+
+        def moved(item):
+            tr = item.transport
+            if isinstance(tr, TcpTransport) and (tr.host, tr.port) in bound:
+                return dataclasses.replace(item, transport=TcpTransport(self.host, bound[(tr.host, tr.port)]))
+            return item
+
+        return dataclasses.replace(
+            self.profile,
+            meters=tuple(moved(m) for m in self.profile.meters),
+            plcs=tuple(moved(p) for p in self.profile.plcs),
+        )
+
+    def listening(self) -> list[tuple[str, int]]:
+        """(host, port) of every listening TCP socket the bench holds, for tests and logs."""
+        out = []
+        for holder in [*(getattr(s, "transport", None) for s in self._servers), *(f.server for f in self._fronts)]:
+            for sock in getattr(holder, "sockets", None) or ():
+                out.append(tuple(sock.getsockname()[:2]))
+        return out
+
+    async def serve_rtu(
+        self,
+        device: str,
+        meter_ids: Iterable[str] | None = None,
+        *,
+        baudrate: int = 19200,
+        parity: str = "N",
+        stopbits: int = 1,
+        bytesize: int = 8,
+    ):
+        """Also serve meters as RTU slaves on a serial path (a pty in tests).
+
+        ``meter_ids`` default: the profile's RTU meters whose device is ``device``.
+        """
+        if meter_ids is None:
+            meter_ids = [m.id for m in self.profile.meters if isinstance(m.transport, RtuTransport) and m.transport.device == device]
+        meters = [self.profile.meter(mid) for mid in meter_ids]
+        if not meters:
+            raise BenchwalkError(f"no meter of {self.profile.path} to serve on {device}")
+        devices = [meter_device(m.unit_id, self.profile.maps[m.map_id], self._gates[m.id]) for m in meters]
+        server = await start_rtu(devices, device, baudrate, parity, stopbits, bytesize)
+        self._servers.append(server)
+        for m in meters:
+            self._targets[m.id].append((server, m.unit_id))
+        await self.update()
+        return server
+
+    async def _run(self) -> None:
+        period = 1.0 / self.update_hz
+        next_t = time.monotonic()
+        while True:
+            try:
+                await self.update()
+            except asyncio.CancelledError:
+                raise
+            except Exception:  # keep serving; a bad cycle must not stop the bench
+                log.exception("simulated bench update failed")
+            next_t += period
+            delay = next_t - time.monotonic()
+            if delay < 0:
+                next_t = time.monotonic()
+                delay = 0
+            await asyncio.sleep(delay)
+
+    async def stop(self) -> None:
+        if self._task:
+            self._task.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await self._task
+            self._task = None
+        for front in self._fronts:
+            await front.stop()
+        for server in self._servers:
+            await stop_server(server)
+        self._fronts.clear()
+        self._servers.clear()
+
+    async def __aenter__(self) -> SimulatedBench:
+        await self.start()
+        return self
+
+    async def __aexit__(self, *exc) -> None:
+        await self.stop()
