@@ -32,13 +32,16 @@ def _load(name: str):
     return importlib.import_module(f"meas.commands.{COMMANDS[name]}")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The parser; with ``only`` set, just that subcommand's module is imported (fast start)."""
     parser = argparse.ArgumentParser(
         prog="benchwalk",
         description="Walk a metered bench through its switching sequence and record checked readings.",
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
+        if only is not None and name != only:
+            continue
         try:
             mod = _load(name)
         except ModuleNotFoundError as exc:
@@ -52,7 +55,9 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    first = next((a for a in argv if not a.startswith("-")), None)
+    parser = build_parser(first if first in COMMANDS else None)
     args = parser.parse_args(argv)
     if not getattr(args, "_module", None):
         parser.print_help()
