@@ -1,0 +1,27 @@
+"""``benchwalk export SESSION``: turn a session journal into a tidy, self-describing dataset folder."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ..dataset import export_session, terminal_progress
+
+HELP = "export a session journal as a dataset folder (CSV, Parquet, datapackage.json, profile)"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("session", metavar="SESSION", help="session id (in $BENCHWALK_SESSIONS or ./sessions) or path to the journal file")
+    parser.add_argument("--out", metavar="DIR", type=Path, default=None, help="dataset folder to write (default: beside the journal, SESSION-dataset)")
+    parser.add_argument("--overwrite", action="store_true", help="replace an existing dataset folder")
+
+
+def main(args: argparse.Namespace) -> int:
+    bar, update = terminal_progress("exporting")
+    if bar is not None:
+        with bar:
+            out = export_session(args.session, args.out, overwrite=args.overwrite, progress=update)
+    else:
+        out = export_session(args.session, args.out, overwrite=args.overwrite)
+    print(f"dataset written: {out}")
+    return 0

@@ -1,0 +1,21 @@
+"""``benchwalk report DATASET``: a commissioning report as one HTML file and a Markdown file."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ..report import write_report
+
+HELP = "write the commissioning report (self-contained HTML and Markdown) of a dataset"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("dataset", metavar="DATASET", type=Path, help="dataset folder written by benchwalk export")
+    parser.add_argument("--out", metavar="FILE", type=Path, default=None, help="HTML file to write (default: DATASET-report.html beside the dataset folder); the Markdown goes beside it")
+
+
+def main(args: argparse.Namespace) -> int:
+    html_path, md_path = write_report(args.dataset, args.out)
+    print(f"report written: {html_path}\n                {md_path}")
+    return 0
