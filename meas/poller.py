@@ -6,13 +6,22 @@ are polled in turn under that endpoint's lock, endpoints run concurrently. Conne
 handling is ours alone (pymodbus ``reconnect_delay=0``): capped exponential backoff with
 jitter around ``connect()``, and a separate backoff per unit id so a dead meter behind a
 gateway costs its neighbours one timeout, not one per cycle, and never drops their link.
-A unit that stops answering skips the rest of its reads for the cycle, which bounds its
-cost to ``timeout_s * (retries + 1)``.
+A unit that stops answering skips the rest of its reads for the cycle; a unit already in
+backoff is probed with one attempt (no retries) and after its healthy neighbours.
+
+Cycle deadline: a cycle waits for its answers only until ``max(interval, 1.5 x the learned
+healthy time of the slowest endpoint + 50 ms)``. A unit that has not answered by then is
+reported with quality timeout for that cycle while its request finishes in the background
+on its endpoint's worker task (one task and one outstanding request per client). An answer
+belongs only to the cycle it was requested for and is dropped if that cycle has closed, so a
+late reply is never shown under a later cycle. The first pass over an endpoint has no
+learned time and waits for every unit's full budget.
 """
 
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import logging
 import math
 import random
@@ -38,6 +47,11 @@ MAX_BIT_READ = 2000  # coils / discrete inputs per read, Modbus Application Prot
 BIT_GAP = 16  # unused status bits one read may bridge
 RECONNECT_AFTER_SILENT = 3  # consecutive unanswered reads on an open link before we redial
 RTU_QUIET_S = 0.05  # after an RTU timeout: let a late reply drain before the next request
+DEADLINE_HEADROOM = 1.5  # cycle deadline = headroom x learned healthy endpoint time + margin
+DEADLINE_MARGIN_S = 0.05
+RUN_SLOT_MARGIN_S = 0.005  # run(): a cycle's answers are due this long before the next slot
+ANSWER_DECAY = 0.9  # per cycle: how fast a slow answer stops widening the deadline
+_FC_FOR_KIND = {"coil": 1, "discrete": 2, "holding": 3, "input": 4}
 _READ_METHOD = {"holding": "read_holding_registers", "input": "read_input_registers",
                 "coil": "read_coils", "discrete": "read_discrete_inputs"}
 
@@ -88,7 +102,9 @@ class MeterStatus:
 
 
 class _Disconnected(Exception):
-    pass
+    def __init__(self, why: str, during: bool = False):
+        super().__init__(why)
+        self.during = during  # the link died under this unit's request: blame the unit
 
 
 class _NoAnswer(Exception):
@@ -96,7 +112,9 @@ class _NoAnswer(Exception):
 
 
 class _BadReply(Exception):
-    pass
+    def __init__(self, why: str, costly: bool = False):
+        super().__init__(why)
+        self.costly = costly  # it cost a timeout: back the unit off like a silent one
 
 
 class _DeviceException(Exception):
@@ -134,6 +152,49 @@ class _Unit:
     last_error: str = "not polled yet"
     exception_code: int | None = None
     latency_s: float = math.nan
+    answer_s: float = 0.0  # decaying max of the time a full answered poll takes
+    pending: int = 0  # cycles in a row delivered as pending (request still outstanding)
+
+    @property
+    def requests(self) -> int:
+        return len(self.plan.requests) if self.plan is not None else len(self.status_reads)
+
+
+@dataclass
+class _Draft:
+    """What one unit's poll produced, before it is delivered into its cycle's Snapshot."""
+
+    values: dict[str, float]
+    quality: dict[str, Quality]
+    state: CommState
+    error: str
+    exception_code: int | None
+    latency_s: float
+    bits: dict[tuple[str, str], bool] = field(default_factory=dict)  # PLC status points
+
+
+@dataclass
+class _Cycle:
+    """One poll cycle being assembled; workers publish drafts into it until it closes."""
+
+    seq: int
+    time_utc: datetime
+    deadline: float  # monotonic
+    remaining: set[str]  # endpoints that have not finished their pass for this cycle
+    drafts: dict[str, _Draft] = field(default_factory=dict)
+    done: asyncio.Event = field(default_factory=asyncio.Event)
+    closed: bool = False
+
+    def publish(self, unit_id: str, draft: _Draft) -> bool:
+        if self.closed:
+            return False  # a late answer: its cycle is gone, never show it under another one
+        self.drafts[unit_id] = draft
+        return True
+
+    def link_done(self, endpoint: str) -> None:
+        self.remaining.discard(endpoint)
+        if not self.remaining:
+            self.done.set()
 
 
 @dataclass
@@ -151,6 +212,10 @@ class EndpointLink:
     silent_reads: int = 0
     uniform_timeout: bool = True  # every unit has the same timeout: pymodbus can enforce it
     connects: int = 0  # successful connects, for tests and diagnostics
+    task: asyncio.Task | None = None  # the worker serving this link's cycles, if running
+    wanted: _Cycle | None = None  # newest cycle this link has not served yet
+    learned: bool = False  # one full pass done: the cycle deadline applies from now on
+    busy_with: str = ""  # unit id whose request is outstanding, for the pending message
 
     @property
     def connected(self) -> bool:
@@ -175,7 +240,42 @@ def _make_client(transport: Transport, timeout_s: float):
             transport.host, port=transport.port, timeout=timeout_s, retries=0, reconnect_delay=0,
         )
     client.set_max_no_responses(1 << 30)  # never let one dead unit drop a shared link
+    _harden(client)
     return client
+
+
+def _harden(client) -> None:
+    """Two pymodbus 3.16 behaviours a hostile device turns into trouble, fixed at the client.
+
+    An undecodable reply (say a byte count beyond the data) raises inside the protocol's
+    ``data_received``: asyncio logs a traceback and closes the shared link. We drop the bytes
+    instead, count them and end the request at once as a bad reply; the link stays up. And a
+    connection lost mid-request leaves the request waiting its full timeout: we fail it at
+    once with ``ConnectionException``.
+    """
+    ctx = client.ctx
+    ctx.bad_frames = 0
+    handle = ctx.framer.handleFrame
+    disconnected = ctx.callback_disconnected
+
+    def guarded_handle(data: bytes, exp_devid: int, exp_tid: int):
+        try:
+            return handle(data, exp_devid, exp_tid)
+        except ModbusIOException:
+            ctx.bad_frames += 1
+            fut = getattr(ctx, "response_future", None)
+            if fut is not None and not fut.done():  # end the request now, not at its timeout
+                fut.set_exception(ModbusIOException("undecodable reply"))
+            return len(data), None
+
+    def failing_disconnected(exc: Exception | None) -> None:
+        fut = getattr(ctx, "response_future", None)
+        if fut is not None and not fut.done():
+            fut.set_exception(ConnectionException(f"connection lost during a request ({exc or 'closed'})"))
+        disconnected(exc)
+
+    ctx.framer.handleFrame = guarded_handle
+    ctx.callback_disconnected = failing_disconnected
 
 
 _BOUNDS = {  # no healthy meter reports values outside these (primary units): DECODE quality
@@ -264,6 +364,7 @@ class Poller:
         self._plc_units: dict[str, _Unit] = {}
         self._seq = 0
         self._started = False
+        self.late_answers = 0  # drafts that arrived after their cycle closed (dropped)
         for m in profile.meters:
             regmap = profile.maps[m.map_id]
             unit = _Unit(m.id, m.unit_id, m.timeout_s, m.retries, self._backoff(),
@@ -329,22 +430,43 @@ class Poller:
         now = time.monotonic()
         await asyncio.gather(*(self._connect(link, now) for link in self._links.values()))
 
-    async def poll_once(self) -> Snapshot:
+    def cycle_budget(self, interval_s: float | None = None) -> float:
+        """Seconds the next cycle may wait for answers (see the module docstring)."""
+        interval = self.profile.poll.interval_s if interval_s is None else interval_s
+        return max([interval, *(self._link_need(link) for link in self._links.values())])
+
+    async def poll_once(self, *, deadline_s: float | None = None) -> Snapshot:
+        """One cycle; returns by ``cycle_budget(deadline_s)`` whatever any meter does."""
         if not self._started:
             await self.start()
         t_mono = time.monotonic()
         time_utc = datetime.now(UTC)
-        results = await asyncio.gather(*(self._poll_link(link, time_utc) for link in self._links.values()))
-        blocks: dict[str, MeterBlock] = {}
-        bits: dict[tuple[str, str], bool] = {}
-        for b, s in results:
-            blocks.update(b)
-            bits.update(s)
-        switches = {sw.id: self._switch_state(sw, bits) for sw in self.profile.switches}
         self._seq += 1
+        cyc = _Cycle(self._seq, time_utc, t_mono + self.cycle_budget(deadline_s), set(self._links))
+        for link in self._links.values():
+            link.wanted = cyc
+            if link.task is None or link.task.done():
+                link.task = asyncio.create_task(self._serve(link), name=f"poll {link.endpoint}")
+        if cyc.remaining:
+            with contextlib.suppress(TimeoutError):
+                async with asyncio.timeout_at(cyc.deadline):
+                    await cyc.done.wait()
+        cyc.closed = True
+        blocks = {}
+        bits: dict[tuple[str, str], bool] = {}
+        for m in self.profile.meters:
+            unit = self._units[m.id]
+            blocks[m.id] = self._deliver(unit, cyc.drafts.get(m.id) or self._pending(unit, cyc, t_mono), time_utc)
+        for unit in self._plc_units.values():
+            draft = cyc.drafts.get(unit.id)
+            if draft is None and unit.status_reads:
+                draft = self._pending(unit, cyc, t_mono)
+            if draft is not None:
+                self._deliver(unit, draft, time_utc)
+                bits.update(draft.bits)
+        switches = {sw.id: self._switch_state(sw, bits) for sw in self.profile.switches}
         return Snapshot(
-            seq=self._seq, time_utc=time_utc, t_mono=t_mono,
-            meters={m.id: blocks[m.id] for m in self.profile.meters},
+            seq=cyc.seq, time_utc=time_utc, t_mono=t_mono, meters=blocks,
             switches=switches, cycle_s=time.monotonic() - t_mono,
         )
 
@@ -354,7 +476,9 @@ class Poller:
         t0 = time.monotonic()
         k = 0
         while True:
-            yield await self.poll_once()
+            # end the cycle just before the next slot, so a pending meter never costs a slot
+            slot_left = t0 + (k + 1) * interval - time.monotonic() - RUN_SLOT_MARGIN_S
+            yield await self.poll_once(deadline_s=max(0.0, slot_left))
             k += 1
             now = time.monotonic()
             if t0 + k * interval < now:
@@ -368,7 +492,16 @@ class Poller:
         return {pid: self._status(u) for pid, u in self._plc_units.items()}
 
     async def close(self) -> None:
+        """Stop the workers (an outstanding request is cancelled) and close every client."""
+        tasks = [link.task for link in self._links.values() if link.task is not None and not link.task.done()]
+        for t in tasks:
+            t.cancel()
+        for t in tasks:
+            with contextlib.suppress(asyncio.CancelledError, Exception):
+                await t
         for link in self._links.values():
+            link.task = None
+            link.wanted = None
             if link.client is not None:
                 link.client.close()
                 link.client = None
@@ -383,7 +516,7 @@ class Poller:
         else:
             link.client.close()
         try:
-            async with asyncio.timeout(max(link.timeout_s, 0.1) * 2):
+            async with asyncio.timeout(self._connect_timeout(link)):
                 ok = await link.client.connect()
         except (TimeoutError, OSError, ModbusException) as exc:
             ok, link.last_error = False, f"connect failed: {exc or type(exc).__name__}"
@@ -398,6 +531,10 @@ class Poller:
         link.last_error = f"cannot connect to {link.endpoint}; next try in {delay:.1f} s"
         return False
 
+    @staticmethod
+    def _connect_timeout(link: EndpointLink) -> float:
+        return max(link.timeout_s, 0.1) * 2
+
     def _drop(self, link: EndpointLink, why: str) -> None:
         """Close a link that went bad; the next cycle after backoff redials it."""
         if link.client is not None:
@@ -407,28 +544,59 @@ class Poller:
 
     # ------------------------------------------------------------ one cycle
 
-    async def _poll_link(self, link: EndpointLink, time_utc: datetime):
+    def _link_need(self, link: EndpointLink) -> float:
+        """How long a cycle should wait for this link: learned healthy time, or the full budget."""
+        if not link.learned:
+            return self._connect_timeout(link) + sum(
+                u.timeout_s * (u.retries + 1) * max(1, u.requests) for u in link.units)
+        healthy = sum(u.answer_s for u in link.units if u.backoff.failures == 0)
+        return DEADLINE_HEADROOM * healthy + DEADLINE_MARGIN_S
+
+    async def _serve(self, link: EndpointLink) -> None:
+        """The link's worker: serve the newest wanted cycle until none is open any more."""
+        while True:
+            cyc, link.wanted = link.wanted, None
+            if cyc is None or cyc.closed:
+                return
+            try:
+                await self._poll_link(link, cyc)
+            finally:
+                link.busy_with = ""
+                cyc.link_done(link.endpoint)
+
+    async def _poll_link(self, link: EndpointLink, cyc: _Cycle) -> None:
         now = time.monotonic()
         if not link.connected and link.backoff.ready(now):
             await self._connect(link, now)  # first redial after a drop is immediate
-        blocks: dict[str, MeterBlock] = {}
-        bits: dict[tuple[str, str], bool] = {}
-        for unit in link.units:
-            if unit.meter is not None:
-                blocks[unit.id] = await self._poll_meter(link, unit, time_utc)
-            else:
-                bits.update(await self._poll_plc(link, unit, time_utc))
-        return blocks, bits
+        # healthy units first: a dead one's probe must not hold back its neighbours
+        for unit in sorted(link.units, key=lambda u: u.backoff.failures > 0):
+            if unit.meter is None and not unit.status_reads:
+                continue  # a PLC with no status points: nothing to read
+            link.busy_with = unit.id
+            try:
+                if unit.meter is not None:
+                    draft = await self._poll_meter(link, unit)
+                else:
+                    draft = await self._poll_plc(link, unit)
+            except (ModbusException, OSError, ValueError, struct.error) as exc:  # never kill the worker
+                log.warning("%s unit %s: %s", link.endpoint, unit.unit_id, exc)
+                draft = self._failed(unit, f"{type(exc).__name__}: {exc}")
+            if not cyc.publish(unit.id, draft):
+                self.late_answers += 1
+        link.learned = True
 
-    async def _read(self, link: EndpointLink, unit: _Unit, kind: str, address: int, count: int):
+    async def _read(self, link: EndpointLink, unit: _Unit, kind: str, address: int, count: int,
+                    attempts: int | None = None):
         """One read with the unit's timeout and retries -> (values, retried)."""
-        for attempt in range(unit.retries + 1):
+        attempts = unit.retries + 1 if attempts is None else attempts
+        for attempt in range(attempts):
             if not link.connected:
                 raise _Disconnected(link.last_error or f"{link.endpoint} not connected")
             client = link.client
             assert client is not None
             fn = getattr(client, _READ_METHOD[kind])
             async with link.lock:
+                bad_before = client.ctx.bad_frames
                 try:
                     if link.uniform_timeout:  # the client's own timeout is this unit's
                         rr = await fn(address, count=count, device_id=unit.unit_id)
@@ -436,26 +604,31 @@ class Poller:
                         async with asyncio.timeout(unit.timeout_s):
                             rr = await fn(address, count=count, device_id=unit.unit_id)
                 except (TimeoutError, ModbusIOException):
+                    if client.ctx.bad_frames != bad_before:
+                        raise _BadReply("undecodable reply", costly=True) from None
+                    if not link.connected:
+                        raise _Disconnected(f"{link.endpoint} closed during the request", during=True) from None
                     link.silent_reads += 1
                     if link.is_serial:
                         await asyncio.sleep(RTU_QUIET_S)
                     continue
                 except ConnectionException as exc:
-                    raise _Disconnected(str(exc)) from exc
+                    raise _Disconnected(str(exc), during=link.client is client) from exc
             link.silent_reads = 0
+            _check_reply(rr, kind, unit.unit_id)
             if rr.isError():
                 raise _DeviceException(int(getattr(rr, "exception_code", 0) or 0))
             data = list(rr.bits[:count]) if kind in ("coil", "discrete") else list(rr.registers)
-            if len(data) != count:
+            if len(data) != count or (kind in ("coil", "discrete") and len(rr.bits) < count):
                 raise _BadReply(f"asked for {count} values at {address}, got {len(data)}")
             return data, attempt > 0
         if link.silent_reads >= RECONNECT_AFTER_SILENT * (unit.retries + 1) and all(
             u.backoff.failures > 0 or u is unit for u in link.units
         ):
             self._drop(link, f"no unit on {link.endpoint} answers; reconnecting")
-        raise _NoAnswer(f"no answer within {unit.timeout_s:g} s x {unit.retries + 1}")
+        raise _NoAnswer(f"no answer within {unit.timeout_s:g} s x {attempts}")
 
-    async def _poll_meter(self, link: EndpointLink, unit: _Unit, time_utc: datetime) -> MeterBlock:
+    async def _poll_meter(self, link: EndpointLink, unit: _Unit) -> _Draft:
         assert unit.plan is not None and unit.meter is not None
         keys = [k for r in unit.plan.requests for k in r.keys]
         values = dict.fromkeys(keys, math.nan)
@@ -463,18 +636,17 @@ class Poller:
         errors: list[str] = []
         exception_code: int | None = None
         retried = no_answer = False
-        latency = math.nan
         now = time.monotonic()
         if not link.connected or not unit.backoff.ready(now):
             reason = (link.last_error or f"{link.endpoint} not connected") if not link.connected else (
                 f"unit {unit.unit_id} silent; next try in {max(0.0, unit.backoff.next_try - now):.1f} s")
-            quality = dict.fromkeys(keys, Quality.OFFLINE)
-            return self._finish(unit, values, quality, CommState.OFFLINE, reason, None, latency, time_utc)
+            return _Draft(values, dict.fromkeys(keys, Quality.OFFLINE), CommState.OFFLINE, reason, None, math.nan)
+        attempts = 1 if unit.backoff.failures else unit.retries + 1  # a probe: is it back?
         t0 = time.monotonic()
         requests = unit.plan.requests
         for i, req in enumerate(requests):
             try:
-                words, r = await self._read(link, unit, req.kind, req.address, req.count)
+                words, r = await self._read(link, unit, req.kind, req.address, req.count, attempts)
                 retried |= r
                 unit.decoders[i].decode(words, values, quality, errors)
                 continue
@@ -493,9 +665,13 @@ class Poller:
             except _BadReply as exc:
                 errors.append(str(exc))
                 quality.update(dict.fromkeys(req.keys, Quality.DECODE))
-                continue
+                if not exc.costly:
+                    continue
+                no_answer = True
+                rest = Quality.DECODE
             except _Disconnected as exc:
                 errors.append(str(exc))
+                no_answer |= exc.during
                 rest = Quality.OFFLINE
             for rq in requests[i:]:  # give up on this unit for the cycle
                 for k in rq.keys:
@@ -503,10 +679,14 @@ class Poller:
             break
         latency = time.monotonic() - t0
         n_ok = sum(q is Quality.OK for q in quality.values())
+        answered = len(quality) == len(keys) and not any(
+            q in (Quality.TIMEOUT, Quality.OFFLINE) for q in quality.values())
         if n_ok:
             unit.backoff.reset()
         elif no_answer:
             unit.backoff.fail(time.monotonic())
+        if answered and not retried:
+            unit.answer_s = max(latency, unit.answer_s * ANSWER_DECAY)
         if all(q is Quality.OFFLINE for q in quality.values()):
             state = CommState.OFFLINE
         elif n_ok == 0:
@@ -515,66 +695,80 @@ class Poller:
             state = CommState.DEGRADED
         else:
             state = CommState.OK
-        return self._finish(unit, values, quality, state, "; ".join(errors), exception_code, latency, time_utc)
+        return _Draft(values, quality, state, "; ".join(errors), exception_code, latency)
 
-    def _finish(self, unit: _Unit, values, quality, state: CommState, error: str,
-                exception_code: int | None, latency: float, time_utc: datetime) -> MeterBlock:
-        unit.state = state
-        unit.latency_s = latency
-        if state in (CommState.OK, CommState.DEGRADED):
-            unit.last_good_utc = time_utc
-        if state in (CommState.FAILING, CommState.OFFLINE):
-            unit.error_count += 1
-        else:
-            unit.error_count = 0
-        unit.last_error = error
-        unit.exception_code = exception_code
-        return MeterBlock(
-            meter=unit.id, values=values, quality=quality, state=state, exception_code=exception_code,
-            error=error, last_good_utc=unit.last_good_utc, error_count=unit.error_count, latency_s=latency,
-        )
-
-    async def _poll_plc(self, link: EndpointLink, unit: _Unit, time_utc: datetime) -> dict[tuple[str, str], bool]:
+    async def _poll_plc(self, link: EndpointLink, unit: _Unit) -> _Draft:
         out: dict[tuple[str, str], bool] = {}
         now = time.monotonic()
-        if not unit.status_reads:
-            return out
         if not link.connected or not unit.backoff.ready(now):
-            unit.state, unit.last_error = CommState.OFFLINE, link.last_error or "in backoff"
-            unit.error_count += 1
-            return out
+            return _Draft({}, {}, CommState.OFFLINE, link.last_error or "in backoff", None, math.nan)
         errors: list[str] = []
         no_answer = False
+        exception_code: int | None = None
+        attempts = 1 if unit.backoff.failures else unit.retries + 1
         t0 = time.monotonic()
         for rd in unit.status_reads:
             try:
-                bits, _ = await self._read(link, unit, rd.kind, rd.address, rd.count)
+                bits, _ = await self._read(link, unit, rd.kind, rd.address, rd.count, attempts)
             except _NoAnswer as exc:
                 errors.append(str(exc))
                 no_answer = True
                 break
             except _DeviceException as exc:
                 errors.append(f"exception {exc.code:#04x} reading {rd.kind} {rd.address}+{rd.count}")
-                unit.exception_code = exc.code
+                exception_code = exc.code
                 continue
             except (_BadReply, _Disconnected) as exc:
                 errors.append(str(exc))
+                if getattr(exc, "costly", False) or getattr(exc, "during", False):
+                    no_answer = True
+                    break
                 continue
             for sid, addr in rd.switches:
                 out[(unit.id, sid)] = bool(bits[addr - rd.address])
-        unit.latency_s = time.monotonic() - t0
+        latency = time.monotonic() - t0
         if out:
             unit.backoff.reset()
-            unit.last_good_utc = time_utc
-            unit.error_count = 0
-            unit.state = CommState.DEGRADED if errors else CommState.OK
+            if not errors:
+                unit.answer_s = max(latency, unit.answer_s * ANSWER_DECAY)
+            state = CommState.DEGRADED if errors else CommState.OK
         else:
             if no_answer:
                 unit.backoff.fail(time.monotonic())
+            state = CommState.FAILING
+        return _Draft({}, {}, state, "; ".join(errors), exception_code, latency, bits=out)
+
+    def _failed(self, unit: _Unit, error: str) -> _Draft:
+        keys = [k for r in unit.plan.requests for k in r.keys] if unit.plan is not None else []
+        return _Draft(dict.fromkeys(keys, math.nan), dict.fromkeys(keys, Quality.DECODE),
+                      CommState.FAILING, error, None, math.nan)
+
+    def _pending(self, unit: _Unit, cyc: _Cycle, t_mono: float) -> _Draft:
+        """A unit with no answer by the cycle deadline: timeout for this cycle, request kept."""
+        link = next(lk for lk in self._links.values() if unit in lk.units)
+        waiting = link.busy_with
+        why = (f"no answer by the cycle deadline ({(cyc.deadline - t_mono) * 1000:.0f} ms)"
+               + (f"; {link.endpoint} busy with {waiting}" if waiting and waiting != unit.id else ""))
+        keys = [k for r in unit.plan.requests for k in r.keys] if unit.plan is not None else []
+        return _Draft(dict.fromkeys(keys, math.nan), dict.fromkeys(keys, Quality.TIMEOUT),
+                      CommState.FAILING, why, None, math.nan)
+
+    def _deliver(self, unit: _Unit, d: _Draft, time_utc: datetime) -> MeterBlock:
+        """Record a draft as this cycle's result for the unit (status, counters) -> block."""
+        unit.state = d.state
+        unit.latency_s = d.latency_s
+        if d.state in (CommState.OK, CommState.DEGRADED):
+            unit.last_good_utc = time_utc
+        if d.state in (CommState.FAILING, CommState.OFFLINE):
             unit.error_count += 1
-            unit.state = CommState.FAILING
-        unit.last_error = "; ".join(errors)
-        return out
+        else:
+            unit.error_count = 0
+        unit.last_error = d.error
+        unit.exception_code = d.exception_code
+        return MeterBlock(
+            meter=unit.id, values=d.values, quality=d.quality, state=d.state, exception_code=d.exception_code,
+            error=d.error, last_good_utc=unit.last_good_utc, error_count=unit.error_count, latency_s=d.latency_s,
+        )
 
     def _switch_state(self, sw: Switch, bits: dict[tuple[str, str], bool]) -> str:
         if sw.plc is None or sw.status is None:
@@ -585,6 +779,17 @@ class Poller:
     @staticmethod
     def _status(u: _Unit) -> MeterStatus:
         return MeterStatus(u.state, u.last_good_utc, u.error_count, u.last_error, u.exception_code, u.latency_s)
+
+
+def _check_reply(rr, kind: str, unit_id: int) -> None:
+    """Refuse a reply that is not the answer to this request (function code, unit id)."""
+    fc = _FC_FOR_KIND[kind]
+    got = int(getattr(rr, "function_code", 0) or 0)
+    if got not in (fc, fc | 0x80):
+        raise _BadReply(f"reply has function code {got}, asked with {fc}")
+    dev = getattr(rr, "dev_id", unit_id)
+    if dev not in (unit_id, 0) and unit_id != 0:
+        raise _BadReply(f"reply from unit {dev}, asked unit {unit_id}")
 
 
 def plc_of(profile: Profile, plc_id: str) -> Plc:
