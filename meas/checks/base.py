@@ -1,0 +1,76 @@
+"""Small helpers every check module shares: status codes and result construction."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..results import CheckResult, Status
+
+# status codes as returned by tolerance.judge_many (the STATUS_RANK order)
+FAIL, WARN, PASS, NA = 0, 1, 2, 3
+_STATUS = (Status.FAIL, Status.WARN, Status.PASS, Status.NA)
+
+
+def status(code: int) -> Status:
+    return _STATUS[int(code)]
+
+
+_new = object.__new__
+_set = object.__setattr__
+
+
+def result(check: str, subject: str, code: int, value: float = math.nan, limit: float = math.nan,
+           unit: str = "", message: str = "", cause: str = "") -> CheckResult:
+    """A CheckResult with plain floats (numpy scalars would not survive export unchanged).
+
+    Filled directly rather than through the frozen dataclass's __init__: a run makes hundreds
+    of results and the per-field frozen setattr dominated the run time. The fields are the
+    same; the object is as immutable as one made the usual way.
+    """
+    r = _new(CheckResult)
+    _set(r, "__dict__", {"check": check, "subject": subject, "status": _STATUS[code], "value": float(value),
+                         "limit": float(limit), "unit": unit, "message": message, "cause": cause})
+    return r
+
+
+_NA_CACHE: dict[tuple[str, str, str, str], CheckResult] = {}
+
+
+def na(check: str, subject: str, reason: str, unit: str = "") -> CheckResult:
+    """A not-applicable result; identical ones are shared (they are immutable and recur every run)."""
+    key = (check, subject, reason, unit)
+    hit = _NA_CACHE.get(key)
+    if hit is None:
+        hit = result(check, subject, NA, math.nan, math.nan, unit, reason, "")
+        if len(_NA_CACHE) < 100_000:
+            _NA_CACHE[key] = hit
+    return hit
+
+
+def judge1(value: float, limit: float, warn_fraction: float) -> int:
+    if math.isnan(value) or math.isnan(limit):
+        return NA
+    r = abs(value)
+    return FAIL if r > limit else WARN if r > warn_fraction * limit else PASS
+
+
+def fmt(x: float, unit: str) -> str:
+    """Readable number with unit: 3 significant figures, no exponent for everyday sizes."""
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "n/a"
+    ax = abs(x)
+    s = f"{x:.0f}" if ax >= 100 else f"{x:.3g}" if ax >= 0.01 or ax == 0 else f"{x:.2e}"
+    return f"{s} {unit}".strip()
+
+
+def missing(keys: list[str], x_row: np.ndarray, cols: list[int], has_row: np.ndarray) -> str:
+    """Which of the needed keys are absent from the map or not ok in this snapshot ('' if none)."""
+    absent = [k for k, c in zip(keys, cols, strict=True) if not has_row[c]]
+    if absent:
+        return "the register map has no " + ", ".join(absent)
+    bad = [k for k, c in zip(keys, cols, strict=True) if math.isnan(x_row[c])]
+    if bad:
+        return "no good reading of " + ", ".join(bad) + " in this snapshot"
+    return ""

@@ -1,0 +1,295 @@
+"""Per-profile layout and per-snapshot arrays the checks work on.
+
+``Layout`` is built once per profile (columns, classes, ratings, topology); ``Frame`` turns
+one Snapshot into a (meters x keys) float array with NaN for anything missing or not ok,
+plus the reading limits, so every check is a few numpy expressions.
+"""
+
+from __future__ import annotations
+
+import math
+import operator
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import BenchwalkError
+from ..model import Meter, Profile
+from ..quantities import all_keys
+from ..scaling import ratio
+from ..snapshot import Quality, Snapshot
+from ..tolerance import (
+    ClassSpec,
+    Limits,
+    class_spec,
+)
+
+KEYS: tuple[str, ...] = tuple(all_keys())
+COL: dict[str, int] = {k: i for i, k in enumerate(KEYS)}
+
+
+def _cols(quantity: str, phases: str) -> slice:
+    idx = [COL[f"{quantity}.{p}"] for p in phases.split(",")]
+    return slice(idx[0], idx[-1] + 1)
+
+
+V_LN = _cols("v_ln", "A,B,C")
+V_LL = _cols("v_ll", "AB,BC,CA")
+I_PH = _cols("i", "A,B,C")
+P4 = _cols("p", "A,B,C,T")
+Q4 = _cols("q", "A,B,C,T")
+S4 = _cols("s", "A,B,C,T")
+PF4 = _cols("pf", "A,B,C,T")
+F = COL["f.T"]
+V_ANG = _cols("v_ang", "A,B,C")
+I_ANG = _cols("i_ang", "A,B,C")
+
+
+def _stack(specs: list[ClassSpec]) -> ClassSpec:
+    """One ClassSpec whose numeric fields are (n, 1) arrays, for broadcasting over meters."""
+    def col(name: str) -> np.ndarray:
+        return np.array([getattr(s, name) for s in specs], float)[:, None]
+
+    names = ("main_pct", "low_i_pct", "low_i_frac", "min_i_frac", "low_pf_pct", "low_pf_low_i_pct", "low_pf_i_frac")
+    return ClassSpec(specs[0].kind if specs else "", "*", *(col(n) for n in names), source="stacked")
+
+
+@dataclass
+class Layout:
+    profile: Profile
+    limits: Limits
+    meters: tuple[Meter, ...]
+    index: dict[str, int]
+    cols: list[list[tuple[int, str]]]  # per meter: (column, key) of every mapped key
+    has: np.ndarray  # (n, K) bool
+    scale: np.ndarray  # (n, K) register scale (primary units)
+    is_float: np.ndarray  # (n, K) bool
+    i_n: np.ndarray  # (n,) rated primary current
+    v_n: np.ndarray  # (n,) nominal L-N voltage
+    vector_s: np.ndarray  # (n,) bool: S_total is the IEEE 1459 vector definition
+    angles: np.ndarray  # (n,) bool: the map has voltage and current angles
+    spec_p: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
+    spec_q: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
+    spec_v: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
+    spec_i: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
+    f_nom: float = 50.0
+    axis: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]  # diagnose.FORWARD...
+    is_load: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
+    keys_of: list = field(repr=False, default=None)  # type: ignore[assignment]
+    fast: list = field(repr=False, default=None)  # type: ignore[assignment]
+    consts: Consts = field(repr=False, default=None)  # type: ignore[assignment]
+
+    @classmethod
+    def build(cls, profile: Profile) -> Layout:
+        meters = profile.meters
+        n, k = len(meters), len(KEYS)
+        has = np.zeros((n, k), bool)
+        scale = np.ones((n, k))
+        is_float = np.zeros((n, k), bool)
+        cols: list[list[tuple[int, str]]] = []
+        i_n = np.empty(n)
+        v_n = np.empty(n)
+        vector_s = np.zeros(n, bool)
+        for mi, m in enumerate(meters):
+            rmap = profile.maps[m.map_id]
+            vector_s[mi] = rmap.apparent_power == "vector"
+            mc = []
+            for spec in rmap.registers:
+                c = COL.get(spec.key)
+                if c is None:
+                    continue
+                mc.append((c, spec.key))
+                has[mi, c] = True
+                scale[mi, c] = spec.scale * ratio(m, spec.key)
+                is_float[mi, c] = spec.dtype.startswith("float")
+            cols.append(mc)
+            zone = profile.zone_of_bus(m.bus)
+            v_n[mi] = zone.bench_v_ll / math.sqrt(3.0)
+            i_n[mi] = m.ct_primary_a or profile.bench.s_base_va / (math.sqrt(3.0) * zone.bench_v_ll)
+        angles = has[:, V_ANG].all(axis=1) & has[:, I_ANG].all(axis=1)
+        lay = cls(
+            profile, Limits(profile.checks), meters, {m.id: i for i, m in enumerate(meters)}, cols, has, scale,
+            is_float, i_n, v_n, vector_s, angles, f_nom=profile.bench.frequency_hz,
+        )
+        lay.axis, lay.is_load = _flow_axes(profile)
+        lay.keys_of = [[key for _, key in mc] for mc in cols]
+        lay.fast = [(np.array([c for c, _ in mc], int), frozenset(key for _, key in mc), operator.itemgetter(*[key for _, key in mc]))
+                    for mc in cols]
+        lay.spec_p, lay.spec_q, lay.spec_v, lay.spec_i = (_stack([_spec(profile, m, kind) for m in meters]) for kind in "pqvi")
+        lay.consts = Consts.build(lay)
+        return lay
+
+
+def _spec(profile: Profile, meter: Meter, kind: str) -> ClassSpec:
+    try:
+        return class_spec(kind, getattr(meter.classes, kind))
+    except BenchwalkError as exc:
+        raise BenchwalkError(f"{profile.path}: meter {meter.id}: {exc}") from None
+
+
+def _flow_axes(profile: Profile) -> tuple[np.ndarray, np.ndarray]:
+    """Expected power direction of every meter (diagnose.FORWARD ...) and whether it meters a load.
+
+    Loads draw power (forward); shunts exchange reactive power; on a line, power is expected
+    to flow away from the sources (shortest electrical distance in branches, all switches
+    closed); equal distances at both ends leave the direction open (a tie).
+    """
+    from .diagnose import BACKWARD, EITHER, FORWARD, REACTIVE
+
+    dist = {br.from_bus: 0 for br in profile.branches if br.kind == "source"}
+    frontier = list(dist)
+    while frontier:
+        nxt = []
+        for br in profile.branches:
+            if br.to_bus is None:
+                continue
+            for a, b in ((br.from_bus, br.to_bus), (br.to_bus, br.from_bus)):
+                if a in frontier and b not in dist:
+                    dist[b] = dist[a] + 1
+                    nxt.append(b)
+        frontier = nxt
+    axis, is_load = [], []
+    for m in profile.meters:
+        br = profile.branch(m.branch) if m.branch else None
+        is_load.append(br is not None and br.kind == "load")
+        if br is None or br.kind == "source":
+            axis.append(EITHER)
+        elif br.kind == "load":
+            axis.append(FORWARD)
+        elif br.kind == "shunt":
+            axis.append(REACTIVE)
+        else:
+            far = br.to_bus if br.from_bus == m.bus else br.from_bus
+            d0, d1 = dist.get(m.bus), dist.get(far)
+            if d0 is None or d1 is None or d0 == d1:
+                axis.append(EITHER)
+            else:
+                axis.append(FORWARD if d1 > d0 else BACKWARD)
+    return np.array(axis), np.array(is_load, bool)
+
+
+@dataclass
+class Frame:
+    """One snapshot as arrays plus standard uncertainties (same shape) of every reading."""
+
+    x: np.ndarray  # (n, K) values, NaN = missing / not ok
+    u: np.ndarray  # (n, K) standard uncertainty of each reading
+    present: np.ndarray  # (n,) meter block present in the snapshot
+    energized: np.ndarray  # (n,) the meter sees voltage (> 50 % of nominal)
+    loaded: np.ndarray  # (n,) mean current above 1 % of In
+    v_mean: np.ndarray  # (n,) mean L-N voltage (from L-L / sqrt 3 without L-N readings)
+    v_mean_u: np.ndarray  # (n,) its standard uncertainty (the phases share the meter: linear mean)
+    i_mean: np.ndarray  # (n,) mean phase current
+
+    @classmethod
+    def build(cls, lay: Layout, snap: Snapshot) -> Frame:
+        n, k = lay.has.shape
+        x = np.full((n, k), np.nan)
+        present = np.zeros(n, bool)
+        ok = Quality.OK
+        ok_only = {ok}
+        for mi, m in enumerate(lay.meters):
+            block = snap.meters.get(m.id)
+            if block is None:
+                continue
+            present[mi] = True
+            vals, qual = block.values, block.quality
+            cols, keys, getter = lay.fast[mi]
+            if not (set(qual.values()) - ok_only) and keys <= vals.keys():
+                x[mi, cols] = getter(vals)  # common case: every value present and ok
+            else:
+                x[mi, cols] = [vals.get(key, np.nan) if qual.get(key) is ok else np.nan for key in lay.keys_of[mi]]
+        return cls.from_array(lay, x, present)
+
+    @classmethod
+    def from_array(cls, lay: Layout, x: np.ndarray, present: np.ndarray) -> Frame:
+        """Values plus standard uncertainties: tolerance.power_limit / magnitude_limit /
+        resolution_limit fused into a few whole-array operations (tests check they agree)."""
+        c = lay.consts
+        ax = np.abs(x)
+        i_frac3 = x[:, I_PH] / lay.i_n[:, None]
+        i_frac = np.concatenate([i_frac3, nanmean(i_frac3)[:, None]], axis=1)
+        s4 = ax[:, S4]
+        s_ref = np.where(np.isnan(s4), np.hypot(x[:, P4], x[:, Q4]), s4)
+        a = c.mag_pct * np.fmax(ax, c.mag_floor) + c.const_a
+        v8 = ax[:, c.pq]
+        s8 = np.concatenate([s_ref, s_ref], axis=1)
+        i8 = np.concatenate([i_frac, i_frac], axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            low = ~(np.where(s8 > 0, v8 / s8, 1.0) >= 0.5)
+            unity = np.where(i8 >= c.low_i_frac, c.main, c.low_i)
+            lowpf = np.where(i8 >= c.low_pf_i_frac, c.low_pf, c.low_pf_low_i)
+        pct = np.where(low, lowpf, unity)
+        base = np.fmax(np.fmax(v8, np.where(low, 0.5 * np.nan_to_num(s8), 0.0)), c.min_rated)
+        a[:, c.pq] = pct * base
+        res = c.res_abs + c.res_rel * ax
+        u = np.sqrt(a * a + res * res) * (1.0 / math.sqrt(3.0))  # rectangular -> standard (GUM 4.3.7)
+        m6 = nanmean(np.concatenate([x[:, V_LN], x[:, V_LL], u[:, V_LN], u[:, V_LL]], axis=1).reshape(-1, 3)).reshape(-1, 4)
+        vmean = np.where(np.isnan(m6[:, 0]), m6[:, 1] / math.sqrt(3.0), m6[:, 0])
+        vmean_u = np.where(np.isnan(m6[:, 2]), m6[:, 3] / math.sqrt(3.0), m6[:, 2])
+        i_mean = i8[:, 3] * lay.i_n
+        with np.errstate(invalid="ignore"):
+            energized = vmean > 0.5 * lay.v_n
+            loaded = i8[:, 3] > 0.01
+        return cls(x, u, present, energized, loaded, vmean, vmean_u, i_mean)
+
+
+@dataclass
+class Consts:
+    """Per-profile matrices for Frame.from_array (shapes (n, K) or (n, 8) for P4 + Q4)."""
+
+    mag_pct: np.ndarray
+    mag_floor: np.ndarray
+    const_a: np.ndarray
+    res_abs: np.ndarray
+    res_rel: np.ndarray
+    pq: np.ndarray
+    main: np.ndarray
+    low_i: np.ndarray
+    low_i_frac: np.ndarray
+    low_pf: np.ndarray
+    low_pf_low_i: np.ndarray
+    low_pf_i_frac: np.ndarray
+    min_rated: np.ndarray
+
+    @classmethod
+    def build(cls, lay: Layout) -> Consts:
+        n, k = lay.has.shape
+        i_n, v_n = lay.i_n[:, None], lay.v_n[:, None]
+        mag_pct = np.zeros((n, k))
+        mag_floor = np.zeros((n, k))
+        const_a = np.zeros((n, k))
+        sp, sv, si = lay.spec_p, lay.spec_v, lay.spec_i
+        rated4 = np.concatenate([np.repeat(v_n * i_n, 3, axis=1), 3 * v_n * i_n], axis=1)
+        mag_pct[:, S4] = sp.main_pct / 100.0
+        mag_floor[:, S4] = sp.min_i_frac * rated4
+        mag_pct[:, V_LN] = sv.main_pct / 100.0
+        mag_floor[:, V_LN] = sv.min_i_frac * v_n
+        mag_pct[:, V_LL] = sv.main_pct / 100.0
+        mag_floor[:, V_LL] = sv.min_i_frac * math.sqrt(3.0) * v_n
+        mag_pct[:, I_PH] = si.main_pct / 100.0
+        mag_floor[:, I_PH] = si.min_i_frac * i_n
+        const_a[:, PF4] = sp.main_pct / 100.0  # PF: the P class as an absolute limit (our rule)
+        const_a[:, F] = 0.01  # 0.01 Hz: IEC 61557-12 class 0.02 at 50 Hz [M]
+        const_a[:, V_ANG] = 1.0  # 1 degree: our allowance for meter angle outputs
+        const_a[:, I_ANG] = 1.0
+        res_abs = np.where(lay.is_float, 0.0, np.abs(lay.scale) / 2.0)  # one LSB: +-scale/2
+        res_rel = np.where(lay.is_float, 2.0**-24, 0.0)  # float32: half an ulp
+        pq = np.r_[np.arange(P4.start, P4.stop), np.arange(Q4.start, Q4.stop)]
+
+        def pair(name: str, scale: float = 1.0) -> np.ndarray:
+            return np.concatenate([np.repeat(getattr(lay.spec_p, name), 4, axis=1),
+                                   np.repeat(getattr(lay.spec_q, name), 4, axis=1)], axis=1) * scale
+
+        min_rated = pair("min_i_frac") * np.concatenate([rated4, rated4], axis=1)
+        return cls(mag_pct, mag_floor, const_a, res_abs, res_rel, pq, pair("main_pct", 0.01), pair("low_i_pct", 0.01),
+                   pair("low_i_frac"), pair("low_pf_pct", 0.01), pair("low_pf_low_i_pct", 0.01), pair("low_pf_i_frac"),
+                   min_rated)
+
+
+def nanmean(a: np.ndarray) -> np.ndarray:
+    """Row mean ignoring NaN, NaN for an all-NaN row, without numpy's warning."""
+    ok = ~np.isnan(a)
+    c = ok.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(c > 0, np.where(ok, a, 0.0).sum(axis=1) / c, np.nan)

@@ -1,0 +1,331 @@
+"""Network checks: Kirchhoff at every fully metered bus, losses, voltage and frequency agreement,
+open switches carrying nothing, live buses having voltage, and the meter most likely at fault.
+
+Sign convention (DEVELOPERS.md): a meter's positive P/Q flows from its bus into its branch, so
+at a bus the readings of all its branches sum to zero (per phase as well: every meter there
+sees the same phase voltage and KCL holds per conductor).
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+
+import numpy as np
+
+from ..results import CheckResult
+from .base import FAIL, NA, PASS, WARN, fmt, judge1, na, result
+from .diagnose import Equation, suspects
+from .frame import I_PH, P4, Q4, F, Frame, Layout
+from .topology import Topology, TopoState
+
+
+def _vmean(fr: Frame) -> np.ndarray:
+    return fr.v_mean
+
+
+def _v_u(fr: Frame) -> np.ndarray:
+    return fr.v_mean_u
+
+
+class NetworkChecks:
+    def __init__(self, lay: Layout):
+        self.lay = lay
+        self.topo = Topology(lay.profile)
+        p = lay.profile
+        self.two_end: list[tuple[str, int, int]] = []  # branch, meter at from end, meter at to end
+        for br in p.branches:
+            if br.to_bus is None:
+                continue
+            a = [i for i, m in enumerate(p.meters) if m.branch == br.id and m.bus == br.from_bus]
+            b = [i for i, m in enumerate(p.meters) if m.branch == br.id and m.bus == br.to_bus]
+            if a and b:
+                self.two_end.append((br.id, a[0], b[0]))
+        self.sw_members = {sw.id: [i for i, m in enumerate(p.meters) if m.branch == sw.branch] for sw in p.switches}
+        self.on_bus: dict[str, list[int]] = {b.id: [i for i, m in enumerate(p.meters) if m.bus == b.id] for b in p.buses}
+
+    # ------------------------------------------------------------------ balances
+    def _balance(self, fr: Frame, st: TopoState, out: list[CheckResult], eqs: list[tuple[str, tuple[int, ...]]],
+                 failed: set[str]) -> None:
+        lay = self.lay
+        ids_all = [m.id for m in lay.meters]
+        k, warn = lay.limits.k, lay.limits.warn
+        for check, col, name, unit in (("network.p_balance", P4.stop - 1, "P", "W"), ("network.q_balance", Q4.stop - 1, "Q", "var")):
+            xs, us = fr.x[:, col].tolist(), fr.u[:, col].tolist()
+            for bus, bs in st.buses.items():
+                if bs.live is False:
+                    out.append(na(check, bus, "bus is not energized", unit))
+                    continue
+                if bs.unknown:
+                    out.append(na(check, bus, f"switch state unknown: {', '.join(bs.unknown)}", unit))
+                    continue
+                if bs.unmetered:
+                    out.append(na(check, bus, f"branch {', '.join(bs.unmetered)} at this bus is not metered here", unit))
+                    continue
+                mem = [mi for mi, br in bs.metered if br in bs.in_service]
+                if not mem:
+                    out.append(na(check, bus, "no current flows at this bus", unit))
+                    continue
+                vals = [xs[mi] for mi in mem]
+                bad = [ids_all[mi] for mi, v in zip(mem, vals, strict=True) if v != v]
+                if bad:
+                    out.append(na(check, bus, f"no good {name} total from {', '.join(bad)}", unit))
+                    continue
+                r = sum(vals)
+                u = math.sqrt(sum(us[mi] ** 2 for mi in mem))  # meters independent: RSS (GUM 5.1.2)
+                lim = float(lay.limits.apply(check, unit, k * u))
+                code = judge1(r, lim, warn)
+                ids = ", ".join(ids_all[mi] for mi in mem)
+                if code == PASS:
+                    out.append(result(check, bus, PASS, r, lim, unit, f"{name} balances at {bus} ({ids})"))
+                else:
+                    if code == FAIL:
+                        failed.add(bus)
+                    msg = (f"{name} does not balance at {bus}: readings of {ids} sum to {fmt(r, unit)} (allowed "
+                           f"{fmt(lim, unit)}): a CT/VT ratio, CT polarity or sign convention error, or an unmetered "
+                           "branch; see network.bad_data")
+                    out.append(result(check, bus, code, r, lim, unit, msg, "imbalance"))
+                if check == "network.p_balance" and len(mem) >= 2:
+                    eqs.append((bus, tuple(mem)))
+
+    def _equations(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]]) -> list[Equation]:
+        """Per-phase equations with their standard uncertainties (built only when needed)."""
+        out = []
+        two = {br: (a, b) for br, a, b in self.two_end}
+        for name, mem in eqs:
+            m = list(mem)
+            sp = np.sqrt(np.sum(fr.u[m, P4][:, :3] ** 2, axis=0))
+            sq = np.sqrt(np.sum(fr.u[m, Q4][:, :3] ** 2, axis=0))
+            if name in two:  # a branch: losses and charging, allowed as 3 % of the flow (our rule)
+                allow = 0.03 * np.abs(fr.x[m[0], P4][:3] + 1j * fr.x[m[0], Q4][:3])
+                sp, sq = np.hypot(sp, allow), np.hypot(sq, allow)
+            out.append(Equation(name, mem, np.fmax(sp, 1e-9), np.fmax(sq, 1e-9)))
+        return out
+
+    def _losses(self, fr: Frame, st: TopoState, out: list[CheckResult], eqs: list[tuple[str, tuple[int, ...]]],
+                failed: set[str]) -> None:
+        lay = self.lay
+        check = "network.losses"
+        max_frac = lay.limits.param(check, "max_fraction", 0.05)
+        for br, a, b in self.two_end:
+            if st.branch_on.get(br) is not True:
+                out.append(na(check, br, "branch is switched out (or its switch state is unknown)", "W"))
+                continue
+            pa, pb = fr.x[a, P4.stop - 1], fr.x[b, P4.stop - 1]
+            if np.isnan(pa) or np.isnan(pb):
+                out.append(na(check, br, "no good P total at both ends", "W"))
+                continue
+            loss = float(pa + pb)
+            through = max(abs(pa), abs(pb))
+            u = math.hypot(fr.u[a, P4.stop - 1], fr.u[b, P4.stop - 1])
+            lim = float(lay.limits.apply(check, "W", lay.limits.k * u))
+            hi = max_frac * through + lim
+            ids = f"{lay.meters[a].id} and {lay.meters[b].id}"
+            if loss < -lim:
+                code = judge1(loss, lim, lay.limits.warn)
+                msg = (f"losses of {br} are negative ({fmt(loss, 'W')}, allowed -{fmt(lim, 'W')}) from {ids}: "
+                       "one end reads too high or has the wrong sign; see network.bad_data")
+                failed.add(br)
+                out.append(result(check, br, code, loss, lim, "W", msg, "negative_losses"))
+            elif loss > hi:
+                msg = (f"losses of {br} are {fmt(loss, 'W')}, more than {max_frac:.0%} of the {fmt(through, 'W')} it carries, "
+                       f"from {ids}: a CT/VT ratio or polarity error at one end; see network.bad_data")
+                failed.add(br)
+                out.append(result(check, br, FAIL, loss, hi, "W", msg, "excess_losses"))
+            else:
+                out.append(result(check, br, PASS if loss > -lay.limits.warn * lim else WARN, loss, lim, "W",
+                                  f"losses of {br} plausible ({ids})"))
+            eqs.append((br, (a, b)))
+
+    # ------------------------------------------------------------------ voltages
+    def _v_agree(self, fr: Frame, st: TopoState, out: list[CheckResult]) -> dict[int, float]:
+        """Per-bus agreement; returns meter -> voltage ratio to its peers for an outlier."""
+        lay = self.lay
+        check = "network.v_agree"
+        v, u = _vmean(fr).tolist(), _v_u(fr).tolist()
+        live, vn = fr.energized.tolist(), lay.v_n.tolist()
+        k_cov = lay.limits.k
+        ratios: dict[int, float] = {}
+        for bus, mem in self.on_bus.items():
+            mem = [mi for mi in mem if v[mi] == v[mi]]
+            if len(mem) < 2:
+                out.append(na(check, bus, "fewer than two meters with a good voltage on this bus", "V"))
+                continue
+            if st.buses[bus].live is False or not any(live[mi] for mi in mem):
+                out.append(na(check, bus, "bus is not energized", "V"))
+                continue
+            worst, wz, wd, wl = -1, -1.0, 0.0, 0.0
+            for mi in mem:
+                peers = [p for p in mem if p != mi]
+                ref = statistics.median(v[p] for p in peers)
+                d = v[mi] - ref
+                lim = float(lay.limits.apply(check, "V", k_cov * math.sqrt(u[mi] ** 2 + sum(u[p] ** 2 for p in peers) / len(peers))))
+                z = abs(d) / lim
+                if len(mem) == 2:  # two meters: the one farther from the zone nominal is the suspect
+                    z += abs(v[mi] / vn[mi] - 1.0) * 1e-3
+                if z > wz:
+                    worst, wz, wd, wl = mi, z, d, lim
+            code = judge1(wd, wl, lay.limits.warn)
+            ids = ", ".join(lay.meters[mi].id for mi in mem)
+            if code == PASS:
+                out.append(result(check, bus, PASS, wd, wl, "V", f"voltages of {ids} agree"))
+                continue
+            k = v[worst] / statistics.median(v[p] for p in mem if p != worst)
+            mid = lay.meters[worst].id
+            cause = f"vt_ratio:{k:.3f}" if code == FAIL else ""
+            if code == FAIL:
+                ratios[worst] = k
+            msg = (f"{mid} reads {fmt(v[worst], 'V')} L-N, {k:.3f} times the other meters on {bus} "
+                   f"(off by {fmt(wd, 'V')}, allowed {fmt(wl, 'V')}): check the VT ratio and voltage wiring of {mid}")
+            if len(mem) == 2:
+                msg += " (only two meters here: the one farther from nominal is named)"
+            out.append(result(check, bus, code, wd, wl, "V", msg, cause))
+        return ratios
+
+    def _f_agree(self, fr: Frame, out: list[CheckResult]) -> None:
+        lay = self.lay
+        check = "network.f_agree"
+        sel = [mi for mi in range(len(lay.meters)) if fr.energized[mi] and not np.isnan(fr.x[mi, F])]
+        if len(sel) < 2:
+            out.append(na(check, "bench", "fewer than two energized meters report frequency", "Hz"))
+            return
+        f = fr.x[sel, F]
+        med = float(np.median(f))
+        d = f - med
+        j = int(np.argmax(np.abs(d)))
+        lim = float(lay.limits.apply(check, "Hz", lay.limits.k * math.sqrt(2.0) * float(fr.u[sel[j], F])))
+        code = judge1(float(d[j]), lim, lay.limits.warn)
+        mid = lay.meters[sel[j]].id
+        if code == PASS:
+            out.append(result(check, "bench", PASS, d[j], lim, "Hz", "frequencies agree across the bench"))
+        else:
+            msg = (f"{mid} reads {f[j]:.3f} Hz, {d[j]:+.3f} Hz from the other meters (allowed {lim:.3f} Hz): "
+                   f"check the scale of f.T in map {lay.meters[sel[j]].map_id} or whether {mid} is on another supply")
+            out.append(result(check, "bench", code, d[j], lim, "Hz", msg, f"frequency:{mid}"))
+
+    # ------------------------------------------------------------------ switching
+    def _switches(self, fr: Frame, switches: dict[str, str], st: TopoState, out: list[CheckResult]) -> None:
+        lay = self.lay
+        check = "network.open_switch"
+        frac = lay.limits.param(check, "max_fraction", 0.01)
+        for sw in lay.profile.switches:
+            mem = self.sw_members[sw.id]
+            state = switches.get(sw.id, "unknown")
+            if state != "open":
+                out.append(na(check, sw.id, f"switch is {state}", "A"))
+                continue
+            if not mem:
+                out.append(na(check, sw.id, f"no meter on branch {sw.branch}", "A"))
+                continue
+            i = fr.x[mem][:, I_PH]
+            if np.isnan(i).all():
+                out.append(na(check, sw.id, "no good current reading on the branch", "A"))
+                continue
+            lim_each = lay.limits.k * fr.u[mem][:, I_PH] + frac * lay.i_n[mem][:, None]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                z = np.where(np.isnan(i), -1.0, i / lim_each)
+            r, c = np.unravel_index(int(np.argmax(z)), z.shape)
+            val, lim = float(i[r, c]), float(lay.limits.apply(check, "A", lim_each[r, c]))
+            code = judge1(val, lim, lay.limits.warn)
+            mid = lay.meters[mem[r]].id
+            if code == PASS:
+                out.append(result(check, sw.id, PASS, val, lim, "A", f"no current through open {sw.id}"))
+            else:
+                msg = (f"{sw.id} reports open but {mid} measures {fmt(val, 'A')} on phase {'ABC'[c]}: the status contact "
+                       f"is wrong, the switch did not open, or {mid} is on another branch")
+                out.append(result(check, sw.id, code, val, lim, "A", msg, f"switch_status:{sw.id}"))
+
+    def _energization(self, fr: Frame, st: TopoState, out: list[CheckResult]) -> None:
+        lay = self.lay
+        check = "network.energization"
+        v = _vmean(fr)
+        for bus, mem in self.on_bus.items():
+            mem = [mi for mi in mem if not np.isnan(v[mi])]
+            bs = st.buses[bus]
+            if not mem:
+                out.append(na(check, bus, "no meter with a good voltage on this bus", "V"))
+                continue
+            if bs.live is None:
+                out.append(na(check, bus, "depends on switches of unknown state", "V"))
+                continue
+            frac = v[mem] / lay.v_n[mem]
+            if bs.live:
+                j = int(np.argmin(frac))
+                ok = frac[j] >= 0.5
+                want = "live through closed switches"
+            else:
+                j = int(np.argmax(frac))
+                ok = frac[j] < 0.1
+                want = "dead (no closed path to a source)"
+            mid = lay.meters[mem[j]].id
+            val = float(v[mem[j]])
+            if ok:
+                out.append(result(check, bus, PASS, val, message=f"{bus} is {want.split(' ')[0]} as the switches say", unit="V"))
+            else:
+                msg = (f"{bus} should be {want} but {mid} reads {fmt(val, 'V')} L-N: a switch status that does not match the "
+                       "switch, a blown VT fuse, or a backfeed")
+                out.append(result(check, bus, FAIL, val, unit="V", message=msg, cause=f"energization:{bus}"))
+
+    # ------------------------------------------------------------------ bad data
+    def _bad_data(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]], failed: set[str], vt: dict[int, float], out: list[CheckResult]) -> None:
+        lay = self.lay
+        check = "network.bad_data"
+        named: set[int] = set()
+        if failed:
+            named = self._power_suspect(fr, self._equations(fr, eqs), failed, vt, out)
+        for mi, k in sorted(vt.items()):
+            if mi not in named:
+                mid = lay.meters[mi].id
+                msg = f"{mid} is the most likely wrong meter: its voltage reads {k:.3f} times its peers; check its VT ratio and wiring"
+                out.append(result(check, mid, FAIL, k, math.nan, "1", msg, f"vt_ratio:{k:.3f}"))
+
+    def _power_suspect(self, fr: Frame, eqs: list[Equation], failed: set[str], vt: dict[int, float], out: list[CheckResult]) -> set[int]:
+        lay = self.lay
+        check = "network.bad_data"
+        eq_f = [e for e in eqs if e.name in failed]
+        names = {e.name for e in eq_f}
+        # every equation sharing a meter with a failed one helps to tell meters apart
+        mem = {m for e in eq_f for m in e.members}
+        use = [e for e in eqs if e.name in names or mem & set(e.members)]
+        s_ph = fr.x[:, P4][:, :3] + 1j * fr.x[:, Q4][:, :3]
+        sus = suspects(use, s_ph)
+        if sus is None:
+            return set()
+        mid = lay.meters[sus.meter].id
+        where = ", ".join(sorted(names))
+        alt = ""
+        if sus.others:
+            alt = f" (as likely: {', '.join(lay.meters[o].id for o in sus.others)}; more redundancy needed to tell)"
+        if sus.cause == "scale":
+            if sus.meter in vt and abs(vt[sus.meter] / sus.k - 1.0) < 0.03:
+                k = vt[sus.meter]
+                alt = ""  # the voltage comparison settles which meter it is
+                cause, what = f"vt_ratio:{k:.3f}", f"its VT ratio looks off by a factor {k:.3f} (voltage and power both)"
+            else:
+                k = sus.k
+                cause, what = f"ct_ratio:{k:.3f}", f"its CT ratio looks off by a factor {k:.3f} (power reads {k:.3f} times the balance)"
+        else:
+            cause = sus.cause
+            kind, _, arg = cause.partition(":")
+            what = (f"the CT of phase {arg} looks reversed" if kind == "ct_reversed"
+                    else f"current inputs {arg} look swapped")
+        msg = f"{mid} is the most likely wrong meter at {where}: {what}{alt}; normalized residual {sus.lnr:.1f}"
+        out.append(result(check, mid, FAIL, sus.lnr, lay.limits.k, "1", msg, cause))
+        return {sus.meter}
+
+    def run(self, fr: Frame, switches: dict[str, str]) -> list[CheckResult]:
+        st = self.topo.state(switches)
+        out: list[CheckResult] = []
+        eqs: list[tuple[str, tuple[int, ...]]] = []
+        failed: set[str] = set()
+        self._balance(fr, st, out, eqs, failed)
+        self._losses(fr, st, out, eqs, failed)
+        vt = self._v_agree(fr, st, out)
+        self._f_agree(fr, out)
+        self._switches(fr, switches, st, out)
+        self._energization(fr, st, out)
+        self._bad_data(fr, eqs, failed, vt, out)
+        return out
+
+
+__all__ = ["NetworkChecks", "FAIL", "NA", "WARN"]
