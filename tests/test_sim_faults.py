@@ -414,3 +414,19 @@ def test_bench_snapshots_without_sockets_follow_the_transient(profile):
     t = 0.05 * np.arange(60)
     assert np.allclose(frac_left, np.exp(-t / 0.5), atol=1e-6)  # float32 registers: ~1e-7 relative
     assert snaps[0].meters["M3"].exception_code == 4 and snaps[-1].switches["SW2"] == "open"
+
+
+def test_frequency_is_never_blended_through_a_transient():
+    """A meter reads the system frequency or, once its supply has gone, zero: never 25 Hz."""
+    import numpy as np
+
+    from meas.sim.meters import F_CUTOFF_REMAINING, Phasors, blend
+
+    live = Phasors(np.full(3, 230.0 + 0j), np.zeros(3, dtype=complex), 50.0)
+    dead = Phasors(np.zeros(3, dtype=complex), np.zeros(3, dtype=complex), 0.0)
+    # energizing: nominal at once, even with most of the voltage step still to go
+    assert blend(dead, live, 0.9).f == 50.0
+    # de-energizing: nominal while the voltage decays, zero below the cut-off
+    assert blend(live, dead, 0.5).f == 50.0
+    assert blend(live, dead, F_CUTOFF_REMAINING * 0.5).f == 0.0
+    assert abs(blend(live, dead, 0.5).v[0] - 115.0) < 1e-9

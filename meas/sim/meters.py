@@ -94,12 +94,22 @@ def phasors_from_ideal(ideal: Mapping[str, float], frequency_hz: float) -> Phaso
     return Phasors(v, cur, float(ideal.get("f.T", frequency_hz)))
 
 
+# Below this fraction of the old voltage a meter losing its supply stops reading frequency
+# (meters need a minimum voltage to track frequency; common practice, the figure is ours).
+F_CUTOFF_REMAINING = 0.05
+
+
 def blend(old: Phasors, new: Phasors, remaining: float) -> Phasors:
-    """``new + (old - new) * remaining``: the state part-way through a transient."""
+    """``new + (old - new) * remaining``: the state part-way through a transient.
+
+    Frequency is not blended: a meter reads the system frequency while it has voltage and
+    0 once its supply has decayed, never a value in between.
+    """
+    f = new.f if new.f > 0 else (old.f if remaining > F_CUTOFF_REMAINING else 0.0)
     return Phasors(
         new.v + (old.v - new.v) * remaining,
         new.i + (old.i - new.i) * remaining,
-        new.f + (old.f - new.f) * remaining,
+        f,
     )
 
 
