@@ -76,7 +76,9 @@ class Layout:
     axis: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]  # diagnose.FORWARD...
     is_load: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
     keys_of: list = field(repr=False, default=None)  # type: ignore[assignment]
-    fast: list = field(repr=False, default=None)  # type: ignore[assignment]
+    fill: list = field(repr=False, default=None)  # type: ignore[assignment]  # per meter, for Frame.build
+    fill_rows: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
+    fill_cols: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
     consts: Consts = field(repr=False, default=None)  # type: ignore[assignment]
 
     @classmethod
@@ -113,11 +115,23 @@ class Layout:
         )
         lay.axis, lay.is_load = _flow_axes(profile)
         lay.keys_of = [[key for _, key in mc] for mc in cols]
-        lay.fast = [(np.array([c for c, _ in mc], int), frozenset(key for _, key in mc), operator.itemgetter(*[key for _, key in mc]))
-                    for mc in cols]
+        lay.fill = [(m.id, _getter([key for _, key in mc]), (Quality.OK,) * len(mc), [key for _, key in mc], [math.nan] * len(mc))
+                    for m, mc in zip(meters, cols, strict=True)]
+        lay.fill_rows = np.array([mi for mi, mc in enumerate(cols) for _ in mc], np.intp)
+        lay.fill_cols = np.array([c for mc in cols for c, _ in mc], np.intp)
         lay.spec_p, lay.spec_q, lay.spec_v, lay.spec_i = (_stack([_spec(profile, m, kind) for m in meters]) for kind in "pqvi")
         lay.consts = Consts.build(lay)
         return lay
+
+
+def _getter(keys: list[str]):
+    """A tuple of the keys' items, always a tuple (itemgetter of one key returns the bare item)."""
+    if not keys:
+        return lambda d: ()
+    if len(keys) == 1:
+        only = keys[0]
+        return lambda d: (d[only],)
+    return operator.itemgetter(*keys)
 
 
 def _spec(profile: Profile, meter: Meter, kind: str) -> ClassSpec:
@@ -183,22 +197,33 @@ class Frame:
 
     @classmethod
     def build(cls, lay: Layout, snap: Snapshot) -> Frame:
+        """One fancy-index store of every meter's values (per-meter stores dominated the run)."""
         n, k = lay.has.shape
-        x = np.full((n, k), np.nan)
         present = np.zeros(n, bool)
         ok = Quality.OK
-        ok_only = {ok}
-        for mi, m in enumerate(lay.meters):
-            block = snap.meters.get(m.id)
+        flat: list[float] = []
+        fill = flat.extend
+        blocks = snap.meters
+        for mi, (mid, getter, ok_all, keys, nans) in enumerate(lay.fill):
+            block = blocks.get(mid)
             if block is None:
+                fill(nans)
                 continue
             present[mi] = True
             vals, qual = block.values, block.quality
-            cols, keys, getter = lay.fast[mi]
-            if not (set(qual.values()) - ok_only) and keys <= vals.keys():
-                x[mi, cols] = getter(vals)  # common case: every value present and ok
-            else:
-                x[mi, cols] = [vals.get(key, np.nan) if qual.get(key) is ok else np.nan for key in lay.keys_of[mi]]
+            try:
+                good = getter(qual) == ok_all  # every mapped key ok: the common case
+            except KeyError:
+                good = False
+            if good:
+                try:
+                    fill(getter(vals))
+                    continue
+                except KeyError:
+                    pass
+            fill([vals.get(key, np.nan) if qual.get(key) is ok else np.nan for key in keys])
+        x = np.full((n, k), np.nan)
+        x[lay.fill_rows, lay.fill_cols] = flat
         return cls.from_array(lay, x, present)
 
     @classmethod

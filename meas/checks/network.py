@@ -9,7 +9,6 @@ sees the same phase voltage and KCL holds per conductor).
 from __future__ import annotations
 
 import math
-import statistics
 
 import numpy as np
 
@@ -18,6 +17,16 @@ from .base import FAIL, NA, PASS, WARN, fmt, judge1, na, result
 from .diagnose import Equation, suspects
 from .frame import I_PH, P4, Q4, F, Frame, Layout
 from .topology import Topology, TopoState
+
+
+def _median(x: list[float]) -> float:
+    """statistics.median, inlined: the same middle value or the same (a + b) / 2, but cheaper."""
+    n = len(x)
+    if n == 1:
+        return x[0]
+    x = sorted(x)
+    i = n // 2
+    return x[i] if n % 2 else (x[i - 1] + x[i]) / 2
 
 
 def _vmean(fr: Frame) -> np.ndarray:
@@ -43,39 +52,63 @@ class NetworkChecks:
                 self.two_end.append((br.id, a[0], b[0]))
         self.sw_members = {sw.id: [i for i, m in enumerate(p.meters) if m.branch == sw.branch] for sw in p.switches}
         self.on_bus: dict[str, list[int]] = {b.id: [i for i, m in enumerate(p.meters) if m.bus == b.id] for b in p.buses}
+        self.ids = [m.id for m in p.meters]
+        self._plans: dict[int, tuple[TopoState, list[tuple]]] = {}
 
     # ------------------------------------------------------------------ balances
+    def _balance_plan(self, st: TopoState) -> list[tuple]:
+        """Per bus, what the switch state alone decides: a fixed n/a, or the members and texts."""
+        hit = self._plans.get(id(st))
+        if hit is not None and hit[0] is st:
+            return hit[1]
+        ids_all = [m.id for m in self.lay.meters]
+        plan = []
+        for bus, bs in st.buses.items():
+            reason = ""
+            mem: list[int] = []
+            if bs.live is False:
+                reason = "bus is not energized"
+            elif bs.unknown:
+                reason = f"switch state unknown: {', '.join(bs.unknown)}"
+            elif bs.unmetered:
+                reason = f"branch {', '.join(bs.unmetered)} at this bus is not metered here"
+            else:
+                mem = [mi for mi, br in bs.metered if br in bs.in_service]
+                if not mem:
+                    reason = "no current flows at this bus"
+            ids = ", ".join(ids_all[mi] for mi in mem)
+            plan.append((bus, reason, mem, ids, tuple(mem), len(mem) >= 2))
+        if len(self._plans) > 256:
+            self._plans.clear()
+        self._plans[id(st)] = (st, plan)
+        return plan
+
     def _balance(self, fr: Frame, st: TopoState, out: list[CheckResult], eqs: list[tuple[str, tuple[int, ...]]],
                  failed: set[str]) -> None:
         lay = self.lay
-        ids_all = [m.id for m in lay.meters]
+        ids_all = self.ids
         k, warn = lay.limits.k, lay.limits.warn
+        apply = lay.limits.apply
+        plan = self._balance_plan(st)
         for check, col, name, unit in (("network.p_balance", P4.stop - 1, "P", "W"), ("network.q_balance", Q4.stop - 1, "Q", "var")):
             xs, us = fr.x[:, col].tolist(), fr.u[:, col].tolist()
-            for bus, bs in st.buses.items():
-                if bs.live is False:
-                    out.append(na(check, bus, "bus is not energized", unit))
-                    continue
-                if bs.unknown:
-                    out.append(na(check, bus, f"switch state unknown: {', '.join(bs.unknown)}", unit))
-                    continue
-                if bs.unmetered:
-                    out.append(na(check, bus, f"branch {', '.join(bs.unmetered)} at this bus is not metered here", unit))
-                    continue
-                mem = [mi for mi, br in bs.metered if br in bs.in_service]
-                if not mem:
-                    out.append(na(check, bus, "no current flows at this bus", unit))
+            is_p = check == "network.p_balance"
+            for bus, reason, mem, ids, mem_t, multi in plan:
+                if reason:
+                    out.append(na(check, bus, reason, unit))
                     continue
                 vals = [xs[mi] for mi in mem]
-                bad = [ids_all[mi] for mi, v in zip(mem, vals, strict=True) if v != v]
-                if bad:
+                if any(v != v for v in vals):
+                    bad = [ids_all[mi] for mi, v in zip(mem, vals, strict=True) if v != v]
                     out.append(na(check, bus, f"no good {name} total from {', '.join(bad)}", unit))
                     continue
                 r = sum(vals)
-                u = math.sqrt(sum(us[mi] ** 2 for mi in mem))  # meters independent: RSS (GUM 5.1.2)
-                lim = float(lay.limits.apply(check, unit, k * u))
+                acc = 0
+                for mi in mem:
+                    acc += us[mi] ** 2
+                u = math.sqrt(acc)  # meters independent: RSS (GUM 5.1.2)
+                lim = float(apply(check, unit, k * u))
                 code = judge1(r, lim, warn)
-                ids = ", ".join(ids_all[mi] for mi in mem)
                 if code == PASS:
                     out.append(result(check, bus, PASS, r, lim, unit, f"{name} balances at {bus} ({ids})"))
                 else:
@@ -85,8 +118,8 @@ class NetworkChecks:
                            f"{fmt(lim, unit)}): a CT/VT ratio, CT polarity or sign convention error, or an unmetered "
                            "branch; see network.bad_data")
                     out.append(result(check, bus, code, r, lim, unit, msg, "imbalance"))
-                if check == "network.p_balance" and len(mem) >= 2:
-                    eqs.append((bus, tuple(mem)))
+                if is_p and multi:
+                    eqs.append((bus, mem_t))
 
     def _equations(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]]) -> list[Equation]:
         """Per-phase equations with their standard uncertainties (built only when needed)."""
@@ -145,6 +178,7 @@ class NetworkChecks:
         v, u = _vmean(fr).tolist(), _v_u(fr).tolist()
         live, vn = fr.energized.tolist(), lay.v_n.tolist()
         k_cov = lay.limits.k
+        apply = lay.limits.apply
         ratios: dict[int, float] = {}
         for bus, mem in self.on_bus.items():
             mem = [mi for mi in mem if v[mi] == v[mi]]
@@ -155,22 +189,27 @@ class NetworkChecks:
                 out.append(na(check, bus, "bus is not energized", "V"))
                 continue
             worst, wz, wd, wl = -1, -1.0, 0.0, 0.0
+            two = len(mem) == 2
             for mi in mem:
                 peers = [p for p in mem if p != mi]
-                ref = statistics.median(v[p] for p in peers)
+                ref = _median([v[p] for p in peers])
                 d = v[mi] - ref
-                lim = float(lay.limits.apply(check, "V", k_cov * math.sqrt(u[mi] ** 2 + sum(u[p] ** 2 for p in peers) / len(peers))))
+                acc = 0
+                for p in peers:
+                    acc += u[p] ** 2
+                lim = apply(check, "V", k_cov * math.sqrt(u[mi] ** 2 + acc / len(peers)))
                 z = abs(d) / lim
-                if len(mem) == 2:  # two meters: the one farther from the zone nominal is the suspect
+                if two:  # two meters: the one farther from the zone nominal is the suspect
                     z += abs(v[mi] / vn[mi] - 1.0) * 1e-3
                 if z > wz:
                     worst, wz, wd, wl = mi, z, d, lim
+            wl = float(wl)
             code = judge1(wd, wl, lay.limits.warn)
             ids = ", ".join(lay.meters[mi].id for mi in mem)
             if code == PASS:
                 out.append(result(check, bus, PASS, wd, wl, "V", f"voltages of {ids} agree"))
                 continue
-            k = v[worst] / statistics.median(v[p] for p in mem if p != worst)
+            k = v[worst] / _median([v[p] for p in mem if p != worst])
             mid = lay.meters[worst].id
             cause = f"vt_ratio:{k:.3f}" if code == FAIL else ""
             if code == FAIL:
