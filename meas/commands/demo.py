@@ -1,0 +1,124 @@
+"""benchwalk demo: the demo bench on the simulated bench (real Modbus on loopback).
+
+With ``--headless`` a simulated technician walks the whole demo sequence: it operates
+manual switches with ``operate_by_hand``, confirms remote commands as "simulated
+technician", signs hold points and writes notes; the dataset and report go to ``--out``.
+Without it the console starts.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import sys
+from pathlib import Path
+from typing import TextIO
+
+from ..errors import BenchwalkError
+from ..runner import Runner, RunnerView
+from ..session import SIM_OPERATOR, Session
+from .run import CAUTION, add_common, drive, finish, saved_printer
+
+HELP = "run the demo feeder bench on the simulated bench (console, or --headless end to end)"
+
+DEMO_PROFILE = Path(__file__).resolve().parents[2] / "profiles_demo" / "feeder_bench.toml"
+
+
+class SimTechnician:
+    """Answers every prompt the way a careful technician would, on the simulated bench.
+
+    Failing reviews: one retake, then a gate-allow step is accepted with a recorded reason
+    and a gate-block step is skipped with a reason, so the run ends and exits 1.
+    """
+
+    def __init__(self, bench, operator: str = SIM_OPERATOR, retakes: int = 1,
+                 out: TextIO = sys.stdout):
+        self.bench, self.operator, self.retakes, self.out = bench, operator, retakes, out
+        self._retaken: dict[str, int] = {}
+
+    def _set_by_hand(self, runner: Runner, view: RunnerView, keep: set[str] = frozenset()) -> None:
+        for sid in view.mismatches:
+            if sid not in keep:
+                self.bench.operate_by_hand(sid, view.expected[sid])
+                print(f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
+                      file=self.out)
+
+    async def act(self, runner: Runner, view: RunnerView) -> None:
+        a, step = view.action, view.step
+        if step is None or a in ("wait", "none"):
+            return
+        if a == "confirm_operation":
+            self._set_by_hand(runner, view)
+            runner.confirm_operation()
+        elif a == "capture":
+            self._set_by_hand(runner, view)
+            runner.capture()
+        elif a == "request_remote":
+            self._set_by_hand(runner, view, keep={s for s, _ in view.remote_todo})
+            sid, state = view.remote_todo[0]
+            print(f"  {runner.request_remote(sid, state)} yes ({self.operator})", file=self.out)
+            await runner.confirm_remote(sid, state, self.operator)
+        elif a == "accept":
+            runner.accept()
+        elif a == "sign":
+            runner.sign(self.operator)
+        elif a == "note":
+            runner.note(f"{self.operator}: nothing unusual on the simulated bench")
+        elif a in ("retake", "accept_with_reason"):
+            if view.settle_timed_out and view.state.value == "settling":
+                runner.capture()  # journalled as captured before the readings settled
+                return
+            n = self._retaken.get(step.id, 0)
+            if n < self.retakes:
+                self._retaken[step.id] = n + 1
+                print("  checks failed: retaking", file=self.out)
+                runner.retake()
+            elif a == "accept_with_reason":
+                runner.accept(f"{self.operator}: checks still failing after {n} retake(s); "
+                              "accepted for the record (gate allow)")
+            else:
+                runner.skip(f"{self.operator}: checks still failing after {n} retake(s)")
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--fault", action="append", default=[], metavar="KIND:METER[:ARG]",
+                   help="inject a fault into the simulated bench (repeatable), e.g. ct-reversed:M2:B")
+    p.add_argument("--headless", action="store_true",
+                   help="run the whole demo sequence in this terminal and write the dataset")
+    p.add_argument("--seed", type=int, default=None, help="random seed of the simulated noise")
+    p.add_argument("--profile", type=Path, default=DEMO_PROFILE, help=argparse.SUPPRESS)
+    add_common(p)
+
+
+async def _headless(args: argparse.Namespace) -> int:
+    operator = args.operator or SIM_OPERATOR
+    print(CAUTION, flush=True)
+    session = await Session.new(args.profile, operator, sessions_dir=args.sessions,
+                                simulate=True, faults=args.fault, seed=args.seed,
+                                on_saved=saved_printer(args.log_saved), live_checks=False)
+    print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
+    try:
+        code = await drive(session, SimTechnician(session.bench, SIM_OPERATOR))
+    except BaseException:
+        await session.close()
+        raise
+    return await finish(session, code, args.out, sys.stdout)
+
+
+def start_console(**kwargs) -> int:
+    """Start the console (``tui.app``), imported only here so the core stays headless."""
+    try:
+        from tui.app import run_console
+    except ImportError as exc:
+        raise BenchwalkError(
+            f"the console is not available in this build ({exc}); use --headless"
+        ) from None
+    return int(run_console(**kwargs) or 0)
+
+
+def main(args: argparse.Namespace) -> int:
+    if not args.headless:
+        return start_console(profile=str(args.profile), demo=True, faults=tuple(args.fault),
+                             seed=args.seed, operator=args.operator, sessions_dir=args.sessions,
+                             out=args.out)
+    return asyncio.run(_headless(args))

@@ -1,0 +1,313 @@
+"""One session's wiring: poller, checks, journal and runner (and a simulated bench for demos).
+
+Headless mode and the console both use it: ``async for view in session.views(): ...`` runs
+the poll loop, feeds every snapshot to the runner (which journals it with its role) and
+yields the runner's picture after each one; the caller reacts by calling runner commands.
+
+What is journalled: every snapshot polled while a step operates, verifies, settles or
+captures (roles ``settling`` / ``capture``, and ``live`` for the polls between two capture
+picks); while waiting for the technician or reviewing, one ``live`` snapshot per
+``live_every_s`` (default 1 s), so a long wait does not bloat the journal.
+
+A demo session records in the journal meta that it ran on the simulated bench, with its
+seed and faults, so ``resume`` can start the same bench again and bring its switches to
+the configuration the sequence had reached.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+from collections.abc import AsyncIterator, Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from .errors import BenchwalkError
+from .journal import Journal, new_session_id, resolve_session, session_path
+from .model import CapturePolicy, Profile
+from .profile import load_profile
+from .results import Status
+from .runner import Runner, RunnerView, StepOutcome
+from .sequence import configuration_before, find_step, validate_sequence
+
+SIM_OPERATOR = "simulated technician"
+
+
+class _SettleAdapter:
+    """Presents ``meas.checks.SettleDetector`` with the small interface the runner uses."""
+
+    def __init__(self, profile: Profile, policy: CapturePolicy):
+        from .checks.settle import SettleDetector
+
+        self._det = SettleDetector(profile, policy.settle)
+        self._window_s = policy.settle.window_s
+        self._limit = policy.settle.rel_spread
+        self._state: Any = None
+
+    def update(self, snapshot) -> None:
+        self._state = self._det.feed(snapshot)
+
+    @property
+    def settled(self) -> bool:
+        return bool(self._state is not None and self._state.settled)
+
+    @property
+    def timed_out(self) -> bool:
+        return bool(self._state is not None and self._state.timed_out)
+
+    @property
+    def elapsed_s(self) -> float:
+        return float(self._state.elapsed_s) if self._state is not None else 0.0
+
+    @property
+    def settle_s(self) -> float:
+        """When the readings became steady, seconds after settling began (elapsed until then)."""
+        st = self._state
+        if st is None:
+            return 0.0
+        return float(st.settle_time_s) if math.isfinite(st.settle_time_s) else float(st.elapsed_s)
+
+    @property
+    def worst(self) -> str:
+        return str(self._state.worst) if self._state is not None else ""
+
+    @property
+    def progress(self) -> float:
+        """0..1: the window filling, then how close the worst spread is to the limit."""
+        st = self._state
+        if st is None:
+            return 0.0
+        if st.settled:
+            return 1.0
+        fill = min(1.0, st.elapsed_s / self._window_s) if self._window_s > 0 else 1.0
+        if not st.window_full:
+            return 0.5 * fill
+        closeness = self._limit / st.spread if st.spread > 0 else 1.0
+        return 0.5 + 0.5 * min(1.0, closeness) * 0.99
+
+
+def settle_factory(profile: Profile) -> Callable[[CapturePolicy], _SettleAdapter]:
+    return lambda policy: _SettleAdapter(profile, policy)
+
+
+def prior_outcomes(journal: Journal) -> dict[str, StepOutcome]:
+    """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
+    out: dict[str, StepOutcome] = {}
+    for r in journal.step_history():
+        if r["state"] in ("accepted", "skipped"):
+            status = Status.FAIL if r["outcome"] == "fail" else (
+                Status.WARN if r["outcome"] == "warn" else Status.PASS)
+            out[r["step"]] = StepOutcome(r["step"], r["state"], status, (), r["reason"] or "")
+    return out
+
+
+class Session:
+    """Owns the parts of one session; build with ``new`` or ``resume``, end with ``close``."""
+
+    def __init__(self, profile: Profile, journal: Journal, poller: Any, runner: Runner,
+                 bench: Any = None, control: Any = None):
+        self.profile = profile
+        self.journal = journal
+        self.poller = poller
+        self.runner = runner
+        self.bench = bench
+        self.control = control
+        self._closed = False
+
+    @property
+    def session_id(self) -> str:
+        return self.journal.session_id
+
+    @property
+    def path(self) -> Path:
+        return self.journal.path
+
+    # ------------------------------------------------------------------ building
+
+    @classmethod
+    async def new(
+        cls,
+        profile_path: str | Path,
+        operator: str,
+        *,
+        sessions_dir: Path | None = None,
+        session_id: str | None = None,
+        simulate: bool = False,
+        faults: Sequence[str] = (),
+        seed: int | None = None,
+        noise: bool = True,
+        on_saved: Callable[[int, str, str], None] | None = None,
+        live_every_s: float = 1.0,
+        live_checks: bool = True,
+    ) -> Session:
+        """Start a new session (and, for a demo, the simulated bench) from a profile file."""
+        profile = load_profile(profile_path)
+        validate_sequence(profile)
+        sid = session_id or new_session_id(profile.bench.name)
+        path = session_path(sid, sessions_dir)
+        meta = {"simulated": simulate, "faults": list(faults), "seed": seed, "noise": noise}
+        bench, live_profile = None, profile
+        if simulate:
+            bench, live_profile = await _start_bench(profile, faults, seed, noise)
+        try:
+            journal = Journal.create(path, profile, operator=operator, session_id=sid, meta=meta)
+        except BaseException:
+            if bench is not None:
+                await bench.stop()
+            raise
+        journal.record_event("session_started", f"session {sid} started", operator=operator,
+                             data=meta)
+        return await cls._assemble(live_profile, journal, operator, 0, bench, on_saved,
+                                   live_every_s, live_checks, {})
+
+    @classmethod
+    async def resume(
+        cls,
+        session: str | Path,
+        *,
+        allow_changed_profile: bool = False,
+        sessions_dir: Path | None = None,
+        operator: str | None = None,
+        profile_path: str | Path | None = None,
+        on_saved: Callable[[int, str, str], None] | None = None,
+        live_every_s: float = 1.0,
+        live_checks: bool = True,
+    ) -> Session:
+        """Continue a session at the first step not yet accepted or skipped.
+
+        The profile is read again from its file; when its sha256 differs from the one in
+        the journal the resume is refused unless ``allow_changed_profile`` (and recorded).
+        """
+        journal = Journal.open(resolve_session(session, sessions_dir))
+        try:
+            ppath = Path(profile_path or journal.profile_dict.get("path", ""))
+            if not ppath.is_file():
+                raise BenchwalkError(
+                    f"{journal.path}: the profile {ppath} is not there any more; "
+                    "give its new location with --profile"
+                )
+            profile = load_profile(ppath)
+            if profile.sha256 != journal.profile_sha256:
+                if not allow_changed_profile:
+                    raise BenchwalkError(
+                        f"{ppath} changed since session {journal.session_id} started "
+                        f"(sha256 {journal.profile_sha256[:12]} -> {profile.sha256[:12]}); "
+                        "check the change, then resume with --allow-changed-profile"
+                    )
+                journal.record_event(
+                    "profile_changed", f"resumed with a changed profile {ppath}",
+                    operator=operator or journal.operator,
+                    data={"old_sha256": journal.profile_sha256, "new_sha256": profile.sha256},
+                )
+            validate_sequence(profile)
+            point = journal.resume_point()
+            if point is None:
+                index = len(profile.steps)
+            else:
+                try:
+                    index = find_step(profile, point)
+                except KeyError:
+                    raise BenchwalkError(
+                        f"step {point!r}, where session {journal.session_id} stopped, is not in "
+                        f"{ppath} any more"
+                    ) from None
+            op = operator or journal.operator
+            meta = journal.meta
+            bench, live_profile = None, profile
+            if meta.get("simulated"):
+                bench, live_profile = await _start_bench(
+                    profile, meta.get("faults", ()), meta.get("seed"), meta.get("noise", True))
+                for sid, state in configuration_before(profile, index).items():
+                    bench.operate_by_hand(sid, state)
+            journal.record_event("session_resumed", f"resumed at step {point}", step_id=point,
+                                 operator=op)
+        except BaseException:
+            journal.close()
+            raise
+        return await cls._assemble(live_profile, journal, op, index, bench, on_saved,
+                                   live_every_s, live_checks, prior_outcomes(journal))
+
+    @classmethod
+    async def _assemble(cls, profile: Profile, journal: Journal, operator: str, index: int,
+                        bench: Any, on_saved, live_every_s: float, live_checks: bool,
+                        prior: dict[str, StepOutcome]) -> Session:
+        from .checks import CheckEngine
+        from .control import SwitchControl
+        from .poller import Poller
+
+        poller = Poller(profile)
+        try:
+            await poller.start()
+            control = SwitchControl(profile, poller) if profile.control.enabled else None
+            runner = Runner(
+                profile, journal,
+                checks=CheckEngine(profile).run,
+                settle_factory=settle_factory(profile),
+                control=control,
+                operator=operator,
+                start_index=index,
+                live_every_s=live_every_s,
+                live_checks=live_checks,
+                on_saved=on_saved,
+                prior_outcomes=prior,
+            )
+        except BaseException:
+            with contextlib.suppress(Exception):
+                await poller.close()
+            if bench is not None:
+                await bench.stop()
+            journal.close()
+            raise
+        return cls(profile, journal, poller, runner, bench, control)
+
+    # ------------------------------------------------------------------ running
+
+    async def views(self) -> AsyncIterator[RunnerView]:
+        """Poll, feed the runner, yield its picture; ends when the sequence is done."""
+        yield self.runner.view()
+        if self.runner.done:
+            return
+        async for snap in self.poller.run(self.profile.poll.interval_s):
+            await self.runner.tick(snap)
+            yield self.runner.view()
+            if self.runner.done:
+                return
+
+    def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
+        """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
+        from .dataset import export_session
+        from .report import write_report
+
+        out = Path(out_dir)
+        dataset = export_session(self.journal.path, out / "dataset", overwrite=overwrite)
+        html, _md = write_report(dataset, out / "report.html")
+        return dataset, html
+
+    async def close(self) -> None:
+        """Stop polling and the simulated bench; close the journal. Safe to call twice."""
+        if self._closed:
+            return
+        self._closed = True
+        try:
+            with contextlib.suppress(Exception):
+                await self.poller.close()
+            if self.bench is not None:
+                with contextlib.suppress(Exception):
+                    await self.bench.stop()
+        finally:
+            self.journal.close()
+
+
+async def _start_bench(profile: Profile, faults: Sequence[str], seed: int | None,
+                       noise: bool) -> tuple[Any, Profile]:
+    from .sim.bench import SimulatedBench
+    from .sim.faults import parse_fault, validate_faults
+
+    parsed = tuple(parse_fault(f) for f in faults)
+    validate_faults(profile, parsed)
+    kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}
+    if seed is not None:
+        kwargs["seed"] = seed
+    bench = SimulatedBench(profile, **kwargs)
+    live = await bench.start()
+    return bench, live

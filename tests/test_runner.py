@@ -1,0 +1,344 @@
+"""The step state machine, driven by real snapshots from the simulated bench over loopback Modbus.
+
+Each test builds a session on a fast copy of the demo profile (short transient, 0.1 s polls)
+with a short test sequence, then drives the runner the way the console does: commands in,
+``view()`` out, every decision checked in the real SQLite journal.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import time
+from pathlib import Path
+
+import pytest
+
+from meas.errors import BenchwalkError, ProfileError
+from meas.profile import load_profile
+from meas.results import Status
+from meas.runner import Runner, State
+from meas.session import Session
+
+DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
+
+FAST_CAPTURE = "capture = { snapshots = 2, interval_s = 0.1, settle = { window_s = 0.5, rel_spread = 0.03, timeout_s = 6.0 } }"
+
+# The simulated bench starts with every switch in its normal state (the radial base case).
+TEST_SEQUENCE = f"""
+[[step]]
+id = "radial"
+title = "Radial base case"
+kind = "capture"
+instruction = "Check the bench is radial, then capture."
+expect = {{ CB1 = "closed", SW2 = "closed", SW3 = "closed", TIE = "open", RX = "open", LB2 = "closed" }}
+{FAST_CAPTURE}
+
+[[step]]
+id = "rx-in"
+title = "Reactor in"
+kind = "remote"
+instruction = "Close RX from the tool."
+operate = {{ RX = "closed" }}
+{FAST_CAPTURE}
+
+[[step]]
+id = "sign-off"
+title = "Hold"
+kind = "hold"
+instruction = "Sign off."
+
+[[step]]
+id = "tie"
+title = "Tie closed"
+kind = "manual"
+instruction = "Close the tie by hand."
+expect = {{ TIE = "closed" }}
+{FAST_CAPTURE}
+gate = "allow"
+
+[[step]]
+id = "remark"
+title = "Remark"
+kind = "note"
+instruction = "Write a remark."
+"""
+
+
+def fast_profile_text(text: str, verify_timeout_s: float | None = None) -> str:
+    """The demo profile with a short simulated transient and faster polling (same bench)."""
+    text = text.replace("settle_s = 1.5 ", "settle_s = 0.15 ", 1)
+    text = text.replace("[poll]\ninterval_s = 0.2", "[poll]\ninterval_s = 0.1", 1)
+    text = text.replace("update_hz = 20", "update_hz = 10", 1)
+    if verify_timeout_s is not None:
+        text = text.replace("verify_timeout_s = 3.0", f"verify_timeout_s = {verify_timeout_s}", 1)
+    return text
+
+
+def write_bench(folder: Path, sequence: str = TEST_SEQUENCE, edit=None) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    text = fast_profile_text(DEMO.read_text())
+    if edit is not None:
+        text = edit(text)
+    (folder / "feeder_bench.toml").write_text(text)
+    (folder / "feeder_bench.sequence.toml").write_text(sequence)
+    return folder / "feeder_bench.toml"
+
+
+async def until(session: Session, pred, timeout_s: float = 15.0):
+    """Poll and tick until ``pred(view)`` holds; fail after the deadline."""
+    deadline = time.monotonic() + timeout_s
+    last = None
+    async with contextlib.aclosing(session.views()) as views:
+        async for view in views:
+            last = view
+            if pred(view):
+                return view
+            if time.monotonic() > deadline:
+                break
+    brief = last and (last.index, last.state, last.action, last.mismatches, last.message)
+    raise AssertionError(f"condition not reached in {timeout_s} s; last view: {brief}")
+
+
+def in_state(*states: State):
+    return lambda v: v.state in states
+
+
+def states_of(session: Session, step_id: str) -> list[str]:
+    return [r["state"] for r in session.journal.step_history() if r["step"] == step_id]
+
+
+@pytest.fixture
+async def make_session(tmp_path):
+    made: list[Session] = []
+
+    async def make(sequence: str = TEST_SEQUENCE, edit=None, faults=(), name="bench") -> Session:
+        profile = write_bench(tmp_path / name, sequence, edit)
+        s = await Session.new(profile, "T. Tester", sessions_dir=tmp_path / "sessions",
+                              session_id=f"test-{name}", simulate=True, faults=faults, seed=7)
+        made.append(s)
+        return s
+
+    yield make
+    for s in made:
+        await s.close()
+
+
+async def test_full_walk_through_every_kind(make_session):
+    s = await make_session()
+    r = s.runner
+    v = await until(s, lambda v: bool(v.actual))  # a first snapshot has arrived
+    assert v.state is State.WAITING and v.action == "capture" and v.index == 0 and v.total == 5
+    with pytest.raises(BenchwalkError, match="capture step"):
+        r.confirm_operation()
+    with pytest.raises(BenchwalkError, match="cannot accept now"):
+        r.accept()
+
+    # capture step: waiting -> verifying -> settling -> capturing -> reviewing -> accepted
+    r.capture()
+    assert r.state is State.VERIFYING
+    seen = set()
+    v = await until(s, lambda v: seen.add(v.state) or v.state is State.REVIEWING)
+    assert {State.SETTLING} <= seen
+    assert v.captured == 2 and v.capture_target == 2
+    assert v.action == "accept", v.results[:3]
+    assert v.overall == "consistent"
+    r.accept()
+    assert states_of(s, "radial") == ["waiting", "verified", "settling", "capturing", "reviewing", "accepted"]
+    settle_rows = [h for h in s.journal.step_history() if h["step"] == "radial" and h["state"] == "capturing"]
+    assert settle_rows[0]["settle_s"] is not None and settle_rows[0]["settle_s"] >= 0.0
+    roles = [row["role"] for row in s.journal._conn.execute(
+        "SELECT role FROM snapshot WHERE step = 'radial' ORDER BY id")]
+    assert roles.count("capture") == 2 and "settling" in roles
+    n_checks = s.journal._conn.execute(
+        "SELECT count(*) FROM check_result WHERE step = 'radial'").fetchone()[0]
+    assert n_checks > 0
+
+    # remote step: two deliberate steps
+    v = r.view()
+    assert v.step.id == "rx-in" and v.action == "request_remote" and v.remote_todo == (("RX", "closed"),)
+    with pytest.raises(BenchwalkError, match="request RX closed first"):
+        await r.confirm_remote("RX", "closed", "T. Tester")
+    with pytest.raises(BenchwalkError, match="operated by hand"):
+        r.request_remote("TIE", "closed")
+    with pytest.raises(BenchwalkError, match="does not call for"):
+        r.request_remote("CB1", "open")
+    assert s.bench.switch_states()["RX"] == "open"  # nothing written yet
+    # no command while another switch is not as the step expects
+    s.bench.operate_by_hand("LB2", "open")
+    await until(s, lambda v: "LB2" in v.mismatches)
+    with pytest.raises(BenchwalkError, match="LB2 is open, expected closed"):
+        r.request_remote("RX", "closed")
+    s.bench.operate_by_hand("LB2", "closed")
+    await until(s, lambda v: v.mismatches == ("RX",))
+    question = r.request_remote("RX", "closed")
+    assert "RX" in question and "Confirm" in question
+    assert s.bench.switch_states()["RX"] == "open"  # a request alone writes nothing
+    with pytest.raises(BenchwalkError, match="name"):
+        await r.confirm_remote("RX", "closed", "  ")
+    await r.confirm_remote("RX", "closed", "T. Tester")
+    assert s.bench.switch_states()["RX"] == "closed"
+    v = await until(s, in_state(State.REVIEWING))
+    r.accept()
+    events = [e[0] for e in s.journal._conn.execute("SELECT kind FROM event WHERE step='rx-in' ORDER BY id")]
+    assert events[:3] == ["remote_requested", "remote_confirmed", "remote_result"]
+
+    # hold: named sign-off
+    assert r.view().action == "sign"
+    with pytest.raises(BenchwalkError, match="name"):
+        r.sign(" ")
+    r.sign("J. Lead")
+    last = s.journal.step_history()[-2]
+    assert last["step"] == "sign-off" and last["state"] == "accepted" and last["operator"] == "J. Lead"
+
+    # manual step: the technician closes the tie by hand, then confirms
+    v = r.view()
+    assert v.step.id == "tie" and v.action == "confirm_operation" and v.mismatches == ("TIE",)
+    s.bench.operate_by_hand("TIE", "closed")
+    r.confirm_operation()
+    v = await until(s, in_state(State.REVIEWING))
+    if v.action == "accept_with_reason":
+        with pytest.raises(BenchwalkError, match="reason"):
+            r.accept()
+        r.accept("loop flow below the meter's class; recorded")
+    else:
+        r.accept()
+
+    # note step
+    with pytest.raises(BenchwalkError, match="empty"):
+        r.note("")
+    r.note("ambient 21 C")
+    assert r.finished and r.view().action == "none"
+    notes = [e[0] for e in s.journal._conn.execute("SELECT message FROM event WHERE kind='note'")]
+    assert notes == ["ambient 21 C"]
+    assert s.journal.resume_point() is None
+
+
+async def test_gate_block_and_allow_with_a_reversed_ct(make_session):
+    # IEEE/common practice signature (REFERENCES.md section 2): a reversed phase-B CT makes
+    # p.B negative, so the meter's P sum and the network balance at M2 cannot hold.
+    s = await make_session(faults=["ct-reversed:M2:B"])
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    v = await until(s, in_state(State.REVIEWING))
+    assert v.overall == "inconsistent" and v.action == "retake"
+    assert v.results[0].status is Status.FAIL  # failures first
+    assert any(x.subject == "M2" for x in v.results if x.status is Status.FAIL)
+    with pytest.raises(BenchwalkError, match="does not allow accepting failures"):
+        r.accept("I am sure")
+    r.retake()
+    assert r.state is State.SETTLING
+    v = await until(s, in_state(State.REVIEWING))
+    assert v.overall == "inconsistent"
+    with pytest.raises(BenchwalkError, match="reason"):
+        r.skip("  ")
+    r.skip("M2 phase B CT polarity suspected; to be rewired")
+    hist = states_of(s, "radial")
+    assert hist[hist.index("retaken"):] == ["retaken", "settling", "capturing", "reviewing", "skipped"]
+    assert r.outcomes["radial"].status is Status.FAIL
+    assert r.verdict() is Status.FAIL
+
+    # remote step, then hold, then the gate-allow manual step: accept needs a reason
+    r.request_remote("RX", "closed")
+    await r.confirm_remote("RX", "closed", "T. Tester")
+    await until(s, in_state(State.REVIEWING))
+    r.skip("fault under investigation")
+    r.sign("J. Lead")
+    s.bench.operate_by_hand("TIE", "closed")
+    r.confirm_operation()
+    v = await until(s, in_state(State.REVIEWING))
+    assert v.action == "accept_with_reason"
+    with pytest.raises(BenchwalkError, match="give a reason"):
+        r.accept()
+    r.accept("known CT fault on M2; rest of the bench recorded")
+    hist = [h for h in s.journal.step_history() if h["step"] == "tie"]
+    assert hist[-1]["state"] == "accepted" and hist[-1]["outcome"] == "fail"
+    assert hist[-1]["reason"].startswith("known CT fault")
+
+
+async def test_manual_mismatch_returns_to_waiting(make_session):
+    s = await make_session()
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    await until(s, in_state(State.REVIEWING))
+    r.accept()
+    r.request_remote("RX", "closed")
+    await r.confirm_remote("RX", "closed", "T. Tester")
+    await until(s, in_state(State.REVIEWING))
+    r.accept()
+    r.sign("J. Lead")
+    # confirm without operating the tie: verification times out and asks again
+    r.confirm_operation()
+    v = await until(s, lambda v: v.state is State.WAITING and v.message, timeout_s=10)
+    assert "TIE is open, expected closed" in v.message
+    assert not r.stopped
+
+
+async def test_remote_status_mismatch_stops_the_sequence(make_session):
+    # RX's mechanism made slower than the verify timeout: the command "fails" to take effect
+    def slow_rx(text: str) -> str:
+        text = fast_profile_text(text, verify_timeout_s=0.3)
+        return text.replace("command_coil = 4\nstatus = { kind = \"discrete\", address = 4 }\noperate_time_s = 0.1",
+                            "command_coil = 4\nstatus = { kind = \"discrete\", address = 4 }\noperate_time_s = 2.0")
+    s = await make_session(edit=slow_rx)
+    assert s.profile.switch("RX").operate_time_s == 2.0 and s.profile.control.verify_timeout_s == 0.3
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    await until(s, in_state(State.REVIEWING))
+    r.accept()
+    r.request_remote("RX", "closed")
+    await r.confirm_remote("RX", "closed", "T. Tester")
+    assert r.stopped and r.done
+    assert "RX" in r.message
+    assert states_of(s, "rx-in")[-1] == "stopped"
+    assert s.journal.resume_point() == "rx-in"
+    with pytest.raises(BenchwalkError):
+        r.accept()
+
+
+async def test_remote_refused_when_control_disabled(tmp_path):
+    path = write_bench(tmp_path / "off", edit=lambda t: t.replace("enabled = true ", "enabled = false ", 1))
+    # the session refuses a sequence with remote steps when control is off
+    with pytest.raises(ProfileError, match="control is disabled"):
+        await Session.new(path, "T. Tester", sessions_dir=tmp_path / "s", simulate=True)
+    # and the runner refuses a remote request on its own, before any write
+    from meas.journal import Journal
+
+    profile = load_profile(path)
+    with Journal.create(tmp_path / "j.sqlite", profile, operator="T") as j:
+        r = Runner(profile, j, checks=lambda snap, hist: [], settle_factory=None, start_index=1)
+        assert r.step.id == "rx-in"
+        with pytest.raises(BenchwalkError, match="control is disabled"):
+            r.request_remote("RX", "closed")
+
+
+def fast_sequence_text(text: str) -> str:
+    """The demo sequence with short capture policies (same steps, same switching)."""
+    import re
+
+    return re.sub(r"(?m)^capture = \{.*\}$", FAST_CAPTURE, text)
+
+
+def write_fast_demo(folder: Path) -> Path:
+    """The demo profile and demo sequence, sped up for tests."""
+    seq = (DEMO.parent / "feeder_bench.sequence.toml").read_text()
+    return write_bench(folder, fast_sequence_text(seq))
+
+
+def test_review_takes_the_median_status_per_check():
+    # statuses chosen to exercise the rule (no measured values involved)
+    from meas.results import CheckResult
+    from meas.runner import median_per_subject
+
+    def batch(*statuses):
+        return [CheckResult("meter.p_sum", "M1", st) for st in statuses]
+
+    f, p, w = Status.FAIL, Status.PASS, Status.WARN
+    one_outlier = median_per_subject([batch(f), batch(p), batch(p)])
+    assert [r.status for r in one_outlier] == [Status.PASS]
+    persistent = median_per_subject([batch(f), batch(f), batch(p)])
+    assert [r.status for r in persistent] == [Status.FAIL]
+    two = median_per_subject([batch(f), batch(w)])  # of two, both must fail to fail the step
+    assert [r.status for r in two] == [Status.WARN]
