@@ -1,0 +1,173 @@
+"""The console App: safety caution, operator and session, then the bench screen.
+
+``run_console`` is what ``benchwalk demo`` (and ``run``/``resume``) call, lazily, so the core
+never imports textual. The App only wires screens together; sessions come from a factory, so
+tests hand in their own.
+"""
+
+from __future__ import annotations
+
+import inspect
+from collections.abc import Callable, Iterable
+from pathlib import Path
+from typing import Any
+
+from textual.app import App, SystemCommand
+from textual.binding import Binding
+from textual.screen import Screen
+
+from meas.errors import BenchwalkError
+
+from .bridge import Bridge
+from .keys import KEYS
+from .screens.main import MainScreen
+from .screens.safety import SafetyScreen
+from .screens.start import StartChoice, StartScreen
+
+# (operator, resume session id or None) -> a session (or an awaitable of one)
+SessionFactory = Callable[[str, str | None], Any]
+
+
+class BenchwalkApp(App[int]):
+    CSS_PATH = "console.tcss"
+    TITLE = "benchwalk"
+    BINDINGS = [Binding("ctrl+q", "quit", "Quit", priority=True, id="app.quit")]
+
+    def __init__(
+        self,
+        session_factory: SessionFactory,
+        *,
+        bench_name: str = "",
+        list_sessions: Callable[[], list[tuple[str, str]]] | None = None,
+        operator: str | None = None,
+        resume: str | None = None,
+        skip_intro: bool = False,
+        autopoll: bool = True,
+        out_dir: Path | None = None,
+    ) -> None:
+        super().__init__()
+        self.session_factory = session_factory
+        self.bench_name = bench_name
+        self.list_sessions = list_sessions or (lambda: [])
+        self.operator = operator or ""
+        self.resume = resume
+        self.skip_intro = skip_intro
+        self.autopoll = autopoll
+        self.out_dir = out_dir
+        self.bridge: Bridge | None = None
+        self.exit_message = ""
+
+    # ------------------------------------------------------------------ start-up
+    def on_mount(self) -> None:
+        if self.skip_intro:
+            self.run_worker(self._open(StartChoice(self.operator, self.resume)), exclusive=True)
+        else:
+            self.push_screen(SafetyScreen(), self._after_safety)
+
+    def _after_safety(self, ok: bool | None) -> None:
+        if not ok:
+            self.exit(1)
+            return
+        try:
+            sessions = self.list_sessions()
+        except BenchwalkError as exc:
+            self.notify(str(exc), severity="error")
+            sessions = []
+        highlight = 0
+        if self.resume:  # asked for on the command line: listed first after "new", highlighted
+            sessions = [(self.resume, "(asked for)")] + [x for x in sessions if x[0] != self.resume]
+            highlight = 1
+        self.push_screen(StartScreen(self.bench_name, sessions, self.operator, highlight=highlight))
+
+    def on_start_screen_chosen(self, message: StartScreen.Chosen) -> None:
+        self.run_worker(self._open(message.choice), exclusive=True, group="open")
+
+    async def _open(self, choice: StartChoice) -> None:
+        try:
+            session = self.session_factory(choice.operator, choice.resume)
+            if inspect.isawaitable(session):
+                session = await session
+        except BenchwalkError as exc:
+            self.exit_message = str(exc)
+            self.exit(2)
+            return
+        if hasattr(session, "cycle"):  # already console-shaped (benchmarks, replays)
+            self.bridge = session
+        else:
+            self.bridge = Bridge(session, operator=choice.operator, out_dir=self.out_dir)
+        self.operator = choice.operator
+        while len(self.screen_stack) > 1:
+            self.pop_screen()
+        await self.push_screen(MainScreen(self.bridge, autopoll=self.autopoll))
+
+    @property
+    def main_screen(self) -> MainScreen | None:
+        for s in self.screen_stack:
+            if isinstance(s, MainScreen):
+                return s
+        return None
+
+    # ------------------------------------------------------------------ quit keeps the session
+    async def action_quit(self) -> None:
+        main = self.main_screen
+        if main is not None:
+            await main.stop_polling()
+        if self.bridge is not None:
+            try:
+                await self.bridge.close()
+            except BenchwalkError as exc:
+                self.exit_message = str(exc)
+        self.exit(0)
+
+    # ------------------------------------------------------------------ command palette
+    def get_system_commands(self, screen: Screen) -> Iterable[SystemCommand]:
+        yield from super().get_system_commands(screen)
+        if isinstance(screen, MainScreen):
+            for k in KEYS:
+                name, _, arg = k.action.partition("(")
+                method = getattr(screen, f"action_{name}")
+                if arg:
+                    value = arg.rstrip(")").strip("'\"")
+                    yield SystemCommand(f"{k.label}", k.help, lambda m=method, v=value: m(v))
+                else:
+                    yield SystemCommand(k.label, k.help, method)
+
+
+def run_console(
+    profile_path: str | None = None,
+    *,
+    faults: list[str] | tuple[str, ...] = (),
+    seed: int | None = None,
+    operator: str | None = None,
+    resume: str | None = None,
+    sessions_dir: str | Path | None = None,
+    out: str | Path | None = None,
+    allow_changed_profile: bool = False,
+    **compat: Any,
+) -> int:
+    """Run the console on a profile with the simulated bench; returns the exit code.
+
+    ``profile=`` and ``demo=`` are accepted as aliases from ``meas.commands.demo``.
+    """
+    from .launch import make_factory  # the session wiring; kept apart so tests can pass their own
+
+    profile_path = profile_path or compat.pop("profile", None)
+    simulate = bool(compat.pop("demo", True))
+    sdir = Path(sessions_dir) if sessions_dir else None
+    factory, bench_name, lister = make_factory(
+        profile_path, faults=faults, seed=seed, sessions_dir=sdir, simulate=simulate,
+        allow_changed_profile=allow_changed_profile,
+    )
+    app = BenchwalkApp(factory, bench_name=bench_name, list_sessions=lister,
+                       operator=operator, resume=resume, out_dir=Path(out) if out else None)
+    code = app.run()
+    if app.exit_message:
+        raise BenchwalkError(app.exit_message)
+    if app.bridge is not None:
+        sid = app.bridge.session.session_id
+        print(f"Session {sid} saved; continue it with: benchwalk resume {sid}")
+        if app.bridge.exported:
+            print(f"Dataset: {app.bridge.exported}")
+            if app.bridge.report:
+                print(f"Report: {app.bridge.report}")
+    return int(code or 0)

@@ -1,0 +1,191 @@
+"""The one place the console meets the session and runner: views in, decisions out.
+
+``frame_from_view`` turns a ``meas.runner.RunnerView`` into the console's plain ``Frame``;
+``Bridge`` wraps a session (poll one cycle, tick the runner) and forwards the technician's
+commands, turning refusals (``BenchwalkError``) into one-line notices. Everything else in
+``tui/`` sees only frames.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import inspect
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from meas.errors import BenchwalkError
+from meas.snapshot import Snapshot
+
+from .frame import Frame, StepInfo
+
+# runner action -> the keys to press, shown before the runner's own sentence so that a
+# narrow terminal cuts the sentence, never the key
+ACTION_KEYS: dict[str, str] = {
+    "confirm_operation": "O",
+    "request_remote": "R",
+    "capture": "C",
+    "accept": "A",
+    "accept_with_reason": "A (with reason) or X",
+    "retake": "X (or S to skip)",
+    "sign": "G",
+    "note": "N",
+    "none": "E export, Ctrl+Q quit",
+}
+
+
+def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...] = ()) -> Frame:
+    """A console frame from a RunnerView (duck-typed, so tests can hand-build either)."""
+    step = view.step
+    action = getattr(view, "action", "none")
+    keys = ACTION_KEYS.get(action, "")
+    if action == "retake" and getattr(view, "settle_timed_out", False):
+        keys = "C capture anyway, X wait again, S skip"
+    next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
+    state = str(getattr(view.state, "value", view.state))
+    finished = state in ("finished", "stopped")
+    if step is None:
+        info = StepInfo(
+            index=view.total, total=view.total, step_id="", title="sequence over",
+            instruction=getattr(view, "message", "") or "", kind="", state=state,
+            overall="done" if state == "finished" else "inconsistent", next_action=next_action,
+            finished=True,
+        )
+    else:
+        policy = step.capture
+        window = policy.settle.window_s if policy is not None else 2.0
+        remote = tuple(s for s, _ in getattr(view, "remote_todo", ()))
+        info = StepInfo(
+            index=view.index + 1,
+            total=view.total,
+            step_id=step.id,
+            title=step.title,
+            instruction=step.instruction,
+            kind=step.kind,
+            state=state,
+            expected=dict(view.expected),
+            actual=dict(view.actual),
+            settle=view.settle_progress if state == "settling" else None,
+            overall="inconsistent" if state == "stopped" else view.overall,
+            next_action=next_action,
+            action=action,
+            message=getattr(view, "message", ""),
+            remote_switches=remote,
+            captured=view.captured,
+            to_capture=view.capture_target if step.capture is not None else 0,
+            finished=finished,
+        )
+        return Frame(snapshot, tuple(view.results), info, events, window)
+    return Frame(snapshot, tuple(view.results), info, events)
+
+
+class Bridge:
+    """Console side of a ``meas.session.Session``: ``cycle()`` polls once and ticks the runner.
+
+    It drives ``session.poller.run()`` itself (rather than ``Session.views()``) because the
+    console needs each snapshot as well as the view; the runner journals every tick as usual
+    and keeps being fed after the sequence ends, so the readings stay live.
+    On the simulated bench (``session.bench``) the technician's hands are simulated too: the
+    confirm keys first set the switches the step expects (all but those it commands remotely),
+    as a person at the bench would, the same way ``benchwalk demo --headless`` does.
+    """
+
+    def __init__(self, session: Any, operator: str = "", out_dir: Path | None = None) -> None:
+        self.session = session
+        self.profile = session.profile
+        self.operator = operator
+        self.out_dir = out_dir
+        self.exported: Path | None = None
+        self.report: Path | None = None
+        self._last_state: tuple[int, str] | None = None
+        self._events: list[str] = []
+        self._snapshots = None
+        self.last_snapshot: Snapshot | None = None
+        self.transitions = 0  # step or state changes seen; tests wait on it
+
+    @property
+    def runner(self) -> Any:
+        return self.session.runner
+
+    def log(self, text: str) -> None:
+        self._events.append(f"{time.strftime('%H:%M:%S')} {text}")
+
+    async def cycle(self) -> Frame:
+        if self._snapshots is None:
+            self._snapshots = self.session.poller.run(self.profile.poll.interval_s)
+        snapshot = await anext(self._snapshots)
+        await self.runner.tick(snapshot)
+        self.last_snapshot = snapshot
+        return self.frame()
+
+    def frame(self) -> Frame:
+        view = self.runner.view()
+        mark = (view.index, str(view.state))
+        if mark != self._last_state:
+            step = view.step
+            title = f"step {view.index + 1} {step.id}" if step is not None else "sequence"
+            self.log(f"{title}: {getattr(view.state, 'value', view.state)}")
+            if view.message:
+                self.log(view.message)
+            self._last_state = mark
+            self.transitions += 1
+        events, self._events = tuple(self._events), []
+        return frame_from_view(view, self.last_snapshot, events)
+
+    def _simulated_hands(self, keep: set[str] = frozenset()) -> None:
+        bench = getattr(self.session, "bench", None)
+        if bench is None:
+            return
+        view = self.runner.view()
+        for sid in view.mismatches:
+            if sid not in keep:
+                bench.operate_by_hand(sid, view.expected[sid])
+                self.log(f"simulated bench: {sid} set {view.expected[sid]} by hand")
+
+    def command(self, name: str, *args: Any) -> str:
+        """Run a synchronous runner command; returns '' or the refusal sentence."""
+        if name in ("confirm_operation", "capture") and self.runner.view().state == "waiting":
+            self._simulated_hands()
+        fn: Callable[..., Any] = getattr(self.runner, name)
+        try:
+            fn(*args)
+        except BenchwalkError as exc:
+            self.log(f"refused {name}: {exc}")
+            return str(exc)
+        self.log(f"{name}{(': ' + ' '.join(map(str, args))) if args else ''}")
+        return ""
+
+    def request_remote(self, switch_id: str, state: str) -> str:
+        self._simulated_hands(keep={s for s, _ in self.runner.view().remote_todo})
+        return self.runner.request_remote(switch_id, state)
+
+    async def confirm_remote(self, switch_id: str, state: str) -> str:
+        try:
+            await self.runner.confirm_remote(switch_id, state, self.operator)
+        except BenchwalkError as exc:
+            self.log(f"remote {switch_id} {state} failed: {exc}")
+            return str(exc)
+        if self.runner.stopped:
+            return self.runner.message or f"{switch_id} did not reach {state}"
+        self.log(f"remote {switch_id} -> {state} sent")
+        return ""
+
+    async def export(self) -> Path:
+        """Dataset and report into ``out_dir`` (default ``./benchwalk-<session>``), in a thread."""
+        target = self.out_dir or Path(f"benchwalk-{self.session.session_id}")
+        out = await asyncio.to_thread(self.session.export, target, True)
+        # Session.export returns (dataset folder, report file); older builds the folder alone
+        self.exported = Path(out[0] if isinstance(out, tuple) else out)
+        self.report = Path(out[1]) if isinstance(out, tuple) and len(out) > 1 else None
+        return self.exported
+
+    async def close(self) -> None:
+        if self._snapshots is not None:
+            with contextlib.suppress(RuntimeError):  # still inside a cancelled poll: the poller closes
+                await self._snapshots.aclose()
+            self._snapshots = None
+        out = self.session.close()
+        if inspect.isawaitable(out):
+            await out

@@ -1,0 +1,53 @@
+"""Session wiring for ``run_console``: a factory that starts a new or resumed session.
+
+Kept apart from ``tui.app`` so the App can be tested with any factory; this is the one
+console module that knows ``meas.session``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from datetime import datetime
+from pathlib import Path
+
+from meas.journal import default_sessions_dir
+from meas.profile import load_profile
+from meas.session import Session
+
+
+def list_sessions(sessions_dir: Path | None = None, limit: int = 12) -> list[tuple[str, str]]:
+    """Journals in the sessions folder, newest first: (session id, last-written time)."""
+    folder = sessions_dir or default_sessions_dir()
+    if not folder.is_dir():
+        return []
+    files = sorted(folder.glob("*.sqlite"), key=lambda p: p.stat().st_mtime, reverse=True)[:limit]
+    return [(p.stem, f"last written {datetime.fromtimestamp(p.stat().st_mtime):%Y-%m-%d %H:%M}") for p in files]
+
+
+def make_factory(
+    profile_path: str | Path | None,
+    *,
+    faults: list[str] | tuple[str, ...] = (),
+    seed: int | None = None,
+    sessions_dir: Path | None = None,
+    simulate: bool = True,
+    allow_changed_profile: bool = False,
+) -> tuple[Callable, str, Callable[[], list[tuple[str, str]]]]:
+    """(factory(operator, resume) -> awaitable Session, bench name, session lister).
+
+    The profile is loaded once up front so a bad profile fails before the screen opens.
+    """
+    bench_name = load_profile(profile_path).bench.name if profile_path else "resumed session"
+
+    async def factory(operator: str, resume: str | None) -> Session:
+        if resume:
+            return await Session.resume(
+                resume, sessions_dir=sessions_dir, operator=operator,
+                profile_path=profile_path, allow_changed_profile=allow_changed_profile,
+            )
+        return await Session.new(
+            profile_path, operator, sessions_dir=sessions_dir, simulate=simulate,
+            faults=list(faults), seed=seed,
+        )
+
+    return factory, bench_name, lambda: list_sessions(sessions_dir)

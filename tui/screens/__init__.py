@@ -1,0 +1,1 @@
+"""Console screens: safety caution, operator and session, main bench screen, modals, help."""

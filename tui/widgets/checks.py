@@ -1,0 +1,76 @@
+"""The latest snapshot's check results, failures first, under one overall state line."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.widgets import Static
+
+from meas.results import STATUS_RANK, CheckResult, Status
+
+from ..frame import OVERALL_MARK
+
+# Symbol + word for every status: readable on a monochrome terminal and without colour.
+STATUS_MARK = {
+    Status.FAIL: ("\u2718", "FAIL", "bold red"),
+    Status.WARN: ("!", "WARN", "bold yellow"),
+    Status.PASS: ("\u2714", "pass", "green"),
+    Status.NA: ("-", "n/a", "dim"),
+}
+OVERALL_STYLE = {
+    "settling": "bold black on yellow",
+    "consistent": "bold black on green",
+    "inconsistent": "bold white on red",
+    "waiting": "bold",
+    "offline": "bold white on red",
+    "done": "bold reverse",
+}
+
+
+def overall_text(overall: str) -> Text:
+    sym, word = OVERALL_MARK.get(overall, ("?", overall.upper()))
+    return Text(f" {sym} {word} ", style=OVERALL_STYLE.get(overall, "bold"))
+
+
+def checks_text(results: tuple[CheckResult, ...] | list[CheckResult], overall: str, limit: int = 40) -> Text:
+    """Overall line, then every failing and warning result with its cause, then a pass count."""
+    out = Text()
+    out.append_text(overall_text(overall))
+    ordered = sorted(results, key=lambda r: (STATUS_RANK[r.status], r.check, r.subject))
+    counts = {s: 0 for s in Status}
+    for r in results:
+        counts[r.status] += 1
+    out.append(
+        f"  {counts[Status.FAIL]} fail  {counts[Status.WARN]} warn  {counts[Status.PASS]} pass  {counts[Status.NA]} n/a"
+    )
+    shown = 0
+    for r in ordered:
+        if r.status in (Status.PASS, Status.NA) or shown >= limit:
+            continue
+        sym, word, style = STATUS_MARK[r.status]
+        out.append("\n")
+        out.append(f"{sym} {word}", style=style)
+        out.append(f" {r.subject} ", style="bold")
+        out.append(f"{r.check}: ", style="dim")
+        out.append(r.message or "(no message)")
+        shown += 1
+    if not results:
+        out.append("\nno checks yet")
+    elif shown == 0:
+        out.append(f"\n\u2714 all {counts[Status.PASS]} applicable checks pass", style="green")
+    return out
+
+
+class ChecksPanel(Static):
+    """Repaints only when the text changes (checks run at every cycle; most cycles agree)."""
+
+    DEFAULT_CSS = "ChecksPanel { height: auto; }"
+
+    def __init__(self, **kw) -> None:
+        super().__init__("", **kw)
+        self._last: str | None = None
+
+    def show(self, results: tuple[CheckResult, ...], overall: str) -> None:
+        text = checks_text(results, overall)
+        if text.plain != self._last:
+            self._last = text.plain
+            self.update(text)

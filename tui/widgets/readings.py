@@ -1,0 +1,193 @@
+"""Live readings, one row per meter, drawn through textual's Line API with cached rows.
+
+DataTable re-renders every visible cell on each update (TEXTUAL_NOTES.md: ~33 % CPU for 50
+rows at 5 Hz); here each row is one cached ``Strip`` rebuilt only when its text changes, and
+only changed lines are refreshed, so 32 meters at 5 updates per second stay cheap.
+"""
+
+from __future__ import annotations
+
+import math
+
+from rich.segment import Segment
+from rich.style import Style
+from textual.binding import Binding
+from textual.geometry import Region
+from textual.message import Message
+from textual.strip import Strip
+from textual.widget import Widget
+
+from meas.model import Profile
+from meas.snapshot import CommState, MeterBlock, Snapshot
+
+from ..units import UnitMode, eng, scale_factor, unit_label
+
+COMM_TEXT = {
+    CommState.OK: "ok",
+    CommState.DEGRADED: "~ degraded",
+    CommState.FAILING: "! failing",
+    CommState.OFFLINE: "\u2298 offline",
+}
+# (header, width) of each column after the selection marker
+COLUMNS = (("meter", 6), ("comm", 10), ("V LL", 9), ("I", 8), ("P", 9), ("Q", 10), ("PF", 6), ("f", 9))
+
+_HEADER = Style(bold=True, underline=True)
+_NORMAL = Style()
+_SELECTED = Style(reverse=True)
+_COMM_STYLE = {
+    CommState.OK: Style(color="green"),
+    CommState.DEGRADED: Style(color="yellow", bold=True),
+    CommState.FAILING: Style(color="red", bold=True),
+    CommState.OFFLINE: Style(color="red", bold=True, reverse=True),
+}
+
+
+def _mean(block: MeterBlock, keys: tuple[str, ...]) -> float:
+    vals = [block.get(k) for k in keys]
+    vals = [v for v in vals if math.isfinite(v)]
+    return sum(vals) / len(vals) if vals else math.nan
+
+
+def row_cells(profile: Profile, meter_id: str, block: MeterBlock | None, mode: UnitMode) -> tuple[str, ...]:
+    """The text of one row: meter, comm state, V, I, P, Q, PF, f (fixed widths)."""
+    widths = [w for _, w in COLUMNS]
+    if block is None:
+        cells = [meter_id, "no data"] + ["--"] * 6
+        return tuple(c.rjust(w) if i > 1 else c.ljust(w) for i, (c, w) in enumerate(zip(cells, widths, strict=True)))
+    bus = profile.meter(meter_id).bus
+
+    def show(key: str, value: float, width: int) -> str:
+        return eng(value * scale_factor(profile, bus, key, mode), unit_label(key, mode), width)
+
+    v = _mean(block, ("v_ll.AB", "v_ll.BC", "v_ll.CA"))
+    i = _mean(block, ("i.A", "i.B", "i.C"))
+    return (
+        meter_id[: widths[0]].ljust(widths[0]),
+        COMM_TEXT[block.state].ljust(widths[1]),
+        show("v_ll.AB", v, widths[2]),
+        show("i.A", i, widths[3]),
+        show("p.T", block.get("p.T"), widths[4]),
+        show("q.T", block.get("q.T"), widths[5]),
+        eng(block.get("pf.T"), "", widths[6]),
+        eng(block.get("f.T"), "Hz", widths[7]),
+    )
+
+
+class ReadingsGrid(Widget, can_focus=True):
+    """Per-meter readings; up/down selects a meter (posts ``MeterSelected``)."""
+
+    DEFAULT_CSS = "ReadingsGrid { height: auto; min-height: 4; }"
+    BINDINGS = [
+        Binding("up", "move(-1)", "prev meter", show=False),
+        Binding("down", "move(1)", "next meter", show=False),
+    ]
+
+    class MeterSelected(Message):
+        def __init__(self, meter_id: str) -> None:
+            self.meter_id = meter_id
+            super().__init__()
+
+    def __init__(self, profile: Profile, *, id: str | None = None, classes: str | None = None) -> None:
+        super().__init__(id=id, classes=classes)
+        self.profile = profile
+        self.meter_ids = [m.id for m in profile.meters]
+        self.mode: UnitMode = "bench"
+        self.selected = 0
+        self.top = 0  # first meter row shown
+        self._cells: dict[str, tuple[str, ...]] = {}
+        self._strips: dict[tuple, Strip] = {}
+        self._states: dict[str, CommState | None] = {}
+        self.rebuilt_rows = 0  # rows whose text changed (benchmark and tests read it)
+
+    def get_content_height(self, container, viewport, width: int) -> int:
+        return len(self.meter_ids) + 1
+
+    def get_content_width(self, container, viewport) -> int:
+        return 2 + sum(w for _, w in COLUMNS) + len(COLUMNS) - 1
+
+    # -- data in -------------------------------------------------------------------------
+    def update_snapshot(self, snapshot: Snapshot) -> None:
+        """Recompute row texts; refresh only rows whose text changed."""
+        for idx, mid in enumerate(self.meter_ids):
+            block = snapshot.meters.get(mid)
+            cells = row_cells(self.profile, mid, block, self.mode)
+            if self._cells.get(mid) != cells:
+                self._cells[mid] = cells
+                self._states[mid] = None if block is None else block.state
+                self.rebuilt_rows += 1
+                self._refresh_meter_line(idx)
+
+    def set_mode(self, mode: UnitMode, snapshot: Snapshot | None) -> None:
+        self.mode = mode
+        self._strips.clear()
+        if snapshot is not None:
+            self.update_snapshot(snapshot)
+        self.refresh()
+
+    def select(self, meter_id: str) -> None:
+        if meter_id in self.meter_ids:
+            self._set_selected(self.meter_ids.index(meter_id))
+
+    @property
+    def selected_meter(self) -> str:
+        return self.meter_ids[self.selected]
+
+    def action_move(self, delta: int) -> None:
+        self._set_selected((self.selected + delta) % len(self.meter_ids))
+        self.post_message(self.MeterSelected(self.selected_meter))
+
+    def _set_selected(self, idx: int) -> None:
+        old = self.selected
+        self.selected = idx
+        rows = max(1, self.size.height - 1)
+        if idx < self.top:
+            self.top = idx
+            self.refresh()
+        elif idx >= self.top + rows:
+            self.top = idx - rows + 1
+            self.refresh()
+        else:
+            self._refresh_meter_line(old)
+            self._refresh_meter_line(idx)
+
+    def _refresh_meter_line(self, idx: int) -> None:
+        y = idx - self.top + 1
+        if 1 <= y < self.size.height:
+            self.refresh(Region(0, y, self.size.width, 1))
+
+    # -- Line API ------------------------------------------------------------------------
+    def render_line(self, y: int) -> Strip:
+        width = self.size.width
+        if y == 0:
+            key = ("header", width, self.mode)
+            if key not in self._strips:
+                text = "  " + " ".join(h.rjust(w) if i > 1 else h.ljust(w) for i, (h, w) in enumerate(COLUMNS))
+                self._strips[key] = Strip([Segment(text[:width], _HEADER)]).extend_cell_length(width)
+            return self._strips[key]
+        idx = self.top + y - 1
+        if idx >= len(self.meter_ids):
+            return Strip.blank(width)
+        mid = self.meter_ids[idx]
+        cells = self._cells.get(mid) or row_cells(self.profile, mid, None, self.mode)
+        selected = idx == self.selected
+        key = (mid, cells, selected, width)
+        strip = self._strips.get(key)
+        if strip is None:
+            strip = self._build(cells, self._states.get(mid), selected, width)
+            self._strips = {k: v for k, v in self._strips.items() if k[0] != mid}
+            self._strips[key] = strip
+        return strip
+
+    @staticmethod
+    def _build(cells: tuple[str, ...], state: CommState | None, selected: bool, width: int) -> Strip:
+        base = _SELECTED if selected else _NORMAL
+        dim = state in (CommState.FAILING, CommState.OFFLINE)
+        value_style = base + Style(dim=True) if dim else base
+        comm_style = base + _COMM_STYLE.get(state, Style(dim=True)) if state else base + Style(dim=True)
+        segs = [Segment("\u25b6 " if selected else "  ", base), Segment(cells[0], base + Style(bold=True))]
+        segs.append(Segment(" ", base))
+        segs.append(Segment(cells[1], comm_style))
+        for c in cells[2:]:
+            segs.append(Segment(" ", base))
+            segs.append(Segment(c, value_style))
+        return Strip(segs).crop(0, width).extend_cell_length(width, base if selected else None)

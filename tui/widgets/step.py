@@ -1,0 +1,77 @@
+"""The current step: number of total, title, instruction, expected vs actual switches, next key."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.widgets import Static
+
+from ..frame import StepInfo
+from .checks import overall_text
+
+
+def step_summary(step: StepInfo | None) -> Text:
+    """Three lines that stay on screen in every view: where we are and what to press."""
+    if step is None:
+        return Text("no sequence loaded", style="dim")
+    out = Text(no_wrap=True, overflow="ellipsis")
+    out.append(f" Step {step.index} of {step.total} ", style="bold reverse")
+    out.append(f" {step.title}\n", style="bold")
+    out.append_text(overall_text(step.overall))
+    out.append(f"  state: {step.state}")
+    if step.settle is not None and not step.finished:
+        filled = int(round(10 * min(max(step.settle, 0.0), 1.0)))
+        out.append(f"  settle [{'#' * filled}{'.' * (10 - filled)}]")
+    if step.to_capture:
+        out.append(f"  captured {step.captured}/{step.to_capture}")
+    out.append("\n\u25b6 NEXT ", style="bold reverse")
+    out.append(" " + (step.next_action or "-"), style="bold")
+    return out
+
+
+def step_detail(step: StepInfo | None) -> Text:
+    """Instruction and the switch table with every mismatch marked in words."""
+    if step is None:
+        return Text("")
+    out = Text()
+    out.append(step.instruction.strip() + "\n")
+    if step.expected:
+        # matches share one line; every mismatch gets its own line, marked in words
+        good = [sw for sw, want in step.expected.items() if step.actual.get(sw, "unknown") == want]
+        bad = [sw for sw in step.expected if sw not in good]
+        if good:
+            out.append("\u2714 as expected: ", style="green")
+            out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in good) + "\n")
+        for sw in bad:
+            out.append("\u2718 MISMATCH", style="bold white on red")
+            out.append(f" {sw}: expected {step.expected[sw]}, reads {step.actual.get(sw, 'unknown')}\n")
+    if step.remote_switches:
+        out.append("remote operation available: " + ", ".join(step.remote_switches) + " (press r)\n", style="bold")
+    return out
+
+
+class StepSummary(Static):
+    DEFAULT_CSS = "StepSummary { height: 3; }"
+
+    def __init__(self, **kw) -> None:
+        super().__init__("", **kw)
+        self._last: str | None = None
+
+    def show(self, step: StepInfo | None) -> None:
+        text = step_summary(step)
+        if text.plain != self._last:
+            self._last = text.plain
+            self.update(text)
+
+
+class StepDetail(Static):
+    DEFAULT_CSS = "StepDetail { height: auto; }"
+
+    def __init__(self, **kw) -> None:
+        super().__init__("", **kw)
+        self._last: str | None = None
+
+    def show(self, step: StepInfo | None) -> None:
+        text = step_detail(step)
+        if text.plain != self._last:
+            self._last = text.plain
+            self.update(text)
