@@ -210,6 +210,8 @@ class Runner:
         self.on_saved = on_saved
         self.outcomes: dict[str, StepOutcome] = dict(prior_outcomes or {})
         self._history: deque[Snapshot] = deque(maxlen=history)
+        self._row_of: dict[tuple[int, float], int] = {}  # (seq, t_mono) -> journal row
+        self._tick_history: list[Snapshot] = []
         self._last: Snapshot | None = None
         self._last_live_t = float("-inf")
         self._live_results: list[CheckResult] = []
@@ -303,6 +305,10 @@ class Runner:
     def _record(self, snapshot: Snapshot, role: str) -> int:
         step = self.step
         row = self.journal.record_snapshot(snapshot, step_id=step.id if step else None, role=role)
+        self._row_of[(snapshot.seq, snapshot.t_mono)] = row
+        if len(self._row_of) > 4 * (self._history.maxlen or 64):
+            live = {(h.seq, h.t_mono) for h in self._history}
+            self._row_of = {k: v for k, v in self._row_of.items() if k in live}
         if self.on_saved is not None:
             self.on_saved(row, step.id if step else "", role)
         return row
@@ -355,6 +361,7 @@ class Runner:
                 # history would read as noise or disagreement
                 history = [h for h in history if h.t_mono >= self._steady_t0]
             self._tick_results = self._checks(snapshot, history)
+            self._tick_history = history
         return self._tick_results
 
     def _tick_verify(self, snapshot: Snapshot) -> None:
@@ -451,6 +458,14 @@ class Runner:
         row = self._record(snapshot, "capture")
         results = self._live_results = self._results_for(snapshot)
         self.journal.record_checks(row, step.id, results)
+        # the exact history these checks saw, so an offline re-check can replay it
+        used = [self._row_of.get((h.seq, h.t_mono)) for h in self._tick_history]
+        self.journal.record_event(
+            "check_history",
+            f"checks of snapshot {row} used {len(used)} earlier snapshots",
+            step_id=step.id,
+            data={"snapshot": row, "history": used},
+        )
         self._captures.append((row, results))
         self._last_capture_t = snapshot.t_mono
         if len(self._captures) >= policy.snapshots:

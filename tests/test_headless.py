@@ -195,6 +195,18 @@ def test_demo_headless_clean_exits_0_and_exports(demo_runs):
         done = {h["step"] for h in j.step_history() if h["state"] == "accepted"}
         assert done == set(j.step_ids())  # every step of the demo accepted
         assert j.meta["simulated"] is True and j.meta["seed"] == 11
+    # the dataset alone reproduces its checks table (benchwalk check), and they all passed
+    recheck = benchwalk("check", str(out / "dataset"))
+    assert recheck.returncode == 0, recheck.stdout[-3000:] + recheck.stderr[-2000:]
+    assert_recheck_identical(out / "dataset")
+
+
+def assert_recheck_identical(dataset: Path) -> None:
+    from meas.dataset import compare_checks, load_dataset, recheck
+
+    exported = load_dataset(dataset, tables=["checks"])["checks"]
+    assert len(exported) > 0
+    assert compare_checks(exported, recheck(dataset)) == []
 
 
 def test_demo_headless_reversed_ct_exits_1_naming_m2_phase_b(demo_runs):
@@ -205,3 +217,5 @@ def test_demo_headless_reversed_ct_exits_1_naming_m2_phase_b(demo_runs):
     assert m2_rows, table[:2000]
     assert any(re.search(r"(phase B|:B\b)", line) for line in m2_rows), m2_rows[:5]
     assert datapackage_valid(folder / "out" / "dataset")  # the dataset is written anyway
+    assert benchwalk("check", str(folder / "out" / "dataset")).returncode == 1  # fails offline too
+    assert_recheck_identical(folder / "out" / "dataset")
