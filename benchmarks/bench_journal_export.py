@@ -33,7 +33,9 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
+sys.path.insert(0, str(ROOT / "benchmarks"))
 
+from common import Figure, Target, ratio, slowdown  # noqa: E402
 from test_journal import KEYS, make_bench, make_snapshot  # noqa: E402
 
 from meas.journal import Journal  # noqa: E402
@@ -154,12 +156,68 @@ def main() -> None:
         shutil.rmtree(tmp, ignore_errors=True)
 
 
-def part1(tmp: Path, n_snap: int, reps: int) -> None:
+def journal_side_by_side(tmp: Path, n_snap: int, reps: int) -> dict:
     ours, bare = [], []
-    for i in range(reps):  # interleaved, so load from other processes hits both alike
-        ours.append(journal_rate(tmp / f"a{i}", n_snap))
-        bare.append(bare_rate(tmp / f"b{i}", n_snap))
-    j_med, b_med = statistics.median(ours), statistics.median(bare)
+    for i in range(reps):  # interleaved, who goes first alternating, so machine load hits both alike
+        if i % 2:
+            bare.append(bare_rate(tmp / f"b{i}", n_snap))
+            ours.append(journal_rate(tmp / f"a{i}", n_snap))
+        else:
+            ours.append(journal_rate(tmp / f"a{i}", n_snap))
+            bare.append(bare_rate(tmp / f"b{i}", n_snap))
+    return {"journal": statistics.median(ours), "bare": statistics.median(bare)}
+
+
+def export_side_by_side(tmp: Path, journal: Path, reps: int) -> dict:
+    """Our export and pandas alone, alternating, each run in a fresh process."""
+    e = [_child("export", str(journal), str(tmp / "ds0"))]
+    pq_src = tmp / "ds0" / "data" / "measurements.parquet"  # pandas writes the very frame we exported
+    p = []
+    for i in range(reps):
+        p.append(_child("pandas", str(pq_src), str(tmp / f"pd{i}")))
+        if i + 1 < reps:
+            e.append(_child("export", str(journal), str(tmp / f"ds{i + 1}")))
+    med = statistics.median
+    return {"rows": p[0]["rows"], "export_s": med(x["seconds"] for x in e), "pandas_s": med(x["seconds"] for x in p),
+            "export_mb": med(x["peak_rss_mb"] for x in e), "pandas_mb": med(x["peak_rss_mb"] for x in p)}
+
+
+def journal_figures(n_snap: int = 500, reps: int = 5) -> list[Figure]:
+    """Durable snapshots/s of ``Journal`` against a bare sqlite3 loop, interleaved runs."""
+    tmp = Path(tempfile.mkdtemp(prefix="bw-bench-"))
+    try:
+        j = journal_side_by_side(tmp, n_snap, reps)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return [Figure("journal", f"durable snapshots/s, {N_METERS} meters x {len(KEYS)} values, vs bare sqlite3",
+                   j["journal"], "/s", j["bare"], slowdown(j["journal"], j["bare"], higher_is_better=True),
+                   (Target("ours", ">=", 200.0), Target("ratio", "<=", 1.5)),
+                   extra={"snapshots": n_snap, "reps": reps})]
+
+
+def export_figures(reps: int = 3) -> list[Figure]:
+    """Export of a 1,000,000-value session against pandas alone: time and peak memory."""
+    tmp = Path(tempfile.mkdtemp(prefix="bw-bench-"))
+    try:
+        x = export_side_by_side(tmp, build_journal(tmp / "long", 1_000_000), reps)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return [
+        Figure("export", f"{x['rows']:,} rows to CSV + Parquet vs pandas alone", x["export_s"], "s", x["pandas_s"],
+               ratio(x["export_s"], x["pandas_s"]), (Target("ratio", "<=", 1.5),), extra={"reps": reps}),
+        Figure("export", f"peak memory, {x['rows']:,} rows, vs pandas alone", x["export_mb"], "MB", x["pandas_mb"],
+               ratio(x["export_mb"], x["pandas_mb"]), note="ru_maxrss of a fresh process"),
+    ]
+
+
+def figures(quick: bool = False) -> list[Figure]:
+    """Both parts, with this script's own repetition counts."""
+    return journal_figures(300 if quick else 500, 3 if quick else 5) + export_figures(3 if quick else 5)
+
+
+def part1(tmp: Path, n_snap: int, reps: int) -> None:
+    r = journal_side_by_side(tmp, n_snap, reps)
+    j_med, b_med = r["journal"], r["bare"]
     print(f"\n1. durable snapshots/s, {N_METERS} meters x {len(KEYS)} values, {n_snap} snapshots, median of {reps} interleaved runs")
     print(f"   {'journal (record_snapshot)':<34}{j_med:>10.0f} /s")
     print(f"   {'bare sqlite3, same rows':<34}{b_med:>10.0f} /s")
@@ -169,12 +227,9 @@ def part1(tmp: Path, n_snap: int, reps: int) -> None:
 def part23(tmp: Path, reps: int, quick: bool, parts: set[int]) -> None:
     journal = build_journal(tmp / "long", 1_000_000)
     if 2 in parts:
-        e = [_child("export", str(journal), str(tmp / f"ds{i}")) for i in range(reps)]
-        pq_src = tmp / "ds0" / "data" / "measurements.parquet"
-        p = [_child("pandas", str(pq_src), str(tmp / f"pd{i}")) for i in range(reps)]
-        es, ps = statistics.median(x["seconds"] for x in e), statistics.median(x["seconds"] for x in p)
-        em, pm = statistics.median(x["peak_rss_mb"] for x in e), statistics.median(x["peak_rss_mb"] for x in p)
-        print(f"\n2. export of {p[0]['rows']:,} values (CSV + Parquet), median of {reps} fresh processes")
+        r = export_side_by_side(tmp, journal, reps)
+        es, ps, em, pm = r["export_s"], r["pandas_s"], r["export_mb"], r["pandas_mb"]
+        print(f"\n2. export of {r['rows']:,} values (CSV + Parquet), median of {reps} fresh processes")
         print(f"   {'':<34}{'seconds':>10}{'peak RSS MB':>14}")
         print(f"   {'export_session (all tables)':<34}{es:>10.2f}{em:>14.0f}")
         print(f"   {'pandas to_csv + to_parquet':<34}{ps:>10.2f}{pm:>14.0f}")

@@ -14,15 +14,17 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import logging
 import multiprocessing as mp
-import statistics
 import sys
 import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from common import Figure, Target, median, missing, ratio  # noqa: E402
 from rich.console import Console  # noqa: E402
 from rich.table import Table  # noqa: E402
 
@@ -38,9 +40,15 @@ from meas.model import (  # noqa: E402
 )
 from meas.plan import naive_request_count, plan_map  # noqa: E402
 from meas.poller import Poller  # noqa: E402
+from meas.profile import load_profile  # noqa: E402
 from meas.registers import encode  # noqa: E402
 
+DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
+
 LOOPBACK = "127.0.0.1"
+# A full cycle is measured: the poller's cycle deadline (max(poll interval, learned time)) would
+# cut slow answers on a loaded machine and report them as timeouts; the bare loop waits for all.
+CYCLE_DEADLINE_S = 5.0
 KEYS = [f"{q}.{p}" for q in ("v_ln", "i", "p", "q", "s", "pf", "v_ang", "i_ang") for p in ("A", "B", "C")]
 KEYS += ["v_ll.AB", "v_ll.BC", "v_ll.CA", "i.N", "p.T", "q.T", "s.T", "pf.T", "f.T"]  # 33 float32
 
@@ -134,25 +142,27 @@ async def measure(ports: list[int], cycles: int) -> dict:
     ours_t, bare_t = [], []
     try:
         for _ in range(3):  # warm up both
-            await poller.poll_once()
+            await poller.poll_once(deadline_s=CYCLE_DEADLINE_S)
             await bare.cycle()
         for i in range(cycles):
             order = (0, 1) if i % 2 == 0 else (1, 0)  # alternate who goes first
             for who in order:
                 t0, c0 = time.perf_counter(), time.process_time()
                 if who == 0:
-                    snap = await poller.poll_once()
+                    snap = await poller.poll_once(deadline_s=CYCLE_DEADLINE_S)
                     ours_t.append((time.perf_counter() - t0, time.process_time() - c0))
                     bad = [m for m, b in snap.meters.items() if b.state != "ok"]
-                    assert not bad, f"meters not ok: {bad[:3]}"
+                    if bad:
+                        b = snap.meters[bad[0]]
+                        raise RuntimeError(f"{len(bad)} meters not ok, e.g. {bad[0]}: {b.state} {b.error}")
                 else:
                     await bare.cycle()
                     bare_t.append((time.perf_counter() - t0, time.process_time() - c0))
     finally:
         await poller.close()
         bare.close()
-    return {"ours": statistics.median(t for t, _ in ours_t), "bare": statistics.median(t for t, _ in bare_t),
-            "ours_cpu": statistics.median(c for _, c in ours_t), "bare_cpu": statistics.median(c for _, c in bare_t),
+    return {"ours": median(t for t, _ in ours_t), "bare": median(t for t, _ in bare_t),
+            "ours_cpu": median(c for _, c in ours_t), "bare_cpu": median(c for _, c in bare_t),
             "requests": poller_requests(poller, plan) * len(ports), "plan_min": _dp_min(regmap) * len(ports),
             "naive": naive_request_count(regmap) * len(ports)}
 
@@ -179,22 +189,88 @@ def _dp_min(regmap: RegisterMap, max_gap: int = 8) -> int:
     return total
 
 
+def run(sizes: list[int], cycles: int, keep_going: bool = False) -> dict[int, dict | Exception]:
+    """Measure every fleet size against one server process holding the largest fleet.
+
+    With ``keep_going`` a size that fails gives its exception instead of ending the run.
+    """
+    ctx = mp.get_context("spawn")
+    parent, child = ctx.Pipe()
+    proc = ctx.Process(target=_serve, args=(max(sizes), child), daemon=True)
+    proc.start()
+    try:
+        if not parent.poll(60):
+            raise RuntimeError("meter server process did not report its ports within 60 s")
+        ports = parent.recv()
+        rows: dict[int, dict | Exception] = {}
+        for n in sizes:
+            try:
+                rows[n] = asyncio.run(measure(ports[:n], cycles))
+            except Exception as e:
+                if not keep_going:
+                    raise
+                rows[n] = e
+        return rows
+    finally:
+        with contextlib.suppress(OSError):  # the server process may be gone; its failure is the error to show
+            parent.send("stop")
+        proc.join(10)
+        if proc.is_alive():
+            proc.terminate()
+
+
+def plan_figures() -> list[Figure]:
+    """Reads per cycle of the poll plan against one read per quantity, per map and for the demo.
+
+    Target: the exact minimum (``_dp_min``, a dynamic programme independent of the greedy plan).
+    """
+    demo = load_profile(DEMO)
+    gap = demo.poll.max_gap
+    maps = dict(demo.maps)
+    maps[bench_map().id] = bench_map()
+    out = []
+    for map_id, regmap in maps.items():
+        ours, naive, least = len(plan_map(regmap, gap).requests), naive_request_count(regmap), _dp_min(regmap, gap)
+        out.append(Figure("poll plan", f"reads per cycle, map {map_id} ({len(regmap.registers)} quantities) vs naive",
+                          ours, "req", naive, ratio(ours, naive),
+                          (Target("ours", "==", least, f"= {least} (minimum)"),)))
+    ours = sum(len(plan_map(demo.maps[m.map_id], gap).requests) for m in demo.meters)
+    naive = sum(naive_request_count(demo.maps[m.map_id]) for m in demo.meters)
+    least = sum(_dp_min(demo.maps[m.map_id], gap) for m in demo.meters)
+    out.append(Figure("poll plan", f"reads per cycle, demo bench ({len(demo.meters)} meters) vs naive", ours, "req",
+                      naive, ratio(ours, naive), (Target("ours", "==", least, f"= {least} (minimum)"),)))
+    return out
+
+
+def figures(sizes: tuple[int, ...] = (1, 8, 32, 128), cycles: int = 30) -> list[Figure]:
+    """Poller cycle per fleet size against the bare pymodbus loop, and 32- vs 1-meter scaling."""
+    rows = run(list(sizes), cycles, keep_going=True)
+    out = []
+    for n, r in rows.items():
+        name = f"cycle, {n} meter{'s' if n > 1 else ''} vs bare pymodbus loop"
+        if isinstance(r, Exception):
+            out.append(missing("poller", name, f"failed: {type(r).__name__}: {r}", "ms", (Target("ratio", "<=", 1.2),)))
+            continue
+        out.append(Figure("poller", name, r["ours"] * 1e3, "ms", r["bare"] * 1e3, ratio(r["ours"], r["bare"]),
+                          (Target("ratio", "<=", 1.2),),
+                          note=f"CPU per cycle {r['ours_cpu'] * 1e3:.2f} vs {r['bare_cpu'] * 1e3:.2f} ms",
+                          extra={"ours_cpu_ms": r["ours_cpu"] * 1e3, "bare_cpu_ms": r["bare_cpu"] * 1e3,
+                                 "requests": r["requests"], "cycles": cycles}))
+    one, big = rows.get(1), rows.get(32)
+    if isinstance(one, dict) and isinstance(big, dict):
+        out.append(Figure("poller", "cycle, 32 meters vs 1 meter (ours)", big["ours"] * 1e3, "ms",
+                          one["ours"] * 1e3, ratio(big["ours"], one["ours"]), (Target("ratio", "<=", 2.0),),
+                          note=f"bare loop {big['bare'] / one['bare']:.2f}x"))
+    return out
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--cycles", type=int, default=30)
     ap.add_argument("--sizes", default="1,8,32,128")
     args = ap.parse_args()
     sizes = [int(s) for s in args.sizes.split(",")]
-    ctx = mp.get_context("spawn")
-    parent, child = ctx.Pipe()
-    proc = ctx.Process(target=_serve, args=(max(sizes), child), daemon=True)
-    proc.start()
-    try:
-        ports = parent.recv()
-        rows = {n: asyncio.run(measure(ports[:n], args.cycles)) for n in sizes}
-    finally:
-        parent.send("stop")
-        proc.join(10)
+    rows = run(sizes, args.cycles)
     regmap = bench_map()
     plan = plan_map(regmap, 8)
     t = Table(title=f"poll cycle, {plan.registers_read} registers/meter in {len(plan.requests)} reads "

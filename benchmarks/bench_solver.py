@@ -8,20 +8,29 @@ For the feeder, pandapower's ``runpp_3ph`` is timed side by side on the same net
 not an absolute claim: pandapower runs here without numba). Times are medians of N runs of
 ``build_network`` + ``solve`` (``ideal_readings`` caches per switch state on top of this).
 The solver uses dense numpy linear algebra; on a machine shared by several jobs, set
-OPENBLAS_NUM_THREADS=1 (BLAS threads oversubscribing the cores slowed the 300-node case ~25x).
+OPENBLAS_NUM_THREADS=1 (BLAS threads oversubscribing the cores slowed the 300-node case ~25x);
+this script sets it unless the environment already does.
 """
 
 from __future__ import annotations
 
-import argparse
-import math
-import pathlib
-import statistics
-import sys
-import time
-import warnings
+import os
 
-import numpy as np
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # before numpy: see the docstring
+
+import argparse  # noqa: E402
+import logging  # noqa: E402
+import math  # noqa: E402
+import pathlib  # noqa: E402
+import statistics  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
+from common import Figure, Target, interleaved, median, ratio  # noqa: E402
 
 from meas.model import Bench, Branch, Bus, Profile, Zone
 from meas.profile import load_profile
@@ -70,13 +79,15 @@ def time_ours(p: Profile, states: dict, repeat: int) -> tuple[float, int, float,
     return statistics.median(times), sol.iterations, sol.max_mismatch_va, vmin / (400 / math.sqrt(3))
 
 
-def time_pandapower(lines: list[tuple], loads: list[tuple], n: int, repeat: int) -> float | None:
+def pandapower_case(lines: list[tuple], loads: list[tuple], n: int):
+    """The same feeder as a pandapower net, and a function running ``runpp_3ph`` on it (None without pandapower)."""
     try:
         import pandapower as pp
         from pandapower.pf.runpp_3ph import runpp_3ph
     except ImportError:
         return None
     warnings.filterwarnings("ignore")
+    logging.getLogger("pandapower").setLevel(logging.ERROR)  # its "numba missing" notice on every run
     net = pp.create_empty_network(f_hz=50.0, sn_mva=0.1)
     bus = [pp.create_bus(net, 0.4) for _ in range(n)]
     emf = pp.create_bus(net, 0.4)
@@ -91,12 +102,49 @@ def time_pandapower(lines: list[tuple], loads: list[tuple], n: int, repeat: int)
                                        x0_ohm_per_km=x0, c0_nf_per_km=b0 / w * 1e3)
     for k, p, q in loads:
         pp.create_asymmetric_load(net, bus[k], *(p / 1e6), *(q / 1e6), type="wye")
+    return lambda: runpp_3ph(net, tolerance_mva=1e-10)
+
+
+def time_pandapower(lines: list[tuple], loads: list[tuple], n: int, repeat: int) -> float | None:
+    run = pandapower_case(lines, loads, n)
+    if run is None:
+        return None
     times = []
     for _ in range(repeat):
         t0 = time.perf_counter()
-        runpp_3ph(net, tolerance_mva=1e-10)
+        run()
         times.append(time.perf_counter() - t0)
     return statistics.median(times)
+
+
+UPDATE_PERIOD_MS = 50.0  # the demo's update_hz = 20: a switching step re-solves within one update
+
+
+def figures(repeat: int = 21) -> list[Figure]:
+    """Demo bench (normal state) and the 100-bus feeder; the feeder against pandapower, interleaved."""
+    demo = load_profile(str(DEMO))
+    t, it, mis, _ = time_ours(demo, {}, repeat)
+    out = [Figure("solver", f"load flow, demo bench ({3 * len(demo.buses)} nodes, {it} iterations)",
+                  t * 1e3, "ms", targets=(Target("ours", "<", UPDATE_PERIOD_MS, "< 50 ms (one 20 Hz update)"),),
+                  note=f"max mismatch {mis:.1e} VA",
+                  extra={"iterations": it, "max_mismatch_va": mis})]
+    p, lines, loads = feeder()
+    models = element_models(p)
+    sol = solve(build_network(p, {}, models))
+    pp_run = pandapower_case(lines, loads, 100)
+    cases = {"ours": lambda: solve(build_network(p, {}, models))}
+    if pp_run is not None:
+        cases["pandapower"] = pp_run
+    times = interleaved(cases, rounds=max(3, repeat // 3))
+    ours = median(times["ours"]) * 1e3
+    ref = median(times["pandapower"]) * 1e3 if pp_run is not None else None
+    out.append(Figure("solver", f"load flow, 100-bus feeder (300 nodes, {sol.iterations} iterations) vs pandapower "
+                      "runpp_3ph", ours, "ms", ref, ratio(ours, ref),
+                      (Target("ratio", "<=", 1.0, "ratio <= 1 (not slower)"),),
+                      note=f"max mismatch {sol.max_mismatch_va:.1e} VA"
+                      + ("" if pp_run is not None else "; pandapower not installed"),
+                      extra={"iterations": sol.iterations, "max_mismatch_va": sol.max_mismatch_va}))
+    return out
 
 
 def main(argv: list[str] | None = None) -> int:
