@@ -21,7 +21,7 @@ import sys
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 from typing import Any
 
 import numpy as np
@@ -31,7 +31,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from . import __version__
-from .errors import BenchwalkError
+from .errors import BenchwalkError, ProfileError
 from .journal import QUALITY_CODES, Journal, resolve_session
 from .quantities import QUANTITIES, split_key
 
@@ -604,13 +604,16 @@ def export_session(
     """Write the session's dataset folder atomically; returns its path."""
     path = resolve_session(journal_path_or_session)
     journal = Journal.open(path)
+    where = path  # what a failure message names: the journal, then the folder being written
     try:
         target = Path(out_dir) if out_dir is not None else default_dataset_dir(path, journal.session_id)
+        where = target
         if target.exists() and not overwrite:
             raise BenchwalkError(
                 f"{target}: a dataset already exists there; pass --overwrite to replace it or choose another --out"
             )
         target.parent.mkdir(parents=True, exist_ok=True)
+        remove_stale_exports(target)
         tmp = target.parent / f".{target.name}.partial-{os.getpid()}"
         if tmp.exists():
             shutil.rmtree(tmp)
@@ -622,11 +625,51 @@ def export_session(
             raise
         return target
     except OSError as exc:
-        raise BenchwalkError(f"{exc.filename or path}: export failed ({exc.strerror or exc}); nothing was changed, the journal is intact") from exc
+        raise BenchwalkError(f"{exc.filename or where}: export failed ({exc.strerror or exc}); nothing was changed, the journal is intact") from exc
     except (pa.ArrowException, sqlite3.Error) as exc:
-        raise BenchwalkError(f"{path}: export failed ({exc}); nothing was changed, the journal is intact") from exc
+        raise BenchwalkError(f"{where}: export failed ({exc}); nothing was changed, the journal is intact") from exc
     finally:
         journal.close()
+
+
+def _pid_alive(pid: int) -> bool:
+    if pid <= 0:
+        return True  # not a pid we could have written: leave it alone
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OverflowError, OSError):
+        return True
+    return True
+
+
+def remove_stale_exports(target: Path) -> list[Path]:
+    """Remove what killed exports of ``target`` left beside it; returns what was removed.
+
+    Only folders named exactly like our own temporaries (``.NAME.partial-PID``, and
+    ``.NAME.old-PID`` once ``NAME`` exists again) whose process is gone: a running export's
+    folder, another target's, a file or a symlink is never touched.
+    """
+    target = Path(target)
+    pattern = re.compile(rf"\.{re.escape(target.name)}\.(partial|old)-(\d{{1,10}})")
+    removed = []
+    try:
+        entries = list(os.scandir(target.parent))
+    except OSError:
+        return removed
+    for e in entries:
+        m = pattern.fullmatch(e.name)
+        if m is None or not e.is_dir(follow_symlinks=False):
+            continue
+        pid = int(m.group(2))
+        if pid == os.getpid() or _pid_alive(pid):
+            continue
+        if m.group(1) == "old" and not target.exists():
+            continue  # a swap killed between its renames: this may be the only copy
+        shutil.rmtree(e.path, ignore_errors=True)
+        removed.append(Path(e.path))
+    return removed
 
 
 def _swap_in(tmp: Path, target: Path) -> None:
@@ -787,10 +830,21 @@ class Dataset:
 
         if not self.profile_path.is_file():
             raise BenchwalkError(f"{self.path}: the dataset has no {PROFILE_DIR}/{MAIN_PROFILE} to rebuild the bench from")
-        return load_profile(self.profile_path)
+        try:
+            return load_profile(self.profile_path)
+        except ProfileError as exc:  # one line here: the full list is for `benchwalk lint`
+            more = f" (and {len(exc.problems) - 1} more; see benchwalk lint)" if len(exc.problems) > 1 else ""
+            raise _bad(self.path, f"its profile does not load: {exc.problems[0]}{more}") from None
 
     def __getitem__(self, name: str) -> pd.DataFrame:
         return self.tables[name]
+
+
+def _show_rel(rel: Any) -> str:
+    """A descriptor path as one short printable line, whatever it holds."""
+    text = rel if isinstance(rel, str) else repr(rel)
+    text = text.encode("unicode_escape", "backslashreplace").decode("ascii")
+    return text if len(text) <= 120 else text[:117] + "..."
 
 
 def _bad(path: Path, what: str) -> BenchwalkError:
@@ -809,15 +863,54 @@ def read_package(folder: Path) -> dict[str, Any]:
         raise _bad(folder, "datapackage.json is missing") from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise _bad(folder, f"datapackage.json cannot be read ({exc})") from None
+    except (RecursionError, ValueError):  # absurd nesting; numbers too long to convert
+        raise _bad(folder, "datapackage.json cannot be read (nested too deep or a number too long)") from None
     if not isinstance(pkg, dict) or not isinstance(pkg.get("benchwalk"), dict) or not isinstance(pkg.get("resources"), list):
         raise _bad(folder, "datapackage.json is not a benchwalk data package")
+    meta = pkg["benchwalk"]
+    for key in ("session", "bench"):
+        if not isinstance(meta.get(key), str):
+            raise _bad(folder, f"datapackage.json has no benchwalk.{key} text")
+    if not isinstance(meta.get("profile_files", []), list):
+        raise _bad(folder, "profile_files in datapackage.json is malformed")
+    if not isinstance(meta.get("meta", {}), dict):
+        raise _bad(folder, "benchwalk.meta in datapackage.json is malformed")
     return pkg
 
 
+def _member(folder: Path, rel: Any) -> Path | None:
+    """``folder / rel`` if ``rel`` is a relative path that stays inside the folder, else None.
+
+    A descriptor is data from anyone: its paths must not reach /etc/passwd through an
+    absolute path, ``..`` or a symlink.
+    """
+    if not isinstance(rel, str) or not rel or "\x00" in rel or "\\" in rel:
+        return None
+    parts = PurePosixPath(rel).parts
+    if PurePosixPath(rel).is_absolute() or ".." in parts:
+        return None
+    try:
+        p = folder / rel
+        if not p.resolve().is_relative_to(folder.resolve()):
+            return None
+    except (OSError, RuntimeError, ValueError):
+        return None
+    return p
+
+
+def _is_file(p: Path) -> bool:
+    try:
+        return p.is_file()
+    except (OSError, ValueError):  # a name too long for the file system, say
+        return False
+
+
 def _verify_file(folder: Path, rel: str, expected_hash: Any, expected_bytes: Any = None) -> Path:
-    if not isinstance(rel, str) or not (folder / rel).is_file():
-        raise _bad(folder, f"{rel} is missing")
-    p = folder / rel
+    p = _member(folder, rel)
+    if p is None:
+        raise _bad(folder, f"{_show_rel(rel)} is not a path inside the dataset folder")
+    if not _is_file(p):
+        raise _bad(folder, f"{_show_rel(rel)} is missing")
     if expected_bytes is not None and p.stat().st_size != expected_bytes:
         raise _bad(folder, f"{rel} has {p.stat().st_size} bytes, the package says {expected_bytes} (truncated or changed)")
     if not isinstance(expected_hash, str) or not expected_hash.startswith("sha256:"):
@@ -868,8 +961,15 @@ def read_table(folder: Path, name: str, *, columns: list[str] | None = None, fil
     except (OSError, pa.ArrowException, ValueError) as exc:
         raise _bad(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
     if columns is None and t.column_names != want:
-        raise _bad(folder, f"{name} has columns {t.column_names}, expected {want}")
-    return t.to_pandas()
+        raise _bad(folder, f"{name} has columns {_show_rel(t.column_names)}, expected {want}")
+    expected = arrow_schema(name)
+    for f in t.schema:
+        if f.name in expected.names and not f.type.equals(expected.field(f.name).type):
+            raise _bad(folder, f"{name}.{f.name} holds {f.type}, expected {expected.field(f.name).type}")
+    try:
+        return t.to_pandas()
+    except (pa.ArrowException, ValueError, OverflowError) as exc:
+        raise _bad(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
 
 
 def load_dataset(folder: Path, *, tables: Sequence[str] | None = None, verify: bool = True) -> Dataset:
@@ -879,9 +979,12 @@ def load_dataset(folder: Path, *, tables: Sequence[str] | None = None, verify: b
     frames = {name: read_table(folder, name) for name in (tables or TABLES)}
     files = {}
     for entry in pkg["benchwalk"].get("profile_files", []):
+        p = _member(folder, entry.get("path")) if isinstance(entry, dict) else None
+        if p is None:
+            raise _bad(folder, "profile_files in datapackage.json is malformed")
         try:
-            files[entry["path"]] = (folder / entry["path"]).read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError, KeyError, TypeError) as exc:
+            files[entry["path"]] = p.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
             raise _bad(folder, f"profile file cannot be read ({exc})") from None
     return Dataset(folder, pkg["benchwalk"], frames, files)
 
@@ -998,18 +1101,17 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
     """Re-run ``meas.checks.run_checks`` from the dataset folder alone; returns a checks table.
 
     The profile comes from the copied profile files, each checked snapshot is rebuilt from the
-    measurements, polls and switch states. Its history is exactly the snapshots the runner
-    journalled as used (a ``check_history`` event per capture); without such an event, the
-    snapshots recorded before it in the same step (all roles, oldest first, at most
-    ``HISTORY``). Whatever cannot be replayed shows up as a difference in ``compare_checks``,
-    never silently.
+    measurements, polls and switch states, and its history is the snapshots recorded before
+    it in the same step (all roles, oldest first, at most ``HISTORY``), as the checks'
+    contract defines it ("earlier snapshots"). Ticks the runner saw but did not record (while
+    waiting for the technician) cannot be replayed; a check that reaches back that far shows
+    up as a difference in ``compare_checks``, never silently.
     """
     from .checks import CheckEngine  # noqa: PLC0415 - the checks are heavy; import on demand
 
     folder = Path(dataset_dir)
-    ds = load_dataset(folder, tables=["snapshots", "polls", "switch_states", "checks", "events"])
+    ds = load_dataset(folder, tables=["snapshots", "polls", "switch_states", "checks"])
     profile = ds.load_profile()
-    recorded = _recorded_histories(ds["events"])
     engine = CheckEngine(profile)  # run_checks(profile, ...) with the per-profile set-up done once
     checks, snaps = ds["checks"], ds["snapshots"]
     wanted = set(checks["snapshot"].unique().tolist())
@@ -1017,16 +1119,15 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
     steps = list(dict.fromkeys(snaps.loc[snaps["snapshot"].isin(wanted), "step"].tolist()))
     for n, step in enumerate(steps, start=1):
         step_key = None if step is None or (isinstance(step, float) and math.isnan(step)) else step
-        rebuilt = _snapshots_of_step(folder, step_key, snaps, ds["polls"], ds["switch_states"])
+        try:
+            rebuilt = _snapshots_of_step(folder, step_key, snaps, ds["polls"], ds["switch_states"])
+        except (ValueError, KeyError, TypeError, AttributeError, OverflowError) as exc:
+            raise _bad(folder, f"the snapshots of step {step_key} cannot be rebuilt ({type(exc).__name__}: "
+                               f"{_show_rel(str(exc))})") from None
         for i, (row_id, snap) in enumerate(rebuilt):
             if row_id not in wanted:
                 continue
-            if row_id in recorded:
-                # the runner journalled exactly which snapshots these checks saw
-                by_row = dict(rebuilt[:i])
-                history = [by_row[r] for r in recorded[row_id] if r in by_row]
-            else:
-                history = [s for _, s in rebuilt[max(0, i - HISTORY): i]]
+            history = [s for _, s in rebuilt[max(0, i - HISTORY): i]]
             for r in engine.run(snap, history):
                 rows.append({
                     "step": step_key, "snapshot": row_id, "check": r.check, "subject": r.subject,
@@ -1038,20 +1139,6 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
     out = pd.DataFrame(rows, columns=CHECK_COLUMNS)
     for c in ("value", "limit", "residual"):
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(float)
-    return out
-
-
-def _recorded_histories(events: pd.DataFrame) -> dict[int, list[int]]:
-    """snapshot row -> the history rows its checks used, from the runner's check_history events."""
-    out: dict[int, list[int]] = {}
-    if events is None or events.empty:
-        return out
-    for data in events.loc[events["kind"] == "check_history", "data"]:
-        try:
-            d = json.loads(data)
-            out[int(d["snapshot"])] = [int(r) for r in d["history"] if r is not None]
-        except (TypeError, ValueError, KeyError):
-            continue  # a damaged entry falls back to the same-step rule; differences still show
     return out
 
 

@@ -31,6 +31,7 @@ from typing import Any
 from . import __version__
 from .errors import BenchwalkError
 from .model import Profile
+from .profile import companion_path
 from .results import CheckResult
 from .snapshot import CommState, MeterBlock, Quality, Snapshot
 
@@ -159,7 +160,11 @@ def profile_files(profile: Profile) -> list[tuple[str, str]]:
         raise BenchwalkError(f"{path}: cannot read the profile to store it in the journal: {exc}") from exc
     out = [(path.name, text)]
     for name in _companion_names(doc):
-        comp = path.parent / name
+        comp = companion_path(path, name)
+        if comp is None:
+            raise BenchwalkError(
+                f"{path}: companion file {name!r} is not inside the profile's folder; keep it beside the profile"
+            )
         try:
             out.append((Path(name).as_posix(), comp.read_bytes().decode("utf-8")))
         except (OSError, UnicodeDecodeError) as exc:
@@ -167,9 +172,15 @@ def profile_files(profile: Profile) -> list[tuple[str, str]]:
     return out
 
 
+COMPANION_TABLES = ("sequence",)  # tables whose ``file`` the loader reads as part of the profile
+
+
 def _companion_names(doc: Mapping[str, Any]) -> list[str]:
+    """Only the files the loader itself reads: a ``file`` key elsewhere (say in the free-form
+    ``[sim]`` table) is plain data and must never pull a file into the journal."""
     names: list[str] = []
-    for value in doc.values():
+    for table in COMPANION_TABLES:
+        value = doc.get(table)
         if isinstance(value, Mapping):
             f = value.get("file")
             if isinstance(f, str) and f not in names:

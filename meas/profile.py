@@ -46,7 +46,7 @@ from .model import (
     Zone,
 )
 
-__all__ = ["load_profile", "lint_profile", "check_profile", "locate_keys", "format_path"]
+__all__ = ["load_profile", "lint_profile", "check_profile", "locate_keys", "format_path", "companion_path"]
 
 Key = tuple[str | int, ...]
 
@@ -60,6 +60,7 @@ SWITCH_STATES = ("open", "closed")
 # Class designations as printed on meters (IEC 62053-21/-22/-24 style, common practice).
 ACCURACY_CLASSES = ("0.1S", "0.2S", "0.5S", "1S", "0.1", "0.2", "0.5", "1", "2", "3")
 MAX_ADDRESS = 65535
+MAX_DEPTH = 32  # nesting levels of tables and arrays; real profiles use about 5
 
 # ----------------------------------------------------------------------------- key locator
 
@@ -1171,8 +1172,57 @@ def _read(
             msg = f"{msg[: m.start()]} (column {m.group(2)})"
         problems.append(Problem(file, line, "", f"TOML syntax: {msg}"))
         return None
+    except RecursionError:  # tomllib recurses per nesting level of arrays and inline tables
+        problems.append(Problem(file, None, "", f"values nested too deep; a profile needs at most {MAX_DEPTH} levels"))
+        return None
+    except ValueError as exc:  # e.g. an integer longer than Python converts (sys.int_info)
+        why = printable(str(exc)).split(":")[0]
+        problems.append(Problem(file, None, "", f"a value cannot be read ({why}); give realistic values"))
+        return None
+    deep = _too_deep(data)
+    if deep is not None:
+        problems.append(
+            Problem(file, None, format_path(deep), f"nested deeper than {MAX_DEPTH} levels; a profile needs far fewer")
+        )
+        return None
     doc.lines = locate_keys(text)
     return raw, doc, data
+
+
+def _too_deep(data: Any, limit: int | None = None) -> Key | None:
+    """The first key path nested deeper than ``limit``, found without recursion; else None.
+
+    Later stages (key locator, journal JSON, dataclass copies) recurse per level, so absurd
+    nesting is refused here, before it can exhaust the stack.
+    """
+    limit = MAX_DEPTH if limit is None else limit
+    stack: list[tuple[Any, Key]] = [(data, ())]
+    while stack:
+        value, path = stack.pop()
+        if len(path) > limit:
+            return path[: limit + 1]
+        if isinstance(value, dict):
+            stack.extend((v, path + (str(k),)) for k, v in value.items())
+        elif isinstance(value, list):
+            stack.extend((v, path + (i,)) for i, v in enumerate(value))
+    return None
+
+
+def companion_path(profile_path: str | Path, name: str) -> Path | None:
+    """Where a companion file (``[sequence] file``) named in a profile is, or None if it is not
+    a relative path inside the profile's folder.
+
+    A profile is data that may come from anyone; its companion text is copied into the journal
+    and the dataset, so it must never reach out to /etc/passwd or a neighbour's folder.
+    """
+    if not name or "\x00" in name or Path(name).is_absolute():
+        return None
+    folder = Path(profile_path).parent
+    try:
+        inside = (folder / name).resolve().is_relative_to(folder.resolve())
+    except (OSError, RuntimeError, ValueError):  # symlink loops, unreadable folders
+        return None
+    return folder / name if inside else None
 
 
 _TOP = (
@@ -1225,7 +1275,16 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
                     ("step",),
                     "steps are given both here and in [sequence] file; keep them in one place",
                 )
-            companion = _read(p.parent / file, problems, ref=(doc, ("sequence", "file")))
+            where = companion_path(p, file)
+            companion = None
+            if where is None:
+                doc.add(
+                    ("sequence", "file"),
+                    f"{printable(file)!r} is not inside the profile's folder; keep the sequence file "
+                    "beside the profile (or in a folder below it) and give its relative path",
+                )
+            else:
+                companion = _read(where, problems, ref=(doc, ("sequence", "file")))
             if companion is not None:
                 craw, cdoc, cdata = companion
                 digest.update(craw)

@@ -345,6 +345,12 @@ def write_report(dataset_dir: Path, out: Path | None = None) -> tuple[Path, Path
     """Write ``out`` (HTML) and the Markdown beside it; returns both paths."""
     html_path = Path(out) if out is not None else default_report_path(dataset_dir)
     md_path = html_path.with_suffix(".md")
+    folder = Path(dataset_dir).resolve()
+    if html_path.resolve().is_relative_to(folder):  # the .md beside it would land there too
+        raise BenchwalkError(
+            f"{html_path}: the report would be written inside the dataset folder {dataset_dir} and "
+            "change it; give an --out outside it"
+        )
     bar, update = terminal_progress("report")
     if bar is not None:
         with bar:

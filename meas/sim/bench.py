@@ -12,11 +12,14 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import dataclasses
+import json
 import logging
 import math
+import os
 import time
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -35,6 +38,7 @@ from .server import (
     FC_HOLDING,
     FC_INPUT,
     DelayFront,
+    SeenWrite,
     UnitGate,
     meter_device,
     plc_device,
@@ -45,6 +49,7 @@ from .server import (
 
 log = logging.getLogger(__name__)
 _FC = {"holding": FC_HOLDING, "input": FC_INPUT}
+WRITE_LOG_ENV = "BENCHWALK_SIM_WRITE_LOG"
 
 
 @dataclass(frozen=True)
@@ -100,6 +105,10 @@ class SimulatedBench:
     ``port_map``: None = the profile's ports; ``"free"`` = ports from the OS; or a mapping
     profile port -> port to use. ``readings`` replaces the load flow (tests with hand-made
     ideal readings); ``clock`` is the time source (seconds, monotonic).
+
+    Every write request any simulated server receives is kept in ``writes_seen`` and, when
+    ``write_log`` (default ``$BENCHWALK_SIM_WRITE_LOG``) names a file, appended to it as one
+    JSON line: an audit of what the tool sent to the plant, readable after the process ends.
     """
 
     def __init__(
@@ -113,8 +122,12 @@ class SimulatedBench:
         noise: bool = True,
         readings: Callable[[Profile, dict[str, str]], object] | None = None,
         clock: Callable[[], float] = time.monotonic,
+        write_log: str | os.PathLike | None = None,
     ):
         validate_faults(profile, faults)
+        log_to = write_log if write_log is not None else os.environ.get(WRITE_LOG_ENV) or None
+        self.write_log: Path | None = Path(log_to) if log_to else None
+        self.writes_seen: list[SeenWrite] = []
         self.profile = profile
         self.host = host
         self.port_map = port_map
@@ -173,6 +186,15 @@ class SimulatedBench:
             gate.exception_code = int(exc.arg) if exc else None  # type: ignore[arg-type]
             slow = find(mid, self._faults, "slow")
             gate.delay_s = float(slow.arg) if slow else 0.0  # type: ignore[arg-type]
+
+    def _on_write(self, seen: SeenWrite) -> None:
+        self.writes_seen.append(seen)
+        if self.write_log is not None:
+            try:
+                with open(self.write_log, "a", encoding="utf-8") as f:
+                    f.write(json.dumps(dataclasses.asdict(seen)) + "\n")
+            except OSError as exc:  # the audit file must never stop the bench
+                log.warning("cannot append to the write log %s: %s", self.write_log, exc)
 
     def requests_seen(self, meter_id: str) -> int:
         """Client requests that reached this meter (the bench's own updates not counted)."""
@@ -312,14 +334,14 @@ class SimulatedBench:
                 slow = [i.id for i in items if isinstance(i, Meter) and find(i.id, self._faults, "slow")]
                 want = self._port_for(port)
                 if slow:  # pymodbus behind, a delaying front on the public port
-                    server, back_port = await start_tcp(devices, "127.0.0.1", 0)
+                    server, back_port = await start_tcp(devices, "127.0.0.1", 0, on_write=self._on_write)
                     front = DelayFront(self.host, want, ("127.0.0.1", back_port), {i.unit_id: self._gates[i.id] for i in items if isinstance(i, Meter)})
                     self._servers.append(server)
                     bound[(host, port)] = await front.start()
                     self._fronts.append(front)
                     self._front_meters[id(front)] = {i.id for i in items if isinstance(i, Meter)}
                 else:
-                    server, bound[(host, port)] = await start_tcp(devices, self.host, want)
+                    server, bound[(host, port)] = await start_tcp(devices, self.host, want, on_write=self._on_write)
                     self._servers.append(server)
                 for i in items:
                     if isinstance(i, Meter):
@@ -380,7 +402,7 @@ class SimulatedBench:
         if not meters:
             raise BenchwalkError(f"no meter of {self.profile.path} to serve on {device}")
         devices = [meter_device(m.unit_id, self.profile.maps[m.map_id], self._gates[m.id]) for m in meters]
-        server = await start_rtu(devices, device, baudrate, parity, stopbits, bytesize)
+        server = await start_rtu(devices, device, baudrate, parity, stopbits, bytesize, on_write=self._on_write)
         self._servers.append(server)
         for m in meters:
             self._targets[m.id].append((server, m.unit_id))

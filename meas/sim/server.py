@@ -12,9 +12,11 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import dataclasses
 import logging
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
+from datetime import UTC, datetime
 
 from pymodbus.constants import ExcCodes
 from pymodbus.exceptions import NoSuchIdException
@@ -27,6 +29,9 @@ from ..model import RegisterMap
 
 READ_FC = frozenset({1, 2, 3, 4})
 WRITE_FC = frozenset({5, 6, 15, 16})
+# every function code that changes a device (Modbus Application Protocol V1.1b3, 6): the four
+# above, mask write register (22) and read/write multiple registers (23)
+ANY_WRITE_FC = WRITE_FC | {22, 23}
 COIL_WRITE_FC = frozenset({5, 15})
 FC_HOLDING, FC_INPUT, FC_COIL, FC_DISCRETE = 3, 4, 1, 2
 
@@ -199,20 +204,59 @@ class DelayFront:
                 self._tasks.discard(task)
 
 
-async def start_tcp(devices: list[SimDevice], host: str, port: int) -> tuple[ModbusTcpServer, int]:
-    """Serve the devices on host:port (0 = any free port); returns the server and its port."""
-    server = ModbusTcpServer(devices, address=(host, port), ignore_missing_devices=True)
+@dataclass(frozen=True)
+class SeenWrite:
+    """One write request as a simulated server received it, before any device saw it."""
+
+    time_utc: str
+    port: int | str  # TCP port, or serial device path
+    unit: int
+    function_code: int
+    address: int
+    values: tuple[int, ...]
+
+
+OnWrite = Callable[[SeenWrite], None]
+
+
+def _write_tracer(where: int | str, on_write: OnWrite | None):
+    """A pymodbus ``trace_pdu`` that reports every received write request, then passes it on."""
+    if on_write is None:
+        return None
+
+    def trace(sending: bool, pdu):
+        if not sending and pdu.function_code in ANY_WRITE_FC:
+            values = tuple(int(v) for v in (pdu.bits or pdu.registers or ()))
+            on_write(SeenWrite(datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"), where, pdu.dev_id,
+                               pdu.function_code, int(getattr(pdu, "address", 0) or 0), values))
+        return pdu
+
+    return trace
+
+
+async def start_tcp(devices: list[SimDevice], host: str, port: int,
+                    on_write: OnWrite | None = None) -> tuple[ModbusTcpServer, int]:
+    """Serve the devices on host:port (0 = any free port); returns the server and its port.
+
+    ``on_write`` hears of every write request the server receives (FC 5, 6, 15, 16, 22, 23),
+    whether or not a device accepts it.
+    """
+    holder: dict[str, int] = {}
+    tracer = _write_tracer(0, None if on_write is None else
+                           lambda w: on_write(dataclasses.replace(w, port=holder.get("port", port))))
+    server = ModbusTcpServer(devices, address=(host, port), ignore_missing_devices=True, trace_pdu=tracer)
     try:
         await server.serve_forever(background=True)
     except RuntimeError:
         raise BenchwalkError(f"cannot listen on {host}:{port} (in use or not a local address); free the port or use --free-ports") from None
     sockets = getattr(server.transport, "sockets", None) or ()
     bound = int(sockets[0].getsockname()[1]) if sockets else port
+    holder["port"] = bound
     return server, bound
 
 
 async def start_rtu(devices: list[SimDevice], device: str, baudrate: int = 19200, parity: str = "N",
-                    stopbits: int = 1, bytesize: int = 8) -> ModbusSerialServer:
+                    stopbits: int = 1, bytesize: int = 8, on_write: OnWrite | None = None) -> ModbusSerialServer:
     """Serve the devices as RTU slaves on a serial port path (a real port or a pty)."""
     server = ModbusSerialServer(
         devices,
@@ -223,6 +267,7 @@ async def start_rtu(devices: list[SimDevice], device: str, baudrate: int = 19200
         stopbits=stopbits,
         bytesize=bytesize,
         ignore_missing_devices=True,
+        trace_pdu=_write_tracer(device, on_write),
     )
     try:
         await server.serve_forever(background=True)
