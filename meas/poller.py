@@ -7,7 +7,10 @@ handling is ours alone (pymodbus ``reconnect_delay=0``): capped exponential back
 jitter around ``connect()``, and a separate backoff per unit id so a dead meter behind a
 gateway costs its neighbours one timeout, not one per cycle, and never drops their link.
 A unit that stops answering skips the rest of its reads for the cycle; a unit already in
-backoff is probed with one attempt (no retries) and after its healthy neighbours.
+backoff is probed with one attempt (no retries), after its healthy neighbours, and waits only
+a few times the link's slowest learned healthy read (floor 50 ms; TCP only, and every 4th
+probe waits the full timeout). A read whose cycle has closed while a newer cycle waits is not
+retried: its answer could reach no snapshot and would only hold back the neighbours.
 
 Cycle deadline: a cycle waits for its answers only until ``max(interval, 1.5 x the learned
 healthy time of the slowest endpoint + 50 ms)``. A unit that has not answered by then is
@@ -22,10 +25,13 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import itertools
 import logging
 import math
+import operator
 import random
 import struct
+import sys
 import time
 from collections.abc import AsyncIterator
 from dataclasses import dataclass, field
@@ -51,6 +57,9 @@ DEADLINE_HEADROOM = 1.5  # cycle deadline = headroom x learned healthy endpoint 
 DEADLINE_MARGIN_S = 0.05
 RUN_SLOT_MARGIN_S = 0.005  # run(): a cycle's answers are due this long before the next slot
 ANSWER_DECAY = 0.9  # per cycle: how fast a slow answer stops widening the deadline
+PROBE_RTT_FACTOR = 4  # probe of a unit in backoff: this many x the link's slowest healthy read,
+PROBE_FLOOR_S = 0.05  # but never shorter than this, nor longer than the unit's own timeout
+FULL_PROBE_EVERY = 4  # every 4th probe waits the full timeout: a slow unit is never locked out
 _FC_FOR_KIND = {"coil": 1, "discrete": 2, "holding": 3, "input": 4}
 _READ_METHOD = {"holding": "read_holding_registers", "input": "read_input_registers",
                 "coil": "read_coils", "discrete": "read_discrete_inputs"}
@@ -144,7 +153,9 @@ class _Unit:
     regmap: RegisterMap | None = None
     plan: MeterPlan | None = None
     specs: dict[str, RegisterSpec] = field(default_factory=dict)
-    decoders: dict[int, RequestDecoder] = field(default_factory=dict)  # by request index
+    decoders: list[RequestDecoder] = field(default_factory=list)  # by request index
+    keys: tuple[str, ...] = ()  # every key the plan reads, in request order
+    nan_values: dict[str, float] = field(default_factory=dict)  # template: every key NaN
     status_reads: list[_StatusRead] = field(default_factory=list)
     state: CommState = CommState.OFFLINE
     last_good_utc: datetime | None = None
@@ -285,21 +296,25 @@ _BOUNDS = {  # no healthy meter reports values outside these (primary units): DE
     "v_ang": (-360.0, 360.0),
     "i_ang": (-360.0, 360.0),
 }
+_FLOAT_MAX = sys.float_info.max
 _STRUCT_CHAR = {"int16": "h", "uint16": "H", "int32": "i", "uint32": "I", "float32": "f", "float64": "d"}
 
 
 class RequestDecoder:
-    """Decode every value of one read in a single pass; same result as ``registers.decode``.
+    """Decode every value of one read in one ``struct`` call; same result as ``registers.decode``.
 
-    Per value it precomputes the struct, the byte permutation for the word/byte order, the
-    scale, offset and CT/VT ratio, so a cycle of many meters costs little CPU beside pymodbus
-    (``tests/test_poller.py`` checks it against ``registers.decode`` + ``scaling.to_primary``).
+    The word/byte-order permutation of the whole read and one struct format (pad bytes for
+    the gaps) are precompiled, so a read costs one pack, at most one permutation and one
+    unpack, then the scale, offset and CT/VT ratio in one pass in the reference's order of
+    operations (``tests/test_poller.py`` checks it against ``registers.decode`` +
+    ``scaling.to_primary``). A read with an impossible or non-finite value takes a slow path
+    that names each bad value.
     """
 
     def __init__(self, req: ReadRequest, specs: dict[str, RegisterSpec], meter: Meter):
         self.count = req.count
         self._pack = struct.Struct(f">{req.count}H").pack
-        self.items = []
+        items = []
         for key in req.keys:
             sp = specs[key]
             off = 2 * (sp.address - req.address)
@@ -310,18 +325,65 @@ class RequestDecoder:
             perm = []
             for w in words:
                 perm += [off + 2 * w, off + 2 * w + 1] if sp.byte_order == "big" else [off + 2 * w + 1, off + 2 * w]
-            direct = perm == list(range(off, off + nb))
             lo, hi = _BOUNDS.get(split_key(key)[0], (-math.inf, math.inf))
-            self.items.append((key, struct.Struct(">" + _STRUCT_CHAR[sp.dtype]), off, None if direct else perm,
-                               sp.scale, sp.offset, ratio(meter, key), lo, hi))
+            items.append((off, nb, perm, key, _STRUCT_CHAR[sp.dtype], sp.scale, sp.offset, ratio(meter, key), lo, hi))
+        items.sort(key=lambda it: it[0])
+        self.keys = tuple(it[3] for it in items)
+        self._items = [(key, struct.Struct(">" + ch), off, None if perm == list(range(off, off + nb)) else perm,
+                        scale, offset, r, lo, hi) for off, nb, perm, key, ch, scale, offset, r, lo, hi in items]
+        self._scale = tuple(it[5] for it in items)
+        self._offset = tuple(it[6] for it in items)
+        self._ratio = tuple(it[7] for it in items)
+        self._plain = all(s == 1.0 and o == 0.0 and r == 1.0 for s, o, r in zip(
+            self._scale, self._offset, self._ratio, strict=True))
+        # bounds per quantity group, checked with min()/max() of one itemgetter (C loops);
+        # a pair index gives a tuple even for a group of one
+        groups: dict[tuple[float, float], list[int]] = {}
+        for n, it in enumerate(items):
+            if (it[8], it[9]) != (-math.inf, math.inf):
+                groups.setdefault((it[8], it[9]), []).append(n)
+        self._bounded = [(operator.itemgetter(*(idx if len(idx) > 1 else idx * 2)), lo, hi)
+                         for (lo, hi), idx in groups.items()]
+        self._all_ok = dict.fromkeys(self.keys, Quality.OK)
+        overlap = any(b[0] < a[0] + a[1] for a, b in itertools.pairwise(items))
+        self._unpack = None  # overlapping values (no valid profile has them): per-value slow path
+        self._permute = None
+        if not overlap:
+            perm_all = list(range(2 * req.count))
+            fmt, pos = ">", 0
+            for off, nb, perm, _key, ch, *_ in items:
+                perm_all[off:off + nb] = perm
+                fmt += "x" * (off - pos) + ch
+                pos = off + nb
+            self._unpack = struct.Struct(fmt).unpack_from
+            if perm_all != list(range(2 * req.count)):
+                self._permute = operator.itemgetter(*perm_all)
 
-    def decode(self, words: list[int], values: dict, quality: dict, errors: list[str]) -> None:
+    def decode(self, words: list[int], values: dict, quality: dict, errors: list[str]) -> int:
+        """Fill ``values``/``quality`` for this read's keys -> how many are ok."""
         buf = self._pack(*words)
-        for key, st, off, perm, scale, offset, r, lo, hi in self.items:
-            raw = st.unpack_from(buf, off)[0] if perm is None else st.unpack(bytes(buf[i] for i in perm))[0]
-            v = (raw * scale + offset) * r
+        if self._unpack is None:
+            return self._decode_each(buf, values, quality, errors)
+        if self._permute is not None:
+            buf = bytes(self._permute(buf))
+        raw = self._unpack(buf)
+        if self._plain:  # == (raw * 1.0 + 0.0) * 1.0 bit for bit, ints become float
+            vals = [r + 0.0 for r in raw]
+        else:
+            vals = [(r * s + o) * k for r, s, o, k in zip(
+                raw, self._scale, self._offset, self._ratio, strict=True)]
+        total = sum(vals)  # finite iff no NaN/Inf (an overflow only sends us the slow way)
+        if total - total == 0.0 and all(lo <= min(g(vals)) and max(g(vals)) <= hi for g, lo, hi in self._bounded):
+            values.update(zip(self.keys, vals, strict=True))
+            quality.update(self._all_ok)
+            return len(vals)
+        return self._judge(raw, vals, values, quality, errors)
+
+    def _judge(self, raw, vals, values: dict, quality: dict, errors: list[str]) -> int:
+        n_ok = 0
+        for (key, _st, _off, _perm, _s, _o, _r, lo, hi), x, v in zip(self._items, raw, vals, strict=True):
             if not math.isfinite(v):
-                errors.append(f"{key}: register value is {raw}")
+                errors.append(f"{key}: register value is {x}")
                 quality[key] = Quality.DECODE
             elif not lo <= v <= hi:
                 errors.append(f"{key}: impossible value {v:g}")
@@ -329,6 +391,16 @@ class RequestDecoder:
             else:
                 values[key] = v
                 quality[key] = Quality.OK
+                n_ok += 1
+        return n_ok
+
+    def _decode_each(self, buf: bytes, values: dict, quality: dict, errors: list[str]) -> int:
+        raw, vals = [], []
+        for _key, st, off, perm, scale, offset, r, _lo, _hi in self._items:
+            x = st.unpack_from(buf, off)[0] if perm is None else st.unpack(bytes(buf[i] for i in perm))[0]
+            raw.append(x)
+            vals.append((x * scale + offset) * r)
+        return self._judge(raw, vals, values, quality, errors)
 
 
 def _status_reads(switches: list[Switch]) -> list[_StatusRead]:
@@ -370,7 +442,9 @@ class Poller:
             unit = _Unit(m.id, m.unit_id, m.timeout_s, m.retries, self._backoff(),
                          meter=m, regmap=regmap, plan=self.plans[m.id],
                          specs={s.key: s for s in regmap.registers})
-            unit.decoders = {i: RequestDecoder(r, unit.specs, m) for i, r in enumerate(unit.plan.requests)}
+            unit.decoders = [RequestDecoder(r, unit.specs, m) for r in unit.plan.requests]
+            unit.keys = tuple(k for r in unit.plan.requests for k in r.keys)
+            unit.nan_values = dict.fromkeys(unit.keys, math.nan)
             self._attach(m.transport, unit)
             self._units[m.id] = unit
         for p in profile.plcs:
@@ -570,14 +644,16 @@ class Poller:
             await self._connect(link, now)  # first redial after a drop is immediate
         # healthy units first: a dead one's probe must not hold back its neighbours
         for unit in sorted(link.units, key=lambda u: u.backoff.failures > 0):
+            if unit.backoff.failures and cyc.closed and link.wanted is not None:
+                break  # no probe for a cycle that can take no answer while a newer one waits
             if unit.meter is None and not unit.status_reads:
                 continue  # a PLC with no status points: nothing to read
             link.busy_with = unit.id
             try:
                 if unit.meter is not None:
-                    draft = await self._poll_meter(link, unit)
+                    draft = await self._poll_meter(link, unit, cyc)
                 else:
-                    draft = await self._poll_plc(link, unit)
+                    draft = await self._poll_plc(link, unit, cyc)
             except (ModbusException, OSError, ValueError, struct.error) as exc:  # never kill the worker
                 log.warning("%s unit %s: %s", link.endpoint, unit.unit_id, exc)
                 draft = self._failed(unit, f"{type(exc).__name__}: {exc}")
@@ -586,22 +662,33 @@ class Poller:
         link.learned = True
 
     async def _read(self, link: EndpointLink, unit: _Unit, kind: str, address: int, count: int,
-                    attempts: int | None = None):
-        """One read with the unit's timeout and retries -> (values, retried)."""
+                    attempts: int | None = None, *, limit_s: float | None = None, cyc: _Cycle | None = None):
+        """One read with the unit's timeout (or ``limit_s``) and retries -> (values, retried).
+
+        No retry for a cycle that has closed while a newer one waits: its answer could reach
+        no snapshot, and the wait would only hold back the unit's neighbours.
+        """
         attempts = unit.retries + 1 if attempts is None else attempts
+        if limit_s is None and not link.uniform_timeout:
+            limit_s = unit.timeout_s  # else the client's own timeout is this unit's
+        method = _READ_METHOD[kind]
+        tries = 0
         for attempt in range(attempts):
+            if attempt and cyc is not None and cyc.closed and link.wanted is not None:
+                break
             if not link.connected:
                 raise _Disconnected(link.last_error or f"{link.endpoint} not connected")
             client = link.client
             assert client is not None
-            fn = getattr(client, _READ_METHOD[kind])
+            fn = getattr(client, method)
+            tries += 1
             async with link.lock:
                 bad_before = client.ctx.bad_frames
                 try:
-                    if link.uniform_timeout:  # the client's own timeout is this unit's
+                    if limit_s is None:
                         rr = await fn(address, count=count, device_id=unit.unit_id)
                     else:
-                        async with asyncio.timeout(unit.timeout_s):
+                        async with asyncio.timeout(limit_s):
                             rr = await fn(address, count=count, device_id=unit.unit_id)
                 except (TimeoutError, ModbusIOException):
                     if client.ctx.bad_frames != bad_before:
@@ -618,20 +705,36 @@ class Poller:
             _check_reply(rr, kind, unit.unit_id)
             if rr.isError():
                 raise _DeviceException(int(getattr(rr, "exception_code", 0) or 0))
-            data = list(rr.bits[:count]) if kind in ("coil", "discrete") else list(rr.registers)
-            if len(data) != count or (kind in ("coil", "discrete") and len(rr.bits) < count):
+            data = rr.bits[:count] if kind in ("coil", "discrete") else rr.registers
+            if len(data) != count:
                 raise _BadReply(f"asked for {count} values at {address}, got {len(data)}")
             return data, attempt > 0
         if link.silent_reads >= RECONNECT_AFTER_SILENT * (unit.retries + 1) and all(
             u.backoff.failures > 0 or u is unit for u in link.units
         ):
             self._drop(link, f"no unit on {link.endpoint} answers; reconnecting")
-        raise _NoAnswer(f"no answer within {unit.timeout_s:g} s x {attempts}")
+        raise _NoAnswer(f"no answer within {limit_s or unit.timeout_s:g} s x {tries}")
 
-    async def _poll_meter(self, link: EndpointLink, unit: _Unit) -> _Draft:
+    def _probe_limit(self, link: EndpointLink, unit: _Unit) -> float | None:
+        """Timeout of a probe of a unit in backoff (None: its full timeout).
+
+        A probe holds the shared client, so it waits only a few times the slowest learned
+        healthy read on the link (the unit's own remembered one included). Not on a serial
+        line, where a reply after a timeout is taken for the next request's; and every
+        ``FULL_PROBE_EVERY``-th probe waits the full timeout so a slow unit can always return.
+        """
+        if link.is_serial or unit.backoff.failures % FULL_PROBE_EVERY == 0:
+            return None
+        slowest = max((u.answer_s / u.requests for u in link.units if u.answer_s > 0 and u.requests),
+                      default=0.0)
+        if slowest <= 0:
+            return None  # nothing learned on this link: no basis for a shorter wait
+        limit = max(PROBE_FLOOR_S, PROBE_RTT_FACTOR * slowest)
+        return limit if limit < unit.timeout_s else None
+
+    async def _poll_meter(self, link: EndpointLink, unit: _Unit, cyc: _Cycle | None = None) -> _Draft:
         assert unit.plan is not None and unit.meter is not None
-        keys = [k for r in unit.plan.requests for k in r.keys]
-        values = dict.fromkeys(keys, math.nan)
+        values = dict(unit.nan_values)
         quality: dict[str, Quality] = {}
         errors: list[str] = []
         exception_code: int | None = None
@@ -640,15 +743,21 @@ class Poller:
         if not link.connected or not unit.backoff.ready(now):
             reason = (link.last_error or f"{link.endpoint} not connected") if not link.connected else (
                 f"unit {unit.unit_id} silent; next try in {max(0.0, unit.backoff.next_try - now):.1f} s")
-            return _Draft(values, dict.fromkeys(keys, Quality.OFFLINE), CommState.OFFLINE, reason, None, math.nan)
-        attempts = 1 if unit.backoff.failures else unit.retries + 1  # a probe: is it back?
-        t0 = time.monotonic()
+            return _Draft(values, dict.fromkeys(unit.keys, Quality.OFFLINE), CommState.OFFLINE, reason, None,
+                          math.nan)
+        probing = unit.backoff.failures > 0
+        attempts = 1 if probing else unit.retries + 1  # a probe: is it back?
+        limit_s = self._probe_limit(link, unit) if probing else None
+        n_ok = 0
+        rest: Quality | None = None  # the quality the unread rest got when we gave up on the unit
+        t0 = now
         requests = unit.plan.requests
         for i, req in enumerate(requests):
             try:
-                words, r = await self._read(link, unit, req.kind, req.address, req.count, attempts)
+                words, r = await self._read(link, unit, req.kind, req.address, req.count, attempts,
+                                            limit_s=limit_s, cyc=cyc)
                 retried |= r
-                unit.decoders[i].decode(words, values, quality, errors)
+                n_ok += unit.decoders[i].decode(words, values, quality, errors)
                 continue
             except _NoAnswer as exc:
                 no_answer = True
@@ -678,26 +787,23 @@ class Poller:
                     quality.setdefault(k, rest)
             break
         latency = time.monotonic() - t0
-        n_ok = sum(q is Quality.OK for q in quality.values())
-        answered = len(quality) == len(keys) and not any(
-            q in (Quality.TIMEOUT, Quality.OFFLINE) for q in quality.values())
         if n_ok:
             unit.backoff.reset()
         elif no_answer:
             unit.backoff.fail(time.monotonic())
-        if answered and not retried:
+        if rest not in (Quality.TIMEOUT, Quality.OFFLINE) and not retried:  # every request answered
             unit.answer_s = max(latency, unit.answer_s * ANSWER_DECAY)
-        if all(q is Quality.OFFLINE for q in quality.values()):
-            state = CommState.OFFLINE
-        elif n_ok == 0:
-            state = CommState.FAILING
-        elif n_ok < len(quality) or retried:
+        if n_ok == len(unit.keys):
+            state = CommState.DEGRADED if retried else CommState.OK
+        elif n_ok:
             state = CommState.DEGRADED
+        elif all(q is Quality.OFFLINE for q in quality.values()):
+            state = CommState.OFFLINE
         else:
-            state = CommState.OK
+            state = CommState.FAILING
         return _Draft(values, quality, state, "; ".join(errors), exception_code, latency)
 
-    async def _poll_plc(self, link: EndpointLink, unit: _Unit) -> _Draft:
+    async def _poll_plc(self, link: EndpointLink, unit: _Unit, cyc: _Cycle | None = None) -> _Draft:
         out: dict[tuple[str, str], bool] = {}
         now = time.monotonic()
         if not link.connected or not unit.backoff.ready(now):
@@ -706,10 +812,12 @@ class Poller:
         no_answer = False
         exception_code: int | None = None
         attempts = 1 if unit.backoff.failures else unit.retries + 1
+        limit_s = self._probe_limit(link, unit) if unit.backoff.failures else None
         t0 = time.monotonic()
         for rd in unit.status_reads:
             try:
-                bits, _ = await self._read(link, unit, rd.kind, rd.address, rd.count, attempts)
+                bits, _ = await self._read(link, unit, rd.kind, rd.address, rd.count, attempts,
+                                           limit_s=limit_s, cyc=cyc)
             except _NoAnswer as exc:
                 errors.append(str(exc))
                 no_answer = True
@@ -739,8 +847,7 @@ class Poller:
         return _Draft({}, {}, state, "; ".join(errors), exception_code, latency, bits=out)
 
     def _failed(self, unit: _Unit, error: str) -> _Draft:
-        keys = [k for r in unit.plan.requests for k in r.keys] if unit.plan is not None else []
-        return _Draft(dict.fromkeys(keys, math.nan), dict.fromkeys(keys, Quality.DECODE),
+        return _Draft(dict(unit.nan_values), dict.fromkeys(unit.keys, Quality.DECODE),
                       CommState.FAILING, error, None, math.nan)
 
     def _pending(self, unit: _Unit, cyc: _Cycle, t_mono: float) -> _Draft:
@@ -749,8 +856,7 @@ class Poller:
         waiting = link.busy_with
         why = (f"no answer by the cycle deadline ({(cyc.deadline - t_mono) * 1000:.0f} ms)"
                + (f"; {link.endpoint} busy with {waiting}" if waiting and waiting != unit.id else ""))
-        keys = [k for r in unit.plan.requests for k in r.keys] if unit.plan is not None else []
-        return _Draft(dict.fromkeys(keys, math.nan), dict.fromkeys(keys, Quality.TIMEOUT),
+        return _Draft(dict(unit.nan_values), dict.fromkeys(unit.keys, Quality.TIMEOUT),
                       CommState.FAILING, why, None, math.nan)
 
     def _deliver(self, unit: _Unit, d: _Draft, time_utc: datetime) -> MeterBlock:

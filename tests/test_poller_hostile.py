@@ -139,11 +139,13 @@ async def test_hostile_meter_is_contained_and_recovers(mode):
                 ok[mid] += blk.state is CommState.OK
         assert must in seen, seen
         assert ok["OT"] == CYCLES  # another endpoint never loses a cycle
-        # the neighbour behind the same gateway waits only while a probe holds the one client
-        # or the link is redialled: <= ceil(timeout x attempts / interval) cycles for each
+        # the neighbour behind the same gateway loses only the first detection, one timeout (no
+        # retry for a cycle that has closed while a newer one waits), + 1 cycle of scheduling
+        # slack; later probes wait <= 4 x its learned read, floor 50 ms, and run after it; each
+        # redial of the link costs <= ceil(timeout x attempts / interval) cycles
         drops = b.gateway_link.connects - 1
-        lost_bound = (tried + drops) * math.ceil(TIMEOUT_S * (RETRIES + 1) / INTERVAL_S)
-        assert CYCLES - ok["NB"] <= lost_bound
+        lost_bound = math.ceil(TIMEOUT_S / INTERVAL_S) + 1 + drops * math.ceil(TIMEOUT_S * (RETRIES + 1) / INTERVAL_S)
+        assert CYCLES - ok["NB"] <= lost_bound, f"neighbour lost {CYCLES - ok['NB']} of {CYCLES} cycles"
         if mode == "close":
             assert b.gateway_link.connects >= 2
         else:
