@@ -137,7 +137,7 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("kind", "string", "manual, remote, capture, hold or note", required=True),
             _c("expected_switches", "string", "switch states the step expects, SWITCH=state separated by ;"),
             _c("actual_switches", "string", "switch states found at the last transition, SWITCH=state separated by ;"),
-            _c("settle_s", "number", "time the network took to settle", unit="s"),
+            _c("settle_s", "number", "time the network took to settle after the step's operation (its first settle; a retake does not count)", unit="s"),
             _c("state", "string", "last state reached: accepted, skipped, reviewing, ...; empty if never started"),
             _c("outcome", "string", "last outcome: pass, warn, fail, signed, noted, ..."),
             _c("operator", "string", "who took the last decision"),
@@ -462,7 +462,7 @@ def _steps_rows(prof: dict[str, Any], history: list[dict]) -> list[dict[str, Any
     for n, s in enumerate(prof.get("steps", []), start=1):
         mine = [h for h in history if h["step"] == s["id"]]
         last = mine[-1] if mine else {}
-        settle = next((h["settle_s"] for h in reversed(mine) if h["settle_s"] is not None), None)
+        settle = next((h["settle_s"] for h in mine if h["settle_s"] is not None), None)
         actual = next((h["actual_switches"] for h in reversed(mine) if h["actual_switches"] is not None), None)
         outcome = next((h["outcome"] for h in reversed(mine) if h["outcome"]), None)
         reason = next((h["reason"] for h in reversed(mine) if h["reason"]), None)
