@@ -1101,17 +1101,18 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
     """Re-run ``meas.checks.run_checks`` from the dataset folder alone; returns a checks table.
 
     The profile comes from the copied profile files, each checked snapshot is rebuilt from the
-    measurements, polls and switch states, and its history is the snapshots recorded before
-    it in the same step (all roles, oldest first, at most ``HISTORY``), as the checks'
-    contract defines it ("earlier snapshots"). Ticks the runner saw but did not record (while
-    waiting for the technician) cannot be replayed; a check that reaches back that far shows
-    up as a difference in ``compare_checks``, never silently.
+    measurements, polls and switch states. Its history is exactly the snapshots the runner
+    journalled as used (a ``check_history`` event per capture); without such an event, the
+    snapshots recorded before it in the same step (all roles, oldest first, at most
+    ``HISTORY``). Whatever cannot be replayed shows up as a difference in ``compare_checks``,
+    never silently.
     """
     from .checks import CheckEngine  # noqa: PLC0415 - the checks are heavy; import on demand
 
     folder = Path(dataset_dir)
-    ds = load_dataset(folder, tables=["snapshots", "polls", "switch_states", "checks"])
+    ds = load_dataset(folder, tables=["snapshots", "polls", "switch_states", "checks", "events"])
     profile = ds.load_profile()
+    recorded = _recorded_histories(ds["events"])
     engine = CheckEngine(profile)  # run_checks(profile, ...) with the per-profile set-up done once
     checks, snaps = ds["checks"], ds["snapshots"]
     wanted = set(checks["snapshot"].unique().tolist())
@@ -1127,7 +1128,12 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
         for i, (row_id, snap) in enumerate(rebuilt):
             if row_id not in wanted:
                 continue
-            history = [s for _, s in rebuilt[max(0, i - HISTORY): i]]
+            if row_id in recorded:
+                # the runner journalled exactly which snapshots these checks saw
+                by_row = dict(rebuilt[:i])
+                history = [by_row[r] for r in recorded[row_id] if r in by_row]
+            else:
+                history = [s for _, s in rebuilt[max(0, i - HISTORY): i]]
             for r in engine.run(snap, history):
                 rows.append({
                     "step": step_key, "snapshot": row_id, "check": r.check, "subject": r.subject,
@@ -1139,6 +1145,20 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
     out = pd.DataFrame(rows, columns=CHECK_COLUMNS)
     for c in ("value", "limit", "residual"):
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(float)
+    return out
+
+
+def _recorded_histories(events: pd.DataFrame) -> dict[int, list[int]]:
+    """snapshot row -> the history rows its checks used, from the runner's check_history events."""
+    out: dict[int, list[int]] = {}
+    if events is None or events.empty:
+        return out
+    for data in events.loc[events["kind"] == "check_history", "data"]:
+        try:
+            d = json.loads(data)
+            out[int(d["snapshot"])] = [int(r) for r in d["history"] if r is not None]
+        except (TypeError, ValueError, KeyError):
+            continue  # a damaged entry falls back to the same-step rule; differences still show
     return out
 
 
