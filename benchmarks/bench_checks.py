@@ -4,30 +4,36 @@ The synthetic bench (``radial_bench``) is invented data built in code: a source,
 line sections metered at both ends and load banks metered at each bus, on the demo's maps.
 
 Run:  /work/venv/bin/python benchmarks/bench_checks.py [--repeat 300]
+      /work/venv/bin/python benchmarks/bench_checks.py --profile   (cProfile of today's engine, 32 meters)
 
 Snapshots come from the simulated bench (meas.sim, noise on) with a history of 16 earlier
-snapshots, as the runner feeds them. Cases are measured interleaved, round after round, so a
-busy machine slows all of them alike; the table gives the median and the 10th percentile of
-the wall time per call, the minimum (closest to an idle machine), and the ratio of each
-case's median to the demo bench's engine run. Target:
-< 2 ms for 32 meters with a prebuilt ``CheckEngine``.
+snapshots, as the runner feeds them. Cases are measured interleaved, round after round with
+the starting case rotated, so a busy machine slows all of them alike; the table gives the
+median and the 10th percentile of the wall time per call and the minimum (closest to an idle
+machine). The ratio column compares each bench with the engine rebuilt on every call
+(``run_checks``), which shows what the per-profile preparation of ``CheckEngine`` saves.
+Target: < 2 ms median for 32 meters with a prebuilt ``CheckEngine``. Results are pinned bit for
+bit by tests/test_checks_golden.py, so any speed-up is checked against the same answers.
 """
 
 from __future__ import annotations
 
 import argparse
 import dataclasses
-import statistics
-import time
+import math
+import sys
 from pathlib import Path
 
 import numpy as np
 
-from meas.checks import CheckEngine, run_checks
-from meas.model import AccuracyClasses, Branch, Bus, Meter, Profile, TcpTransport
-from meas.profile import load_profile
-from meas.sim.meters import snapshot_from_sim
-from meas.sim.readings import ideal_readings
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from common import Figure, Target, interleaved, machine_line, median, percentile  # noqa: E402
+
+from meas.checks import CheckEngine, run_checks  # noqa: E402
+from meas.model import AccuracyClasses, Branch, Bus, Meter, Profile, TcpTransport  # noqa: E402
+from meas.profile import load_profile  # noqa: E402
+from meas.sim.meters import snapshot_from_sim  # noqa: E402
+from meas.sim.readings import ideal_readings  # noqa: E402
 
 DEMO = Path(__file__).resolve().parent.parent / "profiles_demo" / "feeder_bench.toml"
 
@@ -70,48 +76,93 @@ def _series(profile, switches, n: int = 40, seed: int = 1):
     return out
 
 
+def _same(a: list, b: list) -> bool:
+    """Every field equal, floats bit for bit (NaN = NaN)."""
+    def key(r):
+        return tuple(("nan" if isinstance(v, float) and math.isnan(v) else v) for v in dataclasses.astuple(r))
+    return len(a) == len(b) and all(key(x) == key(y) for x, y in zip(a, b, strict=True))
+
+
+def measure(repeat: int = 300) -> tuple[dict[str, list[float]], dict[str, int]]:
+    """Wall times (s) per case and result counts, all cases interleaved."""
+    demo = load_profile(DEMO)
+    big = radial_bench(demo, 32)
+    benches = {f"demo bench ({len(demo.meters)} meters)": (demo, _series(demo, {s.id: s.normal for s in demo.switches})),
+               f"synthetic bench ({len(big.meters)} meters)": (big, _series(big, {}))}
+    cases, counts = {}, {}
+    for label, (prof, snaps) in benches.items():
+        engine = CheckEngine(prof)
+        state = {"k": 0}
+
+        def call(engine=engine, snaps=snaps, state=state):
+            """The runner's situation: a new snapshot (its frame not built yet) after 16 known ones."""
+            j = 16 + state["k"] % (len(snaps) - 16)
+            state["k"] += 1
+            engine.forget(snaps[j])
+            return engine.run(snaps[j], snaps[j - 16:j])
+
+        cases[f"{label}, CheckEngine.run"] = call
+        counts[f"{label}, CheckEngine.run"] = len(call())
+
+        def rebuilt(prof=prof, snaps=snaps):
+            return run_checks(prof, snaps[-1], snaps[-17:-1])
+
+        cases[f"{label}, run_checks (engine built per call)"] = rebuilt
+        if not _same(CheckEngine(prof).run(snaps[-1], snaps[-17:-1]), rebuilt()):
+            raise SystemExit(f"{label}: a prebuilt engine and run_checks disagree; run tests/test_checks_golden.py")
+        counts[f"{label}, run_checks (engine built per call)"] = len(rebuilt())
+    return interleaved(cases, repeat), counts
+
+
+def figures(repeat: int = 300) -> list[Figure]:
+    """Rows for the performance table: each bench with a prebuilt engine; the 32-meter target."""
+    times, _ = measure(repeat)
+    out = []
+    for name in times:
+        if not name.endswith("CheckEngine.run"):
+            continue
+        ours = median(times[name]) * 1e3
+        ref = median(times[name.replace("CheckEngine.run", "run_checks (engine built per call)")]) * 1e3
+        targets = (Target("ours", "<", 2.0),) if "32 meters" in name else ()
+        out.append(Figure("checks", name + " (reference: engine rebuilt per call)", ours, "ms", ref, ours / ref, targets))
+    return out
+
+
+def profile(calls: int = 300, top: int = 30) -> None:
+    """cProfile of today's engine on the 32-meter bench, in the runner's situation (new snapshot)."""
+    import cProfile  # noqa: PLC0415
+    import pstats  # noqa: PLC0415
+
+    big = radial_bench(load_profile(DEMO), 32)
+    snaps = _series(big, {})
+    engine = CheckEngine(big)
+
+    def loop() -> None:
+        for k in range(calls):
+            j = 16 + k % (len(snaps) - 16)
+            engine.forget(snaps[j])
+            engine.run(snaps[j], snaps[j - 16:j])
+
+    loop()  # warm
+    prof = cProfile.Profile()
+    prof.runcall(loop)
+    pstats.Stats(prof).sort_stats("tottime").print_stats(top)
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=300)
+    ap.add_argument("--profile", action="store_true", help="print a cProfile of today's engine instead")
     args = ap.parse_args()
-    demo = load_profile(DEMO)
-    big = radial_bench(demo, 32)
-    demo_snaps = _series(demo, {s.id: s.normal for s in demo.switches})
-    big_snaps = _series(big, {})
-    e_demo, e_big = CheckEngine(demo), CheckEngine(big)
-
-    def step(engine, snaps, k):
-        """The runner's situation: a new snapshot (its frame not built yet) after 16 known ones."""
-        j = 16 + k % (len(snaps) - 16)
-        engine.forget(snaps[j])
-        return lambda: engine.run(snaps[j], snaps[j - 16:j])
-
-    cases = {
-        f"demo bench ({len(demo.meters)} meters), CheckEngine.run": lambda k: step(e_demo, demo_snaps, k),
-        f"synthetic bench ({len(big.meters)} meters), CheckEngine.run": lambda k: step(e_big, big_snaps, k),
-        f"synthetic bench ({len(big.meters)} meters), run_checks (engine built per call)":
-            lambda k: (lambda: run_checks(big, big_snaps[-1], big_snaps[-17:-1])),
-    }
-    n_results = {name: len(make(0)()) for name, make in cases.items()}  # warm-up, and result counts
-    times: dict[str, list[float]] = {name: [] for name in cases}
-    for k in range(args.repeat):
-        for name, make in cases.items():
-            fn = make(k)
-            t = time.perf_counter()
-            fn()
-            times[name].append(time.perf_counter() - t)
-    base = statistics.median(times[next(iter(cases))])
-    print(f"{'case':72s} {'results':>7s} {'median ms':>10s} {'p10 ms':>8s} {'min ms':>8s} {'ratio':>6s}")
+    if args.profile:
+        profile()
+        return 0
+    times, counts = measure(args.repeat)
+    print(f"{'case':80s} {'results':>7s} {'median ms':>10s} {'p10 ms':>8s} {'min ms':>8s}")
     for name, ts in times.items():
-        med = statistics.median(ts)
-        p10 = sorted(ts)[len(ts) // 10]
-        print(f"{name:72s} {n_results[name]:7d} {med * 1e3:10.3f} {p10 * 1e3:8.3f} {min(ts) * 1e3:8.3f} {med / base:6.2f}")
-    try:
-        import os
-
-        print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs; repeat {args.repeat}")
-    except OSError:
-        pass
+        print(f"{name:80s} {counts[name]:7d} {median(ts) * 1e3:10.3f} {percentile(ts, 0.1) * 1e3:8.3f} "
+              f"{min(ts) * 1e3:8.3f}")
+    print(f"{machine_line()}; repeat {args.repeat}")
     return 0
 
 

@@ -20,6 +20,14 @@ def status(code: int) -> Status:
 _new = object.__new__
 _set = object.__setattr__
 
+Buckets = tuple[list[CheckResult], list[CheckResult], list[CheckResult], list[CheckResult]]
+
+
+def buckets() -> Buckets:
+    """Result lists by status code (FAIL, WARN, PASS, NA): checks append to ``bk[code]``, so the
+    engine's output is failures first in emission order without a sorting pass at the end."""
+    return ([], [], [], [])
+
 
 def result(check: str, subject: str, code: int, value: float = math.nan, limit: float = math.nan,
            unit: str = "", message: str = "", cause: str = "") -> CheckResult:
@@ -30,8 +38,35 @@ def result(check: str, subject: str, code: int, value: float = math.nan, limit: 
     same; the object is as immutable as one made the usual way.
     """
     r = _new(CheckResult)
-    _set(r, "__dict__", {"check": check, "subject": subject, "status": _STATUS[code], "value": float(value),
-                         "limit": float(limit), "unit": unit, "message": message, "cause": cause})
+    r.__dict__.update(check=check, subject=subject, status=_STATUS[code], value=float(value), limit=float(limit),
+                      unit=unit, message=message, cause=cause)
+    return r
+
+
+def template(check: str, subject: str, code: int = PASS, unit: str = "", message: str = "", cause: str = "") -> dict:
+    """The fixed fields of a result that recurs every run with new numbers (see ``make``)."""
+    return {"check": check, "subject": subject, "status": _STATUS[code], "value": math.nan, "limit": math.nan,
+            "unit": unit, "message": message, "cause": cause}
+
+
+def make(tp: dict, value: float, limit: float) -> CheckResult:
+    """A result from a ``template`` and its two numbers (plain Python floats, e.g. from tolist)."""
+    r = _new(CheckResult)
+    d = r.__dict__
+    d.update(tp)
+    d["value"] = value
+    d["limit"] = limit
+    return r
+
+
+def make_msg(tp: dict, value: float, limit: float, message: str) -> CheckResult:
+    """``make`` for a result whose message embeds its figures."""
+    r = _new(CheckResult)
+    d = r.__dict__
+    d.update(tp)
+    d["value"] = value
+    d["limit"] = limit
+    d["message"] = message
     return r
 
 

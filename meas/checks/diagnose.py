@@ -69,9 +69,14 @@ class Signature:
     angle_deg: float  # circular mean of the corrected angles
 
 
+HEALTHY = Signature("", math.nan, math.nan, math.nan)  # signature_rows: no wiring fault (spread given apart)
+
+
 def signatures(s_ph: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg: float = 75.0,
                coherent_deg: float = 40.0) -> list[Signature | None]:
-    """Wiring signature per meter from (n, 3) complex phase powers; None where S is NaN."""
+    """Wiring signature per meter from (n, 3) complex phase powers; None where S is NaN.
+
+    The plain all-hypotheses form; the engine runs the equivalent ``signature_rows``."""
     ang = np.rad2deg(np.angle(s_ph))  # (n, 3)
     corr = ang[:, None, :] + _OFF[None, :, :]  # (n, h, 3)
     spread = circular_spread_deg(corr)  # (n, h)
@@ -101,6 +106,66 @@ def signatures(s_ph: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg
                 mean = _wrap(mean + off)
         out.append(Signature(cause, float(sp[0]), float(sp[best]), mean))
     return out
+
+
+def signature_rows(ang: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg: float, coherent_deg: float,
+                   want: np.ndarray) -> tuple[list[Signature | None], list[float]]:
+    """Signatures from (m, 3) per-phase power angles (degrees) of the rows where ``want``
+    (None elsewhere; ``HEALTHY`` for no fault seen), and every row's spread as measured (the
+    phase.pf_spread figure).
+
+    Only a row whose measured spread reaches ``trip_deg`` can name a per-phase fault, so the
+    seven hypotheses are tried on those rows alone; the others need only the uncorrected
+    spread and, on loads, the mean angle. Every figure is the same IEEE operation on the same
+    memory layout as the all-hypotheses computation, so the results are identical to it.
+    """
+    ang0 = ang + 0.0  # hypothesis "none" (_OFF row 0), as in the stacked form
+    spread0 = circular_spread_deg(ang0).tolist()
+    out: list[Signature | None] = [None] * len(ang)
+    want_l = np.asarray(want).tolist()
+    axis_l, load_l = np.asarray(axis).tolist(), np.asarray(is_load).tolist()
+    faulty = [k for k in range(len(ang)) if want_l[k] and spread0[k] >= trip_deg]
+    loads = [k for k in range(len(ang)) if want_l[k] and load_l[k] and spread0[k] <= coherent_deg]
+    mean0: dict[int, float] = {}
+    if loads:
+        sub = ang0[loads]
+        mean0 = dict(zip(loads, np.rad2deg(np.angle(np.exp(1j * np.deg2rad(sub)).sum(axis=1))).tolist(), strict=True))
+    full: dict[int, tuple[list[float], list[float]]] = {}
+    if faulty:
+        corr = ang[faulty][:, None, :] + _OFF[None, :, :]  # (f, h, 3)
+        spread = circular_spread_deg(corr).tolist()  # (f, h)
+        means = np.rad2deg(np.angle(np.exp(1j * np.deg2rad(corr)).sum(axis=2))).tolist()  # (f, h)
+        full = {k: (spread[t], means[t]) for t, k in enumerate(faulty)}
+    for k in range(len(ang)):
+        if not want_l[k]:
+            continue
+        hit = full.get(k)
+        if hit is None:  # below the trip spread: no per-phase fault, perhaps a whole-meter one on a load
+            mean = mean0.get(k)
+            if mean is None or _misfit(mean, FORWARD) <= 100.0:
+                out[k] = HEALTHY
+                continue
+            sp = [spread0[k]]
+            best, cause = 0, ""
+        else:
+            sp, mk = hit
+            best = min(range(5), key=sp.__getitem__)  # first smallest, as np.argmin; the three swaps share one spread
+            if best != 0 and sp[0] >= trip_deg and sp[best] <= coherent_deg:
+                if best == 4:
+                    best = min(_SWAPS, key=lambda h: (_misfit(mk[h], axis_l[k]), h))
+                cause = HYP_CAUSES[best]
+            else:
+                best, cause = 0, ""
+            mean = mk[best]
+            if not (load_l[k] and not cause.startswith("phases") and sp[best] <= coherent_deg and _misfit(mean, FORWARD) > 100.0):
+                out[k] = Signature(cause, float(sp[0]), float(sp[best]), mean)
+                continue
+        _, tag, off = min((_misfit(mean + off, FORWARD), tag, off) for tag, off in _ALL)
+        if tag:
+            cause = tag if not cause else f"{cause},{tag}"
+            mean = _wrap(mean + off)
+        out[k] = HEALTHY if not cause else Signature(cause, float(sp[0]), float(sp[best]), mean)
+    return out, spread0
 
 
 @dataclass(frozen=True)

@@ -25,6 +25,8 @@ from ..tolerance import (
 )
 
 KEYS: tuple[str, ...] = tuple(all_keys())
+_OK_SET = frozenset({Quality.OK})
+_FMAX = np.finfo(float).max
 COL: dict[str, int] = {k: i for i, k in enumerate(KEYS)}
 
 
@@ -43,6 +45,8 @@ PF4 = _cols("pf", "A,B,C,T")
 F = COL["f.T"]
 V_ANG = _cols("v_ang", "A,B,C")
 I_ANG = _cols("i_ang", "A,B,C")
+_PQ = slice(P4.start, Q4.stop)  # P4 then Q4, adjacent columns
+assert P4.stop == Q4.start
 
 
 def _stack(specs: list[ClassSpec]) -> ClassSpec:
@@ -194,6 +198,7 @@ class Frame:
     v_mean: np.ndarray  # (n,) mean L-N voltage (from L-L / sqrt 3 without L-N readings)
     v_mean_u: np.ndarray  # (n,) its standard uncertainty (the phases share the meter: linear mean)
     i_mean: np.ndarray  # (n,) mean phase current
+    qual_ok: list[bool] | None = None  # per meter: block present and every quality ok (from build)
 
     @classmethod
     def build(cls, lay: Layout, snap: Snapshot) -> Frame:
@@ -201,22 +206,25 @@ class Frame:
         n, k = lay.has.shape
         present = np.zeros(n, bool)
         ok = Quality.OK
+        ok_set = _OK_SET
         flat: list[float] = []
         fill = flat.extend
         blocks = snap.meters
-        for mi, (mid, getter, ok_all, keys, nans) in enumerate(lay.fill):
+        qual_ok: list[bool] = []
+        flag = qual_ok.append
+        for mi, (mid, getter, _ok_all, keys, nans) in enumerate(lay.fill):
             block = blocks.get(mid)
             if block is None:
                 fill(nans)
+                flag(False)
                 continue
             present[mi] = True
             vals, qual = block.values, block.quality
-            try:
-                good = getter(qual) == ok_all  # every mapped key ok: the common case
-            except KeyError:
-                good = False
-            if good:
+            every = ok_set.issuperset(qual.values())  # every value ok (quality.comm asks the same)
+            flag(every)
+            if every:
                 try:
+                    getter(qual)  # and every mapped key has a quality: the common case
                     fill(getter(vals))
                     continue
                 except KeyError:
@@ -224,7 +232,9 @@ class Frame:
             fill([vals.get(key, np.nan) if qual.get(key) is ok else np.nan for key in keys])
         x = np.full((n, k), np.nan)
         x[lay.fill_rows, lay.fill_cols] = flat
-        return cls.from_array(lay, x, present)
+        fr = cls.from_array(lay, x, present)
+        fr.qual_ok = qual_ok
+        return fr
 
     @classmethod
     def from_array(cls, lay: Layout, x: np.ndarray, present: np.ndarray) -> Frame:
@@ -232,30 +242,29 @@ class Frame:
         resolution_limit fused into a few whole-array operations (tests check they agree)."""
         c = lay.consts
         ax = np.abs(x)
-        i_frac3 = x[:, I_PH] / lay.i_n[:, None]
+        i_frac3 = x[:, I_PH] / c.i_n_col
         i_frac = np.concatenate([i_frac3, nanmean(i_frac3)[:, None]], axis=1)
         s4 = ax[:, S4]
         s_ref = np.where(np.isnan(s4), np.hypot(x[:, P4], x[:, Q4]), s4)
         a = c.mag_pct * np.fmax(ax, c.mag_floor) + c.const_a
-        v8 = ax[:, c.pq]
+        v8 = ax[:, _PQ]
         s8 = np.concatenate([s_ref, s_ref], axis=1)
         i8 = np.concatenate([i_frac, i_frac], axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            low = ~(np.where(s8 > 0, v8 / s8, 1.0) >= 0.5)
-            unity = np.where(i8 >= c.low_i_frac, c.main, c.low_i)
-            lowpf = np.where(i8 >= c.low_pf_i_frac, c.low_pf, c.low_pf_low_i)
+        low = ~(np.where(s8 > 0, v8 / s8, 1.0) >= 0.5)
+        unity = np.where(i8 >= c.low_i_frac, c.main, c.low_i)
+        lowpf = np.where(i8 >= c.low_pf_i_frac, c.low_pf, c.low_pf_low_i)
         pct = np.where(low, lowpf, unity)
-        base = np.fmax(np.fmax(v8, np.where(low, 0.5 * np.nan_to_num(s8), 0.0)), c.min_rated)
-        a[:, c.pq] = pct * base
+        s8_fin = np.clip(np.where(np.isnan(s8), 0.0, s8), -_FMAX, _FMAX)  # = np.nan_to_num(s8), in two calls
+        base = np.fmax(np.fmax(v8, np.where(low, 0.5 * s8_fin, 0.0)), c.min_rated)
+        a[:, _PQ] = pct * base
         res = c.res_abs + c.res_rel * ax
         u = np.sqrt(a * a + res * res) * (1.0 / math.sqrt(3.0))  # rectangular -> standard (GUM 4.3.7)
         m6 = nanmean(np.concatenate([x[:, V_LN], x[:, V_LL], u[:, V_LN], u[:, V_LL]], axis=1).reshape(-1, 3)).reshape(-1, 4)
         vmean = np.where(np.isnan(m6[:, 0]), m6[:, 1] / math.sqrt(3.0), m6[:, 0])
         vmean_u = np.where(np.isnan(m6[:, 2]), m6[:, 3] / math.sqrt(3.0), m6[:, 2])
         i_mean = i8[:, 3] * lay.i_n
-        with np.errstate(invalid="ignore"):
-            energized = vmean > 0.5 * lay.v_n
-            loaded = i8[:, 3] > 0.01
+        energized = vmean > c.v_half
+        loaded = i8[:, 3] > 0.01
         return cls(x, u, present, energized, loaded, vmean, vmean_u, i_mean)
 
 
@@ -276,6 +285,8 @@ class Consts:
     low_pf_low_i: np.ndarray
     low_pf_i_frac: np.ndarray
     min_rated: np.ndarray
+    i_n_col: np.ndarray = field(default=None)  # type: ignore[assignment]  # (n, 1) rated current
+    v_half: np.ndarray = field(default=None)  # type: ignore[assignment]  # (n,) half the nominal voltage
 
     @classmethod
     def build(cls, lay: Layout) -> Consts:
@@ -309,12 +320,11 @@ class Consts:
         min_rated = pair("min_i_frac") * np.concatenate([rated4, rated4], axis=1)
         return cls(mag_pct, mag_floor, const_a, res_abs, res_rel, pq, pair("main_pct", 0.01), pair("low_i_pct", 0.01),
                    pair("low_i_frac"), pair("low_pf_pct", 0.01), pair("low_pf_low_i_pct", 0.01), pair("low_pf_i_frac"),
-                   min_rated)
+                   min_rated, lay.i_n[:, None], 0.5 * lay.v_n)
 
 
 def nanmean(a: np.ndarray) -> np.ndarray:
     """Row mean ignoring NaN, NaN for an all-NaN row, without numpy's warning."""
     ok = ~np.isnan(a)
     c = ok.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(c > 0, np.where(ok, a, 0.0).sum(axis=1) / c, np.nan)
+    return np.where(c > 0, np.where(ok, a, 0.0).sum(axis=1) / c, np.nan)

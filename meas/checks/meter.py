@@ -4,6 +4,10 @@ These catch register-map mistakes (scale, address, word order, the S definition,
 convention) inside one meter. A meter computes its totals from the same samples as its
 phases, so the class limits of both sides, taken as independent (RSS), are a generous band:
 a map error is off by a factor, far outside it.
+
+Speed: the six checks share one pass of whole-array numpy over the P, Q, S, PF block and one
+status judgement of all of them; what depends only on the profile (which maps lack a reading,
+the texts of passing results) is prepared once in ``MeterPlan``.
 """
 
 from __future__ import annotations
@@ -12,189 +16,228 @@ import numpy as np
 
 from ..results import CheckResult
 from ..tolerance import judge_many
-from .base import FAIL, NA, PASS, WARN, fmt, judge1, na, result
+from .base import FAIL, NA, PASS, WARN, Buckets, fmt, na, result, template
 from .frame import COL, I_PH, P4, PF4, Q4, S4, V_LN, F, Frame, Layout
+
+_BLOCK = slice(P4.start, PF4.stop)  # p.A..p.T, q.A..q.T, s.A..s.T, pf.A..pf.T: contiguous columns
+assert P4.stop == Q4.start and Q4.stop == S4.start and S4.stop == PF4.start and PF4.stop - P4.start == 16
+_PF_NAMES = ("pf.A", "pf.B", "pf.C", "pf.T")
+_CHECKS = ("meter.p_sum", "meter.q_sum", "meter.s_total", "meter.pf", "meter.s_phase", "meter.frequency")
 
 
 def _worst(vals: np.ndarray, lims: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per row, the column with the largest |value|/limit (NaN ignored): (index, value, limit)."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        z = np.abs(vals) / lims
+    z = np.abs(vals) / lims
     z = np.where(np.isnan(z), -1.0, z)
     j = np.argmax(z, axis=1)
     rows = np.arange(len(vals))
     return j, vals[rows, j], lims[rows, j]
 
 
-def _sum_check(lay: Layout, fr: Frame, check: str, sl: slice, name: str, unit: str) -> list[CheckResult]:
-    x, u = fr.x[:, sl], fr.u[:, sl]
-    r = x[:, 3] - x[:, :3].sum(axis=1)
-    lim = lay.limits.apply(check, unit, lay.limits.k * np.sqrt((u * u).sum(axis=1)))
-    codes = judge_many(r, lim, lay.limits.warn).tolist()
-    need = lay.has[:, sl].all(axis=1).tolist()
-    r, lim = r.tolist(), lim.tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not need[mi]:
-            out.append(na(check, m.id, f"the register map has no {name}.A-C and {name}.T", unit))
-        elif codes[mi] == NA:
-            out.append(na(check, m.id, f"no good reading of every {name}.* in this snapshot", unit))
-        elif codes[mi] == PASS:
-            out.append(result(check, m.id, PASS, r[mi], lim[mi], unit, f"{name}.T matches the sum of phases"))
-        else:
-            msg = (f"{name}.T = {fmt(x[mi, 3], unit)} but the phases sum to {fmt(x[mi, :3].sum(), unit)} "
-                   f"(off by {fmt(r[mi], unit)}, allowed {fmt(lim[mi], unit)}): check scale, address and "
-                   f"word order of {name}.* in map {m.map_id}")
-            out.append(result(check, m.id, codes[mi], r[mi], lim[mi], unit, msg, f"register_map:{name}"))
-    return out
+class MeterPlan:
+    """Per-profile parts of the meter checks: fixed n/a results and templates of passing ones."""
 
+    def __init__(self, lay: Layout):
+        self.lay = lay
+        has = lay.has
+        ids = [m.id for m in lay.meters]
+        rated = lay.v_n * lay.i_n
+        self.small_at = 0.01 * np.c_[rated, rated, rated, 3 * rated]
+        self.rows = np.arange(len(ids))
+        self.fixed: dict[str, list] = {}  # check -> per meter a fixed n/a result (profile-only reason) or None
+        self.data_na: dict[str, list] = {}  # check -> per meter the n/a result for missing data
+        self.tp: dict[str, list[dict]] = {}  # check -> per meter the template of the passing result
 
-def _s_total(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "meter.s_total"
-    x, u = fr.x, fr.u
-    p, q, s = x[:, P4], x[:, Q4], x[:, S4]
-    up, uq, us = u[:, P4], u[:, Q4], u[:, S4]
-    vec = np.hypot(p[:, 3], q[:, 3])
-    arith = s[:, :3].sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+        def plan(check: str, need: list[bool], reason: str, data_reason: str, unit: str, msg: str) -> None:
+            self.fixed[check] = [None if ok else na(check, mid, reason, unit) for mid, ok in zip(ids, need, strict=True)]
+            self.data_na[check] = [na(check, mid, data_reason, unit) for mid in ids]
+            self.tp[check] = [template(check, mid, PASS, unit, msg) for mid in ids]
+
+        for check, sl, name, unit in (("meter.p_sum", P4, "p", "W"), ("meter.q_sum", Q4, "q", "var")):
+            plan(check, has[:, sl].all(axis=1).tolist(), f"the register map has no {name}.A-C and {name}.T",
+                 f"no good reading of every {name}.* in this snapshot", unit, f"{name}.T matches the sum of phases")
+        need_s = np.where(lay.vector_s, has[:, [COL["p.T"], COL["q.T"], COL["s.T"]]].all(axis=1),
+                          has[:, S4].all(axis=1)).tolist()
+        plan("meter.s_total", need_s, "the register map lacks the readings for S total",
+             "no good reading of S total or its parts in this snapshot", "VA", "")
+        self.definition = ["vector (IEEE 1459: |sum of complex phase S|)" if v else "arithmetic (IEEE 1459: sum of phase S)"
+                           for v in lay.vector_s.tolist()]
+        self.tp["meter.s_total"] = [template("meter.s_total", mid, PASS, "VA", f"s.T agrees with the {d} definition")
+                                    for mid, d in zip(ids, self.definition, strict=True)]
+        plan("meter.pf", has[:, PF4].any(axis=1).tolist(), "the register map has no power factor",
+             "too little load (or no good reading) to judge the power factor", "1",
+             "power factor matches P/S with the sign of P (IEC)")
+        need_sp = (has[:, V_LN].all(axis=1) & has[:, I_PH].all(axis=1) & has[:, S4][:, :3].all(axis=1)).tolist()
+        plan("meter.s_phase", need_sp, "the register map lacks v_ln, i or s per phase",
+             "no good V, I and S of every phase in this snapshot", "VA", "S of every phase matches V x I")
+        plan("meter.frequency", has[:, F].tolist(), "the register map has no frequency",
+             "no good frequency reading in this snapshot", "Hz", "frequency within the nominal band")
+        self.dead_f = [na("meter.frequency", mid, "no voltage at the meter", "Hz") for mid in ids]
+        self.var = {c: [mi for mi, f in enumerate(fx) if f is None] for c, fx in self.fixed.items()}  # judged each run
+        self.fixed_only = {c: [f for f in fx if f is not None] for c, fx in self.fixed.items()}
+        assert tuple(self.fixed) == _CHECKS  # rows of the judgement below
+        self.fixed_mask = np.array([[f is not None for f in fx] for fx in self.fixed.values()], bool)  # (6, n)
+
+    def run(self, fr: Frame, bk: Buckets) -> None:
+        lay = self.lay
+        lim_ = lay.limits
+        k, warn, apply = lim_.k, lim_.warn, lim_.apply
+        n = len(lay.meters)
+        x, u = fr.x, fr.u
+        xb = x[:, _BLOCK].reshape(n, 4, 4)  # (meter, p/q/s/pf, A/B/C/T)
+        ub = u[:, _BLOCK].reshape(n, 4, 4)
+        tot3 = xb[:, :, :3].sum(axis=2)  # the phase sums of P, Q, S (and PF, unused)
+        uu = (ub * ub).sum(axis=2)  # sums of squared uncertainties of each 4-column group
+        p, q, s, pf = xb[:, 0], xb[:, 1], xb[:, 2], xb[:, 3]
+        up, uq, us, upf = ub[:, 0], ub[:, 1], ub[:, 2], ub[:, 3]
+
+        # meter.p_sum, meter.q_sum
+        r_pq = xb[:, :2, 3] - tot3[:, :2]
+        lim_pq = k * np.sqrt(uu[:, :2])
+        lim_p = apply("meter.p_sum", "W", lim_pq[:, 0])
+        lim_q = apply("meter.q_sum", "var", lim_pq[:, 1])
+
+        # meter.s_total (the IEEE 1459 definition the map states)
+        check = "meter.s_total"
+        vec = np.hypot(p[:, 3], q[:, 3])
+        arith = tot3[:, 2]
         cp = np.where(vec > 0, p[:, 3] / vec, 0.0)
         cq = np.where(vec > 0, q[:, 3] / vec, 0.0)
-    u_vec = np.sqrt((cp * up[:, 3]) ** 2 + (cq * uq[:, 3]) ** 2 + us[:, 3] ** 2)
-    u_ar = np.sqrt((us * us).sum(axis=1))
-    expect = np.where(lay.vector_s, vec, arith)
-    other = np.where(lay.vector_s, arith, vec)
-    r = s[:, 3] - expect
-    lim = lay.limits.apply(check, "VA", lay.limits.k * np.where(lay.vector_s, u_vec, u_ar))
-    dist = lay.limits.param(check, "distortion_pct", 3.0) / 100.0
-    # one-sided: harmonics make S exceed the fundamental-based value (REFERENCES.md 4)
-    r_eff = np.where(r > 0, np.fmax(r - dist * np.abs(expect), 0.0), r)
-    codes = judge_many(r_eff, lim, lay.limits.warn).tolist()
-    need_keys = np.where(lay.vector_s, lay.has[:, [COL["p.T"], COL["q.T"], COL["s.T"]]].all(axis=1),
-                         lay.has[:, S4].all(axis=1)).tolist()
-    r, lim = r.tolist(), lim.tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        definition = "vector (IEEE 1459: |sum of complex phase S|)" if lay.vector_s[mi] else "arithmetic (IEEE 1459: sum of phase S)"
-        if not need_keys[mi]:
-            out.append(na(check, m.id, "the register map lacks the readings for S total", "VA"))
-        elif codes[mi] == NA:
-            out.append(na(check, m.id, "no good reading of S total or its parts in this snapshot", "VA"))
-        elif codes[mi] == PASS:
-            out.append(result(check, m.id, PASS, r[mi], lim[mi], "VA", f"s.T agrees with the {definition} definition"))
-        else:
-            if abs(float(s[mi, 3] - other[mi])) <= lim[mi]:
-                msg = (f"s.T = {fmt(s[mi, 3], 'VA')} fits the other IEEE 1459 definition, not the {definition} one "
+        u_vec = np.sqrt((cp * up[:, 3]) ** 2 + (cq * uq[:, 3]) ** 2 + us[:, 3] ** 2)
+        u_ar = np.sqrt(uu[:, 2])
+        expect = np.where(lay.vector_s, vec, arith)
+        r_s = s[:, 3] - expect
+        lim_s = apply(check, "VA", k * np.where(lay.vector_s, u_vec, u_ar))
+        dist = lim_.param(check, "distortion_pct", 3.0) / 100.0
+        # one-sided: harmonics make S exceed the fundamental-based value (REFERENCES.md 4)
+        r_eff = np.where(r_s > 0, np.fmax(r_s - dist * np.abs(expect), 0.0), r_s)
+
+        # meter.pf
+        check = "meter.pf"
+        s_pf = np.where(np.isnan(s), np.hypot(p, q), s)
+        small = ~(s_pf >= self.small_at)
+        calc = p / s_pf
+        u_calc = np.sqrt((up / s_pf) ** 2 + (p * us / s_pf**2) ** 2)
+        r_pf = pf - calc
+        lim_pf = apply(check, "1", k * np.sqrt(u_calc**2 + upf**2))
+        r_pf = np.where(small, np.nan, r_pf)
+        j_pf, rv_pf, lv_pf = _worst(r_pf, lim_pf)
+
+        # meter.s_phase
+        check = "meter.s_phase"
+        v, i, s3 = x[:, V_LN], x[:, I_PH], s[:, :3]
+        r_sp = s3 - v * i
+        lim_sp = apply(check, "VA", k * np.sqrt(us[:, :3] ** 2 + (i * u[:, V_LN]) ** 2 + (v * u[:, I_PH]) ** 2))
+        j_sp, rv_sp, lv_sp = _worst(r_sp, lim_sp)
+
+        # meter.frequency
+        f = x[:, F]
+        band = float(apply("meter.frequency", "Hz", lim_.s.frequency_band_hz))
+        d_f = f - lay.f_nom
+
+        # one judgement of every check (tolerance.judge semantics: NaN -> n/a)
+        vals = np.array([r_pq[:, 0], r_pq[:, 1], r_eff, rv_pf, rv_sp, d_f])
+        lims = np.array([lim_p, lim_q, lim_s, lv_pf, lv_sp, np.full(n, band)])
+        codes_a = judge_many(vals, lims, warn)
+        codes = codes_a.tolist()
+        good = codes_a == PASS
+        good[5] &= fr.energized  # meter.frequency is n/a without voltage
+        all_good = (good | self.fixed_mask).all(axis=1).tolist()  # per check: every judged meter passes
+        shown = [r_pq[:, 0].tolist(), r_pq[:, 1].tolist(), r_s.tolist(), rv_pf.tolist(), rv_sp.tolist(), d_f.tolist()]
+        lims_l = lims.tolist()
+        live = fr.energized.tolist()
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
+
+        for row, check in enumerate(_CHECKS):
+            cd, vl, ll = codes[row], shown[row], lims_l[row]
+            fixed, data_na, tp = self.fixed[check], self.data_na[check], self.tp[check]
+            is_f = row == 5
+            var = self.var[check]
+            if all_good[row]:
+                # the common case: every meter that can be judged passes; the rest are fixed n/a
+                bk[NA].extend(self.fixed_only[check])
+                for mi in var:
+                    r = new(CheckResult)  # base.make, inlined: the meter checks make a third of all results
+                    d = r.__dict__
+                    d.update(tp[mi])
+                    d["value"] = vl[mi]
+                    d["limit"] = ll[mi]
+                    pass_(r)
+                continue
+            for mi in range(n):
+                fx = fixed[mi]
+                c = cd[mi]
+                if fx is not None:
+                    na_(fx)
+                elif is_f and not live[mi]:
+                    na_(self.dead_f[mi])
+                elif c == PASS:
+                    r = new(CheckResult)  # base.make, inlined: the meter checks make a third of all results
+                    d = r.__dict__
+                    d.update(tp[mi])
+                    d["value"] = vl[mi]
+                    d["limit"] = ll[mi]
+                    pass_(r)
+                elif c == NA:
+                    na_(data_na[mi])
+                else:
+                    bk[c].append(self._fault(row, mi, c, vl[mi], ll[mi], locals()))
+
+    def _fault(self, row: int, mi: int, code: int, val: float, lim: float, a: dict):
+        """A warning or failure with its diagnosis (rare: built with plain, unhurried code)."""
+        lay = self.lay
+        m = lay.meters[mi]
+        if row < 2:
+            check, name, unit = (("meter.p_sum", "p", "W"), ("meter.q_sum", "q", "var"))[row]
+            xs = a["xb"][mi, row]
+            msg = (f"{name}.T = {fmt(xs[3], unit)} but the phases sum to {fmt(xs[:3].sum(), unit)} "
+                   f"(off by {fmt(val, unit)}, allowed {fmt(lim, unit)}): check scale, address and "
+                   f"word order of {name}.* in map {m.map_id}")
+            return result(check, m.id, code, val, lim, unit, msg, f"register_map:{name}")
+        if row == 2:
+            definition = self.definition[mi]
+            s_t = a["s"][mi, 3]
+            other = a["arith"][mi] if lay.vector_s[mi] else a["vec"][mi]
+            if abs(float(s_t - other)) <= lim:
+                msg = (f"s.T = {fmt(s_t, 'VA')} fits the other IEEE 1459 definition, not the {definition} one "
                        f"the profile states: set apparent_power in map {m.map_id}")
                 cause = "s_definition"
             else:
-                msg = (f"s.T = {fmt(s[mi, 3], 'VA')} but the {definition} value is {fmt(expect[mi], 'VA')} "
-                       f"(allowed {fmt(lim[mi], 'VA')}): check scale and address of s.* in map {m.map_id}")
+                msg = (f"s.T = {fmt(s_t, 'VA')} but the {definition} value is {fmt(a['expect'][mi], 'VA')} "
+                       f"(allowed {fmt(lim, 'VA')}): check scale and address of s.* in map {m.map_id}")
                 cause = "register_map:s"
-            out.append(result(check, m.id, codes[mi], r[mi], lim[mi], "VA", msg, cause))
-    return out
-
-
-def _pf(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "meter.pf"
-    x, u = fr.x, fr.u
-    p, s, pf = x[:, P4], x[:, S4], x[:, PF4]
-    q = x[:, Q4]
-    s = np.where(np.isnan(s), np.hypot(p, q), s)
-    rated = lay.v_n * lay.i_n
-    small = ~(s >= 0.01 * np.c_[rated, rated, rated, 3 * rated])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        calc = p / s
-        u_calc = np.sqrt((u[:, P4] / s) ** 2 + (p * u[:, S4] / s**2) ** 2)
-    r = pf - calc
-    lim = lay.limits.apply(check, "1", lay.limits.k * np.sqrt(u_calc**2 + u[:, PF4] ** 2))
-    r = np.where(small, np.nan, r)
-    j, rv, lv = _worst(r, lim)
-    j, rv, lv = j.tolist(), rv.tolist(), lv.tolist()
-    names = ("pf.A", "pf.B", "pf.C", "pf.T")
-    has = lay.has[:, PF4].any(axis=1).tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        code = judge1(rv[mi], lv[mi], lay.limits.warn)
-        if not has[mi]:
-            out.append(na(check, m.id, "the register map has no power factor", "1"))
-        elif code == NA:
-            out.append(na(check, m.id, "too little load (or no good reading) to judge the power factor", "1"))
-        elif code == PASS:
-            out.append(result(check, m.id, PASS, rv[mi], lv[mi], "1", "power factor matches P/S with the sign of P (IEC)"))
-        else:
-            k = j[mi]
-            if abs(pf[mi, k] + calc[mi, k]) <= lv[mi]:
-                msg = (f"{names[k]} = {pf[mi, k]:.3f} is -(P/S) = {-calc[mi, k]:.3f}: the meter uses a lead/lag sign "
+            return result("meter.s_total", m.id, code, val, lim, "VA", msg, cause)
+        if row == 3:
+            kk = int(a["j_pf"][mi])
+            pf, calc = a["pf"], a["calc"]
+            if abs(pf[mi, kk] + calc[mi, kk]) <= lim:
+                msg = (f"{_PF_NAMES[kk]} = {pf[mi, kk]:.3f} is -(P/S) = {-calc[mi, kk]:.3f}: the meter uses a lead/lag sign "
                        "convention, not the IEC sign of P; set the meter or the map accordingly")
                 cause = "pf_sign_convention"
             else:
-                msg = (f"{names[k]} = {pf[mi, k]:.3f} but P/S = {calc[mi, k]:.3f} (allowed +-{lv[mi]:.3f}): check scale "
+                msg = (f"{_PF_NAMES[kk]} = {pf[mi, kk]:.3f} but P/S = {calc[mi, kk]:.3f} (allowed +-{lim:.3f}): check scale "
                        f"and address of pf.* in map {m.map_id}")
                 cause = "register_map:pf"
-            out.append(result(check, m.id, code, rv[mi], lv[mi], "1", msg, cause))
-    return out
-
-
-def _s_phase(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "meter.s_phase"
-    x, u = fr.x, fr.u
-    v, i, s = x[:, V_LN], x[:, I_PH], x[:, S4][:, :3]
-    r = s - v * i
-    uu = np.sqrt(u[:, S4][:, :3] ** 2 + (i * u[:, V_LN]) ** 2 + (v * u[:, I_PH]) ** 2)
-    lim = lay.limits.apply(check, "VA", lay.limits.k * uu)
-    j, rv, lv = _worst(r, lim)
-    j, rv, lv = j.tolist(), rv.tolist(), lv.tolist()
-    need = (lay.has[:, V_LN].all(axis=1) & lay.has[:, I_PH].all(axis=1) & lay.has[:, S4][:, :3].all(axis=1)).tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        code = judge1(rv[mi], lv[mi], lay.limits.warn)
-        ph = "ABC"[j[mi]]
-        if not need[mi]:
-            out.append(na(check, m.id, "the register map lacks v_ln, i or s per phase", "VA"))
-        elif code == NA:
-            out.append(na(check, m.id, "no good V, I and S of every phase in this snapshot", "VA"))
-        elif code == PASS:
-            out.append(result(check, m.id, PASS, rv[mi], lv[mi], "VA", "S of every phase matches V x I"))
-        else:
-            msg = (f"s.{ph} = {fmt(s[mi, j[mi]], 'VA')} but v_ln.{ph} x i.{ph} = {fmt(v[mi, j[mi]] * i[mi, j[mi]], 'VA')}: "
+            return result("meter.pf", m.id, code, val, lim, "1", msg, cause)
+        if row == 4:
+            jj = int(a["j_sp"][mi])
+            ph = "ABC"[jj]
+            v, i, s3 = a["v"], a["i"], a["s3"]
+            msg = (f"s.{ph} = {fmt(s3[mi, jj], 'VA')} but v_ln.{ph} x i.{ph} = {fmt(v[mi, jj] * i[mi, jj], 'VA')}: "
                    f"check the scale of s, v_ln and i in map {m.map_id} and the CT/VT ratios of {m.id}")
-            out.append(result(check, m.id, code, rv[mi], lv[mi], "VA", msg, "register_map:s_phase"))
-    return out
+            return result("meter.s_phase", m.id, code, val, lim, "VA", msg, "register_map:s_phase")
+        f = a["f"][mi]
+        msg = (f"f = {f:.3f} Hz is {val:+.3f} Hz from the nominal {lay.f_nom:g} Hz (band +-{lim:g} Hz): "
+               "check the supply, or the scale of f.T in map " + m.map_id)
+        return result("meter.frequency", m.id, code, val, lim, "Hz", msg, "frequency")
 
 
-def _frequency(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "meter.frequency"
-    f = fr.x[:, F].tolist()
-    has, live = lay.has[:, F].tolist(), fr.energized.tolist()
-    band = float(lay.limits.apply(check, "Hz", lay.limits.s.frequency_band_hz))
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not has[mi]:
-            out.append(na(check, m.id, "the register map has no frequency", "Hz"))
-        elif not live[mi]:
-            out.append(na(check, m.id, "no voltage at the meter", "Hz"))
-        elif f[mi] != f[mi]:
-            out.append(na(check, m.id, "no good frequency reading in this snapshot", "Hz"))
-        else:
-            d = f[mi] - lay.f_nom
-            code = judge1(d, band, lay.limits.warn)
-            if code == PASS:
-                out.append(result(check, m.id, PASS, d, band, "Hz", "frequency within the nominal band"))
-            else:
-                msg = (f"f = {f[mi]:.3f} Hz is {d:+.3f} Hz from the nominal {lay.f_nom:g} Hz (band +-{band:g} Hz): "
-                       "check the supply, or the scale of f.T in map " + m.map_id)
-                out.append(result(check, m.id, code, d, band, "Hz", msg, "frequency"))
-    return out
+def meter_checks(lay: Layout, fr: Frame) -> list:
+    """The meter checks alone, in emission order (a plan per call: keep a MeterPlan for speed)."""
+    bk: Buckets = ([], [], [], [])
+    MeterPlan(lay).run(fr, bk)
+    return bk[0] + bk[1] + bk[2] + bk[3]
 
 
-def meter_checks(lay: Layout, fr: Frame) -> list[CheckResult]:
-    out = _sum_check(lay, fr, "meter.p_sum", P4, "p", "W")
-    out += _sum_check(lay, fr, "meter.q_sum", Q4, "q", "var")
-    out += _s_total(lay, fr)
-    out += _pf(lay, fr)
-    out += _s_phase(lay, fr)
-    out += _frequency(lay, fr)
-    return out
-
-
-__all__ = ["meter_checks", "FAIL", "WARN"]
+__all__ = ["MeterPlan", "meter_checks", "FAIL", "WARN"]

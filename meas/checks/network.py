@@ -13,7 +13,7 @@ import math
 import numpy as np
 
 from ..results import CheckResult
-from .base import FAIL, NA, PASS, WARN, fmt, judge1, na, result
+from .base import FAIL, NA, PASS, WARN, Buckets, fmt, judge1, make, na, result, template
 from .diagnose import Equation, suspects
 from .frame import I_PH, P4, Q4, F, Frame, Layout
 from .topology import Topology, TopoState
@@ -27,14 +27,6 @@ def _median(x: list[float]) -> float:
     x = sorted(x)
     i = n // 2
     return x[i] if n % 2 else (x[i - 1] + x[i]) / 2
-
-
-def _vmean(fr: Frame) -> np.ndarray:
-    return fr.v_mean
-
-
-def _v_u(fr: Frame) -> np.ndarray:
-    return fr.v_mean_u
 
 
 class NetworkChecks:
@@ -54,14 +46,36 @@ class NetworkChecks:
         self.on_bus: dict[str, list[int]] = {b.id: [i for i, m in enumerate(p.meters) if m.bus == b.id] for b in p.buses}
         self.ids = [m.id for m in p.meters]
         self._plans: dict[int, tuple[TopoState, list[tuple]]] = {}
+        self.vn = lay.v_n.tolist()
+        self.loss_frac = lay.limits.param("network.losses", "max_fraction", 0.05)
+        self.loss_fixed = []
+        for br, a, b in self.two_end:
+            ids = f"{self.ids[a]} and {self.ids[b]}"
+            self.loss_fixed.append((na("network.losses", br, "branch is switched out (or its switch state is unknown)", "W"),
+                                    na("network.losses", br, "no good P total at both ends", "W"),
+                                    template("network.losses", br, PASS, "W", f"losses of {br} plausible ({ids})"), ids))
+        self.va_fixed = [(na("network.v_agree", bus, "fewer than two meters with a good voltage on this bus", "V"),
+                          na("network.v_agree", bus, "bus is not energized", "V"),
+                          template("network.v_agree", bus, PASS, "V",
+                                   f"voltages of {', '.join(self.ids[mi] for mi in mem)} agree"))
+                         for bus, mem in self.on_bus.items()]
+        self.en_fixed = [(na("network.energization", bus, "no meter with a good voltage on this bus", "V"),
+                          na("network.energization", bus, "depends on switches of unknown state", "V"),
+                          template("network.energization", bus, PASS, "V", f"{bus} is live as the switches say"),
+                          template("network.energization", bus, PASS, "V", f"{bus} is dead as the switches say"))
+                         for bus in self.on_bus]
+        self.va_peers = [[(mi, [p for p in mem if p != mi]) for mi in mem] for mem in self.on_bus.values()]
+        self.plain = not lay.profile.checks.overrides  # no limit overrides: Limits.apply returns its input
+        self.f_tp = template("network.f_agree", "bench", PASS, "Hz", "frequencies agree across the bench")
 
     # ------------------------------------------------------------------ balances
     def _balance_plan(self, st: TopoState) -> list[tuple]:
-        """Per bus, what the switch state alone decides: a fixed n/a, or the members and texts."""
+        """Per bus, what the switch state alone decides: fixed n/a results, or the members and
+        the templates of the passing results (cached per switch state)."""
         hit = self._plans.get(id(st))
         if hit is not None and hit[0] is st:
             return hit[1]
-        ids_all = [m.id for m in self.lay.meters]
+        ids_all = self.ids
         plan = []
         for bus, bs in st.buses.items():
             reason = ""
@@ -77,48 +91,56 @@ class NetworkChecks:
                 if not mem:
                     reason = "no current flows at this bus"
             ids = ", ".join(ids_all[mi] for mi in mem)
-            plan.append((bus, reason, mem, ids, tuple(mem), len(mem) >= 2))
+            if reason:
+                fixed = (na("network.p_balance", bus, reason, "W"), na("network.q_balance", bus, reason, "var"))
+                tps = (None, None)
+            else:
+                fixed = (None, None)
+                tps = (template("network.p_balance", bus, PASS, "W", f"P balances at {bus} ({ids})"),
+                       template("network.q_balance", bus, PASS, "var", f"Q balances at {bus} ({ids})"))
+            plan.append((bus, fixed, tps, mem, ids, tuple(mem), len(mem) >= 2))
         if len(self._plans) > 256:
             self._plans.clear()
         self._plans[id(st)] = (st, plan)
         return plan
 
-    def _balance(self, fr: Frame, st: TopoState, out: list[CheckResult], eqs: list[tuple[str, tuple[int, ...]]],
+    def _balance(self, cols: dict, st: TopoState, bk: Buckets, eqs: list[tuple[str, tuple[int, ...]]],
                  failed: set[str]) -> None:
         lay = self.lay
         ids_all = self.ids
         k, warn = lay.limits.k, lay.limits.warn
-        apply = lay.limits.apply
+        apply, plain = lay.limits.apply, self.plain
         plan = self._balance_plan(st)
-        for check, col, name, unit in (("network.p_balance", P4.stop - 1, "P", "W"), ("network.q_balance", Q4.stop - 1, "Q", "var")):
-            xs, us = fr.x[:, col].tolist(), fr.u[:, col].tolist()
-            is_p = check == "network.p_balance"
-            for bus, reason, mem, ids, mem_t, multi in plan:
-                if reason:
-                    out.append(na(check, bus, reason, unit))
+        for which, check, name, unit in ((0, "network.p_balance", "P", "W"), (1, "network.q_balance", "Q", "var")):
+            xs, us = (cols["p"], cols["up"]) if which == 0 else (cols["q"], cols["uq"])
+            for bus, fixed, tps, mem, ids, mem_t, multi in plan:
+                fx = fixed[which]
+                if fx is not None:
+                    bk[NA].append(fx)
                     continue
                 vals = [xs[mi] for mi in mem]
                 if any(v != v for v in vals):
                     bad = [ids_all[mi] for mi, v in zip(mem, vals, strict=True) if v != v]
-                    out.append(na(check, bus, f"no good {name} total from {', '.join(bad)}", unit))
+                    bk[NA].append(na(check, bus, f"no good {name} total from {', '.join(bad)}", unit))
                     continue
                 r = sum(vals)
                 acc = 0
                 for mi in mem:
                     acc += us[mi] ** 2
                 u = math.sqrt(acc)  # meters independent: RSS (GUM 5.1.2)
-                lim = float(apply(check, unit, k * u))
-                code = judge1(r, lim, warn)
+                lim = k * u if plain else float(apply(check, unit, k * u))
+                ar = abs(r)  # base.judge1, inlined (r is not NaN here; an override may make lim NaN)
+                code = NA if lim != lim else FAIL if ar > lim else WARN if ar > warn * lim else PASS
                 if code == PASS:
-                    out.append(result(check, bus, PASS, r, lim, unit, f"{name} balances at {bus} ({ids})"))
+                    bk[PASS].append(make(tps[which], float(r), lim))
                 else:
                     if code == FAIL:
                         failed.add(bus)
                     msg = (f"{name} does not balance at {bus}: readings of {ids} sum to {fmt(r, unit)} (allowed "
                            f"{fmt(lim, unit)}): a CT/VT ratio, CT polarity or sign convention error, or an unmetered "
                            "branch; see network.bad_data")
-                    out.append(result(check, bus, code, r, lim, unit, msg, "imbalance"))
-                if is_p and multi:
+                    bk[code].append(result(check, bus, code, r, lim, unit, msg, "imbalance"))
+                if which == 0 and multi:
                     eqs.append((bus, mem_t))
 
     def _equations(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]]) -> list[Equation]:
@@ -135,69 +157,75 @@ class NetworkChecks:
             out.append(Equation(name, mem, np.fmax(sp, 1e-9), np.fmax(sq, 1e-9)))
         return out
 
-    def _losses(self, fr: Frame, st: TopoState, out: list[CheckResult], eqs: list[tuple[str, tuple[int, ...]]],
+    def _losses(self, cols: dict, st: TopoState, bk: Buckets, eqs: list[tuple[str, tuple[int, ...]]],
                 failed: set[str]) -> None:
         lay = self.lay
         check = "network.losses"
-        max_frac = lay.limits.param(check, "max_fraction", 0.05)
-        for br, a, b in self.two_end:
+        max_frac = self.loss_frac
+        k, warn, apply = lay.limits.k, lay.limits.warn, lay.limits.apply
+        xs, us = cols["p"], cols["up"]
+        for (br, a, b), (na_off, na_data, tp, ids) in zip(self.two_end, self.loss_fixed, strict=True):
             if st.branch_on.get(br) is not True:
-                out.append(na(check, br, "branch is switched out (or its switch state is unknown)", "W"))
+                bk[NA].append(na_off)
                 continue
-            pa, pb = fr.x[a, P4.stop - 1], fr.x[b, P4.stop - 1]
-            if np.isnan(pa) or np.isnan(pb):
-                out.append(na(check, br, "no good P total at both ends", "W"))
+            pa, pb = xs[a], xs[b]
+            if pa != pa or pb != pb:
+                bk[NA].append(na_data)
                 continue
-            loss = float(pa + pb)
+            loss = pa + pb
             through = max(abs(pa), abs(pb))
-            u = math.hypot(fr.u[a, P4.stop - 1], fr.u[b, P4.stop - 1])
-            lim = float(lay.limits.apply(check, "W", lay.limits.k * u))
+            u = math.hypot(us[a], us[b])
+            lim = float(apply(check, "W", k * u))
             hi = max_frac * through + lim
-            ids = f"{lay.meters[a].id} and {lay.meters[b].id}"
             if loss < -lim:
-                code = judge1(loss, lim, lay.limits.warn)
+                code = judge1(loss, lim, warn)
                 msg = (f"losses of {br} are negative ({fmt(loss, 'W')}, allowed -{fmt(lim, 'W')}) from {ids}: "
                        "one end reads too high or has the wrong sign; see network.bad_data")
                 failed.add(br)
-                out.append(result(check, br, code, loss, lim, "W", msg, "negative_losses"))
+                bk[code].append(result(check, br, code, loss, lim, "W", msg, "negative_losses"))
             elif loss > hi:
                 msg = (f"losses of {br} are {fmt(loss, 'W')}, more than {max_frac:.0%} of the {fmt(through, 'W')} it carries, "
                        f"from {ids}: a CT/VT ratio or polarity error at one end; see network.bad_data")
                 failed.add(br)
-                out.append(result(check, br, FAIL, loss, hi, "W", msg, "excess_losses"))
+                bk[FAIL].append(result(check, br, FAIL, loss, hi, "W", msg, "excess_losses"))
+            elif loss > -warn * lim:
+                bk[PASS].append(make(tp, loss, lim))
             else:
-                out.append(result(check, br, PASS if loss > -lay.limits.warn * lim else WARN, loss, lim, "W",
-                                  f"losses of {br} plausible ({ids})"))
+                bk[WARN].append(result(check, br, WARN, loss, lim, "W", f"losses of {br} plausible ({ids})"))
             eqs.append((br, (a, b)))
 
     # ------------------------------------------------------------------ voltages
-    def _v_agree(self, fr: Frame, st: TopoState, out: list[CheckResult]) -> dict[int, float]:
+    def _v_agree(self, cols: dict, st: TopoState, bk: Buckets) -> dict[int, float]:
         """Per-bus agreement; returns meter -> voltage ratio to its peers for an outlier."""
         lay = self.lay
         check = "network.v_agree"
-        v, u = _vmean(fr).tolist(), _v_u(fr).tolist()
-        live, vn = fr.energized.tolist(), lay.v_n.tolist()
+        v, u = cols["v"], cols["vu"]
+        live, vn = cols["live"], self.vn
         k_cov = lay.limits.k
-        apply = lay.limits.apply
+        apply = None if self.plain else lay.limits.apply
         ratios: dict[int, float] = {}
-        for bus, mem in self.on_bus.items():
-            mem = [mi for mi in mem if v[mi] == v[mi]]
+        for bus, mem0, (na_few, na_dead, tp), peers0 in zip(self.on_bus, self.on_bus.values(), self.va_fixed,
+                                                            self.va_peers, strict=True):
+            mem = [mi for mi in mem0 if v[mi] == v[mi]]
             if len(mem) < 2:
-                out.append(na(check, bus, "fewer than two meters with a good voltage on this bus", "V"))
+                bk[NA].append(na_few)
                 continue
             if st.buses[bus].live is False or not any(live[mi] for mi in mem):
-                out.append(na(check, bus, "bus is not energized", "V"))
+                bk[NA].append(na_dead)
                 continue
+            whole = len(mem) == len(mem0)
+            plist = peers0 if whole else [(mi, [p for p in mem if p != mi]) for mi in mem]
             worst, wz, wd, wl = -1, -1.0, 0.0, 0.0
             two = len(mem) == 2
-            for mi in mem:
-                peers = [p for p in mem if p != mi]
+            for mi, peers in plist:
                 ref = _median([v[p] for p in peers])
                 d = v[mi] - ref
                 acc = 0
                 for p in peers:
                     acc += u[p] ** 2
-                lim = apply(check, "V", k_cov * math.sqrt(u[mi] ** 2 + acc / len(peers)))
+                lim = k_cov * math.sqrt(u[mi] ** 2 + acc / len(peers))
+                if apply is not None:
+                    lim = apply(check, "V", lim)
                 z = abs(d) / lim
                 if two:  # two meters: the one farther from the zone nominal is the suspect
                     z += abs(v[mi] / vn[mi] - 1.0) * 1e-3
@@ -205,9 +233,12 @@ class NetworkChecks:
                     worst, wz, wd, wl = mi, z, d, lim
             wl = float(wl)
             code = judge1(wd, wl, lay.limits.warn)
+            if code == PASS and whole:
+                bk[PASS].append(make(tp, float(wd), wl))
+                continue
             ids = ", ".join(lay.meters[mi].id for mi in mem)
             if code == PASS:
-                out.append(result(check, bus, PASS, wd, wl, "V", f"voltages of {ids} agree"))
+                bk[PASS].append(result(check, bus, PASS, wd, wl, "V", f"voltages of {ids} agree"))
                 continue
             k = v[worst] / _median([v[p] for p in mem if p != worst])
             mid = lay.meters[worst].id
@@ -218,32 +249,33 @@ class NetworkChecks:
                    f"(off by {fmt(wd, 'V')}, allowed {fmt(wl, 'V')}): check the VT ratio and voltage wiring of {mid}")
             if len(mem) == 2:
                 msg += " (only two meters here: the one farther from nominal is named)"
-            out.append(result(check, bus, code, wd, wl, "V", msg, cause))
+            bk[code].append(result(check, bus, code, wd, wl, "V", msg, cause))
         return ratios
 
-    def _f_agree(self, fr: Frame, out: list[CheckResult]) -> None:
+    def _f_agree(self, cols: dict, bk: Buckets) -> None:
         lay = self.lay
         check = "network.f_agree"
-        sel = [mi for mi in range(len(lay.meters)) if fr.energized[mi] and not np.isnan(fr.x[mi, F])]
+        live, fa = cols["live"], cols["f"]
+        sel = [mi for mi in range(len(fa)) if live[mi] and fa[mi] == fa[mi]]
         if len(sel) < 2:
-            out.append(na(check, "bench", "fewer than two energized meters report frequency", "Hz"))
+            bk[NA].append(na(check, "bench", "fewer than two energized meters report frequency", "Hz"))
             return
-        f = fr.x[sel, F]
-        med = float(np.median(f))
-        d = f - med
-        j = int(np.argmax(np.abs(d)))
-        lim = float(lay.limits.apply(check, "Hz", lay.limits.k * math.sqrt(2.0) * float(fr.u[sel[j], F])))
-        code = judge1(float(d[j]), lim, lay.limits.warn)
+        f = [fa[mi] for mi in sel]
+        med = _median(f)  # = np.median: the middle value, or the mean of the two middle ones
+        d = [fi - med for fi in f]
+        j = max(range(len(d)), key=lambda t: abs(d[t]))  # the first largest, as np.argmax
+        lim = float(lay.limits.apply(check, "Hz", lay.limits.k * math.sqrt(2.0) * cols["uf"][sel[j]]))
+        code = judge1(d[j], lim, lay.limits.warn)
         mid = lay.meters[sel[j]].id
         if code == PASS:
-            out.append(result(check, "bench", PASS, d[j], lim, "Hz", "frequencies agree across the bench"))
+            bk[PASS].append(make(self.f_tp, d[j], lim))
         else:
             msg = (f"{mid} reads {f[j]:.3f} Hz, {d[j]:+.3f} Hz from the other meters (allowed {lim:.3f} Hz): "
                    f"check the scale of f.T in map {lay.meters[sel[j]].map_id} or whether {mid} is on another supply")
-            out.append(result(check, "bench", code, d[j], lim, "Hz", msg, f"frequency:{mid}"))
+            bk[code].append(result(check, "bench", code, d[j], lim, "Hz", msg, f"frequency:{mid}"))
 
     # ------------------------------------------------------------------ switching
-    def _switches(self, fr: Frame, switches: dict[str, str], st: TopoState, out: list[CheckResult]) -> None:
+    def _switches(self, fr: Frame, switches: dict[str, str], st: TopoState, bk: Buckets) -> None:
         lay = self.lay
         check = "network.open_switch"
         frac = lay.limits.param(check, "max_fraction", 0.01)
@@ -251,72 +283,72 @@ class NetworkChecks:
             mem = self.sw_members[sw.id]
             state = switches.get(sw.id, "unknown")
             if state != "open":
-                out.append(na(check, sw.id, f"switch is {state}", "A"))
+                bk[NA].append(na(check, sw.id, f"switch is {state}", "A"))
                 continue
             if not mem:
-                out.append(na(check, sw.id, f"no meter on branch {sw.branch}", "A"))
+                bk[NA].append(na(check, sw.id, f"no meter on branch {sw.branch}", "A"))
                 continue
             i = fr.x[mem][:, I_PH]
             if np.isnan(i).all():
-                out.append(na(check, sw.id, "no good current reading on the branch", "A"))
+                bk[NA].append(na(check, sw.id, "no good current reading on the branch", "A"))
                 continue
             lim_each = lay.limits.k * fr.u[mem][:, I_PH] + frac * lay.i_n[mem][:, None]
-            with np.errstate(invalid="ignore", divide="ignore"):
-                z = np.where(np.isnan(i), -1.0, i / lim_each)
+            z = np.where(np.isnan(i), -1.0, i / lim_each)
             r, c = np.unravel_index(int(np.argmax(z)), z.shape)
             val, lim = float(i[r, c]), float(lay.limits.apply(check, "A", lim_each[r, c]))
             code = judge1(val, lim, lay.limits.warn)
             mid = lay.meters[mem[r]].id
             if code == PASS:
-                out.append(result(check, sw.id, PASS, val, lim, "A", f"no current through open {sw.id}"))
+                bk[PASS].append(result(check, sw.id, PASS, val, lim, "A", f"no current through open {sw.id}"))
             else:
                 msg = (f"{sw.id} reports open but {mid} measures {fmt(val, 'A')} on phase {'ABC'[c]}: the status contact "
                        f"is wrong, the switch did not open, or {mid} is on another branch")
-                out.append(result(check, sw.id, code, val, lim, "A", msg, f"switch_status:{sw.id}"))
+                bk[code].append(result(check, sw.id, code, val, lim, "A", msg, f"switch_status:{sw.id}"))
 
-    def _energization(self, fr: Frame, st: TopoState, out: list[CheckResult]) -> None:
+    def _energization(self, cols: dict, st: TopoState, bk: Buckets) -> None:
         lay = self.lay
         check = "network.energization"
-        v = _vmean(fr)
-        for bus, mem in self.on_bus.items():
-            mem = [mi for mi in mem if not np.isnan(v[mi])]
+        v, vn = cols["v"], self.vn
+        for bus, mem0, (na_none, na_unknown, tp_live, tp_dead) in zip(self.on_bus, self.on_bus.values(), self.en_fixed,
+                                                                      strict=True):
+            mem = [mi for mi in mem0 if v[mi] == v[mi]]
             bs = st.buses[bus]
             if not mem:
-                out.append(na(check, bus, "no meter with a good voltage on this bus", "V"))
+                bk[NA].append(na_none)
                 continue
             if bs.live is None:
-                out.append(na(check, bus, "depends on switches of unknown state", "V"))
+                bk[NA].append(na_unknown)
                 continue
-            frac = v[mem] / lay.v_n[mem]
+            frac = [v[mi] / vn[mi] for mi in mem]
             if bs.live:
-                j = int(np.argmin(frac))
+                j = min(range(len(frac)), key=frac.__getitem__)  # the first smallest, as np.argmin
                 ok = frac[j] >= 0.5
                 want = "live through closed switches"
             else:
-                j = int(np.argmax(frac))
+                j = max(range(len(frac)), key=frac.__getitem__)  # the first largest, as np.argmax
                 ok = frac[j] < 0.1
                 want = "dead (no closed path to a source)"
-            mid = lay.meters[mem[j]].id
-            val = float(v[mem[j]])
+            val = v[mem[j]]
             if ok:
-                out.append(result(check, bus, PASS, val, message=f"{bus} is {want.split(' ')[0]} as the switches say", unit="V"))
+                bk[PASS].append(make(tp_live if bs.live else tp_dead, val, math.nan))
             else:
+                mid = lay.meters[mem[j]].id
                 msg = (f"{bus} should be {want} but {mid} reads {fmt(val, 'V')} L-N: a switch status that does not match the "
                        "switch, a blown VT fuse, or a backfeed")
-                out.append(result(check, bus, FAIL, val, unit="V", message=msg, cause=f"energization:{bus}"))
+                bk[FAIL].append(result(check, bus, FAIL, val, unit="V", message=msg, cause=f"energization:{bus}"))
 
     # ------------------------------------------------------------------ bad data
-    def _bad_data(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]], failed: set[str], vt: dict[int, float], out: list[CheckResult]) -> None:
+    def _bad_data(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]], failed: set[str], vt: dict[int, float], bk: Buckets) -> None:
         lay = self.lay
         check = "network.bad_data"
         named: set[int] = set()
         if failed:
-            named = self._power_suspect(fr, self._equations(fr, eqs), failed, vt, out)
+            named = self._power_suspect(fr, self._equations(fr, eqs), failed, vt, bk[FAIL])
         for mi, k in sorted(vt.items()):
             if mi not in named:
                 mid = lay.meters[mi].id
                 msg = f"{mid} is the most likely wrong meter: its voltage reads {k:.3f} times its peers; check its VT ratio and wiring"
-                out.append(result(check, mid, FAIL, k, math.nan, "1", msg, f"vt_ratio:{k:.3f}"))
+                bk[FAIL].append(result(check, mid, FAIL, k, math.nan, "1", msg, f"vt_ratio:{k:.3f}"))
 
     def _power_suspect(self, fr: Frame, eqs: list[Equation], failed: set[str], vt: dict[int, float], out: list[CheckResult]) -> set[int]:
         lay = self.lay
@@ -352,19 +384,21 @@ class NetworkChecks:
         out.append(result(check, mid, FAIL, sus.lnr, lay.limits.k, "1", msg, cause))
         return {sus.meter}
 
-    def run(self, fr: Frame, switches: dict[str, str]) -> list[CheckResult]:
+    def run(self, fr: Frame, switches: dict[str, str], bk: Buckets) -> None:
         st = self.topo.state(switches)
-        out: list[CheckResult] = []
+        x, u = fr.x, fr.u
+        cols = {"p": x[:, P4.stop - 1].tolist(), "q": x[:, Q4.stop - 1].tolist(), "up": u[:, P4.stop - 1].tolist(),
+                "uq": u[:, Q4.stop - 1].tolist(), "v": fr.v_mean.tolist(), "vu": fr.v_mean_u.tolist(),
+                "live": fr.energized.tolist(), "f": x[:, F].tolist(), "uf": u[:, F].tolist()}
         eqs: list[tuple[str, tuple[int, ...]]] = []
         failed: set[str] = set()
-        self._balance(fr, st, out, eqs, failed)
-        self._losses(fr, st, out, eqs, failed)
-        vt = self._v_agree(fr, st, out)
-        self._f_agree(fr, out)
-        self._switches(fr, switches, st, out)
-        self._energization(fr, st, out)
-        self._bad_data(fr, eqs, failed, vt, out)
-        return out
+        self._balance(cols, st, bk, eqs, failed)
+        self._losses(cols, st, bk, eqs, failed)
+        vt = self._v_agree(cols, st, bk)
+        self._f_agree(cols, bk)
+        self._switches(fr, switches, st, bk)
+        self._energization(cols, st, bk)
+        self._bad_data(fr, eqs, failed, vt, bk)
 
 
 __all__ = ["NetworkChecks", "FAIL", "NA", "WARN"]

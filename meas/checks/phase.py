@@ -1,13 +1,17 @@
-"""Phase consistency of one meter: sequence, unbalance, power-angle spread, wiring signature."""
+"""Phase consistency of one meter: sequence, unbalance, power-angle spread, wiring signature.
+
+Speed: ``PhasePlan`` prepares what the profile alone decides (maps without angles or currents,
+fixed n/a results, texts of passing results) once; a run computes the phase-power angles once
+and shares them between the angle-spread and wiring checks, on the loaded meters only.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 
 from .. import phasors as ph
-from ..results import CheckResult
-from .base import FAIL, PASS, WARN, judge1, na, result
-from .diagnose import signatures
+from .base import FAIL, NA, PASS, WARN, Buckets, judge1, make, make_msg, na, result, template
+from .diagnose import signature_rows
 from .frame import I_ANG, I_PH, P4, Q4, V_ANG, V_LL, V_LN, Frame, Layout
 
 _WIRING_TEXT = {
@@ -15,163 +19,208 @@ _WIRING_TEXT = {
     "phases_swapped": "current inputs {x} are swapped: check which CT feeds which current terminal (pair chosen by the expected flow direction)",
     "vi_mismatch": "voltage and current inputs belong to different phases ({x} deg): check the voltage terminals against the CTs",
 }
+_FMAX = np.finfo(float).max
+_SEQ_FAIL = ("voltage phase sequence is A-C-B (negative): two voltage connections are swapped at the meter or the supply "
+             "rotation is reversed; compare with the other meters")
 
 
-def _sequence(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "phase.v_sequence"
-    sign = ph.sequence_sign(np.nan_to_num(fr.x[:, V_ANG], nan=0.0)).tolist()
-    has = lay.has[:, V_ANG].all(axis=1).tolist()
-    good = (fr.energized & ~np.isnan(fr.x[:, V_ANG]).any(axis=1)).tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not has[mi]:
-            out.append(na(check, m.id, "the register map has no voltage angles"))
-        elif not good[mi]:
-            out.append(na(check, m.id, "no voltage (or no good angle readings) at the meter"))
-        elif sign[mi] > 0:
-            out.append(result(check, m.id, PASS, 1.0, message="voltage phase sequence A-B-C (positive)"))
-        else:
-            out.append(result(check, m.id, FAIL, float(sign[mi]), message=(
-                "voltage phase sequence is A-C-B (negative): two voltage connections are swapped at the meter or the supply "
-                "rotation is reversed; compare with the other meters"), cause="v_sequence_negative"))
-    return out
+class PhasePlan:
+    """Per-profile parts of the phase checks."""
+
+    def __init__(self, lay: Layout):
+        self.lay = lay
+        L = lay.limits
+        ids = [m.id for m in lay.meters]
+        self.ids = ids
+        has = lay.has
+        rated = lay.v_n * lay.i_n
+        self.rated = rated[:, None]
+        # phase.v_sequence
+        self.seq_has = has[:, V_ANG].all(axis=1).tolist()
+        self.seq_na_map = [na("phase.v_sequence", mid, "the register map has no voltage angles") for mid in ids]
+        self.seq_na_dead = [na("phase.v_sequence", mid, "no voltage (or no good angle readings) at the meter") for mid in ids]
+        self.seq_pass = [result("phase.v_sequence", mid, PASS, 1.0, message="voltage phase sequence A-B-C (positive)")
+                         for mid in ids]
+        # phase.v_unbalance
+        self.vu_warn = L.param("phase.v_unbalance", "warn_pct", L.s.unbalance_warn_pct)
+        self.vu_fail = L.param("phase.v_unbalance", "fail_pct", 2.5 * self.vu_warn)
+        self.vu_dead = [na("phase.v_unbalance", mid, "no voltage at the meter", "%") for mid in ids]
+        self.vu_nodata = [na("phase.v_unbalance", mid, "no good voltage readings to compute unbalance", "%") for mid in ids]
+        self.vu_tp = [template("phase.v_unbalance", mid, PASS, "%") for mid in ids]
+        # phase.i_unbalance
+        self.iu_warn = L.param("phase.i_unbalance", "warn_pct", 50.0)
+        self.iu_min = L.param("phase.i_unbalance", "min_load", 0.05)
+        self.iu_min_i = self.iu_min * lay.i_n
+        self.iu_has = has[:, I_PH].all(axis=1).tolist()
+        self.iu_na_map = [na("phase.i_unbalance", mid, "the register map has no phase currents", "%") for mid in ids]
+        self.iu_light = [na("phase.i_unbalance", mid, f"current below {self.iu_min:.0%} of the CT rating: unbalance not "
+                            "meaningful", "%") for mid in ids]
+        self.iu_tp = [template("phase.i_unbalance", mid, PASS, "%") for mid in ids]
+        # phase.pf_spread and phase.wiring
+        self.pf_warn = L.param("phase.pf_spread", "warn_deg", 45.0)
+        self.pf_min = L.param("phase.pf_spread", "min_load", 0.05)
+        self.pf_light = [na("phase.pf_spread", mid, "load too small or too unbalanced to compare phase power angles", "deg")
+                         for mid in ids]
+        self.pf_tp = [template("phase.pf_spread", mid, PASS, "deg") for mid in ids]
+        self.w_min = L.param("phase.wiring", "min_load", 0.05)
+        self.trip = L.param("phase.wiring", "trip_deg", 75.0)
+        self.coherent = L.param("phase.wiring", "coherent_deg", 40.0)
+        w_has = (has[:, P4].all(axis=1) & has[:, Q4].all(axis=1)).tolist()
+        self.w_fixed = [None if (m.branch is not None and ok) else na("phase.wiring", m.id, "the meter lacks per-phase P and Q", "deg")
+                        for m, ok in zip(lay.meters, w_has, strict=True)]
+        self.w_light = [na("phase.wiring", mid, "load too small or too unbalanced to read the wiring signature", "deg")
+                        for mid in ids]
+        self.w_tp = [template("phase.wiring", mid, PASS, "deg", "phase powers consistent with correct CT and current-input wiring")
+                     for mid in ids]
+
+    def _loaded(self, mag: np.ndarray, min_load: float) -> np.ndarray:
+        return (mag >= min_load * self.rated).all(axis=1) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
+
+    def run(self, fr: Frame, bk: Buckets) -> None:
+        lay = self.lay
+        n = len(self.ids)
+        x = fr.x
+        live = fr.energized.tolist()
+        na_, pass_ = bk[NA].append, bk[PASS].append
+
+        # ---- phase.v_sequence
+        ang_v = x[:, V_ANG]
+        sign = ph.sequence_sign(np.clip(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX, _FMAX)).tolist()  # = nan_to_num
+        good = (fr.energized & ~np.isnan(ang_v).any(axis=1)).tolist()
+        for mi in range(n):
+            if not self.seq_has[mi]:
+                na_(self.seq_na_map[mi])
+            elif not good[mi]:
+                na_(self.seq_na_dead[mi])
+            elif sign[mi] > 0:
+                pass_(self.seq_pass[mi])
+            else:
+                bk[FAIL].append(result("phase.v_sequence", self.ids[mi], FAIL, float(sign[mi]), message=_SEQ_FAIL,
+                                       cause="v_sequence_negative"))
+
+        # ---- phase.v_unbalance
+        # negative-sequence unbalance of voltages and currents in one call: (2, n, 3) stacks, every
+        # row the same operations as on its own (checked bit for bit by the golden test)
+        u2_vi = ph.unbalance_u2(ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]])))
+        u2_ph = u2_vi[0]
+        v_ll = x[:, V_LL]
+        u2_mag = ph.unbalance_iec_ll(v_ll)
+        # NEMA-style deviation of V_LL and of the phase currents in one call (row-wise, so each
+        # row's figure is the same as from its own call)
+        lv = ph.lvur(np.array([v_ll, x[:, I_PH]]))
+        nema = lv[0].tolist()
+        use = lay.angles & ~np.isnan(u2_ph)
+        u2v = np.where(use, u2_ph, u2_mag).tolist()
+        use = use.tolist()
+        warn, fail = self.vu_warn, self.vu_fail
+        vu_tp = self.vu_tp
+        for mi in range(n):
+            if not live[mi]:
+                na_(self.vu_dead[mi])
+                continue
+            u2 = u2v[mi]
+            if u2 != u2:
+                na_(self.vu_nodata[mi])
+                continue
+            how = "from symmetrical components (IEC 61000-4-30 style)" if use[mi] else "from L-L magnitudes (IEC 61000-4-30 formula)"
+            nm = nema[mi]
+            extra = f"; NEMA MG-1 LVUR {nm:.2f} %" if nm == nm else ""
+            code = FAIL if u2 > fail else WARN if u2 > warn else PASS
+            if code == PASS:
+                pass_(make_msg(vu_tp[mi], u2, warn, f"voltage unbalance u2 = {u2:.2f} % {how}{extra}"))
+            else:
+                msg = (f"voltage unbalance u2 = {u2:.2f} % {how}{extra}, above {warn if code == WARN else fail:g} %: "
+                       "a missing or reversed voltage connection, a blown VT fuse, or a strongly unbalanced supply")
+                bk[code].append(result("phase.v_unbalance", self.ids[mi], code, u2, warn if code == WARN else fail, "%",
+                                       msg, "v_unbalance"))
+
+        # ---- phase.i_unbalance
+        u2 = u2_vi[1]
+        dev = lv[1]
+        loaded = (fr.i_mean >= self.iu_min_i).tolist()
+        use_i = lay.angles & ~np.isnan(u2)
+        vals = np.where(use_i, u2, dev).tolist()
+        use_i = use_i.tolist()
+        warn = self.iu_warn
+        for mi in range(n):
+            if not self.iu_has[mi]:
+                na_(self.iu_na_map[mi])
+                continue
+            if not loaded[mi]:
+                na_(self.iu_light[mi])
+                continue
+            val = vals[mi]
+            how = "I2/I1" if use_i[mi] else "max deviation from the mean current"
+            msg = f"current unbalance ({how}) {val:.1f} %"
+            if val > warn:
+                msg += f", above {warn:g} %: a very unbalanced load, or a CT or current-input wiring error (see phase.wiring)"
+                bk[WARN].append(result("phase.i_unbalance", self.ids[mi], WARN, val, warn, "%", msg, "i_unbalance"))
+            else:
+                pass_(make_msg(self.iu_tp[mi], val, warn, msg))
+
+        # ---- phase.pf_spread and phase.wiring: one set of phase-power angles
+        s = x[:, P4][:, :3] + 1j * x[:, Q4][:, :3]
+        mag = np.abs(s)
+        ok_pf = self._loaded(mag, self.pf_min)
+        ok_w = ok_pf if self.w_min == self.pf_min else self._loaded(mag, self.w_min)
+        both = ok_pf | ok_w
+        rows_l = np.flatnonzero(both)
+        # = rad2deg(angle(S)); on the same strided views as ever (numpy's SIMD transcendental loops
+        # may round differently on contiguous data), then narrowed to the loaded meters
+        ang = ph.pf_angle_deg(s.real, s.imag)[rows_l]
+        ok_w_rows = ok_w[rows_l]
+        sigs, spread0 = signature_rows(ang, lay.axis[rows_l], lay.is_load[rows_l], self.trip, self.coherent, ok_w_rows)
+        pos = dict(zip(rows_l.tolist(), range(len(rows_l)), strict=True))
+        ok_pf_l = ok_pf.tolist()
+        warn = self.pf_warn
+        for mi in range(n):
+            if not ok_pf_l[mi]:
+                na_(self.pf_light[mi])
+                continue
+            sp = spread0[pos[mi]]
+            msg = f"phase power-factor angles spread over {sp:.0f} deg"
+            if sp > warn:
+                msg += f" (more than {warn:g}): very different loads per phase, or a wiring error (see phase.wiring)"
+                bk[WARN].append(result("phase.pf_spread", self.ids[mi], WARN, sp, warn, "deg", msg, "pf_spread"))
+            else:
+                pass_(make_msg(self.pf_tp[mi], sp, warn, msg))
+        trip = self.trip
+        for mi in range(n):
+            fx = self.w_fixed[mi]
+            if fx is not None:
+                na_(fx)
+                continue
+            k = pos.get(mi)
+            sg = sigs[k] if k is not None else None
+            if sg is None:
+                na_(self.w_light[mi])
+            elif not sg.cause:  # HEALTHY, or no fault once the hypotheses were tried
+                pass_(make(self.w_tp[mi], spread0[k], trip))
+            else:
+                bk[FAIL].append(self._wiring_fault(fr, mi, sg))
+
+    def _wiring_fault(self, fr: Frame, mi: int, sg):
+        lay = self.lay
+        parts = []
+        for c in sg.cause.split(","):
+            kind, _, arg = c.partition(":")
+            if c == "ct_reversed:ABC":
+                parts.append("all three CTs are reversed or the meter faces the wrong way: a load cannot deliver power")
+            else:
+                parts.append(_WIRING_TEXT[kind].format(x=arg))
+        extra = ""
+        if (lay.angles[mi] and not np.isnan(fr.x[mi, I_ANG]).any()
+                and ph.sequence_sign(fr.x[mi, I_ANG]) < 0 < ph.sequence_sign(np.nan_to_num(fr.x[mi, V_ANG]))):
+            extra = " (current angles run in negative sequence)"
+        msg = "; ".join(parts) + extra + f" [phase power angles spread {sg.spread_deg:.0f} deg, {sg.corrected_deg:.0f} deg once corrected]"
+        return result("phase.wiring", self.ids[mi], FAIL, sg.spread_deg, self.trip, "deg", msg, sg.cause)
 
 
-def _v_unbalance(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "phase.v_unbalance"
-    x = fr.x
-    ang = lay.angles
-    vph = ph.phasor(x[:, V_LN], x[:, V_ANG])
-    u2_ph = ph.unbalance_u2(vph)
-    u2_mag = ph.unbalance_iec_ll(x[:, V_LL])
-    nema = ph.lvur(x[:, V_LL])
-    warn = lay.limits.param(check, "warn_pct", lay.limits.s.unbalance_warn_pct)
-    fail = lay.limits.param(check, "fail_pct", 2.5 * warn)
-    use = (ang & ~np.isnan(u2_ph)).tolist()
-    u2v = np.where(use, u2_ph, u2_mag).tolist()
-    nema, live = nema.tolist(), fr.energized.tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not live[mi]:
-            out.append(na(check, m.id, "no voltage at the meter", "%"))
-            continue
-        use_ph = use[mi]
-        u2 = u2v[mi]
-        how = "from symmetrical components (IEC 61000-4-30 style)" if use_ph else "from L-L magnitudes (IEC 61000-4-30 formula)"
-        if u2 != u2:
-            out.append(na(check, m.id, "no good voltage readings to compute unbalance", "%"))
-            continue
-        code = FAIL if u2 > fail else WARN if u2 > warn else PASS
-        extra = f"; NEMA MG-1 LVUR {nema[mi]:.2f} %" if nema[mi] == nema[mi] else ""
-        if code == PASS:
-            msg = f"voltage unbalance u2 = {u2:.2f} % {how}{extra}"
-            out.append(result(check, m.id, PASS, u2, warn, "%", msg))
-        else:
-            msg = (f"voltage unbalance u2 = {u2:.2f} % {how}{extra}, above {warn if code == WARN else fail:g} %: "
-                   "a missing or reversed voltage connection, a blown VT fuse, or a strongly unbalanced supply")
-            out.append(result(check, m.id, code, u2, warn if code == WARN else fail, "%", msg, "v_unbalance"))
-    return out
+def phase_checks(lay: Layout, fr: Frame) -> list:
+    """The phase checks alone, in emission order (a plan per call: keep a PhasePlan for speed)."""
+    bk: Buckets = ([], [], [], [])
+    PhasePlan(lay).run(fr, bk)
+    return bk[0] + bk[1] + bk[2] + bk[3]
 
 
-def _i_unbalance(lay: Layout, fr: Frame) -> list[CheckResult]:
-    check = "phase.i_unbalance"
-    x = fr.x
-    iph = ph.phasor(x[:, I_PH], x[:, I_ANG])
-    u2 = ph.unbalance_u2(iph)
-    dev = ph.lvur(x[:, I_PH])
-    warn = lay.limits.param(check, "warn_pct", 50.0)
-    min_load = lay.limits.param(check, "min_load", 0.05)
-    has = lay.has[:, I_PH].all(axis=1).tolist()
-    with np.errstate(invalid="ignore"):
-        loaded = (fr.i_mean >= min_load * lay.i_n).tolist()
-    use = (lay.angles & ~np.isnan(u2)).tolist()
-    vals = np.where(use, u2, dev).tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not has[mi]:
-            out.append(na(check, m.id, "the register map has no phase currents", "%"))
-            continue
-        if not loaded[mi]:
-            out.append(na(check, m.id, f"current below {min_load:.0%} of the CT rating: unbalance not meaningful", "%"))
-            continue
-        use_ph = use[mi]
-        val = vals[mi]
-        how = "I2/I1" if use_ph else "max deviation from the mean current"
-        code = WARN if val > warn else PASS
-        msg = f"current unbalance ({how}) {val:.1f} %"
-        if code == WARN:
-            msg += f", above {warn:g} %: a very unbalanced load, or a CT or current-input wiring error (see phase.wiring)"
-        out.append(result(check, m.id, code, val, warn, "%", msg, "i_unbalance" if code == WARN else ""))
-    return out
-
-
-def _s_phases(fr: Frame) -> np.ndarray:
-    return fr.x[:, P4][:, :3] + 1j * fr.x[:, Q4][:, :3]
-
-
-def _loaded(lay: Layout, s: np.ndarray, min_load: float) -> np.ndarray:
-    mag = np.abs(s)
-    rated = (lay.v_n * lay.i_n)[:, None]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return (mag >= min_load * rated).all(axis=1) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
-
-
-def _pf_spread(lay: Layout, fr: Frame, s: np.ndarray) -> list[CheckResult]:
-    check = "phase.pf_spread"
-    warn = lay.limits.param(check, "warn_deg", 45.0)
-    ok = _loaded(lay, s, lay.limits.param(check, "min_load", 0.05))
-    spread = ph.circular_spread_deg(ph.pf_angle_deg(s.real, s.imag)).tolist()
-    ok = ok.tolist()
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not ok[mi]:
-            out.append(na(check, m.id, "load too small or too unbalanced to compare phase power angles", "deg"))
-            continue
-        code = WARN if spread[mi] > warn else PASS
-        msg = f"phase power-factor angles spread over {spread[mi]:.0f} deg"
-        if code == WARN:
-            msg += f" (more than {warn:g}): very different loads per phase, or a wiring error (see phase.wiring)"
-        out.append(result(check, m.id, code, spread[mi], warn, "deg", msg, "pf_spread" if code == WARN else ""))
-    return out
-
-
-def _wiring(lay: Layout, fr: Frame, s: np.ndarray) -> list[CheckResult]:
-    check = "phase.wiring"
-    ok = _loaded(lay, s, lay.limits.param(check, "min_load", 0.05))
-    sigs = signatures(np.where(ok[:, None], s, np.nan), lay.axis, lay.is_load,
-                      lay.limits.param(check, "trip_deg", 75.0), lay.limits.param(check, "coherent_deg", 40.0))
-    has = (lay.has[:, P4].all(axis=1) & lay.has[:, Q4].all(axis=1)).tolist()
-    trip = lay.limits.param(check, "trip_deg", 75.0)
-    out = []
-    for mi, m in enumerate(lay.meters):
-        sg = sigs[mi]
-        if m.branch is None or not has[mi]:
-            out.append(na(check, m.id, "the meter lacks per-phase P and Q", "deg"))
-        elif sg is None:
-            out.append(na(check, m.id, "load too small or too unbalanced to read the wiring signature", "deg"))
-        elif not sg.cause:
-            out.append(result(check, m.id, PASS, sg.spread_deg, trip, "deg",
-                              "phase powers consistent with correct CT and current-input wiring"))
-        else:
-            parts = []
-            for c in sg.cause.split(","):
-                kind, _, arg = c.partition(":")
-                if c == "ct_reversed:ABC":
-                    parts.append("all three CTs are reversed or the meter faces the wrong way: a load cannot deliver power")
-                else:
-                    parts.append(_WIRING_TEXT[kind].format(x=arg))
-            extra = ""
-            if (lay.angles[mi] and not np.isnan(fr.x[mi, I_ANG]).any()
-                    and ph.sequence_sign(fr.x[mi, I_ANG]) < 0 < ph.sequence_sign(np.nan_to_num(fr.x[mi, V_ANG]))):
-                extra = " (current angles run in negative sequence)"
-            msg = "; ".join(parts) + extra + f" [phase power angles spread {sg.spread_deg:.0f} deg, {sg.corrected_deg:.0f} deg once corrected]"
-            out.append(result(check, m.id, FAIL, sg.spread_deg, lay.limits.param(check, "trip_deg", 75.0), "deg", msg, sg.cause))
-    return out
-
-
-def phase_checks(lay: Layout, fr: Frame) -> list[CheckResult]:
-    s = _s_phases(fr)
-    return _sequence(lay, fr) + _v_unbalance(lay, fr) + _i_unbalance(lay, fr) + _pf_spread(lay, fr, s) + _wiring(lay, fr, s)
-
-
-__all__ = ["phase_checks", "judge1"]
+__all__ = ["PhasePlan", "phase_checks", "judge1"]

@@ -1,6 +1,7 @@
 """Data quality: communication state, frozen values, out-of-range values, excess noise.
 
-Frozen and noise use the recent history (oldest first); both look only at quantities that
+``QualityPlan`` prepares the per-profile results and texts once (constant passing results are
+shared objects, like the n/a ones). Frozen and noise use the recent history (oldest first); both look only at quantities that
 must move on a live, loaded circuit: a real meter's V and I change in the last digits from
 one poll to the next, and a healthy meter repeats far better than its class limit
 (common practice; from memory).
@@ -14,166 +15,246 @@ import numpy as np
 
 from ..results import CheckResult
 from ..snapshot import CommState, Quality, Snapshot
-from .base import FAIL, PASS, WARN, fmt, na, result
+from .base import FAIL, NA, PASS, WARN, Buckets, fmt, make, na, result, template
 from .frame import I_PH, P4, V_LL, V_LN, Frame, Layout
 
+_FROZEN_COLS = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)]
+_VI = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop)]
+_HIST = slice(0, P4.stop)  # the columns frozen and noise look at (V_LN .. P4) out of each frame
 
-def comm_checks(lay: Layout, snap: Snapshot) -> list[CheckResult]:
-    check = "quality.comm"
-    out = []
-    ok_state, ok_set = CommState.OK, {Quality.OK}
-    for m in lay.meters:
-        b = snap.meters.get(m.id)
-        if b is not None and b.state is ok_state and set(b.quality.values()) <= ok_set:
-            out.append(result(check, m.id, PASS, message="all values ok"))
-            continue
-        if b is None:
-            out.append(result(check, m.id, FAIL, message=f"{m.id} is missing from this snapshot: it is not being polled",
-                              cause="missing"))
-            continue
-        bad = sorted(k for k, q in b.quality.items() if q is not Quality.OK)
-        if b.state in (CommState.FAILING, CommState.OFFLINE) or (bad and len(bad) == len(b.quality)):
-            why = b.error or f"communication {b.state}"
-            msg = (f"no good data from {m.id}: {why}; check its wiring, address (unit {m.unit_id}) and "
-                   f"{m.transport.endpoint}; captured data is kept")
-            out.append(result(check, m.id, FAIL, float(b.error_count), message=msg, cause=f"comm:{b.state}"))
-        elif bad:
-            stale = [k for k in bad if b.quality[k] is Quality.STALE]
-            kinds = sorted({str(b.quality[k]) for k in bad})
-            msg = (f"{len(bad)} value(s) not ok ({', '.join(kinds)}): {', '.join(bad[:6])}{' ...' if len(bad) > 6 else ''}; "
-                   + ("values repeated from an earlier cycle" if stale else "check those registers in the map"))
-            out.append(result(check, m.id, WARN, float(len(bad)), message=msg, cause="stale" if stale else "partial"))
-        elif b.state is CommState.DEGRADED:
-            out.append(result(check, m.id, WARN, message=f"{m.id} answered after a retry: {b.error or 'degraded'}", cause="degraded"))
+
+class QualityPlan:
+    """Per-profile parts of the data-quality checks."""
+
+    def __init__(self, lay: Layout):
+        self.lay = lay
+        L = lay.limits
+        ids = [m.id for m in lay.meters]
+        self.ids = ids
+        self.comm_pass = [result("quality.comm", mid, PASS, message="all values ok") for mid in ids]
+        self.v_band = L.param("quality.v_range", "band", L.s.voltage_band)
+        self.i_fail = L.param("quality.i_range", "fail_fraction", 1.2)  # CT extended rating 120 % (common practice)
+        self.rows = np.arange(len(ids))
+        self.has_i = lay.has[:, I_PH].any(axis=1).tolist()
+        self.v_nodata = [na("quality.v_range", mid, "no good voltage reading", "%") for mid in ids]
+        self.v_dead = [na("quality.v_range", mid, "no voltage at the meter (see network.energization)", "%") for mid in ids]
+        self.v_tp = [template("quality.v_range", mid, PASS, "%", "voltages within the zone band") for mid in ids]
+        self.i_nomap = [na("quality.i_range", mid, "the register map has no phase currents", "%") for mid in ids]
+        self.i_nodata = [na("quality.i_range", mid, "no good current reading", "%") for mid in ids]
+        self.i_tp = [template("quality.i_range", mid, PASS, "%", "currents within the CT rating") for mid in ids]
+        self.frozen_need = max(2, L.s.frozen_cycles)
+        self.frozen_dead = [na("quality.frozen", mid, "no voltage at the meter: nothing has to move") for mid in ids]
+        self.frozen_pass = [result("quality.frozen", mid, PASS, message="values are updating") for mid in ids]
+        self.noise_need = int(L.param("quality.noise", "min_snapshots", 8))
+        self.noise_max = L.param("quality.noise", "max_sigma_of_limit", 0.35)
+        self.noise_idle = [na("quality.noise", mid, "no steady voltage or current to judge noise", "1") for mid in ids]
+        self.noise_few = [na("quality.noise", mid, "too few good readings to judge noise", "1") for mid in ids]
+        self.noise_tp = [template("quality.noise", mid, PASS, "1", "poll-to-poll scatter well inside the class") for mid in ids]
+        self.lim_v = lay.spec_v.main_pct / 100.0  # (n, 1)
+        self.lim_i = lay.spec_i.main_pct / 100.0
+        self.i_low = 0.05 * lay.i_n[None, :, None]
+        self.v_low = 0.5 * lay.v_n[None, :, None]
+        self.has_i3 = lay.has[:, I_PH].all(axis=1)
+        self.lim_vi = np.concatenate([np.repeat(self.lim_v, 3, axis=1), np.repeat(self.lim_i, 3, axis=1)], axis=1)
+
+    # ---------------------------------------------------------------- communication
+    def comm(self, snap: Snapshot, fr: Frame, bk: Buckets) -> None:
+        ok_state = CommState.OK
+        blocks = snap.meters
+        qual_ok = fr.qual_ok
+        for mi, m in enumerate(self.lay.meters):
+            b = blocks.get(m.id)
+            if b is not None and b.state is ok_state and (qual_ok[mi] if qual_ok is not None else
+                                                          set(b.quality.values()) <= {Quality.OK}):
+                bk[PASS].append(self.comm_pass[mi])
+                continue
+            r = _comm_fault(m, b)
+            bk[STATUS_CODE[r.status]].append(r)
+
+    # ---------------------------------------------------------------- ranges
+    def ranges(self, fr: Frame, bk: Buckets) -> None:
+        lay = self.lay
+        band, i_fail = self.v_band, self.i_fail
+        v = fr.x[:, V_LN]
+        no_ln = np.isnan(v).all(axis=1)
+        if no_ln.any():  # L-L readings stand in where a meter has no L-N ones
+            v = np.where(no_ln[:, None], fr.x[:, V_LL] / np.sqrt(3.0), v)
+            no_v = np.isnan(v).all(axis=1).tolist()
         else:
-            out.append(result(check, m.id, PASS, message="all values ok"))
-    return out
-
-
-def range_checks(lay: Layout, fr: Frame) -> list[CheckResult]:
-    out = []
-    band = lay.limits.param("quality.v_range", "band", lay.limits.s.voltage_band)
-    i_fail = lay.limits.param("quality.i_range", "fail_fraction", 1.2)  # CT extended rating 120 % (common practice)
-    v = fr.x[:, V_LN]
-    v = np.where(np.isnan(v).all(axis=1)[:, None], fr.x[:, V_LL] / np.sqrt(3.0), v)
-    no_v = np.isnan(v).all(axis=1).tolist()
-    with np.errstate(invalid="ignore"):
+            no_v = no_ln.tolist()
         dev = 100.0 * (v / lay.v_n[:, None] - 1.0)
         j_v = np.argmax(np.where(np.isnan(dev), -1.0, np.abs(dev)), axis=1)
-        d_v = dev[np.arange(len(dev)), j_v].tolist()
+        d_v = dev[self.rows, j_v].tolist()
         i = fr.x[:, I_PH]
         no_i = np.isnan(i).all(axis=1).tolist()
         load = (100.0 * np.max(np.where(np.isnan(i), -np.inf, i), axis=1) / lay.i_n).tolist()
-    j_v = j_v.tolist()
-    live, has_i = fr.energized.tolist(), lay.has[:, I_PH].any(axis=1).tolist()
-    b100, warn = 100 * band, lay.limits.warn
-    for mi, m in enumerate(lay.meters):
-        if no_v[mi]:
-            out.append(na("quality.v_range", m.id, "no good voltage reading", "%"))
-        elif not live[mi]:
-            out.append(na("quality.v_range", m.id, "no voltage at the meter (see network.energization)", "%"))
-        else:
-            d = d_v[mi]
-            code = FAIL if abs(d) > b100 else WARN if abs(d) > b100 * warn else PASS
-            if code == PASS:
-                out.append(result("quality.v_range", m.id, PASS, d, b100, "%", "voltages within the zone band"))
+        live, has_i = fr.energized.tolist(), self.has_i
+        b100, warn = 100 * band, lay.limits.warn
+        bw, i100, ifl = b100 * warn, 100.0, 100 * i_fail
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        v_tp, i_tp, b100f = self.v_tp, self.i_tp, float(b100)
+        for mi in range(len(has_i)):
+            if no_v[mi]:
+                na_(self.v_nodata[mi])
+            elif not live[mi]:
+                na_(self.v_dead[mi])
             else:
-                msg = (f"v_ln.{'ABC'[j_v[mi]]} = {fmt(float(v[mi, j_v[mi]]), 'V')} is {d:+.1f} % from the zone nominal "
-                       f"{fmt(float(lay.v_n[mi]), 'V')} (band +-{b100:g} %): check the VT ratio and the supply")
-                out.append(result("quality.v_range", m.id, code, d, b100, "%", msg, "v_range"))
-        if not has_i[mi]:
-            out.append(na("quality.i_range", m.id, "the register map has no phase currents", "%"))
-        elif no_i[mi]:
-            out.append(na("quality.i_range", m.id, "no good current reading", "%"))
-        else:
-            ld = load[mi]
-            code = FAIL if ld > 100 * i_fail else WARN if ld > 100 else PASS
-            if code == PASS:
-                out.append(result("quality.i_range", m.id, PASS, ld, 100.0, "%", "currents within the CT rating"))
+                d = d_v[mi]
+                ad = abs(d)
+                if ad > b100 or ad > bw:
+                    code = FAIL if ad > b100 else WARN
+                    m = lay.meters[mi]
+                    jj = int(j_v[mi])
+                    msg = (f"v_ln.{'ABC'[jj]} = {fmt(float(v[mi, jj]), 'V')} is {d:+.1f} % from the zone nominal "
+                           f"{fmt(float(lay.v_n[mi]), 'V')} (band +-{b100:g} %): check the VT ratio and the supply")
+                    bk[code].append(result("quality.v_range", m.id, code, d, b100, "%", msg, "v_range"))
+                else:
+                    pass_(make(v_tp[mi], d, b100f))
+            if not has_i[mi]:
+                na_(self.i_nomap[mi])
+            elif no_i[mi]:
+                na_(self.i_nodata[mi])
             else:
-                msg = (f"current {ld:.0f} % of the CT rating {lay.i_n[mi]:g} A: overload, or a wrong CT ratio "
-                       f"(ct_primary_a / ct_ratio of {m.id})")
-                out.append(result("quality.i_range", m.id, code, ld, 100 * i_fail, "%", msg, "i_range"))
-    return out
+                ld = load[mi]
+                if ld > ifl or ld > i100:
+                    code = FAIL if ld > ifl else WARN
+                    m = lay.meters[mi]
+                    msg = (f"current {ld:.0f} % of the CT rating {lay.i_n[mi]:g} A: overload, or a wrong CT ratio "
+                           f"(ct_primary_a / ct_ratio of {m.id})")
+                    bk[code].append(result("quality.i_range", m.id, code, ld, ifl, "%", msg, "i_range"))
+                else:
+                    pass_(make(i_tp[mi], ld, 100.0))
+
+    # ---------------------------------------------------------------- history
+    def frozen(self, hist: np.ndarray, n_frames: int, fr: Frame, bk: Buckets) -> None:
+        """Frozen: every V, I and P of a live meter identical over the last frozen_cycles snapshots.
+
+        ``hist`` = (t, n, c) columns V_LN..P4 of the most recent frames, oldest first."""
+        need = self.frozen_need
+        if n_frames < need:
+            for mid in self.ids:
+                bk[NA].append(na("quality.frozen", mid, f"needs {need} snapshots of history, has {n_frames}"))
+            return
+        sub = hist[-need:][:, :, _FROZEN_COLS]
+        cur, prev = sub[-1], sub[-2]
+        # a meter whose readings moved since the previous snapshot is not frozen: look further
+        # back only for those that did not (the same verdict as comparing the whole window)
+        cand = np.all((prev == cur) | np.isnan(prev), axis=1) & ~np.isnan(cur).all(axis=1)
+        same = [False] * len(self.ids)
+        if cand.any():
+            rows = np.flatnonzero(cand)
+            s2 = sub[:, rows]
+            same_rows = np.all((s2 == s2[-1]) | np.isnan(s2), axis=(0, 2)).tolist()
+            for k, mi in enumerate(rows.tolist()):
+                same[mi] = same_rows[k]
+        live = fr.energized.tolist()
+        for mi, mid in enumerate(self.ids):
+            if not live[mi]:
+                bk[NA].append(self.frozen_dead[mi])
+            elif same[mi]:
+                msg = (f"V, I and P of {mid} have not changed over {need} snapshots: the meter or its gateway is "
+                       "repeating a cached value; check its communication module and the map's register kind")
+                bk[FAIL].append(result("quality.frozen", mid, FAIL, float(need), float(need), "snapshots", msg, "frozen"))
+            else:
+                bk[PASS].append(self.frozen_pass[mi])
+
+    def noise(self, hist: np.ndarray, n_frames: int, bk: Buckets) -> None:
+        """Excess noise: the poll-to-poll scatter of V and I against the class limit.
+
+        The scatter is estimated from first differences (sigma = rms(diff) / sqrt 2), which a
+        slow settling trend hardly affects; V and I of the three phases are pooled.
+        """
+        need = self.noise_need
+        ratio_max = self.noise_max
+        if n_frames < need:
+            for mid in self.ids:
+                bk[NA].append(na("quality.noise", mid, f"needs {need} snapshots of history, has {n_frames}", "1"))
+            return
+        x = hist[-need:][:, :, _VI]  # (t, n, 6): V_LN then I_PH
+        v, i = x[:, :, :3], x[:, :, 3:]
+        d = (x[1:] - x[:-1]) / np.abs(x[1:])  # = np.diff(x, axis=0) / |x|, V and I at once
+        loaded_i = np.all(i >= self.i_low, axis=(0, 2)) & self.has_i3
+        live = np.all(v >= self.v_low, axis=(0, 2))
+        use = np.empty((len(live), 6), bool)
+        use[:, :3] = live[:, None]
+        use[:, 3:] = loaded_i[:, None]
+        z = np.where(use[None], d / self.lim_vi[None], np.nan)  # (t-1, n, 6), as concatenating V and I parts
+        ok = ~np.isnan(z)
+        cnt = ok.sum(axis=(0, 2))
+        sig = np.sqrt(np.where(ok, z * z, 0.0).sum(axis=(0, 2)) / np.maximum(cnt, 1) / 2.0)
+        sig_l, cnt_l, any_l = sig.tolist(), cnt.tolist(), (live | loaded_i).tolist()
+        warn = self.lay.limits.warn * ratio_max
+        for mi, mid in enumerate(self.ids):
+            if not any_l[mi]:
+                bk[NA].append(self.noise_idle[mi])
+                continue
+            if cnt_l[mi] < 4:
+                bk[NA].append(self.noise_few[mi])
+                continue
+            sg = sig_l[mi]
+            if sg > ratio_max or sg > warn:
+                code = FAIL if sg > ratio_max else WARN
+                msg = (f"readings of {mid} scatter by {sg:.2f} of their class limit from poll to poll (allowed {ratio_max:g}): "
+                       "a loose connection, interference on the VT/CT wiring, or a faulty meter")
+                bk[code].append(result("quality.noise", mid, code, sg, ratio_max, "1", msg, "noisy"))
+            else:
+                bk[PASS].append(make(self.noise_tp[mi], sg, ratio_max))
 
 
-def _series(lay: Layout, frames: Sequence[Frame]) -> np.ndarray:
-    """(t, n, K) stack of the frames' values."""
-    return np.stack([f.x for f in frames])
+STATUS_CODE = {s: c for c, s in enumerate(("fail", "warn", "pass", "n/a"))}
+
+
+def _comm_fault(m, b) -> CheckResult:
+    check = "quality.comm"
+    if b is None:
+        return result(check, m.id, FAIL, message=f"{m.id} is missing from this snapshot: it is not being polled", cause="missing")
+    bad = sorted(k for k, q in b.quality.items() if q is not Quality.OK)
+    if b.state in (CommState.FAILING, CommState.OFFLINE) or (bad and len(bad) == len(b.quality)):
+        why = b.error or f"communication {b.state}"
+        msg = (f"no good data from {m.id}: {why}; check its wiring, address (unit {m.unit_id}) and "
+               f"{m.transport.endpoint}; captured data is kept")
+        return result(check, m.id, FAIL, float(b.error_count), message=msg, cause=f"comm:{b.state}")
+    if bad:
+        stale = [k for k in bad if b.quality[k] is Quality.STALE]
+        kinds = sorted({str(b.quality[k]) for k in bad})
+        msg = (f"{len(bad)} value(s) not ok ({', '.join(kinds)}): {', '.join(bad[:6])}{' ...' if len(bad) > 6 else ''}; "
+               + ("values repeated from an earlier cycle" if stale else "check those registers in the map"))
+        return result(check, m.id, WARN, float(len(bad)), message=msg, cause="stale" if stale else "partial")
+    if b.state is CommState.DEGRADED:
+        return result(check, m.id, WARN, message=f"{m.id} answered after a retry: {b.error or 'degraded'}", cause="degraded")
+    return result(check, m.id, PASS, message="all values ok")
+
+
+def history(frames: Sequence[Frame]) -> np.ndarray:
+    """(t, n, c) stack of the columns V_LN..P4 of the frames, oldest first."""
+    return np.array([f.x[:, _HIST] for f in frames])
+
+
+def _run(plan_method: str, lay: Layout, *args) -> list[CheckResult]:
+    bk: Buckets = ([], [], [], [])
+    getattr(QualityPlan(lay), plan_method)(*args, bk)
+    return bk[0] + bk[1] + bk[2] + bk[3]
+
+
+def comm_checks(lay: Layout, snap: Snapshot) -> list[CheckResult]:
+    """The communication checks alone (a plan per call: keep a QualityPlan for speed)."""
+    bk: Buckets = ([], [], [], [])
+    fr = Frame.build(lay, snap)
+    QualityPlan(lay).comm(snap, fr, bk)
+    return bk[0] + bk[1] + bk[2] + bk[3]
+
+
+def range_checks(lay: Layout, fr: Frame) -> list[CheckResult]:
+    """The range checks alone (a plan per call: keep a QualityPlan for speed)."""
+    return _run("ranges", lay, fr)
 
 
 def frozen_checks(lay: Layout, frames: Sequence[Frame]) -> list[CheckResult]:
-    """Frozen: every V, I and P of a live meter identical over the last frozen_cycles snapshots."""
-    check = "quality.frozen"
-    need = max(2, lay.limits.s.frozen_cycles)
-    cur = frames[-1]
-    out = []
-    if len(frames) < need:
-        return [na(check, m.id, f"needs {need} snapshots of history, has {len(frames)}") for m in lay.meters]
-    x = _series(lay, frames[-need:])
-    cols = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)]
-    sub = x[:, :, cols]
-    same = (np.all((sub == sub[-1]) | np.isnan(sub), axis=(0, 2)) & ~np.isnan(sub[-1]).all(axis=1)).tolist()
-    live = cur.energized.tolist()
-    for mi, m in enumerate(lay.meters):
-        if not live[mi]:
-            out.append(na(check, m.id, "no voltage at the meter: nothing has to move"))
-        elif same[mi]:
-            msg = (f"V, I and P of {m.id} have not changed over {need} snapshots: the meter or its gateway is "
-                   "repeating a cached value; check its communication module and the map's register kind")
-            out.append(result(check, m.id, FAIL, float(need), float(need), "snapshots", msg, "frozen"))
-        else:
-            out.append(result(check, m.id, PASS, message="values are updating"))
-    return out
+    return _run("frozen", lay, history(frames), len(frames), frames[-1])
 
 
 def noise_checks(lay: Layout, frames: Sequence[Frame]) -> list[CheckResult]:
-    """Excess noise: the poll-to-poll scatter of V and I against the class limit.
-
-    The scatter is estimated from first differences (sigma = rms(diff) / sqrt 2), which a
-    slow settling trend hardly affects; V and I of the three phases are pooled.
-    """
-    check = "quality.noise"
-    need = int(lay.limits.param(check, "min_snapshots", 8))
-    ratio_max = lay.limits.param(check, "max_sigma_of_limit", 0.35)
-    if len(frames) < need:
-        return [na(check, m.id, f"needs {need} snapshots of history, has {len(frames)}", "1") for m in lay.meters]
-    x = _series(lay, frames[-need:])
-    v, i = x[:, :, V_LN], x[:, :, I_PH]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        dv = np.diff(v, axis=0) / np.abs(v[1:])
-        di = np.diff(i, axis=0) / np.abs(i[1:])
-    lim_v = lay.spec_v.main_pct / 100.0  # (n, 1)
-    lim_i = lay.spec_i.main_pct / 100.0
-    with np.errstate(invalid="ignore"):
-        loaded_i = np.all(i >= 0.05 * lay.i_n[None, :, None], axis=(0, 2)) & lay.has[:, I_PH].all(axis=1)
-        live = np.all(v >= 0.5 * lay.v_n[None, :, None], axis=(0, 2))
-    zv = np.where(live[None, :, None], dv / lim_v[None], np.nan)
-    zi = np.where(loaded_i[None, :, None], di / lim_i[None], np.nan)
-    z = np.concatenate([zv, zi], axis=2)  # (t-1, n, 6)
-    ok = ~np.isnan(z)
-    cnt = ok.sum(axis=(0, 2))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sig = np.sqrt(np.where(ok, z * z, 0.0).sum(axis=(0, 2)) / np.maximum(cnt, 1) / 2.0)
-    sig_l, cnt_l, any_l = sig.tolist(), cnt.tolist(), (live | loaded_i).tolist()
-    warn = lay.limits.warn * ratio_max
-    out = []
-    for mi, m in enumerate(lay.meters):
-        if not any_l[mi]:
-            out.append(na(check, m.id, "no steady voltage or current to judge noise", "1"))
-            continue
-        if cnt_l[mi] < 4:
-            out.append(na(check, m.id, "too few good readings to judge noise", "1"))
-            continue
-        sg = sig_l[mi]
-        code = FAIL if sg > ratio_max else WARN if sg > warn else PASS
-        if code == PASS:
-            out.append(result(check, m.id, PASS, sg, ratio_max, "1", "poll-to-poll scatter well inside the class"))
-        else:
-            msg = (f"readings of {m.id} scatter by {sg:.2f} of their class limit from poll to poll (allowed {ratio_max:g}): "
-                   "a loose connection, interference on the VT/CT wiring, or a faulty meter")
-            out.append(result(check, m.id, code, sg, ratio_max, "1", msg, "noisy"))
-    return out
+    return _run("noise", lay, history(frames), len(frames))
 
 
-__all__ = ["comm_checks", "range_checks", "frozen_checks", "noise_checks", "V_LL"]
+__all__ = ["QualityPlan", "history", "comm_checks", "range_checks", "frozen_checks", "noise_checks", "V_LL"]
