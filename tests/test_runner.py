@@ -21,7 +21,7 @@ from meas.session import Session
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
 
-FAST_CAPTURE = "capture = { snapshots = 2, interval_s = 0.1, settle = { window_s = 0.5, rel_spread = 0.03, timeout_s = 6.0 } }"
+FAST_CAPTURE = "capture = { snapshots = 2, interval_s = 0.1, settle = { window_s = 0.5, rel_spread = 0.01, timeout_s = 6.0 } }"
 
 # The simulated bench starts with every switch in its normal state (the radial base case).
 TEST_SEQUENCE = f"""

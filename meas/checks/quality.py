@@ -20,6 +20,7 @@ from .frame import I_PH, P4, V_LL, V_LN, Frame, Layout
 
 _FROZEN_COLS = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)]
 _VI = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop)]
+NOISE_WINDOW = 16  # snapshots the noise estimate pools when the history has them (more samples, steadier estimate)
 _HIST = slice(0, P4.stop)  # the columns frozen and noise look at (V_LN .. P4) out of each frame
 
 
@@ -161,8 +162,10 @@ class QualityPlan:
     def noise(self, hist: np.ndarray, n_frames: int, bk: Buckets) -> None:
         """Excess noise: the poll-to-poll scatter of V and I against the class limit.
 
-        The scatter is estimated from first differences (sigma = rms(diff) / sqrt 2), which a
-        slow settling trend hardly affects; V and I of the three phases are pooled.
+        The scatter is estimated from second differences, x[k+1] - 2 x[k] + x[k-1], whose
+        variance is 6 sigma^2 for white noise (so sigma = rms / sqrt 6) while a linear drift
+        (a load bank warming up, the tail of a settling transient) cancels out; V and I of
+        the three phases are pooled.
         """
         need = self.noise_need
         ratio_max = self.noise_max
@@ -170,9 +173,9 @@ class QualityPlan:
             for mid in self.ids:
                 bk[NA].append(na("quality.noise", mid, f"needs {need} snapshots of history, has {n_frames}", "1"))
             return
-        x = hist[-need:][:, :, _VI]  # (t, n, 6): V_LN then I_PH
+        x = hist[-max(need, NOISE_WINDOW):][:, :, _VI]  # (t, n, 6): V_LN then I_PH, up to NOISE_WINDOW
         v, i = x[:, :, :3], x[:, :, 3:]
-        d = (x[1:] - x[:-1]) / np.abs(x[1:])  # = np.diff(x, axis=0) / |x|, V and I at once
+        d = (x[2:] - 2.0 * x[1:-1] + x[:-2]) / np.abs(x[1:-1])  # second differences, relative
         loaded_i = np.all(i >= self.i_low, axis=(0, 2)) & self.has_i3
         live = np.all(v >= self.v_low, axis=(0, 2))
         use = np.empty((len(live), 6), bool)
@@ -181,7 +184,7 @@ class QualityPlan:
         z = np.where(use[None], d / self.lim_vi[None], np.nan)  # (t-1, n, 6), as concatenating V and I parts
         ok = ~np.isnan(z)
         cnt = ok.sum(axis=(0, 2))
-        sig = np.sqrt(np.where(ok, z * z, 0.0).sum(axis=(0, 2)) / np.maximum(cnt, 1) / 2.0)
+        sig = np.sqrt(np.where(ok, z * z, 0.0).sum(axis=(0, 2)) / np.maximum(cnt, 1) / 6.0)
         sig_l, cnt_l, any_l = sig.tolist(), cnt.tolist(), (live | loaded_i).tolist()
         warn = self.lay.limits.warn * ratio_max
         for mi, mid in enumerate(self.ids):
