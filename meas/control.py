@@ -44,29 +44,31 @@ class SwitchControl:
 
     def check(self, switch_id: str, state: str, confirmed_by: str) -> Switch:
         """The switch if every guard holds; else ``ControlRefused`` saying which one failed."""
+        # an id typed or passed in may hold anything: the message must stay one line
+        name = switch_id if str(switch_id).isprintable() else repr(switch_id)
         if not self.profile.control.enabled:
             raise ControlRefused(
-                f"switch {switch_id}: control is disabled in the profile; set [control] enabled = true "
+                f"switch {name}: control is disabled in the profile; set [control] enabled = true "
                 "to let benchwalk operate switches"
             )
         try:
             sw = self.profile.switch(switch_id)
         except KeyError:
-            raise ControlRefused(f"switch {switch_id}: no such switch in the profile") from None
+            raise ControlRefused(f"switch {name}: no such switch in the profile") from None
         if state not in ("open", "closed"):
-            raise ControlRefused(f"switch {switch_id}: cannot command state {state!r}; use open or closed")
+            raise ControlRefused(f"switch {name}: cannot command state {state!r}; use open or closed")
         if sw.operation != "remote":
-            raise ControlRefused(f"switch {switch_id} is operated by hand; operate it on site and confirm")
+            raise ControlRefused(f"switch {name} is operated by hand; operate it on site and confirm")
         if sw.command_coil is None or sw.plc is None:
-            raise ControlRefused(f"switch {switch_id}: no PLC command coil configured; operate it by hand")
+            raise ControlRefused(f"switch {name}: no PLC command coil configured; operate it by hand")
         if sw.status is None:
-            raise ControlRefused(f"switch {switch_id}: no status point to verify a command; operate it by hand")
+            raise ControlRefused(f"switch {name}: no status point to verify a command; operate it by hand")
         try:
             plc_of(self.profile, sw.plc)
         except KeyError:
-            raise ControlRefused(f"switch {switch_id}: PLC {sw.plc} is not in the profile") from None
+            raise ControlRefused(f"switch {name}: PLC {sw.plc} is not in the profile") from None
         if not confirmed_by or not confirmed_by.strip():
-            raise ControlRefused(f"switch {switch_id}: a command needs the confirming technician's name")
+            raise ControlRefused(f"switch {name}: a command needs the confirming technician's name")
         return sw
 
     async def operate(self, switch_id: str, state: str, *, confirmed_by: str) -> OperateResult:

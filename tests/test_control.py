@@ -125,3 +125,12 @@ def test_control_is_the_only_module_that_writes_to_a_device():
                 offenders.append(str(path.relative_to(ROOT)))
     assert offenders == []
     assert pattern.search((ROOT / "meas/control.py").read_text())  # the pattern does find writes
+
+
+@pytest.mark.parametrize("enabled", [True, False])
+def test_refusal_of_a_strange_switch_id_stays_one_line(enabled):
+    """Ids arrive from keyboards and scripts; a control character must not split the message."""
+    ctl = SwitchControl(_profile(1502, enabled=enabled), poller=None)
+    with pytest.raises(ControlRefused) as err:
+        ctl.check("CB1\n: injected", "closed", "A. Tech")
+    assert "\n" not in str(err.value) and "'CB1\\n: injected'" in str(err.value)
