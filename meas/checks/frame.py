@@ -254,7 +254,9 @@ class Frame:
         unity = np.where(i8 >= c.low_i_frac, c.main, c.low_i)
         lowpf = np.where(i8 >= c.low_pf_i_frac, c.low_pf, c.low_pf_low_i)
         pct = np.where(low, lowpf, unity)
-        s8_fin = np.clip(np.where(np.isnan(s8), 0.0, s8), -_FMAX, _FMAX)  # = np.nan_to_num(s8), in two calls
+        # = np.nan_to_num(s8) wherever it is used (under ``low``): s8 is |S| or hypot(P, Q), never
+        # negative, and ``low`` is False where s8 is NaN, so only +inf -> FMAX matters
+        s8_fin = np.minimum(s8, _FMAX)
         base = np.fmax(np.fmax(v8, np.where(low, 0.5 * s8_fin, 0.0)), c.min_rated)
         a[:, _PQ] = pct * base
         res = c.res_abs + c.res_rel * ax

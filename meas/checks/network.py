@@ -119,11 +119,13 @@ class NetworkChecks:
                     bk[NA].append(fx)
                     continue
                 vals = [xs[mi] for mi in mem]
-                if any(v != v for v in vals):
+                r = sum(vals)
+                # a NaN reading always makes the sum NaN, so only a NaN sum needs the scan (inf - inf
+                # is NaN too but reads no NaN, and is judged below as before)
+                if r != r and any(v != v for v in vals):
                     bad = [ids_all[mi] for mi, v in zip(mem, vals, strict=True) if v != v]
                     bk[NA].append(na(check, bus, f"no good {name} total from {', '.join(bad)}", unit))
                     continue
-                r = sum(vals)
                 acc = 0
                 for mi in mem:
                     acc += us[mi] ** 2
@@ -218,12 +220,18 @@ class NetworkChecks:
             worst, wz, wd, wl = -1, -1.0, 0.0, 0.0
             two = len(mem) == 2
             for mi, peers in plist:
-                ref = _median([v[p] for p in peers])
+                np_ = len(peers)
+                if np_ == 2:  # the usual bus of three meters: _median and the sum below, unrolled
+                    p0, p1 = peers
+                    ref = (v[p0] + v[p1]) / 2  # = _median (IEEE addition commutes: the sort cannot matter)
+                    acc = u[p0] ** 2 + u[p1] ** 2  # = 0 + a + b, left to right
+                else:
+                    ref = _median([v[p] for p in peers])
+                    acc = 0
+                    for p in peers:
+                        acc += u[p] ** 2
                 d = v[mi] - ref
-                acc = 0
-                for p in peers:
-                    acc += u[p] ** 2
-                lim = k_cov * math.sqrt(u[mi] ** 2 + acc / len(peers))
+                lim = k_cov * math.sqrt(u[mi] ** 2 + acc / np_)
                 if apply is not None:
                     lim = apply(check, "V", lim)
                 z = abs(d) / lim

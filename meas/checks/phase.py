@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 
 from .. import phasors as ph
-from .base import FAIL, NA, PASS, WARN, Buckets, judge1, make, make_msg, na, result, template
+from ..results import CheckResult
+from .base import FAIL, NA, PASS, WARN, Buckets, judge1, na, result, template
 from .diagnose import signature_rows
 from .frame import I_ANG, I_PH, P4, Q4, V_ANG, V_LL, V_LN, Frame, Layout
 
@@ -35,6 +36,7 @@ class PhasePlan:
         has = lay.has
         rated = lay.v_n * lay.i_n
         self.rated = rated[:, None]
+        self._load_at: dict[float, np.ndarray] = {}  # min_load -> min_load * rated (see _loaded)
         # phase.v_sequence
         self.seq_has = has[:, V_ANG].all(axis=1).tolist()
         self.seq_na_map = [na("phase.v_sequence", mid, "the register map has no voltage angles") for mid in ids]
@@ -74,7 +76,10 @@ class PhasePlan:
                      for mid in ids]
 
     def _loaded(self, mag: np.ndarray, min_load: float) -> np.ndarray:
-        return (mag >= min_load * self.rated).all(axis=1) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
+        at = self._load_at.get(min_load)
+        if at is None:  # min_load x rating: profile-only, made once per threshold
+            at = self._load_at[min_load] = min_load * self.rated
+        return (mag >= at).all(axis=1) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
 
     def run(self, fr: Frame, bk: Buckets) -> None:
         lay = self.lay
@@ -82,10 +87,11 @@ class PhasePlan:
         x = fr.x
         live = fr.energized.tolist()
         na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
 
         # ---- phase.v_sequence
         ang_v = x[:, V_ANG]
-        sign = ph.sequence_sign(np.clip(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX, _FMAX)).tolist()  # = nan_to_num
+        sign = ph.sequence_sign(np.minimum(np.maximum(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX), _FMAX)).tolist()  # = nan_to_num
         good = (fr.energized & ~np.isnan(ang_v).any(axis=1)).tolist()
         for mi in range(n):
             if not self.seq_has[mi]:
@@ -127,7 +133,11 @@ class PhasePlan:
             extra = f"; NEMA MG-1 LVUR {nm:.2f} %" if nm == nm else ""
             code = FAIL if u2 > fail else WARN if u2 > warn else PASS
             if code == PASS:
-                pass_(make_msg(vu_tp[mi], u2, warn, f"voltage unbalance u2 = {u2:.2f} % {how}{extra}"))
+                r = new(CheckResult)  # base.make_msg, inlined (one per meter per run)
+                d = r.__dict__
+                d.update(vu_tp[mi])
+                d["value"], d["limit"], d["message"] = u2, warn, f"voltage unbalance u2 = {u2:.2f} % {how}{extra}"
+                pass_(r)
             else:
                 msg = (f"voltage unbalance u2 = {u2:.2f} % {how}{extra}, above {warn if code == WARN else fail:g} %: "
                        "a missing or reversed voltage connection, a blown VT fuse, or a strongly unbalanced supply")
@@ -156,7 +166,11 @@ class PhasePlan:
                 msg += f", above {warn:g} %: a very unbalanced load, or a CT or current-input wiring error (see phase.wiring)"
                 bk[WARN].append(result("phase.i_unbalance", self.ids[mi], WARN, val, warn, "%", msg, "i_unbalance"))
             else:
-                pass_(make_msg(self.iu_tp[mi], val, warn, msg))
+                r = new(CheckResult)  # base.make_msg, inlined
+                d = r.__dict__
+                d.update(self.iu_tp[mi])
+                d["value"], d["limit"], d["message"] = val, warn, msg
+                pass_(r)
 
         # ---- phase.pf_spread and phase.wiring: one set of phase-power angles
         s = x[:, P4][:, :3] + 1j * x[:, Q4][:, :3]
@@ -164,7 +178,7 @@ class PhasePlan:
         ok_pf = self._loaded(mag, self.pf_min)
         ok_w = ok_pf if self.w_min == self.pf_min else self._loaded(mag, self.w_min)
         both = ok_pf | ok_w
-        rows_l = np.flatnonzero(both)
+        rows_l = both.nonzero()[0]  # = np.flatnonzero (1-D)
         # = rad2deg(angle(S)); on the same strided views as ever (numpy's SIMD transcendental loops
         # may round differently on contiguous data), then narrowed to the loaded meters
         ang = ph.pf_angle_deg(s.real, s.imag)[rows_l]
@@ -183,7 +197,11 @@ class PhasePlan:
                 msg += f" (more than {warn:g}): very different loads per phase, or a wiring error (see phase.wiring)"
                 bk[WARN].append(result("phase.pf_spread", self.ids[mi], WARN, sp, warn, "deg", msg, "pf_spread"))
             else:
-                pass_(make_msg(self.pf_tp[mi], sp, warn, msg))
+                r = new(CheckResult)  # base.make_msg, inlined
+                d = r.__dict__
+                d.update(self.pf_tp[mi])
+                d["value"], d["limit"], d["message"] = sp, warn, msg
+                pass_(r)
         trip = self.trip
         for mi in range(n):
             fx = self.w_fixed[mi]
@@ -195,7 +213,11 @@ class PhasePlan:
             if sg is None:
                 na_(self.w_light[mi])
             elif not sg.cause:  # HEALTHY, or no fault once the hypotheses were tried
-                pass_(make(self.w_tp[mi], spread0[k], trip))
+                r = new(CheckResult)  # base.make, inlined
+                d = r.__dict__
+                d.update(self.w_tp[mi])
+                d["value"], d["limit"] = spread0[k], trip
+                pass_(r)
             else:
                 bk[FAIL].append(self._wiring_fault(fr, mi, sg))
 
