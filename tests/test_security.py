@@ -263,7 +263,7 @@ def test_static_scan_only_control_writes_to_a_device():
         (1, "write_register"), (2, "'write_coils'")]
 
 
-THREE_REMOTE = f"""  # a note first: a remote first step is asked before any poll
+THREE_REMOTE = f"""
 [[step]]
 id = "note-first"
 title = "Remark"
