@@ -255,6 +255,7 @@ class Runner:
     def _reset_step(self) -> None:
         self._settle: Settle | None = None
         self._verify_deadline: float | None = None
+        self._unread_since: float | None = None  # first snapshot whose switch status was unread
         self._captures: list[tuple[int, list[CheckResult]]] = []
         self._last_capture_t = float("-inf")
         self._settle_t0: float | None = None
@@ -301,6 +302,47 @@ class Runner:
             if got != want:
                 out.append(sid)
         return out
+
+    def _status_hold(self, snapshot: Snapshot) -> str | None:
+        """Settling and capturing: ``"changed"``, ``"unread"`` (hold this snapshot) or None.
+
+        A status read as the wrong state is a change of configuration. A status that could not
+        be read (the PLC missed a poll) proves nothing either way: the snapshot is kept but not
+        captured, and only a loss lasting past ``control.verify_timeout_s`` sends the step back.
+        """
+        bad = self._mismatches()
+        if not bad:
+            if self._unread_since is not None:
+                self._unread_since = None
+                self.message = ""
+            return None
+        actual = self._actual()
+        if any(actual.get(s, "unknown") != "unknown" for s in bad):
+            self._unread_since = None
+            self._config_changed()
+            return "changed"
+        if self._unread_since is None:
+            self._unread_since = snapshot.t_mono
+            self.message = f"status of {', '.join(bad)} not read: captures held until it is"
+            self.journal.record_event(
+                "status_unread", self.message,
+                step_id=self.step.id if self.step else None, operator=self.operator,
+            )
+        elif snapshot.t_mono - self._unread_since > self.profile.control.verify_timeout_s:
+            lost_s = snapshot.t_mono - self._unread_since
+            self._unread_since = None
+            text = ", ".join(bad)
+            self.journal.record_event(
+                "status_lost", f"status of {text} unread for {lost_s:.1f} s",
+                step_id=self.step.id if self.step else None, operator=self.operator,
+            )
+            self.message = (
+                f"status of {text} not read for {lost_s:.1f} s: check the PLC and its link, "
+                "then confirm again"
+            )
+            self._captures = []
+            self.state = State.WAITING
+        return "unread"
 
     def _record(self, snapshot: Snapshot, role: str) -> int:
         step = self.step
@@ -409,6 +451,7 @@ class Runner:
             return
         self._settle = self._settle_factory(step.capture)
         self._settle_t0 = None
+        self._unread_since = None
         self._captures = []
         self._last_capture_t = float("-inf")
         self.state = State.SETTLING
@@ -417,8 +460,8 @@ class Runner:
     def _tick_settle(self, snapshot: Snapshot) -> None:
         step = self.step
         assert step is not None and self._settle is not None
-        if self._mismatches():
-            self._config_changed()
+        hold = self._status_hold(snapshot)
+        if hold == "changed" or self.state is not State.SETTLING:
             return
         was_timed_out = self._settle.timed_out
         if self._settle_t0 is None:
@@ -447,12 +490,12 @@ class Runner:
     def _tick_capture(self, snapshot: Snapshot) -> None:
         step = self.step
         assert step is not None and step.capture is not None
-        if self._mismatches():
-            self._config_changed()
+        hold = self._status_hold(snapshot)
+        if hold == "changed" or self.state is not State.CAPTURING:
             return
         policy = step.capture
         slack = 0.5 * self.profile.poll.interval_s
-        if snapshot.t_mono - self._last_capture_t < policy.interval_s - slack:
+        if hold == "unread" or snapshot.t_mono - self._last_capture_t < policy.interval_s - slack:
             self._record(snapshot, "live")
             return
         row = self._record(snapshot, "capture")

@@ -342,3 +342,72 @@ def test_review_takes_the_median_status_per_check():
     assert [r.status for r in persistent] == [Status.FAIL]
     two = median_per_subject([batch(f), batch(w)])  # of two, both must fail to fail the step
     assert [r.status for r in two] == [Status.WARN]
+
+
+SLOW_CAPTURE_SEQUENCE = """
+[[step]]
+id = "radial"
+title = "Radial base case"
+kind = "capture"
+instruction = "Check the bench is radial, then capture."
+expect = { CB1 = "closed", SW2 = "closed", SW3 = "closed", TIE = "open", RX = "open", LB2 = "closed" }
+capture = { snapshots = 20, interval_s = 0.1, settle = { window_s = 0.5, rel_spread = 0.01, timeout_s = 6.0 } }
+"""
+
+
+def step_events(s: Session, step_id: str) -> list[str]:
+    return [e[0] for e in s.journal._conn.execute("SELECT kind FROM event WHERE step=? ORDER BY id", (step_id,))]
+
+
+async def test_a_plc_missing_polls_holds_the_capture_instead_of_aborting_it(make_session):
+    # A PLC that misses a few polls (a busy CPU, a gateway retry) leaves the switch states
+    # unknown: that proves no change of configuration, so the step must hold, not start over.
+    from meas.sim.faults import parse_faults
+
+    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=3.0))
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    await until(s, in_state(State.CAPTURING))
+    s.bench.set_faults(parse_faults(["offline:PLC1"]))
+    v = await until(s, lambda v: "not read" in v.message, timeout_s=5)
+    assert v.state is State.CAPTURING and "CB1" in v.message
+    s.bench.set_faults(())
+    v = await until(s, in_state(State.REVIEWING, State.WAITING), timeout_s=15)
+    assert v.state is State.REVIEWING, v.message
+    kinds = step_events(s, "radial")
+    assert "status_unread" in kinds
+    assert "config_changed" not in kinds and "status_lost" not in kinds
+    # no capture was taken while the status was unread: every capture row has a known state
+    rows = s.journal._conn.execute("SELECT id FROM snapshot WHERE role='capture' AND step='radial'").fetchall()
+    assert len(rows) == 20
+    for (row,) in rows:
+        assert "unknown" not in s.journal.read_snapshot(row).switches.values()
+
+
+async def test_a_plc_silent_past_the_verify_timeout_sends_the_step_back(make_session):
+    from meas.sim.faults import parse_faults
+
+    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=1.0))
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    await until(s, in_state(State.CAPTURING))
+    s.bench.set_faults(parse_faults(["offline:PLC1"]))
+    v = await until(s, in_state(State.WAITING), timeout_s=8)
+    assert "not read for" in v.message and "check the PLC" in v.message
+    kinds = step_events(s, "radial")
+    assert "status_lost" in kinds and "config_changed" not in kinds
+    assert not r.stopped
+
+
+async def test_a_status_read_in_the_wrong_state_still_sends_the_step_back_at_once(make_session):
+    s = await make_session(SLOW_CAPTURE_SEQUENCE)
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    await until(s, in_state(State.CAPTURING))
+    s.bench.operate_by_hand("TIE", "closed")
+    v = await until(s, in_state(State.WAITING), timeout_s=5)
+    assert "TIE is closed, expected open" in v.message
+    assert "config_changed" in step_events(s, "radial")

@@ -306,6 +306,15 @@ def test_snapshot_from_sim_is_primary_and_carries_comm_faults(profile):
     assert m5.get("p.T") == pytest.approx(3 * V_LN * 10 * math.cos(math.radians(30)), abs=0.5)  # int16, 1 W
 
 
+def test_snapshot_from_sim_with_a_silent_plc_reads_every_switch_unknown(profile):
+    states = {s.id: s.normal for s in profile.switches}
+    ideal = hand_readings(profile, states)
+    snap = snapshot_from_sim(profile, states, [parse_fault("offline:PLC1")], np.random.default_rng(1),
+                             seq=1, noise=False, ideal=ideal)
+    assert set(snap.switches.values()) == {"unknown"}
+    assert snap.meters["M1"].state is CommState.OK
+
+
 def test_frozen_meter_repeats_previous_snapshot(profile):
     states = {s.id: s.normal for s in profile.switches}
     rng = np.random.default_rng(5)

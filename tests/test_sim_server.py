@@ -7,6 +7,7 @@ Every test starts the demo bench on ports the OS hands out and queries it with r
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import dataclasses
 import math
 import os
@@ -21,7 +22,7 @@ import numpy as np
 import pytest
 from modbus_helpers import PtyLink, wait_until
 from pymodbus.client import AsyncModbusTcpClient
-from pymodbus.exceptions import ModbusIOException
+from pymodbus.exceptions import ModbusException, ModbusIOException
 
 from meas.errors import BenchwalkError
 from meas.model import RtuTransport
@@ -244,6 +245,35 @@ async def test_plc_refuses_coils_that_command_nothing_and_meters_refuse_writes(p
         plc.close()
         m1.close()
         await bench.stop()
+
+
+async def test_offline_plc_reports_unknown_switches_and_executes_nothing(profile):
+    bench, bound = await started(profile, ["offline:PLC1"])
+    poller = Poller(bound)
+    plc = client_for(bound.plcs[0].transport, timeout=0.3)
+    try:
+        snap = await poller.poll_once()
+        assert set(snap.switches.values()) == {"unknown"}  # no answer: no state can be claimed
+        assert snap.meters["M1"].state is CommState.OK  # the meters keep answering
+        await plc.connect()
+        rr = None
+        with contextlib.suppress(ModbusException):
+            rr = await plc.write_coil(0, False, device_id=1)  # CB1 command coil
+        assert rr is None or rr.isError()
+        assert bench.plc.commands == [] and bench.switch_states()["CB1"] == "closed"
+        bench.set_faults(())  # back on line: the poller reads the states again
+        deadline = time.monotonic() + 3.0
+        while "unknown" in (await poller.poll_once()).switches.values():
+            assert time.monotonic() < deadline, "switch states never came back"
+    finally:
+        plc.close()
+        await poller.close()
+        await bench.stop()
+
+
+def test_a_plc_takes_only_comm_faults(profile):
+    with pytest.raises(BenchwalkError, match="PLC1 is a PLC; a PLC takes only exception or offline"):
+        SimulatedBench(profile, [parse_fault("frozen:PLC1")], port_map="free")
 
 
 async def test_port_in_use_is_one_clear_error(profile):

@@ -17,7 +17,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         action="append",
         default=[],
         metavar="KIND:METER[:ARG]",
-        help="inject a fault, e.g. ct-reversed:M3:B, offline:M6, slow:M2:1.5 (repeatable; see docs/faults.md)",
+        help="inject a fault, e.g. ct-reversed:M3:B, offline:M6, offline:PLC1, slow:M2:1.5 (repeatable; see docs/faults.md)",
     )
     p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, loopback only)")
     p.add_argument("--free-ports", action="store_true", help="let the OS pick free ports instead of the profile's")

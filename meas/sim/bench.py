@@ -143,6 +143,7 @@ class SimulatedBench:
         self.plc = PlcSim(profile, t=clock())
         self._faults: tuple[Fault, ...] = tuple(faults)
         self._gates: dict[str, UnitGate] = {m.id: UnitGate() for m in profile.meters}
+        self._gates.update({p.id: UnitGate() for p in profile.plcs})
         self._cache: dict[tuple, dict[str, Phasors]] = {}
         self._transient: Transient | None = None
         self._layouts = {m.id: _RegisterLayout.of(profile.maps[m.map_id].registers) for m in profile.meters}
@@ -313,7 +314,7 @@ class SimulatedBench:
                 log.info("PLC %s: coil %d <- %s", plc.id, address, value)
             return ok
 
-        return plc_device(plc.unit_id, coils, discretes, on_write)
+        return plc_device(plc.unit_id, coils, discretes, on_write, self._gates[plc.id])
 
     async def start(self) -> Profile:
         """Serve every TCP endpoint and start updating; the profile as actually bound."""

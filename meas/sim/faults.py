@@ -111,13 +111,26 @@ def parse_faults(texts: Iterable[str]) -> tuple[Fault, ...]:
     return tuple(parse_fault(t) for t in texts)
 
 
+# faults a PLC can have as well as a meter: it stops answering, or answers with an exception
+PLC_KINDS = frozenset({"offline", "exception"})
+
+
 def validate_faults(profile: Profile, faults: Sequence[Fault]) -> None:
-    """Every fault names a meter of the profile; wiring faults need a current-measuring meter."""
+    """Every fault names a meter (or, for a comm fault, a PLC) of the profile; wiring faults
+    need a current-measuring meter."""
     ids = [m.id for m in profile.meters]
+    plcs = [p.id for p in profile.plcs]
     for f in faults:
+        if f.meter in plcs:
+            if f.kind not in PLC_KINDS:
+                raise BenchwalkError(
+                    f"fault {f.text!r}: {f.meter} is a PLC; a PLC takes only {' or '.join(sorted(PLC_KINDS))}"
+                )
+            continue
         if f.meter not in ids:
+            known = ", ".join(ids) + (f"; PLCs: {', '.join(plcs)}" if plcs else "")
             raise BenchwalkError(
-                f"fault {f.text!r}: meter {f.meter!r} is not in {profile.path}; meters: {', '.join(ids)}"
+                f"fault {f.text!r}: meter {f.meter!r} is not in {profile.path}; meters: {known}"
             )
         if f.kind in {"ct-reversed", "phases-swapped", "ct-ratio"} and profile.meter(f.meter).branch is None:
             raise BenchwalkError(f"fault {f.text!r}: meter {f.meter} measures no current")

@@ -255,8 +255,20 @@ def snapshot_of(
         time_utc=now,
         t_mono=time.monotonic() if t_mono is None else t_mono,
         meters=blocks,
-        switches=dict(switch_states),
+        switches={
+            sid: "unknown" if _plc_silent(profile, sid, faults) else state
+            for sid, state in switch_states.items()
+        },
     )
+
+
+def _plc_silent(profile: Profile, switch_id: str, faults: Sequence[Fault]) -> bool:
+    """True when the PLC reporting this switch has a comm fault, so its status reads unknown."""
+    try:
+        plc = profile.switch(switch_id).plc
+    except KeyError:
+        return False
+    return plc is not None and any(f.meter == plc and f.kind in ("offline", "exception") for f in faults)
 
 
 def snapshot_from_sim(

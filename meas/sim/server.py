@@ -98,16 +98,24 @@ def plc_device(
     coils: Iterable[int],
     discretes: Iterable[int],
     on_coil_write: Callable[[int, bool], bool],
+    gate: UnitGate | None = None,
 ) -> SimDevice:
     """The PLC: coils (commands, coil status points) and discrete inputs (status points).
 
     ``on_coil_write(address, value)`` returns False for a coil no switch is commanded by;
-    such a write is refused with exception 2 and changes nothing.
+    such a write is refused with exception 2 and changes nothing. ``gate`` injects the same
+    comm faults as a meter's (offline, exception); an offline PLC executes no command.
     """
+    gate = gate if gate is not None else UnitGate()
 
     async def action(fc, _start, address, _count, _regs, set_values):
         if set_values is not None and fc in READ_FC:
             return None  # the bench's own update
+        gate.requests += 1
+        if gate.offline:
+            raise NoSuchIdException(f"unit {unit_id} offline")
+        if gate.exception_code:
+            return ExcCodes(gate.exception_code)
         if fc in (FC_HOLDING, FC_INPUT, 6, 16):
             return ExcCodes.ILLEGAL_ADDRESS
         if fc in COIL_WRITE_FC and set_values is not None:
