@@ -304,3 +304,17 @@ async def test_remote_status_not_following_is_a_clear_failure(tmp_path):
         await pilot.press("enter")
         await until(pilot, lambda: isinstance(app.screen, MainScreen), 5, "alert acknowledged")
         assert main.frame.step.overall == "inconsistent"
+
+
+async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(tmp_path):
+    app = make_app(tmp_path, skip_intro=True, operator="AT")
+    async with app.run_test(size=(80, 24)) as pilot:
+        main = await open_main(pilot, app)
+        runner = app.bridge.runner
+        await until(pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture")
+        await tap(pilot, "c")
+        notice = str(main.query_one("#notice").content)
+        assert "capture started" in notice and "recorded" not in notice
+        await tap(pilot, "a")  # nothing to accept while settling: the key is inert
+        assert str(main.query_one("#notice").content) == notice
+        assert all(r["state"] != "accepted" for r in runner.journal.step_history())

@@ -42,6 +42,17 @@ WIDE_MIN = (110, 34)
 _STEP_ACTIONS = {"operated", "remote", "capture", "accept", "retake", "skip", "sign"}
 
 
+# what the technician is told once a step command is taken (journalled by the runner)
+_DONE_WORDS = {
+    "confirm_operation": "operation confirmed: verifying the switch status",
+    "capture": "capture started: settling, then capturing",
+    "retake": "retake started: settling again",
+    "accept": "step accepted",
+    "skip": "step skipped, reason journalled",
+    "note": "note journalled",
+    "sign": "hold point signed off",
+}
+
 class MainScreen(Screen):
     BINDINGS = bindings()
 
@@ -231,7 +242,7 @@ class MainScreen(Screen):
     # ------------------------------------------------------------------ step actions
     def _run(self, name: str, *args) -> None:
         refusal = self.bridge.command(name, *args)
-        self.notice(f"\u2718 {refusal}" if refusal else f"\u2714 {name.replace('_', ' ')} recorded")
+        self.notice(f"\u2718 {refusal}" if refusal else f"\u2714 {_DONE_WORDS.get(name, name.replace('_', ' '))}")
         self._repaint_now()
 
     def _repaint_now(self) -> None:
