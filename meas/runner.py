@@ -433,13 +433,19 @@ class Runner:
                 "mismatch", text, step_id=step.id, operator=self.operator,
                 data={"actual": self._actual(), "expected": self.expected()},
             )
-            self.message = f"{text}; set the switches as instructed, then confirm again"
+            unread = all(self._actual().get(s, "unknown") == "unknown" for s in bad)
+            todo = "check the PLC and its link" if unread else "set the switches as instructed"
+            self.message = f"{text}; {todo}, then confirm again"
             self._verify_deadline = None
             self.state = State.WAITING
 
     def _mismatch_text(self, bad: Sequence[str]) -> str:
         actual, want = self._actual(), self.expected()
-        return ", ".join(f"{s} is {actual.get(s, 'unknown')}, expected {want[s]}" for s in bad)
+        return ", ".join(
+            f"{s} not read, expected {want[s]}" if actual.get(s, "unknown") == "unknown"
+            else f"{s} is {actual[s]}, expected {want[s]}"
+            for s in bad
+        )
 
     def _start_settle(self) -> None:
         step = self.step
@@ -584,9 +590,11 @@ class Runner:
         todo = {s for s, _ in self._remote_todo()}
         others = [s for s in self._mismatches() if s not in todo]
         if others:
+            unread = all(self._actual().get(s, "unknown") == "unknown" for s in others)
             raise BenchwalkError(
                 f"the bench is not as this step expects ({self._mismatch_text(others)}): "
-                "set it right before sending a command"
+                + ("no command is sent while switch status cannot be read; check the PLC and its link"
+                   if unread else "set it right before sending a command")
             )
         self._pending = (switch_id, state)
         self.journal.record_event(

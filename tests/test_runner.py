@@ -411,3 +411,56 @@ async def test_a_status_read_in_the_wrong_state_still_sends_the_step_back_at_onc
     v = await until(s, in_state(State.WAITING), timeout_s=5)
     assert "TIE is closed, expected open" in v.message
     assert "config_changed" in step_events(s, "radial")
+
+
+async def test_a_capture_with_the_plc_silent_asks_to_check_the_plc_not_the_switches(make_session):
+    s = await make_session(edit=lambda t: fast_profile_text(t, verify_timeout_s=0.5), faults=["offline:PLC1"])
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    v = await until(s, lambda v: v.state is State.WAITING and v.message, timeout_s=8)
+    assert "CB1 not read, expected closed" in v.message and "check the PLC and its link" in v.message
+    assert "set the switches" not in v.message
+    assert states_of(s, "radial") == ["waiting"]  # never verified, so never settled or captured
+
+
+ONE_STEP = SLOW_CAPTURE_SEQUENCE.replace("snapshots = 20", "snapshots = 2")
+
+
+@pytest.mark.parametrize("decision, code, word", [("accept", 0, "PASS"), ("skip", 1, "INCOMPLETE (1 of 1 steps skipped: radial)")])
+async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(make_session, decision, code, word):
+    import io
+
+    from meas.commands.run import summarize
+
+    s = await make_session(ONE_STEP, name=decision)
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    if decision == "accept":
+        r.capture()
+        await until(s, in_state(State.REVIEWING))
+        r.accept()
+    else:
+        r.skip("bench not available today")
+    assert r.finished
+    out = io.StringIO()
+    assert summarize(s, out) == code
+    assert out.getvalue().rstrip().endswith(f"Session {s.session_id}: {word}")
+
+
+async def test_the_demo_technician_gives_up_on_a_silent_plc_and_the_run_ends_incomplete(make_session):
+    import io
+
+    from meas.commands.demo import SimTechnician
+    from meas.commands.run import drive
+
+    sequence = ONE_STEP + TEST_SEQUENCE.split("[[step]]", 3)[2].join(["[[step]]", ""])  # + the remote RX step
+    s = await make_session(sequence, edit=lambda t: fast_profile_text(t, verify_timeout_s=0.3), faults=["offline:PLC1"])
+    out = io.StringIO()
+    code = await drive(s, SimTechnician(s.bench, out=out, attempts=2), out)
+    text = out.getvalue()
+    assert code == 1, text
+    assert "gave up after 2 tries" in text and "check the PLC and its link" in text
+    assert "remote command refused" in text and "no command is sent while switch status cannot be read" in text
+    assert [c for c in s.bench.plc.commands if c[3] != "hand"] == []  # nothing was switched remotely
+    assert "INCOMPLETE (2 of 2 steps skipped: radial, rx-in)" in text

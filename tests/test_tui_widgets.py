@@ -18,11 +18,13 @@ from meas.results import CheckResult, Status
 from meas.sim.faults import parse_fault
 from meas.sim.meters import snapshot_from_sim
 from meas.snapshot import CommState
+from tui.frame import StepInfo
 from tui.units import eng, scale_factor
 from tui.widgets.bench import energized_buses
 from tui.widgets.checks import checks_text
 from tui.widgets.phasor import phasor_canvas, phasor_text
 from tui.widgets.readings import row_cells
+from tui.widgets.step import step_detail
 from tui.widgets.trend import trend_rows, window_spread
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
@@ -171,3 +173,20 @@ def test_trend_spread_is_the_settle_figure():
     assert window_spread([99.0, 100.0, 101.0]) == pytest.approx(0.02)
     rows = trend_rows([0.0, 1.0, 2.0, 3.0], 2)
     assert rows[1][0] == "\u2581" and rows[0][3] == "\u2588"  # lowest and highest bar
+
+
+def test_step_detail_tells_a_wrong_status_from_an_unread_one_and_from_one_taken_on_word():
+    step = StepInfo(
+        index=2, total=5, step_id="s", title="t", instruction="Close the tie.", kind="manual", state="waiting",
+        expected={"CB1": "closed", "TIE": "closed", "RX": "open", "LB2": "closed"},
+        actual={"CB1": "closed", "TIE": "open", "RX": "unknown", "LB2": "unknown"},
+        flagged=("TIE", "RX"),  # the runner: LB2 has no status point, so it is not flagged
+    )
+    lines = step_detail(step).plain.splitlines()
+    assert "\u2714 as expected: CB1 closed" in lines
+    assert "\u2718 MISMATCH TIE: expected closed, reads open" in lines
+    unread = next(line for line in lines if line.startswith("? STATUS NOT READ"))
+    assert "RX (expected open)" in unread and "PLC" in unread and "TIE" not in unread
+    on_word = next(line for line in lines if "on your word" in line)
+    assert "LB2 closed" in on_word
+    assert not any("MISMATCH RX" in line or "MISMATCH LB2" in line for line in lines)

@@ -76,6 +76,7 @@ def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...
             captured=view.captured,
             to_capture=view.capture_target if step.capture is not None else 0,
             finished=finished,
+            flagged=tuple(view.mismatches) if hasattr(view, "mismatches") else None,
         )
         return Frame(snapshot, tuple(view.results), info, events, window)
     return Frame(snapshot, tuple(view.results), info, events)

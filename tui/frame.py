@@ -43,9 +43,14 @@ class StepInfo:
     captured: int = 0
     to_capture: int = 0
     finished: bool = False
+    flagged: tuple[str, ...] | None = None  # the runner's mismatches; None: every difference
 
     @property
     def mismatches(self) -> list[str]:
+        """Switches the step cannot go on with: the runner's list when it gave one (a switch
+        without a status point reads unknown but is taken on the technician's word)."""
+        if self.flagged is not None:
+            return list(self.flagged)
         return [s for s, want in self.expected.items() if self.actual.get(s) != want]
 
 

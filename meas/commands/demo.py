@@ -28,13 +28,26 @@ class SimTechnician:
     """Answers every prompt the way a careful technician would, on the simulated bench.
 
     Failing reviews: one retake, then a gate-allow step is accepted with a recorded reason
-    and a gate-block step is skipped with a reason, so the run ends and exits 1.
+    and a gate-block step is skipped with a reason, so the run ends and exits 1. A step whose
+    switch status cannot be verified (a silent PLC) is tried ``attempts`` times, then skipped
+    with the runner's last message as the reason.
     """
 
     def __init__(self, bench, operator: str = SIM_OPERATOR, retakes: int = 1,
-                 out: TextIO = sys.stdout):
+                 out: TextIO = sys.stdout, attempts: int = 3):
         self.bench, self.operator, self.retakes, self.out = bench, operator, retakes, out
+        self.attempts = attempts
         self._retaken: dict[str, int] = {}
+        self._tried: dict[str, int] = {}
+
+    def _give_up(self, runner: Runner, view: RunnerView) -> bool:
+        """True (and the step skipped) once this step has been tried ``attempts`` times."""
+        n = self._tried[view.step.id] = self._tried.get(view.step.id, 0) + 1
+        if n <= self.attempts:
+            return False
+        print(f"  switch status still not as expected after {self.attempts} tries: skipping", file=self.out)
+        runner.skip(f"{self.operator}: gave up after {self.attempts} tries: {view.message or 'switch status not verified'}")
+        return True
 
     def _set_by_hand(self, runner: Runner, view: RunnerView, keep: set[str] = frozenset()) -> None:
         for sid in view.mismatches:
@@ -48,15 +61,25 @@ class SimTechnician:
         if step is None or a in ("wait", "none"):
             return
         if a == "confirm_operation":
+            if self._give_up(runner, view):
+                return
             self._set_by_hand(runner, view)
             runner.confirm_operation()
         elif a == "capture":
+            if self._give_up(runner, view):
+                return
             self._set_by_hand(runner, view)
             runner.capture()
         elif a == "request_remote":
             self._set_by_hand(runner, view, keep={s for s, _ in view.remote_todo})
             sid, state = view.remote_todo[0]
-            print(f"  {runner.request_remote(sid, state)} yes ({self.operator})", file=self.out)
+            try:
+                question = runner.request_remote(sid, state)
+            except BenchwalkError as exc:  # refused (e.g. status unreadable): nothing was sent
+                print(f"  remote command refused: {exc}; skipping", file=self.out)
+                runner.skip(f"{self.operator}: remote command not sent: {exc}")
+                return
+            print(f"  {question} yes ({self.operator})", file=self.out)
             await runner.confirm_remote(sid, state, self.operator)
         elif a == "accept":
             runner.accept()

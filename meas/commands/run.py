@@ -182,9 +182,16 @@ def summarize(session: Session, out: TextIO) -> int:
             print(f"  {step_id:<20} {r.check:<22} {r.subject:<8} {r.cause:<16} {r.message}",
                   file=out)
     verdict = runner.verdict()
-    print(f"\nSession {session.session_id}: {'FAIL' if verdict is Status.FAIL else 'PASS'}",
-          file=out)
-    return EXIT_FAIL if verdict is Status.FAIL else EXIT_PASS
+    skipped = [o.step_id for o in runner.outcomes.values() if o.outcome == "skipped"]
+    if verdict is Status.FAIL:
+        word = "FAIL"
+    elif skipped:
+        # nothing failed, but the measurement set has holes: not a pass to put in a report
+        word = f"INCOMPLETE ({len(skipped)} of {len(runner.profile.steps)} steps skipped: {', '.join(skipped)})"
+    else:
+        word = "PASS"
+    print(f"\nSession {session.session_id}: {word}", file=out)
+    return EXIT_PASS if word == "PASS" else EXIT_FAIL
 
 
 async def finish(session: Session, code: int, out_dir: Path | None, out: TextIO) -> int:

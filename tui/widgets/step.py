@@ -35,15 +35,26 @@ def step_detail(step: StepInfo | None) -> Text:
     out = Text()
     out.append(step.instruction.strip() + "\n")
     if step.expected:
-        # matches share one line; every mismatch gets its own line, marked in words
+        # matches share one line; a status read in the wrong state gets its own line; statuses
+        # not read at all share one line, since they prove nothing either way
+        flagged = set(step.mismatches)
         good = [sw for sw, want in step.expected.items() if step.actual.get(sw, "unknown") == want]
-        bad = [sw for sw in step.expected if sw not in good]
+        on_word = [sw for sw in step.expected if sw not in good and sw not in flagged]
+        unread = [sw for sw in step.expected if sw in flagged and step.actual.get(sw, "unknown") == "unknown"]
+        wrong = [sw for sw in step.expected if sw in flagged and sw not in unread]
         if good:
             out.append("\u2714 as expected: ", style="green")
             out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in good) + "\n")
-        for sw in bad:
+        for sw in wrong:
             out.append("\u2718 MISMATCH", style="bold white on red")
-            out.append(f" {sw}: expected {step.expected[sw]}, reads {step.actual.get(sw, 'unknown')}\n")
+            out.append(f" {sw}: expected {step.expected[sw]}, reads {step.actual[sw]}\n")
+        if unread:
+            out.append("? STATUS NOT READ", style="bold black on yellow")
+            out.append(" " + ", ".join(f"{sw} (expected {step.expected[sw]})" for sw in unread)
+                       + ": no answer from the PLC; check the PLC and its link\n")
+        if on_word:
+            out.append("\u2022 no status point, on your word: ", style="dim")
+            out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in on_word) + "\n")
     if step.remote_switches:
         out.append("remote operation available: " + ", ".join(step.remote_switches) + " (press r)\n", style="bold")
     return out
