@@ -793,6 +793,10 @@ class Runner:
         step = self.step
         st = self.state
         if st is State.FINISHED:
+            skipped = [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
+            if skipped:
+                return "none", (f"The sequence is complete, but incomplete as a record: {len(skipped)} "
+                                f"step(s) skipped ({', '.join(skipped)}).")
             return "none", "The sequence is complete."
         if st is State.STOPPED:
             return "none", f"Stopped: {self.message}. Resume the session when the cause is cleared."

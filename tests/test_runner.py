@@ -443,6 +443,7 @@ async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(make_sessi
     else:
         r.skip("bench not available today")
     assert r.finished
+    assert ("incomplete as a record: 1 step(s) skipped (radial)" in r.view().next_action) is (decision == "skip")
     out = io.StringIO()
     assert summarize(s, out) == code
     assert out.getvalue().rstrip().endswith(f"Session {s.session_id}: {word}")
