@@ -157,6 +157,14 @@ class RunnerView:
     polled: bool = False  # a snapshot has been fed; before that switch states are unknown
 
 
+HISTORY_CHECKS = frozenset({"quality.noise", "quality.frozen"})  # checks that read earlier snapshots
+
+
+def _settling_na(r: CheckResult) -> CheckResult:
+    return CheckResult(r.check, r.subject, Status.NA, unit=r.unit,
+                       message="not judged while the readings settle after switching")
+
+
 def median_per_subject(batches: Sequence[Sequence[CheckResult]]) -> list[CheckResult]:
     """One result per (check, subject): the median by severity over the capture snapshots.
 
@@ -214,6 +222,11 @@ class Runner:
         self._tick_history: list[Snapshot] = []
         self._last: Snapshot | None = None
         self._last_live_t = float("-inf")
+        # live checks that read the history (noise, frozen) wait for the readings to settle
+        # after any switching seen in the status, by the same criterion as a capture
+        self._known_switches: dict[str, str] = {}
+        self._live_settle: Settle | None = None
+        self._live_steady_t0 = float("-inf")
         self._live_results: list[CheckResult] = []
         self.index = start_index
         self.state = State.WAITING
@@ -376,6 +389,7 @@ class Runner:
         self._history.append(snapshot)
         if self.done:
             return
+        self._follow_switching(snapshot)
         self._tick_results: list[CheckResult] | None = None
         if self.live_checks:
             self._live_results = self._results_for(snapshot)
@@ -394,6 +408,33 @@ class Runner:
             self._last_live_t = snapshot.t_mono
             self._record(snapshot, "live")
 
+    def _follow_switching(self, snapshot: Snapshot) -> None:
+        """Restart the live settle watch when a switch is seen in a new (known) state."""
+        changed = False
+        for sid, st in snapshot.switches.items():
+            if st == "unknown":
+                continue  # an unread status proves no operation
+            if self._known_switches.get(sid, st) != st:
+                changed = True
+            self._known_switches[sid] = st
+        if changed:
+            step = self.step
+            policy = step.capture if step is not None and step.capture is not None else None
+            if policy is None:
+                policy = next((s.capture for s in self.profile.steps if s.capture is not None), CapturePolicy())
+            self._live_settle = self._settle_factory(policy)
+            self._live_steady_t0 = float("inf")
+        live = self._live_settle
+        if live is None:
+            return
+        live.update(snapshot)
+        if live.settled:
+            self._live_steady_t0 = snapshot.t_mono - live.elapsed_s + live.settle_s
+            self._live_settle = None
+        elif live.timed_out:  # never steady: judge from here on rather than never
+            self._live_steady_t0 = snapshot.t_mono
+            self._live_settle = None
+
     def _results_for(self, snapshot: Snapshot) -> list[CheckResult]:
         """Check results for this tick's snapshot, computed at most once per tick."""
         if self._tick_results is None:
@@ -402,7 +443,14 @@ class Runner:
                 # judge captures against the steady stretch only: a switching transient in the
                 # history would read as noise or disagreement
                 history = [h for h in history if h.t_mono >= self._steady_t0]
-            self._tick_results = self._checks(snapshot, history)
+                results = self._checks(snapshot, history)
+            else:
+                history = [h for h in history if h.t_mono >= self._live_steady_t0]
+                results = self._checks(snapshot, history)
+                if self._live_settle is not None:
+                    results = [_settling_na(r) if r.check in HISTORY_CHECKS and r.status is Status.NA else r
+                               for r in results]
+            self._tick_results = results
             self._tick_history = history
         return self._tick_results
 
