@@ -833,6 +833,8 @@ class Runner:
     def _overall(self, results: Sequence[CheckResult]) -> str:
         if self.state in (State.OPERATING, State.VERIFYING, State.SETTLING):
             return "settling"
+        if self.state is State.WAITING and self._live_settle is not None:
+            return "settling"  # a switch was seen operating: the readings are still moving
         if self._last is None or self.done:
             return "waiting"
         return "inconsistent" if overall(list(results)) is Status.FAIL else "consistent"

@@ -166,6 +166,9 @@ def test_failures_first_with_their_cause():
     assert text.index("FAIL") < text.index("WARN")
     assert "CT of phase B looks reversed." in text
     assert "INCONSISTENT" in text and "\u2718" in text  # word and symbol, not colour alone
+    assert "provisional" not in text
+    settling = checks_text(results, "settling").plain.splitlines()
+    assert "provisional until they settle" in settling[1]  # said before the first failure line
 
 
 def test_trend_spread_is_the_settle_figure():

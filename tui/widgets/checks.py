@@ -42,6 +42,8 @@ def checks_text(results: tuple[CheckResult, ...] | list[CheckResult], overall: s
     out.append(
         f"  {counts[Status.FAIL]} fail  {counts[Status.WARN]} warn  {counts[Status.PASS]} pass  {counts[Status.NA]} n/a"
     )
+    if overall == "settling" and results:
+        out.append("\n~ readings still moving after switching: provisional until they settle", style="bold")
     shown = 0
     for r in ordered:
         if r.status in (Status.PASS, Status.NA) or shown >= limit:
