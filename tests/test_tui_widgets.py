@@ -193,3 +193,14 @@ def test_step_detail_tells_a_wrong_status_from_an_unread_one_and_from_one_taken_
     on_word = next(line for line in lines if "on your word" in line)
     assert "LB2 closed" in on_word
     assert not any("MISMATCH RX" in line or "MISMATCH LB2" in line for line in lines)
+
+
+def test_step_detail_shows_the_switch_still_to_operate_as_a_task_not_a_mismatch():
+    common = dict(index=3, total=5, step_id="s", title="t", instruction="Close SW2.", kind="remote",
+                  expected={"SW2": "closed", "TIE": "open"}, actual={"SW2": "open", "TIE": "closed"},
+                  flagged=("SW2", "TIE"), to_operate=("SW2",))
+    lines = step_detail(StepInfo(state="waiting", **common)).plain.splitlines()
+    assert "\u2192 TO OPERATE SW2: reads open, this step sets it closed" in lines
+    assert "\u2718 MISMATCH TIE: expected open, reads closed" in lines  # not this step's to operate
+    after = step_detail(StepInfo(state="verifying", **common)).plain.splitlines()
+    assert "\u2718 MISMATCH SW2: expected closed, reads open" in after  # once operated, a difference is wrong

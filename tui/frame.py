@@ -44,6 +44,7 @@ class StepInfo:
     to_capture: int = 0
     finished: bool = False
     flagged: tuple[str, ...] | None = None  # the runner's mismatches; None: every difference
+    to_operate: tuple[str, ...] = ()  # switches this step operates (by hand or remotely)
 
     @property
     def mismatches(self) -> list[str]:

@@ -46,6 +46,10 @@ def step_detail(step: StepInfo | None) -> Text:
             out.append("\u2714 as expected: ", style="green")
             out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in good) + "\n")
         for sw in wrong:
+            if step.state == "waiting" and sw in step.to_operate:  # not done yet, not wrong
+                out.append("\u2192 TO OPERATE", style="bold reverse")
+                out.append(f" {sw}: reads {step.actual[sw]}, this step sets it {step.expected[sw]}\n")
+                continue
             out.append("\u2718 MISMATCH", style="bold white on red")
             out.append(f" {sw}: expected {step.expected[sw]}, reads {step.actual[sw]}\n")
         if unread:
