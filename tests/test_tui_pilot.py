@@ -312,6 +312,10 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         main = await open_main(pilot, app)
         runner = app.bridge.runner
         await until(pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture")
+        # the demo bench starts in its normal (energized) state and the dead-bench step expects
+        # every switch open: the next-action line says the key will set them by hand
+        await until(pilot, lambda: "simulated bench: C also sets CB1" in main.query_one("#summary").content.plain,
+                    5, "the simulated-hands hint")
         await tap(pilot, "c")
         notice = str(main.query_one("#notice").content)
         assert "capture started" in notice and "recorded" not in notice

@@ -36,14 +36,21 @@ ACTION_KEYS: dict[str, str] = {
 }
 
 
-def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...] = ()) -> Frame:
-    """A console frame from a RunnerView (duck-typed, so tests can hand-build either)."""
+def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...] = (),
+                    simulated_hands: bool = False) -> Frame:
+    """A console frame from a RunnerView (duck-typed, so tests can hand-build either).
+
+    ``simulated_hands``: on the simulated bench the capture and confirm keys also set the
+    mismatched switches by hand, and the next-action line says so.
+    """
     step = view.step
     action = getattr(view, "action", "none")
     keys = ACTION_KEYS.get(action, "")
     if action == "retake" and getattr(view, "settle_timed_out", False):
         keys = "C capture anyway, X wait again, S skip"
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
+    if simulated_hands and action in ("capture", "confirm_operation") and getattr(view, "mismatches", ()):
+        next_action += f" (simulated bench: {keys} also sets {', '.join(view.mismatches)} by hand)"
     state = str(getattr(view.state, "value", view.state))
     finished = state in ("finished", "stopped")
     if step is None:
@@ -134,7 +141,8 @@ class Bridge:
             self._last_state = mark
             self.transitions += 1
         events, self._events = tuple(self._events), []
-        return frame_from_view(view, self.last_snapshot, events)
+        hands = getattr(self.session, "bench", None) is not None
+        return frame_from_view(view, self.last_snapshot, events, simulated_hands=hands)
 
     def _simulated_hands(self, keep: set[str] = frozenset()) -> None:
         bench = getattr(self.session, "bench", None)
