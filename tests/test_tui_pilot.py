@@ -24,6 +24,7 @@ from tui.screens.prompt import Alert, TextPrompt
 from tui.screens.remote import RemoteConfirm
 from tui.screens.safety import SafetyScreen
 from tui.screens.start import StartScreen
+from tui.widgets.step import StepDetail
 
 DEMO_DIR = Path(__file__).resolve().parents[1] / "profiles_demo"
 FAST_CAPTURE = "{ snapshots = 1, interval_s = 0.2, settle = { window_s = 0.6, rel_spread = 0.005, timeout_s = 6.0 } }"
@@ -313,8 +314,8 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         runner = app.bridge.runner
         await until(pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture")
         # the demo bench starts in its normal (energized) state and the dead-bench step expects
-        # every switch open: the next-action line says the key will set them by hand
-        await until(pilot, lambda: "simulated bench: C also sets CB1" in main.query_one("#summary").content.plain,
+        # every switch open: the step panel says the key will set them by hand
+        await until(pilot, lambda: "simulated bench: C also sets CB1" in main.query_one(StepDetail).content.plain,
                     5, "the simulated-hands hint")
         await tap(pilot, "c")
         notice = str(main.query_one("#notice").content)

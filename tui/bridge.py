@@ -41,7 +41,7 @@ def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...
     """A console frame from a RunnerView (duck-typed, so tests can hand-build either).
 
     ``simulated_hands``: on the simulated bench the capture and confirm keys also set the
-    mismatched switches by hand, and the next-action line says so.
+    mismatched switches by hand, and the step panel says so.
     """
     step = view.step
     action = getattr(view, "action", "none")
@@ -49,8 +49,9 @@ def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...
     if action == "retake" and getattr(view, "settle_timed_out", False):
         keys = "C capture anyway, X wait again, S skip"
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
+    hint = ""
     if simulated_hands and action in ("capture", "confirm_operation") and getattr(view, "mismatches", ()):
-        next_action += f" (simulated bench: {keys} also sets {', '.join(view.mismatches)} by hand)"
+        hint = f"simulated bench: {keys} also sets {', '.join(view.mismatches)} by hand for you"
     state = str(getattr(view.state, "value", view.state))
     finished = state in ("finished", "stopped")
     if step is None:
@@ -85,6 +86,7 @@ def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...
             finished=finished,
             flagged=tuple(view.mismatches) if hasattr(view, "mismatches") else None,
             to_operate=tuple(getattr(step, "operate", None) or ()),
+            hint=hint,
         )
         return Frame(snapshot, tuple(view.results), info, events, window)
     return Frame(snapshot, tuple(view.results), info, events)

@@ -45,6 +45,7 @@ class StepInfo:
     finished: bool = False
     flagged: tuple[str, ...] | None = None  # the runner's mismatches; None: every difference
     to_operate: tuple[str, ...] = ()  # switches this step operates (by hand or remotely)
+    hint: str = ""  # a line for the step panel (e.g. what the simulated bench does for you)
 
     @property
     def mismatches(self) -> list[str]:

@@ -59,6 +59,8 @@ def step_detail(step: StepInfo | None) -> Text:
         if on_word:
             out.append("\u2022 no status point, on your word: ", style="dim")
             out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in on_word) + "\n")
+    if step.hint:
+        out.append(step.hint + "\n", style="italic")
     if step.remote_switches:
         out.append("remote operation available: " + ", ".join(step.remote_switches) + " (press r)\n", style="bold")
     return out
