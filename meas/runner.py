@@ -155,6 +155,7 @@ class RunnerView:
     message: str = ""  # last notice (e.g. why verification failed)
     operator: str = ""
     polled: bool = False  # a snapshot has been fed; before that switch states are unknown
+    to_operate: tuple[str, ...] = ()  # switches a manual or remote step changes from the step before
 
 
 HISTORY_CHECKS = frozenset({"quality.noise", "quality.frozen"})  # checks that read earlier snapshots
@@ -828,7 +829,16 @@ class Runner:
             message=self.message,
             operator=self.operator,
             polled=self._last is not None,
+            to_operate=self._to_operate(),
         )
+
+    def _to_operate(self) -> tuple[str, ...]:
+        step = self.step
+        if step is None or step.kind not in ("manual", "remote"):
+            return ()
+        now = self._configs[self.index]
+        before = self._configs[self.index - 1] if self.index > 0 else {}
+        return tuple(sid for sid, st in now.items() if before.get(sid) != st or sid in step.operate)
 
     def _overall(self, results: Sequence[CheckResult]) -> str:
         if self.state in (State.OPERATING, State.VERIFYING, State.SETTLING):

@@ -128,6 +128,7 @@ async def test_full_walk_through_every_kind(make_session):
     r = s.runner
     v = await until(s, lambda v: bool(v.actual))  # a first snapshot has arrived
     assert v.state is State.WAITING and v.action == "capture" and v.index == 0 and v.total == 5
+    assert v.to_operate == ()  # a capture step operates nothing
     with pytest.raises(BenchwalkError, match="capture step"):
         r.confirm_operation()
     with pytest.raises(BenchwalkError, match="cannot accept now"):
@@ -193,6 +194,7 @@ async def test_full_walk_through_every_kind(make_session):
     # manual step: the technician closes the tie by hand, then confirms
     v = r.view()
     assert v.step.id == "tie" and v.action == "confirm_operation" and v.mismatches == ("TIE",)
+    assert v.to_operate == ("TIE",)  # what this manual step changes from the step before
     s.bench.operate_by_hand("TIE", "closed")
     r.confirm_operation()
     v = await until(s, in_state(State.REVIEWING))

@@ -85,7 +85,7 @@ def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...
             to_capture=view.capture_target if step.capture is not None else 0,
             finished=finished,
             flagged=tuple(view.mismatches) if hasattr(view, "mismatches") else None,
-            to_operate=tuple(getattr(step, "operate", None) or ()),
+            to_operate=tuple(getattr(view, "to_operate", ())),
             hint=hint,
         )
         return Frame(snapshot, tuple(view.results), info, events, window)
