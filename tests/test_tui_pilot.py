@@ -318,8 +318,9 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         await until(pilot, lambda: "simulated bench: C also sets CB1" in main.query_one(StepDetail).content.plain,
                     5, "the simulated-hands hint")
         await tap(pilot, "c")
+        await until(pilot, lambda: "capture started" in str(main.query_one("#notice").content), 10, "capture notice")
         notice = str(main.query_one("#notice").content)
-        assert "capture started" in notice and "recorded" not in notice
-        await tap(pilot, "a")  # nothing to accept while settling: the key is inert
+        assert "recorded" not in notice
+        await pilot.press("a")  # nothing to accept while settling: the key is inert (press waits for idle)
         assert str(main.query_one("#notice").content) == notice
         assert all(r["state"] != "accepted" for r in runner.journal.step_history())
