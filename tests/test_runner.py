@@ -390,7 +390,7 @@ async def test_a_plc_missing_polls_holds_the_capture_instead_of_aborting_it(make
 async def test_a_plc_silent_past_the_verify_timeout_sends_the_step_back(make_session):
     from meas.sim.faults import parse_faults
 
-    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=1.0))
+    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=0.6))
     r = s.runner
     await until(s, in_state(State.WAITING))
     r.capture()
