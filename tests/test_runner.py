@@ -521,3 +521,20 @@ async def test_live_noise_is_not_judged_on_a_switching_transient(make_session):
     assert any(x.message == "not judged while the readings settle after switching" for x in seen)
     r.accept()  # the next step waits with the bench steady: live noise is judged again
     await until(s, lambda v: v.index == 1 and m5_noise(v).status is Status.PASS, timeout_s=20)
+
+
+async def test_a_remote_first_step_runs_headless_to_a_pass(make_session):
+    # drive() and the demo technician both wait for the first poll: before it no status is known
+    import io
+
+    from meas.commands.demo import SimTechnician
+    from meas.commands.run import drive
+
+    remote_first = TEST_SEQUENCE.split("[[step]]", 3)[2].join(["[[step]]", ""])  # the remote RX step alone
+    s = await make_session(remote_first)
+    out = io.StringIO()
+    code = await drive(s, SimTechnician(s.bench, out=out), out)
+    text = out.getvalue()
+    assert code == 0, text
+    assert "refused" not in text and "skipped" not in text
+    assert [c[1:3] for c in s.bench.plc.commands if c[3] != "hand"] == [("RX", "closed")]

@@ -58,8 +58,8 @@ class SimTechnician:
 
     async def act(self, runner: Runner, view: RunnerView) -> None:
         a, step = view.action, view.step
-        if step is None or a in ("wait", "none"):
-            return
+        if step is None or a in ("wait", "none") or not view.polled:
+            return  # nothing to do, or no switch status read yet: wait for the first poll
         if a == "confirm_operation":
             if self._give_up(runner, view):
                 return
