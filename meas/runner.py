@@ -256,6 +256,10 @@ class Runner:
     def done(self) -> bool:
         return self.state in (State.FINISHED, State.STOPPED)
 
+    def skipped_steps(self) -> list[str]:
+        """Steps left without acceptance: the record is incomplete even when nothing failed."""
+        return [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
+
     def verdict(self) -> Status:
         """FAIL when any step ended with failing checks (accepted under gate allow, or skipped)."""
         return overall([CheckResult("step", o.step_id, o.status) for o in self.outcomes.values()])
@@ -317,6 +321,12 @@ class Runner:
                 out.append(sid)
         return out
 
+    def _unread(self, switch_ids: Sequence[str]) -> bool:
+        """True when none of these statuses was read (the PLC did not answer), as opposed to
+        read in the wrong state."""
+        actual = self._actual()
+        return all(actual.get(s, "unknown") == "unknown" for s in switch_ids)
+
     def _status_hold(self, snapshot: Snapshot) -> str | None:
         """Settling and capturing: ``"changed"``, ``"unread"`` (hold this snapshot) or None.
 
@@ -330,8 +340,7 @@ class Runner:
                 self._unread_since = None
                 self.message = ""
             return None
-        actual = self._actual()
-        if any(actual.get(s, "unknown") != "unknown" for s in bad):
+        if not self._unread(bad):
             self._unread_since = None
             self._config_changed()
             return "changed"
@@ -420,9 +429,8 @@ class Runner:
             self._known_switches[sid] = st
         if changed:
             step = self.step
-            policy = step.capture if step is not None and step.capture is not None else None
-            if policy is None:
-                policy = next((s.capture for s in self.profile.steps if s.capture is not None), CapturePolicy())
+            policy = (step.capture if step is not None else None) or next(
+                (s.capture for s in self.profile.steps if s.capture is not None), CapturePolicy())
             self._live_settle = self._settle_factory(policy)
             self._live_steady_t0 = float("inf")
         live = self._live_settle
@@ -482,8 +490,7 @@ class Runner:
                 "mismatch", text, step_id=step.id, operator=self.operator,
                 data={"actual": self._actual(), "expected": self.expected()},
             )
-            unread = all(self._actual().get(s, "unknown") == "unknown" for s in bad)
-            todo = "check the PLC and its link" if unread else "set the switches as instructed"
+            todo = "check the PLC and its link" if self._unread(bad) else "set the switches as instructed"
             self.message = f"{text}; {todo}, then confirm again"
             self._verify_deadline = None
             self.state = State.WAITING
@@ -639,11 +646,10 @@ class Runner:
         todo = {s for s, _ in self._remote_todo()}
         others = [s for s in self._mismatches() if s not in todo]
         if others:
-            unread = all(self._actual().get(s, "unknown") == "unknown" for s in others)
             raise BenchwalkError(
                 f"the bench is not as this step expects ({self._mismatch_text(others)}): "
                 + ("no command is sent while switch status cannot be read; check the PLC and its link"
-                   if unread else "set it right before sending a command")
+                   if self._unread(others) else "set it right before sending a command")
             )
         self._pending = (switch_id, state)
         self.journal.record_event(
@@ -853,7 +859,7 @@ class Runner:
         step = self.step
         st = self.state
         if st is State.FINISHED:
-            skipped = [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
+            skipped = self.skipped_steps()
             if skipped:
                 return "none", (f"The sequence is complete, but incomplete as a record: {len(skipped)} "
                                 f"step(s) skipped ({', '.join(skipped)}).")

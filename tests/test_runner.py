@@ -361,16 +361,21 @@ def step_events(s: Session, step_id: str) -> list[str]:
     return [e[0] for e in s.journal._conn.execute("SELECT kind FROM event WHERE step=? ORDER BY id", (step_id,))]
 
 
+async def capturing(make_session, verify_timeout_s: float = 3.0) -> Session:
+    """A session on SLOW_CAPTURE_SEQUENCE whose radial step has just begun capturing."""
+    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=verify_timeout_s))
+    await until(s, in_state(State.WAITING))
+    s.runner.capture()
+    await until(s, in_state(State.CAPTURING))
+    return s
+
+
 async def test_a_plc_missing_polls_holds_the_capture_instead_of_aborting_it(make_session):
     # A PLC that misses a few polls (a busy CPU, a gateway retry) leaves the switch states
     # unknown: that proves no change of configuration, so the step must hold, not start over.
     from meas.sim.faults import parse_faults
 
-    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=3.0))
-    r = s.runner
-    await until(s, in_state(State.WAITING))
-    r.capture()
-    await until(s, in_state(State.CAPTURING))
+    s = await capturing(make_session, verify_timeout_s=3.0)
     s.bench.set_faults(parse_faults(["offline:PLC1"]))
     v = await until(s, lambda v: "not read" in v.message, timeout_s=5)
     assert v.state is State.CAPTURING and "CB1" in v.message
@@ -390,25 +395,17 @@ async def test_a_plc_missing_polls_holds_the_capture_instead_of_aborting_it(make
 async def test_a_plc_silent_past_the_verify_timeout_sends_the_step_back(make_session):
     from meas.sim.faults import parse_faults
 
-    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=0.6))
-    r = s.runner
-    await until(s, in_state(State.WAITING))
-    r.capture()
-    await until(s, in_state(State.CAPTURING))
+    s = await capturing(make_session, verify_timeout_s=0.6)
     s.bench.set_faults(parse_faults(["offline:PLC1"]))
     v = await until(s, in_state(State.WAITING), timeout_s=8)
     assert "not read for" in v.message and "check the PLC" in v.message
     kinds = step_events(s, "radial")
     assert "status_lost" in kinds and "config_changed" not in kinds
-    assert not r.stopped
+    assert not s.runner.stopped
 
 
 async def test_a_status_read_in_the_wrong_state_still_sends_the_step_back_at_once(make_session):
-    s = await make_session(SLOW_CAPTURE_SEQUENCE)
-    r = s.runner
-    await until(s, in_state(State.WAITING))
-    r.capture()
-    await until(s, in_state(State.CAPTURING))
+    s = await capturing(make_session)
     s.bench.operate_by_hand("TIE", "closed")
     v = await until(s, in_state(State.WAITING), timeout_s=5)
     assert "TIE is closed, expected open" in v.message

@@ -181,9 +181,8 @@ def summarize(session: Session, out: TextIO) -> int:
         for step_id, r in failures:
             print(f"  {step_id:<20} {r.check:<22} {r.subject:<8} {r.cause:<16} {r.message}",
                   file=out)
-    verdict = runner.verdict()
-    skipped = [o.step_id for o in runner.outcomes.values() if o.outcome == "skipped"]
-    if verdict is Status.FAIL:
+    failed, skipped = runner.verdict() is Status.FAIL, runner.skipped_steps()
+    if failed:
         word = "FAIL"
     elif skipped:
         # nothing failed, but the measurement set has holes: not a pass to put in a report
@@ -191,7 +190,7 @@ def summarize(session: Session, out: TextIO) -> int:
     else:
         word = "PASS"
     print(f"\nSession {session.session_id}: {word}", file=out)
-    return EXIT_PASS if word == "PASS" else EXIT_FAIL
+    return EXIT_FAIL if failed or skipped else EXIT_PASS
 
 
 async def finish(session: Session, code: int, out_dir: Path | None, out: TextIO) -> int:

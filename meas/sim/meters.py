@@ -35,7 +35,7 @@ from ..quantities import PHASES
 from ..registers import decode, encode
 from ..scaling import to_primary, to_secondary
 from ..snapshot import CommState, MeterBlock, Quality, Snapshot
-from .faults import PHASE_INDEX, WIRING, Fault, faults_for, find
+from .faults import PHASE_INDEX, PLC_KINDS, WIRING, Fault, faults_for, find
 from .readings import ideal_readings
 from .readings import meter_values as derive_values  # the one derivation from phasors
 
@@ -255,20 +255,15 @@ def snapshot_of(
         time_utc=now,
         t_mono=time.monotonic() if t_mono is None else t_mono,
         meters=blocks,
-        switches={
-            sid: "unknown" if _plc_silent(profile, sid, faults) else state
-            for sid, state in switch_states.items()
-        },
+        switches=_reported_switches(profile, switch_states, faults),
     )
 
 
-def _plc_silent(profile: Profile, switch_id: str, faults: Sequence[Fault]) -> bool:
-    """True when the PLC reporting this switch has a comm fault, so its status reads unknown."""
-    try:
-        plc = profile.switch(switch_id).plc
-    except KeyError:
-        return False
-    return plc is not None and any(f.meter == plc and f.kind in ("offline", "exception") for f in faults)
+def _reported_switches(profile: Profile, switch_states: Mapping[str, str], faults: Sequence[Fault]) -> dict[str, str]:
+    """Switch states as read: ``unknown`` for every switch of a PLC with a comm fault."""
+    silent = {f.meter for f in faults if f.kind in PLC_KINDS}
+    plc_of = {sw.id: sw.plc for sw in profile.switches}
+    return {sid: "unknown" if plc_of.get(sid) in silent else st for sid, st in switch_states.items()}
 
 
 def snapshot_from_sim(

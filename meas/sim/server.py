@@ -48,6 +48,14 @@ class UnitGate:
     requests: int = 0  # client requests seen (not counting the bench's own updates)
 
 
+def _gate_answer(gate: UnitGate, unit_id: int) -> ExcCodes | None:
+    """Count a client request and apply the unit's comm faults: no reply, or an exception."""
+    gate.requests += 1
+    if gate.offline:
+        raise NoSuchIdException(f"unit {unit_id} offline")  # with ignore_missing_devices: no reply
+    return ExcCodes(gate.exception_code) if gate.exception_code else None
+
+
 def _reg_block(addresses: Iterable[tuple[int, int]]) -> list[SimData]:
     """One contiguous block of registers (value 0) spanning all (start, end) ranges.
 
@@ -75,11 +83,8 @@ def meter_device(unit_id: int, rmap: RegisterMap, gate: UnitGate) -> SimDevice:
     async def action(fc, _start, _address, _count, _regs, set_values):
         if set_values is not None and fc in READ_FC:
             return None  # the bench's own register update, not a client request
-        gate.requests += 1
-        if gate.offline:
-            raise NoSuchIdException(f"unit {unit_id} offline")  # with ignore_missing_devices: no reply
-        if gate.exception_code:
-            return ExcCodes(gate.exception_code)
+        if (refused := _gate_answer(gate, unit_id)) is not None:
+            return refused
         if fc in (FC_COIL, FC_DISCRETE) or fc in WRITE_FC:
             return ExcCodes.ILLEGAL_ADDRESS  # measurement registers are read-only
         return None
@@ -111,11 +116,8 @@ def plc_device(
     async def action(fc, _start, address, _count, _regs, set_values):
         if set_values is not None and fc in READ_FC:
             return None  # the bench's own update
-        gate.requests += 1
-        if gate.offline:
-            raise NoSuchIdException(f"unit {unit_id} offline")
-        if gate.exception_code:
-            return ExcCodes(gate.exception_code)
+        if (refused := _gate_answer(gate, unit_id)) is not None:
+            return refused
         if fc in (FC_HOLDING, FC_INPUT, 6, 16):
             return ExcCodes.ILLEGAL_ADDRESS
         if fc in COIL_WRITE_FC and set_values is not None:

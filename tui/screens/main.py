@@ -53,6 +53,7 @@ _DONE_WORDS = {
     "sign": "hold point signed off",
 }
 
+
 class MainScreen(Screen):
     BINDINGS = bindings()
 
