@@ -40,30 +40,62 @@ DEMO = Path(__file__).resolve().parent.parent / "profiles_demo" / "feeder_bench.
 
 def radial_bench(base: Profile, n_meters: int = 32) -> Profile:
     """A chain of buses with two-end-metered lines and metered loads, about ``n_meters`` meters."""
-    buses, branches, meters = [Bus("B0", base.buses[0].zone)], [Branch("SRC", "source", "B0", sim={"v_ll": 408.0, "sc_va": 2.0e6, "x_r": 8.0})], []
+    buses, branches, meters = (
+        [Bus("B0", base.buses[0].zone)],
+        [Branch("SRC", "source", "B0", sim={"v_ll": 408.0, "sc_va": 2.0e6, "x_r": 8.0})],
+        [],
+    )
     maps = ["lumen-f32", "corvid-i32", "wren-i16"]
     k = 0
 
     def meter(bus: str, branch: str, map_id: str) -> None:
         nonlocal k
         k += 1
-        extra = {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0} if map_id == "corvid-i32" else {}
-        meters.append(Meter(f"X{k}", f"synthetic meter {k}", TcpTransport("127.0.0.1", 15100 + k), 1, map_id, bus, branch,
-                            ct_primary_a=100.0, classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"), **extra))
+        extra = (
+            {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0}
+            if map_id == "corvid-i32"
+            else {}
+        )
+        meters.append(
+            Meter(
+                f"X{k}",
+                f"synthetic meter {k}",
+                TcpTransport("127.0.0.1", 15100 + k),
+                1,
+                map_id,
+                bus,
+                branch,
+                ct_primary_a=100.0,
+                classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"),
+                **extra,
+            )
+        )
 
     i = 0
     while len(meters) < n_meters:
         i += 1
         prev, bus = f"B{i - 1}", f"B{i}"
         buses.append(Bus(bus, base.buses[0].zone))
-        branches.append(Branch(f"L{i}", "line", prev, bus, sim={"r_ohm": 0.02, "x_ohm": 0.03, "b_us": 10.0}))
+        branches.append(
+            Branch(f"L{i}", "line", prev, bus, sim={"r_ohm": 0.02, "x_ohm": 0.03, "b_us": 10.0})
+        )
         meter(prev, f"L{i}", maps[i % 3])
         meter(bus, f"L{i}", maps[(i + 1) % 3])
-        branches.append(Branch(f"LD{i}", "load", bus, sim={"model": "pq", "p_w": 1500.0, "q_var": 500.0}))
+        branches.append(
+            Branch(f"LD{i}", "load", bus, sim={"model": "pq", "p_w": 1500.0, "q_var": 500.0})
+        )
         if len(meters) < n_meters:
             meter(bus, f"LD{i}", maps[(i + 2) % 3])
-    return dataclasses.replace(base, path="<synthetic>", meters=tuple(meters[:n_meters]), buses=tuple(buses),
-                               branches=tuple(branches), switches=(), plcs=(), steps=())
+    return dataclasses.replace(
+        base,
+        path="<synthetic>",
+        meters=tuple(meters[:n_meters]),
+        buses=tuple(buses),
+        branches=tuple(branches),
+        switches=(),
+        plcs=(),
+        steps=(),
+    )
 
 
 def _series(profile, switches, n: int = 40, seed: int = 1):
@@ -71,15 +103,21 @@ def _series(profile, switches, n: int = 40, seed: int = 1):
     rng = np.random.default_rng(seed)
     out, prev = [], None
     for k in range(n):
-        prev = snapshot_from_sim(profile, switches, [], rng, k, ideal=ideal, t_mono=0.2 * k, previous=prev)
+        prev = snapshot_from_sim(
+            profile, switches, [], rng, k, ideal=ideal, t_mono=0.2 * k, previous=prev
+        )
         out.append(prev)
     return out
 
 
 def _same(a: list, b: list) -> bool:
     """Every field equal, floats bit for bit (NaN = NaN)."""
+
     def key(r):
-        return tuple(("nan" if isinstance(v, float) and math.isnan(v) else v) for v in dataclasses.astuple(r))
+        return tuple(
+            ("nan" if isinstance(v, float) and math.isnan(v) else v) for v in dataclasses.astuple(r)
+        )
+
     return len(a) == len(b) and all(key(x) == key(y) for x, y in zip(a, b, strict=True))
 
 
@@ -87,8 +125,13 @@ def measure(repeat: int = 300) -> tuple[dict[str, list[float]], dict[str, int]]:
     """Wall times (s) per case and result counts, all cases interleaved."""
     demo = load_profile(DEMO)
     big = radial_bench(demo, 32)
-    benches = {f"demo bench ({len(demo.meters)} meters)": (demo, _series(demo, {s.id: s.normal for s in demo.switches})),
-               f"synthetic bench ({len(big.meters)} meters)": (big, _series(big, {}))}
+    benches = {
+        f"demo bench ({len(demo.meters)} meters)": (
+            demo,
+            _series(demo, {s.id: s.normal for s in demo.switches}),
+        ),
+        f"synthetic bench ({len(big.meters)} meters)": (big, _series(big, {})),
+    }
     cases, counts = {}, {}
     for label, (prof, snaps) in benches.items():
         engine = CheckEngine(prof)
@@ -99,7 +142,7 @@ def measure(repeat: int = 300) -> tuple[dict[str, list[float]], dict[str, int]]:
             j = 16 + state["k"] % (len(snaps) - 16)
             state["k"] += 1
             engine.forget(snaps[j])
-            return engine.run(snaps[j], snaps[j - 16:j])
+            return engine.run(snaps[j], snaps[j - 16 : j])
 
         cases[f"{label}, CheckEngine.run"] = call
         counts[f"{label}, CheckEngine.run"] = len(call())
@@ -109,7 +152,9 @@ def measure(repeat: int = 300) -> tuple[dict[str, list[float]], dict[str, int]]:
 
         cases[f"{label}, run_checks (engine built per call)"] = rebuilt
         if not _same(CheckEngine(prof).run(snaps[-1], snaps[-17:-1]), rebuilt()):
-            raise SystemExit(f"{label}: a prebuilt engine and run_checks disagree; run tests/test_checks_golden.py")
+            raise SystemExit(
+                f"{label}: a prebuilt engine and run_checks disagree; run tests/test_checks_golden.py"
+            )
         counts[f"{label}, run_checks (engine built per call)"] = len(rebuilt())
     return interleaved(cases, repeat), counts
 
@@ -122,9 +167,22 @@ def figures(repeat: int = 300) -> list[Figure]:
         if not name.endswith("CheckEngine.run"):
             continue
         ours = median(times[name]) * 1e3
-        ref = median(times[name.replace("CheckEngine.run", "run_checks (engine built per call)")]) * 1e3
+        ref = (
+            median(times[name.replace("CheckEngine.run", "run_checks (engine built per call)")])
+            * 1e3
+        )
         targets = (Target("ours", "<", 2.0),) if "32 meters" in name else ()
-        out.append(Figure("checks", name + " (reference: engine rebuilt per call)", ours, "ms", ref, ours / ref, targets))
+        out.append(
+            Figure(
+                "checks",
+                name + " (reference: engine rebuilt per call)",
+                ours,
+                "ms",
+                ref,
+                ours / ref,
+                targets,
+            )
+        )
     return out
 
 
@@ -141,7 +199,7 @@ def profile(calls: int = 300, top: int = 30) -> None:
         for k in range(calls):
             j = 16 + k % (len(snaps) - 16)
             engine.forget(snaps[j])
-            engine.run(snaps[j], snaps[j - 16:j])
+            engine.run(snaps[j], snaps[j - 16 : j])
 
     loop()  # warm
     prof = cProfile.Profile()
@@ -152,7 +210,9 @@ def profile(calls: int = 300, top: int = 30) -> None:
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=300)
-    ap.add_argument("--profile", action="store_true", help="print a cProfile of today's engine instead")
+    ap.add_argument(
+        "--profile", action="store_true", help="print a cProfile of today's engine instead"
+    )
     args = ap.parse_args()
     if args.profile:
         profile()
@@ -160,8 +220,10 @@ def main() -> int:
     times, counts = measure(args.repeat)
     print(f"{'case':80s} {'results':>7s} {'median ms':>10s} {'p10 ms':>8s} {'min ms':>8s}")
     for name, ts in times.items():
-        print(f"{name:80s} {counts[name]:7d} {median(ts) * 1e3:10.3f} {percentile(ts, 0.1) * 1e3:8.3f} "
-              f"{min(ts) * 1e3:8.3f}")
+        print(
+            f"{name:80s} {counts[name]:7d} {median(ts) * 1e3:10.3f} {percentile(ts, 0.1) * 1e3:8.3f} "
+            f"{min(ts) * 1e3:8.3f}"
+        )
     print(f"{machine_line()}; repeat {args.repeat}")
     return 0
 

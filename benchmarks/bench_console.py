@@ -42,7 +42,9 @@ def profile_with(n_meters: int):
     meters = []
     for k in range(n_meters):
         m = base.meters[k % len(base.meters)]
-        meters.append(dataclasses.replace(m, id=f"M{k + 1}", label=f"{m.label} #{k // len(base.meters) + 1}"))
+        meters.append(
+            dataclasses.replace(m, id=f"M{k + 1}", label=f"{m.label} #{k // len(base.meters) + 1}")
+        )
     return dataclasses.replace(base, meters=tuple(meters))
 
 
@@ -57,12 +59,25 @@ class ReplayFeed:
         ideal = ideal_readings(profile, sw)
         rng = np.random.default_rng(5)
         now = datetime.now(UTC)
-        self.snaps = [snapshot_from_sim(profile, sw, (), rng, i, noise=True, t_mono=0.0, ideal=ideal, time_utc=now)
-                      for i in range(n_distinct)]
+        self.snaps = [
+            snapshot_from_sim(
+                profile, sw, (), rng, i, noise=True, t_mono=0.0, ideal=ideal, time_utc=now
+            )
+            for i in range(n_distinct)
+        ]
         self.k = 0
         self.t0 = None
-        self.step = StepInfo(1, 1, "bench", "Benchmark", "Hold still.", "capture", "waiting",
-                             overall="consistent", next_action="none")
+        self.step = StepInfo(
+            1,
+            1,
+            "bench",
+            "Benchmark",
+            "Hold still.",
+            "capture",
+            "waiting",
+            overall="consistent",
+            next_action="none",
+        )
 
     async def cycle(self) -> Frame:
         if self.t0 is None:
@@ -83,7 +98,9 @@ class ReplayFeed:
         pass
 
 
-async def measure(seconds: float, hz: float, size: tuple[int, int], meters: int, live: bool = False) -> dict:
+async def measure(
+    seconds: float, hz: float, size: tuple[int, int], meters: int, live: bool = False
+) -> dict:
     if live:  # the real demo session in this process: simulated bench, poller, checks, journal
         import tempfile
 
@@ -119,8 +136,12 @@ async def measure(seconds: float, hz: float, size: tuple[int, int], meters: int,
         keys = await key_latencies(app, main, 20)
     cpu = ((c1.user - c0.user) + (c1.system - c0.system)) / (w1 - w0)
     return {
-        "meters": meters, "hz": hz, "size": f"{size[0]}x{size[1]}", "seconds": round(w1 - w0, 2),
-        "frames_per_s": shown / (w1 - w0), "rows_rebuilt_per_s": rows / (w1 - w0),
+        "meters": meters,
+        "hz": hz,
+        "size": f"{size[0]}x{size[1]}",
+        "seconds": round(w1 - w0, 2),
+        "frames_per_s": shown / (w1 - w0),
+        "rows_rebuilt_per_s": rows / (w1 - w0),
         "cpu_pct_one_core": 100 * cpu,
         "delay_median_ms": 1000 * statistics.median(lat),
         "delay_p95_ms": 1000 * lat[int(0.95 * (len(lat) - 1))],
@@ -152,15 +173,20 @@ def main() -> None:
     ap.add_argument("--hz", type=float, default=5.0)
     ap.add_argument("--meters", type=int, default=32)
     ap.add_argument("--size", default="120x40")
-    ap.add_argument("--live", action="store_true",
-                    help="the real demo session (8 meters, simulated bench in this process) instead of a replay")
+    ap.add_argument(
+        "--live",
+        action="store_true",
+        help="the real demo session (8 meters, simulated bench in this process) instead of a replay",
+    )
     args = ap.parse_args()
     w, h = (int(x) for x in args.size.split("x"))
     r = asyncio.run(measure(args.seconds, args.hz, (w, h), args.meters, args.live))
     for k, v in r.items():
         print(f"{k:>20}: {v:.1f}" if isinstance(v, float) else f"{k:>20}: {v}")
-    print(f"{'targets':>20}: cpu < 30 %: {'met' if r['cpu_pct_one_core'] < 30 else 'MISSED'}; "
-          f"delay p95 < 200 ms: {'met' if r['delay_p95_ms'] < 200 else 'MISSED'}")
+    print(
+        f"{'targets':>20}: cpu < 30 %: {'met' if r['cpu_pct_one_core'] < 30 else 'MISSED'}; "
+        f"delay p95 < 200 ms: {'met' if r['delay_p95_ms'] < 200 else 'MISSED'}"
+    )
 
 
 if __name__ == "__main__":

@@ -67,21 +67,50 @@ def bare_rate(folder: Path, n: int) -> float:
     conn = sqlite3.connect(folder / f"bare-{time.monotonic_ns()}.sqlite")
     conn.execute("PRAGMA journal_mode=WAL")
     conn.execute("PRAGMA synchronous=FULL")
-    conn.execute("CREATE TABLE snapshot(id INTEGER PRIMARY KEY, seq, step, role, time_utc, t_mono, cycle_s, switches, saved_utc)")
-    conn.execute("CREATE TABLE reading(snapshot, pos, meter, keyset, vals BLOB, qual BLOB, state, exception_code, error,"
-                 " last_good_utc, error_count, latency_s, PRIMARY KEY(snapshot, pos)) WITHOUT ROWID")
+    conn.execute(
+        "CREATE TABLE snapshot(id INTEGER PRIMARY KEY, seq, step, role, time_utc, t_mono, cycle_s, switches, saved_utc)"
+    )
+    conn.execute(
+        "CREATE TABLE reading(snapshot, pos, meter, keyset, vals BLOB, qual BLOB, state, exception_code, error,"
+        " last_good_utc, error_count, latency_s, PRIMARY KEY(snapshot, pos)) WITHOUT ROWID"
+    )
     t = time.perf_counter()
     for s in snaps:
         with conn:
-            sid = conn.execute("INSERT INTO snapshot(seq, step, role, time_utc, t_mono, cycle_s, switches, saved_utc)"
-                               " VALUES(?,?,?,?,?,?,?,?)",
-                               (s.seq, "S1", "capture", s.time_utc.isoformat(), s.t_mono, s.cycle_s,
-                                json.dumps(dict(s.switches)), s.time_utc.isoformat())).lastrowid
-            conn.executemany("INSERT INTO reading VALUES(?,?,?,?,?,?,?,?,?,?,?,?)", [
-                (sid, pos, m, 1, array("d", b.values.values()).tobytes(), bytes(len(b.values)), str(b.state),
-                 b.exception_code, b.error, None, b.error_count, b.latency_s)
-                for pos, (m, b) in enumerate(s.meters.items())
-            ])
+            sid = conn.execute(
+                "INSERT INTO snapshot(seq, step, role, time_utc, t_mono, cycle_s, switches, saved_utc)"
+                " VALUES(?,?,?,?,?,?,?,?)",
+                (
+                    s.seq,
+                    "S1",
+                    "capture",
+                    s.time_utc.isoformat(),
+                    s.t_mono,
+                    s.cycle_s,
+                    json.dumps(dict(s.switches)),
+                    s.time_utc.isoformat(),
+                ),
+            ).lastrowid
+            conn.executemany(
+                "INSERT INTO reading VALUES(?,?,?,?,?,?,?,?,?,?,?,?)",
+                [
+                    (
+                        sid,
+                        pos,
+                        m,
+                        1,
+                        array("d", b.values.values()).tobytes(),
+                        bytes(len(b.values)),
+                        str(b.state),
+                        b.exception_code,
+                        b.error,
+                        None,
+                        b.error_count,
+                        b.latency_s,
+                    )
+                    for pos, (m, b) in enumerate(s.meters.items())
+                ],
+            )
     dt = time.perf_counter() - t
     conn.close()
     return n / dt
@@ -101,15 +130,21 @@ def build_journal(folder: Path, n_values: int) -> Path:
     from datetime import timedelta
 
     for i in range(n):
-        snap = replace(base, seq=i, time_utc=base.time_utc + timedelta(seconds=i), t_mono=1000.0 + i)
+        snap = replace(
+            base, seq=i, time_utc=base.time_utc + timedelta(seconds=i), t_mono=1000.0 + i
+        )
         j.record_snapshot(snap, step_id="S1" if i < n // 2 else "S2", role="capture")
     j.close()
     return path
 
 
 def _child(phase: str, src: str, out: str) -> dict:
-    proc = subprocess.run([sys.executable, __file__, "--child", phase, src, out], capture_output=True, text=True,
-                          check=True)
+    proc = subprocess.run(
+        [sys.executable, __file__, "--child", phase, src, out],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
@@ -137,7 +172,9 @@ def child_main(phase: str, src: str, out: str) -> None:
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="fewer snapshots and repeats")
-    ap.add_argument("--part", type=int, choices=(1, 2, 3), action="append", help="run only these parts")
+    ap.add_argument(
+        "--part", type=int, choices=(1, 2, 3), action="append", help="run only these parts"
+    )
     ap.add_argument("--child", nargs=3, metavar=("PHASE", "SRC", "OUT"))
     args = ap.parse_args()
     if args.child:
@@ -158,7 +195,9 @@ def main() -> None:
 
 def journal_side_by_side(tmp: Path, n_snap: int, reps: int) -> dict:
     ours, bare = [], []
-    for i in range(reps):  # interleaved, who goes first alternating, so machine load hits both alike
+    for i in range(
+        reps
+    ):  # interleaved, who goes first alternating, so machine load hits both alike
         if i % 2:
             bare.append(bare_rate(tmp / f"b{i}", n_snap))
             ours.append(journal_rate(tmp / f"a{i}", n_snap))
@@ -171,15 +210,22 @@ def journal_side_by_side(tmp: Path, n_snap: int, reps: int) -> dict:
 def export_side_by_side(tmp: Path, journal: Path, reps: int) -> dict:
     """Our export and pandas alone, alternating, each run in a fresh process."""
     e = [_child("export", str(journal), str(tmp / "ds0"))]
-    pq_src = tmp / "ds0" / "data" / "measurements.parquet"  # pandas writes the very frame we exported
+    pq_src = (
+        tmp / "ds0" / "data" / "measurements.parquet"
+    )  # pandas writes the very frame we exported
     p = []
     for i in range(reps):
         p.append(_child("pandas", str(pq_src), str(tmp / f"pd{i}")))
         if i + 1 < reps:
             e.append(_child("export", str(journal), str(tmp / f"ds{i + 1}")))
     med = statistics.median
-    return {"rows": p[0]["rows"], "export_s": med(x["seconds"] for x in e), "pandas_s": med(x["seconds"] for x in p),
-            "export_mb": med(x["peak_rss_mb"] for x in e), "pandas_mb": med(x["peak_rss_mb"] for x in p)}
+    return {
+        "rows": p[0]["rows"],
+        "export_s": med(x["seconds"] for x in e),
+        "pandas_s": med(x["seconds"] for x in p),
+        "export_mb": med(x["peak_rss_mb"] for x in e),
+        "pandas_mb": med(x["peak_rss_mb"] for x in p),
+    }
 
 
 def journal_figures(n_snap: int = 500, reps: int = 5) -> list[Figure]:
@@ -189,10 +235,18 @@ def journal_figures(n_snap: int = 500, reps: int = 5) -> list[Figure]:
         j = journal_side_by_side(tmp, n_snap, reps)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
-    return [Figure("journal", f"durable snapshots/s, {N_METERS} meters x {len(KEYS)} values, vs bare sqlite3",
-                   j["journal"], "/s", j["bare"], slowdown(j["journal"], j["bare"], higher_is_better=True),
-                   (Target("ours", ">=", 200.0), Target("ratio", "<=", 1.5)),
-                   extra={"snapshots": n_snap, "reps": reps})]
+    return [
+        Figure(
+            "journal",
+            f"durable snapshots/s, {N_METERS} meters x {len(KEYS)} values, vs bare sqlite3",
+            j["journal"],
+            "/s",
+            j["bare"],
+            slowdown(j["journal"], j["bare"], higher_is_better=True),
+            (Target("ours", ">=", 200.0), Target("ratio", "<=", 1.5)),
+            extra={"snapshots": n_snap, "reps": reps},
+        )
+    ]
 
 
 def export_figures(reps: int = 3) -> list[Figure]:
@@ -203,22 +257,41 @@ def export_figures(reps: int = 3) -> list[Figure]:
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return [
-        Figure("export", f"{x['rows']:,} rows to CSV + Parquet vs pandas alone", x["export_s"], "s", x["pandas_s"],
-               ratio(x["export_s"], x["pandas_s"]), (Target("ratio", "<=", 1.5),), extra={"reps": reps}),
-        Figure("export", f"peak memory, {x['rows']:,} rows, vs pandas alone", x["export_mb"], "MB", x["pandas_mb"],
-               ratio(x["export_mb"], x["pandas_mb"]), note="ru_maxrss of a fresh process"),
+        Figure(
+            "export",
+            f"{x['rows']:,} rows to CSV + Parquet vs pandas alone",
+            x["export_s"],
+            "s",
+            x["pandas_s"],
+            ratio(x["export_s"], x["pandas_s"]),
+            (Target("ratio", "<=", 1.5),),
+            extra={"reps": reps},
+        ),
+        Figure(
+            "export",
+            f"peak memory, {x['rows']:,} rows, vs pandas alone",
+            x["export_mb"],
+            "MB",
+            x["pandas_mb"],
+            ratio(x["export_mb"], x["pandas_mb"]),
+            note="ru_maxrss of a fresh process",
+        ),
     ]
 
 
 def figures(quick: bool = False) -> list[Figure]:
     """Both parts, with this script's own repetition counts."""
-    return journal_figures(300 if quick else 500, 3 if quick else 5) + export_figures(3 if quick else 5)
+    return journal_figures(300 if quick else 500, 3 if quick else 5) + export_figures(
+        3 if quick else 5
+    )
 
 
 def part1(tmp: Path, n_snap: int, reps: int) -> None:
     r = journal_side_by_side(tmp, n_snap, reps)
     j_med, b_med = r["journal"], r["bare"]
-    print(f"\n1. durable snapshots/s, {N_METERS} meters x {len(KEYS)} values, {n_snap} snapshots, median of {reps} interleaved runs")
+    print(
+        f"\n1. durable snapshots/s, {N_METERS} meters x {len(KEYS)} values, {n_snap} snapshots, median of {reps} interleaved runs"
+    )
     print(f"   {'journal (record_snapshot)':<34}{j_med:>10.0f} /s")
     print(f"   {'bare sqlite3, same rows':<34}{b_med:>10.0f} /s")
     print(f"   bare / journal = {b_med / j_med:.2f}x   (targets: >= 200/s, <= 1.5x)")
@@ -229,11 +302,15 @@ def part23(tmp: Path, reps: int, quick: bool, parts: set[int]) -> None:
     if 2 in parts:
         r = export_side_by_side(tmp, journal, reps)
         es, ps, em, pm = r["export_s"], r["pandas_s"], r["export_mb"], r["pandas_mb"]
-        print(f"\n2. export of {r['rows']:,} values (CSV + Parquet), median of {reps} fresh processes")
+        print(
+            f"\n2. export of {r['rows']:,} values (CSV + Parquet), median of {reps} fresh processes"
+        )
         print(f"   {'':<34}{'seconds':>10}{'peak RSS MB':>14}")
         print(f"   {'export_session (all tables)':<34}{es:>10.2f}{em:>14.0f}")
         print(f"   {'pandas to_csv + to_parquet':<34}{ps:>10.2f}{pm:>14.0f}")
-        print(f"   export / pandas: time {es / ps:.2f}x, memory {em / pm:.2f}x   (target: time <= 1.5x)")
+        print(
+            f"   export / pandas: time {es / ps:.2f}x, memory {em / pm:.2f}x   (target: time <= 1.5x)"
+        )
 
     if 3 in parts:
         sizes = [250_000, 1_000_000, 2_000_000] if not quick else [250_000, 1_000_000]

@@ -49,14 +49,21 @@ LOOPBACK = "127.0.0.1"
 # A full cycle is measured: the poller's cycle deadline (max(poll interval, learned time)) would
 # cut slow answers on a loaded machine and report them as timeouts; the bare loop waits for all.
 CYCLE_DEADLINE_S = 5.0
-KEYS = [f"{q}.{p}" for q in ("v_ln", "i", "p", "q", "s", "pf", "v_ang", "i_ang") for p in ("A", "B", "C")]
+KEYS = [
+    f"{q}.{p}"
+    for q in ("v_ln", "i", "p", "q", "s", "pf", "v_ang", "i_ang")
+    for p in ("A", "B", "C")
+]
 KEYS += ["v_ll.AB", "v_ll.BC", "v_ll.CA", "i.N", "p.T", "q.T", "s.T", "pf.T", "f.T"]  # 33 float32
 
 
 def bench_map() -> RegisterMap:
     """80 registers in three reads: 33 float32 from 0, two float64 at 100, six uint16 at 200."""
     specs = [RegisterSpec(k, "input", 2 * n, "float32") for n, k in enumerate(KEYS)]
-    specs += [RegisterSpec("e_imp.T", "input", 100, "float64"), RegisterSpec("e_exp.T", "input", 104, "float64")]
+    specs += [
+        RegisterSpec("e_imp.T", "input", 100, "float64"),
+        RegisterSpec("e_exp.T", "input", 104, "float64"),
+    ]
     specs += [RegisterSpec(f"aux.{i}", "input", 200 + i, "uint16", scale=0.01) for i in range(6)]
     return RegisterMap("bench80", tuple(specs))
 
@@ -80,10 +87,12 @@ def _serve(n: int, conn) -> None:
         regmap = bench_map()
         servers = []
         for _ in range(n):
-            blocks = ([SimData(0, count=16, values=False, datatype=DataType.BITS)],
-                      [SimData(0, count=16, values=False, datatype=DataType.BITS)],
-                      [SimData(0, count=300, values=0, datatype=DataType.REGISTERS)],
-                      [SimData(0, count=300, values=0, datatype=DataType.REGISTERS)])
+            blocks = (
+                [SimData(0, count=16, values=False, datatype=DataType.BITS)],
+                [SimData(0, count=16, values=False, datatype=DataType.BITS)],
+                [SimData(0, count=300, values=0, datatype=DataType.REGISTERS)],
+                [SimData(0, count=300, values=0, datatype=DataType.REGISTERS)],
+            )
             srv = ModbusTcpServer([SimDevice(1, simdata=blocks)], address=(LOOPBACK, 0))
             await srv.serve_forever(background=True)
             for (fc, addr), words in _values(regmap).items():
@@ -99,12 +108,31 @@ def _serve(n: int, conn) -> None:
 
 
 def _profile(ports: list[int], regmap: RegisterMap) -> Profile:
-    meters = tuple(Meter(id=f"M{i:03d}", label="", transport=TcpTransport(LOOPBACK, p), unit_id=1,
-                         map_id=regmap.id, bus="B", branch=None, timeout_s=1.0, retries=0)
-                   for i, p in enumerate(ports))
-    return Profile(path="<bench>", sha256="", bench=Bench("bench", 50.0, 1.0, 1.0, (Zone("z", 400, 400),)),
-                   maps={regmap.id: regmap}, meters=meters, buses=(), branches=(), switches=(),
-                   poll=PollSettings(max_gap=8))
+    meters = tuple(
+        Meter(
+            id=f"M{i:03d}",
+            label="",
+            transport=TcpTransport(LOOPBACK, p),
+            unit_id=1,
+            map_id=regmap.id,
+            bus="B",
+            branch=None,
+            timeout_s=1.0,
+            retries=0,
+        )
+        for i, p in enumerate(ports)
+    )
+    return Profile(
+        path="<bench>",
+        sha256="",
+        bench=Bench("bench", 50.0, 1.0, 1.0, (Zone("z", 400, 400),)),
+        maps={regmap.id: regmap},
+        meters=meters,
+        buses=(),
+        branches=(),
+        switches=(),
+        poll=PollSettings(max_gap=8),
+    )
 
 
 class BareLoop:
@@ -115,8 +143,11 @@ class BareLoop:
 
     async def start(self):
         from pymodbus.client import AsyncModbusTcpClient
-        self.clients = [AsyncModbusTcpClient(LOOPBACK, port=p, timeout=1.0, retries=0, reconnect_delay=0)
-                        for p in self.ports]
+
+        self.clients = [
+            AsyncModbusTcpClient(LOOPBACK, port=p, timeout=1.0, retries=0, reconnect_delay=0)
+            for p in self.ports
+        ]
         await asyncio.gather(*(c.connect() for c in self.clients))
 
     async def _one(self, c):
@@ -154,17 +185,24 @@ async def measure(ports: list[int], cycles: int) -> dict:
                     bad = [m for m, b in snap.meters.items() if b.state != "ok"]
                     if bad:
                         b = snap.meters[bad[0]]
-                        raise RuntimeError(f"{len(bad)} meters not ok, e.g. {bad[0]}: {b.state} {b.error}")
+                        raise RuntimeError(
+                            f"{len(bad)} meters not ok, e.g. {bad[0]}: {b.state} {b.error}"
+                        )
                 else:
                     await bare.cycle()
                     bare_t.append((time.perf_counter() - t0, time.process_time() - c0))
     finally:
         await poller.close()
         bare.close()
-    return {"ours": median(t for t, _ in ours_t), "bare": median(t for t, _ in bare_t),
-            "ours_cpu": median(c for _, c in ours_t), "bare_cpu": median(c for _, c in bare_t),
-            "requests": poller_requests(poller, plan) * len(ports), "plan_min": _dp_min(regmap) * len(ports),
-            "naive": naive_request_count(regmap) * len(ports)}
+    return {
+        "ours": median(t for t, _ in ours_t),
+        "bare": median(t for t, _ in bare_t),
+        "ours_cpu": median(c for _, c in ours_t),
+        "bare_cpu": median(c for _, c in bare_t),
+        "requests": poller_requests(poller, plan) * len(ports),
+        "plan_min": _dp_min(regmap) * len(ports),
+        "naive": naive_request_count(regmap) * len(ports),
+    }
 
 
 def poller_requests(poller: Poller, plan) -> int:
@@ -181,9 +219,11 @@ def _dp_min(regmap: RegisterMap, max_gap: int = 8) -> int:
         best = [0] + [10**9] * len(s)
         for j in range(1, len(s) + 1):
             for i in range(1, j + 1):
-                g = s[i - 1:j]
-                if all(b.address - a.end <= max_gap for a, b in zip(g, g[1:], strict=False)) and \
-                        g[-1].end - g[0].address <= limit:
+                g = s[i - 1 : j]
+                if (
+                    all(b.address - a.end <= max_gap for a, b in zip(g, g[1:], strict=False))
+                    and g[-1].end - g[0].address <= limit
+                ):
                     best[j] = min(best[j], best[i - 1] + 1)
         total += best[-1]
     return total
@@ -212,7 +252,9 @@ def run(sizes: list[int], cycles: int, keep_going: bool = False) -> dict[int, di
                 rows[n] = e
         return rows
     finally:
-        with contextlib.suppress(OSError):  # the server process may be gone; its failure is the error to show
+        with contextlib.suppress(
+            OSError
+        ):  # the server process may be gone; its failure is the error to show
             parent.send("stop")
         proc.join(10)
         if proc.is_alive():
@@ -230,15 +272,36 @@ def plan_figures() -> list[Figure]:
     maps[bench_map().id] = bench_map()
     out = []
     for map_id, regmap in maps.items():
-        ours, naive, least = len(plan_map(regmap, gap).requests), naive_request_count(regmap), _dp_min(regmap, gap)
-        out.append(Figure("poll plan", f"reads per cycle, map {map_id} ({len(regmap.registers)} quantities) vs naive",
-                          ours, "req", naive, ratio(ours, naive),
-                          (Target("ours", "==", least, f"= {least} (minimum)"),)))
+        ours, naive, least = (
+            len(plan_map(regmap, gap).requests),
+            naive_request_count(regmap),
+            _dp_min(regmap, gap),
+        )
+        out.append(
+            Figure(
+                "poll plan",
+                f"reads per cycle, map {map_id} ({len(regmap.registers)} quantities) vs naive",
+                ours,
+                "req",
+                naive,
+                ratio(ours, naive),
+                (Target("ours", "==", least, f"= {least} (minimum)"),),
+            )
+        )
     ours = sum(len(plan_map(demo.maps[m.map_id], gap).requests) for m in demo.meters)
     naive = sum(naive_request_count(demo.maps[m.map_id]) for m in demo.meters)
     least = sum(_dp_min(demo.maps[m.map_id], gap) for m in demo.meters)
-    out.append(Figure("poll plan", f"reads per cycle, demo bench ({len(demo.meters)} meters) vs naive", ours, "req",
-                      naive, ratio(ours, naive), (Target("ours", "==", least, f"= {least} (minimum)"),)))
+    out.append(
+        Figure(
+            "poll plan",
+            f"reads per cycle, demo bench ({len(demo.meters)} meters) vs naive",
+            ours,
+            "req",
+            naive,
+            ratio(ours, naive),
+            (Target("ours", "==", least, f"= {least} (minimum)"),),
+        )
+    )
     return out
 
 
@@ -249,18 +312,48 @@ def figures(sizes: tuple[int, ...] = (1, 8, 32, 128), cycles: int = 30) -> list[
     for n, r in rows.items():
         name = f"cycle, {n} meter{'s' if n > 1 else ''} vs bare pymodbus loop"
         if isinstance(r, Exception):
-            out.append(missing("poller", name, f"failed: {type(r).__name__}: {r}", "ms", (Target("ratio", "<=", 1.2),)))
+            out.append(
+                missing(
+                    "poller",
+                    name,
+                    f"failed: {type(r).__name__}: {r}",
+                    "ms",
+                    (Target("ratio", "<=", 1.2),),
+                )
+            )
             continue
-        out.append(Figure("poller", name, r["ours"] * 1e3, "ms", r["bare"] * 1e3, ratio(r["ours"], r["bare"]),
-                          (Target("ratio", "<=", 1.2),),
-                          note=f"CPU per cycle {r['ours_cpu'] * 1e3:.2f} vs {r['bare_cpu'] * 1e3:.2f} ms",
-                          extra={"ours_cpu_ms": r["ours_cpu"] * 1e3, "bare_cpu_ms": r["bare_cpu"] * 1e3,
-                                 "requests": r["requests"], "cycles": cycles}))
+        out.append(
+            Figure(
+                "poller",
+                name,
+                r["ours"] * 1e3,
+                "ms",
+                r["bare"] * 1e3,
+                ratio(r["ours"], r["bare"]),
+                (Target("ratio", "<=", 1.2),),
+                note=f"CPU per cycle {r['ours_cpu'] * 1e3:.2f} vs {r['bare_cpu'] * 1e3:.2f} ms",
+                extra={
+                    "ours_cpu_ms": r["ours_cpu"] * 1e3,
+                    "bare_cpu_ms": r["bare_cpu"] * 1e3,
+                    "requests": r["requests"],
+                    "cycles": cycles,
+                },
+            )
+        )
     one, big = rows.get(1), rows.get(32)
     if isinstance(one, dict) and isinstance(big, dict):
-        out.append(Figure("poller", "cycle, 32 meters vs 1 meter (ours)", big["ours"] * 1e3, "ms",
-                          one["ours"] * 1e3, ratio(big["ours"], one["ours"]), (Target("ratio", "<=", 2.0),),
-                          note=f"bare loop {big['bare'] / one['bare']:.2f}x"))
+        out.append(
+            Figure(
+                "poller",
+                "cycle, 32 meters vs 1 meter (ours)",
+                big["ours"] * 1e3,
+                "ms",
+                one["ours"] * 1e3,
+                ratio(big["ours"], one["ours"]),
+                (Target("ratio", "<=", 2.0),),
+                note=f"bare loop {big['bare'] / one['bare']:.2f}x",
+            )
+        )
     return out
 
 
@@ -273,21 +366,46 @@ def main() -> None:
     rows = run(sizes, args.cycles)
     regmap = bench_map()
     plan = plan_map(regmap, 8)
-    t = Table(title=f"poll cycle, {plan.registers_read} registers/meter in {len(plan.requests)} reads "
-                    f"(naive {naive_request_count(regmap)}), {args.cycles} cycles each, servers in another process")
-    for col in ("meters", "ours ms", "bare ms", "ours/bare", "ours cpu ms", "bare cpu ms", "cpu ratio",
-                "ours N/1", "bare N/1", "requests", "plan min", "naive"):
+    t = Table(
+        title=f"poll cycle, {plan.registers_read} registers/meter in {len(plan.requests)} reads "
+        f"(naive {naive_request_count(regmap)}), {args.cycles} cycles each, servers in another process"
+    )
+    for col in (
+        "meters",
+        "ours ms",
+        "bare ms",
+        "ours/bare",
+        "ours cpu ms",
+        "bare cpu ms",
+        "cpu ratio",
+        "ours N/1",
+        "bare N/1",
+        "requests",
+        "plan min",
+        "naive",
+    ):
         t.add_column(col, justify="right")
     base = rows[sizes[0]]
     for n in sizes:
         r = rows[n]
-        t.add_row(str(n), f"{r['ours'] * 1000:.2f}", f"{r['bare'] * 1000:.2f}", f"{r['ours'] / r['bare']:.2f}",
-                  f"{r['ours_cpu'] * 1000:.2f}", f"{r['bare_cpu'] * 1000:.2f}",
-                  f"{r['ours_cpu'] / r['bare_cpu']:.2f}",
-                  f"{r['ours'] / base['ours']:.2f}", f"{r['bare'] / base['bare']:.2f}",
-                  str(r["requests"]), str(r["plan_min"]), str(r["naive"]))
+        t.add_row(
+            str(n),
+            f"{r['ours'] * 1000:.2f}",
+            f"{r['bare'] * 1000:.2f}",
+            f"{r['ours'] / r['bare']:.2f}",
+            f"{r['ours_cpu'] * 1000:.2f}",
+            f"{r['bare_cpu'] * 1000:.2f}",
+            f"{r['ours_cpu'] / r['bare_cpu']:.2f}",
+            f"{r['ours'] / base['ours']:.2f}",
+            f"{r['bare'] / base['bare']:.2f}",
+            str(r["requests"]),
+            str(r["plan_min"]),
+            str(r["naive"]),
+        )
     Console(width=140).print(t)
-    print("targets: ours/bare <= 1.2; 32-meter / 1-meter <= 2. cpu = this process's CPU time per cycle")
+    print(
+        "targets: ours/bare <= 1.2; 32-meter / 1-meter <= 2. cpu = this process's CPU time per cycle"
+    )
 
 
 if __name__ == "__main__":

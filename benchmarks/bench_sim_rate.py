@@ -47,7 +47,9 @@ async def _poll(profile, seconds: float) -> list[float]:
         async for snap in poller.run(0.1):
             cycles.append(snap.cycle_s)
             bad = [m for m, b in snap.meters.items() if b.state.value != "ok"]
-            assert not bad, f"meters not answering: {[(m, snap.meters[m].state.value, snap.meters[m].error) for m in bad]}"
+            assert not bad, (
+                f"meters not answering: {[(m, snap.meters[m].state.value, snap.meters[m].error) for m in bad]}"
+            )
             if time.monotonic() > t_end:
                 break
     finally:
@@ -109,18 +111,34 @@ def figures(seconds: float = 10.0, update_samples: int = 200) -> list[Figure]:
     """Simulator update rate under 10 Hz polling, bench in another process and in the same loop."""
     asked = load_profile(DEMO).sim.get("update_hz", 10)
     out = []
-    for name, run in (("bench in other process", lambda: other_process(seconds)),
-                      ("bench in poller's loop", lambda: asyncio.run(same_process(seconds)))):
+    for name, run in (
+        ("bench in other process", lambda: other_process(seconds)),
+        ("bench in poller's loop", lambda: asyncio.run(same_process(seconds))),
+    ):
         periods, cycles = run()
         med = median(periods)
-        out.append(Figure("simulator", f"update rate under 10 Hz polling, {name}", 1 / med if med else None, "Hz",
-                          targets=(Target("ours", ">=", 10.0),),
-                          note=f"asks {asked:g} Hz; p95 period {percentile(periods, 0.95) * 1e3:.0f} ms; "
-                               f"poll cycle {median(cycles) * 1e3:.1f} ms",
-                          extra={"updates": len(periods), "asked_hz": asked}))
+        out.append(
+            Figure(
+                "simulator",
+                f"update rate under 10 Hz polling, {name}",
+                1 / med if med else None,
+                "Hz",
+                targets=(Target("ours", ">=", 10.0),),
+                note=f"asks {asked:g} Hz; p95 period {percentile(periods, 0.95) * 1e3:.0f} ms; "
+                f"poll cycle {median(cycles) * 1e3:.1f} ms",
+                extra={"updates": len(periods), "asked_hz": asked},
+            )
+        )
     cost = asyncio.run(update_cost(update_samples))
-    out.append(Figure("simulator", "one update alone (8 meters + PLC)", cost * 1e3, "ms",
-                      note=f"{cost * asked * 100:.1f} % of a core at {asked:g} Hz"))
+    out.append(
+        Figure(
+            "simulator",
+            "one update alone (8 meters + PLC)",
+            cost * 1e3,
+            "ms",
+            note=f"{cost * asked * 100:.1f} % of a core at {asked:g} Hz",
+        )
+    )
     return out
 
 
@@ -129,16 +147,26 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=10.0)
     seconds = ap.parse_args().seconds
     target_hz = load_profile(DEMO).sim.get("update_hz", 10)
-    print(f"demo bench, 8 meters + PLC, poller at 10 Hz for {seconds:g} s; sim update_hz = {target_hz}")
-    print(f"{'setup':<22}{'updates':>8}{'median period ms':>18}{'p95 ms':>9}{'rate Hz':>9}{'poll cycle ms':>15}")
-    for name, run in (("bench in other process", lambda: other_process(seconds)),
-                      ("bench in same loop", lambda: asyncio.run(same_process(seconds)))):
+    print(
+        f"demo bench, 8 meters + PLC, poller at 10 Hz for {seconds:g} s; sim update_hz = {target_hz}"
+    )
+    print(
+        f"{'setup':<22}{'updates':>8}{'median period ms':>18}{'p95 ms':>9}{'rate Hz':>9}{'poll cycle ms':>15}"
+    )
+    for name, run in (
+        ("bench in other process", lambda: other_process(seconds)),
+        ("bench in same loop", lambda: asyncio.run(same_process(seconds))),
+    ):
         periods, cycles = run()
         med = statistics.median(periods)
-        print(f"{name:<22}{len(periods):>8}{med * 1e3:>18.1f}{_pct(periods, 0.95) * 1e3:>9.1f}"
-              f"{1 / med:>9.1f}{statistics.median(cycles) * 1e3:>15.1f}")
+        print(
+            f"{name:<22}{len(periods):>8}{med * 1e3:>18.1f}{_pct(periods, 0.95) * 1e3:>9.1f}"
+            f"{1 / med:>9.1f}{statistics.median(cycles) * 1e3:>15.1f}"
+        )
     cost = asyncio.run(update_cost())
-    print(f"one update alone: median {cost * 1e3:.2f} ms = {cost * target_hz * 100:.1f} % of one core at {target_hz} Hz")
+    print(
+        f"one update alone: median {cost * 1e3:.2f} ms = {cost * target_hz * 100:.1f} % of one core at {target_hz} Hz"
+    )
 
 
 if __name__ == "__main__":

@@ -58,12 +58,33 @@ def feeder(n: int = 100, seed: int = 7) -> tuple[Profile, list[tuple], list[tupl
         r, x = rng.uniform(0.004, 0.012), rng.uniform(0.003, 0.008)
         b = rng.uniform(2.0, 8.0)
         lines.append((f"L{k}", parent, k, r, x, b, 3 * r, 3.5 * x, 0.6 * b))
-        branches.append(Branch(f"L{k}", "line", f"N{parent}", f"N{k}",
-                               sim={"r_ohm": r, "x_ohm": x, "b_us": b, "r0_ohm": 3 * r, "x0_ohm": 3.5 * x, "b0_us": 0.6 * b}))
+        branches.append(
+            Branch(
+                f"L{k}",
+                "line",
+                f"N{parent}",
+                f"N{k}",
+                sim={
+                    "r_ohm": r,
+                    "x_ohm": x,
+                    "b_us": b,
+                    "r0_ohm": 3 * r,
+                    "x0_ohm": 3.5 * x,
+                    "b0_us": 0.6 * b,
+                },
+            )
+        )
         p = rng.uniform(50.0, 300.0, 3)
         q = p * np.tan(np.arccos(rng.uniform(0.9, 0.99, 3)))
         loads.append((k, p, q))
-        branches.append(Branch(f"LD{k}", "load", f"N{k}", sim={"model": "pq", "p_w": p.tolist(), "q_var": q.tolist()}))
+        branches.append(
+            Branch(
+                f"LD{k}",
+                "load",
+                f"N{k}",
+                sim={"model": "pq", "p_w": p.tolist(), "q_var": q.tolist()},
+            )
+        )
     bench = Bench("feeder100", 50.0, 1.0, 100e3, (Zone("lv", 400.0, 400.0),))
     return Profile("feeder100", "", bench, {}, (), tuple(buses), tuple(branches), ()), lines, loads
 
@@ -75,8 +96,15 @@ def time_ours(p: Profile, states: dict, repeat: int) -> tuple[float, int, float,
         t0 = time.perf_counter()
         sol = solve(build_network(p, states, models))
         times.append(time.perf_counter() - t0)
-    vmin = min(float(np.min(np.abs(v[np.abs(v) > 0]))) for v in sol.v.values() if np.any(np.abs(v) > 0))
-    return statistics.median(times), sol.iterations, sol.max_mismatch_va, vmin / (400 / math.sqrt(3))
+    vmin = min(
+        float(np.min(np.abs(v[np.abs(v) > 0]))) for v in sol.v.values() if np.any(np.abs(v) > 0)
+    )
+    return (
+        statistics.median(times),
+        sol.iterations,
+        sol.max_mismatch_va,
+        vmin / (400 / math.sqrt(3)),
+    )
 
 
 def pandapower_case(lines: list[tuple], loads: list[tuple], n: int):
@@ -87,19 +115,45 @@ def pandapower_case(lines: list[tuple], loads: list[tuple], n: int):
     except ImportError:
         return None
     warnings.filterwarnings("ignore")
-    logging.getLogger("pandapower").setLevel(logging.ERROR)  # its "numba missing" notice on every run
+    logging.getLogger("pandapower").setLevel(
+        logging.ERROR
+    )  # its "numba missing" notice on every run
     net = pp.create_empty_network(f_hz=50.0, sn_mva=0.1)
     bus = [pp.create_bus(net, 0.4) for _ in range(n)]
     emf = pp.create_bus(net, 0.4)
-    pp.create_ext_grid(net, emf, vm_pu=410 / 400, s_sc_max_mva=1e6, rx_max=0.1, x0x_max=1.0, r0x0_max=0.1)
+    pp.create_ext_grid(
+        net, emf, vm_pu=410 / 400, s_sc_max_mva=1e6, rx_max=0.1, x0x_max=1.0, r0x0_max=0.1
+    )
     z = 410.0**2 / 2e6
     r = z / math.sqrt(37)
-    pp.create_line_from_parameters(net, emf, bus[0], 1.0, r, 6 * r, 0.0, 10.0, r0_ohm_per_km=r, x0_ohm_per_km=6 * r,
-                                   c0_nf_per_km=0.0)
+    pp.create_line_from_parameters(
+        net,
+        emf,
+        bus[0],
+        1.0,
+        r,
+        6 * r,
+        0.0,
+        10.0,
+        r0_ohm_per_km=r,
+        x0_ohm_per_km=6 * r,
+        c0_nf_per_km=0.0,
+    )
     w = 2 * math.pi * 50
     for _, f, t, r, x, b, r0, x0, b0 in lines:
-        pp.create_line_from_parameters(net, bus[f], bus[t], 1.0, r, x, b / w * 1e3, 10.0, r0_ohm_per_km=r0,
-                                       x0_ohm_per_km=x0, c0_nf_per_km=b0 / w * 1e3)
+        pp.create_line_from_parameters(
+            net,
+            bus[f],
+            bus[t],
+            1.0,
+            r,
+            x,
+            b / w * 1e3,
+            10.0,
+            r0_ohm_per_km=r0,
+            x0_ohm_per_km=x0,
+            c0_nf_per_km=b0 / w * 1e3,
+        )
     for k, p, q in loads:
         pp.create_asymmetric_load(net, bus[k], *(p / 1e6), *(q / 1e6), type="wye")
     return lambda: runpp_3ph(net, tolerance_mva=1e-10)
@@ -124,10 +178,17 @@ def figures(repeat: int = 21) -> list[Figure]:
     """Demo bench (normal state) and the 100-bus feeder; the feeder against pandapower, interleaved."""
     demo = load_profile(str(DEMO))
     t, it, mis, _ = time_ours(demo, {}, repeat)
-    out = [Figure("solver", f"load flow, demo bench ({3 * len(demo.buses)} nodes, {it} iterations)",
-                  t * 1e3, "ms", targets=(Target("ours", "<", UPDATE_PERIOD_MS, "< 50 ms (one 20 Hz update)"),),
-                  note=f"max mismatch {mis:.1e} VA",
-                  extra={"iterations": it, "max_mismatch_va": mis})]
+    out = [
+        Figure(
+            "solver",
+            f"load flow, demo bench ({3 * len(demo.buses)} nodes, {it} iterations)",
+            t * 1e3,
+            "ms",
+            targets=(Target("ours", "<", UPDATE_PERIOD_MS, "< 50 ms (one 20 Hz update)"),),
+            note=f"max mismatch {mis:.1e} VA",
+            extra={"iterations": it, "max_mismatch_va": mis},
+        )
+    ]
     p, lines, loads = feeder()
     models = element_models(p)
     sol = solve(build_network(p, {}, models))
@@ -138,12 +199,21 @@ def figures(repeat: int = 21) -> list[Figure]:
     times = interleaved(cases, rounds=max(3, repeat // 3))
     ours = median(times["ours"]) * 1e3
     ref = median(times["pandapower"]) * 1e3 if pp_run is not None else None
-    out.append(Figure("solver", f"load flow, 100-bus feeder (300 nodes, {sol.iterations} iterations) vs pandapower "
-                      "runpp_3ph", ours, "ms", ref, ratio(ours, ref),
-                      (Target("ratio", "<=", 1.0, "ratio <= 1 (not slower)"),),
-                      note=f"max mismatch {sol.max_mismatch_va:.1e} VA"
-                      + ("" if pp_run is not None else "; pandapower not installed"),
-                      extra={"iterations": sol.iterations, "max_mismatch_va": sol.max_mismatch_va}))
+    out.append(
+        Figure(
+            "solver",
+            f"load flow, 100-bus feeder (300 nodes, {sol.iterations} iterations) vs pandapower "
+            "runpp_3ph",
+            ours,
+            "ms",
+            ref,
+            ratio(ours, ref),
+            (Target("ratio", "<=", 1.0, "ratio <= 1 (not slower)"),),
+            note=f"max mismatch {sol.max_mismatch_va:.1e} VA"
+            + ("" if pp_run is not None else "; pandapower not installed"),
+            extra={"iterations": sol.iterations, "max_mismatch_va": sol.max_mismatch_va},
+        )
+    )
     return out
 
 
@@ -154,17 +224,23 @@ def main(argv: list[str] | None = None) -> int:
     rows = []
     demo = load_profile(str(DEMO))
     for name, states in DEMO_STATES.items():
-        rows.append((f"demo: {name}", 3 * sum(1 for _ in demo.buses), *time_ours(demo, states, args.repeat)))
+        rows.append(
+            (f"demo: {name}", 3 * sum(1 for _ in demo.buses), *time_ours(demo, states, args.repeat))
+        )
     p, lines, loads = feeder()
     t100 = time_ours(p, {}, args.repeat)
     rows.append(("feeder 100 buses, unbalanced", 300, *t100))
-    print(f"{'case':34} {'nodes':>5} {'median ms':>10} {'iter':>4} {'max |dS| VA':>12} {'min |V| pu':>10}")
+    print(
+        f"{'case':34} {'nodes':>5} {'median ms':>10} {'iter':>4} {'max |dS| VA':>12} {'min |V| pu':>10}"
+    )
     for name, nodes, t, it, mis, vmin in rows:
         print(f"{name:34} {nodes:5d} {t * 1e3:10.2f} {it:4d} {mis:12.2e} {vmin:10.4f}")
     tp = time_pandapower(lines, loads, 100, max(3, args.repeat // 4))
     if tp is not None:
-        print(f"\nfeeder 100: pandapower runpp_3ph median {tp * 1e3:.1f} ms; ours {t100[0] * 1e3:.1f} ms; "
-              f"ratio pandapower/ours = {tp / t100[0]:.1f}")
+        print(
+            f"\nfeeder 100: pandapower runpp_3ph median {tp * 1e3:.1f} ms; ours {t100[0] * 1e3:.1f} ms; "
+            f"ratio pandapower/ours = {tp / t100[0]:.1f}"
+        )
     return 0
 
 

@@ -18,7 +18,11 @@ from typing import Literal
 
 Op = Literal["<", "<=", ">", ">=", "=="]
 _OPS: dict[str, Callable[[float, float], bool]] = {
-    "<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge, "==": operator.eq,
+    "<": operator.lt,
+    "<=": operator.le,
+    ">": operator.gt,
+    ">=": operator.ge,
+    "==": operator.eq,
 }
 
 
@@ -62,7 +66,9 @@ def _orders(names: Sequence[str], rounds: int) -> Iterable[list[str]]:
         yield list(names[k:]) + list(names[:k])
 
 
-def interleaved(cases: dict[str, Callable[[], object]], rounds: int, warmup: int = 1) -> dict[str, list[float]]:
+def interleaved(
+    cases: dict[str, Callable[[], object]], rounds: int, warmup: int = 1
+) -> dict[str, list[float]]:
     """Wall time (s) of each case, run round after round with the starting case rotated."""
     names = list(cases)
     for _ in range(warmup):
@@ -140,7 +146,9 @@ class Figure:
         return "pass" if p else "MISS"
 
 
-def missing(area: str, figure: str, why: str, unit: str = "", targets: tuple[Target, ...] = ()) -> Figure:
+def missing(
+    area: str, figure: str, why: str, unit: str = "", targets: tuple[Target, ...] = ()
+) -> Figure:
     """A row for a benchmark that could not run here, saying why (the table never silently drops one)."""
     return Figure(area, figure, None, unit, targets=targets, note=why)
 
@@ -181,17 +189,30 @@ def table_rows(figures: Sequence[Figure]) -> list[tuple[str, ...]]:
     rows = []
     for f in figures:
         fig = f.figure if not f.note else f"{f.figure} ({f.note})"
-        rows.append((f.area, fig, fmt_value(f.ours, f.unit), fmt_value(f.reference, f.unit),
-                     fmt_ratio(f.ratio), f.target_text, f.verdict))
+        rows.append(
+            (
+                f.area,
+                fig,
+                fmt_value(f.ours, f.unit),
+                fmt_value(f.reference, f.unit),
+                fmt_ratio(f.ratio),
+                f.target_text,
+                f.verdict,
+            )
+        )
     return rows
 
 
 def markdown_table(figures: Sequence[Figure]) -> str:
     """GitHub-flavoured Markdown of the same table (pipes in cells escaped)."""
+
     def cell(s: str) -> str:
         return s.replace("|", "\\|")
 
-    lines = ["| " + " | ".join(COLUMNS) + " |", "|" + "|".join(["---"] * 2 + ["---:"] * 3 + ["---"] * 2) + "|"]
+    lines = [
+        "| " + " | ".join(COLUMNS) + " |",
+        "|" + "|".join(["---"] * 2 + ["---:"] * 3 + ["---"] * 2) + "|",
+    ]
     lines += ["| " + " | ".join(cell(c) for c in row) + " |" for row in table_rows(figures)]
     return "\n".join(lines) + "\n"
 
@@ -203,7 +224,13 @@ def rich_table(figures: Sequence[Figure], title: str = ""):
     t = Table(title=title or None, show_lines=False)
     for i, col in enumerate(COLUMNS):
         t.add_column(col, justify="right" if 2 <= i <= 4 else "left", overflow="fold")
-    style = {"pass": "green", "MISS": "bold red", "not run": "yellow", "n/a": "yellow", "info": "dim"}
+    style = {
+        "pass": "green",
+        "MISS": "bold red",
+        "not run": "yellow",
+        "n/a": "yellow",
+        "info": "dim",
+    }
     for row in table_rows(figures):
         t.add_row(*row[:-1], f"[{style[row[-1]]}]{row[-1]}[/]")
     return t

@@ -56,13 +56,21 @@ class SwitchControl:
         except KeyError:
             raise ControlRefused(f"switch {name}: no such switch in the profile") from None
         if state not in ("open", "closed"):
-            raise ControlRefused(f"switch {name}: cannot command state {state!r}; use open or closed")
+            raise ControlRefused(
+                f"switch {name}: cannot command state {state!r}; use open or closed"
+            )
         if sw.operation != "remote":
-            raise ControlRefused(f"switch {name} is operated by hand; operate it on site and confirm")
+            raise ControlRefused(
+                f"switch {name} is operated by hand; operate it on site and confirm"
+            )
         if sw.command_coil is None or sw.plc is None:
-            raise ControlRefused(f"switch {name}: no PLC command coil configured; operate it by hand")
+            raise ControlRefused(
+                f"switch {name}: no PLC command coil configured; operate it by hand"
+            )
         if sw.status is None:
-            raise ControlRefused(f"switch {name}: no status point to verify a command; operate it by hand")
+            raise ControlRefused(
+                f"switch {name}: no status point to verify a command; operate it by hand"
+            )
         try:
             plc_of(self.profile, sw.plc)
         except KeyError:
@@ -88,34 +96,54 @@ class SwitchControl:
         async with link.lock:  # the poller's reads wait; only this one request goes out
             try:
                 async with asyncio.timeout(plc.timeout_s):
-                    rr = await link.client.write_coil(sw.command_coil, state == "closed", device_id=plc.unit_id)
+                    rr = await link.client.write_coil(
+                        sw.command_coil, state == "closed", device_id=plc.unit_id
+                    )
             except (TimeoutError, ModbusException) as exc:
                 sent_error = f"no reply to the command ({type(exc).__name__}); "
         if rr is not None and rr.isError():
             code = int(getattr(rr, "exception_code", 0) or 0)
             status = await self.poller.read_switch(switch_id)
             return OperateResult(
-                switch_id, state, status, False, time.monotonic() - t0,
+                switch_id,
+                state,
+                status,
+                False,
+                time.monotonic() - t0,
                 f"PLC {plc.id} rejected the command to coil {sw.command_coil} with exception "
-                f"{code:#04x}; {switch_id} reads {status}", confirmed_by,
+                f"{code:#04x}; {switch_id} reads {status}",
+                confirmed_by,
             )
         return await self._verify(sw, state, t0, sent_error, confirmed_by)
 
-    async def _verify(self, sw: Switch, state: str, t0: float, prefix: str, confirmed_by: str) -> OperateResult:
+    async def _verify(
+        self, sw: Switch, state: str, t0: float, prefix: str, confirmed_by: str
+    ) -> OperateResult:
         deadline = t0 + self.profile.control.verify_timeout_s
         status = "unknown"
         while True:
             status = await self.poller.read_switch(sw.id)
             if status == state:
                 elapsed = time.monotonic() - t0
-                return OperateResult(sw.id, state, status, True, elapsed,
-                                     f"{prefix}{sw.id} is {status} after {elapsed:.2f} s", confirmed_by)
+                return OperateResult(
+                    sw.id,
+                    state,
+                    status,
+                    True,
+                    elapsed,
+                    f"{prefix}{sw.id} is {status} after {elapsed:.2f} s",
+                    confirmed_by,
+                )
             if time.monotonic() >= deadline:
                 break
             await asyncio.sleep(VERIFY_POLL_S)
         elapsed = time.monotonic() - t0
         return OperateResult(
-            sw.id, state, status, False, elapsed,
+            sw.id,
+            state,
+            status,
+            False,
+            elapsed,
             f"{prefix}{sw.id} was commanded {state} but still reads {status} after "
             f"{self.profile.control.verify_timeout_s:g} s; check the mechanism and its status wiring",
             confirmed_by,

@@ -60,7 +60,9 @@ class Col:
     required: bool = False
 
 
-def _c(name: str, type_: str, description: str, unit: str | None = None, required: bool = False) -> Col:
+def _c(
+    name: str, type_: str, description: str, unit: str | None = None, required: bool = False
+) -> Col:
     return Col(name, type_, description, unit, required)
 
 
@@ -70,22 +72,63 @@ TABLES: dict[str, dict[str, Any]] = {
         "columns": [
             _c("session", "string", "session id", required=True),
             _c("step", "string", "step id of the sequence; empty outside a step"),
-            _c("snapshot", "integer", "snapshot row id in the journal (joins snapshots.snapshot)", required=True),
-            _c("role", "string", "settling (before the step settled), capture (the step's record) or live", required=True),
+            _c(
+                "snapshot",
+                "integer",
+                "snapshot row id in the journal (joins snapshots.snapshot)",
+                required=True,
+            ),
+            _c(
+                "role",
+                "string",
+                "settling (before the step settled), capture (the step's record) or live",
+                required=True,
+            ),
             _c("time_utc", "datetime", "poll time, UTC", required=True),
             _c("meter", "string", "meter id (joins meters.id)", required=True),
-            _c("quantity", "string", "quantity name: v_ln, v_ll, i, p, q, s, pf, f, v_ang, i_ang, e_imp, e_exp", required=True),
-            _c("phase", "string", "A, B, C, N, AB, BC, CA, or T for total / single-valued", required=True),
-            _c("value", "number", "primary, bench-side value in SI units as read; empty when the read failed"),
+            _c(
+                "quantity",
+                "string",
+                "quantity name: v_ln, v_ll, i, p, q, s, pf, f, v_ang, i_ang, e_imp, e_exp",
+                required=True,
+            ),
+            _c(
+                "phase",
+                "string",
+                "A, B, C, N, AB, BC, CA, or T for total / single-valued",
+                required=True,
+            ),
+            _c(
+                "value",
+                "number",
+                "primary, bench-side value in SI units as read; empty when the read failed",
+            ),
             _c("unit", "string", "unit of value and value_network", required=True),
-            _c("quality", "string", "ok, timeout, exception, decode, offline or stale; only ok values are valid", required=True),
-            _c("value_network", "number", "value at network scale: V x zone scale, A x power_scale/voltage_scale, W/var/VA x power_scale"),
-            _c("value_pu", "number", "per unit on the bench bases (V: zone bench_v_ll, or over sqrt 3 for phase-neutral; power: s_base_va, over 3 per phase; A: base current)", unit="pu"),
+            _c(
+                "quality",
+                "string",
+                "ok, timeout, exception, decode, offline or stale; only ok values are valid",
+                required=True,
+            ),
+            _c(
+                "value_network",
+                "number",
+                "value at network scale: V x zone scale, A x power_scale/voltage_scale, W/var/VA x power_scale",
+            ),
+            _c(
+                "value_pu",
+                "number",
+                "per unit on the bench bases (V: zone bench_v_ll, or over sqrt 3 for phase-neutral; power: s_base_va, over 3 per phase; A: base current)",
+                unit="pu",
+            ),
             _c("mmxu", "string", "IEC 61850-7-4 MMXU data object name of the quantity"),
         ],
         "primaryKey": ["snapshot", "meter", "quantity", "phase"],
         "foreignKeys": [
-            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}},
+            {
+                "fields": ["snapshot"],
+                "reference": {"resource": "snapshots", "fields": ["snapshot"]},
+            },
             {"fields": ["meter"], "reference": {"resource": "meters", "fields": ["id"]}},
         ],
     },
@@ -109,14 +152,18 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("snapshot", "integer", "snapshot row id", required=True),
             _c("meter", "string", "meter id", required=True),
             _c("state", "string", "ok, degraded, failing or offline", required=True),
-            _c("exception_code", "integer", "Modbus exception code the meter answered with, if any"),
+            _c(
+                "exception_code", "integer", "Modbus exception code the meter answered with, if any"
+            ),
             _c("error", "string", "what went wrong this cycle, one line"),
             _c("error_count", "integer", "consecutive failed cycles", required=True),
             _c("latency_s", "number", "request-response time", unit="s"),
             _c("last_good_utc", "datetime", "last good answer, UTC"),
         ],
         "primaryKey": ["snapshot", "meter"],
-        "foreignKeys": [{"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}],
+        "foreignKeys": [
+            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}
+        ],
     },
     "switch_states": {
         "title": "Switch positions reported in each snapshot",
@@ -126,7 +173,9 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("state", "string", "open, closed or unknown", required=True),
         ],
         "primaryKey": ["snapshot", "switch"],
-        "foreignKeys": [{"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}],
+        "foreignKeys": [
+            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}
+        ],
     },
     "steps": {
         "title": "The sequence, one row per step, with its final outcome",
@@ -135,10 +184,27 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("order", "integer", "position in the sequence, from 1", required=True),
             _c("title", "string", "one line"),
             _c("kind", "string", "manual, remote, capture, hold or note", required=True),
-            _c("expected_switches", "string", "switch states the step expects, SWITCH=state separated by ;"),
-            _c("actual_switches", "string", "switch states found at the last transition, SWITCH=state separated by ;"),
-            _c("settle_s", "number", "time the network took to settle after the step's operation (its first settle; a retake does not count)", unit="s"),
-            _c("state", "string", "last state reached: accepted, skipped, reviewing, ...; empty if never started"),
+            _c(
+                "expected_switches",
+                "string",
+                "switch states the step expects, SWITCH=state separated by ;",
+            ),
+            _c(
+                "actual_switches",
+                "string",
+                "switch states found at the last transition, SWITCH=state separated by ;",
+            ),
+            _c(
+                "settle_s",
+                "number",
+                "time the network took to settle after the step's operation (its first settle; a retake does not count)",
+                unit="s",
+            ),
+            _c(
+                "state",
+                "string",
+                "last state reached: accepted, skipped, reviewing, ...; empty if never started",
+            ),
             _c("outcome", "string", "last outcome: pass, warn, fail, signed, noted, ..."),
             _c("operator", "string", "who took the last decision"),
             _c("reason", "string", "reason given (skip, accept with failing checks)"),
@@ -159,7 +225,9 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("reason", "string", "reason given"),
             _c("settle_s", "number", "settle time", unit="s"),
             _c("actual_switches", "string", "switch states found, SWITCH=state separated by ;"),
-            _c("expected_switches", "string", "switch states expected, SWITCH=state separated by ;"),
+            _c(
+                "expected_switches", "string", "switch states expected, SWITCH=state separated by ;"
+            ),
         ],
         "primaryKey": ["id"],
     },
@@ -178,7 +246,9 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("message", "string", "one sentence: what is wrong, likely cause, what to look at"),
             _c("cause", "string", "machine-readable cause tag"),
         ],
-        "foreignKeys": [{"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}],
+        "foreignKeys": [
+            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}
+        ],
     },
     "meters": {
         "title": "The instruments",
@@ -187,7 +257,11 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("label", "string", "name on the bench"),
             _c("map", "string", "register map id", required=True),
             _c("bus", "string", "bus where the voltage is measured", required=True),
-            _c("branch", "string", "branch whose current it measures; empty for a voltage-only meter"),
+            _c(
+                "branch",
+                "string",
+                "branch whose current it measures; empty for a voltage-only meter",
+            ),
             _c("zone", "string", "voltage zone of the bus"),
             _c("sign_convention", "string", "what positive P and Q mean for this meter"),
             _c("reports", "string", "primary or secondary values"),
@@ -208,7 +282,11 @@ TABLES: dict[str, dict[str, Any]] = {
         "columns": [
             _c("element", "string", "bus, branch or switch", required=True),
             _c("id", "string", "element id", required=True),
-            _c("kind", "string", "branch kind (source, line, transformer, load, shunt) or switch operation"),
+            _c(
+                "kind",
+                "string",
+                "branch kind (source, line, transformer, load, shunt) or switch operation",
+            ),
             _c("label", "string", "name on the bench"),
             _c("zone", "string", "voltage zone (buses; from-bus zone for branches)"),
             _c("from_bus", "string", "branch from-bus"),
@@ -216,7 +294,12 @@ TABLES: dict[str, dict[str, Any]] = {
             _c("branch", "string", "switch: the branch it opens"),
             _c("normal", "string", "switch: normal state"),
             _c("bench_v_ll", "number", "zone nominal line-to-line voltage on the bench", unit="V"),
-            _c("network_v_ll", "number", "line-to-line voltage it stands for on the network", unit="V"),
+            _c(
+                "network_v_ll",
+                "number",
+                "line-to-line voltage it stands for on the network",
+                unit="V",
+            ),
         ],
         "primaryKey": ["element", "id"],
     },
@@ -235,7 +318,12 @@ TABLES: dict[str, dict[str, Any]] = {
     },
 }
 
-_ARROW = {"string": pa.string(), "integer": pa.int64(), "number": pa.float64(), "datetime": pa.timestamp("us", tz="UTC")}
+_ARROW = {
+    "string": pa.string(),
+    "integer": pa.int64(),
+    "number": pa.float64(),
+    "datetime": pa.timestamp("us", tz="UTC"),
+}
 
 
 def arrow_schema(table: str, *, for_csv: bool = False) -> pa.Schema:
@@ -251,7 +339,9 @@ def arrow_schema(table: str, *, for_csv: bool = False) -> pa.Schema:
 # ---------------------------------------------------------------- bases and scales
 
 
-def _meter_factors(profile: dict[str, Any], meter: dict[str, Any], keys: Sequence[str]) -> tuple[np.ndarray, np.ndarray]:
+def _meter_factors(
+    profile: dict[str, Any], meter: dict[str, Any], keys: Sequence[str]
+) -> tuple[np.ndarray, np.ndarray]:
     """Per key: factor to network scale, and per-unit base (NaN where the profile defines none)."""
     bench = profile["bench"]
     zones = {z["id"]: z for z in bench["zones"]}
@@ -295,7 +385,9 @@ class _Template:
     pu: np.ndarray
 
 
-def _template(profile: dict[str, Any], meters: dict[str, dict], meter: str, keys: Sequence[str]) -> _Template:
+def _template(
+    profile: dict[str, Any], meters: dict[str, dict], meter: str, keys: Sequence[str]
+) -> _Template:
     qs, phs = zip(*(split_key(k) for k in keys), strict=True) if keys else ((), ())
     units = [QUANTITIES[q].unit if q in QUANTITIES else "" for q in qs]
     mmxu = [QUANTITIES[q].mmxu if q in QUANTITIES else "" for q in qs]
@@ -318,14 +410,20 @@ def _ro_connect(path: Path) -> sqlite3.Connection:
 
 
 def _ts(values: Iterable[str | None]) -> pa.Array:
-    arr = np.array([np.datetime64(v[:-1] if v else "NaT", "us") for v in values], dtype="datetime64[us]")
-    return pa.array(arr, type=pa.timestamp("us"), from_pandas=True).cast(pa.timestamp("us", tz="UTC"))
+    arr = np.array(
+        [np.datetime64(v[:-1] if v else "NaT", "us") for v in values], dtype="datetime64[us]"
+    )
+    return pa.array(arr, type=pa.timestamp("us"), from_pandas=True).cast(
+        pa.timestamp("us", tz="UTC")
+    )
 
 
 _QUAL_NAMES = np.array([str(q) for q in QUALITY_CODES], dtype=object)
 
 
-def _measurement_batches(conn: sqlite3.Connection, session: str, profile: dict[str, Any]) -> Iterator[dict[str, Any]]:
+def _measurement_batches(
+    conn: sqlite3.Connection, session: str, profile: dict[str, Any]
+) -> Iterator[dict[str, Any]]:
     """Column dicts of at most BATCH_READINGS journal rows each, in snapshot order."""
     keysets = {r["id"]: json.loads(r["keys"]) for r in conn.execute("SELECT id, keys FROM keyset")}
     meters = {m["id"]: m for m in profile["meters"]}
@@ -338,7 +436,9 @@ def _measurement_batches(conn: sqlite3.Connection, session: str, profile: dict[s
         rows = cur.fetchmany(BATCH_READINGS)
         if not rows:
             return
-        parts: dict[str, list] = {k: [] for k in ("snap", "step", "role", "time", "tpl", "vals", "qual", "n")}
+        parts: dict[str, list] = {
+            k: [] for k in ("snap", "step", "role", "time", "tpl", "vals", "qual", "n")
+        }
         for r in rows:
             key = (r["meter"], r["keyset"])
             tpl = templates.get(key)
@@ -403,8 +503,12 @@ def _measurement_tables(cols: dict[str, Any]) -> tuple[pa.Table, pa.Table]:
     # the time column is the same per snapshot: parse each distinct value once
     uniq, inv = np.unique(cols["time_iso"].astype(str), return_inverse=True)
     ts = _ts(uniq.tolist()).take(pa.array(inv))
-    pq_t = pa.table({**common, "time_utc": ts, **rest}).select([c.name for c in TABLES["measurements"]["columns"]])
-    csv_t = pa.table({**common, "time_utc": iso, **rest}).select([c.name for c in TABLES["measurements"]["columns"]])
+    pq_t = pa.table({**common, "time_utc": ts, **rest}).select(
+        [c.name for c in TABLES["measurements"]["columns"]]
+    )
+    csv_t = pa.table({**common, "time_utc": iso, **rest}).select(
+        [c.name for c in TABLES["measurements"]["columns"]]
+    )
     return pq_t, csv_t
 
 
@@ -416,16 +520,33 @@ def _small_tables(conn: sqlite3.Connection, journal: Journal) -> dict[str, list[
     prof = journal.profile_dict
     out: dict[str, list[dict[str, Any]]] = {}
     out["snapshots"] = [
-        {"snapshot": r["id"], "seq": r["seq"], "step": r["step"], "role": r["role"], "time_utc": r["time_utc"],
-         "t_mono": r["t_mono"], "cycle_s": r["cycle_s"], "saved_utc": r["saved_utc"]}
+        {
+            "snapshot": r["id"],
+            "seq": r["seq"],
+            "step": r["step"],
+            "role": r["role"],
+            "time_utc": r["time_utc"],
+            "t_mono": r["t_mono"],
+            "cycle_s": r["cycle_s"],
+            "saved_utc": r["saved_utc"],
+        }
         for r in conn.execute("SELECT * FROM snapshot ORDER BY id")
     ]
     out["polls"] = [
-        {"snapshot": r["snapshot"], "meter": r["meter"], "state": r["state"], "exception_code": r["exception_code"],
-         "error": r["error"], "error_count": r["error_count"], "latency_s": r["latency_s"],
-         "last_good_utc": r["last_good_utc"]}
-        for r in conn.execute("SELECT snapshot, meter, state, exception_code, error, error_count, latency_s,"
-                              " last_good_utc FROM reading ORDER BY snapshot, pos")
+        {
+            "snapshot": r["snapshot"],
+            "meter": r["meter"],
+            "state": r["state"],
+            "exception_code": r["exception_code"],
+            "error": r["error"],
+            "error_count": r["error_count"],
+            "latency_s": r["latency_s"],
+            "last_good_utc": r["last_good_utc"],
+        }
+        for r in conn.execute(
+            "SELECT snapshot, meter, state, exception_code, error, error_count, latency_s,"
+            " last_good_utc FROM reading ORDER BY snapshot, pos"
+        )
     ]
     out["switch_states"] = [
         {"snapshot": r["id"], "switch": k, "state": v}
@@ -433,25 +554,59 @@ def _small_tables(conn: sqlite3.Connection, journal: Journal) -> dict[str, list[
         for k, v in json.loads(r["switches"]).items()
     ]
     checks = []
-    for r in conn.execute('SELECT * FROM check_result ORDER BY id'):
+    for r in conn.execute("SELECT * FROM check_result ORDER BY id"):
         v, lim = r["value"], r["limit"]
         res = abs(v) / lim if v is not None and lim else None
-        checks.append({"step": r["step"], "snapshot": r["snapshot"], "check": r["check"], "subject": r["subject"],
-                       "status": r["status"], "value": v, "limit": lim, "residual": res, "unit": r["unit"],
-                       "message": r["message"], "cause": r["cause"]})
+        checks.append(
+            {
+                "step": r["step"],
+                "snapshot": r["snapshot"],
+                "check": r["check"],
+                "subject": r["subject"],
+                "status": r["status"],
+                "value": v,
+                "limit": lim,
+                "residual": res,
+                "unit": r["unit"],
+                "message": r["message"],
+                "cause": r["cause"],
+            }
+        )
     out["checks"] = checks
     history = journal.step_history()
     out["step_log"] = [
-        {**{k: h[k] for k in ("id", "time_utc", "step", "state", "outcome", "operator", "reason", "settle_s")},
-         "actual_switches": _switch_text(h["actual_switches"]), "expected_switches": _switch_text(h["expected_switches"])}
+        {
+            **{
+                k: h[k]
+                for k in (
+                    "id",
+                    "time_utc",
+                    "step",
+                    "state",
+                    "outcome",
+                    "operator",
+                    "reason",
+                    "settle_s",
+                )
+            },
+            "actual_switches": _switch_text(h["actual_switches"]),
+            "expected_switches": _switch_text(h["expected_switches"]),
+        }
         for h in history
     ]
     out["steps"] = _steps_rows(prof, history)
     out["meters"] = _meter_rows(prof)
     out["topology"] = _topology_rows(prof)
     out["events"] = [
-        {"id": r["id"], "time_utc": r["time_utc"], "kind": r["kind"], "step": r["step"], "operator": r["operator"],
-         "message": r["message"], "data": r["data"]}
+        {
+            "id": r["id"],
+            "time_utc": r["time_utc"],
+            "kind": r["kind"],
+            "step": r["step"],
+            "operator": r["operator"],
+            "message": r["message"],
+            "data": r["data"],
+        }
         for r in conn.execute("SELECT * FROM event ORDER BY id")
     ]
     return out
@@ -463,16 +618,28 @@ def _steps_rows(prof: dict[str, Any], history: list[dict]) -> list[dict[str, Any
         mine = [h for h in history if h["step"] == s["id"]]
         last = mine[-1] if mine else {}
         settle = next((h["settle_s"] for h in mine if h["settle_s"] is not None), None)
-        actual = next((h["actual_switches"] for h in reversed(mine) if h["actual_switches"] is not None), None)
+        actual = next(
+            (h["actual_switches"] for h in reversed(mine) if h["actual_switches"] is not None), None
+        )
         outcome = next((h["outcome"] for h in reversed(mine) if h["outcome"]), None)
         reason = next((h["reason"] for h in reversed(mine) if h["reason"]), None)
-        rows.append({
-            "id": s["id"], "order": n, "title": s.get("title"), "kind": s.get("kind"),
-            "expected_switches": _switch_text(s.get("expect") or {}), "actual_switches": _switch_text(actual),
-            "settle_s": settle, "state": last.get("state"), "outcome": outcome, "operator": last.get("operator"),
-            "reason": reason, "started_utc": mine[0]["time_utc"] if mine else None,
-            "ended_utc": last.get("time_utc"),
-        })
+        rows.append(
+            {
+                "id": s["id"],
+                "order": n,
+                "title": s.get("title"),
+                "kind": s.get("kind"),
+                "expected_switches": _switch_text(s.get("expect") or {}),
+                "actual_switches": _switch_text(actual),
+                "settle_s": settle,
+                "state": last.get("state"),
+                "outcome": outcome,
+                "operator": last.get("operator"),
+                "reason": reason,
+                "started_utc": mine[0]["time_utc"] if mine else None,
+                "ended_utc": last.get("time_utc"),
+            }
+        )
     return rows
 
 
@@ -487,15 +654,32 @@ def _meter_rows(prof: dict[str, Any]) -> list[dict[str, Any]]:
     rows = []
     for m in prof["meters"]:
         c = m.get("classes") or {}
-        sign = (f"positive P and Q = power flowing from bus {m['bus']} into branch {m['branch']}"
-                if m.get("branch") else "voltage only")
-        rows.append({
-            "id": m["id"], "label": m.get("label"), "map": m["map_id"], "bus": m["bus"], "branch": m.get("branch"),
-            "zone": buses.get(m["bus"], {}).get("zone"), "sign_convention": sign, "reports": m.get("reports"),
-            "ct_ratio": m.get("ct_ratio"), "vt_ratio": m.get("vt_ratio"), "ct_primary_a": m.get("ct_primary_a"),
-            "class_p": c.get("p"), "class_q": c.get("q"), "class_v": c.get("v"), "class_i": c.get("i"),
-            "endpoint": _endpoint(m.get("transport") or {}), "unit_id": m.get("unit_id"),
-        })
+        sign = (
+            f"positive P and Q = power flowing from bus {m['bus']} into branch {m['branch']}"
+            if m.get("branch")
+            else "voltage only"
+        )
+        rows.append(
+            {
+                "id": m["id"],
+                "label": m.get("label"),
+                "map": m["map_id"],
+                "bus": m["bus"],
+                "branch": m.get("branch"),
+                "zone": buses.get(m["bus"], {}).get("zone"),
+                "sign_convention": sign,
+                "reports": m.get("reports"),
+                "ct_ratio": m.get("ct_ratio"),
+                "vt_ratio": m.get("vt_ratio"),
+                "ct_primary_a": m.get("ct_primary_a"),
+                "class_p": c.get("p"),
+                "class_q": c.get("q"),
+                "class_v": c.get("v"),
+                "class_i": c.get("i"),
+                "endpoint": _endpoint(m.get("transport") or {}),
+                "unit_id": m.get("unit_id"),
+            }
+        )
     return rows
 
 
@@ -503,21 +687,64 @@ def _topology_rows(prof: dict[str, Any]) -> list[dict[str, Any]]:
     zones = {z["id"]: z for z in prof["bench"]["zones"]}
     buses = {b["id"]: b for b in prof["buses"]}
     rows = []
-    blank = {k: None for k in ("kind", "label", "zone", "from_bus", "to_bus", "branch", "normal", "bench_v_ll", "network_v_ll")}
+    blank = {
+        k: None
+        for k in (
+            "kind",
+            "label",
+            "zone",
+            "from_bus",
+            "to_bus",
+            "branch",
+            "normal",
+            "bench_v_ll",
+            "network_v_ll",
+        )
+    }
 
     def zone_cols(zid: str | None) -> dict[str, Any]:
         z = zones.get(zid or "")
-        return {"zone": zid, "bench_v_ll": z and z["bench_v_ll"], "network_v_ll": z and z["network_v_ll"]}
+        return {
+            "zone": zid,
+            "bench_v_ll": z and z["bench_v_ll"],
+            "network_v_ll": z and z["network_v_ll"],
+        }
 
     for b in prof["buses"]:
-        rows.append({**blank, "element": "bus", "id": b["id"], "label": b.get("label"), **zone_cols(b["zone"])})
+        rows.append(
+            {
+                **blank,
+                "element": "bus",
+                "id": b["id"],
+                "label": b.get("label"),
+                **zone_cols(b["zone"]),
+            }
+        )
     for br in prof["branches"]:
-        rows.append({**blank, "element": "branch", "id": br["id"], "kind": br["kind"], "label": br.get("label"),
-                     "from_bus": br["from_bus"], "to_bus": br.get("to_bus"),
-                     **zone_cols(buses.get(br["from_bus"], {}).get("zone"))})
+        rows.append(
+            {
+                **blank,
+                "element": "branch",
+                "id": br["id"],
+                "kind": br["kind"],
+                "label": br.get("label"),
+                "from_bus": br["from_bus"],
+                "to_bus": br.get("to_bus"),
+                **zone_cols(buses.get(br["from_bus"], {}).get("zone")),
+            }
+        )
     for s in prof["switches"]:
-        rows.append({**blank, "element": "switch", "id": s["id"], "kind": s.get("operation"), "label": s.get("label"),
-                     "branch": s["branch"], "normal": s.get("normal")})
+        rows.append(
+            {
+                **blank,
+                "element": "switch",
+                "id": s["id"],
+                "kind": s.get("operation"),
+                "label": s.get("label"),
+                "branch": s["branch"],
+                "normal": s.get("normal"),
+            }
+        )
     return rows
 
 
@@ -527,12 +754,27 @@ def _to_tables(name: str, rows: list[dict[str, Any]]) -> tuple[pa.Table, pa.Tabl
     for c in cols:
         vals = [r.get(c.name) for r in rows]
         if c.type == "number":
-            vals = [None if v is None or (isinstance(v, float) and math.isnan(v)) else float(v) for v in vals]
+            vals = [
+                None if v is None or (isinstance(v, float) and math.isnan(v)) else float(v)
+                for v in vals
+            ]
         data[c.name] = vals
-    csv_t = pa.table({c.name: pa.array(data[c.name], _ARROW[c.type] if c.type != "datetime" else pa.string())
-                      for c in cols})
-    pq_t = pa.table({c.name: (_ts(data[c.name]) if c.type == "datetime" else pa.array(data[c.name], _ARROW[c.type]))
-                     for c in cols})
+    csv_t = pa.table(
+        {
+            c.name: pa.array(data[c.name], _ARROW[c.type] if c.type != "datetime" else pa.string())
+            for c in cols
+        }
+    )
+    pq_t = pa.table(
+        {
+            c.name: (
+                _ts(data[c.name])
+                if c.type == "datetime"
+                else pa.array(data[c.name], _ARROW[c.type])
+            )
+            for c in cols
+        }
+    )
     return pq_t, csv_t
 
 
@@ -574,7 +816,9 @@ class _TableWriter:
         self.pq_path = folder / f"{name}.parquet"
         self.csv_path = folder / f"{name}.csv"
         self._pq = pq.ParquetWriter(self.pq_path, arrow_schema(name), compression="zstd")
-        self._csv = pacsv.CSVWriter(self.csv_path, arrow_schema(name, for_csv=True), write_options=_CSV_OPTS)
+        self._csv = pacsv.CSVWriter(
+            self.csv_path, arrow_schema(name, for_csv=True), write_options=_CSV_OPTS
+        )
         self.rows = 0
 
     def write(self, pq_t: pa.Table, csv_t: pa.Table) -> None:
@@ -606,7 +850,9 @@ def export_session(
     journal = Journal.open(path)
     where = path  # what a failure message names: the journal, then the folder being written
     try:
-        target = Path(out_dir) if out_dir is not None else default_dataset_dir(path, journal.session_id)
+        target = (
+            Path(out_dir) if out_dir is not None else default_dataset_dir(path, journal.session_id)
+        )
         where = target
         if target.exists() and not overwrite:
             raise BenchwalkError(
@@ -625,9 +871,13 @@ def export_session(
             raise
         return target
     except OSError as exc:
-        raise BenchwalkError(f"{exc.filename or where}: export failed ({exc.strerror or exc}); nothing was changed, the journal is intact") from exc
+        raise BenchwalkError(
+            f"{exc.filename or where}: export failed ({exc.strerror or exc}); nothing was changed, the journal is intact"
+        ) from exc
     except (pa.ArrowException, sqlite3.Error) as exc:
-        raise BenchwalkError(f"{where}: export failed ({exc}); nothing was changed, the journal is intact") from exc
+        raise BenchwalkError(
+            f"{where}: export failed ({exc}); nothing was changed, the journal is intact"
+        ) from exc
     finally:
         journal.close()
 
@@ -683,12 +933,16 @@ def _swap_in(tmp: Path, target: Path) -> None:
         shutil.rmtree(old, ignore_errors=True)
 
 
-def _write_dataset(journal: Journal, journal_path: Path, folder: Path, progress: Progress | None) -> None:
+def _write_dataset(
+    journal: Journal, journal_path: Path, folder: Path, progress: Progress | None
+) -> None:
     data = folder / DATA_DIR
     data.mkdir(parents=True)
     conn = _ro_connect(journal_path)
     try:
-        conn.execute("BEGIN")  # one read transaction: a consistent view while the runner may still append
+        conn.execute(
+            "BEGIN"
+        )  # one read transaction: a consistent view while the runner may still append
         total = conn.execute("SELECT count(*) FROM reading").fetchone()[0]
         w = _TableWriter(data, "measurements")
         done = 0
@@ -717,14 +971,23 @@ def _write_dataset(journal: Journal, journal_path: Path, folder: Path, progress:
         rel = MAIN_PROFILE if i == 0 and name.endswith(".toml") else _safe_rel(name)
         dest = prof_dir / rel
         dest.parent.mkdir(parents=True, exist_ok=True)
-        dest.write_bytes(text.encode("utf-8"))  # exactly the journalled text, no newline translation
-        profile_entries.append({"path": f"{PROFILE_DIR}/{rel}", "original_name": name,
-                                "hash": "sha256:" + _sha256(dest)})
+        dest.write_bytes(
+            text.encode("utf-8")
+        )  # exactly the journalled text, no newline translation
+        profile_entries.append(
+            {
+                "path": f"{PROFILE_DIR}/{rel}",
+                "original_name": name,
+                "hash": "sha256:" + _sha256(dest),
+            }
+        )
     for p in sorted(folder.rglob("*")):
         if p.is_file():
             _fsync_file(p)
     pkg = _datapackage(journal, folder, counts, profile_entries)
-    (folder / "datapackage.json").write_text(json.dumps(pkg, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+    (folder / "datapackage.json").write_text(
+        json.dumps(pkg, indent=2, ensure_ascii=False) + "\n", encoding="utf-8"
+    )
     _fsync_file(folder / "datapackage.json")
     for d in (data, prof_dir, folder):
         _fsync_dir(d)
@@ -757,38 +1020,44 @@ def _schema(name: str) -> dict[str, Any]:
     return schema
 
 
-def _datapackage(journal: Journal, folder: Path, counts: dict[str, int], profile_entries: list[dict]) -> dict[str, Any]:
+def _datapackage(
+    journal: Journal, folder: Path, counts: dict[str, int], profile_entries: list[dict]
+) -> dict[str, Any]:
     resources = []
     for name in TABLES:
         csv_p = folder / DATA_DIR / f"{name}.csv"
         pq_p = folder / DATA_DIR / f"{name}.parquet"
-        resources.append({
-            "name": name,
-            "type": "table",
-            "path": f"{DATA_DIR}/{name}.csv",
-            "format": "csv",
-            "mediatype": "text/csv",
-            "encoding": "utf-8",
-            "title": TABLES[name]["title"],
-            "bytes": csv_p.stat().st_size,
-            "hash": "sha256:" + _sha256(csv_p),
-            "schema": _schema(name),
-            # the same table as Parquet (real timestamps, faster to read); same columns and rows
-            "benchwalk:parquet": {
-                "path": f"{DATA_DIR}/{name}.parquet",
-                "mediatype": "application/vnd.apache.parquet",
-                "bytes": pq_p.stat().st_size,
-                "hash": "sha256:" + _sha256(pq_p),
-            },
-            "benchwalk:rows": counts[name],
-        })
+        resources.append(
+            {
+                "name": name,
+                "type": "table",
+                "path": f"{DATA_DIR}/{name}.csv",
+                "format": "csv",
+                "mediatype": "text/csv",
+                "encoding": "utf-8",
+                "title": TABLES[name]["title"],
+                "bytes": csv_p.stat().st_size,
+                "hash": "sha256:" + _sha256(csv_p),
+                "schema": _schema(name),
+                # the same table as Parquet (real timestamps, faster to read); same columns and rows
+                "benchwalk:parquet": {
+                    "path": f"{DATA_DIR}/{name}.parquet",
+                    "mediatype": "application/vnd.apache.parquet",
+                    "bytes": pq_p.stat().st_size,
+                    "hash": "sha256:" + _sha256(pq_p),
+                },
+                "benchwalk:rows": counts[name],
+            }
+        )
     return {
         "$schema": DP_SCHEMA,
         "name": f"benchwalk-{_slug(journal.session_id)}",
         "title": f"{journal.bench}: session {journal.session_id}",
         "description": (journal.profile_dict.get("bench", {}).get("description") or journal.bench),
         "created": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "contributors": [{"title": journal.operator, "roles": ["operator"]}] if journal.operator else [],
+        "contributors": [{"title": journal.operator, "roles": ["operator"]}]
+        if journal.operator
+        else [],
         "resources": resources,
         "benchwalk": {
             "format": 1,
@@ -829,11 +1098,17 @@ class Dataset:
         from .profile import load_profile  # noqa: PLC0415 - keeps dataset import light
 
         if not self.profile_path.is_file():
-            raise BenchwalkError(f"{self.path}: the dataset has no {PROFILE_DIR}/{MAIN_PROFILE} to rebuild the bench from")
+            raise BenchwalkError(
+                f"{self.path}: the dataset has no {PROFILE_DIR}/{MAIN_PROFILE} to rebuild the bench from"
+            )
         try:
             return load_profile(self.profile_path)
         except ProfileError as exc:  # one line here: the full list is for `benchwalk lint`
-            more = f" (and {len(exc.problems) - 1} more; see benchwalk lint)" if len(exc.problems) > 1 else ""
+            more = (
+                f" (and {len(exc.problems) - 1} more; see benchwalk lint)"
+                if len(exc.problems) > 1
+                else ""
+            )
             raise _bad(self.path, f"its profile does not load: {exc.problems[0]}{more}") from None
 
     def __getitem__(self, name: str) -> pd.DataFrame:
@@ -848,7 +1123,9 @@ def _show_rel(rel: Any) -> str:
 
 
 def _bad(path: Path, what: str) -> BenchwalkError:
-    return BenchwalkError(f"{path}: not a usable benchwalk dataset: {what}; export it again from the session journal")
+    return BenchwalkError(
+        f"{path}: not a usable benchwalk dataset: {what}; export it again from the session journal"
+    )
 
 
 def read_package(folder: Path) -> dict[str, Any]:
@@ -864,8 +1141,14 @@ def read_package(folder: Path) -> dict[str, Any]:
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise _bad(folder, f"datapackage.json cannot be read ({exc})") from None
     except (RecursionError, ValueError):  # absurd nesting; numbers too long to convert
-        raise _bad(folder, "datapackage.json cannot be read (nested too deep or a number too long)") from None
-    if not isinstance(pkg, dict) or not isinstance(pkg.get("benchwalk"), dict) or not isinstance(pkg.get("resources"), list):
+        raise _bad(
+            folder, "datapackage.json cannot be read (nested too deep or a number too long)"
+        ) from None
+    if (
+        not isinstance(pkg, dict)
+        or not isinstance(pkg.get("benchwalk"), dict)
+        or not isinstance(pkg.get("resources"), list)
+    ):
         raise _bad(folder, "datapackage.json is not a benchwalk data package")
     meta = pkg["benchwalk"]
     for key in ("session", "bench"):
@@ -912,11 +1195,16 @@ def _verify_file(folder: Path, rel: str, expected_hash: Any, expected_bytes: Any
     if not _is_file(p):
         raise _bad(folder, f"{_show_rel(rel)} is missing")
     if expected_bytes is not None and p.stat().st_size != expected_bytes:
-        raise _bad(folder, f"{rel} has {p.stat().st_size} bytes, the package says {expected_bytes} (truncated or changed)")
+        raise _bad(
+            folder,
+            f"{rel} has {p.stat().st_size} bytes, the package says {expected_bytes} (truncated or changed)",
+        )
     if not isinstance(expected_hash, str) or not expected_hash.startswith("sha256:"):
         raise _bad(folder, f"{rel} has no sha256 in datapackage.json")
     if "sha256:" + _sha256(p) != expected_hash:
-        raise _bad(folder, f"{rel} does not match its sha256 in datapackage.json (damaged or edited)")
+        raise _bad(
+            folder, f"{rel} does not match its sha256 in datapackage.json (damaged or edited)"
+        )
     return p
 
 
@@ -949,7 +1237,9 @@ def verify_dataset(folder: Path) -> dict[str, Any]:
     return pkg
 
 
-def read_table(folder: Path, name: str, *, columns: list[str] | None = None, filters: Any = None) -> pd.DataFrame:
+def read_table(
+    folder: Path, name: str, *, columns: list[str] | None = None, filters: Any = None
+) -> pd.DataFrame:
     """One table from its Parquet copy, with its columns checked against the schema."""
     folder = Path(folder)
     p = folder / DATA_DIR / f"{name}.parquet"
@@ -965,14 +1255,18 @@ def read_table(folder: Path, name: str, *, columns: list[str] | None = None, fil
     expected = arrow_schema(name)
     for f in t.schema:
         if f.name in expected.names and not f.type.equals(expected.field(f.name).type):
-            raise _bad(folder, f"{name}.{f.name} holds {f.type}, expected {expected.field(f.name).type}")
+            raise _bad(
+                folder, f"{name}.{f.name} holds {f.type}, expected {expected.field(f.name).type}"
+            )
     try:
         return t.to_pandas()
     except (pa.ArrowException, ValueError, OverflowError) as exc:
         raise _bad(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
 
 
-def load_dataset(folder: Path, *, tables: Sequence[str] | None = None, verify: bool = True) -> Dataset:
+def load_dataset(
+    folder: Path, *, tables: Sequence[str] | None = None, verify: bool = True
+) -> Dataset:
     """The dataset's tables as pandas frames, after checking every file; BenchwalkError if damaged."""
     folder = Path(folder)
     pkg = verify_dataset(folder) if verify else read_package(folder)
@@ -1034,8 +1328,14 @@ def terminal_progress(description: str):
     from rich.console import Console  # noqa: PLC0415
     from rich.progress import BarColumn, Progress, TimeRemainingColumn
 
-    bar = Progress("[progress.description]{task.description}", BarColumn(), "{task.percentage:>3.0f}%",
-                   TimeRemainingColumn(), console=Console(stderr=True), transient=True)
+    bar = Progress(
+        "[progress.description]{task.description}",
+        BarColumn(),
+        "{task.percentage:>3.0f}%",
+        TimeRemainingColumn(),
+        console=Console(stderr=True),
+        transient=True,
+    )
     task = bar.add_task(description, total=None)
 
     def update(done: int, total: int) -> None:
@@ -1050,21 +1350,34 @@ HISTORY = 64  # snapshots the runner keeps for history-dependent checks (meas.ru
 CHECK_COLUMNS = [c.name for c in TABLES["checks"]["columns"]]
 
 
-def _snapshots_of_step(folder: Path, step: str | None, snaps: pd.DataFrame, polls: pd.DataFrame,
-                       switches: pd.DataFrame) -> list[tuple[int, Any]]:
+def _snapshots_of_step(
+    folder: Path, step: str | None, snaps: pd.DataFrame, polls: pd.DataFrame, switches: pd.DataFrame
+) -> list[tuple[int, Any]]:
     """The step's snapshots rebuilt from the tables, in journal order."""
     from .snapshot import CommState, MeterBlock, Quality, Snapshot  # noqa: PLC0415
 
     filt = [("step", "=", step)] if step is not None else None
-    m = read_table(folder, "measurements", columns=["snapshot", "step", "meter", "quantity", "phase", "value", "quality"],
-                   filters=filt)
+    m = read_table(
+        folder,
+        "measurements",
+        columns=["snapshot", "step", "meter", "quantity", "phase", "value", "quality"],
+        filters=filt,
+    )
     if step is None:
         m = m[m["step"].isna()]
     mine = snaps[snaps["step"].isna()] if step is None else snaps[snaps["step"] == step]
     out = []
     by_snap = {k: g for k, g in m.groupby("snapshot", sort=False)}
-    poll_by = {k: g for k, g in polls[polls["snapshot"].isin(mine["snapshot"])].groupby("snapshot", sort=False)}
-    sw_by = {k: g for k, g in switches[switches["snapshot"].isin(mine["snapshot"])].groupby("snapshot", sort=False)}
+    poll_by = {
+        k: g
+        for k, g in polls[polls["snapshot"].isin(mine["snapshot"])].groupby("snapshot", sort=False)
+    }
+    sw_by = {
+        k: g
+        for k, g in switches[switches["snapshot"].isin(mine["snapshot"])].groupby(
+            "snapshot", sort=False
+        )
+    }
     for s in mine.itertuples(index=False):
         g = by_snap.get(s.snapshot)
         blocks = {}
@@ -1086,14 +1399,21 @@ def _snapshots_of_step(folder: Path, step: str | None, snaps: pd.DataFrame, poll
                 latency_s=math.nan if pd.isna(p.latency_s) else float(p.latency_s),
             )
         sw = sw_by.get(s.snapshot)
-        out.append((int(s.snapshot), Snapshot(
-            seq=int(s.seq),
-            time_utc=s.time_utc.to_pydatetime(),
-            t_mono=math.nan if pd.isna(s.t_mono) else float(s.t_mono),
-            meters=blocks,
-            switches=dict(zip(sw["switch"], sw["state"], strict=True)) if sw is not None else {},
-            cycle_s=math.nan if pd.isna(s.cycle_s) else float(s.cycle_s),
-        )))
+        out.append(
+            (
+                int(s.snapshot),
+                Snapshot(
+                    seq=int(s.seq),
+                    time_utc=s.time_utc.to_pydatetime(),
+                    t_mono=math.nan if pd.isna(s.t_mono) else float(s.t_mono),
+                    meters=blocks,
+                    switches=dict(zip(sw["switch"], sw["state"], strict=True))
+                    if sw is not None
+                    else {},
+                    cycle_s=math.nan if pd.isna(s.cycle_s) else float(s.cycle_s),
+                ),
+            )
+        )
     return out
 
 
@@ -1123,8 +1443,11 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
         try:
             rebuilt = _snapshots_of_step(folder, step_key, snaps, ds["polls"], ds["switch_states"])
         except (ValueError, KeyError, TypeError, AttributeError, OverflowError) as exc:
-            raise _bad(folder, f"the snapshots of step {step_key} cannot be rebuilt ({type(exc).__name__}: "
-                               f"{_show_rel(str(exc))})") from None
+            raise _bad(
+                folder,
+                f"the snapshots of step {step_key} cannot be rebuilt ({type(exc).__name__}: "
+                f"{_show_rel(str(exc))})",
+            ) from None
         for i, (row_id, snap) in enumerate(rebuilt):
             if row_id not in wanted:
                 continue
@@ -1133,13 +1456,23 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
                 by_row = dict(rebuilt[:i])
                 history = [by_row[r] for r in recorded[row_id] if r in by_row]
             else:
-                history = [s for _, s in rebuilt[max(0, i - HISTORY): i]]
+                history = [s for _, s in rebuilt[max(0, i - HISTORY) : i]]
             for r in engine.run(snap, history):
-                rows.append({
-                    "step": step_key, "snapshot": row_id, "check": r.check, "subject": r.subject,
-                    "status": str(r.status), "value": r.value, "limit": r.limit, "residual": r.residual,
-                    "unit": r.unit, "message": r.message, "cause": r.cause,
-                })
+                rows.append(
+                    {
+                        "step": step_key,
+                        "snapshot": row_id,
+                        "check": r.check,
+                        "subject": r.subject,
+                        "status": str(r.status),
+                        "value": r.value,
+                        "limit": r.limit,
+                        "residual": r.residual,
+                        "unit": r.unit,
+                        "message": r.message,
+                        "cause": r.cause,
+                    }
+                )
         if progress:
             progress(n, len(steps))
     out = pd.DataFrame(rows, columns=CHECK_COLUMNS)
@@ -1162,8 +1495,11 @@ def _recorded_histories(events: pd.DataFrame) -> dict[int, list[int]]:
     return out
 
 
-def compare_checks(exported: pd.DataFrame, rechecked: pd.DataFrame, *, rel: float = 1e-9) -> list[str]:
+def compare_checks(
+    exported: pd.DataFrame, rechecked: pd.DataFrame, *, rel: float = 1e-9
+) -> list[str]:
     """Differences between two checks tables, one sentence each; [] when they agree."""
+
     def norm(df: pd.DataFrame) -> pd.DataFrame:
         d = df[CHECK_COLUMNS].copy()
         for c in ("step", "unit", "message", "cause"):
@@ -1182,6 +1518,8 @@ def compare_checks(exported: pd.DataFrame, rechecked: pd.DataFrame, *, rel: floa
         else:
             same = (x.astype(str) == y.astype(str)).to_numpy()
         for i in np.flatnonzero(~same)[:5]:
-            diffs.append(f"snapshot {a['snapshot'][i]} {a['check'][i]} {a['subject'][i]}: {col} "
-                         f"{x[i]!r} in the dataset, {y[i]!r} re-checked")
+            diffs.append(
+                f"snapshot {a['snapshot'][i]} {a['check'][i]} {a['subject'][i]}: {col} "
+                f"{x[i]!r} in the dataset, {y[i]!r} re-checked"
+            )
     return diffs

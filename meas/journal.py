@@ -40,7 +40,16 @@ ROLES = ("settling", "capture", "live")
 DONE_STATES = frozenset({"accepted", "skipped"})
 QUALITY_CODES: tuple[Quality, ...] = tuple(Quality)  # byte value = index in this tuple
 _QCODE = {q: i for i, q in enumerate(QUALITY_CODES)}
-DATA_TABLES = ("session", "profile_file", "keyset", "snapshot", "reading", "check_result", "event", "step_log")
+DATA_TABLES = (
+    "session",
+    "profile_file",
+    "keyset",
+    "snapshot",
+    "reading",
+    "check_result",
+    "event",
+    "step_log",
+)
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS session(
@@ -157,7 +166,9 @@ def profile_files(profile: Profile) -> list[tuple[str, str]]:
         text = path.read_bytes().decode("utf-8")  # bytes as hashed: no newline translation
         doc = tomllib.loads(text)
     except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        raise BenchwalkError(f"{path}: cannot read the profile to store it in the journal: {exc}") from exc
+        raise BenchwalkError(
+            f"{path}: cannot read the profile to store it in the journal: {exc}"
+        ) from exc
     out = [(path.name, text)]
     for name in _companion_names(doc):
         comp = companion_path(path, name)
@@ -199,7 +210,8 @@ class Journal:
         self._conn = conn
         self._lock = threading.Lock()
         self._keysets: dict[tuple[str, ...], int] = {
-            tuple(json.loads(r["keys"])): r["id"] for r in conn.execute("SELECT id, keys FROM keyset")
+            tuple(json.loads(r["keys"])): r["id"]
+            for r in conn.execute("SELECT id, keys FROM keyset")
         }
         self._last_t: datetime | None = None
         self._last_s: str | None = None
@@ -226,7 +238,9 @@ class Journal:
         """A new session file; refuses to reuse an existing one (captured data is never overwritten)."""
         path = Path(path)
         if path.exists():
-            raise BenchwalkError(f"{path}: a session journal already exists here; resume it or choose another name")
+            raise BenchwalkError(
+                f"{path}: a session journal already exists here; resume it or choose another name"
+            )
         files = profile_files(profile)
         sid = session_id or path.stem
         try:
@@ -273,7 +287,9 @@ class Journal:
             conn = _connect(path)
             ok = conn.execute("PRAGMA quick_check").fetchone()[0]
             if ok != "ok":
-                raise BenchwalkError(f"{path}: the journal is damaged ({ok}); keep a copy and export what is readable")
+                raise BenchwalkError(
+                    f"{path}: the journal is damaged ({ok}); keep a copy and export what is readable"
+                )
             row = conn.execute("SELECT * FROM session").fetchone()
         except sqlite3.Error as exc:
             raise BenchwalkError(f"{path}: not a readable benchwalk journal ({exc})") from exc
@@ -289,7 +305,10 @@ class Journal:
         return self.profile_files()[0][1]
 
     def profile_files(self) -> list[tuple[str, str]]:
-        return [(r["name"], r["text"]) for r in self._conn.execute("SELECT name, text FROM profile_file ORDER BY seq")]
+        return [
+            (r["name"], r["text"])
+            for r in self._conn.execute("SELECT name, text FROM profile_file ORDER BY seq")
+        ]
 
     def step_history(self) -> list[dict]:
         rows = self._conn.execute("SELECT * FROM step_log ORDER BY id").fetchall()
@@ -327,7 +346,9 @@ class Journal:
             raise KeyError(row_id)
         keys = {v: k for k, v in self._keysets.items()}
         blocks = {}
-        for r in self._conn.execute("SELECT * FROM reading WHERE snapshot=? ORDER BY pos", (row_id,)):
+        for r in self._conn.execute(
+            "SELECT * FROM reading WHERE snapshot=? ORDER BY pos", (row_id,)
+        ):
             blocks[r["meter"]] = block_from_row(r, keys[r["keyset"]])
         return Snapshot(
             seq=s["seq"],
@@ -394,9 +415,22 @@ class Journal:
 
         return self._write(f"snapshot {snapshot.seq}", write)
 
-    def record_checks(self, snapshot_row: int, step_id: str | None, results: Sequence[CheckResult]) -> None:
+    def record_checks(
+        self, snapshot_row: int, step_id: str | None, results: Sequence[CheckResult]
+    ) -> None:
         rows = [
-            (snapshot_row, step_id, r.check, r.subject, str(r.status), _num(r.value), _num(r.limit), r.unit, r.message, r.cause)
+            (
+                snapshot_row,
+                step_id,
+                r.check,
+                r.subject,
+                str(r.status),
+                _num(r.value),
+                _num(r.limit),
+                r.unit,
+                r.message,
+                r.cause,
+            )
             for r in results
         ]
 
@@ -484,7 +518,9 @@ class Journal:
     def _keyset(self, conn: sqlite3.Connection, keys: tuple[str, ...]) -> int:
         ks = self._keysets.get(keys)
         if ks is None:
-            ks = conn.execute("INSERT INTO keyset(keys) VALUES(?)", (json.dumps(list(keys)),)).lastrowid
+            ks = conn.execute(
+                "INSERT INTO keyset(keys) VALUES(?)", (json.dumps(list(keys)),)
+            ).lastrowid
             self._keysets[keys] = ks  # dropped again below if the transaction fails
         return ks
 
@@ -500,7 +536,9 @@ class Journal:
                 raise JournalWriteError(_write_advice(self.path, what, exc)) from exc
 
 
-_QID = {id(q): i for i, q in enumerate(QUALITY_CODES)}  # enum members are singletons: hash by id, fast
+_QID = {
+    id(q): i for i, q in enumerate(QUALITY_CODES)
+}  # enum members are singletons: hash by id, fast
 
 
 def _quality_bytes(block: MeterBlock, keys: Sequence[str]) -> bytes:

@@ -87,7 +87,9 @@ class RegisterMap:
     id: str
     registers: tuple[RegisterSpec, ...]
     description: str = ""
-    apparent_power: Literal["vector", "arithmetic"] = "arithmetic"  # IEEE 1459 definition of S_total
+    apparent_power: Literal["vector", "arithmetic"] = (
+        "arithmetic"  # IEEE 1459 definition of S_total
+    )
     max_read: int = 125  # some meters accept fewer registers per read than the spec allows
 
     def has(self, key: str) -> bool:

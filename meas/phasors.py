@@ -124,7 +124,9 @@ def apparent_vector(p_phase: ArrayLike, q_phase: ArrayLike) -> NDArray[np.float6
     return np.abs(np.sum(np.asarray(p_phase, float) + 1j * np.asarray(q_phase, float), axis=-1))
 
 
-def apparent_effective(v_ln: ArrayLike, i_ph: ArrayLike, i_n: ArrayLike | None = None, v_ll: ArrayLike | None = None) -> NDArray[np.float64]:
+def apparent_effective(
+    v_ln: ArrayLike, i_ph: ArrayLike, i_n: ArrayLike | None = None, v_ll: ArrayLike | None = None
+) -> NDArray[np.float64]:
     """IEEE 1459 effective apparent power Se = 3 Ve Ie for a four-wire system.
 
     Ie = sqrt((Ia^2 + Ib^2 + Ic^2 + In^2) / 3); Ve = sqrt((3 (Va^2 + Vb^2 + Vc^2) +

@@ -82,7 +82,9 @@ def plan_map(regmap: RegisterMap, max_gap: int, meter_id: str = "") -> MeterPlan
     requests: list[ReadRequest] = []
     wasted = 0
     for kind in ("holding", "input"):
-        specs = sorted((s for s in regmap.registers if s.kind == kind), key=lambda s: (s.address, s.end))
+        specs = sorted(
+            (s for s in regmap.registers if s.kind == kind), key=lambda s: (s.address, s.end)
+        )
         for s in specs:
             if s.count > limit:
                 raise BenchwalkError(
@@ -149,7 +151,9 @@ def rtu_request_time_s(
     """Wire time of one read of ``count`` registers: request + reply + two silent intervals."""
     chars = RTU_REQUEST_BYTES + RTU_REPLY_OVERHEAD + 2 * count
     bpc = bits_per_character(parity, stopbits, bytesize)
-    return chars * bpc / baudrate + 2 * t35_s(baudrate, parity, stopbits, bytesize) + device_latency_s
+    return (
+        chars * bpc / baudrate + 2 * t35_s(baudrate, parity, stopbits, bytesize) + device_latency_s
+    )
 
 
 def rtu_cycle_time_s(

@@ -61,8 +61,12 @@ PROBE_RTT_FACTOR = 4  # probe of a unit in backoff: this many x the link's slowe
 PROBE_FLOOR_S = 0.05  # but never shorter than this, nor longer than the unit's own timeout
 FULL_PROBE_EVERY = 4  # every 4th probe waits the full timeout: a slow unit is never locked out
 _FC_FOR_KIND = {"coil": 1, "discrete": 2, "holding": 3, "input": 4}
-_READ_METHOD = {"holding": "read_holding_registers", "input": "read_input_registers",
-                "coil": "read_coils", "discrete": "read_discrete_inputs"}
+_READ_METHOD = {
+    "holding": "read_holding_registers",
+    "input": "read_input_registers",
+    "coil": "read_coils",
+    "discrete": "read_discrete_inputs",
+}
 
 
 def tame_pymodbus_logging(level: int = logging.CRITICAL) -> None:
@@ -232,7 +236,6 @@ class EndpointLink:
     def connected(self) -> bool:
         return self.client is not None and self.client.connected
 
-
     @property
     def is_serial(self) -> bool:
         return isinstance(self.transport, RtuTransport)
@@ -242,13 +245,22 @@ def _make_client(transport: Transport, timeout_s: float):
     """A pymodbus client with its own reconnect and retries off (we do both)."""
     if isinstance(transport, RtuTransport):
         client = AsyncModbusSerialClient(
-            transport.device, baudrate=transport.baudrate, parity=transport.parity,
-            stopbits=transport.stopbits, bytesize=transport.bytesize,
-            timeout=timeout_s, retries=0, reconnect_delay=0,
+            transport.device,
+            baudrate=transport.baudrate,
+            parity=transport.parity,
+            stopbits=transport.stopbits,
+            bytesize=transport.bytesize,
+            timeout=timeout_s,
+            retries=0,
+            reconnect_delay=0,
         )
     else:
         client = AsyncModbusTcpClient(
-            transport.host, port=transport.port, timeout=timeout_s, retries=0, reconnect_delay=0,
+            transport.host,
+            port=transport.port,
+            timeout=timeout_s,
+            retries=0,
+            reconnect_delay=0,
         )
     client.set_max_no_responses(1 << 30)  # never let one dead unit drop a shared link
     _harden(client)
@@ -282,7 +294,9 @@ def _harden(client) -> None:
     def failing_disconnected(exc: Exception | None) -> None:
         fut = getattr(ctx, "response_future", None)
         if fut is not None and not fut.done():
-            fut.set_exception(ConnectionException(f"connection lost during a request ({exc or 'closed'})"))
+            fut.set_exception(
+                ConnectionException(f"connection lost during a request ({exc or 'closed'})")
+            )
         disconnected(exc)
 
     ctx.framer.handleFrame = guarded_handle
@@ -297,7 +311,14 @@ _BOUNDS = {  # no healthy meter reports values outside these (primary units): DE
     "i_ang": (-360.0, 360.0),
 }
 _FLOAT_MAX = sys.float_info.max
-_STRUCT_CHAR = {"int16": "h", "uint16": "H", "int32": "i", "uint32": "I", "float32": "f", "float64": "d"}
+_STRUCT_CHAR = {
+    "int16": "h",
+    "uint16": "H",
+    "int32": "i",
+    "uint32": "I",
+    "float32": "f",
+    "float64": "d",
+}
 
 
 class RequestDecoder:
@@ -324,26 +345,59 @@ class RequestDecoder:
                 words.reverse()
             perm = []
             for w in words:
-                perm += [off + 2 * w, off + 2 * w + 1] if sp.byte_order == "big" else [off + 2 * w + 1, off + 2 * w]
+                perm += (
+                    [off + 2 * w, off + 2 * w + 1]
+                    if sp.byte_order == "big"
+                    else [off + 2 * w + 1, off + 2 * w]
+                )
             lo, hi = _BOUNDS.get(split_key(key)[0], (-math.inf, math.inf))
-            items.append((off, nb, perm, key, _STRUCT_CHAR[sp.dtype], sp.scale, sp.offset, ratio(meter, key), lo, hi))
+            items.append(
+                (
+                    off,
+                    nb,
+                    perm,
+                    key,
+                    _STRUCT_CHAR[sp.dtype],
+                    sp.scale,
+                    sp.offset,
+                    ratio(meter, key),
+                    lo,
+                    hi,
+                )
+            )
         items.sort(key=lambda it: it[0])
         self.keys = tuple(it[3] for it in items)
-        self._items = [(key, struct.Struct(">" + ch), off, None if perm == list(range(off, off + nb)) else perm,
-                        scale, offset, r, lo, hi) for off, nb, perm, key, ch, scale, offset, r, lo, hi in items]
+        self._items = [
+            (
+                key,
+                struct.Struct(">" + ch),
+                off,
+                None if perm == list(range(off, off + nb)) else perm,
+                scale,
+                offset,
+                r,
+                lo,
+                hi,
+            )
+            for off, nb, perm, key, ch, scale, offset, r, lo, hi in items
+        ]
         self._scale = tuple(it[5] for it in items)
         self._offset = tuple(it[6] for it in items)
         self._ratio = tuple(it[7] for it in items)
-        self._plain = all(s == 1.0 and o == 0.0 and r == 1.0 for s, o, r in zip(
-            self._scale, self._offset, self._ratio, strict=True))
+        self._plain = all(
+            s == 1.0 and o == 0.0 and r == 1.0
+            for s, o, r in zip(self._scale, self._offset, self._ratio, strict=True)
+        )
         # bounds per quantity group, checked with min()/max() of one itemgetter (C loops);
         # a pair index gives a tuple even for a group of one
         groups: dict[tuple[float, float], list[int]] = {}
         for n, it in enumerate(items):
             if (it[8], it[9]) != (-math.inf, math.inf):
                 groups.setdefault((it[8], it[9]), []).append(n)
-        self._bounded = [(operator.itemgetter(*(idx if len(idx) > 1 else idx * 2)), lo, hi)
-                         for (lo, hi), idx in groups.items()]
+        self._bounded = [
+            (operator.itemgetter(*(idx if len(idx) > 1 else idx * 2)), lo, hi)
+            for (lo, hi), idx in groups.items()
+        ]
         self._all_ok = dict.fromkeys(self.keys, Quality.OK)
         overlap = any(b[0] < a[0] + a[1] for a, b in itertools.pairwise(items))
         self._unpack = None  # overlapping values (no valid profile has them): per-value slow path
@@ -352,7 +406,7 @@ class RequestDecoder:
             perm_all = list(range(2 * req.count))
             fmt, pos = ">", 0
             for off, nb, perm, _key, ch, *_ in items:
-                perm_all[off:off + nb] = perm
+                perm_all[off : off + nb] = perm
                 fmt += "x" * (off - pos) + ch
                 pos = off + nb
             self._unpack = struct.Struct(fmt).unpack_from
@@ -370,10 +424,14 @@ class RequestDecoder:
         if self._plain:  # == (raw * 1.0 + 0.0) * 1.0 bit for bit, ints become float
             vals = [r + 0.0 for r in raw]
         else:
-            vals = [(r * s + o) * k for r, s, o, k in zip(
-                raw, self._scale, self._offset, self._ratio, strict=True)]
+            vals = [
+                (r * s + o) * k
+                for r, s, o, k in zip(raw, self._scale, self._offset, self._ratio, strict=True)
+            ]
         total = sum(vals)  # finite iff no NaN/Inf (an overflow only sends us the slow way)
-        if total - total == 0.0 and all(lo <= min(g(vals)) and max(g(vals)) <= hi for g, lo, hi in self._bounded):
+        if total - total == 0.0 and all(
+            lo <= min(g(vals)) and max(g(vals)) <= hi for g, lo, hi in self._bounded
+        ):
             values.update(zip(self.keys, vals, strict=True))
             quality.update(self._all_ok)
             return len(vals)
@@ -381,7 +439,9 @@ class RequestDecoder:
 
     def _judge(self, raw, vals, values: dict, quality: dict, errors: list[str]) -> int:
         n_ok = 0
-        for (key, _st, _off, _perm, _s, _o, _r, lo, hi), x, v in zip(self._items, raw, vals, strict=True):
+        for (key, _st, _off, _perm, _s, _o, _r, lo, hi), x, v in zip(
+            self._items, raw, vals, strict=True
+        ):
             if not math.isfinite(v):
                 errors.append(f"{key}: register value is {x}")
                 quality[key] = Quality.DECODE
@@ -397,7 +457,11 @@ class RequestDecoder:
     def _decode_each(self, buf: bytes, values: dict, quality: dict, errors: list[str]) -> int:
         raw, vals = [], []
         for _key, st, off, perm, scale, offset, r, _lo, _hi in self._items:
-            x = st.unpack_from(buf, off)[0] if perm is None else st.unpack(bytes(buf[i] for i in perm))[0]
+            x = (
+                st.unpack_from(buf, off)[0]
+                if perm is None
+                else st.unpack(bytes(buf[i] for i in perm))[0]
+            )
             raw.append(x)
             vals.append((x * scale + offset) * r)
         return self._judge(raw, vals, values, quality, errors)
@@ -407,7 +471,9 @@ def _status_reads(switches: list[Switch]) -> list[_StatusRead]:
     """Coalesce a PLC's status points per kind into few bit reads."""
     reads: list[_StatusRead] = []
     for kind in ("coil", "discrete"):
-        pts = sorted((s.status.address, s.id) for s in switches if s.status and s.status.kind == kind)
+        pts = sorted(
+            (s.status.address, s.id) for s in switches if s.status and s.status.kind == kind
+        )
         group: list[tuple[int, str]] = []
         for addr, sid in pts:
             if group and (addr - group[-1][0] > BIT_GAP or addr - group[0][0] >= MAX_BIT_READ):
@@ -439,9 +505,17 @@ class Poller:
         self.late_answers = 0  # drafts that arrived after their cycle closed (dropped)
         for m in profile.meters:
             regmap = profile.maps[m.map_id]
-            unit = _Unit(m.id, m.unit_id, m.timeout_s, m.retries, self._backoff(),
-                         meter=m, regmap=regmap, plan=self.plans[m.id],
-                         specs={s.key: s for s in regmap.registers})
+            unit = _Unit(
+                m.id,
+                m.unit_id,
+                m.timeout_s,
+                m.retries,
+                self._backoff(),
+                meter=m,
+                regmap=regmap,
+                plan=self.plans[m.id],
+                specs={s.key: s for s in regmap.registers},
+            )
             unit.decoders = [RequestDecoder(r, unit.specs, m) for r in unit.plan.requests]
             unit.keys = tuple(k for r in unit.plan.requests for k in r.keys)
             unit.nan_values = dict.fromkeys(unit.keys, math.nan)
@@ -449,13 +523,17 @@ class Poller:
             self._units[m.id] = unit
         for p in profile.plcs:
             sw = [s for s in profile.switches if s.plc == p.id and s.status is not None]
-            unit = _Unit(p.id, p.unit_id, p.timeout_s, 0, self._backoff(), status_reads=_status_reads(sw))
+            unit = _Unit(
+                p.id, p.unit_id, p.timeout_s, 0, self._backoff(), status_reads=_status_reads(sw)
+            )
             self._attach(p.transport, unit)
             self._plc_units[p.id] = unit
         tame_pymodbus_logging()
 
     def _backoff(self) -> Backoff:
-        return Backoff(self.profile.poll.backoff_initial_s, self.profile.poll.backoff_max_s, self._rng)
+        return Backoff(
+            self.profile.poll.backoff_initial_s, self.profile.poll.backoff_max_s, self._rng
+        )
 
     def _attach(self, transport: Transport, unit: _Unit) -> None:
         link = self._links.get(transport.endpoint)
@@ -530,7 +608,9 @@ class Poller:
         bits: dict[tuple[str, str], bool] = {}
         for m in self.profile.meters:
             unit = self._units[m.id]
-            blocks[m.id] = self._deliver(unit, cyc.drafts.get(m.id) or self._pending(unit, cyc, t_mono), time_utc)
+            blocks[m.id] = self._deliver(
+                unit, cyc.drafts.get(m.id) or self._pending(unit, cyc, t_mono), time_utc
+            )
         for unit in self._plc_units.values():
             draft = cyc.drafts.get(unit.id)
             if draft is None and unit.status_reads:
@@ -540,8 +620,12 @@ class Poller:
                 bits.update(draft.bits)
         switches = {sw.id: self._switch_state(sw, bits) for sw in self.profile.switches}
         return Snapshot(
-            seq=cyc.seq, time_utc=time_utc, t_mono=t_mono, meters=blocks,
-            switches=switches, cycle_s=time.monotonic() - t_mono,
+            seq=cyc.seq,
+            time_utc=time_utc,
+            t_mono=t_mono,
+            meters=blocks,
+            switches=switches,
+            cycle_s=time.monotonic() - t_mono,
         )
 
     async def run(self, interval_s: float | None = None) -> AsyncIterator[Snapshot]:
@@ -567,7 +651,11 @@ class Poller:
 
     async def close(self) -> None:
         """Stop the workers (an outstanding request is cancelled) and close every client."""
-        tasks = [link.task for link in self._links.values() if link.task is not None and not link.task.done()]
+        tasks = [
+            link.task
+            for link in self._links.values()
+            if link.task is not None and not link.task.done()
+        ]
         for t in tasks:
             t.cancel()
         for t in tasks:
@@ -586,7 +674,9 @@ class Poller:
     async def _connect(self, link: EndpointLink, now: float) -> bool:
         if link.client is None:
             # one timeout for every unit: pymodbus enforces it; else ours does and theirs is a backstop
-            link.client = _make_client(link.transport, link.timeout_s + (0 if link.uniform_timeout else 0.5))
+            link.client = _make_client(
+                link.transport, link.timeout_s + (0 if link.uniform_timeout else 0.5)
+            )
         else:
             link.client.close()
         try:
@@ -622,7 +712,8 @@ class Poller:
         """How long a cycle should wait for this link: learned healthy time, or the full budget."""
         if not link.learned:
             return self._connect_timeout(link) + sum(
-                u.timeout_s * (u.retries + 1) * max(1, u.requests) for u in link.units)
+                u.timeout_s * (u.retries + 1) * max(1, u.requests) for u in link.units
+            )
         healthy = sum(u.answer_s for u in link.units if u.backoff.failures == 0)
         return DEADLINE_HEADROOM * healthy + DEADLINE_MARGIN_S
 
@@ -654,15 +745,30 @@ class Poller:
                     draft = await self._poll_meter(link, unit, cyc)
                 else:
                     draft = await self._poll_plc(link, unit, cyc)
-            except (ModbusException, OSError, ValueError, struct.error) as exc:  # never kill the worker
+            except (
+                ModbusException,
+                OSError,
+                ValueError,
+                struct.error,
+            ) as exc:  # never kill the worker
                 log.warning("%s unit %s: %s", link.endpoint, unit.unit_id, exc)
                 draft = self._failed(unit, f"{type(exc).__name__}: {exc}")
             if not cyc.publish(unit.id, draft):
                 self.late_answers += 1
         link.learned = True
 
-    async def _read(self, link: EndpointLink, unit: _Unit, kind: str, address: int, count: int,
-                    attempts: int | None = None, *, limit_s: float | None = None, cyc: _Cycle | None = None):
+    async def _read(
+        self,
+        link: EndpointLink,
+        unit: _Unit,
+        kind: str,
+        address: int,
+        count: int,
+        attempts: int | None = None,
+        *,
+        limit_s: float | None = None,
+        cyc: _Cycle | None = None,
+    ):
         """One read with the unit's timeout (or ``limit_s``) and retries -> (values, retried).
 
         No retry for a cycle that has closed while a newer one waits: its answer could reach
@@ -694,7 +800,9 @@ class Poller:
                     if client.ctx.bad_frames != bad_before:
                         raise _BadReply("undecodable reply", costly=True) from None
                     if not link.connected:
-                        raise _Disconnected(f"{link.endpoint} closed during the request", during=True) from None
+                        raise _Disconnected(
+                            f"{link.endpoint} closed during the request", during=True
+                        ) from None
                     link.silent_reads += 1
                     if link.is_serial:
                         await asyncio.sleep(RTU_QUIET_S)
@@ -725,14 +833,18 @@ class Poller:
         """
         if link.is_serial or unit.backoff.failures % FULL_PROBE_EVERY == 0:
             return None
-        slowest = max((u.answer_s / u.requests for u in link.units if u.answer_s > 0 and u.requests),
-                      default=0.0)
+        slowest = max(
+            (u.answer_s / u.requests for u in link.units if u.answer_s > 0 and u.requests),
+            default=0.0,
+        )
         if slowest <= 0:
             return None  # nothing learned on this link: no basis for a shorter wait
         limit = max(PROBE_FLOOR_S, PROBE_RTT_FACTOR * slowest)
         return limit if limit < unit.timeout_s else None
 
-    async def _poll_meter(self, link: EndpointLink, unit: _Unit, cyc: _Cycle | None = None) -> _Draft:
+    async def _poll_meter(
+        self, link: EndpointLink, unit: _Unit, cyc: _Cycle | None = None
+    ) -> _Draft:
         assert unit.plan is not None and unit.meter is not None
         values = dict(unit.nan_values)
         quality: dict[str, Quality] = {}
@@ -741,10 +853,21 @@ class Poller:
         retried = no_answer = False
         now = time.monotonic()
         if not link.connected or not unit.backoff.ready(now):
-            reason = (link.last_error or f"{link.endpoint} not connected") if not link.connected else (
-                f"unit {unit.unit_id} silent; next try in {max(0.0, unit.backoff.next_try - now):.1f} s")
-            return _Draft(values, dict.fromkeys(unit.keys, Quality.OFFLINE), CommState.OFFLINE, reason, None,
-                          math.nan)
+            reason = (
+                (link.last_error or f"{link.endpoint} not connected")
+                if not link.connected
+                else (
+                    f"unit {unit.unit_id} silent; next try in {max(0.0, unit.backoff.next_try - now):.1f} s"
+                )
+            )
+            return _Draft(
+                values,
+                dict.fromkeys(unit.keys, Quality.OFFLINE),
+                CommState.OFFLINE,
+                reason,
+                None,
+                math.nan,
+            )
         probing = unit.backoff.failures > 0
         attempts = 1 if probing else unit.retries + 1  # a probe: is it back?
         limit_s = self._probe_limit(link, unit) if probing else None
@@ -754,8 +877,9 @@ class Poller:
         requests = unit.plan.requests
         for i, req in enumerate(requests):
             try:
-                words, r = await self._read(link, unit, req.kind, req.address, req.count, attempts,
-                                            limit_s=limit_s, cyc=cyc)
+                words, r = await self._read(
+                    link, unit, req.kind, req.address, req.count, attempts, limit_s=limit_s, cyc=cyc
+                )
                 retried |= r
                 n_ok += unit.decoders[i].decode(words, values, quality, errors)
                 continue
@@ -765,7 +889,9 @@ class Poller:
                 rest = Quality.TIMEOUT
             except _DeviceException as exc:
                 exception_code = exception_code or exc.code
-                errors.append(f"exception {exc.code:#04x} reading FC{req.function_code} {req.address}+{req.count}")
+                errors.append(
+                    f"exception {exc.code:#04x} reading FC{req.function_code} {req.address}+{req.count}"
+                )
                 quality.update(dict.fromkeys(req.keys, Quality.EXCEPTION))
                 if exc.code not in GATEWAY_NO_TARGET:
                     continue
@@ -807,7 +933,9 @@ class Poller:
         out: dict[tuple[str, str], bool] = {}
         now = time.monotonic()
         if not link.connected or not unit.backoff.ready(now):
-            return _Draft({}, {}, CommState.OFFLINE, link.last_error or "in backoff", None, math.nan)
+            return _Draft(
+                {}, {}, CommState.OFFLINE, link.last_error or "in backoff", None, math.nan
+            )
         errors: list[str] = []
         no_answer = False
         exception_code: int | None = None
@@ -816,14 +944,17 @@ class Poller:
         t0 = time.monotonic()
         for rd in unit.status_reads:
             try:
-                bits, _ = await self._read(link, unit, rd.kind, rd.address, rd.count, attempts,
-                                           limit_s=limit_s, cyc=cyc)
+                bits, _ = await self._read(
+                    link, unit, rd.kind, rd.address, rd.count, attempts, limit_s=limit_s, cyc=cyc
+                )
             except _NoAnswer as exc:
                 errors.append(str(exc))
                 no_answer = True
                 break
             except _DeviceException as exc:
-                errors.append(f"exception {exc.code:#04x} reading {rd.kind} {rd.address}+{rd.count}")
+                errors.append(
+                    f"exception {exc.code:#04x} reading {rd.kind} {rd.address}+{rd.count}"
+                )
                 exception_code = exc.code
                 continue
             except (_BadReply, _Disconnected) as exc:
@@ -847,17 +978,30 @@ class Poller:
         return _Draft({}, {}, state, "; ".join(errors), exception_code, latency, bits=out)
 
     def _failed(self, unit: _Unit, error: str) -> _Draft:
-        return _Draft(dict(unit.nan_values), dict.fromkeys(unit.keys, Quality.DECODE),
-                      CommState.FAILING, error, None, math.nan)
+        return _Draft(
+            dict(unit.nan_values),
+            dict.fromkeys(unit.keys, Quality.DECODE),
+            CommState.FAILING,
+            error,
+            None,
+            math.nan,
+        )
 
     def _pending(self, unit: _Unit, cyc: _Cycle, t_mono: float) -> _Draft:
         """A unit with no answer by the cycle deadline: timeout for this cycle, request kept."""
         link = next(lk for lk in self._links.values() if unit in lk.units)
         waiting = link.busy_with
-        why = (f"no answer by the cycle deadline ({(cyc.deadline - t_mono) * 1000:.0f} ms)"
-               + (f"; {link.endpoint} busy with {waiting}" if waiting and waiting != unit.id else ""))
-        return _Draft(dict(unit.nan_values), dict.fromkeys(unit.keys, Quality.TIMEOUT),
-                      CommState.FAILING, why, None, math.nan)
+        why = f"no answer by the cycle deadline ({(cyc.deadline - t_mono) * 1000:.0f} ms)" + (
+            f"; {link.endpoint} busy with {waiting}" if waiting and waiting != unit.id else ""
+        )
+        return _Draft(
+            dict(unit.nan_values),
+            dict.fromkeys(unit.keys, Quality.TIMEOUT),
+            CommState.FAILING,
+            why,
+            None,
+            math.nan,
+        )
 
     def _deliver(self, unit: _Unit, d: _Draft, time_utc: datetime) -> MeterBlock:
         """Record a draft as this cycle's result for the unit (status, counters) -> block."""
@@ -872,8 +1016,15 @@ class Poller:
         unit.last_error = d.error
         unit.exception_code = d.exception_code
         return MeterBlock(
-            meter=unit.id, values=d.values, quality=d.quality, state=d.state, exception_code=d.exception_code,
-            error=d.error, last_good_utc=unit.last_good_utc, error_count=unit.error_count, latency_s=d.latency_s,
+            meter=unit.id,
+            values=d.values,
+            quality=d.quality,
+            state=d.state,
+            exception_code=d.exception_code,
+            error=d.error,
+            last_good_utc=unit.last_good_utc,
+            error_count=unit.error_count,
+            latency_s=d.latency_s,
         )
 
     def _switch_state(self, sw: Switch, bits: dict[tuple[str, str], bool]) -> str:
@@ -884,7 +1035,9 @@ class Poller:
 
     @staticmethod
     def _status(u: _Unit) -> MeterStatus:
-        return MeterStatus(u.state, u.last_good_utc, u.error_count, u.last_error, u.exception_code, u.latency_s)
+        return MeterStatus(
+            u.state, u.last_good_utc, u.error_count, u.last_error, u.exception_code, u.latency_s
+        )
 
 
 def _check_reply(rr, kind: str, unit_id: int) -> None:

@@ -46,7 +46,14 @@ from .model import (
     Zone,
 )
 
-__all__ = ["load_profile", "lint_profile", "check_profile", "locate_keys", "format_path", "companion_path"]
+__all__ = [
+    "load_profile",
+    "lint_profile",
+    "check_profile",
+    "locate_keys",
+    "format_path",
+    "companion_path",
+]
 
 Key = tuple[str | int, ...]
 
@@ -1173,16 +1180,30 @@ def _read(
         problems.append(Problem(file, line, "", f"TOML syntax: {msg}"))
         return None
     except RecursionError:  # tomllib recurses per nesting level of arrays and inline tables
-        problems.append(Problem(file, None, "", f"values nested too deep; a profile needs at most {MAX_DEPTH} levels"))
+        problems.append(
+            Problem(
+                file,
+                None,
+                "",
+                f"values nested too deep; a profile needs at most {MAX_DEPTH} levels",
+            )
+        )
         return None
     except ValueError as exc:  # e.g. an integer longer than Python converts (sys.int_info)
         why = printable(str(exc)).split(":")[0]
-        problems.append(Problem(file, None, "", f"a value cannot be read ({why}); give realistic values"))
+        problems.append(
+            Problem(file, None, "", f"a value cannot be read ({why}); give realistic values")
+        )
         return None
     deep = _too_deep(data)
     if deep is not None:
         problems.append(
-            Problem(file, None, format_path(deep), f"nested deeper than {MAX_DEPTH} levels; a profile needs far fewer")
+            Problem(
+                file,
+                None,
+                format_path(deep),
+                f"nested deeper than {MAX_DEPTH} levels; a profile needs far fewer",
+            )
         )
         return None
     doc.lines = locate_keys(text)

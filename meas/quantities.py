@@ -30,7 +30,9 @@ QUANTITIES: dict[str, Quantity] = {
         Quantity("s", "VA", ("A", "B", "C", "T"), "apparent power", "VA"),
         Quantity("pf", "1", ("A", "B", "C", "T"), "power factor, sign of P", "PF"),
         Quantity("f", "Hz", ("T",), "frequency", "Hz"),
-        Quantity("v_ang", "deg", ("A", "B", "C"), "voltage phase angle, referred to V_A", "PhV.ang"),
+        Quantity(
+            "v_ang", "deg", ("A", "B", "C"), "voltage phase angle, referred to V_A", "PhV.ang"
+        ),
         Quantity("i_ang", "deg", ("A", "B", "C"), "current phase angle, referred to V_A", "A.ang"),
         Quantity("e_imp", "Wh", ("T",), "active energy imported (counter)", "TotWh"),
         Quantity("e_exp", "Wh", ("T",), "active energy exported (counter)", "TotWh"),

@@ -28,7 +28,9 @@ class DecodeError(ValueError):
     """The words do not make a usable value (wrong length, NaN, Inf)."""
 
 
-def words_to_raw(words: Sequence[int], dtype: str, word_order: str = "big", byte_order: str = "big") -> float:
+def words_to_raw(
+    words: Sequence[int], dtype: str, word_order: str = "big", byte_order: str = "big"
+) -> float:
     """Raw number (before scale/offset) from the registers of one value."""
     n = REGISTER_COUNT[dtype]
     if len(words) != n:
@@ -41,7 +43,9 @@ def words_to_raw(words: Sequence[int], dtype: str, word_order: str = "big", byte
     return struct.unpack(">" + _FMT[dtype], bytes(buf))[0]
 
 
-def raw_to_words(raw: float, dtype: str, word_order: str = "big", byte_order: str = "big") -> list[int]:
+def raw_to_words(
+    raw: float, dtype: str, word_order: str = "big", byte_order: str = "big"
+) -> list[int]:
     """Registers for one raw number; integers are rounded and clipped to the type's range."""
     if dtype in _INT_RANGE:
         lo, hi = _INT_RANGE[dtype]

@@ -57,14 +57,20 @@ def _s(x: object) -> str:
 
 def gather(dataset_dir: Path) -> ReportData:
     """The figures the report shows, computed from the dataset tables."""
-    ds = load_dataset(dataset_dir, tables=["snapshots", "steps", "checks", "meters", "topology", "events", "step_log"])
+    ds = load_dataset(
+        dataset_dir,
+        tables=["snapshots", "steps", "checks", "meters", "topology", "events", "step_log"],
+    )
     keys = sorted({k for _, _, ks in KEY_READINGS for k in ks})
     quantity_phase = [tuple(k.split(".")) for k in keys]
     m = read_table(
         ds.path,
         "measurements",
         columns=["step", "snapshot", "meter", "quantity", "phase", "value", "quality"],
-        filters=[("role", "=", "capture"), ("quantity", "in", sorted({q for q, _ in quantity_phase}))],
+        filters=[
+            ("role", "=", "capture"),
+            ("quantity", "in", sorted({q for q, _ in quantity_phase})),
+        ],
     )
     m = m[m["quality"] == "ok"]
     m = m.assign(key=m["quantity"] + "." + m["phase"])
@@ -82,26 +88,46 @@ def gather(dataset_dir: Path) -> ReportData:
     bad = checks[checks["status"] == "fail"]
     issues = (
         bad.groupby(["step", "check", "subject", "message"], dropna=False, sort=False)
-        .agg(count=("snapshot", "size"), value=("value", "median"), limit=("limit", "median"), unit=("unit", "first"))
+        .agg(
+            count=("snapshot", "size"),
+            value=("value", "median"),
+            limit=("limit", "median"),
+            unit=("unit", "first"),
+        )
         .reset_index()
     )
     waived, reasons = [], []
     for st in issues["step"]:
         row = steps.loc[st] if st in steps.index else None
         # the runner accepts a failing step only on a gate="allow" step, with a reason: a waiver
-        accepted = row is not None and row["state"] == "accepted" and row["outcome"] in ("fail", "warn")
+        accepted = (
+            row is not None and row["state"] == "accepted" and row["outcome"] in ("fail", "warn")
+        )
         waived.append(bool(accepted))
         reasons.append(_s(row["reason"]) if row is not None else "")
     issues["waived"] = waived
     issues["reason"] = reasons
 
     buses = set(ds["topology"].loc[ds["topology"]["element"] == "bus", "id"])
-    bal = checks[checks["subject"].isin(buses) & checks["snapshot"].isin(capture_snaps) & checks["limit"].notna()]
+    bal = checks[
+        checks["subject"].isin(buses)
+        & checks["snapshot"].isin(capture_snaps)
+        & checks["limit"].notna()
+    ]
     balance = (
         bal.assign(absval=bal["value"].abs())
         .groupby(["step", "check", "subject"], sort=False)
-        .agg(value=("absval", "median"), limit=("limit", "median"), unit=("unit", "first"),
-             worst=("status", lambda s: "fail" if (s == "fail").any() else ("warn" if (s == "warn").any() else "pass")))
+        .agg(
+            value=("absval", "median"),
+            limit=("limit", "median"),
+            unit=("unit", "first"),
+            worst=(
+                "status",
+                lambda s: (
+                    "fail" if (s == "fail").any() else ("warn" if (s == "warn").any() else "pass")
+                ),
+            ),
+        )
         .reset_index()
     )
     balance["residual"] = balance["value"] / balance["limit"]
@@ -127,7 +153,9 @@ def balance_svg(rows: pd.DataFrame, width: int = 640) -> str:
         "<title>bus balance residuals against their limits</title>",
     ]
     for tick in np.linspace(0, vmax, 4):
-        parts.append(f'<line x1="{x(tick):.1f}" y1="{top - 6}" x2="{x(tick):.1f}" y2="{height - 18}" class="grid"/>')
+        parts.append(
+            f'<line x1="{x(tick):.1f}" y1="{top - 6}" x2="{x(tick):.1f}" y2="{height - 18}" class="grid"/>'
+        )
         parts.append(f'<text x="{x(tick):.1f}" y="{height - 4}" class="tick">{tick:.2g}</text>')
     for n, r in enumerate(rows.itertuples(index=False)):
         y = top + n * (bar_h + gap)
@@ -135,12 +163,16 @@ def balance_svg(rows: pd.DataFrame, width: int = 640) -> str:
         w = max(1.0, x(res) - left) if math.isfinite(res) else 0.0
         label = html.escape(f"{r.subject} {r.check}")
         parts.append(f'<text x="{left - 6}" y="{y + bar_h - 5}" class="label">{label}</text>')
-        parts.append(f'<rect x="{left}" y="{y}" width="{w:.1f}" height="{bar_h}" fill="{colour.get(r.worst, "#555")}"/>')
+        parts.append(
+            f'<rect x="{left}" y="{y}" width="{w:.1f}" height="{bar_h}" fill="{colour.get(r.worst, "#555")}"/>'
+        )
         parts.append(
             f'<text x="{left + w + 4:.1f}" y="{y + bar_h - 5}" class="val">'
             f"{html.escape(_fmt(r.value))} / {html.escape(_fmt(r.limit))} {html.escape(_s(r.unit))}</text>"
         )
-    parts.append(f'<line x1="{x(1.0):.1f}" y1="{top - 10}" x2="{x(1.0):.1f}" y2="{height - 18}" class="limit"/>')
+    parts.append(
+        f'<line x1="{x(1.0):.1f}" y1="{top - 10}" x2="{x(1.0):.1f}" y2="{height - 18}" class="limit"/>'
+    )
     parts.append(f'<text x="{x(1.0) + 3:.1f}" y="{top - 12}" class="tick">limit</text>')
     parts.append("</svg>")
     return "\n".join(parts)
@@ -172,7 +204,12 @@ def _table(headers: list[str], rows: list[list[str]], numeric: set[int] | None =
     numeric = numeric or set()
     head = "".join(f"<th>{html.escape(h)}</th>" for h in headers)
     body = "".join(
-        "<tr>" + "".join(f'<td class="num">{c}</td>' if i in numeric else f"<td>{c}</td>" for i, c in enumerate(r)) + "</tr>"
+        "<tr>"
+        + "".join(
+            f'<td class="num">{c}</td>' if i in numeric else f"<td>{c}</td>"
+            for i, c in enumerate(r)
+        )
+        + "</tr>"
         for r in rows
     )
     return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
@@ -207,21 +244,65 @@ def render_html(rd: ReportData) -> str:
     out.append("</tbody></table>")
 
     out.append("<h2>Bench and instruments</h2>")
-    out.append(f"<p>Sign convention: {_e(meta.get('sign_convention'))}. Values are primary, bench-side SI units.</p>")
+    out.append(
+        f"<p>Sign convention: {_e(meta.get('sign_convention'))}. Values are primary, bench-side SI units.</p>"
+    )
     mrows = []
     for m in ds["meters"].itertuples(index=False):
-        mrows.append([_e(m.id), _e(m.label), _e(m.map), _e(f"{m.bus} -> {_s(m.branch) or '(voltage only)'}"),
-                      _e(m.reports), _e(_fmt(m.ct_ratio)), _e(_fmt(m.vt_ratio)),
-                      _e(f"P {m.class_p}, Q {m.class_q}, V {m.class_v}, I {m.class_i}"), _e(m.endpoint)])
-    out.append(_table(["meter", "label", "map", "bus -> branch", "reports", "CT ratio", "VT ratio", "classes", "endpoint"],
-                      mrows, {5, 6}))
+        mrows.append(
+            [
+                _e(m.id),
+                _e(m.label),
+                _e(m.map),
+                _e(f"{m.bus} -> {_s(m.branch) or '(voltage only)'}"),
+                _e(m.reports),
+                _e(_fmt(m.ct_ratio)),
+                _e(_fmt(m.vt_ratio)),
+                _e(f"P {m.class_p}, Q {m.class_q}, V {m.class_v}, I {m.class_i}"),
+                _e(m.endpoint),
+            ]
+        )
+    out.append(
+        _table(
+            [
+                "meter",
+                "label",
+                "map",
+                "bus -> branch",
+                "reports",
+                "CT ratio",
+                "VT ratio",
+                "classes",
+                "endpoint",
+            ],
+            mrows,
+            {5, 6},
+        )
+    )
 
     out.append("<h2>Sequence</h2>")
     srows = []
     for s in steps.itertuples(index=False):
-        srows.append([str(s.order), _e(s.id), _e(s.title), _e(s.kind), _e(s.state or "not reached"), _e(s.outcome),
-                      _e(s.operator), _e(_fmt(s.settle_s, 3)), _e(s.reason)])
-    out.append(_table(["#", "step", "title", "kind", "state", "outcome", "operator", "settle s", "reason"], srows, {0, 7}))
+        srows.append(
+            [
+                str(s.order),
+                _e(s.id),
+                _e(s.title),
+                _e(s.kind),
+                _e(s.state or "not reached"),
+                _e(s.outcome),
+                _e(s.operator),
+                _e(_fmt(s.settle_s, 3)),
+                _e(s.reason),
+            ]
+        )
+    out.append(
+        _table(
+            ["#", "step", "title", "kind", "state", "outcome", "operator", "settle s", "reason"],
+            srows,
+            {0, 7},
+        )
+    )
 
     out.append("<h2>Failed and waived checks</h2>")
     if rd.issues.empty:
@@ -229,14 +310,35 @@ def render_html(rd: ReportData) -> str:
     else:
         irows = []
         for r in rd.issues.itertuples(index=False):
-            tag = '<span class="waived">waived</span>' if r.waived else '<span class="fail">failed</span>'
+            tag = (
+                '<span class="waived">waived</span>'
+                if r.waived
+                else '<span class="fail">failed</span>'
+            )
             why = f"<br>reason: {_e(r.reason)}" if r.waived and r.reason else ""
-            irows.append([_e(r.step), _e(r.check), _e(r.subject), tag + why, _e(r.message),
-                          _e(f"{_fmt(r.value)} / {_fmt(r.limit)} {_s(r.unit)}"), str(r.count)])
-        out.append(_table(["step", "check", "subject", "", "finding", "median value / limit", "snapshots"], irows, {6}))
+            irows.append(
+                [
+                    _e(r.step),
+                    _e(r.check),
+                    _e(r.subject),
+                    tag + why,
+                    _e(r.message),
+                    _e(f"{_fmt(r.value)} / {_fmt(r.limit)} {_s(r.unit)}"),
+                    str(r.count),
+                ]
+            )
+        out.append(
+            _table(
+                ["step", "check", "subject", "", "finding", "median value / limit", "snapshots"],
+                irows,
+                {6},
+            )
+        )
 
-    out.append("<h2>Key readings per step</h2><p>Median over the step's captures of each snapshot's value "
-               "(V and I: mean of the three phases). Only values of quality ok.</p>")
+    out.append(
+        "<h2>Key readings per step</h2><p>Median over the step's captures of each snapshot's value "
+        "(V and I: mean of the three phases). Only values of quality ok.</p>"
+    )
     for s in steps.itertuples(index=False):
         sub = rd.readings[rd.readings["step"] == s.id] if not rd.readings.empty else rd.readings
         bal = rd.balance[rd.balance["step"] == s.id]
@@ -244,15 +346,28 @@ def render_html(rd: ReportData) -> str:
             continue
         out.append(f"<h3>{s.order}. {_e(s.title)} <small>({_e(s.id)})</small></h3>")
         if not sub.empty:
-            rows = [[_e(r["meter"])] + [_e(_fmt(r[t])) for t, _, _ in KEY_READINGS] for _, r in sub.iterrows()]
-            out.append(_table(["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS], rows, {1, 2, 3, 4}))
+            rows = [
+                [_e(r["meter"])] + [_e(_fmt(r[t])) for t, _, _ in KEY_READINGS]
+                for _, r in sub.iterrows()
+            ]
+            out.append(
+                _table(["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS], rows, {1, 2, 3, 4})
+            )
         if not bal.empty:
             out.append("<p>Bus balance: median residual over the captures against its limit.</p>")
             out.append(balance_svg(bal))
 
     out.append("<h2>Sign-off</h2>")
-    out.append(_table(["role", "name", "signature", "date"],
-                      [["Commissioning engineer", "", "", ""], ["Witness", "", "", ""], ["Accepted for the owner", "", "", ""]]))
+    out.append(
+        _table(
+            ["role", "name", "signature", "date"],
+            [
+                ["Commissioning engineer", "", "", ""],
+                ["Witness", "", "", ""],
+                ["Accepted for the owner", "", "", ""],
+            ],
+        )
+    )
     out.append(f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>')
     out.append("</body></html>")
     return "\n".join(out) + "\n"
@@ -287,16 +402,28 @@ def render_markdown(rd: ReportData) -> str:
         "",
         _md_table(
             ["meter", "label", "bus -> branch", "reports", "CT ratio", "VT ratio", "classes"],
-            [[m.id, m.label, f"{m.bus} -> {_s(m.branch) or '(voltage only)'}", m.reports, _fmt(m.ct_ratio), _fmt(m.vt_ratio),
-              f"P {m.class_p}, Q {m.class_q}, V {m.class_v}, I {m.class_i}"] for m in ds["meters"].itertuples(index=False)],
+            [
+                [
+                    m.id,
+                    m.label,
+                    f"{m.bus} -> {_s(m.branch) or '(voltage only)'}",
+                    m.reports,
+                    _fmt(m.ct_ratio),
+                    _fmt(m.vt_ratio),
+                    f"P {m.class_p}, Q {m.class_q}, V {m.class_v}, I {m.class_i}",
+                ]
+                for m in ds["meters"].itertuples(index=False)
+            ],
         ),
         "",
         "## Sequence",
         "",
         _md_table(
             ["#", "step", "title", "state", "outcome", "operator", "reason"],
-            [[s.order, s.id, s.title, s.state or "not reached", s.outcome, s.operator, s.reason]
-             for s in ds["steps"].itertuples(index=False)],
+            [
+                [s.order, s.id, s.title, s.state or "not reached", s.outcome, s.operator, s.reason]
+                for s in ds["steps"].itertuples(index=False)
+            ],
         ),
         "",
         "## Failed and waived checks",
@@ -305,12 +432,30 @@ def render_markdown(rd: ReportData) -> str:
     if rd.issues.empty:
         out.append("No check failed in this session.")
     else:
-        out.append(_md_table(
-            ["step", "check", "subject", "", "finding", "value / limit", "snapshots"],
-            [[r.step, r.check, r.subject, ("waived: " + r.reason) if r.waived else "failed", r.message,
-              f"{_fmt(r.value)} / {_fmt(r.limit)} {_s(r.unit)}", r.count] for r in rd.issues.itertuples(index=False)],
-        ))
-    out += ["", "## Key readings per step", "", "Median over the step's captures (V and I: mean of the three phases).", ""]
+        out.append(
+            _md_table(
+                ["step", "check", "subject", "", "finding", "value / limit", "snapshots"],
+                [
+                    [
+                        r.step,
+                        r.check,
+                        r.subject,
+                        ("waived: " + r.reason) if r.waived else "failed",
+                        r.message,
+                        f"{_fmt(r.value)} / {_fmt(r.limit)} {_s(r.unit)}",
+                        r.count,
+                    ]
+                    for r in rd.issues.itertuples(index=False)
+                ],
+            )
+        )
+    out += [
+        "",
+        "## Key readings per step",
+        "",
+        "Median over the step's captures (V and I: mean of the three phases).",
+        "",
+    ]
     for s in ds["steps"].itertuples(index=False):
         sub = rd.readings[rd.readings["step"] == s.id] if not rd.readings.empty else rd.readings
         bal = rd.balance[rd.balance["step"] == s.id]
@@ -318,18 +463,49 @@ def render_markdown(rd: ReportData) -> str:
             continue
         out += [f"### {s.order}. {s.title} ({s.id})", ""]
         if not sub.empty:
-            out.append(_md_table(["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS],
-                                 [[r["meter"]] + [_fmt(r[t]) for t, _, _ in KEY_READINGS] for _, r in sub.iterrows()]))
+            out.append(
+                _md_table(
+                    ["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS],
+                    [
+                        [r["meter"]] + [_fmt(r[t]) for t, _, _ in KEY_READINGS]
+                        for _, r in sub.iterrows()
+                    ],
+                )
+            )
             out.append("")
         if not bal.empty:
-            out.append(_md_table(["bus", "check", "median value", "limit", "residual", "worst"],
-                                 [[r.subject, r.check, f"{_fmt(r.value)} {_s(r.unit)}", _fmt(r.limit), _fmt(r.residual, 3), r.worst]
-                                  for r in bal.itertuples(index=False)]))
+            out.append(
+                _md_table(
+                    ["bus", "check", "median value", "limit", "residual", "worst"],
+                    [
+                        [
+                            r.subject,
+                            r.check,
+                            f"{_fmt(r.value)} {_s(r.unit)}",
+                            _fmt(r.limit),
+                            _fmt(r.residual, 3),
+                            r.worst,
+                        ]
+                        for r in bal.itertuples(index=False)
+                    ],
+                )
+            )
             out.append("")
-    out += ["## Sign-off", "", _md_table(["role", "name", "signature", "date"],
-                                         [["Commissioning engineer", "", "", ""], ["Witness", "", "", ""],
-                                          ["Accepted for the owner", "", "", ""]]),
-            "", f"> **Caution.** {CAUTION}", ""]
+    out += [
+        "## Sign-off",
+        "",
+        _md_table(
+            ["role", "name", "signature", "date"],
+            [
+                ["Commissioning engineer", "", "", ""],
+                ["Witness", "", "", ""],
+                ["Accepted for the owner", "", "", ""],
+            ],
+        ),
+        "",
+        f"> **Caution.** {CAUTION}",
+        "",
+    ]
     return "\n".join(out)
 
 
@@ -370,5 +546,7 @@ def write_report(dataset_dir: Path, out: Path | None = None) -> tuple[Path, Path
             os.replace(tmp, path)
         except OSError as exc:
             tmp.unlink(missing_ok=True)
-            raise BenchwalkError(f"{path}: cannot write the report ({exc.strerror or exc}); choose another --out") from exc
+            raise BenchwalkError(
+                f"{path}: cannot write the report ({exc.strerror or exc}); choose another --out"
+            ) from exc
     return html_path, md_path

@@ -155,15 +155,24 @@ class RunnerView:
     message: str = ""  # last notice (e.g. why verification failed)
     operator: str = ""
     polled: bool = False  # a snapshot has been fed; before that switch states are unknown
-    to_operate: tuple[str, ...] = ()  # switches a manual or remote step changes from the step before
+    to_operate: tuple[
+        str, ...
+    ] = ()  # switches a manual or remote step changes from the step before
 
 
-HISTORY_CHECKS = frozenset({"quality.noise", "quality.frozen"})  # checks that read earlier snapshots
+HISTORY_CHECKS = frozenset(
+    {"quality.noise", "quality.frozen"}
+)  # checks that read earlier snapshots
 
 
 def _settling_na(r: CheckResult) -> CheckResult:
-    return CheckResult(r.check, r.subject, Status.NA, unit=r.unit,
-                       message="not judged while the readings settle after switching")
+    return CheckResult(
+        r.check,
+        r.subject,
+        Status.NA,
+        unit=r.unit,
+        message="not judged while the readings settle after switching",
+    )
 
 
 def median_per_subject(batches: Sequence[Sequence[CheckResult]]) -> list[CheckResult]:
@@ -205,7 +214,9 @@ class Runner:
         prior_outcomes: dict[str, StepOutcome] | None = None,
     ) -> None:
         if not profile.steps:
-            raise BenchwalkError(f"{profile.path}: the profile has no steps; name a [sequence] file")
+            raise BenchwalkError(
+                f"{profile.path}: the profile has no steps; name a [sequence] file"
+            )
         self.profile = profile
         self._configs = configurations(profile)  # what each step must find, computed once
         self.journal = journal
@@ -348,16 +359,20 @@ class Runner:
             self._unread_since = snapshot.t_mono
             self.message = f"status of {', '.join(bad)} not read: captures held until it is"
             self.journal.record_event(
-                "status_unread", self.message,
-                step_id=self.step.id if self.step else None, operator=self.operator,
+                "status_unread",
+                self.message,
+                step_id=self.step.id if self.step else None,
+                operator=self.operator,
             )
         elif snapshot.t_mono - self._unread_since > self.profile.control.verify_timeout_s:
             lost_s = snapshot.t_mono - self._unread_since
             self._unread_since = None
             text = ", ".join(bad)
             self.journal.record_event(
-                "status_lost", f"status of {text} unread for {lost_s:.1f} s",
-                step_id=self.step.id if self.step else None, operator=self.operator,
+                "status_lost",
+                f"status of {text} unread for {lost_s:.1f} s",
+                step_id=self.step.id if self.step else None,
+                operator=self.operator,
             )
             self.message = (
                 f"status of {text} not read for {lost_s:.1f} s: check the PLC and its link, "
@@ -430,7 +445,8 @@ class Runner:
         if changed:
             step = self.step
             policy = (step.capture if step is not None else None) or next(
-                (s.capture for s in self.profile.steps if s.capture is not None), CapturePolicy())
+                (s.capture for s in self.profile.steps if s.capture is not None), CapturePolicy()
+            )
             self._live_settle = self._settle_factory(policy)
             self._live_steady_t0 = float("inf")
         live = self._live_settle
@@ -457,8 +473,12 @@ class Runner:
                 history = [h for h in history if h.t_mono >= self._live_steady_t0]
                 results = self._checks(snapshot, history)
                 if self._live_settle is not None:
-                    results = [_settling_na(r) if r.check in HISTORY_CHECKS and r.status is Status.NA else r
-                               for r in results]
+                    results = [
+                        _settling_na(r)
+                        if r.check in HISTORY_CHECKS and r.status is Status.NA
+                        else r
+                        for r in results
+                    ]
             self._tick_results = results
             self._tick_history = history
         return self._tick_results
@@ -487,10 +507,17 @@ class Runner:
             self._stop(f"switch status does not match after the remote command: {text}")
         else:
             self.journal.record_event(
-                "mismatch", text, step_id=step.id, operator=self.operator,
+                "mismatch",
+                text,
+                step_id=step.id,
+                operator=self.operator,
                 data={"actual": self._actual(), "expected": self.expected()},
             )
-            todo = "check the PLC and its link" if self._unread(bad) else "set the switches as instructed"
+            todo = (
+                "check the PLC and its link"
+                if self._unread(bad)
+                else "set the switches as instructed"
+            )
             self.message = f"{text}; {todo}, then confirm again"
             self._verify_deadline = None
             self.state = State.WAITING
@@ -498,7 +525,8 @@ class Runner:
     def _mismatch_text(self, bad: Sequence[str]) -> str:
         actual, want = self._actual(), self.expected()
         return ", ".join(
-            f"{s} not read, expected {want[s]}" if actual.get(s, "unknown") == "unknown"
+            f"{s} not read, expected {want[s]}"
+            if actual.get(s, "unknown") == "unknown"
             else f"{s} is {actual[s]}, expected {want[s]}"
             for s in bad
         )
@@ -545,7 +573,10 @@ class Runner:
                 + ": wait again (retake), capture anyway, or skip with a reason"
             )
             self.journal.record_event(
-                "settle_timeout", self.message, step_id=step.id, operator=self.operator,
+                "settle_timeout",
+                self.message,
+                step_id=step.id,
+                operator=self.operator,
                 data={"elapsed_s": self._settle.elapsed_s, "worst": worst},
             )
 
@@ -578,8 +609,12 @@ class Runner:
             status = overall(self._review)
             self.state = State.REVIEWING
             self.journal.record_step(
-                step.id, "reviewing", operator=self.operator, outcome=status.value,
-                actual_switches=self._actual(), expected_switches=self.expected(),
+                step.id,
+                "reviewing",
+                operator=self.operator,
+                outcome=status.value,
+                actual_switches=self._actual(),
+                expected_switches=self.expected(),
             )
 
     def _config_changed(self) -> None:
@@ -587,7 +622,9 @@ class Runner:
         assert step is not None
         text = self._mismatch_text(self._mismatches())
         self.journal.record_event("config_changed", text, step_id=step.id, operator=self.operator)
-        self.message = f"switch state changed during the step ({text}); restore it and confirm again"
+        self.message = (
+            f"switch state changed during the step ({text}); restore it and confirm again"
+        )
         self._captures = []
         self.state = State.WAITING
 
@@ -596,8 +633,12 @@ class Runner:
         self.message = reason
         if step is not None:
             self.journal.record_step(
-                step.id, "stopped", operator=self.operator, reason=reason,
-                actual_switches=self._actual(), expected_switches=self.expected(),
+                step.id,
+                "stopped",
+                operator=self.operator,
+                reason=reason,
+                actual_switches=self._actual(),
+                expected_switches=self.expected(),
             )
         self.journal.record_event(
             "stopped", reason, step_id=step.id if step else None, operator=self.operator
@@ -610,10 +651,15 @@ class Runner:
         """The technician says the manual operation of this step is done."""
         step = self._require(State.WAITING, what="confirm an operation")
         if step.kind != "manual":
-            raise BenchwalkError(f"step {step.id} is a {step.kind} step: nothing to confirm by hand")
+            raise BenchwalkError(
+                f"step {step.id} is a {step.kind} step: nothing to confirm by hand"
+            )
         self.journal.record_event(
-            "operation_confirmed", f"{step.id}: operation confirmed", step_id=step.id,
-            operator=self.operator, data={"operate": dict(step.operate)},
+            "operation_confirmed",
+            f"{step.id}: operation confirmed",
+            step_id=step.id,
+            operator=self.operator,
+            data={"operate": dict(step.operate)},
         )
         self._begin_verify()
 
@@ -648,13 +694,19 @@ class Runner:
         if others:
             raise BenchwalkError(
                 f"the bench is not as this step expects ({self._mismatch_text(others)}): "
-                + ("no command is sent while switch status cannot be read; check the PLC and its link"
-                   if self._unread(others) else "set it right before sending a command")
+                + (
+                    "no command is sent while switch status cannot be read; check the PLC and its link"
+                    if self._unread(others)
+                    else "set it right before sending a command"
+                )
             )
         self._pending = (switch_id, state)
         self.journal.record_event(
-            "remote_requested", f"{switch_id} -> {state} requested", step_id=step.id,
-            operator=self.operator, data={"switch": switch_id, "state": state},
+            "remote_requested",
+            f"{switch_id} -> {state} requested",
+            step_id=step.id,
+            operator=self.operator,
+            data={"switch": switch_id, "state": state},
         )
         verb = "Close" if state == "closed" else "Open"
         return f"{verb} {switch_id} ({sw.label}) by remote command? Confirm to send."
@@ -669,8 +721,11 @@ class Runner:
         self._pending = None
         self.state = State.OPERATING
         self.journal.record_event(
-            "remote_confirmed", f"{switch_id} -> {state} confirmed", step_id=step.id,
-            operator=operator, data={"switch": switch_id, "state": state},
+            "remote_confirmed",
+            f"{switch_id} -> {state} confirmed",
+            step_id=step.id,
+            operator=operator,
+            data={"switch": switch_id, "state": state},
         )
         try:
             result = self.control.operate(switch_id, state, confirmed_by=operator)
@@ -683,8 +738,10 @@ class Runner:
         ok = bool(getattr(result, "ok", False))
         msg = getattr(result, "message", "") or ""
         self.journal.record_event(
-            "remote_result", f"{switch_id} -> {state}: {'ok' if ok else 'failed'} {msg}".strip(),
-            step_id=step.id, operator=operator,
+            "remote_result",
+            f"{switch_id} -> {state}: {'ok' if ok else 'failed'} {msg}".strip(),
+            step_id=step.id,
+            operator=operator,
             data={"ok": ok, "final_status": str(getattr(result, "final_status", ""))},
         )
         if not ok:
@@ -703,20 +760,30 @@ class Runner:
             if step.kind != "capture":
                 raise BenchwalkError(f"step {step.id} starts with its {step.kind} operation")
             self.journal.record_event(
-                "capture_started", f"{step.id}: capture started", step_id=step.id,
+                "capture_started",
+                f"{step.id}: capture started",
+                step_id=step.id,
                 operator=self.operator,
             )
             self._begin_verify()
             return
         assert self._settle is not None
         if not self._settle.timed_out:
-            raise BenchwalkError("still settling: wait, or capture once the settle timeout has passed")
+            raise BenchwalkError(
+                "still settling: wait, or capture once the settle timeout has passed"
+            )
         self.journal.record_event(
-            "captured_unsettled", f"{step.id}: captured before the readings settled",
-            step_id=step.id, operator=self.operator, data={"elapsed_s": self._settle.elapsed_s},
+            "captured_unsettled",
+            f"{step.id}: captured before the readings settled",
+            step_id=step.id,
+            operator=self.operator,
+            data={"elapsed_s": self._settle.elapsed_s},
         )
         self.journal.record_step(
-            step.id, "capturing", operator=self.operator, settle_s=self._settle.elapsed_s,
+            step.id,
+            "capturing",
+            operator=self.operator,
+            settle_s=self._settle.elapsed_s,
             reason="captured after settle timeout",
         )
         self._steady_t0 = self._now()
@@ -727,21 +794,27 @@ class Runner:
         step = self._require(State.REVIEWING, State.SETTLING, what="retake")
         if step.capture is None:
             raise BenchwalkError(f"step {step.id} captures nothing to retake")
-        self.journal.record_step(step.id, "retaken", operator=self.operator,
-                                 outcome=overall(self._review).value)
+        self.journal.record_step(
+            step.id, "retaken", operator=self.operator, outcome=overall(self._review).value
+        )
         self._start_settle()
 
     def skip(self, reason: str) -> None:
         """Leave the step without accepting it; the reason is journalled."""
         step = self._require(
-            State.WAITING, State.VERIFYING, State.SETTLING, State.CAPTURING, State.REVIEWING,
+            State.WAITING,
+            State.VERIFYING,
+            State.SETTLING,
+            State.CAPTURING,
+            State.REVIEWING,
             what="skip",
         )
         if not reason or not reason.strip():
             raise BenchwalkError("give a reason to skip this step")
         status = overall(self._review)
-        self.journal.record_step(step.id, "skipped", outcome=status.value, operator=self.operator,
-                                 reason=reason.strip())
+        self.journal.record_step(
+            step.id, "skipped", outcome=status.value, operator=self.operator, reason=reason.strip()
+        )
         self._conclude(step, "skipped", status, reason.strip())
 
     def accept(self, reason: str | None = None) -> None:
@@ -757,9 +830,13 @@ class Runner:
             if not reason or not reason.strip():
                 raise BenchwalkError("checks failed: give a reason to accept this step anyway")
         self.journal.record_step(
-            step.id, "accepted", outcome=status.value, operator=self.operator,
+            step.id,
+            "accepted",
+            outcome=status.value,
+            operator=self.operator,
             reason=(reason or "").strip() or None,
-            actual_switches=self._actual(), expected_switches=self.expected(),
+            actual_switches=self._actual(),
+            expected_switches=self.expected(),
         )
         self._conclude(step, "accepted", status, (reason or "").strip())
 
@@ -776,8 +853,13 @@ class Runner:
             raise BenchwalkError(f"step {step.id} is not a hold point")
         if not name or not name.strip():
             raise BenchwalkError("a hold point needs the name of the person signing it off")
-        self.journal.record_step(step.id, "accepted", outcome="signed", operator=name.strip(),
-                                 reason=f"signed off by {name.strip()}")
+        self.journal.record_step(
+            step.id,
+            "accepted",
+            outcome="signed",
+            operator=name.strip(),
+            reason=f"signed off by {name.strip()}",
+        )
         self._conclude(step, "accepted", Status.PASS, f"signed off by {name.strip()}")
 
     def note(self, text: str) -> None:
@@ -785,11 +867,13 @@ class Runner:
         if not text or not text.strip():
             raise BenchwalkError("the note is empty")
         step = self.step
-        self.journal.record_event("note", text.strip(), step_id=step.id if step else None,
-                                  operator=self.operator)
+        self.journal.record_event(
+            "note", text.strip(), step_id=step.id if step else None, operator=self.operator
+        )
         if step is not None and step.kind == "note" and self.state is State.WAITING:
-            self.journal.record_step(step.id, "accepted", outcome="noted", operator=self.operator,
-                                     reason=text.strip())
+            self.journal.record_step(
+                step.id, "accepted", outcome="noted", operator=self.operator, reason=text.strip()
+            )
             self._conclude(step, "accepted", Status.PASS, text.strip())
 
     def stop(self, reason: str) -> None:
@@ -820,8 +904,11 @@ class Runner:
             expected=expected,
             actual=actual,
             mismatches=mism,
-            settle_progress=(1.0 if settle is not None and settle.settled
-                             else (settle.progress if settle is not None else 0.0)),
+            settle_progress=(
+                1.0
+                if settle is not None and settle.settled
+                else (settle.progress if settle is not None else 0.0)
+            ),
             settle_elapsed_s=settle.elapsed_s if settle is not None else 0.0,
             settle_timed_out=bool(settle is not None and settle.timed_out),
             captured=len(self._captures),
@@ -861,8 +948,10 @@ class Runner:
         if st is State.FINISHED:
             skipped = self.skipped_steps()
             if skipped:
-                return "none", (f"The sequence is complete, but incomplete as a record: {len(skipped)} "
-                                f"step(s) skipped ({', '.join(skipped)}).")
+                return "none", (
+                    f"The sequence is complete, but incomplete as a record: {len(skipped)} "
+                    f"step(s) skipped ({', '.join(skipped)})."
+                )
             return "none", "The sequence is complete."
         if st is State.STOPPED:
             return "none", f"Stopped: {self.message}. Resume the session when the cause is cleared."

@@ -91,12 +91,19 @@ def sequence_problems(profile: Profile) -> list[Problem]:
             if sid not in switches:
                 add(i, step, sid, f"no switch {sid} in the profile")
         if step.kind == "remote" and step.operate and not profile.control.enabled:
-            add(i, step, "operate", "control is disabled in the profile; make this step manual "
-                "(operated by hand) or enable control")
+            add(
+                i,
+                step,
+                "operate",
+                "control is disabled in the profile; make this step manual "
+                "(operated by hand) or enable control",
+            )
         for sid, state in step.operate.items():
             sw = switches.get(sid)
             if sw is not None and (sw.operation != "remote" or sw.command_coil is None):
-                add(i, step, f"operate.{sid}", f"{sid} has no command coil; put it in a manual step")
+                add(
+                    i, step, f"operate.{sid}", f"{sid} has no command coil; put it in a manual step"
+                )
             if config.get(sid) == state:
                 add(i, step, f"operate.{sid}", f"{sid} is already {state} from an earlier step")
         if i > 0:
@@ -106,11 +113,21 @@ def sequence_problems(profile: Profile) -> list[Problem]:
                     continue
                 sw = switches.get(sid)
                 if step.kind != "manual":
-                    add(i, step, f"expect.{sid}", f"{sid} is {before} after the earlier steps and "
-                        f"a {step.kind} step does not operate it; use a manual or remote step")
+                    add(
+                        i,
+                        step,
+                        f"expect.{sid}",
+                        f"{sid} is {before} after the earlier steps and "
+                        f"a {step.kind} step does not operate it; use a manual or remote step",
+                    )
                 elif sw is not None and sw.operation == "remote" and profile.control.enabled:
-                    add(i, step, f"expect.{sid}", f"{sid} is a remote switch; operate it from a "
-                        "remote step so the command and its verification are recorded")
+                    add(
+                        i,
+                        step,
+                        f"expect.{sid}",
+                        f"{sid} is a remote switch; operate it from a "
+                        "remote step so the command and its verification are recorded",
+                    )
         if step.kind in ("manual", "remote") and i > 0 and not changes(profile, i):
             add(i, step, "expect", f"this {step.kind} step changes no switch")
         config = _apply(config, step)

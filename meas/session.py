@@ -95,8 +95,11 @@ def prior_outcomes(journal: Journal) -> dict[str, StepOutcome]:
     out: dict[str, StepOutcome] = {}
     for r in journal.step_history():
         if r["state"] in ("accepted", "skipped"):
-            status = Status.FAIL if r["outcome"] == "fail" else (
-                Status.WARN if r["outcome"] == "warn" else Status.PASS)
+            status = (
+                Status.FAIL
+                if r["outcome"] == "fail"
+                else (Status.WARN if r["outcome"] == "warn" else Status.PASS)
+            )
             out[r["step"]] = StepOutcome(r["step"], r["state"], status, (), r["reason"] or "")
     return out
 
@@ -104,8 +107,15 @@ def prior_outcomes(journal: Journal) -> dict[str, StepOutcome]:
 class Session:
     """Owns the parts of one session; build with ``new`` or ``resume``, end with ``close``."""
 
-    def __init__(self, profile: Profile, journal: Journal, poller: Any, runner: Runner,
-                 bench: Any = None, control: Any = None):
+    def __init__(
+        self,
+        profile: Profile,
+        journal: Journal,
+        poller: Any,
+        runner: Runner,
+        bench: Any = None,
+        control: Any = None,
+    ):
         self.profile = profile
         self.journal = journal
         self.poller = poller
@@ -155,10 +165,12 @@ class Session:
             if bench is not None:
                 await bench.stop()
             raise
-        journal.record_event("session_started", f"session {sid} started", operator=operator,
-                             data=meta)
-        return await cls._assemble(live_profile, journal, operator, 0, bench, on_saved,
-                                   live_every_s, live_checks, {})
+        journal.record_event(
+            "session_started", f"session {sid} started", operator=operator, data=meta
+        )
+        return await cls._assemble(
+            live_profile, journal, operator, 0, bench, on_saved, live_every_s, live_checks, {}
+        )
 
     @classmethod
     async def resume(
@@ -195,7 +207,8 @@ class Session:
                         "check the change, then resume with --allow-changed-profile"
                     )
                 journal.record_event(
-                    "profile_changed", f"resumed with a changed profile {ppath}",
+                    "profile_changed",
+                    f"resumed with a changed profile {ppath}",
                     operator=operator or journal.operator,
                     data={"old_sha256": journal.profile_sha256, "new_sha256": profile.sha256},
                 )
@@ -216,21 +229,41 @@ class Session:
             bench, live_profile = None, profile
             if meta.get("simulated"):
                 bench, live_profile = await _start_bench(
-                    profile, meta.get("faults", ()), meta.get("seed"), meta.get("noise", True))
+                    profile, meta.get("faults", ()), meta.get("seed"), meta.get("noise", True)
+                )
                 for sid, state in configuration_before(profile, index).items():
                     bench.operate_by_hand(sid, state)
-            journal.record_event("session_resumed", f"resumed at step {point}", step_id=point,
-                                 operator=op)
+            journal.record_event(
+                "session_resumed", f"resumed at step {point}", step_id=point, operator=op
+            )
         except BaseException:
             journal.close()
             raise
-        return await cls._assemble(live_profile, journal, op, index, bench, on_saved,
-                                   live_every_s, live_checks, prior_outcomes(journal))
+        return await cls._assemble(
+            live_profile,
+            journal,
+            op,
+            index,
+            bench,
+            on_saved,
+            live_every_s,
+            live_checks,
+            prior_outcomes(journal),
+        )
 
     @classmethod
-    async def _assemble(cls, profile: Profile, journal: Journal, operator: str, index: int,
-                        bench: Any, on_saved, live_every_s: float, live_checks: bool,
-                        prior: dict[str, StepOutcome]) -> Session:
+    async def _assemble(
+        cls,
+        profile: Profile,
+        journal: Journal,
+        operator: str,
+        index: int,
+        bench: Any,
+        on_saved,
+        live_every_s: float,
+        live_checks: bool,
+        prior: dict[str, StepOutcome],
+    ) -> Session:
         from .checks import CheckEngine
         from .control import SwitchControl
         from .poller import Poller
@@ -240,7 +273,8 @@ class Session:
             await poller.start()
             control = SwitchControl(profile, poller) if profile.control.enabled else None
             runner = Runner(
-                profile, journal,
+                profile,
+                journal,
                 checks=CheckEngine(profile).run,
                 settle_factory=settle_factory(profile),
                 control=control,
@@ -298,8 +332,9 @@ class Session:
             self.journal.close()
 
 
-async def _start_bench(profile: Profile, faults: Sequence[str], seed: int | None,
-                       noise: bool) -> tuple[Any, Profile]:
+async def _start_bench(
+    profile: Profile, faults: Sequence[str], seed: int | None, noise: bool
+) -> tuple[Any, Profile]:
     from .sim.bench import SimulatedBench
     from .sim.faults import parse_fault, validate_faults
 

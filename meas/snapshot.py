@@ -63,7 +63,9 @@ class Snapshot:
     time_utc: datetime
     t_mono: float
     meters: Mapping[str, MeterBlock]
-    switches: Mapping[str, str] = field(default_factory=dict)  # switch id -> "open"/"closed"/"unknown"
+    switches: Mapping[str, str] = field(
+        default_factory=dict
+    )  # switch id -> "open"/"closed"/"unknown"
     cycle_s: float = math.nan
 
     def __post_init__(self) -> None:

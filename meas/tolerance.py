@@ -47,9 +47,15 @@ class ClassSpec:
 
 
 _P = {
-    "0.2S": ClassSpec("p", "0.2S", 0.2, 0.4, 0.05, 0.01, 0.3, 0.5, 0.10, "IEC 62053-22 class 0.2S [M]"),
-    "0.5S": ClassSpec("p", "0.5S", 0.5, 1.0, 0.05, 0.01, 0.6, 1.0, 0.10, "IEC 62053-22 class 0.5S [M table]"),
-    "1": ClassSpec("p", "1", 1.0, 1.5, 0.05, 0.02, 1.0, 1.5, 0.10, "IEC 62053-21 class 1, Table 3 [V]"),
+    "0.2S": ClassSpec(
+        "p", "0.2S", 0.2, 0.4, 0.05, 0.01, 0.3, 0.5, 0.10, "IEC 62053-22 class 0.2S [M]"
+    ),
+    "0.5S": ClassSpec(
+        "p", "0.5S", 0.5, 1.0, 0.05, 0.01, 0.6, 1.0, 0.10, "IEC 62053-22 class 0.5S [M table]"
+    ),
+    "1": ClassSpec(
+        "p", "1", 1.0, 1.5, 0.05, 0.02, 1.0, 1.5, 0.10, "IEC 62053-21 class 1, Table 3 [V]"
+    ),
     "2": ClassSpec("p", "2", 2.0, 2.5, 0.05, 0.02, 2.0, 2.5, 0.10, "IEC 62053-21 class 2 [M]"),
 }
 _Q = {
@@ -76,8 +82,30 @@ def class_spec(kind: str, designation: str) -> ClassSpec:
         ) from None
     if kind in ("v", "i"):
         frac = 0.10 if kind == "v" else 0.05
-        return ClassSpec(kind, designation, c, c, frac, frac, c, c, frac, "IEC 61557-12 style, class = % of reading [M]")
-    return ClassSpec(kind, designation, c, 1.5 * c, 0.05, 0.02, c, 1.5 * c, 0.10, "generic class shape (our rule)")
+        return ClassSpec(
+            kind,
+            designation,
+            c,
+            c,
+            frac,
+            frac,
+            c,
+            c,
+            frac,
+            "IEC 61557-12 style, class = % of reading [M]",
+        )
+    return ClassSpec(
+        kind,
+        designation,
+        c,
+        1.5 * c,
+        0.05,
+        0.02,
+        c,
+        1.5 * c,
+        0.10,
+        "generic class shape (our rule)",
+    )
 
 
 def limit_pct(spec: ClassSpec, i_frac: ArrayLike, low_pf: ArrayLike) -> NDArray[np.float64]:
@@ -95,7 +123,12 @@ def limit_pct(spec: ClassSpec, i_frac: ArrayLike, low_pf: ArrayLike) -> NDArray[
 
 
 def power_limit(
-    spec: ClassSpec, value: ArrayLike, s_abs: ArrayLike, i_frac: ArrayLike, rated: ArrayLike, reactive: bool = False
+    spec: ClassSpec,
+    value: ArrayLike,
+    s_abs: ArrayLike,
+    i_frac: ArrayLike,
+    rated: ArrayLike,
+    reactive: bool = False,
 ) -> NDArray[np.float64]:
     """Half-width a (same unit as value) of an active or reactive power reading.
 
@@ -120,7 +153,9 @@ def magnitude_limit(spec: ClassSpec, value: ArrayLike, rated: ArrayLike) -> NDAr
     return spec.main_pct / 100.0 * np.fmax(v, spec.min_i_frac * np.asarray(rated, float))
 
 
-def resolution_limit(scale: ArrayLike, value: ArrayLike, is_float: ArrayLike) -> NDArray[np.float64]:
+def resolution_limit(
+    scale: ArrayLike, value: ArrayLike, is_float: ArrayLike
+) -> NDArray[np.float64]:
     """Half-width of the register quantization: +-scale/2 for integers, half an ulp for float32."""
     sc = np.abs(np.asarray(scale, float))
     v = np.abs(np.nan_to_num(np.asarray(value, float)))
@@ -137,7 +172,9 @@ def rss(*u: ArrayLike) -> NDArray[np.float64]:
     return np.sqrt(sum(np.asarray(x, float) ** 2 for x in u))
 
 
-def combine(u: Sequence[float], groups: Sequence[object] | None = None, coeff: Sequence[float] | None = None) -> float:
+def combine(
+    u: Sequence[float], groups: Sequence[object] | None = None, coeff: Sequence[float] | None = None
+) -> float:
     """Combined standard uncertainty of sum(c_i x_i).
 
     Terms in one group (for instance readings through one CT or VT) are fully correlated
@@ -178,7 +215,18 @@ def judge_many(value: NDArray, limit: NDArray, warn_fraction: float) -> NDArray[
     return out
 
 
-_UNIT_NAME = {"W": "w", "var": "var", "VA": "va", "V": "v", "A": "a", "Hz": "hz", "%": "pct", "deg": "deg", "1": "pu", "": "pu"}
+_UNIT_NAME = {
+    "W": "w",
+    "var": "var",
+    "VA": "va",
+    "V": "v",
+    "A": "a",
+    "Hz": "hz",
+    "%": "pct",
+    "deg": "deg",
+    "1": "pu",
+    "": "pu",
+}
 
 
 class Limits:
@@ -200,7 +248,11 @@ class Limits:
             return computed
         fixed = self._o.get(f"{check}.limit_{_UNIT_NAME.get(unit, unit.lower())}")
         if fixed is not None:
-            return np.full_like(np.asarray(computed, float), float(fixed)) if np.ndim(computed) else float(fixed)
+            return (
+                np.full_like(np.asarray(computed, float), float(fixed))
+                if np.ndim(computed)
+                else float(fixed)
+            )
         return computed * self._o.get(f"{check}.scale", 1.0)
 
     def param(self, check: str, name: str, default: float) -> float:

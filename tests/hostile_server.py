@@ -29,8 +29,20 @@ import sys
 from dataclasses import dataclass, field
 
 LOOPBACK = "127.0.0.1"
-MODES = ("ok", "silent", "late", "exception", "close", "bad_length", "bad_count", "bad_fc",
-         "bad_tid", "bad_unit", "truncated", "garbage")
+MODES = (
+    "ok",
+    "silent",
+    "late",
+    "exception",
+    "close",
+    "bad_length",
+    "bad_count",
+    "bad_fc",
+    "bad_tid",
+    "bad_unit",
+    "truncated",
+    "garbage",
+)
 MALFORMED = ("bad_length", "bad_count", "bad_fc", "bad_tid", "bad_unit", "truncated", "garbage")
 # Modbus Application Protocol V1.1b3 section 7: the exception codes a device may answer
 EXCEPTION_CODES = (0x01, 0x02, 0x03, 0x04, 0x05, 0x06, 0x08, 0x0A, 0x0B)
@@ -87,7 +99,7 @@ class HostileServer:
         self.behaviour[unit] = Behaviour(mode, delay_s, code)
 
     def load(self, unit: int, address: int, words: list[int]) -> None:
-        self.words[unit][address:address + len(words)] = [w & 0xFFFF for w in words]
+        self.words[unit][address : address + len(words)] = [w & 0xFFFF for w in words]
 
     def requests_for(self, unit: int) -> list[Request]:
         return [r for r in self.requests if r.unit == unit]
@@ -173,12 +185,12 @@ class HostileServer:
         if fc in (3, 4):
             if req.count < 1 or req.count > 125 or req.address + req.count > REGISTERS:
                 return bytes([fc | 0x80, 0x02 if req.count <= 125 else 0x03])
-            regs = self.words[unit][req.address:req.address + req.count]
+            regs = self.words[unit][req.address : req.address + req.count]
             return struct.pack(f">BB{req.count}H", fc, 2 * req.count, *regs)
         if fc in (1, 2):
             if req.count < 1 or req.count > 2000 or req.address + req.count > BITS:
                 return bytes([fc | 0x80, 0x02])
-            bits = self.bits[unit][req.address:req.address + req.count]
+            bits = self.bits[unit][req.address : req.address + req.count]
             packed = bytearray((req.count + 7) // 8)
             for i, on in enumerate(bits):  # LSB of the first byte = first bit (V1.1b3 6.1)
                 if on:
@@ -192,7 +204,7 @@ class HostileServer:
             return bytes([fc]) + struct.pack(">HH", req.address, req.values[0])
         if fc in (15, 16):
             target = self.bits[unit] if fc == 15 else self.words[unit]
-            target[req.address:req.address + len(req.values)] = list(req.values)
+            target[req.address : req.address + len(req.values)] = list(req.values)
             return bytes([fc]) + struct.pack(">HH", req.address, req.count)
         return bytes([fc | 0x80, 0x01])  # ILLEGAL FUNCTION
 
@@ -235,7 +247,9 @@ def _parse(unit: int, tid: int, pdu: bytes) -> Request:
             values = struct.unpack_from(f">{count}H", pdu, 6)
         elif fc == 15 and len(pdu) >= 6:
             raw = pdu[6:]
-            values = tuple(bool(raw[i // 8] >> (i % 8) & 1) for i in range(min(count, 8 * len(raw))))
+            values = tuple(
+                bool(raw[i // 8] >> (i % 8) & 1) for i in range(min(count, 8 * len(raw)))
+            )
     return Request(unit, fc, address, count, tid, values)
 
 

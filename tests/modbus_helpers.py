@@ -52,7 +52,9 @@ def free_port() -> int:
         return s.getsockname()[1]
 
 
-async def wait_until(predicate: Callable[[], bool], timeout: float = 5.0, step: float = 0.01) -> float:
+async def wait_until(
+    predicate: Callable[[], bool], timeout: float = 5.0, step: float = 0.01
+) -> float:
     """Poll ``predicate`` until true; return the seconds it took. Fails the test on deadline."""
     t0 = time.monotonic()
     while not predicate():
@@ -73,17 +75,32 @@ def make_map(map_id: str, specs: Iterable[RegisterSpec], max_read: int = 125) ->
     return RegisterMap(id=map_id, registers=tuple(specs), max_read=max_read)
 
 
-def float_map(map_id: str = "f32", keys: Iterable[str] = ("v_ln.A", "i.A", "p.T", "q.T", "pf.T", "f.T"),
-              start: int = 0, kind: str = "input", **kw) -> RegisterMap:
+def float_map(
+    map_id: str = "f32",
+    keys: Iterable[str] = ("v_ln.A", "i.A", "p.T", "q.T", "pf.T", "f.T"),
+    start: int = 0,
+    kind: str = "input",
+    **kw,
+) -> RegisterMap:
     """Consecutive float32 registers, two words each, from ``start``."""
-    return make_map(map_id, [spec(k, start + 2 * n, "float32", kind, **kw) for n, k in enumerate(keys)])
+    return make_map(
+        map_id, [spec(k, start + 2 * n, "float32", kind, **kw) for n, k in enumerate(keys)]
+    )
 
 
 def tcp_meter(meter_id: str, port: int, unit_id: int = 1, map_id: str = "f32", **kw) -> Meter:
     kw.setdefault("timeout_s", 0.3)
     kw.setdefault("retries", 0)
-    return Meter(id=meter_id, label=meter_id, transport=TcpTransport(LOOPBACK, port), unit_id=unit_id,
-                 map_id=map_id, bus="B1", branch="L1", **kw)
+    return Meter(
+        id=meter_id,
+        label=meter_id,
+        transport=TcpTransport(LOOPBACK, port),
+        unit_id=unit_id,
+        map_id=map_id,
+        bus="B1",
+        branch="L1",
+        **kw,
+    )
 
 
 def make_profile(
@@ -96,35 +113,66 @@ def make_profile(
     poll: PollSettings | None = None,
 ) -> Profile:
     """A minimal but complete Profile around the given maps and meters (test use only)."""
-    bench = Bench(name="test bench", frequency_hz=50.0, power_scale=1.0, s_base_va=30000.0,
-                  zones=(Zone("z", 400.0, 400.0),))
+    bench = Bench(
+        name="test bench",
+        frequency_hz=50.0,
+        power_scale=1.0,
+        s_base_va=30000.0,
+        zones=(Zone("z", 400.0, 400.0),),
+    )
     return Profile(
-        path="<test>", sha256="", bench=bench, maps={m.id: m for m in maps}, meters=tuple(meters),
-        buses=(), branches=(), switches=tuple(switches), plcs=tuple(plcs),
-        control=control or Control(), poll=poll or PollSettings(backoff_initial_s=0.2, backoff_max_s=1.0),
+        path="<test>",
+        sha256="",
+        bench=bench,
+        maps={m.id: m for m in maps},
+        meters=tuple(meters),
+        buses=(),
+        branches=(),
+        switches=tuple(switches),
+        plcs=tuple(plcs),
+        control=control or Control(),
+        poll=poll or PollSettings(backoff_initial_s=0.2, backoff_max_s=1.0),
     )
 
 
 def plc(plc_id: str, port: int, unit_id: int = 1, timeout_s: float = 0.3) -> Plc:
-    return Plc(id=plc_id, transport=TcpTransport(LOOPBACK, port), unit_id=unit_id, timeout_s=timeout_s)
+    return Plc(
+        id=plc_id, transport=TcpTransport(LOOPBACK, port), unit_id=unit_id, timeout_s=timeout_s
+    )
 
 
-def switch(switch_id: str, plc_id: str | None, status: int | None, *, command_coil: int | None = None,
-           operation: str = "manual", kind: str = "discrete") -> Switch:
-    return Switch(id=switch_id, branch="L1", operation=operation, plc=plc_id,  # type: ignore[arg-type]
-                  command_coil=command_coil,
-                  status=None if status is None else StatusPoint(kind, status))  # type: ignore[arg-type]
+def switch(
+    switch_id: str,
+    plc_id: str | None,
+    status: int | None,
+    *,
+    command_coil: int | None = None,
+    operation: str = "manual",
+    kind: str = "discrete",
+) -> Switch:
+    return Switch(
+        id=switch_id,
+        branch="L1",
+        operation=operation,
+        plc=plc_id,  # type: ignore[arg-type]
+        command_coil=command_coil,
+        status=None if status is None else StatusPoint(kind, status),
+    )  # type: ignore[arg-type]
 
 
 def encoded(regmap: RegisterMap, values: dict[str, float]) -> list[tuple[str, int, list[int]]]:
     """(kind, address, words) a meter of this map holds for these engineering values."""
-    return [(s.kind, s.address, encode(s, values[s.key])) for s in regmap.registers if s.key in values]
+    return [
+        (s.kind, s.address, encode(s, values[s.key])) for s in regmap.registers if s.key in values
+    ]
 
 
 # ---------------------------------------------------------------- servers
 
 
-def _blocks(registers: int, bits: int) -> tuple[list[SimData], list[SimData], list[SimData], list[SimData]]:
+def _blocks(
+    registers: int, bits: int
+) -> tuple[list[SimData], list[SimData], list[SimData], list[SimData]]:
     return (
         [SimData(0, count=bits, values=False, datatype=DataType.BITS)],
         [SimData(0, count=bits, values=False, datatype=DataType.BITS)],
@@ -160,7 +208,9 @@ class MeterServer:
     follow_delay_s: float = 0.05
     writes: list[Write] = field(default_factory=list)
     server: ModbusTcpServer | None = None
-    _state: dict[tuple[int, int, int], list] = field(default_factory=dict)  # (unit, fc, addr) -> values
+    _state: dict[tuple[int, int, int], list] = field(
+        default_factory=dict
+    )  # (unit, fc, addr) -> values
 
     def _action(self, unit: int):
         async def action(fc, _start, address, _count, _regs, values):
@@ -171,9 +221,12 @@ class MeterServer:
                     value = bool(values[0])
                     asyncio.get_running_loop().call_later(
                         self.follow_delay_s,
-                        lambda: asyncio.ensure_future(self.set_bits(unit, "discrete", status, [value])),
+                        lambda: asyncio.ensure_future(
+                            self.set_bits(unit, "discrete", status, [value])
+                        ),
                     )
             return None
+
         return action
 
     def _trace(self, sending: bool, data: bytes) -> bytes:
@@ -183,9 +236,13 @@ class MeterServer:
         return data
 
     async def start(self) -> MeterServer:
-        devices = [SimDevice(u, simdata=_blocks(self.registers, self.bits), action=self._action(u))
-                   for u in self.units]
-        self.server = ModbusTcpServer(devices, address=(LOOPBACK, self.port), trace_packet=self._trace)
+        devices = [
+            SimDevice(u, simdata=_blocks(self.registers, self.bits), action=self._action(u))
+            for u in self.units
+        ]
+        self.server = ModbusTcpServer(
+            devices, address=(LOOPBACK, self.port), trace_packet=self._trace
+        )
         await self.server.serve_forever(background=True)
         self.port = self.server.transport.sockets[0].getsockname()[1]
         for (unit, fc, address), values in self._state.items():  # a restart keeps the data
@@ -291,11 +348,15 @@ class PtyLink:
                 os.close(fd)
 
 
-async def rtu_server(path: str, units: tuple[int, ...] = (1,), registers: int = 200) -> ModbusSerialServer:
+async def rtu_server(
+    path: str, units: tuple[int, ...] = (1,), registers: int = 200
+) -> ModbusSerialServer:
     """A pymodbus RTU server on a tty path, serving ``units`` (data set via ``async_setValues``)."""
     devices = [SimDevice(u, simdata=_blocks(registers, 16)) for u in units]
     # 8N1: this kernel's pty drops PARENB and then rejects pyserial's reconfigure (EINVAL)
-    server = ModbusSerialServer(devices, port=path, baudrate=19200, parity="N", stopbits=1, reconnect_delay=0)
+    server = ModbusSerialServer(
+        devices, port=path, baudrate=19200, parity="N", stopbits=1, reconnect_delay=0
+    )
     await server.serve_forever(background=True)
     return server
 
@@ -304,5 +365,13 @@ def rtu_meter(meter_id: str, path: str, unit_id: int = 1, map_id: str = "f32", *
     kw.setdefault("timeout_s", 0.5)
     kw.setdefault("retries", 0)
     transport: Transport = RtuTransport(device=path, baudrate=19200, parity="N", stopbits=1)
-    return Meter(id=meter_id, label=meter_id, transport=transport, unit_id=unit_id, map_id=map_id,
-                 bus="B1", branch="L1", **kw)
+    return Meter(
+        id=meter_id,
+        label=meter_id,
+        transport=transport,
+        unit_id=unit_id,
+        map_id=map_id,
+        bus="B1",
+        branch="L1",
+        **kw,
+    )

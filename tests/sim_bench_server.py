@@ -33,7 +33,9 @@ async def _serve(profile_path: str, seed: int) -> None:
     bench = SimulatedBench(profile, port_map="free", seed=seed)
     bound = await bench.start()
     ports = {}
-    for before, after in zip((*profile.meters, *profile.plcs), (*bound.meters, *bound.plcs), strict=True):
+    for before, after in zip(
+        (*profile.meters, *profile.plcs), (*bound.meters, *bound.plcs), strict=True
+    ):
         if isinstance(before.transport, TcpTransport):
             ports[f"{before.transport.host}:{before.transport.port}"] = after.transport.port
     print(json.dumps({"ports": ports}), flush=True)

@@ -59,9 +59,15 @@ def reseal(folder: Path) -> None:
 
 
 json_values = st.recursive(
-    st.none() | st.booleans() | st.integers(-2**70, 2**70) | st.floats(allow_nan=True)
-    | st.text(max_size=12) | st.sampled_from(["/etc/passwd", "../../x", "data/measurements.csv", "a\x00b", "x" * 5000]),
-    lambda kids: st.lists(kids, max_size=3) | st.dictionaries(st.text(max_size=6), kids, max_size=3),
+    st.none()
+    | st.booleans()
+    | st.integers(-(2**70), 2**70)
+    | st.floats(allow_nan=True)
+    | st.text(max_size=12)
+    | st.sampled_from(["/etc/passwd", "../../x", "data/measurements.csv", "a\x00b", "x" * 5000]),
+    lambda kids: (
+        st.lists(kids, max_size=3) | st.dictionaries(st.text(max_size=6), kids, max_size=3)
+    ),
     max_leaves=8,
 )
 
@@ -98,7 +104,7 @@ HOSTILE_PROFILES = [
     "[bench]\nname = 1\n",
     '[sequence]\nfile = "/etc/passwd"\n',
     "",
-    "[bench]\nname = \"" + "A" * 100_000 + "\"\n",
+    '[bench]\nname = "' + "A" * 100_000 + '"\n',
 ]
 
 
@@ -106,7 +112,10 @@ def mutate_file(folder: Path, data) -> str:
     files = sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*") if p.is_file())
     rel = data.draw(st.sampled_from(files), label="file")
     p = folder / rel
-    how = data.draw(st.sampled_from(["delete", "truncate", "garbage", "directory", "symlink-out", "profile"]), label="how")
+    how = data.draw(
+        st.sampled_from(["delete", "truncate", "garbage", "directory", "symlink-out", "profile"]),
+        label="how",
+    )
     raw = p.read_bytes()
     if how == "delete":
         p.unlink()
@@ -121,7 +130,9 @@ def mutate_file(folder: Path, data) -> str:
         p.unlink()
         p.symlink_to("/etc/passwd")
     else:
-        (folder / "profile" / "profile.toml").write_text(data.draw(st.sampled_from(HOSTILE_PROFILES), label="toml"))
+        (folder / "profile" / "profile.toml").write_text(
+            data.draw(st.sampled_from(HOSTILE_PROFILES), label="toml")
+        )
     if rel != "datapackage.json" and data.draw(st.booleans(), label="reseal"):
         reseal(folder)
     return f"file {rel} {how}"
@@ -134,7 +145,9 @@ def mutate_table(folder: Path, data) -> str:
     t = pq.read_table(p)
     col = data.draw(st.sampled_from(t.column_names), label="column")
     n = t.num_rows
-    kind = data.draw(st.sampled_from(["nulls", "junk-text", "wrong-type", "extremes", "drop-rows"]), label="kind")
+    kind = data.draw(
+        st.sampled_from(["nulls", "junk-text", "wrong-type", "extremes", "drop-rows"]), label="kind"
+    )
     field = t.schema.field(col)
     if kind == "drop-rows":
         t = t.slice(0, data.draw(st.integers(0, max(0, n - 1)), label="rows"))
@@ -142,11 +155,16 @@ def mutate_table(folder: Path, data) -> str:
         if kind == "nulls":
             arr = pa.nulls(n, field.type)
         elif kind == "junk-text" and pa.types.is_string(field.type):
-            arr = pa.array(data.draw(st.lists(st.text(max_size=5), min_size=n, max_size=n), label="text"), pa.string())
+            arr = pa.array(
+                data.draw(st.lists(st.text(max_size=5), min_size=n, max_size=n), label="text"),
+                pa.string(),
+            )
         elif kind == "extremes" and pa.types.is_integer(field.type):
             arr = pa.array([2**62, -(2**62), 0] * (n // 3) + [0] * (n % 3), field.type)
         elif kind == "extremes" and pa.types.is_floating(field.type):
-            arr = pa.array([float("nan"), float("inf"), -1e308] * (n // 3) + [0.0] * (n % 3), field.type)
+            arr = pa.array(
+                [float("nan"), float("inf"), -1e308] * (n // 3) + [0.0] * (n % 3), field.type
+            )
         else:
             arr = pa.array([str(i) for i in range(n)], pa.string())  # wrong type for most columns
         t = t.set_column(t.column_names.index(col), pa.field(col, arr.type), arr)
@@ -167,12 +185,18 @@ def _answer(capsys, argv: list[str]) -> None:
         assert rc in (0, 1), rc
 
 
-@settings(max_examples=45, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(
+    max_examples=45, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
 @given(data=st.data())
-def test_fuzzed_dataset_check_and_report_answer_in_one_line(dataset, tmp_path_factory, capsys, data):
+def test_fuzzed_dataset_check_and_report_answer_in_one_line(
+    dataset, tmp_path_factory, capsys, data
+):
     copy = tmp_path_factory.mktemp("fz") / "ds"
     shutil.copytree(dataset, copy, symlinks=True)
-    what = data.draw(st.sampled_from([mutate_json, mutate_file, mutate_table]), label="mutation")(copy, data)
+    what = data.draw(st.sampled_from([mutate_json, mutate_file, mutate_table]), label="mutation")(
+        copy, data
+    )
     note = f"mutation: {what}"
     try:
         _answer(capsys, ["check", str(copy)])
@@ -183,7 +207,10 @@ def test_fuzzed_dataset_check_and_report_answer_in_one_line(dataset, tmp_path_fa
 
 def test_untouched_dataset_checks_and_reports(dataset, tmp_path, capsys):
     """The fuzz baseline: the unmutated folder is accepted (exit 0 or 1, not 2)."""
-    for argv in (["check", str(dataset)], ["report", str(dataset), "--out", str(tmp_path / "r.html")]):
+    for argv in (
+        ["check", str(dataset)],
+        ["report", str(dataset), "--out", str(tmp_path / "r.html")],
+    ):
         capsys.readouterr()
         assert cli.main(argv) in (0, 1), capsys.readouterr().err
     assert (tmp_path / "r.html").is_file()
@@ -195,7 +222,10 @@ def test_descriptor_paths_outside_the_folder_are_refused(dataset, tmp_path, caps
     secret = tmp_path / "secret.toml"
     secret.write_text("[bench]\nname = 'not yours'\n")
     pkg = json.loads((copy / "datapackage.json").read_text())
-    pkg["benchwalk"]["profile_files"][0] = {"path": str(secret), "hash": _sha(secret)}  # hash agrees
+    pkg["benchwalk"]["profile_files"][0] = {
+        "path": str(secret),
+        "hash": _sha(secret),
+    }  # hash agrees
     (copy / "datapackage.json").write_text(json.dumps(pkg))
     capsys.readouterr()
     assert cli.main(["check", str(copy)]) == 2
@@ -205,12 +235,36 @@ def test_descriptor_paths_outside_the_folder_are_refused(dataset, tmp_path, caps
 
 # ---------------------------------------------------------------- --fault strings
 
+
 @settings(max_examples=300, deadline=None)
-@given(text=st.one_of(
-    st.text(max_size=24),
-    st.lists(st.sampled_from(["ct-reversed", "slow", "exception", "offline", "M1", "B", "1.5", "-1", "nan", "inf",
-                              "1e999", "A-A", "", " ", "12", "x"]), max_size=5).map(":".join),
-))
+@given(
+    text=st.one_of(
+        st.text(max_size=24),
+        st.lists(
+            st.sampled_from(
+                [
+                    "ct-reversed",
+                    "slow",
+                    "exception",
+                    "offline",
+                    "M1",
+                    "B",
+                    "1.5",
+                    "-1",
+                    "nan",
+                    "inf",
+                    "1e999",
+                    "A-A",
+                    "",
+                    " ",
+                    "12",
+                    "x",
+                ]
+            ),
+            max_size=5,
+        ).map(":".join),
+    )
+)
 def test_parse_fault_is_a_fault_or_one_clear_line(text):
     try:
         fault = parse_fault(text)
@@ -221,20 +275,49 @@ def test_parse_fault_is_a_fault_or_one_clear_line(text):
     assert parse_fault(fault.text) == fault  # and its text form reads back the same
 
 
-MALFORMED = ["", ":", "ct-reversed", "ct-reversed:M1", "ct-reversed:M1:Q", "slow:M1:-2", "slow:M1:nan",
-             "exception:M1:7", "offline:M1:extra", "phases-swapped:M1:A-A", "vt-ratio:M1:1e999",
-             "nonsense:M1", "ct-reversed:M99:B", "frozen:", "\x00:M1", "slow:M1:" + "9" * 400]
+MALFORMED = [
+    "",
+    ":",
+    "ct-reversed",
+    "ct-reversed:M1",
+    "ct-reversed:M1:Q",
+    "slow:M1:-2",
+    "slow:M1:nan",
+    "exception:M1:7",
+    "offline:M1:extra",
+    "phases-swapped:M1:A-A",
+    "vt-ratio:M1:1e999",
+    "nonsense:M1",
+    "ct-reversed:M99:B",
+    "frozen:",
+    "\x00:M1",
+    "slow:M1:" + "9" * 400,
+]
 
 
 @pytest.mark.parametrize("fault", MALFORMED)
 def test_malformed_fault_on_the_command_line_is_one_line_exit_2(fault, tmp_path, capsys):
     profile = write_bench(tmp_path / "bench")
-    for argv in (["sim", str(profile), "--free-ports", "--fault", fault],
-                 ["demo", "--headless", "--profile", str(profile), "--sessions", str(tmp_path / "s"),
-                  "--out", str(tmp_path / "out"), "--fault", fault]):
+    for argv in (
+        ["sim", str(profile), "--free-ports", "--fault", fault],
+        [
+            "demo",
+            "--headless",
+            "--profile",
+            str(profile),
+            "--sessions",
+            str(tmp_path / "s"),
+            "--out",
+            str(tmp_path / "out"),
+            "--fault",
+            fault,
+        ],
+    ):
         capsys.readouterr()
         assert cli.main(argv) == 2
         out = capsys.readouterr()
         lines = out.err.strip().splitlines()
         assert len(lines) == 1 and lines[0].startswith(f"benchwalk {argv[0]}: fault "), lines
-    assert not (tmp_path / "s").exists() or not list((tmp_path / "s").iterdir())  # no session was started
+    assert not (tmp_path / "s").exists() or not list(
+        (tmp_path / "s").iterdir()
+    )  # no session was started

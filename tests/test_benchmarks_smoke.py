@@ -34,8 +34,11 @@ def figures() -> list[Figure]:
 
 
 def _plan_rows(figs: list[Figure]) -> dict[str, Figure]:
-    return {f.figure.split(" map ")[1].split(" ")[0] if " map " in f.figure else "demo": f
-            for f in figs if f.area == "poll plan"}
+    return {
+        f.figure.split(" map ")[1].split(" ")[0] if " map " in f.figure else "demo": f
+        for f in figs
+        if f.area == "poll plan"
+    }
 
 
 def test_tiny_suite_has_plan_rows_and_a_one_meter_poller_row(figures):
@@ -58,7 +61,9 @@ def test_plan_rows_match_the_profile_read_with_tomllib(figures):
     per_map = {m: plan[m].ours for m in DEMO_TOML["maps"]}
     meters = DEMO_TOML["meter"]
     assert plan["demo"].ours == sum(per_map[m["map"]] for m in meters)
-    assert plan["demo"].reference == sum(len(DEMO_TOML["maps"][m["map"]]["registers"]) for m in meters)
+    assert plan["demo"].reference == sum(
+        len(DEMO_TOML["maps"][m["map"]]["registers"]) for m in meters
+    )
     assert all(f.verdict == "pass" for f in plan.values())  # the plan is the exact minimum
 
 
@@ -69,7 +74,8 @@ def test_every_row_is_consistent_with_its_own_numbers(figures):
         assert f.ratio == pytest.approx(f.ours / f.reference), f
         expected = all(
             {"<=": v <= t.limit, "==": v == t.limit}[t.op]
-            for t in f.targets for v in [f.ours if t.on == "ours" else f.ratio]
+            for t in f.targets
+            for v in [f.ours if t.on == "ours" else f.ratio]
         )
         assert f.passed is expected and f.verdict == ("pass" if expected else "MISS"), f
 
@@ -83,7 +89,9 @@ def test_markdown_table_is_well_formed(figures):
         area, _, ours, ref, ratio, target, verdict = row
         assert area == f.area
         unit = "req" if area == "poll plan" else "ms"
-        assert re.fullmatch(rf"{NUMBER} {unit}", ours) and re.fullmatch(rf"{NUMBER} {unit}", ref), row
+        assert re.fullmatch(rf"{NUMBER} {unit}", ours) and re.fullmatch(rf"{NUMBER} {unit}", ref), (
+            row
+        )
         assert re.fullmatch(r"\d+\.\d\dx", ratio), row
         assert target != "-" and verdict in {"pass", "MISS"}, row
 
@@ -91,7 +99,9 @@ def test_markdown_table_is_well_formed(figures):
 def test_a_failing_benchmark_becomes_a_row_saying_why():
     broken = run_all.Config("broken", poller_sizes=())  # no fleet sizes: the poller cannot run
     (row,) = run_all.collect(broken, only=["poller"])
-    assert row.ours is None and row.verdict == "not run" and row.note.startswith("failed: ValueError")
+    assert (
+        row.ours is None and row.verdict == "not run" and row.note.startswith("failed: ValueError")
+    )
     assert run_all._module("bench_no_such_thing") is None
 
 
@@ -110,18 +120,39 @@ def test_interleaved_rotates_who_goes_first():
     calls: list[str] = []
     cases = {name: (lambda n=name: calls.append(n)) for name in ("ours", "bare")}
     times = interleaved(cases, rounds=4, warmup=1)
-    assert calls == ["ours", "bare"] + ["ours", "bare", "bare", "ours"] * 2  # warm-up, then rotated rounds
+    assert (
+        calls == ["ours", "bare"] + ["ours", "bare", "bare", "ours"] * 2
+    )  # warm-up, then rotated rounds
     assert {k: len(v) for k, v in times.items()} == {"ours": 4, "bare": 4}
     assert all(t >= 0 for v in times.values() for t in v)
 
 
 def test_command_line_writes_the_markdown_file(tmp_path):
     out = tmp_path / "perf.md"
-    proc = subprocess.run([sys.executable, str(ROOT / "benchmarks" / "run_all.py"), "--only", "plan",
-                           "--markdown", str(out)], capture_output=True, text=True, timeout=60)
+    proc = subprocess.run(
+        [
+            sys.executable,
+            str(ROOT / "benchmarks" / "run_all.py"),
+            "--only",
+            "plan",
+            "--markdown",
+            str(out),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
     assert proc.returncode == 0, proc.stderr
     text = out.read_text()
     assert text.count("| poll plan |") == len(DEMO_TOML["maps"]) + 2
-    bad = subprocess.run([sys.executable, str(ROOT / "benchmarks" / "run_all.py"), "--only", "nonsense"],
-                         capture_output=True, text=True, timeout=60)
-    assert bad.returncode == 2 and "unknown area nonsense" in bad.stderr and "Traceback" not in bad.stderr
+    bad = subprocess.run(
+        [sys.executable, str(ROOT / "benchmarks" / "run_all.py"), "--only", "nonsense"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert (
+        bad.returncode == 2
+        and "unknown area nonsense" in bad.stderr
+        and "Traceback" not in bad.stderr
+    )

@@ -18,7 +18,9 @@ def test_fused_limits_match_tolerance_functions():
     prof = demo()
     eng = CheckEngine(prof)
     sw = {s.id: s.normal for s in prof.switches} | {"RX": "closed"}
-    snap = snapshot_from_sim(prof, sw, [], np.random.default_rng(2), 1, ideal=ideal_readings(prof, sw), t_mono=0.0)
+    snap = snapshot_from_sim(
+        prof, sw, [], np.random.default_rng(2), 1, ideal=ideal_readings(prof, sw), t_mono=0.0
+    )
     fr = eng.frame(snap)
     lay = eng.layout
     checked = 0
@@ -31,12 +33,22 @@ def test_fused_limits_match_tolerance_functions():
         for sl, kind in ((P4, "p"), (Q4, "q")):
             a = power_limit(class_spec(kind, getattr(m.classes, kind)), x[sl], s_ref, i_frac, rated)
             res = resolution_limit(lay.scale[mi, sl], x[sl], lay.is_float[mi, sl])
-            np.testing.assert_allclose(fr.u[mi, sl], rss(std_rect(a), std_rect(res)), rtol=1e-12, err_msg=f"{m.id} {kind}")
+            np.testing.assert_allclose(
+                fr.u[mi, sl], rss(std_rect(a), std_rect(res)), rtol=1e-12, err_msg=f"{m.id} {kind}"
+            )
             checked += 4
         a = magnitude_limit(class_spec("v", m.classes.v), x[V_LN], v_n)
         res = resolution_limit(lay.scale[mi, V_LN], x[V_LN], lay.is_float[mi, V_LN])
         np.testing.assert_allclose(fr.u[mi, V_LN], rss(std_rect(a), std_rect(res)), rtol=1e-12)
         checked += 3
         c = COL["f.T"]
-        assert math.isclose(fr.u[mi, c], float(rss(std_rect(0.01), std_rect(resolution_limit(lay.scale[mi, c], x[c], lay.is_float[mi, c])))))
+        assert math.isclose(
+            fr.u[mi, c],
+            float(
+                rss(
+                    std_rect(0.01),
+                    std_rect(resolution_limit(lay.scale[mi, c], x[c], lay.is_float[mi, c])),
+                )
+            ),
+        )
     assert checked == 8 * 11

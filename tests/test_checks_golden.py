@@ -55,34 +55,72 @@ def synthetic_bench(base: Profile, n_meters: int = 32) -> Profile:
 
     def meter(bus: str, branch: str, map_id: str) -> None:
         k = len(meters) + 1
-        extra = {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0} if map_id == "corvid-i32" else {}
-        meters.append(Meter(f"X{k}", f"synthetic meter {k}", TcpTransport("127.0.0.1", 15100 + k), 1, map_id, bus,
-                            branch, ct_primary_a=100.0, classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"), **extra))
+        extra = (
+            {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0}
+            if map_id == "corvid-i32"
+            else {}
+        )
+        meters.append(
+            Meter(
+                f"X{k}",
+                f"synthetic meter {k}",
+                TcpTransport("127.0.0.1", 15100 + k),
+                1,
+                map_id,
+                bus,
+                branch,
+                ct_primary_a=100.0,
+                classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"),
+                **extra,
+            )
+        )
 
     i = 0
     while len(meters) < n_meters:
         i += 1
         prev, bus = f"B{i - 1}", f"B{i}"
         buses.append(Bus(bus, base.buses[0].zone))
-        branches.append(Branch(f"L{i}", "line", prev, bus, sim={"r_ohm": 0.02, "x_ohm": 0.03, "b_us": 10.0}))
+        branches.append(
+            Branch(f"L{i}", "line", prev, bus, sim={"r_ohm": 0.02, "x_ohm": 0.03, "b_us": 10.0})
+        )
         meter(prev, f"L{i}", maps[i % 3])
         meter(bus, f"L{i}", maps[(i + 1) % 3])
-        branches.append(Branch(f"LD{i}", "load", bus, sim={"model": "pq", "p_w": 1500.0, "q_var": 500.0}))
+        branches.append(
+            Branch(f"LD{i}", "load", bus, sim={"model": "pq", "p_w": 1500.0, "q_var": 500.0})
+        )
         if len(meters) < n_meters:
             meter(bus, f"LD{i}", maps[(i + 2) % 3])
-    return dataclasses.replace(base, path="<synthetic>", meters=tuple(meters[:n_meters]), buses=tuple(buses),
-                               branches=tuple(branches), switches=(), plcs=(), steps=())
+    return dataclasses.replace(
+        base,
+        path="<synthetic>",
+        meters=tuple(meters[:n_meters]),
+        buses=tuple(buses),
+        branches=tuple(branches),
+        switches=(),
+        plcs=(),
+        steps=(),
+    )
 
 
 def with_overrides(base: Profile) -> Profile:
     """The demo with limit overrides (fixed limits, scaled limits, named thresholds) in play."""
     overrides = {
-        "meter.p_sum.scale": 0.02, "meter.s_phase.limit_va": 1.0, "meter.frequency.limit_hz": 0.004,
-        "network.v_agree.scale": 0.3, "network.p_balance.limit_w": 5.0, "phase.v_unbalance.warn_pct": 0.2,
-        "phase.i_unbalance.warn_pct": 5.0, "quality.noise.max_sigma_of_limit": 0.05, "quality.v_range.band": 0.02,
-        "network.losses.max_fraction": 0.001, "meter.s_total.distortion_pct": 0.0, "phase.wiring.trip_deg": 20.0,
+        "meter.p_sum.scale": 0.02,
+        "meter.s_phase.limit_va": 1.0,
+        "meter.frequency.limit_hz": 0.004,
+        "network.v_agree.scale": 0.3,
+        "network.p_balance.limit_w": 5.0,
+        "phase.v_unbalance.warn_pct": 0.2,
+        "phase.i_unbalance.warn_pct": 5.0,
+        "quality.noise.max_sigma_of_limit": 0.05,
+        "quality.v_range.band": 0.02,
+        "network.losses.max_fraction": 0.001,
+        "meter.s_total.distortion_pct": 0.0,
+        "phase.wiring.trip_deg": 20.0,
     }
-    checks = dataclasses.replace(base.checks, overrides=overrides, frozen_cycles=4, warn_fraction=0.5)
+    checks = dataclasses.replace(
+        base.checks, overrides=overrides, frozen_cycles=4, warn_fraction=0.5
+    )
     assert isinstance(checks, CheckSettings)
     return dataclasses.replace(base, checks=checks)
 
@@ -90,7 +128,9 @@ def with_overrides(base: Profile) -> Profile:
 # ---------------------------------------------------------------- snapshot edits
 
 
-def _partial(snap: Snapshot, meter: str, keys: list[str], quality: Quality, state: CommState) -> Snapshot:
+def _partial(
+    snap: Snapshot, meter: str, keys: list[str], quality: Quality, state: CommState
+) -> Snapshot:
     b = snap.meters[meter]
     qual = dict(b.quality)
     vals = dict(b.values)
@@ -98,7 +138,9 @@ def _partial(snap: Snapshot, meter: str, keys: list[str], quality: Quality, stat
         qual[k] = quality
         if quality is not Quality.STALE:
             vals[k] = math.nan
-    block = MeterBlock(meter, vals, qual, state, error=f"{meter}: {len(keys)} value(s) {quality}", latency_s=0.01)
+    block = MeterBlock(
+        meter, vals, qual, state, error=f"{meter}: {len(keys)} value(s) {quality}", latency_s=0.01
+    )
     return dataclasses.replace(snap, meters={**snap.meters, meter: block})
 
 
@@ -135,7 +177,9 @@ def scenarios(demo: Profile) -> list[Scenario]:
     out = [
         Scenario("normal", "demo", nrm, n=20, seed=11),
         Scenario("tie closed, L2 open", "demo", {**nrm, "TIE": "closed", "SW2": "open"}, seed=12),
-        Scenario("reactor on, tie closed", "demo", {**nrm, "RX": "closed", "TIE": "closed"}, seed=13),
+        Scenario(
+            "reactor on, tie closed", "demo", {**nrm, "RX": "closed", "TIE": "closed"}, seed=13
+        ),
         Scenario("lateral out", "demo", {**nrm, "SW3": "open", "LB2": "open"}, seed=14),
         Scenario("feeder breaker open", "demo", {**nrm, "CB1": "open"}, n=10, seed=15),
         Scenario("ct reversed M1 B", "demo", nrm, ("ct-reversed:M1:B",), seed=21),
@@ -144,31 +188,67 @@ def scenarios(demo: Profile) -> list[Scenario]:
         Scenario("phases swapped M8 A-B", "demo", nrm, ("phases-swapped:M8:A-B",), seed=24),
         Scenario("vt ratio M7", "demo", nrm, ("vt-ratio:M7:1.1",), seed=25),
         Scenario("ct ratio M3", "demo", nrm, ("ct-ratio:M3:0.8",), seed=26),
-        Scenario("ct ratio M4 tie closed", "demo", {**nrm, "TIE": "closed"}, ("ct-ratio:M4:1.25",), seed=27),
+        Scenario(
+            "ct ratio M4 tie closed",
+            "demo",
+            {**nrm, "TIE": "closed"},
+            ("ct-ratio:M4:1.25",),
+            seed=27,
+        ),
         Scenario("frozen M5", "demo", nrm, ("frozen:M5",), n=14, seed=28),
         Scenario("noisy M2", "demo", nrm, ("noisy:M2:8",), seed=29),
-        Scenario("offline M6, exception M3", "demo", nrm, ("offline:M6", "exception:M3:4"), seed=30),
+        Scenario(
+            "offline M6, exception M3", "demo", nrm, ("offline:M6", "exception:M3:4"), seed=30
+        ),
         Scenario("slow M1 timeout", "demo", nrm, ("slow:M1:1.0",), n=8, seed=31),
-        Scenario("two faults", "demo", {**nrm, "RX": "closed"}, ("ct-reversed:M8:A", "vt-ratio:M2:0.9"), seed=32),
+        Scenario(
+            "two faults",
+            "demo",
+            {**nrm, "RX": "closed"},
+            ("ct-reversed:M8:A", "vt-ratio:M2:0.9"),
+            seed=32,
+        ),
         Scenario("short history", "demo", nrm, ("ct-reversed:M7:C",), n=10, seed=33, history=3),
         Scenario("partial decode M4", "demo", nrm, n=10, seed=41, edit="partial_decode"),
         Scenario("stale M8", "demo", nrm, n=10, seed=42, edit="stale"),
         Scenario("missing M2", "demo", nrm, n=10, seed=43, edit="missing"),
         Scenario("unknown TIE, no SW3", "demo", nrm, n=10, seed=44, edit="unknown_switch"),
         Scenario("overrides normal", "overrides", nrm, n=12, seed=51),
-        Scenario("overrides faults", "overrides", {**nrm, "TIE": "closed"}, ("ct-reversed:M3:B", "vt-ratio:M8:1.05"),
-                 n=12, seed=52),
+        Scenario(
+            "overrides faults",
+            "overrides",
+            {**nrm, "TIE": "closed"},
+            ("ct-reversed:M3:B", "vt-ratio:M8:1.05"),
+            n=12,
+            seed=52,
+        ),
         Scenario("synthetic normal", "synthetic", {}, n=16, seed=61),
         Scenario("synthetic ct reversed", "synthetic", {}, ("ct-reversed:X5:A",), n=10, seed=62),
-        Scenario("synthetic ct ratio and offline", "synthetic", {}, ("ct-ratio:X10:1.2", "offline:X20"), n=10, seed=63),
-        Scenario("synthetic swapped, frozen", "synthetic", {}, ("phases-swapped:X3:C-A", "frozen:X30"), n=12, seed=64),
+        Scenario(
+            "synthetic ct ratio and offline",
+            "synthetic",
+            {},
+            ("ct-ratio:X10:1.2", "offline:X20"),
+            n=10,
+            seed=63,
+        ),
+        Scenario(
+            "synthetic swapped, frozen",
+            "synthetic",
+            {},
+            ("phases-swapped:X3:C-A", "frozen:X30"),
+            n=12,
+            seed=64,
+        ),
     ]
     return out
 
 
 def _edit(name: str, snap: Snapshot) -> Snapshot:
     if name == "partial_decode":
-        return _partial(snap, "M4", ["p.B", "q.T", "v_ln.C", "i_ang.A"], Quality.DECODE, CommState.DEGRADED)
+        return _partial(
+            snap, "M4", ["p.B", "q.T", "v_ln.C", "i_ang.A"], Quality.DECODE, CommState.DEGRADED
+        )
     if name == "stale":
         return _partial(snap, "M8", ["s.A", "pf.T", "f.T"], Quality.STALE, CommState.DEGRADED)
     if name == "missing":
@@ -192,12 +272,21 @@ def series(prof: Profile, sc: Scenario) -> Iterator[tuple[Snapshot, list[Snapsho
     prev = None
     hist: list[Snapshot] = []
     for k in range(sc.n):
-        snap = snapshot_from_sim(prof, sc.switches, faults, rng, k, ideal=ideal, t_mono=100.0 + 0.2 * k,
-                                 previous=prev, time_utc=T0 + timedelta(seconds=0.2 * k))
+        snap = snapshot_from_sim(
+            prof,
+            sc.switches,
+            faults,
+            rng,
+            k,
+            ideal=ideal,
+            t_mono=100.0 + 0.2 * k,
+            previous=prev,
+            time_utc=T0 + timedelta(seconds=0.2 * k),
+        )
         prev = snap
         if k >= 6:
             snap = _edit(sc.edit, snap)
-        yield snap, hist[-sc.history:] if sc.history else []
+        yield snap, hist[-sc.history :] if sc.history else []
         hist.append(snap)
 
 
@@ -206,14 +295,18 @@ def row(r: CheckResult) -> list:
 
 
 def same_float(a: float, b: float) -> bool:
-    return (math.isnan(a) and math.isnan(b)) or (a == b and math.copysign(1.0, a) == math.copysign(1.0, b))
+    return (math.isnan(a) and math.isnan(b)) or (
+        a == b and math.copysign(1.0, a) == math.copysign(1.0, b)
+    )
 
 
 # ---------------------------------------------------------------- fixture
 
 
 @functools.cache
-def inputs() -> tuple[dict[str, Profile], tuple[tuple[Scenario, tuple[tuple[Snapshot, list[Snapshot]], ...]], ...]]:
+def inputs() -> tuple[
+    dict[str, Profile], tuple[tuple[Scenario, tuple[tuple[Snapshot, list[Snapshot]], ...]], ...]
+]:
     """Profiles and every scenario's (snapshot, history) pairs, made once per test session."""
     profs = profiles()
     return profs, tuple((sc, tuple(series(profs[sc.bench], sc))) for sc in scenarios(profs["demo"]))
@@ -239,21 +332,36 @@ def write(path: Path = FIXTURE) -> None:
     def sid(s: str) -> int:
         return strings.setdefault(s, len(strings))
 
-    enc = {name: [[sid(c), sid(s), sid(st), v, lim, sid(u), sid(m), sid(ca)] for c, s, st, v, lim, u, m, ca in rows]
-           for name, rows in cases.items()}
+    enc = {
+        name: [
+            [sid(c), sid(s), sid(st), v, lim, sid(u), sid(m), sid(ca)]
+            for c, s, st, v, lim, u, m, ca in rows
+        ]
+        for name, rows in cases.items()
+    }
     path.parent.mkdir(parents=True, exist_ok=True)
-    text = json.dumps({"fields": FIELDS, "strings": list(strings), "cases": enc}, separators=(",", ":"))
+    text = json.dumps(
+        {"fields": FIELDS, "strings": list(strings), "cases": enc}, separators=(",", ":")
+    )
     with gzip.GzipFile(path, "wb", mtime=0) as fh:  # mtime 0: the same content gives the same bytes
         fh.write(text.encode())
-    print(f"{path}: {len(cases)} snapshots, {sum(len(r) for r in cases.values())} results, {len(strings)} strings")
+    print(
+        f"{path}: {len(cases)} snapshots, {sum(len(r) for r in cases.values())} results, {len(strings)} strings"
+    )
 
 
 def read(path: Path = FIXTURE) -> dict[str, list[list]]:
     with gzip.open(path, "rt") as fh:
-        doc = json.load(fh)  # Python's json reads NaN/Infinity and round-trips floats exactly (repr)
+        doc = json.load(
+            fh
+        )  # Python's json reads NaN/Infinity and round-trips floats exactly (repr)
     s = doc["strings"]
-    return {name: [[s[c], s[su], s[st], v, lim, s[u], s[m], s[ca]] for c, su, st, v, lim, u, m, ca in rows]
-            for name, rows in doc["cases"].items()}
+    return {
+        name: [
+            [s[c], s[su], s[st], v, lim, s[u], s[m], s[ca]] for c, su, st, v, lim, u, m, ca in rows
+        ]
+        for name, rows in doc["cases"].items()
+    }
 
 
 def _diff(name: str, want: list[list], got: list[list]) -> str:
@@ -278,8 +386,18 @@ def test_fixture_covers_what_it_claims(golden):
     rows = [r for rs in golden.values() for r in rs]
     assert {r[2] for r in rows} == {"pass", "warn", "fail", "n/a"}
     causes = {r[7].split(":")[0] for r in rows}
-    assert {"ct_reversed", "phases_swapped", "vt_ratio", "ct_ratio", "frozen", "comm", "missing", "partial",
-            "stale", "imbalance"} <= causes
+    assert {
+        "ct_reversed",
+        "phases_swapped",
+        "vt_ratio",
+        "ct_ratio",
+        "frozen",
+        "comm",
+        "missing",
+        "partial",
+        "stale",
+        "imbalance",
+    } <= causes
     assert any(n.startswith("synthetic/") and len(r) == 572 for n, r in golden.items())
 
 
@@ -321,4 +439,6 @@ if __name__ == "__main__":
     if sys.argv[1:] == ["--write"]:
         write()
     else:
-        print("usage: python tests/test_checks_golden.py --write   (regenerates the golden fixture)")
+        print(
+            "usage: python tests/test_checks_golden.py --write   (regenerates the golden fixture)"
+        )

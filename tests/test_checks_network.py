@@ -33,8 +33,12 @@ def gum_bus():
 
 def test_gum_worked_bus_passes_with_the_published_budget(gum_bus):
     eng = CheckEngine(gum_bus)
-    blocks = [_feed(gum_bus, "IN", 10000.0, sign=-1.0), _feed(gum_bus, "F1", 4000.0), _feed(gum_bus, "F2", 3500.0),
-              _feed(gum_bus, "F3", 2450.0)]
+    blocks = [
+        _feed(gum_bus, "IN", 10000.0, sign=-1.0),
+        _feed(gum_bus, "F1", 4000.0),
+        _feed(gum_bus, "F2", 3500.0),
+        _feed(gum_bus, "F3", 2450.0),
+    ]
     res = eng.run(snapshot(blocks))
     r = _get(res, "network.p_balance", "B1")
     # residual 0.05 MW -> 50 W here; U(k=2) = 0.08888 MW -> 88.88 W (REFERENCES.md 3 [C])
@@ -46,8 +50,12 @@ def test_gum_worked_bus_passes_with_the_published_budget(gum_bus):
 
 def test_bus_imbalance_beyond_the_budget_fails(gum_bus):
     eng = CheckEngine(gum_bus)
-    blocks = [_feed(gum_bus, "IN", 10050.0, sign=-1.0), _feed(gum_bus, "F1", 4000.0), _feed(gum_bus, "F2", 3500.0),
-              _feed(gum_bus, "F3", 2450.0)]
+    blocks = [
+        _feed(gum_bus, "IN", 10050.0, sign=-1.0),
+        _feed(gum_bus, "F1", 4000.0),
+        _feed(gum_bus, "F2", 3500.0),
+        _feed(gum_bus, "F3", 2450.0),
+    ]
     r = _get(eng.run(snapshot(blocks)), "network.p_balance", "B1")
     assert r.status is Status.FAIL and r.value == pytest.approx(-100.0, abs=1e-6)
 
@@ -55,10 +63,14 @@ def test_bus_imbalance_beyond_the_budget_fails(gum_bus):
 def test_ct_ratio_error_is_traced_to_its_meter(gum_bus):
     eng = CheckEngine(gum_bus)
     # feeders with different power factors, so each one's power points its own way
-    blocks = [_feed(gum_bus, "F1", 4000.0, 25.0), _feed(gum_bus, "F2", 3500.0, 0.0, scale=1.1),
-              _feed(gum_bus, "F3", 2450.0, -30.0)]
+    blocks = [
+        _feed(gum_bus, "F1", 4000.0, 25.0),
+        _feed(gum_bus, "F2", 3500.0, 0.0, scale=1.1),
+        _feed(gum_bus, "F3", 2450.0, -30.0),
+    ]
     s_in = -sum(b.values["p.T"] + 1j * b.values["q.T"] for b in blocks) + (0.1 / 1.1) * (
-        blocks[1].values["p.T"] + 1j * blocks[1].values["q.T"])
+        blocks[1].values["p.T"] + 1j * blocks[1].values["q.T"]
+    )
     v = ph.phasor([230.0] * 3, [0.0, -120.0, 120.0])
     i_in = np.conj(s_in / 3.0 / v)
     blocks.append(block(gum_bus, "IN", v, i_in))
@@ -73,13 +85,18 @@ def test_ct_ratio_error_is_traced_to_its_meter(gum_bus):
 def test_open_switch_carrying_current_fails():
     prof = demo()
     eng = CheckEngine(prof)
-    sw = {s.id: s.normal for s in prof.switches}  # RX (reactor contactor, branch SH1) is normally open
+    sw = {
+        s.id: s.normal for s in prof.switches
+    }  # RX (reactor contactor, branch SH1) is normally open
     v, i = balanced(230.0, 4.0, 89.0)
     res = eng.run(snapshot([block(prof, "M6", v, i)], sw))
     r = _get(res, "network.open_switch", "RX")
     assert r.status is Status.FAIL and r.cause == "switch_status:RX" and "M6" in r.message
     v0, i0 = balanced(230.0, 0.0, 0.0)
-    assert _get(eng.run(snapshot([block(prof, "M6", v0, i0)], sw)), "network.open_switch", "RX").status is Status.PASS
+    assert (
+        _get(eng.run(snapshot([block(prof, "M6", v0, i0)], sw)), "network.open_switch", "RX").status
+        is Status.PASS
+    )
 
 
 def test_live_bus_without_voltage_and_dead_bus_with_voltage():
@@ -87,13 +104,20 @@ def test_live_bus_without_voltage_and_dead_bus_with_voltage():
     eng = CheckEngine(prof)
     sw = {s.id: s.normal for s in prof.switches}
     dead_v, dead_i = balanced(0.0, 0.0, 0.0)
-    r = _get(eng.run(snapshot([block(prof, "M5", dead_v, dead_i, f=0.0)], sw)), "network.energization", "B3")
+    r = _get(
+        eng.run(snapshot([block(prof, "M5", dead_v, dead_i, f=0.0)], sw)),
+        "network.energization",
+        "B3",
+    )
     assert r.status is Status.FAIL and r.cause == "energization:B3"
     sw_open = dict(sw, CB1="open")  # nothing is fed: every bus must be dead
     v, i = balanced(230.0, 5.0, 20.0)
     r = _get(eng.run(snapshot([block(prof, "M5", v, i)], sw_open)), "network.energization", "B3")
     assert r.status is Status.FAIL
-    assert _get(eng.run(snapshot([block(prof, "M5", v, i)], sw)), "network.energization", "B3").status is Status.PASS
+    assert (
+        _get(eng.run(snapshot([block(prof, "M5", v, i)], sw)), "network.energization", "B3").status
+        is Status.PASS
+    )
 
 
 def test_voltages_on_one_bus_agree_and_an_outlier_is_named():
@@ -105,4 +129,8 @@ def test_voltages_on_one_bus_agree_and_an_outlier_is_named():
     off = ok[:3] + [block(prof, "M8", v * 1.1, i)]
     res = eng.run(snapshot(off))
     r = _get(res, "network.v_agree", "B2")
-    assert r.status is Status.FAIL and "M8" in r.message and float(r.cause.split(":")[1]) == pytest.approx(1.1, rel=1e-3)
+    assert (
+        r.status is Status.FAIL
+        and "M8" in r.message
+        and float(r.cause.split(":")[1]) == pytest.approx(1.1, rel=1e-3)
+    )

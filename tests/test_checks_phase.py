@@ -31,7 +31,9 @@ def _wiring(engine, meter, v, i):
     return _get(engine.run(snapshot([block(engine.profile, meter, v, i)])), "phase.wiring", meter)
 
 
-@pytest.mark.parametrize("meter", ["M1", "M3", "M5"])  # float map with angles; two integer maps without
+@pytest.mark.parametrize(
+    "meter", ["M1", "M3", "M5"]
+)  # float map with angles; two integer maps without
 @pytest.mark.parametrize("phase", [0, 1, 2])
 def test_reversed_ct_is_named_with_its_phase(engine, meter, phase):
     v, i = balanced(230.0, 15.0, 20.0)
@@ -67,7 +69,9 @@ def test_load_that_delivers_power_means_all_cts_reversed(engine):
 
 def test_voltage_current_phase_mismatch_on_a_load(engine):
     v, i = balanced(230.0, 10.0, 20.0)
-    r = _wiring(engine, "M8", v[[1, 2, 0]], i)  # voltage terminals shifted one phase against the CTs
+    r = _wiring(
+        engine, "M8", v[[1, 2, 0]], i
+    )  # voltage terminals shifted one phase against the CTs
     assert r.status is Status.FAIL and r.cause.startswith("vi_mismatch:")
 
 
@@ -84,10 +88,14 @@ def test_voltage_unbalance_from_magnitudes_only(engine):
     # LVUR 1.96 % (REFERENCES.md 1 [C])
     k = 400.0 / 459.0
     v, i = balanced(230.94, 10.0, 20.0)
-    blk = block(engine.profile, "M3", v, i, **{"v_ll.AB": 460 * k, "v_ll.BC": 467 * k, "v_ll.CA": 450 * k})
+    blk = block(
+        engine.profile, "M3", v, i, **{"v_ll.AB": 460 * k, "v_ll.BC": 467 * k, "v_ll.CA": 450 * k}
+    )
     r = _get(engine.run(snapshot([blk])), "phase.v_unbalance", "M3")
     assert r.value == pytest.approx(2.1465, abs=1e-3)
-    assert r.status is Status.WARN  # above CheckSettings.unbalance_warn_pct = 2 (IEC 61000-2-2 level 2 % [M])
+    assert (
+        r.status is Status.WARN
+    )  # above CheckSettings.unbalance_warn_pct = 2 (IEC 61000-2-2 level 2 % [M])
     assert "LVUR 1.96" in r.message and "magnitudes" in r.message
 
 
@@ -131,8 +139,13 @@ def _norm(cause: str) -> str:
 
 
 @settings(max_examples=40, deadline=None)
-@given(perm=st.sampled_from(_CYCLIC), fault=st.sampled_from(_FAULTS), phi=st.floats(-45.0, 45.0),
-       i_mag=st.lists(st.floats(8.0, 20.0), min_size=3, max_size=3), meter=st.sampled_from(["M1", "M3", "M8"]))
+@given(
+    perm=st.sampled_from(_CYCLIC),
+    fault=st.sampled_from(_FAULTS),
+    phi=st.floats(-45.0, 45.0),
+    i_mag=st.lists(st.floats(8.0, 20.0), min_size=3, max_size=3),
+    meter=st.sampled_from(["M1", "M3", "M8"]),
+)
 def test_relabelling_phases_changes_only_the_names(engine, perm, fault, phi, i_mag, meter):
     # relabelling A-B-C cyclically keeps the positive sequence (DEVELOPERS.md convention), so every
     # status must stay and every phase named in a cause must follow the relabelling

@@ -32,8 +32,13 @@ def test_missing_failing_and_partial_meters(engine):
     assert _get(res, "quality.comm", "M1").status is Status.PASS
     assert _get(res, "quality.comm", "M2").cause == "missing"
     keys = list(good.values)
-    dead = MeterBlock("M1", dict.fromkeys(keys, float("nan")), dict.fromkeys(keys, Quality.TIMEOUT), CommState.FAILING,
-                      error="M1: no answer within 0.5 s")
+    dead = MeterBlock(
+        "M1",
+        dict.fromkeys(keys, float("nan")),
+        dict.fromkeys(keys, Quality.TIMEOUT),
+        CommState.FAILING,
+        error="M1: no answer within 0.5 s",
+    )
     r = _get(engine.run(snapshot([dead])), "quality.comm", "M1")
     assert r.status is Status.FAIL and "no answer" in r.message
     q = dict(good.quality)
@@ -47,10 +52,14 @@ def test_missing_failing_and_partial_meters(engine):
 
 def test_out_of_range_values(engine):
     prof = engine.profile
-    v, i = balanced(230.94 * 1.2, 10.0, 20.0)  # 20 % over the 400 V zone; CheckSettings.voltage_band = 0.15
+    v, i = balanced(
+        230.94 * 1.2, 10.0, 20.0
+    )  # 20 % over the 400 V zone; CheckSettings.voltage_band = 0.15
     r = _get(engine.run(snapshot([block(prof, "M1", v, i)])), "quality.v_range", "M1")
     assert r.status is Status.FAIL and r.value == pytest.approx(20.0, abs=0.01)
-    v, i = balanced(230.94, 100.0, 20.0)  # M1 CT rated 80 A: 125 %, beyond the 120 % extended rating
+    v, i = balanced(
+        230.94, 100.0, 20.0
+    )  # M1 CT rated 80 A: 125 %, beyond the 120 % extended rating
     r = _get(engine.run(snapshot([block(prof, "M1", v, i)])), "quality.i_range", "M1")
     assert r.status is Status.FAIL and r.value == pytest.approx(125.0)
 
@@ -61,7 +70,9 @@ def _series(prof, faults, n, seed=5):
     rng = np.random.default_rng(seed)
     out, prev = [], None
     for k in range(n):
-        prev = snapshot_from_sim(prof, sw, faults, rng, k, ideal=ideal, t_mono=0.2 * k, previous=prev)
+        prev = snapshot_from_sim(
+            prof, sw, faults, rng, k, ideal=ideal, t_mono=0.2 * k, previous=prev
+        )
         out.append(prev)
     return out
 
@@ -74,7 +85,9 @@ def test_frozen_meter_is_found_only_with_enough_history(engine):
     assert _get(short, "quality.frozen", "M2").status is Status.NA
     res = engine.run(snaps[-1], snaps[:-1])
     assert _get(res, "quality.frozen", "M2").status is Status.FAIL
-    assert _get(res, "quality.frozen", "M1").status is Status.PASS  # a healthy meter moves in its last digits
+    assert (
+        _get(res, "quality.frozen", "M1").status is Status.PASS
+    )  # a healthy meter moves in its last digits
 
 
 def test_noisy_meter(engine):

@@ -23,7 +23,9 @@ def test_first_order_decay_settles_when_the_window_spread_drops_below_the_criter
     det = SettleDetector(prof, crit)
     tau, d, dt = 0.8, 0.5, 0.05
     det.restart(0.0)
-    t_expected = crit.window_s + tau * math.log(d * (1 - math.exp(-crit.window_s / tau)) / crit.rel_spread)
+    t_expected = crit.window_s + tau * math.log(
+        d * (1 - math.exp(-crit.window_s / tau)) / crit.rel_spread
+    )
     seen = None
     for k in range(400):
         t = k * dt
@@ -55,7 +57,9 @@ def test_simulated_switching_transient():
     prof = demo()
     now = [0.0]
     bench = SimulatedBench(prof, seed=11, clock=lambda: now[0])
-    det = SettleDetector(prof, prof.steps[0].capture.settle if prof.steps and prof.steps[0].capture else None)
+    det = SettleDetector(
+        prof, prof.steps[0].capture.settle if prof.steps and prof.steps[0].capture else None
+    )
     prev = None
     steady_flags = []
     for k in range(25):

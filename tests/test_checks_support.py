@@ -39,7 +39,9 @@ def values(v: np.ndarray, i: np.ndarray, vector: bool, f: float = 50.0) -> dict[
         out[f"p.{p}"], out[f"q.{p}"], out[f"s.{p}"] = s[k].real, s[k].imag, abs(s[k])
         out[f"pf.{p}"] = s[k].real / abs(s[k]) if abs(s[k]) > 0 else 0.0
         out[f"v_ang.{p}"] = float(ph.wrap_deg(math.degrees(np.angle(v[k]) - ref)))
-        out[f"i_ang.{p}"] = float(ph.wrap_deg(math.degrees(np.angle(i[k]) - ref))) if abs(i[k]) > 0 else 0.0
+        out[f"i_ang.{p}"] = (
+            float(ph.wrap_deg(math.degrees(np.angle(i[k]) - ref))) if abs(i[k]) > 0 else 0.0
+        )
     for pair, (a, b) in (("AB", (0, 1)), ("BC", (1, 2)), ("CA", (2, 0))):
         out[f"v_ll.{pair}"] = abs(v[a] - v[b])
     out["i.N"] = abs(i.sum())
@@ -51,20 +53,33 @@ def values(v: np.ndarray, i: np.ndarray, vector: bool, f: float = 50.0) -> dict[
     return out
 
 
-def balanced(v_ln: float = 230.0, i: float = 10.0, phi_deg: float = 20.0, rot: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+def balanced(
+    v_ln: float = 230.0, i: float = 10.0, phi_deg: float = 20.0, rot: float = 0.0
+) -> tuple[np.ndarray, np.ndarray]:
     ang = np.array([0.0, -120.0, 120.0]) + rot
     return ph.phasor([v_ln] * 3, ang), ph.phasor([i] * 3, ang - phi_deg)
 
 
-def block(profile: Profile, meter_id: str, v: np.ndarray, i: np.ndarray, f: float = 50.0, **override: float) -> MeterBlock:
+def block(
+    profile: Profile,
+    meter_id: str,
+    v: np.ndarray,
+    i: np.ndarray,
+    f: float = 50.0,
+    **override: float,
+) -> MeterBlock:
     rmap = profile.meter_map(meter_id)
     vals = values(v, i, rmap.apparent_power == "vector", f)
     vals.update(override)
     keys = [r.key for r in rmap.registers]
-    return MeterBlock(meter_id, {k: float(vals[k]) for k in keys}, dict.fromkeys(keys, Quality.OK), CommState.OK)
+    return MeterBlock(
+        meter_id, {k: float(vals[k]) for k in keys}, dict.fromkeys(keys, Quality.OK), CommState.OK
+    )
 
 
-def snapshot(blocks: list[MeterBlock], switches: dict[str, str] | None = None, seq: int = 1, t: float = 0.0) -> Snapshot:
+def snapshot(
+    blocks: list[MeterBlock], switches: dict[str, str] | None = None, seq: int = 1, t: float = 0.0
+) -> Snapshot:
     return Snapshot(seq, T0, t, {b.meter: b for b in blocks}, switches or {})
 
 
@@ -73,13 +88,43 @@ def one_bus_profile(base: Profile, feeders: list[tuple[str, str]], ct_a: float =
     zone = base.buses[0].zone
     buses = (Bus("B0", zone), Bus("B1", zone))
     branches = [Branch("SRC", "source", "B0"), Branch("L0", "line", "B0", "B1")]
-    meters = [Meter("IN", "incomer", TcpTransport("127.0.0.1", 1), 1, "lumen-f32", "B1", "L0", ct_primary_a=ct_a,
-                    classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"))]
+    meters = [
+        Meter(
+            "IN",
+            "incomer",
+            TcpTransport("127.0.0.1", 1),
+            1,
+            "lumen-f32",
+            "B1",
+            "L0",
+            ct_primary_a=ct_a,
+            classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"),
+        )
+    ]
     for mid, cls in feeders:
         branches.append(Branch(f"F{mid}", "load", "B1"))
-        meters.append(Meter(mid, mid, TcpTransport("127.0.0.1", 1), 1, "lumen-f32", "B1", f"F{mid}", ct_primary_a=ct_a,
-                            classes=AccuracyClasses(cls, "2", "0.5", "0.5")))
-    return dataclasses.replace(base, meters=tuple(meters), buses=buses, branches=tuple(branches), switches=(), plcs=(), steps=())
+        meters.append(
+            Meter(
+                mid,
+                mid,
+                TcpTransport("127.0.0.1", 1),
+                1,
+                "lumen-f32",
+                "B1",
+                f"F{mid}",
+                ct_primary_a=ct_a,
+                classes=AccuracyClasses(cls, "2", "0.5", "0.5"),
+            )
+        )
+    return dataclasses.replace(
+        base,
+        meters=tuple(meters),
+        buses=buses,
+        branches=tuple(branches),
+        switches=(),
+        plcs=(),
+        steps=(),
+    )
 
 
 def test_values_follow_the_definitions():

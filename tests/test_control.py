@@ -28,8 +28,13 @@ def _profile(port: int, enabled: bool = True, verify_s: float = 1.0):
         switch("NOCOIL", "PLC1", 5, operation="remote"),
         switch("BLIND", "PLC1", None, command_coil=6, operation="remote"),
     ]
-    return make_profile([], [], plcs=[plc("PLC1", port)], switches=sws,
-                        control=Control(enabled=enabled, verify_timeout_s=verify_s))
+    return make_profile(
+        [],
+        [],
+        plcs=[plc("PLC1", port)],
+        switches=sws,
+        control=Control(enabled=enabled, verify_timeout_s=verify_s),
+    )
 
 
 async def _run(srv: MeterServer, prof, coro_fn):
@@ -45,37 +50,46 @@ async def _run(srv: MeterServer, prof, coro_fn):
 
 async def test_control_disabled_refuses_and_writes_nothing():
     async with MeterServer(follow={3: 0}) as srv:
+
         async def go(ctl):
             with pytest.raises(ControlRefused, match="control is disabled"):
                 await ctl.operate("CB1", "closed", confirmed_by="A. Tech")
+
         await _run(srv, _profile(srv.port, enabled=False), go)
         assert srv.writes == []
         assert await srv.get_bits(1, "coil", 3) == [False]
 
 
-@pytest.mark.parametrize("switch_id,state,who,why", [
-    ("SW3", "open", "A. Tech", "operated by hand"),
-    ("NOCOIL", "open", "A. Tech", "no PLC command coil"),
-    ("BLIND", "open", "A. Tech", "no status point"),
-    ("CB1", "open", "", "confirming technician"),
-    ("CB1", "open", "   ", "confirming technician"),
-    ("CB1", "half", "A. Tech", "cannot command state"),
-    ("NOPE", "open", "A. Tech", "no such switch"),
-])
+@pytest.mark.parametrize(
+    "switch_id,state,who,why",
+    [
+        ("SW3", "open", "A. Tech", "operated by hand"),
+        ("NOCOIL", "open", "A. Tech", "no PLC command coil"),
+        ("BLIND", "open", "A. Tech", "no status point"),
+        ("CB1", "open", "", "confirming technician"),
+        ("CB1", "open", "   ", "confirming technician"),
+        ("CB1", "half", "A. Tech", "cannot command state"),
+        ("NOPE", "open", "A. Tech", "no such switch"),
+    ],
+)
 async def test_guards_refuse_with_a_clear_sentence(switch_id, state, who, why):
     async with MeterServer() as srv:
+
         async def go(ctl):
             with pytest.raises(ControlRefused, match=why) as info:
                 await ctl.operate(switch_id, state, confirmed_by=who)
             assert "\n" not in str(info.value) and isinstance(info.value, BenchwalkError)
+
         await _run(srv, _profile(srv.port), go)
         assert srv.writes == []
 
 
 async def test_allowed_command_writes_exactly_one_coil_and_verifies_status():
     async with MeterServer(follow={3: 0}, follow_delay_s=0.1) as srv:
+
         async def go(ctl):
             return await ctl.operate("CB1", "closed", confirmed_by="A. Tech")
+
         result = await _run(srv, _profile(srv.port), go)
         assert srv.writes == [Write(unit=1, function_code=5, address=3, values=[True])]
     assert result.ok and result.final_status == "closed" and result.intended == "closed"
@@ -87,7 +101,9 @@ async def test_open_command_writes_false():
     async with MeterServer(follow={3: 0}) as srv:
         await srv.set_bits(1, "discrete", 0, [True])
         await srv.set_bits(1, "coil", 3, [True])
-        result = await _run(srv, _profile(srv.port), lambda ctl: ctl.operate("CB1", "open", confirmed_by="B"))
+        result = await _run(
+            srv, _profile(srv.port), lambda ctl: ctl.operate("CB1", "open", confirmed_by="B")
+        )
         assert srv.writes == [Write(unit=1, function_code=5, address=3, values=[False])]
     assert result.ok and result.final_status == "open"
 
@@ -95,8 +111,11 @@ async def test_open_command_writes_false():
 async def test_status_not_following_reports_failure_after_timeout():
     async with MeterServer(follow={}) as srv:  # the breaker never moves
         t0 = time.monotonic()
-        result = await _run(srv, _profile(srv.port, verify_s=0.3),
-                            lambda ctl: ctl.operate("CB1", "closed", confirmed_by="A. Tech"))
+        result = await _run(
+            srv,
+            _profile(srv.port, verify_s=0.3),
+            lambda ctl: ctl.operate("CB1", "closed", confirmed_by="A. Tech"),
+        )
         assert len(srv.writes) == 1 and srv.writes[0].address == 3
     assert not result.ok and result.final_status == "open"
     assert "still reads open after 0.3 s" in result.message
@@ -105,6 +124,7 @@ async def test_status_not_following_reports_failure_after_timeout():
 
 async def test_unreachable_plc_is_a_one_line_error_not_a_write():
     from modbus_helpers import free_port
+
     prof = _profile(free_port())
     poller = Poller(prof)
     try:

@@ -32,7 +32,9 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_journal import KEYS, make_bench, make_snapshot  # noqa: E402
 
 
-def build_session(folder: Path, *, n_snapshots: int = 12, n_meters: int = 3, name: str = "s") -> Path:
+def build_session(
+    folder: Path, *, n_snapshots: int = 12, n_meters: int = 3, name: str = "s"
+) -> Path:
     """A small invented session: two steps, one meter timing out once, checks and events."""
     profile = make_bench(folder / "profile", n_meters=n_meters)
     meters = [m.id for m in profile.meters]
@@ -43,17 +45,47 @@ def build_session(folder: Path, *, n_snapshots: int = 12, n_meters: int = 3, nam
     for i in range(n_snapshots):
         step = "S1" if i < n_snapshots // 2 else "S2"
         role = "settling" if i % 3 == 0 else "capture"
-        rid = j.record_snapshot(make_snapshot(i, meters, rng, bad="M2" if i == 4 else None), step_id=step, role=role)
+        rid = j.record_snapshot(
+            make_snapshot(i, meters, rng, bad="M2" if i == 4 else None), step_id=step, role=role
+        )
         if role == "capture":
-            j.record_checks(rid, step, [
-                CheckResult("bus.p_balance", "B1", Status.FAIL if step == "S2" else Status.PASS, 12.5 + i, 10.0, "W",
-                            "P into B1 does not balance P out: check the CT of M1" if step == "S2" else ""),
-                CheckResult("meter.freq", "M1", Status.NA, message="no frequency register"),
-            ])
+            j.record_checks(
+                rid,
+                step,
+                [
+                    CheckResult(
+                        "bus.p_balance",
+                        "B1",
+                        Status.FAIL if step == "S2" else Status.PASS,
+                        12.5 + i,
+                        10.0,
+                        "W",
+                        "P into B1 does not balance P out: check the CT of M1"
+                        if step == "S2"
+                        else "",
+                    ),
+                    CheckResult("meter.freq", "M1", Status.NA, message="no frequency register"),
+                ],
+            )
         if i == n_snapshots // 2 - 1:
-            j.record_step("S1", "accepted", outcome="pass", operator="ana", settle_s=1.25, actual_switches={"CB1": "closed"})
-            j.record_event("operate", "CB1 opened by hand", step_id="S2", operator="ana", data={"switch": "CB1"})
-    j.record_step("S2", "accepted", outcome="fail", operator="ana", reason="CT of M1 replaced after the test")
+            j.record_step(
+                "S1",
+                "accepted",
+                outcome="pass",
+                operator="ana",
+                settle_s=1.25,
+                actual_switches={"CB1": "closed"},
+            )
+            j.record_event(
+                "operate",
+                "CB1 opened by hand",
+                step_id="S2",
+                operator="ana",
+                data={"switch": "CB1"},
+            )
+    j.record_step(
+        "S2", "accepted", outcome="fail", operator="ana", reason="CT of M1 replaced after the test"
+    )
     j.close()
     return path
 
@@ -76,11 +108,18 @@ def test_package_validates_with_frictionless(exported: tuple[Path, Path]) -> Non
     assert {r["name"] for r in pkg["resources"]} == set(TABLES)
     meas = next(r for r in pkg["resources"] if r["name"] == "measurements")
     units = {f["name"]: f.get("unit") for f in meas["schema"]["fields"]}
-    assert units["value_pu"] == "pu" and meas["schema"]["primaryKey"] == ["snapshot", "meter", "quantity", "phase"]
+    assert units["value_pu"] == "pu" and meas["schema"]["primaryKey"] == [
+        "snapshot",
+        "meter",
+        "quantity",
+        "phase",
+    ]
     assert pkg["benchwalk"]["session"] == "s" and len(pkg["benchwalk"]["profile_sha256"]) == 64
 
 
-def test_a_broken_table_fails_frictionless_validation(exported: tuple[Path, Path], tmp_path: Path) -> None:
+def test_a_broken_table_fails_frictionless_validation(
+    exported: tuple[Path, Path], tmp_path: Path
+) -> None:
     """The validation above can fail: a bad number in a CSV cell is reported."""
     _, ds = exported
     copy = tmp_path / "copy"
@@ -107,16 +146,24 @@ def test_tables_read_back_equal_the_journal(exported: tuple[Path, Path]) -> None
             for k, v in block.values.items():
                 q, ph = k.split(".")
                 expected.append((rid, m, q, ph, v, str(block.quality[k])))
-    exp = pd.DataFrame(expected, columns=["snapshot", "meter", "quantity", "phase", "value", "quality"])
+    exp = pd.DataFrame(
+        expected, columns=["snapshot", "meter", "quantity", "phase", "value", "quality"]
+    )
     from_pq = pd.read_parquet(ds / "data" / "measurements.parquet")
-    from_csv = pd.read_csv(ds / "data" / "measurements.csv", float_precision="round_trip", keep_default_na=False,
-                           na_values=[""])
+    from_csv = pd.read_csv(
+        ds / "data" / "measurements.csv",
+        float_precision="round_trip",
+        keep_default_na=False,
+        na_values=[""],
+    )
     for got in (from_pq, from_csv):
         assert len(got) == len(exp) == 12 * 3 * len(KEYS)
         for col in ("snapshot", "meter", "quantity", "phase", "quality"):
             assert got[col].astype(str).tolist() == exp[col].astype(str).tolist()
         a, b = got["value"].to_numpy(float), exp["value"].to_numpy(float)
-        assert np.array_equal(np.isnan(a), np.isnan(b)) and np.array_equal(a[~np.isnan(a)], b[~np.isnan(b)])  # exact
+        assert np.array_equal(np.isnan(a), np.isnan(b)) and np.array_equal(
+            a[~np.isnan(a)], b[~np.isnan(b)]
+        )  # exact
     assert exp["quality"].eq("timeout").sum() == len(KEYS)  # meter M2 in snapshot 4
     # time column: Parquet timestamps and CSV text agree with the journal
     snaps = pd.read_parquet(ds / "data" / "snapshots.parquet")
@@ -142,13 +189,22 @@ def test_network_and_per_unit_values(exported: tuple[Path, Path]) -> None:
     assert vll["value_pu"] == pytest.approx(vll["value"] / 400, rel=1e-12)
     i = one("i", "B")
     assert i["value_network"] == pytest.approx(i["value"] * 100 / (11000 / 400), rel=1e-12)
-    assert i["value_pu"] == pytest.approx(i["value"] / 43.30127018922193, rel=1e-12)  # 30000/(sqrt3*400)
+    assert i["value_pu"] == pytest.approx(
+        i["value"] / 43.30127018922193, rel=1e-12
+    )  # 30000/(sqrt3*400)
     p = one("p", "T")
-    assert p["value_network"] == pytest.approx(p["value"] * 100) and p["value_pu"] == pytest.approx(p["value"] / 30000)
+    assert p["value_network"] == pytest.approx(p["value"] * 100) and p["value_pu"] == pytest.approx(
+        p["value"] / 30000
+    )
     pa_ = one("p", "A")
     assert pa_["value_pu"] == pytest.approx(pa_["value"] / 10000)
     f = one("f", "T")
-    assert math.isnan(f["value_pu"]) and f["value_network"] == f["value"] and f["mmxu"] == "Hz" and f["unit"] == "Hz"
+    assert (
+        math.isnan(f["value_pu"])
+        and f["value_network"] == f["value"]
+        and f["mmxu"] == "Hz"
+        and f["unit"] == "Hz"
+    )
     assert one("v_ll", "BC")["mmxu"] == "PPV" and one("q", "T")["unit"] == "var"
 
 
@@ -157,14 +213,22 @@ def test_steps_checks_meters_events(exported: tuple[Path, Path]) -> None:
     d = load_dataset(ds)
     steps = d["steps"].set_index("id")
     assert steps.loc["S1", "state"] == "accepted" and steps.loc["S1", "settle_s"] == 1.25
-    assert steps.loc["S1", "actual_switches"] == "CB1=closed" and steps.loc["S2", "expected_switches"] == "CB1=open"
+    assert (
+        steps.loc["S1", "actual_switches"] == "CB1=closed"
+        and steps.loc["S2", "expected_switches"] == "CB1=open"
+    )
     assert steps.loc["S2", "reason"] == "CT of M1 replaced after the test"
     conn = Journal.open(journal_path)._conn
     n_checks = conn.execute("SELECT count(*) FROM check_result").fetchone()[0]
     assert len(d["checks"]) == n_checks == 2 * 8
     fail = d["checks"][d["checks"]["status"] == "fail"].iloc[0]
     assert fail["residual"] == pytest.approx(abs(fail["value"]) / 10.0)
-    assert d["meters"].set_index("id").loc["M1", "sign_convention"].startswith("positive P and Q = power flowing from bus B1")
+    assert (
+        d["meters"]
+        .set_index("id")
+        .loc["M1", "sign_convention"]
+        .startswith("positive P and Q = power flowing from bus B1")
+    )
     assert d["meters"]["endpoint"].iloc[0] == "tcp://127.0.0.1:15001"
     topo = d["topology"]
     assert set(topo["element"]) == {"bus", "branch", "switch"} and (topo["id"] == "CB1").any()
@@ -173,7 +237,9 @@ def test_steps_checks_meters_events(exported: tuple[Path, Path]) -> None:
     assert (ds / "profile" / "plover.sequence.toml").is_file()
 
 
-def test_export_refuses_to_overwrite_and_replaces_with_flag(exported: tuple[Path, Path], tmp_path: Path) -> None:
+def test_export_refuses_to_overwrite_and_replaces_with_flag(
+    exported: tuple[Path, Path], tmp_path: Path
+) -> None:
     journal_path, _ = exported
     out = export_session(journal_path, tmp_path / "out")
     marker = out / "note.txt"
@@ -206,8 +272,12 @@ def test_failed_export_leaves_no_partial_folder(tmp_path: Path) -> None:
     journal = build_session(tmp_path, n_snapshots=60, n_meters=4)
     out = tmp_path / "exports" / "ds"
     out.parent.mkdir()
-    proc = subprocess.run([sys.executable, "-c", CHILD.format(journal=str(journal), out=str(out))],
-                          capture_output=True, text=True, timeout=60)
+    proc = subprocess.run(
+        [sys.executable, "-c", CHILD.format(journal=str(journal), out=str(out))],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
     assert proc.returncode == 2, proc.stderr
     assert "File too large" in proc.stderr and "Traceback" not in proc.stderr
     assert list(out.parent.iterdir()) == []
@@ -236,7 +306,9 @@ def test_hive_collection_reads_as_one_table_in_duckdb(tmp_path: Path) -> None:
     assert rows[0][3] == pytest.approx(direct[0]["value"].sum(), rel=1e-12)
     # re-adding a session replaces its partition, it does not duplicate it
     write_collection([a], coll)
-    n = duckdb.sql(f"SELECT count(*) FROM read_parquet('{glob}', hive_partitioning=true)").fetchall()[0][0]
+    n = duckdb.sql(
+        f"SELECT count(*) FROM read_parquet('{glob}', hive_partitioning=true)"
+    ).fetchall()[0][0]
     assert n == len(direct[0]) + len(direct[1])
 
 
@@ -267,15 +339,22 @@ def _damage(folder: Path, rel: str, how: str, pos: float) -> None:
         p.write_bytes(data[: int(len(data) * pos)])
     elif how == "flip":
         i = min(len(data) - 1, int(len(data) * pos))
-        p.write_bytes(data[:i] + bytes([data[i] ^ 0x5A]) + data[i + 1:])
+        p.write_bytes(data[:i] + bytes([data[i] ^ 0x5A]) + data[i + 1 :])
     elif how == "garbage":
         p.write_bytes(b"\x00\xffnot what it should be" * 3)
 
 
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(rel=st.sampled_from(FILES), how=st.sampled_from(["delete", "truncate", "flip", "garbage"]),
-       pos=st.floats(0.0, 0.999))
-def test_damaged_dataset_gives_benchwalk_error(exported: tuple[Path, Path], tmp_path_factory, rel, how, pos) -> None:
+@settings(
+    max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(
+    rel=st.sampled_from(FILES),
+    how=st.sampled_from(["delete", "truncate", "flip", "garbage"]),
+    pos=st.floats(0.0, 0.999),
+)
+def test_damaged_dataset_gives_benchwalk_error(
+    exported: tuple[Path, Path], tmp_path_factory, rel, how, pos
+) -> None:
     _, ds = exported
     copy = tmp_path_factory.mktemp("damaged") / "ds"
     shutil.copytree(ds, copy)
@@ -294,7 +373,9 @@ def test_damaged_dataset_gives_benchwalk_error(exported: tuple[Path, Path], tmp_
         pd.testing.assert_frame_equal(got[name], original[name])
 
 
-def test_not_a_dataset_and_cli_exit_codes(exported: tuple[Path, Path], tmp_path: Path, capsys) -> None:
+def test_not_a_dataset_and_cli_exit_codes(
+    exported: tuple[Path, Path], tmp_path: Path, capsys
+) -> None:
     with pytest.raises(BenchwalkError, match="no such dataset folder"):
         load_dataset(tmp_path / "nope")
     (tmp_path / "empty").mkdir()
@@ -304,20 +385,34 @@ def test_not_a_dataset_and_cli_exit_codes(exported: tuple[Path, Path], tmp_path:
     copy = tmp_path / "copy"
     shutil.copytree(ds, copy)
     (copy / "data" / "measurements.parquet").write_bytes(b"PAR1 nonsense")
-    for cmd in (["check", str(copy)], ["report", str(copy)], ["export", str(tmp_path / "missing.sqlite")]):
+    for cmd in (
+        ["check", str(copy)],
+        ["report", str(copy)],
+        ["export", str(tmp_path / "missing.sqlite")],
+    ):
         capsys.readouterr()
         assert cli.main(cmd) == 2
         err = capsys.readouterr().err
-        assert err.startswith(f"benchwalk {cmd[0]}: ") and err.count("\n") == 1 and "Traceback" not in err
+        assert (
+            err.startswith(f"benchwalk {cmd[0]}: ")
+            and err.count("\n") == 1
+            and "Traceback" not in err
+        )
 
 
 def test_cli_export_in_a_real_process(exported: tuple[Path, Path], tmp_path: Path) -> None:
     journal, _ = exported
     out = tmp_path / "cli-ds"
-    run = lambda *a: subprocess.run([sys.executable, "-m", "meas.cli", *a], capture_output=True, text=True, timeout=60)  # noqa: E731
+    run = lambda *a: subprocess.run(
+        [sys.executable, "-m", "meas.cli", *a], capture_output=True, text=True, timeout=60
+    )  # noqa: E731
     first = run("export", str(journal), "--out", str(out))
     assert first.returncode == 0, first.stderr
     assert f"dataset written: {out}" in first.stdout
     again = run("export", str(journal), "--out", str(out))
-    assert again.returncode == 2 and "already exists" in again.stderr and "Traceback" not in again.stderr
+    assert (
+        again.returncode == 2
+        and "already exists" in again.stderr
+        and "Traceback" not in again.stderr
+    )
     assert pq.read_metadata(out / "data" / "measurements.parquet").num_rows == 12 * 3 * len(KEYS)

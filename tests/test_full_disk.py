@@ -37,10 +37,15 @@ ROOT = Path(__file__).resolve().parents[1]
 @contextlib.contextmanager
 def tmpfs(folder: Path, size: str):
     if os.geteuid() != 0:
-        pytest.skip("mounting a tmpfs needs root; run the suite as root to prove full-disk handling")
+        pytest.skip(
+            "mounting a tmpfs needs root; run the suite as root to prove full-disk handling"
+        )
     folder.mkdir(parents=True, exist_ok=True)
-    r = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(folder)],
-                       capture_output=True, text=True)
+    r = subprocess.run(
+        ["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(folder)],
+        capture_output=True,
+        text=True,
+    )
     if r.returncode != 0:
         pytest.skip(f"cannot mount a tmpfs here ({r.stderr.strip() or r.returncode})")
     try:
@@ -50,7 +55,9 @@ def tmpfs(folder: Path, size: str):
 
 
 def remount(folder: Path, size: str) -> None:
-    subprocess.run(["mount", "-o", f"remount,size={size}", str(folder)], check=True, capture_output=True)
+    subprocess.run(
+        ["mount", "-o", f"remount,size={size}", str(folder)], check=True, capture_output=True
+    )
 
 
 def fill(folder: Path, leave_bytes: int) -> Path:
@@ -96,7 +103,9 @@ def test_journal_fills_the_disk_keeps_what_it_saved_and_goes_on_after_space_is_f
 
         (disk / "filler").unlink()  # space freed: the same session records again
         with Journal.open(path) as again:
-            row = again.record_snapshot(make_snapshot(10**6, meters, rng), step_id="S1", role="capture")
+            row = again.record_snapshot(
+                make_snapshot(10**6, meters, rng), step_id="S1", role="capture"
+            )
             assert row == max(saved) + 1 and again.snapshot_count() == len(saved) + 1
 
 
@@ -123,17 +132,44 @@ def test_demo_on_a_full_disk_stops_with_one_line_and_resumes_after_space_is_free
     with tmpfs(tmp_path / "disk", "3m") as disk:
         sessions = disk / "sessions"
         sessions.mkdir()
-        run = lambda *a: subprocess.run([sys.executable, "-m", "meas.cli", *a], capture_output=True,  # noqa: E731
-                                        text=True, timeout=120, cwd=ROOT)
+        run = lambda *a: subprocess.run(
+            [sys.executable, "-m", "meas.cli", *a],
+            capture_output=True,  # noqa: E731
+            text=True,
+            timeout=120,
+            cwd=ROOT,
+        )
         proc = subprocess.Popen(
-            [sys.executable, "-m", "meas.cli", "demo", "--headless", "--profile", str(profile), "--sessions",
-             str(sessions), "--out", str(tmp_path / "out"), "--log-saved", "--seed", "2"],
-            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+            [
+                sys.executable,
+                "-m",
+                "meas.cli",
+                "demo",
+                "--headless",
+                "--profile",
+                str(profile),
+                "--sessions",
+                str(sessions),
+                "--out",
+                str(tmp_path / "out"),
+                "--log-saved",
+                "--seed",
+                "2",
+            ],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+            cwd=ROOT,
+        )
         out_lines: list[str] = []
-        reader = threading.Thread(target=lambda: out_lines.extend(iter(proc.stdout.readline, "")), daemon=True)
+        reader = threading.Thread(
+            target=lambda: out_lines.extend(iter(proc.stdout.readline, "")), daemon=True
+        )
         reader.start()
         deadline = time.monotonic() + 60
-        while sum("saved snapshot" in line for line in list(out_lines)) < 5:  # recording is under way
+        while (
+            sum("saved snapshot" in line for line in list(out_lines)) < 5
+        ):  # recording is under way
             assert proc.poll() is None and time.monotonic() < deadline, out_lines[-5:]
             time.sleep(0.02)
         fill(disk, 0)  # the disk fills up under the running session
@@ -148,7 +184,11 @@ def test_demo_on_a_full_disk_stops_with_one_line_and_resumes_after_space_is_free
         assert proc.returncode == 2, stdout[-1500:] + err[-1500:]
         assert "Traceback" not in err
         lines = err.strip().splitlines()
-        assert len(lines) == 1 and lines[0].startswith("benchwalk demo: ") and "disk is full" in lines[0], lines
+        assert (
+            len(lines) == 1
+            and lines[0].startswith("benchwalk demo: ")
+            and "disk is full" in lines[0]
+        ), lines
         saved = [int(m.group(1)) for m in re.finditer(r"saved snapshot (\d+)", stdout)]
         assert len(saved) >= 5
         [journal] = sessions.glob("*.sqlite")
@@ -164,8 +204,15 @@ def test_demo_on_a_full_disk_stops_with_one_line_and_resumes_after_space_is_free
 
         (disk / "filler").unlink()
         remount(disk, "64m")
-        second = run("resume", journal.stem, "--headless", "--sessions", str(sessions),
-                     "--out", str(tmp_path / "out"))
+        second = run(
+            "resume",
+            journal.stem,
+            "--headless",
+            "--sessions",
+            str(sessions),
+            "--out",
+            str(tmp_path / "out"),
+        )
         assert second.returncode in (0, 1), second.stdout[-1500:] + second.stderr[-1500:]
         with Journal.open(journal) as j:
             assert j.resume_point() is None  # the sequence was completed after the resume
@@ -189,7 +236,9 @@ def test_export_into_a_full_disk_is_one_line_and_leaves_nothing(tmp_path, capsys
         capsys.readouterr()
         assert cli.main(["export", str(journal), "--out", str(disk / "ds")]) == 2
         err = capsys.readouterr().err
-        assert err.count("\n") == 1 and err.startswith("benchwalk export: ") and "Traceback" not in err
+        assert (
+            err.count("\n") == 1 and err.startswith("benchwalk export: ") and "Traceback" not in err
+        )
         assert sorted(p.name for p in disk.iterdir()) == before
         (disk / "filler").unlink()
         remount(disk, "64m")

@@ -27,7 +27,11 @@ ROOT = Path(__file__).resolve().parents[1]
 def benchwalk(*args: str, stdin: str | None = None, timeout: float = 120.0, env=None):
     return subprocess.run(
         [sys.executable, "-m", "meas.cli", *args],
-        input=stdin, capture_output=True, text=True, timeout=timeout, cwd=ROOT,
+        input=stdin,
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        cwd=ROOT,
         env={**os.environ, **(env or {})},
     )
 
@@ -43,12 +47,31 @@ def demo_runs(tmp_path_factory):
     base = tmp_path_factory.mktemp("demo")
     profile = write_fast_demo(base / "bench")
     runs = {}
-    for name, extra in (("clean", ["--seed", "11"]), ("ct", ["--seed", "5", "--fault", "ct-reversed:M2:B"])):
+    for name, extra in (
+        ("clean", ["--seed", "11"]),
+        ("ct", ["--seed", "5", "--fault", "ct-reversed:M2:B"]),
+    ):
         folder = base / name
-        cmd = [sys.executable, "-m", "meas.cli", "demo", "--headless", "--out", str(folder / "out"),
-               "--profile", str(profile), "--sessions", str(folder / "sessions"), *extra]
-        runs[name] = (folder, subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.PIPE,
-                                               stderr=subprocess.PIPE, text=True))
+        cmd = [
+            sys.executable,
+            "-m",
+            "meas.cli",
+            "demo",
+            "--headless",
+            "--out",
+            str(folder / "out"),
+            "--profile",
+            str(profile),
+            "--sessions",
+            str(folder / "sessions"),
+            *extra,
+        ]
+        runs[name] = (
+            folder,
+            subprocess.Popen(
+                cmd, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+            ),
+        )
     yield runs
     for _, proc in runs.values():
         if proc.poll() is None:
@@ -66,7 +89,9 @@ def test_bad_profile_is_one_line_and_exit_2(tmp_path):
     r = benchwalk("run", str(tmp_path / "nope.toml"), "--headless", "--operator", "T")
     assert r.returncode == 2
     assert "Traceback" not in r.stderr and len(r.stderr.strip().splitlines()) == 1
-    r = benchwalk("demo", "--headless", "--fault", "ct-reversed:M99:B", "--sessions", str(tmp_path / "s"))
+    r = benchwalk(
+        "demo", "--headless", "--fault", "ct-reversed:M99:B", "--sessions", str(tmp_path / "s")
+    )
     assert r.returncode == 2 and "M99" in r.stderr and "Traceback" not in r.stderr
 
 
@@ -88,8 +113,9 @@ async def _walk(session: Session, steps: int) -> None:
 async def test_resume_continues_at_the_right_step_and_refuses_a_changed_profile(tmp_path):
     profile = write_fast_demo(tmp_path / "bench")
     sessions = tmp_path / "sessions"
-    s = await Session.new(profile, "T. Tester", sessions_dir=sessions, session_id="resume-me",
-                          simulate=True, seed=3)
+    s = await Session.new(
+        profile, "T. Tester", sessions_dir=sessions, session_id="resume-me", simulate=True, seed=3
+    )
     try:
         await _walk(s, 3)
         stopped_at = s.runner.step.id
@@ -119,7 +145,9 @@ async def test_resume_continues_at_the_right_step_and_refuses_a_changed_profile(
     # change the profile: resume is refused without the flag, allowed and journalled with it
     text = profile.read_text()
     profile.write_text(text + "\n# edited after the session started\n")
-    with pytest.raises(BenchwalkError, match="changed since session resume-me started.*--allow-changed-profile"):
+    with pytest.raises(
+        BenchwalkError, match="changed since session resume-me started.*--allow-changed-profile"
+    ):
         await Session.resume("resume-me", sessions_dir=sessions)
     s3 = await Session.resume("resume-me", sessions_dir=sessions, allow_changed_profile=True)
     try:
@@ -157,15 +185,26 @@ def test_run_headless_prompts_on_stdin_and_eof_stops_resumably(tmp_path):
 
     profile = write_bench(tmp_path / "bench", edit=own_ports)
     server = subprocess.Popen(
-        [sys.executable, "-c", SERVE, str(profile)], cwd=ROOT,
-        stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+        [sys.executable, "-c", SERVE, str(profile)],
+        cwd=ROOT,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
     )
     try:
         line = server.stdout.readline()
         assert line, "simulated bench did not start"
         # step 1 (capture): capture, accept; then stdin ends at the remote step
-        r = benchwalk("run", str(profile), "--headless", "--operator", "R. Field", "--sessions",
-                      str(tmp_path / "sessions"), stdin="capture\naccept\n")
+        r = benchwalk(
+            "run",
+            str(profile),
+            "--headless",
+            "--operator",
+            "R. Field",
+            "--sessions",
+            str(tmp_path / "sessions"),
+            stdin="capture\naccept\n",
+        )
     finally:
         server.terminate()
         server.wait(timeout=10)
@@ -183,7 +222,11 @@ def test_run_headless_prompts_on_stdin_and_eof_stops_resumably(tmp_path):
 def test_demo_headless_clean_exits_0_and_exports(demo_runs):
     folder, code, stdout, stderr = finished(demo_runs, "clean")
     assert code == 0, stdout[-3000:] + stderr[-3000:]
-    assert "qualified persons only" in stdout and "lockout/tagout" in stdout and "no interlock" in stdout
+    assert (
+        "qualified persons only" in stdout
+        and "lockout/tagout" in stdout
+        and "no interlock" in stdout
+    )
     assert "PASS" in stdout and "Failing checks" not in stdout
     out = folder / "out"
     assert datapackage_valid(out / "dataset")

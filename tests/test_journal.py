@@ -32,7 +32,11 @@ from meas.quantities import QUANTITIES
 from meas.results import CheckResult, Status
 from meas.snapshot import CommState, MeterBlock, Quality, Snapshot
 
-KEYS = [f"{q}.{ph}" for q in ("v_ln", "v_ll", "i", "p", "q", "s", "pf", "f") for ph in QUANTITIES[q].phases]
+KEYS = [
+    f"{q}.{ph}"
+    for q in ("v_ln", "v_ll", "i", "p", "q", "s", "pf", "f")
+    for ph in QUANTITIES[q].phases
+]
 
 PROFILE_TOML = """\
 # invented test bench
@@ -123,7 +127,9 @@ def make_bench(folder: Path, n_meters: int = 3) -> Profile:
     """An invented bench written as real profile files and loaded by meas.profile."""
     folder.mkdir(parents=True, exist_ok=True)
     regs = "\n".join(f'"{k}" = {{ address = {2 * i} }}' for i, k in enumerate(KEYS))
-    text = PROFILE_TOML.format(registers=regs, meters="\n".join(_meter_toml(i) for i in range(1, n_meters + 1)))
+    text = PROFILE_TOML.format(
+        registers=regs, meters="\n".join(_meter_toml(i) for i in range(1, n_meters + 1))
+    )
     path = folder / "plover.toml"
     path.write_text(text)
     (folder / "plover.sequence.toml").write_text(SEQUENCE_TOML)
@@ -133,7 +139,9 @@ def make_bench(folder: Path, n_meters: int = 3) -> Profile:
 T0 = datetime(2026, 12, 1, 22, 15, 0, tzinfo=UTC)
 
 
-def make_snapshot(seq: int, meters: list[str], rng: np.random.Generator, *, bad: str | None = None) -> Snapshot:
+def make_snapshot(
+    seq: int, meters: list[str], rng: np.random.Generator, *, bad: str | None = None
+) -> Snapshot:
     """Invented readings; meter ``bad`` times out (NaN values, TIMEOUT quality)."""
     blocks = {}
     for m in meters:
@@ -149,7 +157,12 @@ def make_snapshot(seq: int, meters: list[str], rng: np.random.Generator, *, bad:
             )
         else:
             blocks[m] = MeterBlock(
-                m, vals, {k: Quality.OK for k in KEYS}, CommState.OK, latency_s=0.004, last_good_utc=T0
+                m,
+                vals,
+                {k: Quality.OK for k in KEYS},
+                CommState.OK,
+                latency_s=0.004,
+                last_good_utc=T0,
             )
     return Snapshot(
         seq=seq,
@@ -185,9 +198,15 @@ def test_snapshots_round_trip_bit_exact(tmp_path: Path, bench: Profile) -> None:
         for m, block in s.meters.items():
             b = back.meters[m]
             assert dict(b.quality) == dict(block.quality)
-            assert b.state is block.state and b.error == block.error and b.error_count == block.error_count
+            assert (
+                b.state is block.state
+                and b.error == block.error
+                and b.error_count == block.error_count
+            )
             for k, v in block.values.items():
-                assert (math.isnan(v) and math.isnan(b.values[k])) or b.values[k] == v  # bit-exact doubles
+                assert (math.isnan(v) and math.isnan(b.values[k])) or b.values[
+                    k
+                ] == v  # bit-exact doubles
 
 
 def test_session_keeps_profile_text_and_hash(tmp_path: Path, bench: Profile) -> None:
@@ -207,8 +226,12 @@ def test_session_keeps_profile_text_and_hash(tmp_path: Path, bench: Profile) -> 
 
 def test_append_only_rejects_update_and_delete(tmp_path: Path, bench: Profile) -> None:
     j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
-    rid = j.record_snapshot(make_snapshot(0, _meters(bench), np.random.default_rng(2)), step_id="S1", role="capture")
-    j.record_checks(rid, "S1", [CheckResult("meter.p_sum", "M1", Status.FAIL, 12.0, 5.0, "W", "P sum off")])
+    rid = j.record_snapshot(
+        make_snapshot(0, _meters(bench), np.random.default_rng(2)), step_id="S1", role="capture"
+    )
+    j.record_checks(
+        rid, "S1", [CheckResult("meter.p_sum", "M1", Status.FAIL, 12.0, 5.0, "W", "P sum off")]
+    )
     j.record_event("note", "hello")
     j.record_step("S1", "accepted", outcome="pass", operator="ana")
     j.close()
@@ -241,13 +264,20 @@ def test_disk_full_raises_journal_write_error_and_keeps_earlier_data(tmp_path: P
     path = tmp_path / "s.sqlite"
     j = Journal.create(path, profile, operator="ana")
     rng = np.random.default_rng(3)
-    saved = [j.record_snapshot(make_snapshot(i, _meters(profile), rng), step_id="S1", role="capture") for i in range(5)]
+    saved = [
+        j.record_snapshot(make_snapshot(i, _meters(profile), rng), step_id="S1", role="capture")
+        for i in range(5)
+    ]
     before = [j.read_snapshot(r) for r in saved]
     pages = j._conn.execute("PRAGMA page_count").fetchone()[0]
     j._conn.execute(f"PRAGMA max_page_count = {pages}")
     with pytest.raises(JournalWriteError, match=r"disk is full.*free space") as err:
         for i in range(5, 500):
-            saved.append(j.record_snapshot(make_snapshot(i, _meters(profile), rng), step_id="S1", role="capture"))
+            saved.append(
+                j.record_snapshot(
+                    make_snapshot(i, _meters(profile), rng), step_id="S1", role="capture"
+                )
+            )
     assert str(path) in str(err.value) and "\n" not in str(err.value)
     with pytest.raises(JournalWriteError):
         j.record_event("note", "x" * 100_000)
@@ -282,7 +312,9 @@ while True:
 
 def test_sigkill_mid_stream_loses_nothing_reported_saved(tmp_path: Path) -> None:
     path = tmp_path / "s.sqlite"
-    code = CHILD.format(tests=str(Path(__file__).parent), folder=str(tmp_path / "profile"), path=str(path))
+    code = CHILD.format(
+        tests=str(Path(__file__).parent), folder=str(tmp_path / "profile"), path=str(path)
+    )
     child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
     reported: list[int] = []
     deadline = time.monotonic() + 30.0
@@ -311,7 +343,14 @@ def test_resume_point_and_step_history(tmp_path: Path, bench: Profile) -> None:
     j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
     assert j.resume_point() == "S1"
     j.record_step("S1", "settling", settle_s=None, expected_switches={"CB1": "closed"})
-    j.record_step("S1", "accepted", outcome="pass", operator="ana", settle_s=1.2, actual_switches={"CB1": "closed"})
+    j.record_step(
+        "S1",
+        "accepted",
+        outcome="pass",
+        operator="ana",
+        settle_s=1.2,
+        actual_switches={"CB1": "closed"},
+    )
     assert j.resume_point() == "S2"
     j.record_step("S2", "failed", outcome="fail", operator="ana", reason="CB1 did not open")
     assert j.resume_point() == "S2"
@@ -328,7 +367,9 @@ def test_resume_point_and_step_history(tmp_path: Path, bench: Profile) -> None:
     assert hist[3]["reason"] == "breaker out for repair"
 
 
-def test_session_files_resolve_and_refuse(tmp_path: Path, bench: Profile, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_session_files_resolve_and_refuse(
+    tmp_path: Path, bench: Profile, monkeypatch: pytest.MonkeyPatch
+) -> None:
     monkeypatch.setenv("BENCHWALK_SESSIONS", str(tmp_path / "sess"))
     sid = new_session_id(bench.bench.name, T0)
     assert sid == "20261201-221500-plover"
@@ -351,16 +392,27 @@ def test_session_files_resolve_and_refuse(tmp_path: Path, bench: Profile, monkey
 
 def test_events_and_checks_are_stored(tmp_path: Path, bench: Profile) -> None:
     j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
-    rid = j.record_snapshot(make_snapshot(0, _meters(bench), np.random.default_rng(5)), step_id=None, role="live")
+    rid = j.record_snapshot(
+        make_snapshot(0, _meters(bench), np.random.default_rng(5)), step_id=None, role="live"
+    )
     res = [
         CheckResult("meter.p_sum", "M1", Status.PASS, 1.5, 10.0, "W"),
         CheckResult("bus.p_balance", "B1", Status.NA, message="no meters on B1"),
     ]
     j.record_checks(rid, None, res)
-    eid = j.record_event("operate", "CB1 open", step_id="S2", operator="ana", data={"switch": "CB1"})
-    rows = j._conn.execute('SELECT "check", status, value, "limit" FROM check_result ORDER BY id').fetchall()
-    assert [tuple(r) for r in rows] == [("meter.p_sum", "pass", 1.5, 10.0), ("bus.p_balance", "n/a", None, None)]
+    eid = j.record_event(
+        "operate", "CB1 open", step_id="S2", operator="ana", data={"switch": "CB1"}
+    )
+    rows = j._conn.execute(
+        'SELECT "check", status, value, "limit" FROM check_result ORDER BY id'
+    ).fetchall()
+    assert [tuple(r) for r in rows] == [
+        ("meter.p_sum", "pass", 1.5, 10.0),
+        ("bus.p_balance", "n/a", None, None),
+    ]
     ev = j._conn.execute("SELECT * FROM event WHERE id=?", (eid,)).fetchone()
     assert json.loads(ev["data"]) == {"switch": "CB1"} and ev["step"] == "S2"
     with pytest.raises(ValueError, match="role"):
-        j.record_snapshot(make_snapshot(1, _meters(bench), np.random.default_rng(5)), step_id=None, role="bogus")
+        j.record_snapshot(
+            make_snapshot(1, _meters(bench), np.random.default_rng(5)), step_id=None, role="bogus"
+        )

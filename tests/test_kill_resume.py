@@ -31,8 +31,11 @@ SAVED = re.compile(r"^saved snapshot (\d+) ")
 
 def start(args: list[str]) -> tuple[subprocess.Popen, list[int], threading.Event, threading.Thread]:
     proc = subprocess.Popen(
-        [sys.executable, "-m", "meas.cli", *args], cwd=ROOT, stdout=subprocess.PIPE,
-        stderr=subprocess.STDOUT, text=True,
+        [sys.executable, "-m", "meas.cli", *args],
+        cwd=ROOT,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
     )
     rows: list[int] = []
     first = threading.Event()
@@ -71,7 +74,9 @@ def test_sigkill_at_random_moments_loses_nothing_and_resume_completes(tmp_path):
         while kills < KILLS and not finished:
             proc, rows, first, reader = start(args)
             assert first.wait(60), f"no snapshot saved (seed {seed})"
-            time.sleep(rng.uniform(0.0, 1.5))  # the random moment of the kill, not a synchronization
+            time.sleep(
+                rng.uniform(0.0, 1.5)
+            )  # the random moment of the kill, not a synchronization
             killed = proc.poll() is None
             if killed:
                 proc.send_signal(signal.SIGKILL)
@@ -88,17 +93,34 @@ def test_sigkill_at_random_moments_loses_nothing_and_resume_completes(tmp_path):
                 (journal_path,) = sessions.glob("*.sqlite")
             with Journal.open(journal_path) as j:
                 stored = set(j.snapshot_ids())
-                assert reported <= stored, f"lost rows {sorted(reported - stored)[:10]} (seed {seed})"
+                assert reported <= stored, (
+                    f"lost rows {sorted(reported - stored)[:10]} (seed {seed})"
+                )
                 finished = j.resume_point() is None
             args = ["resume", str(journal_path), "--headless", *common]
-    print(f"seed {seed}: {kills} kills over {sessions_used} session(s); "
-          f"{len(reported)} snapshots reported saved in the last, all in the journal")
+    print(
+        f"seed {seed}: {kills} kills over {sessions_used} session(s); "
+        f"{len(reported)} snapshots reported saved in the last, all in the journal"
+    )
 
     out = tmp_path / "out"
     final = subprocess.run(
-        [sys.executable, "-m", "meas.cli", "resume", str(journal_path), "--headless", "--out", str(out),
-         "--sessions", str(sessions)],
-        cwd=ROOT, capture_output=True, text=True, timeout=180,
+        [
+            sys.executable,
+            "-m",
+            "meas.cli",
+            "resume",
+            str(journal_path),
+            "--headless",
+            "--out",
+            str(out),
+            "--sessions",
+            str(sessions),
+        ],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=180,
     )
     assert final.returncode == 0, final.stdout[-3000:] + final.stderr[-2000:] + f" (seed {seed})"
     with Journal.open(journal_path) as j:

@@ -44,7 +44,9 @@ def test_console_imports_in_commands_are_lazy():
         for node in tree.body:  # module level only
             if isinstance(node, ast.Import | ast.ImportFrom):
                 mod = node.module if isinstance(node, ast.ImportFrom) else node.names[0].name
-                assert (mod or "").split(".")[0] not in FORBIDDEN, f"{name} imports {mod} at module level"
+                assert (mod or "").split(".")[0] not in FORBIDDEN, (
+                    f"{name} imports {mod} at module level"
+                )
 
 
 def test_importing_every_core_module_loads_no_textual():

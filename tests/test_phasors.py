@@ -43,7 +43,9 @@ def test_grainger_stevenson_example_11_1():
     assert abs(s012[2]) == pytest.approx(5.7735, abs=1e-4)
     assert math.degrees(np.angle(s012[2])) == pytest.approx(30.0, abs=1e-9)
     # and back (Fortescue's transform is invertible)
-    np.testing.assert_allclose(ph.from_sequence(s012), ph.phasor([10.0, 10.0, 0.0], [0.0, 180.0, 0.0]), atol=1e-12)
+    np.testing.assert_allclose(
+        ph.from_sequence(s012), ph.phasor([10.0, 10.0, 0.0], [0.0, 180.0, 0.0]), atol=1e-12
+    )
 
 
 @settings(max_examples=60, deadline=None)
@@ -120,7 +122,9 @@ def test_ieee1459_apparent_powers_unbalanced_case():
     # effective: balanced 230 V / 10 A, no neutral current -> Se = 3 x 230 x 10
     assert ph.apparent_effective([230.0] * 3, [10.0] * 3) == pytest.approx(6900.0)
     # with L-L values of a balanced set (400 V) the four-wire Ve equals the L-N value
-    assert ph.apparent_effective([230.94] * 3, [10.0] * 3, 0.0, [400.0] * 3) == pytest.approx(3 * 230.94 * 10.0, rel=1e-4)
+    assert ph.apparent_effective([230.94] * 3, [10.0] * 3, 0.0, [400.0] * 3) == pytest.approx(
+        3 * 230.94 * 10.0, rel=1e-4
+    )
     # an unbalanced current raises Se above the arithmetic S (IEEE 1459: Se >= S_arith)
     assert ph.apparent_effective([230.0] * 3, [20.0, 5.0, 5.0], 15.0) > 230.0 * 30.0
 
@@ -129,4 +133,6 @@ def test_vectorized_over_meters():
     v = ph.phasor([[230, 230, 230], [230, 220, 240]], [[0, -120, 120], [0, -120, 120]])
     u2 = ph.unbalance_u2(v)
     assert u2.shape == (2,) and u2[0] == pytest.approx(0.0, abs=1e-9) and u2[1] > 1.0
-    assert ph.circular_spread_deg([[10.0, 20.0, 30.0], [170.0, -170.0, 175.0]]).tolist() == pytest.approx([20.0, 20.0])
+    assert ph.circular_spread_deg(
+        [[10.0, 20.0, 30.0], [170.0, -170.0, 175.0]]
+    ).tolist() == pytest.approx([20.0, 20.0])

@@ -57,8 +57,10 @@ def _dp_minimum(regmap: RegisterMap, max_gap: int) -> int:
         best = [0] + [10**9] * len(s)
         for j in range(1, len(s) + 1):
             for i in range(1, j + 1):
-                group = s[i - 1:j]
-                gaps_ok = all(b.address - a.end <= max_gap for a, b in zip(group, group[1:], strict=False))
+                group = s[i - 1 : j]
+                gaps_ok = all(
+                    b.address - a.end <= max_gap for a, b in zip(group, group[1:], strict=False)
+                )
                 if gaps_ok and group[-1].end - group[0].address <= limit:
                     best[j] = min(best[j], best[i - 1] + 1)
         total += best[-1]
@@ -96,10 +98,41 @@ def test_plan_covers_everything_within_limits_and_is_minimal(regmap, max_gap):
 
 def _lumen() -> RegisterMap:
     """The demo's lumen-f32 layout: 33 float32 input registers from 0, two float64 at 100/104."""
-    keys = ["v_ln.A", "v_ln.B", "v_ln.C", "v_ll.AB", "v_ll.BC", "v_ll.CA", "i.A", "i.B", "i.C", "i.N",
-            "p.A", "p.B", "p.C", "p.T", "q.A", "q.B", "q.C", "q.T", "s.A", "s.B", "s.C", "s.T",
-            "pf.A", "pf.B", "pf.C", "pf.T", "f.T", "v_ang.A", "v_ang.B", "v_ang.C",
-            "i_ang.A", "i_ang.B", "i_ang.C"]
+    keys = [
+        "v_ln.A",
+        "v_ln.B",
+        "v_ln.C",
+        "v_ll.AB",
+        "v_ll.BC",
+        "v_ll.CA",
+        "i.A",
+        "i.B",
+        "i.C",
+        "i.N",
+        "p.A",
+        "p.B",
+        "p.C",
+        "p.T",
+        "q.A",
+        "q.B",
+        "q.C",
+        "q.T",
+        "s.A",
+        "s.B",
+        "s.C",
+        "s.T",
+        "pf.A",
+        "pf.B",
+        "pf.C",
+        "pf.T",
+        "f.T",
+        "v_ang.A",
+        "v_ang.B",
+        "v_ang.C",
+        "i_ang.A",
+        "i_ang.B",
+        "i_ang.C",
+    ]
     specs = [spec(k, 2 * n) for n, k in enumerate(keys)]
     specs += [spec("e_imp.T", 100, "float64"), spec("e_exp.T", 104, "float64")]
     return make_map("lumen-f32", specs)
@@ -107,7 +140,10 @@ def _lumen() -> RegisterMap:
 
 def test_lumen_map_needs_two_reads():
     plan = plan_map(_lumen(), max_gap=8)
-    assert [(r.kind, r.address, r.count) for r in plan.requests] == [("input", 0, 66), ("input", 100, 8)]
+    assert [(r.kind, r.address, r.count) for r in plan.requests] == [
+        ("input", 0, 66),
+        ("input", 100, 8),
+    ]
     assert plan.registers_read == 74 and plan.registers_wasted == 0
     assert naive_request_count(_lumen()) == 35
     # a gap of 34 registers (66..99) is bridged only when allowed
@@ -120,8 +156,14 @@ def test_read_limit_and_gap_edges():
     regs = [spec(f"k{i}", i, "uint16", "holding") for i in range(130)]
     plan = plan_map(make_map("big", regs), 0)
     assert [r.count for r in plan.requests] == [125, 5]  # 125 = the spec's FC3 maximum
-    assert [r.count for r in plan_map(make_map("small", regs, max_read=60), 0).requests] == [60, 60, 10]
-    holes = make_map("holes", [spec("a", 0, "uint16", "holding"), spec("b", 3, "uint16", "holding")])
+    assert [r.count for r in plan_map(make_map("small", regs, max_read=60), 0).requests] == [
+        60,
+        60,
+        10,
+    ]
+    holes = make_map(
+        "holes", [spec("a", 0, "uint16", "holding"), spec("b", 3, "uint16", "holding")]
+    )
     assert len(plan_map(holes, 2).requests) == 1 and plan_map(holes, 2).registers_wasted == 2
     assert len(plan_map(holes, 1).requests) == 2
     mixed = make_map("mixed", [spec("a", 0, "uint16", "holding"), spec("b", 1, "uint16", "input")])
@@ -145,7 +187,9 @@ def test_demo_profile_plans():
     by_map = {prof.meter(mid).map_id: p for mid, p in plans.items()}
     assert len(by_map["lumen-f32"].requests) == 2
     # corvid: 1000..1050 in one FC3 read bridging two 2-register holes (1018-1019, 1048-1049)
-    assert [(r.function_code, r.address, r.count) for r in by_map["corvid-i32"].requests] == [(3, 1000, 51)]
+    assert [(r.function_code, r.address, r.count) for r in by_map["corvid-i32"].requests] == [
+        (3, 1000, 51)
+    ]
     assert by_map["corvid-i32"].registers_wasted == 4
     # wren: 0..26 with register 9 unused, max_read 60
     assert [(r.address, r.count) for r in by_map["wren-i16"].requests] == [(0, 27)]

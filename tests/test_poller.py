@@ -46,13 +46,16 @@ EXACT = {"v_ln.A": 230.0, "i.A": 5.25, "p.T": 1207.5, "q.T": -256.0, "pf.T": 0.9
 
 def int_map(map_id: str = "i32le") -> object:
     """int32 holding registers, low word first, fixed scaling (a common meter layout)."""
-    return make_map(map_id, [
-        spec("v_ln.A", 1000, "int32", "holding", word_order="little", scale=0.01),
-        spec("i.A", 1002, "int32", "holding", word_order="little", scale=0.0001),
-        spec("p.T", 1004, "int32", "holding", word_order="little", scale=0.01),
-        spec("pf.T", 1010, "int16", "holding", scale=0.0001),
-        spec("f.T", 1011, "uint16", "holding", scale=0.001),
-    ])
+    return make_map(
+        map_id,
+        [
+            spec("v_ln.A", 1000, "int32", "holding", word_order="little", scale=0.01),
+            spec("i.A", 1002, "int32", "holding", word_order="little", scale=0.0001),
+            spec("p.T", 1004, "int32", "holding", word_order="little", scale=0.01),
+            spec("pf.T", 1010, "int16", "holding", scale=0.0001),
+            spec("f.T", 1011, "uint16", "holding", scale=0.001),
+        ],
+    )
 
 
 async def test_tcp_meter_values_exact_in_engineering_units():
@@ -60,9 +63,15 @@ async def test_tcp_meter_values_exact_in_engineering_units():
     async with MeterServer(units=(1, 2)) as srv:
         await srv.load(1, fmap, EXACT)
         # raw integers chosen so raw * scale is the value below (scale/offset per meas.registers)
-        await srv.load(2, imap, {"v_ln.A": 230.12, "i.A": 4.9876, "p.T": -1234.56, "pf.T": -0.9876, "f.T": 49.987})
-        prof = make_profile([fmap, imap], [tcp_meter("M1", srv.port, 1, "f32"),
-                                           tcp_meter("M2", srv.port, 2, "i32le")])
+        await srv.load(
+            2,
+            imap,
+            {"v_ln.A": 230.12, "i.A": 4.9876, "p.T": -1234.56, "pf.T": -0.9876, "f.T": 49.987},
+        )
+        prof = make_profile(
+            [fmap, imap],
+            [tcp_meter("M1", srv.port, 1, "f32"), tcp_meter("M2", srv.port, 2, "i32le")],
+        )
         poller = Poller(prof)
         try:
             await poller.start()
@@ -88,7 +97,9 @@ async def test_gateway_units_share_one_connection():
     fmap = float_map()
     async with MeterServer(units=(1, 2, 3)) as srv:
         for u in (1, 2, 3):
-            await srv.load(u, fmap, {k: v * u for k, v in EXACT.items() if k != "pf.T"} | {"pf.T": 0.5})
+            await srv.load(
+                u, fmap, {k: v * u for k, v in EXACT.items() if k != "pf.T"} | {"pf.T": 0.5}
+            )
         prof = make_profile([fmap], [tcp_meter(f"M{u}", srv.port, u) for u in (1, 2, 3)])
         poller = Poller(prof)
         try:
@@ -110,8 +121,10 @@ async def test_dead_unit_behind_gateway_is_backed_off_and_spares_neighbours():
     async with MeterServer(units=(1, 2, 3), silent={2}) as srv:
         for u in (1, 2, 3):
             await srv.load(u, fmap, EXACT)
-        prof = make_profile([fmap], [tcp_meter(f"M{u}", srv.port, u, timeout_s=timeout, retries=1)
-                                     for u in (1, 2, 3)])
+        prof = make_profile(
+            [fmap],
+            [tcp_meter(f"M{u}", srv.port, u, timeout_s=timeout, retries=1) for u in (1, 2, 3)],
+        )
         poller = Poller(prof)
         try:
             await poller.start()
@@ -139,8 +152,10 @@ async def test_meter_that_never_answers_does_not_stall_the_others():
     timeout = 0.25
     async with SilentServer() as dead, MeterServer() as srv:
         await srv.load(1, fmap, EXACT)
-        prof = make_profile([fmap], [tcp_meter("DEAD", dead.port, 1, timeout_s=timeout),
-                                     tcp_meter("LIVE", srv.port, 1)])
+        prof = make_profile(
+            [fmap],
+            [tcp_meter("DEAD", dead.port, 1, timeout_s=timeout), tcp_meter("LIVE", srv.port, 1)],
+        )
         poller = Poller(prof)
         try:
             t0 = time.monotonic()
@@ -228,10 +243,20 @@ async def test_nan_inf_and_impossible_values_are_decode_quality():
 async def test_secondary_values_scaled_by_ct_and_vt_ratio():
     # primary = secondary x ratio; power scales with CT x VT (common practice, IEC 61869 ratios)
     regmap = float_map("sec", ("v_ln.A", "v_ll.AB", "i.A", "p.T", "q.T", "pf.T", "f.T"))
-    sec = {"v_ln.A": 57.75, "v_ll.AB": 100.0, "i.A": 0.5, "p.T": 25.0, "q.T": -4.0, "pf.T": 0.75, "f.T": 50.0}
+    sec = {
+        "v_ln.A": 57.75,
+        "v_ll.AB": 100.0,
+        "i.A": 0.5,
+        "p.T": 25.0,
+        "q.T": -4.0,
+        "pf.T": 0.75,
+        "f.T": 50.0,
+    }
     async with MeterServer() as srv:
         await srv.load(1, regmap, sec)
-        meter = tcp_meter("M3", srv.port, 1, map_id="sec", reports="secondary", ct_ratio=10.0, vt_ratio=4.0)
+        meter = tcp_meter(
+            "M3", srv.port, 1, map_id="sec", reports="secondary", ct_ratio=10.0, vt_ratio=4.0
+        )
         poller = Poller(make_profile([regmap], [meter]))
         try:
             b = (await poller.poll_once()).meters["M3"]
@@ -248,11 +273,18 @@ async def test_plc_status_points_into_snapshot_switches():
     async with MeterServer() as srv:
         await srv.set_bits(1, "discrete", 0, [True, False, True])
         await srv.set_bits(1, "coil", 7, [True])
-        sws = [switch("CB1", "PLC1", 0), switch("SW2", "PLC1", 1), switch("SW3", "PLC1", 2),
-               switch("K7", "PLC1", 7, kind="coil"), switch("MAN", None, None),
-               switch("GHOST", "PLC2", 0)]
+        sws = [
+            switch("CB1", "PLC1", 0),
+            switch("SW2", "PLC1", 1),
+            switch("SW3", "PLC1", 2),
+            switch("K7", "PLC1", 7, kind="coil"),
+            switch("MAN", None, None),
+            switch("GHOST", "PLC2", 0),
+        ]
         dead_port = free_port()  # nothing listens there
-        prof = make_profile([fmap], [], plcs=[plc("PLC1", srv.port), plc("PLC2", dead_port)], switches=sws)
+        prof = make_profile(
+            [fmap], [], plcs=[plc("PLC1", srv.port), plc("PLC2", dead_port)], switches=sws
+        )
         poller = Poller(prof)
         try:
             snap = await poller.poll_once()
@@ -260,8 +292,14 @@ async def test_plc_status_points_into_snapshot_switches():
             snap2 = await poller.poll_once()
         finally:
             await poller.close()
-    assert dict(snap.switches) == {"CB1": "closed", "SW2": "open", "SW3": "closed", "K7": "closed",
-                                   "MAN": "unknown", "GHOST": "unknown"}
+    assert dict(snap.switches) == {
+        "CB1": "closed",
+        "SW2": "open",
+        "SW3": "closed",
+        "K7": "closed",
+        "MAN": "unknown",
+        "GHOST": "unknown",
+    }
     assert snap2.switches["SW2"] == "closed"
     assert poller.plc_status()["PLC1"].state is CommState.OK
     assert poller.plc_status()["PLC2"].state is CommState.OFFLINE
@@ -276,7 +314,9 @@ async def test_rtu_meter_over_pseudo_terminal():
             values = {k: v * u for k, v in EXACT.items() if k != "pf.T"} | {"pf.T": 0.5}
             for _kind, address, words in encoded(fmap, values):
                 await server.async_setValues(u, 4, address, words)
-        prof = make_profile([fmap], [rtu_meter("R1", link.client_path, 1), rtu_meter("R5", link.client_path, 5)])
+        prof = make_profile(
+            [fmap], [rtu_meter("R1", link.client_path, 1), rtu_meter("R5", link.client_path, 5)]
+        )
         poller = Poller(prof)
         try:
             snap = await poller.poll_once()
@@ -339,10 +379,21 @@ _DTYPES = ["int16", "uint16", "int32", "uint32", "float32", "float64"]
 
 
 @settings(max_examples=120, deadline=None)
-@given(layout=st.lists(st.tuples(st.sampled_from(_DTYPES), st.sampled_from(["big", "little"]),
-                                 st.sampled_from(["big", "little"]), st.integers(0, 3)), min_size=1, max_size=6),
-       words=st.lists(st.integers(0, 0xFFFF), min_size=40, max_size=40),
-       scale=st.sampled_from([1.0, 0.01, 0.0001]), secondary=st.booleans())
+@given(
+    layout=st.lists(
+        st.tuples(
+            st.sampled_from(_DTYPES),
+            st.sampled_from(["big", "little"]),
+            st.sampled_from(["big", "little"]),
+            st.integers(0, 3),
+        ),
+        min_size=1,
+        max_size=6,
+    ),
+    words=st.lists(st.integers(0, 0xFFFF), min_size=40, max_size=40),
+    scale=st.sampled_from([1.0, 0.01, 0.0001]),
+    secondary=st.booleans(),
+)
 def test_request_decoder_matches_registers_decode(layout, words, scale, secondary):
     """The poller's one-pass decoder == meas.registers.decode then meas.scaling.to_primary."""
     keys = ["v_ln.A", "i.B", "p.T", "q.C", "pf.T", "f.T"]
@@ -352,12 +403,16 @@ def test_request_decoder_matches_registers_decode(layout, words, scale, secondar
         specs.append(spec(key, addr, dtype, "holding", word_order=wo, byte_order=bo, scale=scale))
         addr += specs[-1].count
     req = ReadRequest("holding", 0, addr, tuple(s.key for s in specs))
-    meter = tcp_meter("M", 1, reports="secondary" if secondary else "primary", ct_ratio=10.0, vt_ratio=4.0)
+    meter = tcp_meter(
+        "M", 1, reports="secondary" if secondary else "primary", ct_ratio=10.0, vt_ratio=4.0
+    )
     values, quality, errors = {}, {}, []
-    RequestDecoder(req, {s.key: s for s in specs}, meter).decode(words[:addr], values, quality, errors)
+    RequestDecoder(req, {s.key: s for s in specs}, meter).decode(
+        words[:addr], values, quality, errors
+    )
     for s in specs:
         try:
-            ref = to_primary(meter, s.key, decode(s, words[s.address:s.end]))
+            ref = to_primary(meter, s.key, decode(s, words[s.address : s.end]))
         except DecodeError:
             assert quality[s.key] is Quality.DECODE
             continue
@@ -373,8 +428,13 @@ async def test_units_with_different_timeouts_keep_their_own_budget():
     async with MeterServer(units=(1, 2), silent={2}) as srv:
         for u in (1, 2):
             await srv.load(u, fmap, EXACT)
-        prof = make_profile([fmap], [tcp_meter("SLOWOK", srv.port, 1, timeout_s=2.0),
-                                     tcp_meter("DEAD", srv.port, 2, timeout_s=0.15)])
+        prof = make_profile(
+            [fmap],
+            [
+                tcp_meter("SLOWOK", srv.port, 1, timeout_s=2.0),
+                tcp_meter("DEAD", srv.port, 2, timeout_s=0.15),
+            ],
+        )
         poller = Poller(prof)
         try:
             snap = await poller.poll_once()

@@ -36,7 +36,14 @@ RECOVERY_BOUND_S = POLL.backoff_max_s * 1.2 + TIMEOUT_S + 2 * INTERVAL_S + SLACK
 FMAP = float_map()
 # binary32-exact values per meter (dyadic rationals): a swapped reply cannot look right
 VALUES = {
-    "VIC": {"v_ln.A": 230.0, "i.A": 5.25, "p.T": 1207.5, "q.T": -256.0, "pf.T": 0.984375, "f.T": 50.0},
+    "VIC": {
+        "v_ln.A": 230.0,
+        "i.A": 5.25,
+        "p.T": 1207.5,
+        "q.T": -256.0,
+        "pf.T": 0.984375,
+        "f.T": 50.0,
+    },
     "NB": {"v_ln.A": 231.5, "i.A": 2.5, "p.T": 577.75, "q.T": 64.0, "pf.T": 0.5, "f.T": 50.0},
     "OT": {"v_ln.A": 229.25, "i.A": 10.0, "p.T": 2300.0, "q.T": -8.0, "pf.T": 0.75, "f.T": 49.875},
 }
@@ -68,9 +75,11 @@ class Bench:
         for srv, unit, mid in ((self.h, 1, "VIC"), (self.h, 2, "NB"), (self.g, 1, "OT")):
             for _kind, address, words in encoded(FMAP, VALUES[mid]):
                 srv.load(unit, address, words)
-        meters = [tcp_meter("VIC", self.h.port, 1, timeout_s=self.timeout_s, retries=RETRIES),
-                  tcp_meter("NB", self.h.port, 2, timeout_s=self.timeout_s, retries=RETRIES),
-                  tcp_meter("OT", self.g.port, 1, timeout_s=self.timeout_s, retries=RETRIES)]
+        meters = [
+            tcp_meter("VIC", self.h.port, 1, timeout_s=self.timeout_s, retries=RETRIES),
+            tcp_meter("NB", self.h.port, 2, timeout_s=self.timeout_s, retries=RETRIES),
+            tcp_meter("OT", self.g.port, 1, timeout_s=self.timeout_s, retries=RETRIES),
+        ]
         self.poller = Poller(make_profile([FMAP], meters, poll=POLL))
         for _ in range(3):  # warm up: links connected, healthy time learned
             snap = await self.poller.poll_once()
@@ -84,7 +93,9 @@ class Bench:
 
     @property
     def gateway_link(self):
-        return next(lk for lk in self.poller.endpoint_clients.values() if lk.transport.port == self.h.port)
+        return next(
+            lk for lk in self.poller.endpoint_clients.values() if lk.transport.port == self.h.port
+        )
 
     async def cycles(self, n: int) -> list[Snapshot]:
         out = []
@@ -144,19 +155,29 @@ async def test_hostile_meter_is_contained_and_recovers(mode):
         # slack; later probes wait <= 4 x its learned read, floor 50 ms, and run after it; each
         # redial of the link costs <= ceil(timeout x attempts / interval) cycles
         drops = b.gateway_link.connects - 1
-        lost_bound = math.ceil(TIMEOUT_S / INTERVAL_S) + 1 + drops * math.ceil(TIMEOUT_S * (RETRIES + 1) / INTERVAL_S)
-        assert CYCLES - ok["NB"] <= lost_bound, f"neighbour lost {CYCLES - ok['NB']} of {CYCLES} cycles"
+        lost_bound = (
+            math.ceil(TIMEOUT_S / INTERVAL_S)
+            + 1
+            + drops * math.ceil(TIMEOUT_S * (RETRIES + 1) / INTERVAL_S)
+        )
+        assert CYCLES - ok["NB"] <= lost_bound, (
+            f"neighbour lost {CYCLES - ok['NB']} of {CYCLES} cycles"
+        )
         if mode == "close":
             assert b.gateway_link.connects >= 2
         else:
             assert b.gateway_link.connects == 1  # the shared link was never dropped
         assert asked <= CYCLES * (RETRIES + 1)  # never more than one request (+ retry) per cycle
-        assert all(r.function_code == 4 and (r.address, r.count) == (0, 12) for r in b.h.requests_for(1))
+        assert all(
+            r.function_code == 4 and (r.address, r.count) == (0, 12) for r in b.h.requests_for(1)
+        )
         b.h.set(1, "ok")
         recovery = await b.recover()
-    print(f"\n{mode}: neighbour ok {ok['NB']}/{CYCLES}, other endpoint ok {ok['OT']}/{CYCLES}, "
-          f"victim asked {asked}x in {tried} cycles, max cycle {max(s.cycle_s for s in snaps) * 1000:.0f} ms, "
-          f"recovery {recovery * 1000:.0f} ms (bound {RECOVERY_BOUND_S * 1000:.0f} ms)")
+    print(
+        f"\n{mode}: neighbour ok {ok['NB']}/{CYCLES}, other endpoint ok {ok['OT']}/{CYCLES}, "
+        f"victim asked {asked}x in {tried} cycles, max cycle {max(s.cycle_s for s in snaps) * 1000:.0f} ms, "
+        f"recovery {recovery * 1000:.0f} ms (bound {RECOVERY_BOUND_S * 1000:.0f} ms)"
+    )
     assert recovery < RECOVERY_BOUND_S
 
 
@@ -171,7 +192,9 @@ async def test_every_exception_code_is_kept_with_exception_quality():
             assert set(vic.quality.values()) == {Quality.EXCEPTION}, code
             assert vic.exception_code == code and f"{code:#04x}" in vic.error
             assert vic.state is CommState.FAILING
-            assert snap.meters["NB"].state is CommState.OK and snap.meters["OT"].state is CommState.OK
+            assert (
+                snap.meters["NB"].state is CommState.OK and snap.meters["OT"].state is CommState.OK
+            )
             assert_values_right(snap)
             nxt = (await b.poller.poll_once()).meters["VIC"]
             if code in (0x0A, 0x0B):
@@ -198,8 +221,10 @@ async def test_late_answer_is_dropped_not_shown_in_a_later_cycle():
         assert all(s.meters["OT"].state is CommState.OK for s in snaps)
         # the deadline follows the slowest healthy endpoint: 1.5 x 0.15 s + 50 ms
         assert max(s.cycle_s for s in snaps) <= 1.5 * 0.15 + 0.05 + SLACK_S
-    print(f"\nlate 0.15 s: dropped {b.poller.late_answers} late answers; cycles "
-          f"{[round(s.cycle_s * 1000) for s in snaps]} ms")
+    print(
+        f"\nlate 0.15 s: dropped {b.poller.late_answers} late answers; cycles "
+        f"{[round(s.cycle_s * 1000) for s in snaps]} ms"
+    )
 
 
 async def test_dead_meter_never_stalls_the_cycle():
@@ -210,8 +235,10 @@ async def test_dead_meter_never_stalls_the_cycle():
         b.h.set(1, "silent")
         snaps = await b.cycles(20)
     worst = max(s.cycle_s for s in snaps)
-    print(f"\ndead meter, timeout {timeout} s x {RETRIES + 1}: worst cycle {worst * 1000:.0f} ms, median "
-          f"{sorted(s.cycle_s for s in snaps)[10] * 1000:.0f} ms (before: up to {timeout * (RETRIES + 1) * 1000:.0f} ms)")
+    print(
+        f"\ndead meter, timeout {timeout} s x {RETRIES + 1}: worst cycle {worst * 1000:.0f} ms, median "
+        f"{sorted(s.cycle_s for s in snaps)[10] * 1000:.0f} ms (before: up to {timeout * (RETRIES + 1) * 1000:.0f} ms)"
+    )
     assert worst <= INTERVAL_S + SLACK_S
     assert all(s.meters["OT"].state is CommState.OK for s in snaps)
     assert [s.seq for s in snaps] == list(range(snaps[0].seq, snaps[0].seq + 20))

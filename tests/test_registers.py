@@ -23,24 +23,37 @@ from meas.model import RegisterSpec
 from meas.registers import DecodeError, decode, encode, raw_to_words, words_to_raw
 
 DT = AsyncModbusTcpClient.DATATYPE
-PM_TYPE = {"int16": DT.INT16, "uint16": DT.UINT16, "int32": DT.INT32, "uint32": DT.UINT32,
-           "float32": DT.FLOAT32, "float64": DT.FLOAT64}
+PM_TYPE = {
+    "int16": DT.INT16,
+    "uint16": DT.UINT16,
+    "int32": DT.INT32,
+    "uint32": DT.UINT32,
+    "float32": DT.FLOAT32,
+    "float64": DT.FLOAT64,
+}
 # (word_order, byte_order) for the four common layouts of a 32-bit value with bytes A B C D
-LAYOUT = {"ABCD": ("big", "big"), "CDAB": ("little", "big"), "BADC": ("big", "little"),
-          "DCBA": ("little", "little")}
+LAYOUT = {
+    "ABCD": ("big", "big"),
+    "CDAB": ("little", "big"),
+    "BADC": ("big", "little"),
+    "DCBA": ("little", "little"),
+}
 
 
 def _words(pattern: int, n: int) -> list[int]:
     return [(pattern >> (16 * (n - 1 - i))) & 0xFFFF for i in range(n)]
 
 
-@pytest.mark.parametrize("value,pattern", [
-    (1.0, 0x3F800000),  # IEEE 754-2008 binary32
-    (-2.0, 0xC0000000),
-    (3.14159274, 0x40490FDB),  # nearest binary32 to pi
-    (230.0, 0x43660000),
-    (0.0, 0x00000000),
-])
+@pytest.mark.parametrize(
+    "value,pattern",
+    [
+        (1.0, 0x3F800000),  # IEEE 754-2008 binary32
+        (-2.0, 0xC0000000),
+        (3.14159274, 0x40490FDB),  # nearest binary32 to pi
+        (230.0, 0x43660000),
+        (0.0, 0x00000000),
+    ],
+)
 def test_float32_bit_patterns(value, pattern):
     assert struct.unpack(">I", struct.pack(">f", value))[0] == pattern  # cross-check with struct
     words = _words(pattern, 2)
@@ -49,11 +62,14 @@ def test_float32_bit_patterns(value, pattern):
     assert words_to_raw(words, "float32") == struct.unpack(">f", struct.pack(">I", pattern))[0]
 
 
-@pytest.mark.parametrize("value,pattern", [
-    (1.0, 0x3FF0000000000000),  # IEEE 754-2008 binary64
-    (-2.0, 0xC000000000000000),
-    (math.pi, 0x400921FB54442D18),
-])
+@pytest.mark.parametrize(
+    "value,pattern",
+    [
+        (1.0, 0x3FF0000000000000),  # IEEE 754-2008 binary64
+        (-2.0, 0xC000000000000000),
+        (math.pi, 0x400921FB54442D18),
+    ],
+)
 def test_float64_bit_patterns(value, pattern):
     assert struct.unpack(">Q", struct.pack(">d", value))[0] == pattern
     assert raw_to_words(value, "float64") == _words(pattern, 4)
@@ -71,16 +87,21 @@ def test_integer_encodings():
     assert raw_to_words(70000, "int16") == [0x7FFF]  # clipped to the type's range
 
 
-@pytest.mark.parametrize("layout,words", [
-    ("ABCD", [0x4049, 0x0FDB]),
-    ("CDAB", [0x0FDB, 0x4049]),
-    ("BADC", [0x4940, 0xDB0F]),
-    ("DCBA", [0xDB0F, 0x4940]),
-])
+@pytest.mark.parametrize(
+    "layout,words",
+    [
+        ("ABCD", [0x4049, 0x0FDB]),
+        ("CDAB", [0x0FDB, 0x4049]),
+        ("BADC", [0x4940, 0xDB0F]),
+        ("DCBA", [0xDB0F, 0x4940]),
+    ],
+)
 def test_word_and_byte_orders_of_pi(layout, words):
     wo, bo = LAYOUT[layout]
     assert raw_to_words(3.14159274, "float32", wo, bo) == words
-    assert words_to_raw(words, "float32", wo, bo) == struct.unpack(">f", bytes.fromhex("40490FDB"))[0]
+    assert (
+        words_to_raw(words, "float32", wo, bo) == struct.unpack(">f", bytes.fromhex("40490FDB"))[0]
+    )
 
 
 def test_registers_are_big_endian_on_the_wire():
@@ -99,16 +120,24 @@ def _values(dtype: str):
         return st.floats(width=32, allow_nan=False, allow_infinity=False)
     if dtype == "float64":
         return st.floats(allow_nan=False, allow_infinity=False)
-    lo, hi = {"int16": (-(2**15), 2**15 - 1), "uint16": (0, 2**16 - 1),
-              "int32": (-(2**31), 2**31 - 1), "uint32": (0, 2**32 - 1)}[dtype]
+    lo, hi = {
+        "int16": (-(2**15), 2**15 - 1),
+        "uint16": (0, 2**16 - 1),
+        "int32": (-(2**31), 2**31 - 1),
+        "uint32": (0, 2**32 - 1),
+    }[dtype]
     return st.integers(lo, hi)
 
 
 @st.composite
 def typed_values(draw):
     dtype = draw(st.sampled_from(list(PM_TYPE)))
-    return dtype, draw(_values(dtype)), draw(st.sampled_from(["big", "little"])), draw(
-        st.sampled_from(["big", "little"]))
+    return (
+        dtype,
+        draw(_values(dtype)),
+        draw(st.sampled_from(["big", "little"])),
+        draw(st.sampled_from(["big", "little"])),
+    )
 
 
 @settings(max_examples=400, deadline=None)
@@ -125,12 +154,23 @@ def test_agrees_with_pymodbus_conversions(tv):
 
 
 @settings(max_examples=300, deadline=None)
-@given(tv=typed_values(), scale=st.sampled_from([1.0, 0.1, 0.01, 0.001, 0.0001]),
-       offset=st.sampled_from([0.0, -40.0, 1000.0]))
+@given(
+    tv=typed_values(),
+    scale=st.sampled_from([1.0, 0.1, 0.01, 0.001, 0.0001]),
+    offset=st.sampled_from([0.0, -40.0, 1000.0]),
+)
 def test_encode_decode_round_trip_with_scale(tv, scale, offset):
     dtype, raw, wo, bo = tv
-    s = RegisterSpec(key="p.T", kind="holding", address=0, dtype=dtype, word_order=wo, byte_order=bo,  # type: ignore[arg-type]
-                     scale=scale, offset=offset)
+    s = RegisterSpec(
+        key="p.T",
+        kind="holding",
+        address=0,
+        dtype=dtype,
+        word_order=wo,
+        byte_order=bo,  # type: ignore[arg-type]
+        scale=scale,
+        offset=offset,
+    )
     value = raw * scale + offset
     assert len(encode(s, value)) == s.count
     got = decode(s, encode(s, value))

@@ -29,7 +29,14 @@ sim_faults = pytest.importorskip("meas.sim.faults")
 from meas.profile import load_profile  # noqa: E402
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
-NORMAL = {"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open", "RX": "open", "LB2": "closed"}
+NORMAL = {
+    "CB1": "closed",
+    "SW2": "closed",
+    "SW3": "closed",
+    "TIE": "open",
+    "RX": "open",
+    "LB2": "closed",
+}
 T0 = datetime(2026, 12, 1, 22, 15, 0, tzinfo=UTC)
 
 
@@ -49,7 +56,14 @@ def record_sim_session(folder: Path, faults: list[str]) -> Path:
         captured: list = []
         for k in range(n_settle + n_capture):
             snap = sim_meters.snapshot_from_sim(
-                profile, NORMAL, fl, rng, seq, t_mono=100.0 + 0.2 * seq, ideal=ideal, previous=prev,
+                profile,
+                NORMAL,
+                fl,
+                rng,
+                seq,
+                t_mono=100.0 + 0.2 * seq,
+                ideal=ideal,
+                previous=prev,
                 time_utc=T0 + timedelta(seconds=0.2 * seq),
             )
             role = "settling" if k < n_settle else "capture"
@@ -61,9 +75,15 @@ def record_sim_session(folder: Path, faults: list[str]) -> Path:
             history.append(snap)
             seq, prev = seq + 1, snap
         status = overall(captured).value  # as the runner does: the worst result of the captures
-        j.record_step(step, "accepted", outcome=status, operator="ana",
-                      reason="M5 phase B CT reversed, rewiring booked" if status == "fail" else None,
-                      settle_s=0.8, actual_switches=NORMAL)
+        j.record_step(
+            step,
+            "accepted",
+            outcome=status,
+            operator="ana",
+            reason="M5 phase B CT reversed, rewiring booked" if status == "fail" else None,
+            settle_s=0.8,
+            actual_switches=NORMAL,
+        )
     j.record_event("note", "bench handed back", operator="ana")
     j.close()
     return path
@@ -99,7 +119,12 @@ def test_recheck_notices_an_edited_measurement(sim_dataset: Path, tmp_path: Path
     p = copy / "data" / "measurements.parquet"
     df = pd.read_parquet(p)
     snap = int(load_dataset(copy, tables=["checks"])["checks"]["snapshot"].iloc[-1])
-    sel = (df["snapshot"] == snap) & (df["meter"] == "M1") & (df["quantity"] == "p") & (df["phase"] == "T")
+    sel = (
+        (df["snapshot"] == snap)
+        & (df["meter"] == "M1")
+        & (df["quantity"] == "p")
+        & (df["phase"] == "T")
+    )
     df.loc[sel, "value"] = df.loc[sel, "value"] * 1.5
     pq.write_table(pa.Table.from_pandas(df, preserve_index=False), p)
     pkg = json.loads((copy / "datapackage.json").read_text())
@@ -134,7 +159,9 @@ class _Refs(html.parser.HTMLParser):
                 self.refs.append(f"{tag}.{k}={v}")
 
 
-def test_report_is_one_self_contained_file_with_failures_and_caution(sim_dataset: Path, tmp_path: Path) -> None:
+def test_report_is_one_self_contained_file_with_failures_and_caution(
+    sim_dataset: Path, tmp_path: Path
+) -> None:
     html_path, md_path = write_report(sim_dataset, tmp_path / "report.html")
     text = html_path.read_text()
     md = md_path.read_text()
@@ -145,7 +172,13 @@ def test_report_is_one_self_contained_file_with_failures_and_caution(sim_dataset
         assert html_escape(sentence) in text and sentence.replace("|", "\\|") in md
     assert html_escape(CAUTION) in text and CAUTION in md
     assert "waived" in text and "M5 phase B CT reversed, rewiring booked" in text
-    for words in ("Sign-off", "Commissioning engineer", "Witness", "Sequence", "Bench and instruments"):
+    for words in (
+        "Sign-off",
+        "Commissioning engineer",
+        "Witness",
+        "Sequence",
+        "Bench and instruments",
+    ):
         assert words in text and words in md
     assert "<svg" in text and "limit" in text
     parser = _Refs()
@@ -155,8 +188,13 @@ def test_report_is_one_self_contained_file_with_failures_and_caution(sim_dataset
     assert sorted(p.name for p in tmp_path.iterdir()) == ["report.html", "report.md"]
     # key readings: M1's median P of the radial-sign-off captures, recomputed from the dataset
     m = load_dataset(sim_dataset, tables=["measurements"])["measurements"]
-    sel = m[(m["step"] == "radial-sign-off") & (m["role"] == "capture") & (m["meter"] == "M1") & (m["quantity"] == "p")
-            & (m["phase"] == "T")]
+    sel = m[
+        (m["step"] == "radial-sign-off")
+        & (m["role"] == "capture")
+        & (m["meter"] == "M1")
+        & (m["quantity"] == "p")
+        & (m["phase"] == "T")
+    ]
     from meas.report import _fmt
 
     assert _fmt(float(np.median(sel["value"]))) in text

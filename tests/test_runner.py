@@ -113,8 +113,15 @@ async def make_session(tmp_path):
 
     async def make(sequence: str = TEST_SEQUENCE, edit=None, faults=(), name="bench") -> Session:
         profile = write_bench(tmp_path / name, sequence, edit)
-        s = await Session.new(profile, "T. Tester", sessions_dir=tmp_path / "sessions",
-                              session_id=f"test-{name}", simulate=True, faults=faults, seed=7)
+        s = await Session.new(
+            profile,
+            "T. Tester",
+            sessions_dir=tmp_path / "sessions",
+            session_id=f"test-{name}",
+            simulate=True,
+            faults=faults,
+            seed=7,
+        )
         made.append(s)
         return s
 
@@ -144,19 +151,37 @@ async def test_full_walk_through_every_kind(make_session):
     assert v.action == "accept", v.results[:3]
     assert v.overall == "consistent"
     r.accept()
-    assert states_of(s, "radial") == ["waiting", "verified", "settling", "capturing", "reviewing", "accepted"]
-    settle_rows = [h for h in s.journal.step_history() if h["step"] == "radial" and h["state"] == "capturing"]
+    assert states_of(s, "radial") == [
+        "waiting",
+        "verified",
+        "settling",
+        "capturing",
+        "reviewing",
+        "accepted",
+    ]
+    settle_rows = [
+        h for h in s.journal.step_history() if h["step"] == "radial" and h["state"] == "capturing"
+    ]
     assert settle_rows[0]["settle_s"] is not None and settle_rows[0]["settle_s"] >= 0.0
-    roles = [row["role"] for row in s.journal._conn.execute(
-        "SELECT role FROM snapshot WHERE step = 'radial' ORDER BY id")]
+    roles = [
+        row["role"]
+        for row in s.journal._conn.execute(
+            "SELECT role FROM snapshot WHERE step = 'radial' ORDER BY id"
+        )
+    ]
     assert roles.count("capture") == 2 and "settling" in roles
     n_checks = s.journal._conn.execute(
-        "SELECT count(*) FROM check_result WHERE step = 'radial'").fetchone()[0]
+        "SELECT count(*) FROM check_result WHERE step = 'radial'"
+    ).fetchone()[0]
     assert n_checks > 0
 
     # remote step: two deliberate steps
     v = r.view()
-    assert v.step.id == "rx-in" and v.action == "request_remote" and v.remote_todo == (("RX", "closed"),)
+    assert (
+        v.step.id == "rx-in"
+        and v.action == "request_remote"
+        and v.remote_todo == (("RX", "closed"),)
+    )
     with pytest.raises(BenchwalkError, match="request RX closed first"):
         await r.confirm_remote("RX", "closed", "T. Tester")
     with pytest.raises(BenchwalkError, match="operated by hand"):
@@ -180,7 +205,10 @@ async def test_full_walk_through_every_kind(make_session):
     assert s.bench.switch_states()["RX"] == "closed"
     v = await until(s, in_state(State.REVIEWING))
     r.accept()
-    events = [e[0] for e in s.journal._conn.execute("SELECT kind FROM event WHERE step='rx-in' ORDER BY id")]
+    events = [
+        e[0]
+        for e in s.journal._conn.execute("SELECT kind FROM event WHERE step='rx-in' ORDER BY id")
+    ]
     assert events[:3] == ["remote_requested", "remote_confirmed", "remote_result"]
 
     # hold: named sign-off
@@ -189,7 +217,9 @@ async def test_full_walk_through_every_kind(make_session):
         r.sign(" ")
     r.sign("J. Lead")
     last = s.journal.step_history()[-2]
-    assert last["step"] == "sign-off" and last["state"] == "accepted" and last["operator"] == "J. Lead"
+    assert (
+        last["step"] == "sign-off" and last["state"] == "accepted" and last["operator"] == "J. Lead"
+    )
 
     # manual step: the technician closes the tie by hand, then confirms
     v = r.view()
@@ -236,7 +266,13 @@ async def test_gate_block_and_allow_with_a_reversed_ct(make_session):
         r.skip("  ")
     r.skip("M2 phase B CT polarity suspected; to be rewired")
     hist = states_of(s, "radial")
-    assert hist[hist.index("retaken"):] == ["retaken", "settling", "capturing", "reviewing", "skipped"]
+    assert hist[hist.index("retaken") :] == [
+        "retaken",
+        "settling",
+        "capturing",
+        "reviewing",
+        "skipped",
+    ]
     assert r.outcomes["radial"].status is Status.FAIL
     assert r.verdict() is Status.FAIL
 
@@ -281,10 +317,15 @@ async def test_remote_status_mismatch_stops_the_sequence(make_session):
     # RX's mechanism made slower than the verify timeout: the command "fails" to take effect
     def slow_rx(text: str) -> str:
         text = fast_profile_text(text, verify_timeout_s=0.3)
-        return text.replace("command_coil = 4\nstatus = { kind = \"discrete\", address = 4 }\noperate_time_s = 0.1",
-                            "command_coil = 4\nstatus = { kind = \"discrete\", address = 4 }\noperate_time_s = 2.0")
+        return text.replace(
+            'command_coil = 4\nstatus = { kind = "discrete", address = 4 }\noperate_time_s = 0.1',
+            'command_coil = 4\nstatus = { kind = "discrete", address = 4 }\noperate_time_s = 2.0',
+        )
+
     s = await make_session(edit=slow_rx)
-    assert s.profile.switch("RX").operate_time_s == 2.0 and s.profile.control.verify_timeout_s == 0.3
+    assert (
+        s.profile.switch("RX").operate_time_s == 2.0 and s.profile.control.verify_timeout_s == 0.3
+    )
     r = s.runner
     await until(s, in_state(State.WAITING))
     r.capture()
@@ -301,7 +342,9 @@ async def test_remote_status_mismatch_stops_the_sequence(make_session):
 
 
 async def test_remote_refused_when_control_disabled(tmp_path):
-    path = write_bench(tmp_path / "off", edit=lambda t: t.replace("enabled = true ", "enabled = false ", 1))
+    path = write_bench(
+        tmp_path / "off", edit=lambda t: t.replace("enabled = true ", "enabled = false ", 1)
+    )
     # the session refuses a sequence with remote steps when control is off
     with pytest.raises(ProfileError, match="control is disabled"):
         await Session.new(path, "T. Tester", sessions_dir=tmp_path / "s", simulate=True)
@@ -358,12 +401,20 @@ capture = { snapshots = 20, interval_s = 0.1, settle = { window_s = 0.5, rel_spr
 
 
 def step_events(s: Session, step_id: str) -> list[str]:
-    return [e[0] for e in s.journal._conn.execute("SELECT kind FROM event WHERE step=? ORDER BY id", (step_id,))]
+    return [
+        e[0]
+        for e in s.journal._conn.execute(
+            "SELECT kind FROM event WHERE step=? ORDER BY id", (step_id,)
+        )
+    ]
 
 
 async def capturing(make_session, verify_timeout_s: float = 3.0) -> Session:
     """A session on SLOW_CAPTURE_SEQUENCE whose radial step has just begun capturing."""
-    s = await make_session(SLOW_CAPTURE_SEQUENCE, edit=lambda t: fast_profile_text(t, verify_timeout_s=verify_timeout_s))
+    s = await make_session(
+        SLOW_CAPTURE_SEQUENCE,
+        edit=lambda t: fast_profile_text(t, verify_timeout_s=verify_timeout_s),
+    )
     await until(s, in_state(State.WAITING))
     s.runner.capture()
     await until(s, in_state(State.CAPTURING))
@@ -386,7 +437,9 @@ async def test_a_plc_missing_polls_holds_the_capture_instead_of_aborting_it(make
     assert "status_unread" in kinds
     assert "config_changed" not in kinds and "status_lost" not in kinds
     # no capture was taken while the status was unread: every capture row has a known state
-    rows = s.journal._conn.execute("SELECT id FROM snapshot WHERE role='capture' AND step='radial'").fetchall()
+    rows = s.journal._conn.execute(
+        "SELECT id FROM snapshot WHERE role='capture' AND step='radial'"
+    ).fetchall()
     assert len(rows) == 20
     for (row,) in rows:
         assert "unknown" not in s.journal.read_snapshot(row).switches.values()
@@ -413,12 +466,16 @@ async def test_a_status_read_in_the_wrong_state_still_sends_the_step_back_at_onc
 
 
 async def test_a_capture_with_the_plc_silent_asks_to_check_the_plc_not_the_switches(make_session):
-    s = await make_session(edit=lambda t: fast_profile_text(t, verify_timeout_s=0.5), faults=["offline:PLC1"])
+    s = await make_session(
+        edit=lambda t: fast_profile_text(t, verify_timeout_s=0.5), faults=["offline:PLC1"]
+    )
     r = s.runner
     await until(s, in_state(State.WAITING))
     r.capture()
     v = await until(s, lambda v: v.state is State.WAITING and v.message, timeout_s=8)
-    assert "CB1 not read, expected closed" in v.message and "check the PLC and its link" in v.message
+    assert (
+        "CB1 not read, expected closed" in v.message and "check the PLC and its link" in v.message
+    )
     assert "set the switches" not in v.message
     assert states_of(s, "radial") == ["waiting"]  # never verified, so never settled or captured
 
@@ -426,8 +483,13 @@ async def test_a_capture_with_the_plc_silent_asks_to_check_the_plc_not_the_switc
 ONE_STEP = SLOW_CAPTURE_SEQUENCE.replace("snapshots = 20", "snapshots = 2")
 
 
-@pytest.mark.parametrize("decision, code, word", [("accept", 0, "PASS"), ("skip", 1, "INCOMPLETE (1 of 1 steps skipped: radial)")])
-async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(make_session, decision, code, word):
+@pytest.mark.parametrize(
+    "decision, code, word",
+    [("accept", 0, "PASS"), ("skip", 1, "INCOMPLETE (1 of 1 steps skipped: radial)")],
+)
+async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(
+    make_session, decision, code, word
+):
     import io
 
     from meas.commands.run import summarize
@@ -442,29 +504,41 @@ async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(make_sessi
     else:
         r.skip("bench not available today")
     assert r.finished
-    assert ("incomplete as a record: 1 step(s) skipped (radial)" in r.view().next_action) is (decision == "skip")
+    assert ("incomplete as a record: 1 step(s) skipped (radial)" in r.view().next_action) is (
+        decision == "skip"
+    )
     out = io.StringIO()
     assert summarize(s, out) == code
     assert out.getvalue().rstrip().endswith(f"Session {s.session_id}: {word}")
 
 
-async def test_the_demo_technician_gives_up_on_a_silent_plc_and_the_run_ends_incomplete(make_session):
+async def test_the_demo_technician_gives_up_on_a_silent_plc_and_the_run_ends_incomplete(
+    make_session,
+):
     import io
 
     from meas.commands.demo import SimTechnician
     from meas.commands.run import drive
 
-    sequence = ONE_STEP + TEST_SEQUENCE.split("[[step]]", 3)[2].join(["[[step]]", ""])  # + the remote RX step
-    s = await make_session(sequence, edit=lambda t: fast_profile_text(t, verify_timeout_s=0.3), faults=["offline:PLC1"])
+    sequence = ONE_STEP + TEST_SEQUENCE.split("[[step]]", 3)[2].join(
+        ["[[step]]", ""]
+    )  # + the remote RX step
+    s = await make_session(
+        sequence, edit=lambda t: fast_profile_text(t, verify_timeout_s=0.3), faults=["offline:PLC1"]
+    )
     out = io.StringIO()
     code = await drive(s, SimTechnician(s.bench, out=out, attempts=2), out)
     text = out.getvalue()
     assert code == 1, text
     assert "gave up after 2 tries" in text and "check the PLC and its link" in text
-    assert "remote command refused" in text and "no command is sent while switch status cannot be read" in text
-    assert [c for c in s.bench.plc.commands if c[3] != "hand"] == []  # nothing was switched remotely
+    assert (
+        "remote command refused" in text
+        and "no command is sent while switch status cannot be read" in text
+    )
+    assert [
+        c for c in s.bench.plc.commands if c[3] != "hand"
+    ] == []  # nothing was switched remotely
     assert "INCOMPLETE (2 of 2 steps skipped: radial, rx-in)" in text
-
 
 
 LB2_OUT = """
@@ -508,8 +582,13 @@ async def test_live_noise_is_not_judged_on_a_switching_transient(make_session):
     seen: list[CheckResult] = []
     t_end = time.monotonic() + 4.0
     overall_seen: set[str] = set()
-    await until(s, lambda v: seen.append(m5_noise(v)) or overall_seen.add(v.overall) or time.monotonic() > t_end,
-                timeout_s=10)
+    await until(
+        s,
+        lambda v: (
+            seen.append(m5_noise(v)) or overall_seen.add(v.overall) or time.monotonic() > t_end
+        ),
+        timeout_s=10,
+    )
     assert "settling" in overall_seen  # still waiting for the confirm, but the readings move
     r.confirm_operation()
     await until(s, lambda v: seen.append(m5_noise(v)) or v.state is State.REVIEWING, timeout_s=25)
@@ -527,7 +606,9 @@ async def test_a_remote_first_step_runs_headless_to_a_pass(make_session):
     from meas.commands.demo import SimTechnician
     from meas.commands.run import drive
 
-    remote_first = TEST_SEQUENCE.split("[[step]]", 3)[2].join(["[[step]]", ""])  # the remote RX step alone
+    remote_first = TEST_SEQUENCE.split("[[step]]", 3)[2].join(
+        ["[[step]]", ""]
+    )  # the remote RX step alone
     s = await make_session(remote_first)
     out = io.StringIO()
     code = await drive(s, SimTechnician(s.bench, out=out), out)

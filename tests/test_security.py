@@ -60,11 +60,15 @@ def quick_switches(text: str) -> str:
 
 
 def remote_coils(profile) -> dict[str, int]:
-    return {s.id: s.command_coil for s in profile.switches
-            if s.operation == "remote" and s.command_coil is not None}
+    return {
+        s.id: s.command_coil
+        for s in profile.switches
+        if s.operation == "remote" and s.command_coil is not None
+    }
 
 
 # ---------------------------------------------------------------- the recorder itself
+
 
 def test_recorder_decodes_what_pymodbus_encodes():
     """Our wire parser against pymodbus's own request encoders, one per writing function code."""
@@ -74,9 +78,20 @@ def test_recorder_decodes_what_pymodbus_encodes():
         (WriteSingleRegisterRequest(address=9, registers=[513]), 6, 9, (513,)),
         (WriteMultipleCoilsRequest(address=3, bits=[True, False, True]), 15, 3, (1, 0, 1)),
         (WriteMultipleRegistersRequest(address=100, registers=[1, 65535]), 16, 100, (1, 65535)),
-        (MaskWriteRegisterRequest(address=5, and_mask=0x00F2, or_mask=0x0025), 22, 5, (0x00F2, 0x0025)),
-        (ReadWriteMultipleRegistersRequest(read_address=1, read_count=2, write_address=30,
-                                           write_registers=[7, 8]), 23, 30, (7, 8)),
+        (
+            MaskWriteRegisterRequest(address=5, and_mask=0x00F2, or_mask=0x0025),
+            22,
+            5,
+            (0x00F2, 0x0025),
+        ),
+        (
+            ReadWriteMultipleRegistersRequest(
+                read_address=1, read_count=2, write_address=30, write_registers=[7, 8]
+            ),
+            23,
+            30,
+            (7, 8),
+        ),
     ]
     for pdu, fc, address, values in cases:
         raw = bytes([pdu.function_code]) + pdu.encode()
@@ -85,6 +100,7 @@ def test_recorder_decodes_what_pymodbus_encodes():
 
 
 # ---------------------------------------------------------------- 1. control off by default
+
 
 def test_profile_without_control_table_has_control_off(tmp_path):
     text = quick_switches(DEMO.read_text())
@@ -151,8 +167,13 @@ def live_bench(tmp_path_factory):
         prof, recorders = await recording_profile(profile, bench.bound)
         poller = Poller(prof)
         await poller.start()
-        state.update(bench=bench, prof=prof, recorders=recorders, poller=poller,
-                     control=SwitchControl(prof, poller))
+        state.update(
+            bench=bench,
+            prof=prof,
+            recorders=recorders,
+            poller=poller,
+            control=SwitchControl(prof, poller),
+        )
 
     async def down():
         await state["poller"].close()
@@ -171,14 +192,21 @@ SWITCH_IDS = ["CB1", "SW2", "SW3", "TIE", "RX", "LB2", "cb1", "CB1 ", "NOPE", ""
 operations = st.lists(
     st.tuples(
         st.one_of(st.sampled_from(SWITCH_IDS), st.text(max_size=6)),
-        st.one_of(st.sampled_from(["open", "closed"]), st.sampled_from(["OPEN", "close", "", "1"]), st.text(max_size=4)),
+        st.one_of(
+            st.sampled_from(["open", "closed"]),
+            st.sampled_from(["OPEN", "close", "", "1"]),
+            st.text(max_size=4),
+        ),
         st.one_of(st.sampled_from(["A. Tech", "", "   ", "\t"]), st.text(max_size=8)),
     ),
-    min_size=1, max_size=5,
+    min_size=1,
+    max_size=5,
 )
 
 
-@settings(max_examples=14, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(
+    max_examples=14, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
 @given(ops=operations)
 def test_only_named_command_coils_are_ever_written(live_bench, ops):
     bench, poller, ctl = live_bench["bench"], live_bench["poller"], live_bench["control"]
@@ -207,7 +235,12 @@ def test_only_named_command_coils_are_ever_written(live_bench, ops):
             assert len(new) == 1, new
             w = new[0]
             assert (w.port, w.unit, w.function_code, w.address, w.values) == (
-                plc_port, prof.plcs[0].unit_id, 5, coils[sid], (1 if state == "closed" else 0,))
+                plc_port,
+                prof.plcs[0].unit_id,
+                5,
+                coils[sid],
+                (1 if state == "closed" else 0,),
+            )
             assert result.ok and result.final_status == state and result.confirmed_by == who
             await poller.poll_once()
 
@@ -216,19 +249,35 @@ def test_only_named_command_coils_are_ever_written(live_bench, ops):
     assert written <= allowed
     # the bench's own server-side log saw the very same writes (the demo proof relies on it)
     assert [(w.unit, w.function_code, w.address, w.values) for w in bench.writes_seen] == [
-        (q.unit, q.function_code, q.address, q.values) for q in wire_writes()]
+        (q.unit, q.function_code, q.address, q.values) for q in wire_writes()
+    ]
     # and only the PLC endpoint ever got one; meters only ever read
     assert all(q.port == plc_port for q in wire_writes())
     meter_ports = {m.transport.port for m in prof.meters}
-    assert all(q.function_code in (1, 2, 3, 4)
-               for r in recorders if r.port in meter_ports for q in r.requests)
+    assert all(
+        q.function_code in (1, 2, 3, 4)
+        for r in recorders
+        if r.port in meter_ports
+        for q in r.requests
+    )
 
 
-WRITE_NAMES = {"write_coil", "write_coils", "write_register", "write_registers",
-               "readwrite_registers", "mask_write_register"}
-WRITE_PDUS = {"WriteSingleCoilRequest", "WriteMultipleCoilsRequest", "WriteSingleRegisterRequest",
-              "WriteMultipleRegistersRequest", "MaskWriteRegisterRequest",
-              "ReadWriteMultipleRegistersRequest"}
+WRITE_NAMES = {
+    "write_coil",
+    "write_coils",
+    "write_register",
+    "write_registers",
+    "readwrite_registers",
+    "mask_write_register",
+}
+WRITE_PDUS = {
+    "WriteSingleCoilRequest",
+    "WriteMultipleCoilsRequest",
+    "WriteSingleRegisterRequest",
+    "WriteMultipleRegistersRequest",
+    "MaskWriteRegisterRequest",
+    "ReadWriteMultipleRegistersRequest",
+}
 
 
 def _write_uses(tree: ast.AST) -> list[tuple[int, str]]:
@@ -241,7 +290,11 @@ def _write_uses(tree: ast.AST) -> list[tuple[int, str]]:
             hits.append((node.lineno, node.id))
         elif isinstance(node, ast.alias) and node.name.split(".")[-1] in WRITE_PDUS:
             hits.append((getattr(node, "lineno", 0), node.name))
-        elif isinstance(node, ast.Constant) and isinstance(node.value, str) and node.value in WRITE_NAMES | WRITE_PDUS:
+        elif (
+            isinstance(node, ast.Constant)
+            and isinstance(node.value, str)
+            and node.value in WRITE_NAMES | WRITE_PDUS
+        ):
             hits.append((node.lineno, repr(node.value)))
     return hits
 
@@ -257,10 +310,12 @@ def test_static_scan_only_control_writes_to_a_device():
     # and in control.py exactly one write: the switch's own command coil
     assert [name for _, name in found["meas/control.py"]] == ["write_coil"]
     src = (ROOT / "meas/control.py").read_text()
-    assert "write_coil(sw.command_coil, state == \"closed\"" in src
+    assert 'write_coil(sw.command_coil, state == "closed"' in src
     # the scanner does see writes when they are there
     assert _write_uses(ast.parse("c.write_register(1, 2)\ngetattr(c, 'write_coils')")) == [
-        (1, "write_register"), (2, "'write_coils'")]
+        (1, "write_register"),
+        (2, "'write_coils'"),
+    ]
 
 
 THREE_REMOTE = f"""
@@ -302,9 +357,26 @@ def test_headless_demo_writes_only_confirmed_command_coils(tmp_path):
     profile_path = write_bench(tmp_path / "bench", THREE_REMOTE, edit=quick_switches)
     log = tmp_path / "writes.jsonl"
     proc = subprocess.run(
-        [sys.executable, "-m", "meas.cli", "demo", "--headless", "--profile", str(profile_path),
-         "--sessions", str(tmp_path / "sessions"), "--out", str(tmp_path / "out"), "--seed", "3"],
-        capture_output=True, text=True, timeout=120, cwd=ROOT, env={**os.environ, WRITE_LOG_ENV: str(log)},
+        [
+            sys.executable,
+            "-m",
+            "meas.cli",
+            "demo",
+            "--headless",
+            "--profile",
+            str(profile_path),
+            "--sessions",
+            str(tmp_path / "sessions"),
+            "--out",
+            str(tmp_path / "out"),
+            "--seed",
+            "3",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        cwd=ROOT,
+        env={**os.environ, WRITE_LOG_ENV: str(log)},
     )
     assert proc.returncode in (0, 1), proc.stdout[-2000:] + proc.stderr[-2000:]
     assert "Traceback" not in proc.stderr
@@ -316,7 +388,9 @@ def test_headless_demo_writes_only_confirmed_command_coils(tmp_path):
         events = [dict(r) for r in j._conn.execute("SELECT * FROM event ORDER BY id")]
     confirmations = [e for e in events if e["kind"] == "remote_confirmed"]
     wanted = [(sid, st_) for s in profile.steps for sid, st_ in s.operate.items()]
-    assert [(json.loads(e["data"])["switch"], json.loads(e["data"])["state"]) for e in confirmations] == wanted
+    assert [
+        (json.loads(e["data"])["switch"], json.loads(e["data"])["state"]) for e in confirmations
+    ] == wanted
     assert len(writes) == len(wanted) == 3
     by_coil = {c: s for s, c in coils.items()}
     for w, e in zip(writes, confirmations, strict=True):
@@ -330,6 +404,7 @@ def test_headless_demo_writes_only_confirmed_command_coils(tmp_path):
 
 
 # ---------------------------------------------------------------- 2. loopback only
+
 
 def _listening(pid: int) -> set[tuple[str, int]]:
     conns = psutil.Process(pid).net_connections(kind="inet")
@@ -355,17 +430,31 @@ def test_simulated_bench_listens_on_loopback_only(tmp_path):
 
 def test_benchwalk_sim_command_listens_on_loopback_only(tmp_path):
     profile = write_bench(tmp_path)
-    proc = subprocess.Popen([sys.executable, "-m", "meas.cli", "sim", str(profile), "--free-ports"],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "meas.cli", "sim", str(profile), "--free-ports"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        cwd=ROOT,
+    )
     try:
         lines: list[str] = []
-        reader = threading.Thread(target=lambda: lines.extend(iter(proc.stdout.readline, "")), daemon=True)
+        reader = threading.Thread(
+            target=lambda: lines.extend(iter(proc.stdout.readline, "")), daemon=True
+        )
         reader.start()
         deadline = time.monotonic() + 30
         while not any(line.startswith("SIMULATION") for line in lines):
-            assert proc.poll() is None and time.monotonic() < deadline, proc.stderr.read() if proc.poll() else lines
+            assert proc.poll() is None and time.monotonic() < deadline, (
+                proc.stderr.read() if proc.poll() else lines
+            )
             time.sleep(0.05)
-        printed = {int(m.group(1)) for line in lines for m in [re.search(r"tcp://127\.0\.0\.1:(\d+)", line)] if m}
+        printed = {
+            int(m.group(1))
+            for line in lines
+            for m in [re.search(r"tcp://127\.0\.0\.1:(\d+)", line)]
+            if m
+        }
         listening = _listening(proc.pid)
         assert printed and printed <= {p for _, p in listening}
         assert {ip for ip, _ in listening} == {"127.0.0.1"}, listening
@@ -389,19 +478,26 @@ def _payloads(marker: Path) -> dict[str, str]:
     return {
         "python-in-strings": MINIMAL.replace('name = "Minimal spur bench"', f'name = "{code}"')
         .replace('label = "Spur head"', f'label = "{code}"')
-        .replace("instruction = \"Note the panel", f'instruction = """{{{code}}} $(touch {marker}) `touch {marker}`"""\n#')
+        .replace(
+            'instruction = "Note the panel',
+            f'instruction = """{{{code}}} $(touch {marker}) `touch {marker}`"""\n#',
+        )
         .replace("[sim]\n", f'[sim]\nfile = "/etc/hostname"\nhook = "{code}"\n', 1),
         "python-as-key": MINIMAL + f'\n[sim.more]\n"{code}" = 1\n',
         "yaml-merge": MINIMAL + "\n<<: *include\n",
         "bang-include": "!include /etc/passwd\n" + MINIMAL,
-        "hash-include": "#include \"/etc/passwd\"\n" + MINIMAL,
-        "sequence-etc-passwd": MINIMAL.split("[[step]]")[0] + '\n[sequence]\nfile = "/etc/passwd"\n',
-        "sequence-outside": MINIMAL.split("[[step]]")[0] + '\n[sequence]\nfile = "../outside/seq.toml"\n',
+        "hash-include": '#include "/etc/passwd"\n' + MINIMAL,
+        "sequence-etc-passwd": MINIMAL.split("[[step]]")[0]
+        + '\n[sequence]\nfile = "/etc/passwd"\n',
+        "sequence-outside": MINIMAL.split("[[step]]")[0]
+        + '\n[sequence]\nfile = "../outside/seq.toml"\n',
         "sequence-symlink-out": MINIMAL.split("[[step]]")[0] + '\n[sequence]\nfile = "link.toml"\n',
         "huge-int": MINIMAL.replace("frequency_hz = 50.0", "frequency_hz = 1" + "0" * 5000),
         "huge-float": MINIMAL.replace("frequency_hz = 50.0", "frequency_hz = 1e999"),
         "huge-port": MINIMAL.replace("port = 15121", "port = 18446744073709551617"),
-        "negative-address": MINIMAL.replace('"v_ln.A" = { address = 0 }', '"v_ln.A" = { address = -1 }'),
+        "negative-address": MINIMAL.replace(
+            '"v_ln.A" = { address = 0 }', '"v_ln.A" = { address = -1 }'
+        ),
         "deep-arrays": MINIMAL + "\n[sim.deep]\nx = " + "[" * 5000 + "]" * 5000 + "\n",
         "deep-inline": MINIMAL + "\n[sim.deeper]\nx = " + "{a=" * 3000 + "1" + "}" * 3000 + "\n",
         "deep-headers": MINIMAL + "\n[" + ".".join(["t"] * 3000) + "]\nx = 1\n",
@@ -416,12 +512,16 @@ def test_hostile_profile_is_plain_data_or_one_clear_problem(tmp_path, case, caps
     folder = tmp_path / "bench"
     folder.mkdir()
     (tmp_path / "outside").mkdir()
-    (tmp_path / "outside" / "seq.toml").write_text(MINIMAL.split("[[step]]", 1)[1].join(["[[step]]", ""]))
+    (tmp_path / "outside" / "seq.toml").write_text(
+        MINIMAL.split("[[step]]", 1)[1].join(["[[step]]", ""])
+    )
     (folder / "link.toml").symlink_to(tmp_path / "outside" / "seq.toml")
     text = _payloads(marker)[case]
     path = folder / "p.toml"
     raw = text.encode("utf-8")
-    path.write_bytes(raw.replace(b"Spur \x00 line", b"Spur \xff line") if case == "not-utf8" else raw)
+    path.write_bytes(
+        raw.replace(b"Spur \x00 line", b"Spur \xff line") if case == "not-utf8" else raw
+    )
     profile, problems = check_profile(path)
     if profile is None:
         assert problems
@@ -449,11 +549,14 @@ def test_hostile_strings_travel_as_text_through_journal_export_and_report(tmp_pa
     folder = tmp_path / "bench"
     folder.mkdir()
     text = _payloads(marker)["python-in-strings"].replace(
-        'label = "Load bank (via CT 20/5 A)"', 'label = "<script>alert(1)</script>"')
+        'label = "Load bank (via CT 20/5 A)"', 'label = "<script>alert(1)</script>"'
+    )
     path = folder / "p.toml"
     path.write_text(text)
     profile = load_profile(path)
-    j = Journal.create(tmp_path / "s.sqlite", profile, operator="<script>alert(2)</script>", session_id="s")
+    j = Journal.create(
+        tmp_path / "s.sqlite", profile, operator="<script>alert(2)</script>", session_id="s"
+    )
     # [sim.extra] file = "/etc/hostname" is data: the journal copies only the sequence file
     assert [name for name, _ in j.profile_files()] == ["p.toml"]
     j.record_event("note", "$(touch " + str(marker) + ")", operator="ana")
@@ -463,12 +566,16 @@ def test_hostile_strings_travel_as_text_through_journal_export_and_report(tmp_pa
     assert cli.main(["report", str(ds), "--out", str(html_path)]) == 0
     page = html_path.read_text()
     assert "<script>" not in page
-    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in page and "&lt;script&gt;alert(2)&lt;/script&gt;" in page
+    assert (
+        "&lt;script&gt;alert(1)&lt;/script&gt;" in page
+        and "&lt;script&gt;alert(2)&lt;/script&gt;" in page
+    )
     assert not marker.exists()
     assert sorted(p.name for p in (ds / "profile").iterdir()) == ["profile.toml"]
 
 
 # ---------------------------------------------------------------- 4. exports never clobber
+
 
 @pytest.fixture(scope="module")
 def small_journal(tmp_path_factory) -> Path:
@@ -510,13 +617,22 @@ export_session(Path(sys.argv[1]), Path(sys.argv[2]), progress=die)
 """
 
 
-def test_a_killed_export_leaves_a_partial_folder_that_the_next_export_clears(small_journal, tmp_path):
+def test_a_killed_export_leaves_a_partial_folder_that_the_next_export_clears(
+    small_journal, tmp_path
+):
     target = tmp_path / "ds"
-    child = subprocess.run([sys.executable, "-c", KILLED_EXPORT, str(small_journal), str(target)],
-                           capture_output=True, text=True, timeout=60, cwd=ROOT)
+    child = subprocess.run(
+        [sys.executable, "-c", KILLED_EXPORT, str(small_journal), str(target)],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        cwd=ROOT,
+    )
     assert child.returncode == -signal.SIGKILL, child.stderr
     left = sorted(p.name for p in tmp_path.iterdir())
-    assert len(left) == 1 and re.fullmatch(r"\.ds\.partial-\d+", left[0]), left  # what SIGKILL leaves
+    assert len(left) == 1 and re.fullmatch(r"\.ds\.partial-\d+", left[0]), (
+        left
+    )  # what SIGKILL leaves
     partial = tmp_path / left[0]
     assert (partial / "data").is_dir() and not target.exists()
     # things that look alike but are not ours, or not stale, must survive the clean-up
@@ -555,8 +671,13 @@ def test_session_export_of_the_demo_refuses_an_existing_out(small_journal, tmp_p
 def test_bound_profile_copy_keeps_hosts_on_loopback(tmp_path):
     """A profile naming another host is served on loopback unless ``host`` says otherwise."""
     profile = load_profile(write_bench(tmp_path))
-    far = dataclasses.replace(profile, meters=tuple(
-        dataclasses.replace(m, transport=dataclasses.replace(m.transport, host="192.0.2.10")) for m in profile.meters))
+    far = dataclasses.replace(
+        profile,
+        meters=tuple(
+            dataclasses.replace(m, transport=dataclasses.replace(m.transport, host="192.0.2.10"))
+            for m in profile.meters
+        ),
+    )
 
     async def go():
         async with SimulatedBench(far, port_map="free") as bench:

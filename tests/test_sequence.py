@@ -60,7 +60,14 @@ def test_demo_configurations_named_in_the_plan(demo):
     # the configurations the demo plan promises (designed for this bench, see the sequence file)
     confs = distinct_configurations(demo)
     dead = dict.fromkeys(["CB1", "SW2", "SW3", "TIE", "RX", "LB2"], "open")
-    radial = {"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open", "RX": "open", "LB2": "closed"}
+    radial = {
+        "CB1": "closed",
+        "SW2": "closed",
+        "SW3": "closed",
+        "TIE": "open",
+        "RX": "open",
+        "LB2": "closed",
+    }
     meshed = {**radial, "TIE": "closed", "RX": "closed"}
     transfer = {**meshed, "SW3": "open"}
     for c in (dead, radial, meshed, transfer):
@@ -77,7 +84,9 @@ def test_configuration_accumulates_and_changes(demo):
     assert changes(demo, i) == {"SW3": "open"}
     assert expected_for(demo, i) == after
     # all other switches carried over unchanged
-    assert {k: v for k, v in after.items() if k != "SW3"} == {k: v for k, v in before.items() if k != "SW3"}
+    assert {k: v for k, v in after.items() if k != "SW3"} == {
+        k: v for k, v in before.items() if k != "SW3"
+    }
     assert configuration_before(demo, 0) == {}
     # hold and note steps change nothing
     for j, s in enumerate(demo.steps):
@@ -111,22 +120,31 @@ def test_repeated_operation_and_empty_manual_step(tmp_path):
 
 def test_remote_steps_need_control_enabled(tmp_path):
     path = copy_with_sequence(
-        tmp_path, SEQ.read_text(),
+        tmp_path,
+        SEQ.read_text(),
         lambda t: t.replace("enabled = true ", "enabled = false ", 1),
     )
     profile = load_profile(path)
     assert profile.control.enabled is False
     problems = [str(p) for p in sequence_problems(profile)]
     remote_ids = [s.id for s in profile.steps if s.kind == "remote"]
-    assert remote_ids and all(any(r in p and "control is disabled" in p for p in problems) for r in remote_ids)
+    assert remote_ids and all(
+        any(r in p and "control is disabled" in p for p in problems) for r in remote_ids
+    )
 
 
 def test_remote_switch_changed_by_hand_is_reported(tmp_path):
     # a manual step that expects the remote reactor contactor to change: use a remote step
-    text = SEQ.read_text().replace(
-        'kind = "remote"\ninstruction = """Close the reactor contactor RX',
-        'kind = "manual"\ninstruction = """Close the reactor contactor RX',
-    ).replace('operate = { RX = "closed" }', 'expect = { RX = "closed" }')
+    text = (
+        SEQ.read_text()
+        .replace(
+            'kind = "remote"\ninstruction = """Close the reactor contactor RX',
+            'kind = "manual"\ninstruction = """Close the reactor contactor RX',
+        )
+        .replace('operate = { RX = "closed" }', 'expect = { RX = "closed" }')
+    )
     profile = load_profile(copy_with_sequence(tmp_path, text))
     problems = [str(p) for p in sequence_problems(profile)]
-    assert len(problems) == 1 and "reactor-in" in problems[0] and "remote switch" in problems[0], problems
+    assert len(problems) == 1 and "reactor-in" in problems[0] and "remote switch" in problems[0], (
+        problems
+    )

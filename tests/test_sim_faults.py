@@ -41,7 +41,9 @@ def profile():
     return load_profile(DEMO)
 
 
-def balanced(pf_angle_deg: float = 0.0, v: float = V_LN, i: float = 10.0, scale: float = 1.0) -> dict[str, float]:
+def balanced(
+    pf_angle_deg: float = 0.0, v: float = V_LN, i: float = 10.0, scale: float = 1.0
+) -> dict[str, float]:
     """Positive sequence, B lags A by 120 deg; current lags its voltage by ``pf_angle_deg``."""
     out = {"f.T": 50.0}
     for n, ph in enumerate("ABC"):
@@ -57,7 +59,9 @@ def wrap(deg: float) -> float:
 
 
 def values(profile, meter, ideal, faults=(), noise=False, seed=1):
-    return meter_values(profile, meter, ideal, list(faults), np.random.default_rng(seed), noise=noise)
+    return meter_values(
+        profile, meter, ideal, list(faults), np.random.default_rng(seed), noise=noise
+    )
 
 
 # ---------------------------------------------------------------- parsing
@@ -98,7 +102,9 @@ def test_parse_errors_are_one_clear_line(text, says):
 
 
 def test_fault_on_unknown_meter_names_the_profile(profile):
-    with pytest.raises(BenchwalkError, match=r"meter 'M9' is not in .*feeder_bench.toml; meters: M1"):
+    with pytest.raises(
+        BenchwalkError, match=r"meter 'M9' is not in .*feeder_bench.toml; meters: M1"
+    ):
         validate_faults(profile, [parse_fault("offline:M9")])
 
 
@@ -158,18 +164,25 @@ def test_phases_swapped_b_c_matches_reference_signature_at_pf1(profile):
     P_total = 0."""
     ok = values(profile, "M1", balanced(0.0))
     bad = values(profile, "M1", balanced(0.0), [parse_fault("phases-swapped:M1:B-C")])
-    assert [bad[f"p.{p}"] / ok[f"p.{p}"] for p in "ABC"] == pytest.approx([1, -0.5, -0.5], abs=1e-12)
+    assert [bad[f"p.{p}"] / ok[f"p.{p}"] for p in "ABC"] == pytest.approx(
+        [1, -0.5, -0.5], abs=1e-12
+    )
     assert bad["p.T"] == pytest.approx(0.0, abs=1e-9)
     assert bad["i_ang.B"] == pytest.approx(ok["i_ang.C"], abs=1e-9)
     assert bad["i_ang.C"] == pytest.approx(ok["i_ang.B"], abs=1e-9)
     # about 120 degrees between each swapped current and its own voltage (REFERENCES.md 2)
     assert abs(wrap(bad["i_ang.B"] - bad["v_ang.B"])) == pytest.approx(120.0, abs=1e-9)
-    untouched = [k for k in ok if k.split(".")[0] in ("v_ln", "v_ll", "v_ang", "i", "f") or k.endswith(".A")]
+    untouched = [
+        k for k in ok if k.split(".")[0] in ("v_ln", "v_ll", "v_ang", "i", "f") or k.endswith(".A")
+    ]
     for k in untouched:
         assert bad[k] == pytest.approx(ok[k], rel=1e-12, abs=1e-9), k
 
 
-@pytest.mark.parametrize(("fault", "v_factor", "i_factor"), [("vt-ratio:M1:1.1", 1.1, 1.0), ("ct-ratio:M1:0.8", 1.0, 0.8)])
+@pytest.mark.parametrize(
+    ("fault", "v_factor", "i_factor"),
+    [("vt-ratio:M1:1.1", 1.1, 1.0), ("ct-ratio:M1:0.8", 1.0, 0.8)],
+)
 def test_ratio_faults_scale_their_quantities_and_powers(profile, fault, v_factor, i_factor):
     ideal = balanced(25.0)
     ok = values(profile, "M1", ideal)
@@ -222,7 +235,9 @@ def test_noise_sigma_and_clip_follow_the_agreed_model(profile):
     lim_v = class_limit(profile.meter("M1").classes.v)  # "0.5" -> 0.5 %
     ev, _ = _rel_errors(profile, "M1", ideal, "v_ln.A", 2000)
     assert np.abs(ev).max() <= 0.5 * lim_v + 1e-15
-    assert np.std(ev) == pytest.approx(0.1 * lim_v, rel=0.08)  # std of n=2000 samples: +-1.6 % (1 sigma)
+    assert np.std(ev) == pytest.approx(
+        0.1 * lim_v, rel=0.08
+    )  # std of n=2000 samples: +-1.6 % (1 sigma)
     assert abs(np.mean(ev)) < 4 * 0.1 * lim_v / math.sqrt(2000)
     _, f = _rel_errors(profile, "M1", ideal, "f.T", 2000)
     assert np.std(f) == pytest.approx(0.002, rel=0.08) and np.abs(f - 50.0).max() <= 0.01
@@ -288,29 +303,53 @@ def hand_readings(profile, states):
 def test_snapshot_from_sim_is_primary_and_carries_comm_faults(profile):
     states = {s.id: s.normal for s in profile.switches}
     ideal = hand_readings(profile, states)
-    faults = [parse_fault("offline:M6"), parse_fault("exception:M3:4"), parse_fault("slow:M2:1.5"), parse_fault("slow:M7:0.1")]
-    snap = snapshot_from_sim(profile, states, faults, np.random.default_rng(1), seq=3, noise=False, ideal=ideal)
+    faults = [
+        parse_fault("offline:M6"),
+        parse_fault("exception:M3:4"),
+        parse_fault("slow:M2:1.5"),
+        parse_fault("slow:M7:0.1"),
+    ]
+    snap = snapshot_from_sim(
+        profile, states, faults, np.random.default_rng(1), seq=3, noise=False, ideal=ideal
+    )
     assert snap.seq == 3 and dict(snap.switches) == states
     m1 = snap.meters["M1"]
     assert m1.state is CommState.OK and m1.ok("p.T")
     assert m1.get("v_ln.A") == pytest.approx(V_LN, abs=1e-4)  # float32 resolution
     m3 = snap.meters["M3"]  # offline? no: exception code 4, every value NaN with quality exception
-    assert m3.exception_code == 4 and m3.quality["p.T"] is Quality.EXCEPTION and math.isnan(m3.values["p.T"])
+    assert (
+        m3.exception_code == 4
+        and m3.quality["p.T"] is Quality.EXCEPTION
+        and math.isnan(m3.values["p.T"])
+    )
     assert snap.meters["M6"].quality["v_ln.A"] is Quality.TIMEOUT
     assert snap.meters["M2"].quality["v_ln.A"] is Quality.TIMEOUT  # 1.5 s > its 0.5 s timeout
     assert snap.meters["M7"].ok("p.T") and snap.meters["M7"].latency_s == pytest.approx(0.1)
-    m5 = snapshot_from_sim(profile, states, [], np.random.default_rng(1), 4, noise=False, ideal=ideal).meters["M5"]
-    m3ok = snapshot_from_sim(profile, states, [], np.random.default_rng(1), 4, noise=False, ideal=ideal).meters["M3"]
+    m5 = snapshot_from_sim(
+        profile, states, [], np.random.default_rng(1), 4, noise=False, ideal=ideal
+    ).meters["M5"]
+    m3ok = snapshot_from_sim(
+        profile, states, [], np.random.default_rng(1), 4, noise=False, ideal=ideal
+    ).meters["M3"]
     # secondary corvid meter back to primary: 0.01 V secondary resolution x VT ratio 4
     assert m3ok.get("v_ln.B") == pytest.approx(V_LN, abs=0.04 / 2 + 1e-9)
-    assert m5.get("p.T") == pytest.approx(3 * V_LN * 10 * math.cos(math.radians(30)), abs=0.5)  # int16, 1 W
+    assert m5.get("p.T") == pytest.approx(
+        3 * V_LN * 10 * math.cos(math.radians(30)), abs=0.5
+    )  # int16, 1 W
 
 
 def test_snapshot_from_sim_with_a_silent_plc_reads_every_switch_unknown(profile):
     states = {s.id: s.normal for s in profile.switches}
     ideal = hand_readings(profile, states)
-    snap = snapshot_from_sim(profile, states, [parse_fault("offline:PLC1")], np.random.default_rng(1),
-                             seq=1, noise=False, ideal=ideal)
+    snap = snapshot_from_sim(
+        profile,
+        states,
+        [parse_fault("offline:PLC1")],
+        np.random.default_rng(1),
+        seq=1,
+        noise=False,
+        ideal=ideal,
+    )
     assert set(snap.switches.values()) == {"unknown"}
     assert snap.meters["M1"].state is CommState.OK
 
@@ -320,9 +359,19 @@ def test_frozen_meter_repeats_previous_snapshot(profile):
     rng = np.random.default_rng(5)
     first = snapshot_from_sim(profile, states, [], rng, 1, ideal=hand_readings(profile, states))
     states2 = dict(states, SW2="open")
-    later = snapshot_from_sim(profile, states2, [parse_fault("frozen:M1")], rng, 2, ideal=hand_readings(profile, states2), previous=first)
+    later = snapshot_from_sim(
+        profile,
+        states2,
+        [parse_fault("frozen:M1")],
+        rng,
+        2,
+        ideal=hand_readings(profile, states2),
+        previous=first,
+    )
     assert dict(later.meters["M1"].values) == dict(first.meters["M1"].values)
-    assert later.meters["M7"].get("p.T") == pytest.approx(first.meters["M7"].get("p.T") * 0.25, rel=0.02)
+    assert later.meters["M7"].get("p.T") == pytest.approx(
+        first.meters["M7"].get("p.T") * 0.25, rel=0.02
+    )
 
 
 # ---------------------------------------------------------------- PLC and transients
@@ -367,11 +416,15 @@ def test_transient_is_continuous_when_retargeted():
     mid = tr.at(1.5)["M"]
     tr.retarget({"M": a}, t=1.5)
     assert np.allclose(tr.at(1.5)["M"].v, mid.v)
-    assert abs(tr.at(1.5 + 1.0)["M"].v[0]) == pytest.approx(V_LN * (1 - (1 - math.exp(-0.5)) * math.exp(-1)), rel=1e-9)
+    assert abs(tr.at(1.5 + 1.0)["M"].v[0]) == pytest.approx(
+        V_LN * (1 - (1 - math.exp(-0.5)) * math.exp(-1)), rel=1e-9
+    )
 
 
 def test_bench_transient_after_breaker_opens_has_the_profile_time_constant(profile):
-    prof = dataclasses.replace(profile, sim={**profile.sim, "transient": "first_order", "settle_s": 1.0})
+    prof = dataclasses.replace(
+        profile, sim={**profile.sim, "transient": "first_order", "settle_s": 1.0}
+    )
     clock = [100.0]
     bench = SimulatedBench(prof, noise=False, readings=hand_readings, clock=lambda: clock[0])
     before = bench.compute(100.0)["M1"]["v_ln.A"]
@@ -389,7 +442,9 @@ def test_bench_transient_after_breaker_opens_has_the_profile_time_constant(profi
 
 def test_bench_frozen_meter_keeps_values_while_others_follow_switching(profile):
     clock = [0.0]
-    bench = SimulatedBench(profile, [parse_fault("frozen:M1")], seed=3, readings=hand_readings, clock=lambda: clock[0])
+    bench = SimulatedBench(
+        profile, [parse_fault("frozen:M1")], seed=3, readings=hand_readings, clock=lambda: clock[0]
+    )
     first = bench.compute(0.0)
     bench.values = first  # what update() records after writing
     bench.operate_by_hand("SW2", "open")
@@ -411,8 +466,16 @@ def test_energy_counters_integrate_measured_power(profile):
 
 def test_bench_snapshots_without_sockets_follow_the_transient(profile):
     """Settle detectors can be tested in-process: snapshots through a real first-order transient."""
-    prof = dataclasses.replace(profile, sim={**profile.sim, "transient": "first_order", "settle_s": 0.5})
-    bench = SimulatedBench(prof, [parse_fault("exception:M3:4")], noise=False, readings=hand_readings, clock=lambda: 0.0)
+    prof = dataclasses.replace(
+        profile, sim={**profile.sim, "transient": "first_order", "settle_s": 0.5}
+    )
+    bench = SimulatedBench(
+        prof,
+        [parse_fault("exception:M3:4")],
+        noise=False,
+        readings=hand_readings,
+        clock=lambda: 0.0,
+    )
     s0 = bench.snapshot(0.0, seq=0)
     bench.operate_by_hand("SW2", "open")  # at t = 0 by the bench clock; 0.4 s mechanism
     t_move = profile.switch("SW2").operate_time_s

@@ -67,7 +67,9 @@ def test_voltage_conventions(demo):
     for a, b in (("A", "B"), ("B", "C"), ("C", "A")):
         d = math.radians(r[f"v_ang.{a}"] - r[f"v_ang.{b}"])
         va, vb = r[f"v_ln.{a}"], r[f"v_ln.{b}"]
-        assert r[f"v_ll.{a}{b}"] == pytest.approx(math.sqrt(va**2 + vb**2 - 2 * va * vb * math.cos(d)), rel=1e-12)
+        assert r[f"v_ll.{a}{b}"] == pytest.approx(
+            math.sqrt(va**2 + vb**2 - 2 * va * vb * math.cos(d)), rel=1e-12
+        )
     assert r["f.T"] == demo.bench.frequency_hz
 
 
@@ -99,8 +101,12 @@ def test_receiving_end_meter_reads_negative_and_losses_are_the_sum(demo):
 
 def test_meter_signs_and_losses_against_pandapower(demo):
     """Balanced demo (LD2 made balanced): M1 = res_line p_from of L1, M7 = p_to of L2 (negative)."""
-    branches = tuple(dataclasses.replace(b, sim={"model": "z", "p_w": 5000.0, "q_var": 1600.0}) if b.id == "LD2" else b
-                     for b in demo.branches)
+    branches = tuple(
+        dataclasses.replace(b, sim={"model": "z", "p_w": 5000.0, "q_var": 1600.0})
+        if b.id == "LD2"
+        else b
+        for b in demo.branches
+    )
     p = dataclasses.replace(demo, branches=branches)
     st = ideal_readings(p, {})
     net = pp.create_empty_network(f_hz=50.0, sn_mva=0.03)
@@ -114,20 +120,47 @@ def test_meter_signs_and_losses_against_pandapower(demo):
     for br in p.branches:
         s = br.sim
         if br.kind == "line":
-            line[br.id] = pp.create_line_from_parameters(net, bus[br.from_bus], bus[br.to_bus], 1.0, s["r_ohm"], s["x_ohm"],
-                                                         s["b_us"] / (2 * math.pi * 50) * 1e3, 10.0, in_service=br.id != "L4")
+            line[br.id] = pp.create_line_from_parameters(
+                net,
+                bus[br.from_bus],
+                bus[br.to_bus],
+                1.0,
+                s["r_ohm"],
+                s["x_ohm"],
+                s["b_us"] / (2 * math.pi * 50) * 1e3,
+                10.0,
+                in_service=br.id != "L4",
+            )
     pp.create_load(net, bus["B2"], 0.006, 0.002)
     pp.create_load(net, bus["B3"], 0.005, 0.0016, const_z_p_percent=100, const_z_q_percent=100)
-    pp.create_load(net, bus["B1"], 0.004, 0.0015, const_z_p_percent=30, const_z_q_percent=30,
-                   const_i_p_percent=30, const_i_q_percent=30)
+    pp.create_load(
+        net,
+        bus["B1"],
+        0.004,
+        0.0015,
+        const_z_p_percent=30,
+        const_z_q_percent=30,
+        const_i_p_percent=30,
+        const_i_q_percent=30,
+    )
     pp.runpp(net, algorithm="nr", calculate_voltage_angles=True, tolerance_mva=1e-9)
     tol = 1e-6 * p.bench.s_base_va
-    assert st.meters["M1"]["p.T"] == pytest.approx(net.res_line.p_from_mw[line["L1"]] * 1e6, abs=tol)
-    assert st.meters["M1"]["q.T"] == pytest.approx(net.res_line.q_from_mvar[line["L1"]] * 1e6, abs=tol)
+    assert st.meters["M1"]["p.T"] == pytest.approx(
+        net.res_line.p_from_mw[line["L1"]] * 1e6, abs=tol
+    )
+    assert st.meters["M1"]["q.T"] == pytest.approx(
+        net.res_line.q_from_mvar[line["L1"]] * 1e6, abs=tol
+    )
     assert st.meters["M7"]["p.T"] == pytest.approx(net.res_line.p_to_mw[line["L2"]] * 1e6, abs=tol)
-    assert st.meters["M3"]["p.T"] == pytest.approx(net.res_line.p_from_mw[line["L3"]] * 1e6, abs=tol)
-    assert st.meters["M2"]["p.T"] + st.meters["M7"]["p.T"] == pytest.approx(net.res_line.pl_mw[line["L2"]] * 1e6, abs=tol)
-    assert st.meters["M1"]["i.A"] == pytest.approx(net.res_line.i_from_ka[line["L1"]] * 1e3, rel=1e-6)
+    assert st.meters["M3"]["p.T"] == pytest.approx(
+        net.res_line.p_from_mw[line["L3"]] * 1e6, abs=tol
+    )
+    assert st.meters["M2"]["p.T"] + st.meters["M7"]["p.T"] == pytest.approx(
+        net.res_line.pl_mw[line["L2"]] * 1e6, abs=tol
+    )
+    assert st.meters["M1"]["i.A"] == pytest.approx(
+        net.res_line.i_from_ka[line["L1"]] * 1e3, rel=1e-6
+    )
 
 
 def test_apparent_power_definitions_hand_example():
@@ -140,7 +173,9 @@ def test_apparent_power_definitions_hand_example():
     vect = meter_values(v, i, apparent_power="vector", frequency_hz=50.0)
     assert arith["s.T"] == pytest.approx(2000.0, rel=1e-12)
     assert vect["s.T"] == pytest.approx(1000.0 * math.sqrt(2), rel=1e-12)
-    assert arith["pf.T"] == pytest.approx(0.5, rel=1e-12) and vect["pf.T"] == pytest.approx(1 / math.sqrt(2), rel=1e-12)
+    assert arith["pf.T"] == pytest.approx(0.5, rel=1e-12) and vect["pf.T"] == pytest.approx(
+        1 / math.sqrt(2), rel=1e-12
+    )
     assert arith["pf.A"] == pytest.approx(1.0) and arith["pf.B"] == pytest.approx(0.0, abs=1e-15)
     assert arith["pf.C"] == 0.0  # no apparent power: pf reads 0 by our convention
 
@@ -150,7 +185,10 @@ def test_apparent_power_definitions_on_the_unbalanced_bench(demo):
     M3 is 'arithmetic': s.T = sum of phase S, which exceeds the vector value when phases differ."""
     st = ideal_readings(demo, {})
     m1, m3 = st.meters["M1"], st.meters["M3"]
-    assert demo.meter_map("M1").apparent_power == "vector" and demo.meter_map("M3").apparent_power == "arithmetic"
+    assert (
+        demo.meter_map("M1").apparent_power == "vector"
+        and demo.meter_map("M3").apparent_power == "arithmetic"
+    )
     assert m1["s.T"] == pytest.approx(math.hypot(m1["p.T"], m1["q.T"]), rel=1e-12)
     assert m3["s.T"] == pytest.approx(m3["s.A"] + m3["s.B"] + m3["s.C"], rel=1e-12)
     v, i = st.phasors["M3"]
@@ -159,7 +197,9 @@ def test_apparent_power_definitions_on_the_unbalanced_bench(demo):
     assert m3["pf.T"] == pytest.approx(m3["p.T"] / m3["s.T"], rel=1e-12)
 
 
-@pytest.mark.parametrize("states", [{}, {"TIE": "closed", "RX": "closed"}, {"RX": "closed", "LB2": "open"}])
+@pytest.mark.parametrize(
+    "states", [{}, {"TIE": "closed", "RX": "closed"}, {"RX": "closed", "LB2": "open"}]
+)
 def test_bus_b2_balance_sums_to_zero(demo, states):
     """Every branch at B2 is metered (M4 tie, M6 reactor, M7 trunk, M8 load): by KCL the powers
     into the branches sum to zero, per phase, within the solver's stated mismatch."""
@@ -167,8 +207,10 @@ def test_bus_b2_balance_sums_to_zero(demo, states):
     tol = st.solution.tol_va
     assert st.solution.max_mismatch_va <= tol
     for ph in PH:
-        total = complex(sum(st.meters[m][f"p.{ph}"] for m in ("M4", "M6", "M7", "M8")),
-                        sum(st.meters[m][f"q.{ph}"] for m in ("M4", "M6", "M7", "M8")))
+        total = complex(
+            sum(st.meters[m][f"p.{ph}"] for m in ("M4", "M6", "M7", "M8")),
+            sum(st.meters[m][f"q.{ph}"] for m in ("M4", "M6", "M7", "M8")),
+        )
         assert abs(total) <= tol
     assert st.meters["M8"]["p.T"] > 1000  # not vacuous: the bank really draws
 
@@ -177,7 +219,9 @@ def test_reactor_absorbs_its_rating_scaled_by_voltage(demo):
     """Shunt reactor, constant impedance: Q = 3000 var x (|V| / V_nominal)^2 per phase total."""
     r = ideal_readings(demo, {"RX": "closed"}).meters["M6"]
     vn = 400 / math.sqrt(3)
-    assert r["q.T"] == pytest.approx(sum(1000.0 * (r[f"v_ln.{ph}"] / vn) ** 2 for ph in PH), rel=1e-12)
+    assert r["q.T"] == pytest.approx(
+        sum(1000.0 * (r[f"v_ln.{ph}"] / vn) ** 2 for ph in PH), rel=1e-12
+    )
     assert abs(r["p.T"]) < 1e-9 and r["pf.T"] == pytest.approx(0.0, abs=1e-12)
     assert ideal_readings(demo, {}).meters["M6"]["q.T"] == 0.0  # contactor open
 
@@ -211,6 +255,7 @@ def test_voltage_only_meter(demo):
 
 def test_meter_on_a_branch_away_from_its_bus_is_a_user_error(demo):
     from meas.errors import BenchwalkError
+
     bad = dataclasses.replace(demo.meter("M2"), id="MX", bus="B3")  # L2 runs B1-B2, not B3
     p = dataclasses.replace(demo, meters=demo.meters + (bad,))
     with pytest.raises(BenchwalkError, match=r"meter 'MX': bus 'B3' is not an end of branch 'L2'"):

@@ -53,7 +53,9 @@ async def started(profile, faults=(), **kw):
 
 
 def client_for(transport, timeout=1.0):
-    return AsyncModbusTcpClient(transport.host, port=transport.port, timeout=timeout, retries=0, reconnect_delay=0)
+    return AsyncModbusTcpClient(
+        transport.host, port=transport.port, timeout=timeout, retries=0, reconnect_delay=0
+    )
 
 
 def expected_primary(profile, bench, meter_id):
@@ -89,7 +91,9 @@ async def test_poller_reads_exactly_what_the_bench_wrote(profile):
             want = expected_primary(profile, bench, m.id)
             for k, v in want.items():
                 if k in ENERGY:  # counters move between the read and now: 1 update = 50 ms of P
-                    assert block.values[k] == pytest.approx(v, abs=abs(bench.values[m.id]["p.T"]) * 0.2 / 3600 + 1e-3)
+                    assert block.values[k] == pytest.approx(
+                        v, abs=abs(bench.values[m.id]["p.T"]) * 0.2 / 3600 + 1e-3
+                    )
                 else:
                     assert block.values[k] == v, (m.id, k)  # noise off: bit-identical
         # and the bench wrote what the load flow says (float32 maps: within float32 rounding)
@@ -112,11 +116,21 @@ async def test_noisy_values_over_modbus_stay_inside_the_noise_bound(profile):
                 lim_v, lim_i = class_limit(m.classes.v), class_limit(m.classes.i)
                 rmap = profile.maps[m.map_id]
                 for ph in "ABC":
-                    res_v = rmap.spec(f"v_ln.{ph}").scale * m.vt_ratio if m.reports == "secondary" else 1e-4
+                    res_v = (
+                        rmap.spec(f"v_ln.{ph}").scale * m.vt_ratio
+                        if m.reports == "secondary"
+                        else 1e-4
+                    )
                     v = snap.meters[m.id].get(f"v_ln.{ph}")
-                    assert abs(v - ideal[m.id][f"v_ln.{ph}"]) <= 0.5 * lim_v * ideal[m.id][f"v_ln.{ph}"] + res_v
+                    assert (
+                        abs(v - ideal[m.id][f"v_ln.{ph}"])
+                        <= 0.5 * lim_v * ideal[m.id][f"v_ln.{ph}"] + res_v
+                    )
                     i_true = ideal[m.id][f"i.{ph}"]
-                    assert abs(snap.meters[m.id].get(f"i.{ph}") - i_true) <= 0.5 * lim_i * i_true + 0.01
+                    assert (
+                        abs(snap.meters[m.id].get(f"i.{ph}") - i_true)
+                        <= 0.5 * lim_i * i_true + 0.01
+                    )
             n = len(bench.update_times)
             await wait_until(lambda n=n: len(bench.update_times) > n, timeout=2.0)  # fresh noise
     finally:
@@ -143,7 +157,10 @@ async def test_comm_faults_seen_by_the_poller(profile):
 
 async def test_slow_meter_answers_late_and_delays_nobody_else(profile):
     bench, bound = await started(profile, ["slow:M2:1.5"])
-    slow, fast = client_for(bound.meter("M2").transport, 3.0), client_for(bound.meter("M3").transport)
+    slow, fast = (
+        client_for(bound.meter("M2").transport, 3.0),
+        client_for(bound.meter("M3").transport),
+    )
     try:
         assert await slow.connect() and await fast.connect()
         t0 = time.monotonic()
@@ -187,7 +204,9 @@ async def test_frozen_meter_stops_while_switching_changes_the_others(profile):
         bench.operate_by_hand("SW2", "open")  # B2 loses its only supply (tie open): M7, M8 go dead
         await wait_until(lambda: abs(bench.values["M7"]["p.T"]) < 1.0, timeout=5.0)
         after = await poller.poll_once()
-        assert dict(after.meters["M8"].values) == pytest.approx(dict(before.meters["M8"].values), abs=1e-9)
+        assert dict(after.meters["M8"].values) == pytest.approx(
+            dict(before.meters["M8"].values), abs=1e-9
+        )
         assert after.meters["M8"].get("p.T") > 1000.0
         assert abs(after.meters["M7"].get("p.T")) < 1.0
         assert after.switches["SW2"] == "open"
@@ -197,7 +216,9 @@ async def test_frozen_meter_stops_while_switching_changes_the_others(profile):
 
 
 async def test_command_coil_status_follows_after_operate_time_with_a_visible_transient(profile):
-    prof = dataclasses.replace(profile, sim={**profile.sim, "settle_s": 0.3, "transient": "first_order"})
+    prof = dataclasses.replace(
+        profile, sim={**profile.sim, "settle_s": 0.3, "transient": "first_order"}
+    )
     bench, bound = await started(prof)
     poller = Poller(bound)
     plc = client_for(bound.plcs[0].transport)
@@ -216,7 +237,9 @@ async def test_command_coil_status_follows_after_operate_time_with_a_visible_tra
         while not await status_open():
             assert time.monotonic() - t0 < 3.0, "CB1 status never followed its command"
         assert time.monotonic() - t0 >= profile.switch("CB1").operate_time_s  # 0.15 s mechanism
-        assert (await plc.read_coils(0, count=1, device_id=1)).bits[0] is False  # command reads back
+        assert (await plc.read_coils(0, count=1, device_id=1)).bits[
+            0
+        ] is False  # command reads back
         deadline = time.monotonic() + 5.0
         while seen[-1] > 0.02 * p_before:
             assert time.monotonic() < deadline
@@ -272,7 +295,9 @@ async def test_offline_plc_reports_unknown_switches_and_executes_nothing(profile
 
 
 def test_a_plc_takes_only_comm_faults(profile):
-    with pytest.raises(BenchwalkError, match="PLC1 is a PLC; a PLC takes only exception or offline"):
+    with pytest.raises(
+        BenchwalkError, match="PLC1 is a PLC; a PLC takes only exception or offline"
+    ):
         SimulatedBench(profile, [parse_fault("frozen:PLC1")], port_map="free")
 
 
@@ -281,7 +306,9 @@ async def test_port_in_use_is_one_clear_error(profile):
     taken = holder.sockets[0].getsockname()[1]
     bench = SimulatedBench(profile, port_map={15021: taken}, noise=False)
     try:
-        with pytest.raises(BenchwalkError, match=rf"cannot listen on 127\.0\.0\.1:{taken}.*--free-ports"):
+        with pytest.raises(
+            BenchwalkError, match=rf"cannot listen on 127\.0\.0\.1:{taken}.*--free-ports"
+        ):
             await bench.start()
         assert bench.listening() == []  # the servers started before the failure are closed again
     finally:
@@ -291,10 +318,15 @@ async def test_port_in_use_is_one_clear_error(profile):
 
 async def test_rtu_meter_over_a_pty_pair(profile):
     link = PtyLink().start()
-    prof = dataclasses.replace(profile, meters=tuple(
-        dataclasses.replace(m, transport=RtuTransport(link.client_path, 19200, "N")) if m.id == "M5" else m
-        for m in profile.meters
-    ))
+    prof = dataclasses.replace(
+        profile,
+        meters=tuple(
+            dataclasses.replace(m, transport=RtuTransport(link.client_path, 19200, "N"))
+            if m.id == "M5"
+            else m
+            for m in profile.meters
+        ),
+    )
     bench, bound = await started(prof)
     poller = Poller(bound)
     try:
@@ -315,14 +347,30 @@ async def test_rtu_meter_over_a_pty_pair(profile):
 def test_cli_sim_prints_endpoints_and_stops_on_ctrl_c(tmp_path):
     env = dict(os.environ, PYTHONUNBUFFERED="1")
     proc = subprocess.Popen(
-        [sys.executable, "-m", "meas.cli", "sim", str(DEMO), "--free-ports", "--no-noise", "--fault", "ct-reversed:M3:B"],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env, cwd=ROOT,
+        [
+            sys.executable,
+            "-m",
+            "meas.cli",
+            "sim",
+            str(DEMO),
+            "--free-ports",
+            "--no-noise",
+            "--fault",
+            "ct-reversed:M3:B",
+        ],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=env,
+        cwd=ROOT,
     )
     try:
         lines = []
         deadline = time.monotonic() + 20.0
         while not any(line.startswith("SIMULATION") for line in lines):
-            assert time.monotonic() < deadline and proc.poll() is None, proc.stderr.read() if proc.poll() is not None else lines
+            assert time.monotonic() < deadline and proc.poll() is None, (
+                proc.stderr.read() if proc.poll() is not None else lines
+            )
             lines.append(proc.stdout.readline().rstrip("\n"))
         text = "\n".join(lines)
         m1 = re.search(r"meter\s+M1\s+tcp://127\.0\.0\.1:(\d+)\s+unit 1\s+Feeder head", text)
@@ -362,4 +410,6 @@ def test_snapshot_from_sim_with_the_real_load_flow_matches_it(profile):
     snap = snapshot_from_sim(profile, states, [], np.random.default_rng(0), 1, noise=False)
     ideal = ideal_readings(profile, states).meters
     assert snap.meters["M8"].get("p.T") == pytest.approx(ideal["M8"]["p.T"], rel=1e-6)  # float32
-    assert snap.meters["M3"].get("i.A") == pytest.approx(ideal["M3"]["i.A"], abs=1e-4 * 10 / 2 + 1e-9)  # 0.1 mA sec x 10
+    assert snap.meters["M3"].get("i.A") == pytest.approx(
+        ideal["M3"]["i.A"], abs=1e-4 * 10 / 2 + 1e-9
+    )  # 0.1 mA sec x 10

@@ -42,14 +42,24 @@ def demo() -> Profile:
 def balanced_variant(p: Profile) -> Profile:
     """The demo with load bank 2 made balanced (same totals), so a positive-sequence flow applies."""
     branches = tuple(
-        dataclasses.replace(b, sim={"model": "z", "p_w": 5000.0, "q_var": 1600.0}) if b.id == "LD2" else b
+        dataclasses.replace(b, sim={"model": "z", "p_w": 5000.0, "q_var": 1600.0})
+        if b.id == "LD2"
+        else b
         for b in p.branches
     )
     return dataclasses.replace(p, branches=branches)
 
 
-def make_profile(buses, branches, switches=(), *, zones=(("z", 400.0),), f_hz=50.0, s_base=30000.0,
-                 path="test.toml") -> Profile:
+def make_profile(
+    buses,
+    branches,
+    switches=(),
+    *,
+    zones=(("z", 400.0),),
+    f_hz=50.0,
+    s_base=30000.0,
+    path="test.toml",
+) -> Profile:
     bench = Bench("test", f_hz, 1.0, s_base, tuple(Zone(z, v, v) for z, v in zones))
     return Profile(path, "", bench, {}, (), tuple(buses), tuple(branches), tuple(switches))
 
@@ -81,15 +91,38 @@ def pp_demo(p: Profile, states: dict[str, str]):
         if b.kind == "line":
             c_nf = s.get("b_us", 0.0) * 1e-6 / (2 * math.pi * f) * 1e9
             lines[b.id] = pp.create_line_from_parameters(
-                net, bus[b.from_bus], bus[b.to_bus], 1.0, s["r_ohm"], s["x_ohm"], c_nf, 10.0,
-                in_service=live, name=b.id)
+                net,
+                bus[b.from_bus],
+                bus[b.to_bus],
+                1.0,
+                s["r_ohm"],
+                s["x_ohm"],
+                c_nf,
+                10.0,
+                in_service=live,
+                name=b.id,
+            )
         elif b.kind == "load":
-            zip_ = {"pq": (0, 0), "z": (100, 0), "zip": (100 * s.get("zip", [0, 0, 0])[0], 100 * s.get("zip", [0, 0, 0])[1])}[s["model"]]
-            pp.create_load(net, bus[b.from_bus], s["p_w"] / 1e6, s["q_var"] / 1e6,
-                           const_z_p_percent=zip_[0], const_z_q_percent=zip_[0],
-                           const_i_p_percent=zip_[1], const_i_q_percent=zip_[1], in_service=live)
+            zip_ = {
+                "pq": (0, 0),
+                "z": (100, 0),
+                "zip": (100 * s.get("zip", [0, 0, 0])[0], 100 * s.get("zip", [0, 0, 0])[1]),
+            }[s["model"]]
+            pp.create_load(
+                net,
+                bus[b.from_bus],
+                s["p_w"] / 1e6,
+                s["q_var"] / 1e6,
+                const_z_p_percent=zip_[0],
+                const_z_q_percent=zip_[0],
+                const_i_p_percent=zip_[1],
+                const_i_q_percent=zip_[1],
+                in_service=live,
+            )
         elif b.kind == "shunt":
-            pp.create_shunt(net, bus[b.from_bus], q_mvar=s["q_var"] / 1e6, p_mw=0.0, vn_kv=0.4, in_service=live)
+            pp.create_shunt(
+                net, bus[b.from_bus], q_mvar=s["q_var"] / 1e6, p_mw=0.0, vn_kv=0.4, in_service=live
+            )
     pp.runpp(net, algorithm="nr", calculate_voltage_angles=True, tolerance_mva=1e-9)
     return net, bus, lines
 
@@ -103,7 +136,9 @@ DEMO_CASES = [
 ]
 
 
-@pytest.mark.parametrize("states", DEMO_CASES, ids=lambda s: ",".join(f"{k}={v}" for k, v in s.items()) or "normal")
+@pytest.mark.parametrize(
+    "states", DEMO_CASES, ids=lambda s: ",".join(f"{k}={v}" for k, v in s.items()) or "normal"
+)
 def test_demo_balanced_matches_pandapower(demo, states):
     p = balanced_variant(demo)
     net, bus, lines = pp_demo(p, states)
@@ -119,7 +154,9 @@ def test_demo_balanced_matches_pandapower(demo, states):
         assert abs(abs(v[0]) / vbase - net.res_bus.vm_pu[i]) < 1e-6
         assert abs(math.degrees(cmath.phase(v[0])) - net.res_bus.va_degree[i]) < 1e-4
         # balanced network: phases B and C are phase A rotated by -120 / +120 degrees (positive sequence)
-        assert np.allclose(v[1:], v[0] * np.exp(-2j * np.pi / 3 * np.array([1, 2])), rtol=0, atol=1e-9 * vbase)
+        assert np.allclose(
+            v[1:], v[0] * np.exp(-2j * np.pi / 3 * np.array([1, 2])), rtol=0, atol=1e-9 * vbase
+        )
     base = p.bench.s_base_va
     for lid, i in lines.items():
         rl = net.res_line.loc[i]
@@ -127,8 +164,15 @@ def test_demo_balanced_matches_pandapower(demo, states):
         if lid in opened(p, states) or np.isnan(rl.p_from_mw):
             assert sf == 0 and st == 0
             continue
-        for mine, ref in ((sf.real, rl.p_from_mw), (sf.imag, rl.q_from_mvar), (st.real, rl.p_to_mw), (st.imag, rl.q_to_mvar)):
-            assert abs(mine - ref * 1e6) < 1e-6 * base  # pandapower res_line, within 1e-6 of the base
+        for mine, ref in (
+            (sf.real, rl.p_from_mw),
+            (sf.imag, rl.q_from_mvar),
+            (st.real, rl.p_to_mw),
+            (st.imag, rl.q_to_mvar),
+        ):
+            assert (
+                abs(mine - ref * 1e6) < 1e-6 * base
+            )  # pandapower res_line, within 1e-6 of the base
         assert abs((sf + st).real - rl.pl_mw * 1e6) < 1e-6 * base  # line losses
 
 
@@ -152,34 +196,96 @@ def case14_profile(net) -> Profile:
     vn = {f"b{i}": float(r.vn_kv) * 1e3 for i, r in net.bus.iterrows()}
     br: list[Branch] = []
     eg = net.ext_grid.iloc[0]
-    br.append(Branch("EG", "source", f"b{eg.bus}",
-                     sim={"v_ll": eg.vm_pu * vn[f"b{eg.bus}"], "sc_va": math.inf, "angle_deg": float(eg.va_degree)}))
+    br.append(
+        Branch(
+            "EG",
+            "source",
+            f"b{eg.bus}",
+            sim={
+                "v_ll": eg.vm_pu * vn[f"b{eg.bus}"],
+                "sc_va": math.inf,
+                "angle_deg": float(eg.va_degree),
+            },
+        )
+    )
     for i, r in net.line.iterrows():
         assert r.g_us_per_km == 0
         b_us = 2 * math.pi * net.f_hz * r.c_nf_per_km * 1e-9 * r.length_km * 1e6 * r.parallel
-        br.append(Branch(f"l{i}", "line", f"b{r.from_bus}", f"b{r.to_bus}",
-                         sim={"r_ohm": r.r_ohm_per_km * r.length_km / r.parallel,
-                              "x_ohm": r.x_ohm_per_km * r.length_km / r.parallel, "b_us": b_us}))
+        br.append(
+            Branch(
+                f"l{i}",
+                "line",
+                f"b{r.from_bus}",
+                f"b{r.to_bus}",
+                sim={
+                    "r_ohm": r.r_ohm_per_km * r.length_km / r.parallel,
+                    "x_ohm": r.x_ohm_per_km * r.length_km / r.parallel,
+                    "b_us": b_us,
+                },
+            )
+        )
     for i, r in net.trafo.iterrows():
         assert r.pfe_kw == 0 and r.i0_percent == 0 and r.shift_degree == 0 and r.parallel == 1
         tap = 0.0 if math.isnan(r.tap_pos) else (r.tap_pos - r.tap_neutral) * r.tap_step_percent
         assert math.isnan(r.tap_pos) or r.tap_side == "hv"
-        br.append(Branch(f"t{i}", "transformer", f"b{r.hv_bus}", f"b{r.lv_bus}",
-                         sim={"s_va": r.sn_mva * 1e6, "v1_ll": r.vn_hv_kv * 1e3, "v2_ll": r.vn_lv_kv * 1e3,
-                              "uk_pct": r.vk_percent, "ur_pct": r.vkr_percent, "vector_group": "YNyn0",
-                              "tap_pct": tap}))
+        br.append(
+            Branch(
+                f"t{i}",
+                "transformer",
+                f"b{r.hv_bus}",
+                f"b{r.lv_bus}",
+                sim={
+                    "s_va": r.sn_mva * 1e6,
+                    "v1_ll": r.vn_hv_kv * 1e3,
+                    "v2_ll": r.vn_lv_kv * 1e3,
+                    "uk_pct": r.vk_percent,
+                    "ur_pct": r.vkr_percent,
+                    "vector_group": "YNyn0",
+                    "tap_pct": tap,
+                },
+            )
+        )
     for i, r in net.load.iterrows():
-        br.append(Branch(f"ld{i}", "load", f"b{r.bus}", sim={"model": "pq", "p_w": r.p_mw * 1e6 * r.scaling,
-                                                            "q_var": r.q_mvar * 1e6 * r.scaling}))
+        br.append(
+            Branch(
+                f"ld{i}",
+                "load",
+                f"b{r.bus}",
+                sim={
+                    "model": "pq",
+                    "p_w": r.p_mw * 1e6 * r.scaling,
+                    "q_var": r.q_mvar * 1e6 * r.scaling,
+                },
+            )
+        )
     for i, r in net.gen.iterrows():
         res = net.res_gen.loc[i]
-        br.append(Branch(f"g{i}", "load", f"b{r.bus}", sim={"model": "pq", "p_w": -res.p_mw * 1e6,
-                                                           "q_var": -res.q_mvar * 1e6}))
+        br.append(
+            Branch(
+                f"g{i}",
+                "load",
+                f"b{r.bus}",
+                sim={"model": "pq", "p_w": -res.p_mw * 1e6, "q_var": -res.q_mvar * 1e6},
+            )
+        )
     for i, r in net.shunt.iterrows():
         k = (vn[f"b{r.bus}"] / (r.vn_kv * 1e3)) ** 2 * r.step  # pandapower: q given at vn_kv
-        br.append(Branch(f"sh{i}", "shunt", f"b{r.bus}", sim={"q_var": r.q_mvar * 1e6 * k, "p_w": r.p_mw * 1e6 * k}))
-    return make_profile(buses, br, zones=[(zid[v], v * 1e3) for v in zones], f_hz=float(net.f_hz),
-                        s_base=float(net.sn_mva) * 1e6, path="case14")
+        br.append(
+            Branch(
+                f"sh{i}",
+                "shunt",
+                f"b{r.bus}",
+                sim={"q_var": r.q_mvar * 1e6 * k, "p_w": r.p_mw * 1e6 * k},
+            )
+        )
+    return make_profile(
+        buses,
+        br,
+        zones=[(zid[v], v * 1e3) for v in zones],
+        f_hz=float(net.f_hz),
+        s_base=float(net.sn_mva) * 1e6,
+        path="case14",
+    )
 
 
 def test_ieee14_matches_pandapower(case14):
@@ -195,11 +301,21 @@ def test_ieee14_matches_pandapower(case14):
     base = net.sn_mva * 1e6
     for i, r in net.res_line.iterrows():
         sf, st = sol.s_from[f"l{i}"].sum(), sol.s_to[f"l{i}"].sum()
-        for mine, ref in ((sf.real, r.p_from_mw), (sf.imag, r.q_from_mvar), (st.real, r.p_to_mw), (st.imag, r.q_to_mvar)):
+        for mine, ref in (
+            (sf.real, r.p_from_mw),
+            (sf.imag, r.q_from_mvar),
+            (st.real, r.p_to_mw),
+            (st.imag, r.q_to_mvar),
+        ):
             assert abs(mine - ref * 1e6) < 1e-6 * base
     for i, r in net.res_trafo.iterrows():
         sf, st = sol.s_from[f"t{i}"].sum(), sol.s_to[f"t{i}"].sum()
-        for mine, ref in ((sf.real, r.p_hv_mw), (sf.imag, r.q_hv_mvar), (st.real, r.p_lv_mw), (st.imag, r.q_lv_mvar)):
+        for mine, ref in (
+            (sf.real, r.p_hv_mw),
+            (sf.imag, r.q_hv_mvar),
+            (st.real, r.p_lv_mw),
+            (st.imag, r.q_lv_mvar),
+        ):
             assert abs(mine - ref * 1e6) < 1e-6 * base
     losses = sum((sol.s_from[k].sum() + sol.s_to[k].sum()).real for k in sol.s_to)
     ref_losses = (net.res_line.pl_mw.sum() + net.res_trafo.pl_mw.sum()) * 1e6
@@ -225,7 +341,15 @@ def unbalanced_profile() -> Profile:
     buses = [Bus(b, "z") for b in ("B0", "B1", "B2", "B3")]
     br = [Branch("SRC", "source", "B0", sim=dict(SRC_SIM))]
     for lid, (f, t, r, x, b, r0, x0, b0) in UNBAL_LINES.items():
-        br.append(Branch(lid, "line", f, t, sim={"r_ohm": r, "x_ohm": x, "b_us": b, "r0_ohm": r0, "x0_ohm": x0, "b0_us": b0}))
+        br.append(
+            Branch(
+                lid,
+                "line",
+                f,
+                t,
+                sim={"r_ohm": r, "x_ohm": x, "b_us": b, "r0_ohm": r0, "x0_ohm": x0, "b0_us": b0},
+            )
+        )
     for bus, (pw, qv) in UNBAL_LOADS.items():
         br.append(Branch(f"LD{bus}", "load", bus, sim={"model": "pq", "p_w": pw, "q_var": qv}))
     return make_profile(buses, br)
@@ -247,19 +371,51 @@ def test_unbalanced_matches_pandapower_3ph():
     net = pp.create_empty_network(f_hz=f, sn_mva=0.03)
     bus = {b: pp.create_bus(net, vn_kv=0.4, name=b) for b in ("B0", "B1", "B2", "B3")}
     emf = pp.create_bus(net, vn_kv=0.4)
-    pp.create_ext_grid(net, emf, vm_pu=408 / 400, va_degree=0.0, s_sc_max_mva=1e6, rx_max=0.1,
-                       x0x_max=1.0, r0x0_max=0.1)
+    pp.create_ext_grid(
+        net,
+        emf,
+        vm_pu=408 / 400,
+        va_degree=0.0,
+        s_sc_max_mva=1e6,
+        rx_max=0.1,
+        x0x_max=1.0,
+        r0x0_max=0.1,
+    )
     r, x = thevenin(SRC_SIM)
-    pp.create_line_from_parameters(net, emf, bus["B0"], 1.0, r, x, 0.0, 10.0, r0_ohm_per_km=r,
-                                   x0_ohm_per_km=x, c0_nf_per_km=0.0)
+    pp.create_line_from_parameters(
+        net,
+        emf,
+        bus["B0"],
+        1.0,
+        r,
+        x,
+        0.0,
+        10.0,
+        r0_ohm_per_km=r,
+        x0_ohm_per_km=x,
+        c0_nf_per_km=0.0,
+    )
     lines = {}
     for lid, (fb, tb, r, x, b, r0, x0, b0) in UNBAL_LINES.items():
         c = b * 1e-6 / (2 * math.pi * f) * 1e9
         c0 = b0 * 1e-6 / (2 * math.pi * f) * 1e9
-        lines[lid] = pp.create_line_from_parameters(net, bus[fb], bus[tb], 1.0, r, x, c, 10.0,
-                                                    r0_ohm_per_km=r0, x0_ohm_per_km=x0, c0_nf_per_km=c0)
+        lines[lid] = pp.create_line_from_parameters(
+            net,
+            bus[fb],
+            bus[tb],
+            1.0,
+            r,
+            x,
+            c,
+            10.0,
+            r0_ohm_per_km=r0,
+            x0_ohm_per_km=x0,
+            c0_nf_per_km=c0,
+        )
     for b, (pw, qv) in UNBAL_LOADS.items():
-        pp.create_asymmetric_load(net, bus[b], *(v / 1e6 for v in pw), *(v / 1e6 for v in qv), type="wye")
+        pp.create_asymmetric_load(
+            net, bus[b], *(v / 1e6 for v in pw), *(v / 1e6 for v in qv), type="wye"
+        )
     runpp_3ph(net, tolerance_mva=1e-10)
     vbase = 400 / SQ3
     worst_v = 0.0
@@ -277,8 +433,12 @@ def test_unbalanced_matches_pandapower_3ph():
         r = net.res_line_3ph.loc[i]
         for k, ph in enumerate("abc"):
             sf, st = sol.s_from[lid][k], sol.s_to[lid][k]
-            for mine, ref in ((sf.real, r[f"p_{ph}_from_mw"]), (sf.imag, r[f"q_{ph}_from_mvar"]),
-                              (st.real, r[f"p_{ph}_to_mw"]), (st.imag, r[f"q_{ph}_to_mvar"])):
+            for mine, ref in (
+                (sf.real, r[f"p_{ph}_from_mw"]),
+                (sf.imag, r[f"q_{ph}_from_mvar"]),
+                (st.real, r[f"p_{ph}_to_mw"]),
+                (st.imag, r[f"q_{ph}_to_mvar"]),
+            ):
                 assert abs(mine - ref * 1e6) < 1e-6 * 30000.0, (lid, ph)
 
 
@@ -296,12 +456,27 @@ def test_long_line_open_end_matches_abcd():
     expected = 1 / abs(cmath.cosh(gl))
     out = {}
     for long_line in (True, False):
-        p = make_profile([Bus("S", "z"), Bus("R", "z")], [
-            Branch("G", "source", "S", sim={"v_ll": 345e3, "sc_va": math.inf}),
-            Branch("LN", "line", "S", "R", sim={"r_ohm_per_km": z.real, "x_ohm_per_km": z.imag,
-                                                "b_us_per_km": y.imag * 1e6, "length_km": length,
-                                                "long_line": long_line}),
-        ], zones=(("z", 345e3),), s_base=100e6)
+        p = make_profile(
+            [Bus("S", "z"), Bus("R", "z")],
+            [
+                Branch("G", "source", "S", sim={"v_ll": 345e3, "sc_va": math.inf}),
+                Branch(
+                    "LN",
+                    "line",
+                    "S",
+                    "R",
+                    sim={
+                        "r_ohm_per_km": z.real,
+                        "x_ohm_per_km": z.imag,
+                        "b_us_per_km": y.imag * 1e6,
+                        "length_km": length,
+                        "long_line": long_line,
+                    },
+                ),
+            ],
+            zones=(("z", 345e3),),
+            s_base=100e6,
+        )
         sol = solve(build_network(p, {}))
         out[long_line] = abs(sol.v["R"][0]) / abs(sol.v["S"][0])
     assert out[True] == pytest.approx(expected, rel=1e-9)
@@ -313,16 +488,31 @@ def test_long_line_open_end_matches_abcd():
 def _trafo_profile(group: str, load=None) -> Profile:
     br = [
         Branch("G", "source", "HV", sim={"v_ll": 11000.0, "sc_va": math.inf}),
-        Branch("T", "transformer", "HV", "LV", sim={"s_va": 400e3, "v1_ll": 11000.0, "v2_ll": 400.0,
-                                                     "uk_pct": 4.0, "ur_pct": 1.0, "vector_group": group}),
+        Branch(
+            "T",
+            "transformer",
+            "HV",
+            "LV",
+            sim={
+                "s_va": 400e3,
+                "v1_ll": 11000.0,
+                "v2_ll": 400.0,
+                "uk_pct": 4.0,
+                "ur_pct": 1.0,
+                "vector_group": group,
+            },
+        ),
     ]
     if load:
         br.append(Branch("LD", "load", "LV", sim={"model": "pq", "p_w": load[0], "q_var": load[1]}))
-    return make_profile([Bus("HV", "hv"), Bus("LV", "lv")], br, zones=(("hv", 11000.0), ("lv", 400.0)),
-                        s_base=400e3)
+    return make_profile(
+        [Bus("HV", "hv"), Bus("LV", "lv")], br, zones=(("hv", 11000.0), ("lv", 400.0)), s_base=400e3
+    )
 
 
-@pytest.mark.parametrize("group,shift", [("Dyn11", 30.0), ("Dyn1", -30.0), ("YNyn0", 0.0), ("Yyn0", 0.0)])
+@pytest.mark.parametrize(
+    "group,shift", [("Dyn11", 30.0), ("Dyn1", -30.0), ("YNyn0", 0.0), ("Yyn0", 0.0)]
+)
 def test_vector_group_phase_shift_at_no_load(group, shift):
     """IEC 60076-1 clock number (from memory): LV lags HV by 30 degrees x clock number;
     Dyn11 therefore leads by 30, Dyn1 lags by 30. At no load the ratio is v2_ll / v1_ll."""
@@ -341,7 +531,9 @@ def test_dyn1_balanced_matches_pandapower_shift():
     net = pp.create_empty_network(f_hz=50, sn_mva=0.4)
     hv, lv = pp.create_bus(net, 11.0), pp.create_bus(net, 0.4)
     pp.create_ext_grid(net, hv, vm_pu=1.0)
-    pp.create_transformer_from_parameters(net, hv, lv, 0.4, 11.0, 0.4, 1.0, 4.0, 0.0, 0.0, shift_degree=30.0)
+    pp.create_transformer_from_parameters(
+        net, hv, lv, 0.4, 11.0, 0.4, 1.0, 4.0, 0.0, 0.0, shift_degree=30.0
+    )
     pp.create_load(net, lv, 0.24, 0.09)
     pp.runpp(net, algorithm="nr", calculate_voltage_angles=True, tolerance_mva=1e-9)
     v = sol.v["LV"]
@@ -355,12 +547,24 @@ def test_dyn1_balanced_matches_pandapower_shift():
 def test_delta_winding_blocks_zero_sequence():
     """A single-phase LV load behind Dyn11 draws no zero-sequence current from the HV side
     (delta winding; common practice), while behind YNyn0 it does."""
+
     def i0_hv(group: str) -> float:
         p = _trafo_profile(group)
-        p = dataclasses.replace(p, branches=p.branches + (
-            Branch("LD", "load", "LV", sim={"model": "pq", "p_w": [60e3, 0.0, 0.0], "q_var": [20e3, 0.0, 0.0]}),))
+        p = dataclasses.replace(
+            p,
+            branches=p.branches
+            + (
+                Branch(
+                    "LD",
+                    "load",
+                    "LV",
+                    sim={"model": "pq", "p_w": [60e3, 0.0, 0.0], "q_var": [20e3, 0.0, 0.0]},
+                ),
+            ),
+        )
         i = solve(build_network(p, {})).i_from["T"]
         return abs(i.sum()) / 3 / np.max(np.abs(i))
+
     assert i0_hv("Dyn11") < 1e-9
     assert i0_hv("YNyn0") > 0.3
 
@@ -397,24 +601,41 @@ def test_tie_alone_feeds_the_trunk_end(demo):
 
 
 def test_overload_raises_solver_error(demo):
-    branches = tuple(dataclasses.replace(b, sim={"model": "pq", "p_w": 2e6, "q_var": 1e6}) if b.id == "LD1" else b
-                     for b in demo.branches)
+    branches = tuple(
+        dataclasses.replace(b, sim={"model": "pq", "p_w": 2e6, "q_var": 1e6})
+        if b.id == "LD1"
+        else b
+        for b in demo.branches
+    )
     with pytest.raises(SolverError, match=r"did not converge after \d+ iterations \(max mismatch"):
         solve(build_network(dataclasses.replace(demo, branches=branches), {}))
 
 
-@pytest.mark.parametrize("bid,sim,path,words", [
-    ("L2", {"x_ohm": 0.15}, "branch[2].sim.r_ohm", "missing"),
-    ("L2", {"r_ohm": -0.1, "x_ohm": 0.15}, "branch[2].sim.r_ohm", "at least 0"),
-    ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "length_km": 2.0}, "branch[2].sim", "mixes"),
-    ("L2", {"r_ohm": 0.1, "x_ohm": "0.1"}, "branch[2].sim.x_ohm", "must be a number"),
-    ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "r0_ohm": 0.3}, "branch[2].sim.x0_ohm", "zero-sequence"),
-    ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "xohm": 1}, "branch[2].sim.xohm", "unknown parameter"),
-    ("SRC", {"v_ll": 408.0, "sc_va": 0.0, "x_r": 8.0}, "branch[0].sim.sc_va", "greater than 0"),
-    ("LD3", {"model": "zip", "p_w": 1.0, "zip": [0.5, 0.5, 0.5]}, "branch[7].sim.zip", "sum to 1"),
-    ("LD2", {"model": "z", "p_w": [1.0, 2.0]}, "branch[6].sim.p_w", "list of 3"),
-    ("LD1", {"model": "const", "p_w": 1.0}, "branch[5].sim.model", "must be one of"),
-])
+@pytest.mark.parametrize(
+    "bid,sim,path,words",
+    [
+        ("L2", {"x_ohm": 0.15}, "branch[2].sim.r_ohm", "missing"),
+        ("L2", {"r_ohm": -0.1, "x_ohm": 0.15}, "branch[2].sim.r_ohm", "at least 0"),
+        ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "length_km": 2.0}, "branch[2].sim", "mixes"),
+        ("L2", {"r_ohm": 0.1, "x_ohm": "0.1"}, "branch[2].sim.x_ohm", "must be a number"),
+        (
+            "L2",
+            {"r_ohm": 0.1, "x_ohm": 0.1, "r0_ohm": 0.3},
+            "branch[2].sim.x0_ohm",
+            "zero-sequence",
+        ),
+        ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "xohm": 1}, "branch[2].sim.xohm", "unknown parameter"),
+        ("SRC", {"v_ll": 408.0, "sc_va": 0.0, "x_r": 8.0}, "branch[0].sim.sc_va", "greater than 0"),
+        (
+            "LD3",
+            {"model": "zip", "p_w": 1.0, "zip": [0.5, 0.5, 0.5]},
+            "branch[7].sim.zip",
+            "sum to 1",
+        ),
+        ("LD2", {"model": "z", "p_w": [1.0, 2.0]}, "branch[6].sim.p_w", "list of 3"),
+        ("LD1", {"model": "const", "p_w": 1.0}, "branch[5].sim.model", "must be one of"),
+    ],
+)
 def test_bad_sim_parameters_name_file_and_path(demo, bid, sim, path, words):
     branches = tuple(dataclasses.replace(b, sim=sim) if b.id == bid else b for b in demo.branches)
     with pytest.raises(ProfileError) as exc:
@@ -436,6 +657,7 @@ def test_bad_transformer_group_and_all_problems_listed():
 
 def test_unknown_switch_is_a_user_error(demo):
     from meas.errors import BenchwalkError
+
     with pytest.raises(BenchwalkError, match="unknown switch 'SW9'"):
         build_network(demo, {"SW9": "open"})
     with pytest.raises(BenchwalkError, match="'open' or 'closed'"):

@@ -33,7 +33,9 @@ DURATION_S = 600.0 if os.environ.get("BENCHWALK_SOAK") == "1" else 30.0
 INTERVAL_S = 0.1
 UNITS = tuple(range(1, 9))
 OUTAGES = (("silent", ""), ("close", ""), ("late", "0.5"), ("exception", "11"), ("garbage", ""))
-RSS_GROWTH_BOUND = 4 * 2**20  # bytes, second-half median over first-half median (from memory: allocator noise ~1 MB)
+RSS_GROWTH_BOUND = (
+    4 * 2**20
+)  # bytes, second-half median over first-half median (from memory: allocator noise ~1 MB)
 FMAP = float_map()
 
 
@@ -48,20 +50,37 @@ async def _command(proc: asyncio.subprocess.Process, line: str) -> None:
 async def test_soak_memory_sockets_and_cycle_count_stay_flat():
     server = Path(__file__).with_name("hostile_server.py")
     proc = await asyncio.create_subprocess_exec(
-        sys.executable, str(server), "--units", f"{UNITS[0]}-{UNITS[-1]}",
-        stdin=asyncio.subprocess.PIPE, stdout=asyncio.subprocess.PIPE)
+        sys.executable,
+        str(server),
+        "--units",
+        f"{UNITS[0]}-{UNITS[-1]}",
+        stdin=asyncio.subprocess.PIPE,
+        stdout=asyncio.subprocess.PIPE,
+    )
     poller = None
     try:
         assert proc.stdout is not None
         first = await asyncio.wait_for(proc.stdout.readline(), 10.0)
         port = int(first.split()[1])
         for u in UNITS:
-            values = {"v_ln.A": 230.0 + u, "i.A": 5.25, "p.T": 1000.0 + u, "q.T": -256.0, "pf.T": 0.5, "f.T": 50.0}
+            values = {
+                "v_ln.A": 230.0 + u,
+                "i.A": 5.25,
+                "p.T": 1000.0 + u,
+                "q.T": -256.0,
+                "pf.T": 0.5,
+                "f.T": 50.0,
+            }
             for _kind, address, words in encoded(FMAP, values):
                 await _command(proc, f"words {u} {address} {','.join(map(str, words))}")
         meters = [tcp_meter(f"M{u}", port, u, timeout_s=0.2, retries=1) for u in UNITS]
-        poller = Poller(make_profile([FMAP], meters, poll=PollSettings(
-            interval_s=INTERVAL_S, backoff_initial_s=0.2, backoff_max_s=2.0)))
+        poller = Poller(
+            make_profile(
+                [FMAP],
+                meters,
+                poll=PollSettings(interval_s=INTERVAL_S, backoff_initial_s=0.2, backoff_max_s=2.0),
+            )
+        )
         me = psutil.Process()
         rng = random.Random(20261201)
         down: dict[int, float] = {}  # unit -> monotonic time it comes back
@@ -111,10 +130,12 @@ async def test_soak_memory_sockets_and_cycle_count_stay_flat():
     fds_a, fds_b = max(s[2] for s in a), max(s[2] for s in b)
     tasks_a, tasks_b = max(s[3] for s in a), max(s[3] for s in b)
     expected = elapsed / INTERVAL_S
-    print(f"\nsoak {elapsed:.1f} s: {cycles} cycles (expected {expected:.0f} at {1 / INTERVAL_S:g} Hz), "
-          f"{outages} outages, {ok_blocks}/{blocks} meter blocks ok, late answers dropped {poller.late_answers}; "
-          f"RSS {statistics.median(s[1] for s in a) / 2**20:.1f} -> {statistics.median(s[1] for s in b) / 2**20:.1f} MiB "
-          f"(growth {rss_growth / 2**10:.0f} KiB), fds max {fds_a} -> {fds_b}, tasks max {tasks_a} -> {tasks_b}")
+    print(
+        f"\nsoak {elapsed:.1f} s: {cycles} cycles (expected {expected:.0f} at {1 / INTERVAL_S:g} Hz), "
+        f"{outages} outages, {ok_blocks}/{blocks} meter blocks ok, late answers dropped {poller.late_answers}; "
+        f"RSS {statistics.median(s[1] for s in a) / 2**20:.1f} -> {statistics.median(s[1] for s in b) / 2**20:.1f} MiB "
+        f"(growth {rss_growth / 2**10:.0f} KiB), fds max {fds_a} -> {fds_b}, tasks max {tasks_a} -> {tasks_b}"
+    )
     assert outages >= DURATION_S / 3
     assert 0.9 * expected <= cycles <= expected + 1
     assert rss_growth <= RSS_GROWTH_BOUND

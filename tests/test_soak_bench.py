@@ -95,7 +95,9 @@ def _shows(kind: str, block: MeterBlock) -> bool:
     q = set(block.quality.values())
     if kind == "offline":
         return bool(q) and q <= SILENT and block.state in (CommState.FAILING, CommState.OFFLINE)
-    return q == {Quality.EXCEPTION} and block.exception_code == 4 and block.state is CommState.FAILING
+    return (
+        q == {Quality.EXCEPTION} and block.exception_code == 4 and block.state is CommState.FAILING
+    )
 
 
 def _bound(profile: Profile, ports: dict[str, int]) -> Profile:
@@ -104,13 +106,23 @@ def _bound(profile: Profile, ports: dict[str, int]) -> Profile:
     def moved(item):
         tr = item.transport
         if isinstance(tr, TcpTransport):
-            return dataclasses.replace(item, transport=TcpTransport("127.0.0.1", ports[f"{tr.host}:{tr.port}"]))
+            return dataclasses.replace(
+                item, transport=TcpTransport("127.0.0.1", ports[f"{tr.host}:{tr.port}"])
+            )
         return item
 
-    poll = dataclasses.replace(profile.poll, interval_s=INTERVAL_S, backoff_initial_s=BACKOFF_INITIAL_S,
-                               backoff_max_s=BACKOFF_MAX_S)
-    return dataclasses.replace(profile, poll=poll, meters=tuple(moved(m) for m in profile.meters),
-                               plcs=tuple(moved(p) for p in profile.plcs))
+    poll = dataclasses.replace(
+        profile.poll,
+        interval_s=INTERVAL_S,
+        backoff_initial_s=BACKOFF_INITIAL_S,
+        backoff_max_s=BACKOFF_MAX_S,
+    )
+    return dataclasses.replace(
+        profile,
+        poll=poll,
+        meters=tuple(moved(m) for m in profile.meters),
+        plcs=tuple(moved(p) for p in profile.plcs),
+    )
 
 
 async def _command(proc: asyncio.subprocess.Process, line: str) -> None:
@@ -139,8 +151,15 @@ def _same(a: Snapshot, b: Snapshot) -> bool:
 async def test_soak_demo_bench_with_journal(tmp_path: Path):
     tame_pymodbus_logging()
     proc = await asyncio.create_subprocess_exec(
-        sys.executable, str(SERVER), str(DEMO), "--seed", str(SEED),
-        stdin=asyncio.subprocess.PIPE, stdout=asyncio.subprocess.PIPE, cwd=str(ROOT))
+        sys.executable,
+        str(SERVER),
+        str(DEMO),
+        "--seed",
+        str(SEED),
+        stdin=asyncio.subprocess.PIPE,
+        stdout=asyncio.subprocess.PIPE,
+        cwd=str(ROOT),
+    )
     poller: Poller | None = None
     journal: Journal | None = None
     jpath = tmp_path / "soak.sqlite"
@@ -157,7 +176,9 @@ async def test_soak_demo_bench_with_journal(tmp_path: Path):
         active: dict[str, Outage] = {}
         recovering: dict[str, Outage] = {}  # ended, not yet back to ok
         wrong: list[str] = []  # exceptions shown on a meter that was not given one
-        hands: list[tuple[str, str, int, int | None]] = []  # (switch, state, cycle asked, cycle seen)
+        hands: list[
+            tuple[str, str, int, int | None]
+        ] = []  # (switch, state, cycle asked, cycle seen)
         want_switch: dict[str, tuple[str, int]] = {}
         samples: list[tuple[float, int, int, int, int]] = []  # (t, rss, fds, sockets, tasks)
         clean_blocks = clean_ok = 0  # meters on endpoints with no outage at all, and how many ok
@@ -188,8 +209,12 @@ async def test_soak_demo_bench_with_journal(tmp_path: Path):
                 o = active.get(mid)
                 if o is not None and o.seen is None and _shows(o.kind, block):
                     o.seen = c
-                if Quality.EXCEPTION in block.quality.values() and (o is None or o.kind != "exception"):
-                    wrong.append(f"cycle {c}: {mid} shows exception {block.exception_code} with no such fault")
+                if Quality.EXCEPTION in block.quality.values() and (
+                    o is None or o.kind != "exception"
+                ):
+                    wrong.append(
+                        f"cycle {c}: {mid} shows exception {block.exception_code} with no such fault"
+                    )
                 r = recovering.get(mid)
                 if r is not None and block.state is CommState.OK:
                     r.back = c
@@ -199,14 +224,23 @@ async def test_soak_demo_bench_with_journal(tmp_path: Path):
                     clean_ok += block.state is CommState.OK
             for sw, (state, asked) in list(want_switch.items()):
                 if snap.switches.get(sw) == state:
-                    hands[:] = [(s, st, a, c if (s, a) == (sw, asked) else seen) for s, st, a, seen in hands]
+                    hands[:] = [
+                        (s, st, a, c if (s, a) == (sw, asked) else seen) for s, st, a, seen in hands
+                    ]
                     del want_switch[sw]
             now = time.monotonic() - t0
             if now >= DURATION_S:
                 break
             if now >= next_sample:
-                samples.append((now, me.memory_info().rss, me.num_fds(), len(me.net_connections(kind="inet")),
-                                len(asyncio.all_tasks())))
+                samples.append(
+                    (
+                        now,
+                        me.memory_info().rss,
+                        me.num_fds(),
+                        len(me.net_connections(kind="inet")),
+                        len(asyncio.all_tasks()),
+                    )
+                )
                 next_sample += 1.0
             changed = False
             for mid, o in list(active.items()):
@@ -219,8 +253,12 @@ async def test_soak_demo_bench_with_journal(tmp_path: Path):
                 next_toggle = now + rng.uniform(*TOGGLE_EVERY_S)
                 up = [m for m in meters if m not in active and m not in recovering]
                 if len(active) < MAX_DOWN and up:
-                    o = Outage(rng.choice(up), rng.choice(("offline", "exception")), -1,
-                               now + rng.uniform(*OUTAGE_S))
+                    o = Outage(
+                        rng.choice(up),
+                        rng.choice(("offline", "exception")),
+                        -1,
+                        now + rng.uniform(*OUTAGE_S),
+                    )
                     active[o.meter] = o
                     outages.append(o)
                     changed = True
@@ -273,21 +311,23 @@ async def test_soak_demo_bench_with_journal(tmp_path: Path):
     detect = [o.seen - o.start for o in outages if o.seen is not None]
     recover = [o.back - o.end for o in done if o.back is not None]
     hands_seen = [h for h in hands if h[3] is not None and h[3] - h[2] <= SWITCH_SEEN_CYCLES]
-    print(f"\nbench soak {elapsed:.1f} s: cycles {n} (expected {expected:.0f} at {1 / INTERVAL_S:g} Hz, "
-          f"{n / elapsed:.2f} Hz achieved); snapshots journalled {journalled} of {n} yielded; "
-          f"late answers dropped {late}; journal write median {statistics.median(journal_s) * 1e3:.1f} ms, "
-          f"p99 {sorted(journal_s)[int(0.99 * len(journal_s))] * 1e3:.1f} ms\n"
-          f"  RSS median {rss_a / 2**20:.1f} -> {rss_b / 2**20:.1f} MiB (growth {(rss_b - rss_a) / 2**10:.0f} KiB, "
-          f"bound {RSS_GROWTH_BOUND / 2**20:.0f} MiB); fds max {fds_a} -> {fds_b}; "
-          f"inet sockets max {socks_a} -> {socks_b}; asyncio tasks max {tasks_a} -> {tasks_b}\n"
-          f"  outages {len(outages)} ({sum(o.kind == 'offline' for o in outages)} offline, "
-          f"{sum(o.kind == 'exception' for o in outages)} exception), ended {len(done)}, "
-          f"seen in bound {len(seen)}, back to ok in bound {len(back)}; cycles to show "
-          f"max {max(detect, default=0)} median {statistics.median(detect or [0]):g}, "
-          f"to recover max {max(recover, default=0)} median {statistics.median(recover or [0]):g}; "
-          f"wrong-meter exceptions {len(wrong)}\n"
-          f"  hand operations {len(hands)}, seen {len(hands_seen)}; meters on untouched endpoints ok "
-          f"{clean_ok}/{clean_blocks}; journal integrity {integrity[0][0]}")
+    print(
+        f"\nbench soak {elapsed:.1f} s: cycles {n} (expected {expected:.0f} at {1 / INTERVAL_S:g} Hz, "
+        f"{n / elapsed:.2f} Hz achieved); snapshots journalled {journalled} of {n} yielded; "
+        f"late answers dropped {late}; journal write median {statistics.median(journal_s) * 1e3:.1f} ms, "
+        f"p99 {sorted(journal_s)[int(0.99 * len(journal_s))] * 1e3:.1f} ms\n"
+        f"  RSS median {rss_a / 2**20:.1f} -> {rss_b / 2**20:.1f} MiB (growth {(rss_b - rss_a) / 2**10:.0f} KiB, "
+        f"bound {RSS_GROWTH_BOUND / 2**20:.0f} MiB); fds max {fds_a} -> {fds_b}; "
+        f"inet sockets max {socks_a} -> {socks_b}; asyncio tasks max {tasks_a} -> {tasks_b}\n"
+        f"  outages {len(outages)} ({sum(o.kind == 'offline' for o in outages)} offline, "
+        f"{sum(o.kind == 'exception' for o in outages)} exception), ended {len(done)}, "
+        f"seen in bound {len(seen)}, back to ok in bound {len(back)}; cycles to show "
+        f"max {max(detect, default=0)} median {statistics.median(detect or [0]):g}, "
+        f"to recover max {max(recover, default=0)} median {statistics.median(recover or [0]):g}; "
+        f"wrong-meter exceptions {len(wrong)}\n"
+        f"  hand operations {len(hands)}, seen {len(hands_seen)}; meters on untouched endpoints ok "
+        f"{clean_ok}/{clean_blocks}; journal integrity {integrity[0][0]}"
+    )
 
     # no snapshot lost: one row per yielded snapshot, consecutive ids, first and last read back equal
     assert journalled == n and len(all_ids) == n

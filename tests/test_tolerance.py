@@ -38,8 +38,12 @@ def test_iec_62053_21_class_1_table():
 def test_iec_62053_22_class_05s_table():
     # IEC 62053-22 class 0.5S [M table, REFERENCES.md 3]: 0.5 / 1.0 % at PF 1, 0.6 / 1.0 % at PF 0.5
     c = class_spec("p", "0.5S")
-    assert (limit_pct(c, 0.2, False), limit_pct(c, 0.02, False), limit_pct(c, 0.2, True), limit_pct(c, 0.05, True)) == (
-        0.5, 1.0, 0.6, 1.0)
+    assert (
+        limit_pct(c, 0.2, False),
+        limit_pct(c, 0.02, False),
+        limit_pct(c, 0.2, True),
+        limit_pct(c, 0.05, True),
+    ) == (0.5, 1.0, 0.6, 1.0)
 
 
 def test_vectorized_and_nan_current_takes_wider_limit():
@@ -112,10 +116,19 @@ def test_judge_bands():
 
 
 def test_overrides():
-    lim = Limits(CheckSettings(overrides={"network.p_balance.limit_w": 50.0, "meter.p_sum.scale": 2.0,
-                                          "phase.i_unbalance.warn_pct": 30.0}))
+    lim = Limits(
+        CheckSettings(
+            overrides={
+                "network.p_balance.limit_w": 50.0,
+                "meter.p_sum.scale": 2.0,
+                "phase.i_unbalance.warn_pct": 30.0,
+            }
+        )
+    )
     assert lim.apply("network.p_balance", "W", 12.0) == 50.0
     assert lim.apply("meter.p_sum", "W", 12.0) == 24.0
     assert lim.apply("meter.q_sum", "var", 12.0) == 12.0
     assert lim.param("phase.i_unbalance", "warn_pct", 50.0) == 30.0
-    np.testing.assert_allclose(lim.apply("network.p_balance", "W", np.array([1.0, 2.0])), [50.0, 50.0])
+    np.testing.assert_allclose(
+        lim.apply("network.p_balance", "W", np.array([1.0, 2.0])), [50.0, 50.0]
+    )

@@ -35,7 +35,11 @@ def fast_demo(tmp: Path) -> Path:
     prof = (DEMO_DIR / "feeder_bench.toml").read_text()
     prof = re.sub(r"settle_s = [0-9.]+", "settle_s = 0.1", prof)
     # the noise check judges the last N polls; N = 3 keeps that history inside the 0.6 s window
-    prof = prof.replace("frozen_cycles = 10\n", 'frozen_cycles = 10\n\n[checks.overrides]\n"quality.noise.min_snapshots" = 3\n', 1)
+    prof = prof.replace(
+        "frozen_cycles = 10\n",
+        'frozen_cycles = 10\n\n[checks.overrides]\n"quality.noise.min_snapshots" = 3\n',
+        1,
+    )
     seq = (DEMO_DIR / "feeder_bench.sequence.toml").read_text()
     seq = re.sub(r"^capture = \{.*\}$", f"capture = {FAST_CAPTURE}", seq, flags=re.M)
     (tmp / "feeder_bench.sequence.toml").write_text(seq)
@@ -72,8 +76,15 @@ def make_app(tmp: Path, faults=(), noise: bool = True, **kw) -> BenchwalkApp:
     profile = fast_demo(tmp)
 
     async def factory(operator: str, resume: str | None):
-        return await Session.new(profile, operator, sessions_dir=tmp / "sessions", simulate=True,
-                                 faults=list(faults), seed=11, noise=noise)
+        return await Session.new(
+            profile,
+            operator,
+            sessions_dir=tmp / "sessions",
+            simulate=True,
+            faults=list(faults),
+            seed=11,
+            noise=noise,
+        )
 
     return BenchwalkApp(factory, bench_name="fast demo", out_dir=tmp / "out", **kw)
 
@@ -81,19 +92,35 @@ def make_app(tmp: Path, faults=(), noise: bool = True, **kw) -> BenchwalkApp:
 async def start(pilot, app, name="AT"):
     await until(pilot, lambda: isinstance(app.screen, SafetyScreen), 5, "safety screen")
     await tap(pilot, "y")
-    await until(pilot, lambda: isinstance(app.screen, StartScreen) and app.focused is not None
-                and app.focused.id == "operator", 5, "start screen, name field focused")
+    await until(
+        pilot,
+        lambda: (
+            isinstance(app.screen, StartScreen)
+            and app.focused is not None
+            and app.focused.id == "operator"
+        ),
+        5,
+        "start screen, name field focused",
+    )
     await tap(pilot, *name, "enter")  # name, then Enter moves to the session list
-    await until(pilot, lambda: app.focused is not None and app.focused.id == "sessions", 5, "session list")
+    await until(
+        pilot, lambda: app.focused is not None and app.focused.id == "sessions", 5, "session list"
+    )
     await tap(pilot, "enter")  # "start a new session" is highlighted
     await until(pilot, lambda: isinstance(app.screen, MainScreen), 15, "main screen")
     main = app.screen
-    await until(pilot, lambda: main.frame is not None and main.frame.snapshot is not None, 10, "first frame")
+    await until(
+        pilot, lambda: main.frame is not None and main.frame.snapshot is not None, 10, "first frame"
+    )
     return main
 
 
 def prompt_ready(app) -> bool:
-    return isinstance(app.screen, TextPrompt) and app.focused is not None and app.focused.id == "prompt-input"
+    return (
+        isinstance(app.screen, TextPrompt)
+        and app.focused is not None
+        and app.focused.id == "prompt-input"
+    )
 
 
 async def answer(pilot, app, text: str, fast: bool = False):
@@ -115,7 +142,9 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
         deadline = time.monotonic() + 45
         retaken: dict[str, int] = {}
         while not runner.finished:
-            assert time.monotonic() < deadline, f"walk stuck at {runner.view().state} of {runner.step}"
+            assert time.monotonic() < deadline, (
+                f"walk stuck at {runner.view().state} of {runner.step}"
+            )
             assert not runner.stopped, runner.message
             v = runner.view()
             seen = app.bridge.transitions
@@ -155,10 +184,14 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
             def moved(s=seen, a=a):
                 return app.bridge.transitions > s or runner.view().action != a or runner.done
 
-            await until(pilot, moved, 15,
-                        f"progress after {a} at {v.step.id} {v.state} ({type(app.screen).__name__}; "
-                        f"{[r.message for r in v.results[:2]]}; {v.message}; "
-                        f"notice {main.query_one('#notice').content})")
+            await until(
+                pilot,
+                moved,
+                15,
+                f"progress after {a} at {v.step.id} {v.state} ({type(app.screen).__name__}; "
+                f"{[r.message for r in v.results[:2]]}; {v.message}; "
+                f"notice {main.query_one('#notice').content})",
+            )
         # the sequence is complete: the screen exports the dataset on its own
         await until(pilot, lambda: app.bridge.exported is not None, 20, "dataset export")
         assert "SEQUENCE DONE" in main.query_one("#summary").content.plain
@@ -171,13 +204,24 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
     assert set(steps["state"]) <= {"accepted", "skipped"}
     # hold and note steps are always accepted by the keys G and N
     kinds = dict(zip(steps["id"], steps["kind"], strict=True))
-    assert all(steps.loc[steps["id"] == i, "state"].item() == "accepted"
-               for i, k in kinds.items() if k in ("hold", "note"))
+    assert all(
+        steps.loc[steps["id"] == i, "state"].item() == "accepted"
+        for i, k in kinds.items()
+        if k in ("hold", "note")
+    )
 
 
 async def open_main(pilot, app):
-    await until(pilot, lambda: isinstance(app.screen, MainScreen) and app.screen.frame is not None
-                and app.screen.frame.snapshot is not None, 15, "main screen with data")
+    await until(
+        pilot,
+        lambda: (
+            isinstance(app.screen, MainScreen)
+            and app.screen.frame is not None
+            and app.screen.frame.snapshot is not None
+        ),
+        15,
+        "main screen with data",
+    )
     return app.screen
 
 
@@ -191,8 +235,10 @@ async def test_fault_shows_failure_and_cause_in_checks_panel(tmp_path):
 
         def shows_fault():
             text = panel.content.plain if hasattr(panel.content, "plain") else ""
-            return any(line.startswith("\u2718 FAIL M2") and "revers" in line.lower()
-                       for line in text.splitlines())
+            return any(
+                line.startswith("\u2718 FAIL M2") and "revers" in line.lower()
+                for line in text.splitlines()
+            )
 
         await until(pilot, shows_fault, 15, "FAIL line for M2 naming the reversed CT")
         lines = panel.content.plain.splitlines()
@@ -209,10 +255,16 @@ async def test_meter_going_offline_shows_and_screen_stays_live(tmp_path):
         main = await open_main(pilot, app)
         await pilot.press("2")  # readings view
         grid = main.query_one("#pane-readings")
-        await until(pilot, lambda: grid._cells.get("M5", ("", "no data"))[1].strip() == "ok", 10, "M5 ok")
+        await until(
+            pilot, lambda: grid._cells.get("M5", ("", "no data"))[1].strip() == "ok", 10, "M5 ok"
+        )
         app.bridge.session.bench.set_faults([parse_fault("offline:M5")])
-        await until(pilot, lambda: grid._cells["M5"][1].strip() in ("! failing", "\u2298 offline"), 10,
-                    "M5 failing or offline")
+        await until(
+            pilot,
+            lambda: grid._cells["M5"][1].strip() in ("! failing", "\u2298 offline"),
+            10,
+            "M5 failing or offline",
+        )
         assert grid._cells["M5"][4].strip() == "--"  # no stale number shown as a reading
         # the screen keeps painting the other meters and answers keys while M5 times out
         shown = main.frames_shown
@@ -249,7 +301,9 @@ def remote_app(tmp: Path, operate_time_s: float | None = None) -> BenchwalkApp:
     profile = remote_profile(tmp, operate_time_s)
 
     async def factory(operator, resume):
-        return await Session.new(profile, operator, sessions_dir=tmp / "sessions", simulate=True, seed=3)
+        return await Session.new(
+            profile, operator, sessions_dir=tmp / "sessions", simulate=True, seed=3
+        )
 
     return BenchwalkApp(factory, skip_intro=True, operator="AT", out_dir=tmp / "out")
 
@@ -312,15 +366,28 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
     async with app.run_test(size=(80, 24)) as pilot:
         main = await open_main(pilot, app)
         runner = app.bridge.runner
-        await until(pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture")
+        await until(
+            pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture"
+        )
         # the demo bench starts in its normal (energized) state and the dead-bench step expects
         # every switch open: the step panel says the key will set them by hand
-        await until(pilot, lambda: "simulated bench: C also sets CB1" in main.query_one(StepDetail).content.plain,
-                    5, "the simulated-hands hint")
+        await until(
+            pilot,
+            lambda: "simulated bench: C also sets CB1" in main.query_one(StepDetail).content.plain,
+            5,
+            "the simulated-hands hint",
+        )
         await tap(pilot, "c")
-        await until(pilot, lambda: "capture started" in str(main.query_one("#notice").content), 10, "capture notice")
+        await until(
+            pilot,
+            lambda: "capture started" in str(main.query_one("#notice").content),
+            10,
+            "capture notice",
+        )
         notice = str(main.query_one("#notice").content)
         assert "recorded" not in notice
-        await pilot.press("a")  # nothing to accept while settling: the key is inert (press waits for idle)
+        await pilot.press(
+            "a"
+        )  # nothing to accept while settling: the key is inert (press waits for idle)
         assert str(main.query_one("#notice").content) == notice
         assert all(r["state"] != "accepted" for r in runner.journal.step_history())

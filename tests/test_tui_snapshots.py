@@ -31,22 +31,49 @@ class StillFeed:
         self.operator = "A. Tester"
         sw = {s.id: s.normal for s in self.profile.switches}
         snap = snapshot_from_sim(
-            self.profile, sw, (parse_fault("ct-reversed:M2:B"),), np.random.default_rng(3), 7,
-            noise=False, t_mono=50.0, time_utc=datetime(2026, 12, 1, 12, 0, tzinfo=UTC),
+            self.profile,
+            sw,
+            (parse_fault("ct-reversed:M2:B"),),
+            np.random.default_rng(3),
+            7,
+            noise=False,
+            t_mono=50.0,
+            time_utc=datetime(2026, 12, 1, 12, 0, tzinfo=UTC),
         )
         step = StepInfo(
-            index=4, total=15, step_id="pick-up-lateral", title="Close the lateral isolator SW3",
-            instruction="Close SW3 by hand at the panel, then press O.", kind="manual",
-            state="reviewing", expected={"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open"},
+            index=4,
+            total=15,
+            step_id="pick-up-lateral",
+            title="Close the lateral isolator SW3",
+            instruction="Close SW3 by hand at the panel, then press O.",
+            kind="manual",
+            state="reviewing",
+            expected={"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open"},
             actual={"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open"},
-            overall="inconsistent", next_action="Checks failed: retake, or skip (press X to retake, S to skip)",
-            captured=4, to_capture=4,
+            overall="inconsistent",
+            next_action="Checks failed: retake, or skip (press X to retake, S to skip)",
+            captured=4,
+            to_capture=4,
         )
         checks = (
-            CheckResult("phase.current_sequence", "M2", Status.FAIL, 2.0, 0.1, "1",
-                        "M2: negative-sequence current 200 % of positive: CT of phase B looks reversed."),
-            CheckResult("network.kcl_p", "B1", Status.WARN, 210.0, 260.0, "W",
-                        "B1: active power does not balance within 80 % of its limit."),
+            CheckResult(
+                "phase.current_sequence",
+                "M2",
+                Status.FAIL,
+                2.0,
+                0.1,
+                "1",
+                "M2: negative-sequence current 200 % of positive: CT of phase B looks reversed.",
+            ),
+            CheckResult(
+                "network.kcl_p",
+                "B1",
+                Status.WARN,
+                210.0,
+                260.0,
+                "W",
+                "B1: active power does not balance within 80 % of its limit.",
+            ),
             CheckResult("meter.p_sum", "M1", Status.PASS),
         )
         self.still = Frame(snap, checks, step, (), 1.5)
@@ -66,7 +93,9 @@ class StillFeed:
 
 def _app() -> BenchwalkApp:
     feed = StillFeed()
-    return BenchwalkApp(lambda op, resume: feed, skip_intro=True, operator="A. Tester", autopoll=False)
+    return BenchwalkApp(
+        lambda op, resume: feed, skip_intro=True, operator="A. Tester", autopoll=False
+    )
 
 
 async def _show(pilot) -> None:

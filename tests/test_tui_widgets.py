@@ -38,12 +38,19 @@ def profile():
 def _snap(profile, faults=(), switches=None):
     sw = switches or {s.id: s.normal for s in profile.switches}
     return snapshot_from_sim(
-        profile, sw, tuple(parse_fault(f) for f in faults), np.random.default_rng(7), 1,
-        noise=False, t_mono=10.0, time_utc=datetime(2026, 12, 1, tzinfo=UTC),
+        profile,
+        sw,
+        tuple(parse_fault(f) for f in faults),
+        np.random.default_rng(7),
+        1,
+        noise=False,
+        t_mono=10.0,
+        time_utc=datetime(2026, 12, 1, tzinfo=UTC),
     )
 
 
 # ---------------------------------------------------------------- units
+
 
 def test_per_unit_on_three_phase_base(profile):
     # Per-unit system (Grainger & Stevenson, Power System Analysis, ch. 2, from memory):
@@ -88,6 +95,7 @@ def test_engineering_notation(value, unit, text):
 
 # ---------------------------------------------------------------- readings rows
 
+
 def test_rows_show_the_simulated_values_and_comm_state(profile):
     snap = _snap(profile, faults=["offline:M5"])
     cells = row_cells(profile, "M1", snap.meters["M1"], "bench")
@@ -103,6 +111,7 @@ def test_rows_show_the_simulated_values_and_comm_state(profile):
 
 # ---------------------------------------------------------------- bench diagram
 
+
 def test_energization_follows_closed_switches(profile):
     # Demo topology: SRC at B0; CB1 (L1) B0-B1; SW2 (L2) B1-B2; SW3 (L3) B1-B3; TIE (L4) B2-B3.
     states = {s.id: "open" for s in profile.switches}
@@ -117,6 +126,7 @@ def test_energization_follows_closed_switches(profile):
 
 # ---------------------------------------------------------------- phasors
 
+
 def _tip(rows, ch):
     for y, row in enumerate(rows):
         if ch in row:
@@ -125,8 +135,12 @@ def _tip(rows, ch):
 
 
 def test_canvas_places_tips_by_angle():
-    rows = phasor_canvas({"A": (1.0, 0.0), "B": (1.0, -120.0), "C": (1.0, 120.0)},
-                         {"A": (1.0, -30.0), "B": (1.0, 60.0), "C": (1.0, 90.0)}, 31, 13)
+    rows = phasor_canvas(
+        {"A": (1.0, 0.0), "B": (1.0, -120.0), "C": (1.0, 120.0)},
+        {"A": (1.0, -30.0), "B": (1.0, 60.0), "C": (1.0, 90.0)},
+        31,
+        13,
+    )
     cx, cy = 15, 6
     ax, ay = _tip(rows, "A")
     assert ay == cy and ax > cx  # 0 deg: to the right
@@ -156,6 +170,7 @@ def test_map_without_angles_says_so(profile):
 
 # ---------------------------------------------------------------- checks and trend
 
+
 def test_failures_first_with_their_cause():
     results = [
         CheckResult("meter.p_sum", "M1", Status.PASS),
@@ -180,7 +195,13 @@ def test_trend_spread_is_the_settle_figure():
 
 def test_step_detail_tells_a_wrong_status_from_an_unread_one_and_from_one_taken_on_word():
     step = StepInfo(
-        index=2, total=5, step_id="s", title="t", instruction="Close the tie.", kind="manual", state="waiting",
+        index=2,
+        total=5,
+        step_id="s",
+        title="t",
+        instruction="Close the tie.",
+        kind="manual",
+        state="waiting",
         expected={"CB1": "closed", "TIE": "closed", "RX": "open", "LB2": "closed"},
         actual={"CB1": "closed", "TIE": "open", "RX": "unknown", "LB2": "unknown"},
         flagged=("TIE", "RX"),  # the runner: LB2 has no status point, so it is not flagged
@@ -196,11 +217,22 @@ def test_step_detail_tells_a_wrong_status_from_an_unread_one_and_from_one_taken_
 
 
 def test_step_detail_shows_the_switch_still_to_operate_as_a_task_not_a_mismatch():
-    common = dict(index=3, total=5, step_id="s", title="t", instruction="Close SW2.", kind="remote",
-                  expected={"SW2": "closed", "TIE": "open"}, actual={"SW2": "open", "TIE": "closed"},
-                  flagged=("SW2", "TIE"), to_operate=("SW2",))
+    common = dict(
+        index=3,
+        total=5,
+        step_id="s",
+        title="t",
+        instruction="Close SW2.",
+        kind="remote",
+        expected={"SW2": "closed", "TIE": "open"},
+        actual={"SW2": "open", "TIE": "closed"},
+        flagged=("SW2", "TIE"),
+        to_operate=("SW2",),
+    )
     lines = step_detail(StepInfo(state="waiting", **common)).plain.splitlines()
     assert "\u2192 TO OPERATE SW2: reads open, this step sets it closed" in lines
     assert "\u2718 MISMATCH TIE: expected open, reads closed" in lines  # not this step's to operate
     after = step_detail(StepInfo(state="verifying", **common)).plain.splitlines()
-    assert "\u2718 MISMATCH SW2: expected closed, reads open" in after  # once operated, a difference is wrong
+    assert (
+        "\u2718 MISMATCH SW2: expected closed, reads open" in after
+    )  # once operated, a difference is wrong

@@ -115,10 +115,14 @@ class WriteRecorder:
                 return
             unit = buffer[6]
             fc, address, values = parse_pdu(bytes(buffer[7 : 6 + length]))
-            self.requests.append(Request(self.port, unit, fc, address, values if fc in WRITE_FC else ()))
+            self.requests.append(
+                Request(self.port, unit, fc, address, values if fc in WRITE_FC else ())
+            )
             del buffer[: 6 + max(length, 1)]
 
-    async def _pump(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter, record: bool) -> None:
+    async def _pump(
+        self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter, record: bool
+    ) -> None:
         buffer = bytearray()
         try:
             while data := await reader.read(4096):
@@ -142,7 +146,9 @@ class WriteRecorder:
             writer.close()
             return
         try:
-            await asyncio.gather(self._pump(reader, b_writer, True), self._pump(b_reader, writer, False))
+            await asyncio.gather(
+                self._pump(reader, b_writer, True), self._pump(b_reader, writer, False)
+            )
         except asyncio.CancelledError:
             writer.close()
             b_writer.close()
@@ -151,7 +157,9 @@ class WriteRecorder:
                 self._tasks.discard(task)
 
 
-async def recording_profile(profile: Profile, bound: Profile) -> tuple[Profile, list[WriteRecorder]]:
+async def recording_profile(
+    profile: Profile, bound: Profile
+) -> tuple[Profile, list[WriteRecorder]]:
     """Recorders in front of every TCP endpoint of ``bound`` (a started bench's profile).
 
     Returns a copy of ``profile`` whose meters and PLCs talk to the recorders instead.
@@ -166,7 +174,9 @@ async def recording_profile(profile: Profile, bound: Profile) -> tuple[Profile, 
         tr = item.transport
         if not isinstance(tr, TcpTransport):
             return item
-        return dataclasses.replace(item, transport=TcpTransport(LOOPBACK, recorders[(tr.host, tr.port)].port))
+        return dataclasses.replace(
+            item, transport=TcpTransport(LOOPBACK, recorders[(tr.host, tr.port)].port)
+        )
 
     out = dataclasses.replace(
         bound,

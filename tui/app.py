@@ -155,11 +155,21 @@ def run_console(
     simulate = bool(compat.pop("demo", True))
     sdir = Path(sessions_dir) if sessions_dir else None
     factory, bench_name, lister = make_factory(
-        profile_path, faults=faults, seed=seed, sessions_dir=sdir, simulate=simulate,
+        profile_path,
+        faults=faults,
+        seed=seed,
+        sessions_dir=sdir,
+        simulate=simulate,
         allow_changed_profile=allow_changed_profile,
     )
-    app = BenchwalkApp(factory, bench_name=bench_name, list_sessions=lister,
-                       operator=operator, resume=resume, out_dir=Path(out) if out else None)
+    app = BenchwalkApp(
+        factory,
+        bench_name=bench_name,
+        list_sessions=lister,
+        operator=operator,
+        resume=resume,
+        out_dir=Path(out) if out else None,
+    )
     code = app.run()
     if app.exit_message:
         raise BenchwalkError(app.exit_message)

@@ -36,8 +36,12 @@ ACTION_KEYS: dict[str, str] = {
 }
 
 
-def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...] = (),
-                    simulated_hands: bool = False) -> Frame:
+def frame_from_view(
+    view: Any,
+    snapshot: Snapshot | None,
+    events: tuple[str, ...] = (),
+    simulated_hands: bool = False,
+) -> Frame:
     """A console frame from a RunnerView (duck-typed, so tests can hand-build either).
 
     ``simulated_hands``: on the simulated bench the capture and confirm keys also set the
@@ -50,15 +54,25 @@ def frame_from_view(view: Any, snapshot: Snapshot | None, events: tuple[str, ...
         keys = "C capture anyway, X wait again, S skip"
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
     hint = ""
-    if simulated_hands and action in ("capture", "confirm_operation") and getattr(view, "mismatches", ()):
+    if (
+        simulated_hands
+        and action in ("capture", "confirm_operation")
+        and getattr(view, "mismatches", ())
+    ):
         hint = f"simulated bench: {keys} also sets {', '.join(view.mismatches)} by hand for you"
     state = str(getattr(view.state, "value", view.state))
     finished = state in ("finished", "stopped")
     if step is None:
         info = StepInfo(
-            index=view.total, total=view.total, step_id="", title="sequence over",
-            instruction=getattr(view, "message", "") or "", kind="", state=state,
-            overall="done" if state == "finished" else "inconsistent", next_action=next_action,
+            index=view.total,
+            total=view.total,
+            step_id="",
+            title="sequence over",
+            instruction=getattr(view, "message", "") or "",
+            kind="",
+            state=state,
+            overall="done" if state == "finished" else "inconsistent",
+            next_action=next_action,
             finished=True,
         )
     else:
@@ -195,7 +209,9 @@ class Bridge:
 
     async def close(self) -> None:
         if self._snapshots is not None:
-            with contextlib.suppress(RuntimeError):  # still inside a cancelled poll: the poller closes
+            with contextlib.suppress(
+                RuntimeError
+            ):  # still inside a cancelled poll: the poller closes
                 await self._snapshots.aclose()
             self._snapshots = None
         out = self.session.close()

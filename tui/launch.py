@@ -21,7 +21,10 @@ def list_sessions(sessions_dir: Path | None = None, limit: int = 12) -> list[tup
     if not folder.is_dir():
         return []
     files = sorted(folder.glob("*.sqlite"), key=lambda p: p.stat().st_mtime, reverse=True)[:limit]
-    return [(p.stem, f"last written {datetime.fromtimestamp(p.stat().st_mtime):%Y-%m-%d %H:%M}") for p in files]
+    return [
+        (p.stem, f"last written {datetime.fromtimestamp(p.stat().st_mtime):%Y-%m-%d %H:%M}")
+        for p in files
+    ]
 
 
 def make_factory(
@@ -42,12 +45,19 @@ def make_factory(
     async def factory(operator: str, resume: str | None) -> Session:
         if resume:
             return await Session.resume(
-                resume, sessions_dir=sessions_dir, operator=operator,
-                profile_path=profile_path, allow_changed_profile=allow_changed_profile,
+                resume,
+                sessions_dir=sessions_dir,
+                operator=operator,
+                profile_path=profile_path,
+                allow_changed_profile=allow_changed_profile,
             )
         return await Session.new(
-            profile_path, operator, sessions_dir=sessions_dir, simulate=simulate,
-            faults=list(faults), seed=seed,
+            profile_path,
+            operator,
+            sessions_dir=sessions_dir,
+            simulate=simulate,
+            faults=list(faults),
+            seed=seed,
         )
 
     return factory, bench_name, lambda: list_sessions(sessions_dir)

@@ -32,21 +32,50 @@ from .settle import SettleDetector, SettleState
 
 _QUIET = {"invalid": "ignore", "divide": "ignore", "over": "ignore"}
 
-__all__ = ["CheckEngine", "run_checks", "sort_results", "by_status", "SettleDetector", "SettleState", "CHECK_IDS"]
+__all__ = [
+    "CheckEngine",
+    "run_checks",
+    "sort_results",
+    "by_status",
+    "SettleDetector",
+    "SettleState",
+    "CHECK_IDS",
+]
 
 CHECK_IDS = (
-    "meter.p_sum", "meter.q_sum", "meter.s_total", "meter.pf", "meter.s_phase", "meter.frequency",
-    "phase.v_sequence", "phase.v_unbalance", "phase.i_unbalance", "phase.pf_spread", "phase.wiring",
-    "network.p_balance", "network.q_balance", "network.losses", "network.v_agree", "network.f_agree",
-    "network.open_switch", "network.energization", "network.bad_data",
-    "quality.comm", "quality.v_range", "quality.i_range", "quality.frozen", "quality.noise",
+    "meter.p_sum",
+    "meter.q_sum",
+    "meter.s_total",
+    "meter.pf",
+    "meter.s_phase",
+    "meter.frequency",
+    "phase.v_sequence",
+    "phase.v_unbalance",
+    "phase.i_unbalance",
+    "phase.pf_spread",
+    "phase.wiring",
+    "network.p_balance",
+    "network.q_balance",
+    "network.losses",
+    "network.v_agree",
+    "network.f_agree",
+    "network.open_switch",
+    "network.energization",
+    "network.bad_data",
+    "quality.comm",
+    "quality.v_range",
+    "quality.i_range",
+    "quality.frozen",
+    "quality.noise",
 )
 _ORDER = {c: i for i, c in enumerate(CHECK_IDS)}
 
 
 def sort_results(results: Sequence[CheckResult]) -> list[CheckResult]:
     """Failures first, then warnings, passes, n/a; within a status by check id order, then subject."""
-    return sorted(results, key=lambda r: (STATUS_RANK[r.status], _ORDER.get(r.check, 99), r.check, r.subject))
+    return sorted(
+        results, key=lambda r: (STATUS_RANK[r.status], _ORDER.get(r.check, 99), r.check, r.subject)
+    )
 
 
 def by_status(results: Sequence[CheckResult]) -> list[CheckResult]:
@@ -91,25 +120,29 @@ class CheckEngine:
 
     def run(self, snapshot: Snapshot, history: Sequence[Snapshot] = ()) -> list[CheckResult]:
         """All checks on ``snapshot``; ``history`` = earlier snapshots, oldest first."""
-        with np.errstate(**_QUIET):  # NaN marks missing readings: the numpy warnings they raise say nothing new
+        with np.errstate(
+            **_QUIET
+        ):  # NaN marks missing readings: the numpy warnings they raise say nothing new
             return self._run(snapshot, history)
 
     def _run(self, snapshot: Snapshot, history: Sequence[Snapshot]) -> list[CheckResult]:
         lay = self.layout
         fr = self.frame(snapshot)
-        frames = [self.frame(s) for s in history[-max(lay.limits.s.frozen_cycles, 16):]] + [fr]
+        frames = [self.frame(s) for s in history[-max(lay.limits.s.frozen_cycles, 16) :]] + [fr]
         bk = buckets()
         self.quality.comm(snapshot, fr, bk)
         self.meter.run(fr, bk)
         self.phase.run(fr, bk)
         self.network.run(fr, dict(snapshot.switches), bk)
         self.quality.ranges(fr, bk)
-        hist = stack_history(frames[-max(self.quality.frozen_need, self.quality.noise_need):])
+        hist = stack_history(frames[-max(self.quality.frozen_need, self.quality.noise_need) :])
         self.quality.frozen(hist, len(frames), fr, bk)
         self.quality.noise(hist, len(frames), bk)
         return bk[0] + bk[1] + bk[2] + bk[3]
 
 
-def run_checks(profile: Profile, snapshot: Snapshot, history: Sequence[Snapshot] = ()) -> list[CheckResult]:
+def run_checks(
+    profile: Profile, snapshot: Snapshot, history: Sequence[Snapshot] = ()
+) -> list[CheckResult]:
     """All checks, failures first. Builds a CheckEngine each call: keep one for repeated use."""
     return CheckEngine(profile).run(snapshot, history)

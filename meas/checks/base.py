@@ -29,8 +29,16 @@ def buckets() -> Buckets:
     return ([], [], [], [])
 
 
-def result(check: str, subject: str, code: int, value: float = math.nan, limit: float = math.nan,
-           unit: str = "", message: str = "", cause: str = "") -> CheckResult:
+def result(
+    check: str,
+    subject: str,
+    code: int,
+    value: float = math.nan,
+    limit: float = math.nan,
+    unit: str = "",
+    message: str = "",
+    cause: str = "",
+) -> CheckResult:
     """A CheckResult with plain floats (numpy scalars would not survive export unchanged).
 
     Filled directly rather than through the frozen dataclass's __init__: a run makes hundreds
@@ -38,15 +46,33 @@ def result(check: str, subject: str, code: int, value: float = math.nan, limit: 
     same; the object is as immutable as one made the usual way.
     """
     r = _new(CheckResult)
-    r.__dict__.update(check=check, subject=subject, status=_STATUS[code], value=float(value), limit=float(limit),
-                      unit=unit, message=message, cause=cause)
+    r.__dict__.update(
+        check=check,
+        subject=subject,
+        status=_STATUS[code],
+        value=float(value),
+        limit=float(limit),
+        unit=unit,
+        message=message,
+        cause=cause,
+    )
     return r
 
 
-def template(check: str, subject: str, code: int = PASS, unit: str = "", message: str = "", cause: str = "") -> dict:
+def template(
+    check: str, subject: str, code: int = PASS, unit: str = "", message: str = "", cause: str = ""
+) -> dict:
     """The fixed fields of a result that recurs every run with new numbers (see ``make``)."""
-    return {"check": check, "subject": subject, "status": _STATUS[code], "value": math.nan, "limit": math.nan,
-            "unit": unit, "message": message, "cause": cause}
+    return {
+        "check": check,
+        "subject": subject,
+        "status": _STATUS[code],
+        "value": math.nan,
+        "limit": math.nan,
+        "unit": unit,
+        "message": message,
+        "cause": cause,
+    }
 
 
 def make(tp: dict, value: float, limit: float) -> CheckResult:

@@ -39,7 +39,12 @@ HYP_CAUSES = tuple(h for h, _ in _HYP)
 _OFF = np.array([o for _, o in _HYP])
 _SWAPS = (4, 5, 6)
 # whole-meter turns that undo an all-phase error on a load
-_ALL = [("", 0.0), ("ct_reversed:ABC", 180.0), ("vi_mismatch:+120", -120.0), ("vi_mismatch:-120", 120.0)]
+_ALL = [
+    ("", 0.0),
+    ("ct_reversed:ABC", 180.0),
+    ("vi_mismatch:+120", -120.0),
+    ("vi_mismatch:-120", 120.0),
+]
 
 # expected power angle of a branch: 0 = P > 0 (towards loads), 1 = P < 0, 2 = either sign of P,
 # 3 = reactive (a shunt: the angle sits near +-90 degrees)
@@ -69,11 +74,18 @@ class Signature:
     angle_deg: float  # circular mean of the corrected angles
 
 
-HEALTHY = Signature("", math.nan, math.nan, math.nan)  # signature_rows: no wiring fault (spread given apart)
+HEALTHY = Signature(
+    "", math.nan, math.nan, math.nan
+)  # signature_rows: no wiring fault (spread given apart)
 
 
-def signatures(s_ph: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg: float = 75.0,
-               coherent_deg: float = 40.0) -> list[Signature | None]:
+def signatures(
+    s_ph: np.ndarray,
+    axis: np.ndarray,
+    is_load: np.ndarray,
+    trip_deg: float = 75.0,
+    coherent_deg: float = 40.0,
+) -> list[Signature | None]:
     """Wiring signature per meter from (n, 3) complex phase powers; None where S is NaN.
 
     The plain all-hypotheses form; the engine runs the equivalent ``signature_rows``."""
@@ -99,7 +111,12 @@ def signatures(s_ph: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg
         else:
             best, cause = 0, ""
         mean = means[mi][best]
-        if load_l[mi] and not cause.startswith("phases") and sp[best] <= coherent_deg and _misfit(mean, FORWARD) > 100.0:
+        if (
+            load_l[mi]
+            and not cause.startswith("phases")
+            and sp[best] <= coherent_deg
+            and _misfit(mean, FORWARD) > 100.0
+        ):
             _, tag, off = min((_misfit(mean + off, FORWARD), tag, off) for tag, off in _ALL)
             if tag:
                 cause = tag if not cause else f"{cause},{tag}"
@@ -108,8 +125,14 @@ def signatures(s_ph: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg
     return out
 
 
-def signature_rows(ang: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_deg: float, coherent_deg: float,
-                   want: np.ndarray) -> tuple[list[Signature | None], list[float]]:
+def signature_rows(
+    ang: np.ndarray,
+    axis: np.ndarray,
+    is_load: np.ndarray,
+    trip_deg: float,
+    coherent_deg: float,
+    want: np.ndarray,
+) -> tuple[list[Signature | None], list[float]]:
     """Signatures from (m, 3) per-phase power angles (degrees) of the rows where ``want``
     (None elsewhere; ``HEALTHY`` for no fault seen), and every row's spread as measured (the
     phase.pf_spread figure).
@@ -129,7 +152,13 @@ def signature_rows(ang: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_
     mean0: dict[int, float] = {}
     if loads:
         sub = ang0[loads]
-        mean0 = dict(zip(loads, np.rad2deg(np.angle(np.exp(1j * np.deg2rad(sub)).sum(axis=1))).tolist(), strict=True))
+        mean0 = dict(
+            zip(
+                loads,
+                np.rad2deg(np.angle(np.exp(1j * np.deg2rad(sub)).sum(axis=1))).tolist(),
+                strict=True,
+            )
+        )
     full: dict[int, tuple[list[float], list[float]]] = {}
     if faulty:
         corr = ang[faulty][:, None, :] + _OFF[None, :, :]  # (f, h, 3)
@@ -140,7 +169,9 @@ def signature_rows(ang: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_
         if not want_l[k]:
             continue
         hit = full.get(k)
-        if hit is None:  # below the trip spread: no per-phase fault, perhaps a whole-meter one on a load
+        if (
+            hit is None
+        ):  # below the trip spread: no per-phase fault, perhaps a whole-meter one on a load
             mean = mean0.get(k)
             if mean is None or _misfit(mean, FORWARD) <= 100.0:
                 out[k] = HEALTHY
@@ -149,7 +180,9 @@ def signature_rows(ang: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_
             best, cause = 0, ""
         else:
             sp, mk = hit
-            best = min(range(5), key=sp.__getitem__)  # first smallest, as np.argmin; the three swaps share one spread
+            best = min(
+                range(5), key=sp.__getitem__
+            )  # first smallest, as np.argmin; the three swaps share one spread
             if best != 0 and sp[0] >= trip_deg and sp[best] <= coherent_deg:
                 if best == 4:
                     best = min(_SWAPS, key=lambda h: (_misfit(mk[h], axis_l[k]), h))
@@ -157,7 +190,12 @@ def signature_rows(ang: np.ndarray, axis: np.ndarray, is_load: np.ndarray, trip_
             else:
                 best, cause = 0, ""
             mean = mk[best]
-            if not (load_l[k] and not cause.startswith("phases") and sp[best] <= coherent_deg and _misfit(mean, FORWARD) > 100.0):
+            if not (
+                load_l[k]
+                and not cause.startswith("phases")
+                and sp[best] <= coherent_deg
+                and _misfit(mean, FORWARD) > 100.0
+            ):
                 out[k] = Signature(cause, float(sp[0]), float(sp[best]), mean)
                 continue
         _, tag, off = min((_misfit(mean + off, FORWARD), tag, off) for tag, off in _ALL)
@@ -228,8 +266,19 @@ def suspects(eqs: list[Equation], s_ph: np.ndarray, ambiguity: float = 0.8) -> S
         if np.isnan(s).any():
             continue
         j0 = sum(_wss(res[j], eqs[j].sig_p, eqs[j].sig_q) for j in idx)
-        num = sum(float(np.sum(s.real * res[j].real / eqs[j].sig_p**2 + s.imag * res[j].imag / eqs[j].sig_q**2)) for j in idx)
-        den = sum(float(np.sum(s.real**2 / eqs[j].sig_p**2 + s.imag**2 / eqs[j].sig_q**2)) for j in idx)
+        num = sum(
+            float(
+                np.sum(
+                    s.real * res[j].real / eqs[j].sig_p ** 2
+                    + s.imag * res[j].imag / eqs[j].sig_q ** 2
+                )
+            )
+            for j in idx
+        )
+        den = sum(
+            float(np.sum(s.real**2 / eqs[j].sig_p ** 2 + s.imag**2 / eqs[j].sig_q ** 2))
+            for j in idx
+        )
         if den > 0:
             c = num / den
             jh = sum(_wss(res[j] - c * s, eqs[j].sig_p, eqs[j].sig_q) for j in idx)

@@ -51,11 +51,22 @@ assert P4.stop == Q4.start
 
 def _stack(specs: list[ClassSpec]) -> ClassSpec:
     """One ClassSpec whose numeric fields are (n, 1) arrays, for broadcasting over meters."""
+
     def col(name: str) -> np.ndarray:
         return np.array([getattr(s, name) for s in specs], float)[:, None]
 
-    names = ("main_pct", "low_i_pct", "low_i_frac", "min_i_frac", "low_pf_pct", "low_pf_low_i_pct", "low_pf_i_frac")
-    return ClassSpec(specs[0].kind if specs else "", "*", *(col(n) for n in names), source="stacked")
+    names = (
+        "main_pct",
+        "low_i_pct",
+        "low_i_frac",
+        "min_i_frac",
+        "low_pf_pct",
+        "low_pf_low_i_pct",
+        "low_pf_i_frac",
+    )
+    return ClassSpec(
+        specs[0].kind if specs else "", "*", *(col(n) for n in names), source="stacked"
+    )
 
 
 @dataclass
@@ -114,16 +125,37 @@ class Layout:
             i_n[mi] = m.ct_primary_a or profile.bench.s_base_va / (math.sqrt(3.0) * zone.bench_v_ll)
         angles = has[:, V_ANG].all(axis=1) & has[:, I_ANG].all(axis=1)
         lay = cls(
-            profile, Limits(profile.checks), meters, {m.id: i for i, m in enumerate(meters)}, cols, has, scale,
-            is_float, i_n, v_n, vector_s, angles, f_nom=profile.bench.frequency_hz,
+            profile,
+            Limits(profile.checks),
+            meters,
+            {m.id: i for i, m in enumerate(meters)},
+            cols,
+            has,
+            scale,
+            is_float,
+            i_n,
+            v_n,
+            vector_s,
+            angles,
+            f_nom=profile.bench.frequency_hz,
         )
         lay.axis, lay.is_load = _flow_axes(profile)
         lay.keys_of = [[key for _, key in mc] for mc in cols]
-        lay.fill = [(m.id, _getter([key for _, key in mc]), (Quality.OK,) * len(mc), [key for _, key in mc], [math.nan] * len(mc))
-                    for m, mc in zip(meters, cols, strict=True)]
+        lay.fill = [
+            (
+                m.id,
+                _getter([key for _, key in mc]),
+                (Quality.OK,) * len(mc),
+                [key for _, key in mc],
+                [math.nan] * len(mc),
+            )
+            for m, mc in zip(meters, cols, strict=True)
+        ]
         lay.fill_rows = np.array([mi for mi, mc in enumerate(cols) for _ in mc], np.intp)
         lay.fill_cols = np.array([c for mc in cols for c, _ in mc], np.intp)
-        lay.spec_p, lay.spec_q, lay.spec_v, lay.spec_i = (_stack([_spec(profile, m, kind) for m in meters]) for kind in "pqvi")
+        lay.spec_p, lay.spec_q, lay.spec_v, lay.spec_i = (
+            _stack([_spec(profile, m, kind) for m in meters]) for kind in "pqvi"
+        )
         lay.consts = Consts.build(lay)
         return lay
 
@@ -260,8 +292,12 @@ class Frame:
         base = np.fmax(np.fmax(v8, np.where(low, 0.5 * s8_fin, 0.0)), c.min_rated)
         a[:, _PQ] = pct * base
         res = c.res_abs + c.res_rel * ax
-        u = np.sqrt(a * a + res * res) * (1.0 / math.sqrt(3.0))  # rectangular -> standard (GUM 4.3.7)
-        m6 = nanmean(np.concatenate([x[:, V_LN], x[:, V_LL], u[:, V_LN], u[:, V_LL]], axis=1).reshape(-1, 3)).reshape(-1, 4)
+        u = np.sqrt(a * a + res * res) * (
+            1.0 / math.sqrt(3.0)
+        )  # rectangular -> standard (GUM 4.3.7)
+        m6 = nanmean(
+            np.concatenate([x[:, V_LN], x[:, V_LL], u[:, V_LN], u[:, V_LL]], axis=1).reshape(-1, 3)
+        ).reshape(-1, 4)
         vmean = np.where(np.isnan(m6[:, 0]), m6[:, 1] / math.sqrt(3.0), m6[:, 0])
         vmean_u = np.where(np.isnan(m6[:, 2]), m6[:, 3] / math.sqrt(3.0), m6[:, 2])
         i_mean = i8[:, 3] * lay.i_n
@@ -316,13 +352,35 @@ class Consts:
         pq = np.r_[np.arange(P4.start, P4.stop), np.arange(Q4.start, Q4.stop)]
 
         def pair(name: str, scale: float = 1.0) -> np.ndarray:
-            return np.concatenate([np.repeat(getattr(lay.spec_p, name), 4, axis=1),
-                                   np.repeat(getattr(lay.spec_q, name), 4, axis=1)], axis=1) * scale
+            return (
+                np.concatenate(
+                    [
+                        np.repeat(getattr(lay.spec_p, name), 4, axis=1),
+                        np.repeat(getattr(lay.spec_q, name), 4, axis=1),
+                    ],
+                    axis=1,
+                )
+                * scale
+            )
 
         min_rated = pair("min_i_frac") * np.concatenate([rated4, rated4], axis=1)
-        return cls(mag_pct, mag_floor, const_a, res_abs, res_rel, pq, pair("main_pct", 0.01), pair("low_i_pct", 0.01),
-                   pair("low_i_frac"), pair("low_pf_pct", 0.01), pair("low_pf_low_i_pct", 0.01), pair("low_pf_i_frac"),
-                   min_rated, lay.i_n[:, None], 0.5 * lay.v_n)
+        return cls(
+            mag_pct,
+            mag_floor,
+            const_a,
+            res_abs,
+            res_rel,
+            pq,
+            pair("main_pct", 0.01),
+            pair("low_i_pct", 0.01),
+            pair("low_i_frac"),
+            pair("low_pf_pct", 0.01),
+            pair("low_pf_low_i_pct", 0.01),
+            pair("low_pf_i_frac"),
+            min_rated,
+            lay.i_n[:, None],
+            0.5 * lay.v_n,
+        )
 
 
 def nanmean(a: np.ndarray) -> np.ndarray:

@@ -22,9 +22,21 @@ from .base import FAIL, NA, PASS, WARN, Buckets, fmt, na, result, template
 from .frame import COL, I_PH, P4, PF4, Q4, S4, V_LN, F, Frame, Layout
 
 _BLOCK = slice(P4.start, PF4.stop)  # p.A..p.T, q.A..q.T, s.A..s.T, pf.A..pf.T: contiguous columns
-assert P4.stop == Q4.start and Q4.stop == S4.start and S4.stop == PF4.start and PF4.stop - P4.start == 16
+assert (
+    P4.stop == Q4.start
+    and Q4.stop == S4.start
+    and S4.stop == PF4.start
+    and PF4.stop - P4.start == 16
+)
 _PF_NAMES = ("pf.A", "pf.B", "pf.C", "pf.T")
-_CHECKS = ("meter.p_sum", "meter.q_sum", "meter.s_total", "meter.pf", "meter.s_phase", "meter.frequency")
+_CHECKS = (
+    "meter.p_sum",
+    "meter.q_sum",
+    "meter.s_total",
+    "meter.pf",
+    "meter.s_phase",
+    "meter.frequency",
+)
 
 
 def _worst(vals: np.ndarray, lims: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -46,42 +58,96 @@ class MeterPlan:
         rated = lay.v_n * lay.i_n
         self.small_at = 0.01 * np.c_[rated, rated, rated, 3 * rated]
         self.rows = np.arange(len(ids))
-        self.fixed: dict[str, list] = {}  # check -> per meter a fixed n/a result (profile-only reason) or None
+        self.fixed: dict[
+            str, list
+        ] = {}  # check -> per meter a fixed n/a result (profile-only reason) or None
         self.data_na: dict[str, list] = {}  # check -> per meter the n/a result for missing data
         self.tp: dict[str, list[dict]] = {}  # check -> per meter the template of the passing result
 
-        def plan(check: str, need: list[bool], reason: str, data_reason: str, unit: str, msg: str) -> None:
-            self.fixed[check] = [None if ok else na(check, mid, reason, unit) for mid, ok in zip(ids, need, strict=True)]
+        def plan(
+            check: str, need: list[bool], reason: str, data_reason: str, unit: str, msg: str
+        ) -> None:
+            self.fixed[check] = [
+                None if ok else na(check, mid, reason, unit)
+                for mid, ok in zip(ids, need, strict=True)
+            ]
             self.data_na[check] = [na(check, mid, data_reason, unit) for mid in ids]
             self.tp[check] = [template(check, mid, PASS, unit, msg) for mid in ids]
 
-        for check, sl, name, unit in (("meter.p_sum", P4, "p", "W"), ("meter.q_sum", Q4, "q", "var")):
-            plan(check, has[:, sl].all(axis=1).tolist(), f"the register map has no {name}.A-C and {name}.T",
-                 f"no good reading of every {name}.* in this snapshot", unit, f"{name}.T matches the sum of phases")
-        need_s = np.where(lay.vector_s, has[:, [COL["p.T"], COL["q.T"], COL["s.T"]]].all(axis=1),
-                          has[:, S4].all(axis=1)).tolist()
-        plan("meter.s_total", need_s, "the register map lacks the readings for S total",
-             "no good reading of S total or its parts in this snapshot", "VA", "")
-        self.definition = ["vector (IEEE 1459: |sum of complex phase S|)" if v else "arithmetic (IEEE 1459: sum of phase S)"
-                           for v in lay.vector_s.tolist()]
-        self.tp["meter.s_total"] = [template("meter.s_total", mid, PASS, "VA", f"s.T agrees with the {d} definition")
-                                    for mid, d in zip(ids, self.definition, strict=True)]
-        plan("meter.pf", has[:, PF4].any(axis=1).tolist(), "the register map has no power factor",
-             "too little load (or no good reading) to judge the power factor", "1",
-             "power factor matches P/S with the sign of P (IEC)")
-        need_sp = (has[:, V_LN].all(axis=1) & has[:, I_PH].all(axis=1) & has[:, S4][:, :3].all(axis=1)).tolist()
-        plan("meter.s_phase", need_sp, "the register map lacks v_ln, i or s per phase",
-             "no good V, I and S of every phase in this snapshot", "VA", "S of every phase matches V x I")
-        plan("meter.frequency", has[:, F].tolist(), "the register map has no frequency",
-             "no good frequency reading in this snapshot", "Hz", "frequency within the nominal band")
+        for check, sl, name, unit in (
+            ("meter.p_sum", P4, "p", "W"),
+            ("meter.q_sum", Q4, "q", "var"),
+        ):
+            plan(
+                check,
+                has[:, sl].all(axis=1).tolist(),
+                f"the register map has no {name}.A-C and {name}.T",
+                f"no good reading of every {name}.* in this snapshot",
+                unit,
+                f"{name}.T matches the sum of phases",
+            )
+        need_s = np.where(
+            lay.vector_s,
+            has[:, [COL["p.T"], COL["q.T"], COL["s.T"]]].all(axis=1),
+            has[:, S4].all(axis=1),
+        ).tolist()
+        plan(
+            "meter.s_total",
+            need_s,
+            "the register map lacks the readings for S total",
+            "no good reading of S total or its parts in this snapshot",
+            "VA",
+            "",
+        )
+        self.definition = [
+            "vector (IEEE 1459: |sum of complex phase S|)"
+            if v
+            else "arithmetic (IEEE 1459: sum of phase S)"
+            for v in lay.vector_s.tolist()
+        ]
+        self.tp["meter.s_total"] = [
+            template("meter.s_total", mid, PASS, "VA", f"s.T agrees with the {d} definition")
+            for mid, d in zip(ids, self.definition, strict=True)
+        ]
+        plan(
+            "meter.pf",
+            has[:, PF4].any(axis=1).tolist(),
+            "the register map has no power factor",
+            "too little load (or no good reading) to judge the power factor",
+            "1",
+            "power factor matches P/S with the sign of P (IEC)",
+        )
+        need_sp = (
+            has[:, V_LN].all(axis=1) & has[:, I_PH].all(axis=1) & has[:, S4][:, :3].all(axis=1)
+        ).tolist()
+        plan(
+            "meter.s_phase",
+            need_sp,
+            "the register map lacks v_ln, i or s per phase",
+            "no good V, I and S of every phase in this snapshot",
+            "VA",
+            "S of every phase matches V x I",
+        )
+        plan(
+            "meter.frequency",
+            has[:, F].tolist(),
+            "the register map has no frequency",
+            "no good frequency reading in this snapshot",
+            "Hz",
+            "frequency within the nominal band",
+        )
         self.dead_f = [na("meter.frequency", mid, "no voltage at the meter", "Hz") for mid in ids]
-        self.var = {c: [mi for mi, f in enumerate(fx) if f is None] for c, fx in self.fixed.items()}  # judged each run
+        self.var = {
+            c: [mi for mi, f in enumerate(fx) if f is None] for c, fx in self.fixed.items()
+        }  # judged each run
         self.fixed_only = {c: [f for f in fx if f is not None] for c, fx in self.fixed.items()}
         assert tuple(self.fixed) == _CHECKS  # rows of the judgement below
         # per check: the passing templates of the judged meters, and one C call picking their figures
         self.var_tp = {c: [self.tp[c][mi] for mi in v] for c, v in self.var.items()}
         self.var_pick = {c: itemgetter(*v) if len(v) > 1 else None for c, v in self.var.items()}
-        self.fixed_mask = np.array([[f is not None for f in fx] for fx in self.fixed.values()], bool)  # (6, n)
+        self.fixed_mask = np.array(
+            [[f is not None for f in fx] for fx in self.fixed.values()], bool
+        )  # (6, n)
 
     def run(self, fr: Frame, bk: Buckets) -> None:
         lay = self.lay
@@ -132,7 +198,9 @@ class MeterPlan:
         check = "meter.s_phase"
         v, i, s3 = x[:, V_LN], x[:, I_PH], s[:, :3]
         r_sp = s3 - v * i
-        lim_sp = apply(check, "VA", k * np.sqrt(us[:, :3] ** 2 + (i * u[:, V_LN]) ** 2 + (v * u[:, I_PH]) ** 2))
+        lim_sp = apply(
+            check, "VA", k * np.sqrt(us[:, :3] ** 2 + (i * u[:, V_LN]) ** 2 + (v * u[:, I_PH]) ** 2)
+        )
         j_sp, rv_sp, lv_sp = _worst(r_sp, lim_sp)
 
         # meter.frequency
@@ -147,8 +215,17 @@ class MeterPlan:
         codes = codes_a.tolist()
         good = codes_a == PASS
         good[5] &= fr.energized  # meter.frequency is n/a without voltage
-        all_good = (good | self.fixed_mask).all(axis=1).tolist()  # per check: every judged meter passes
-        shown = [r_pq[:, 0].tolist(), r_pq[:, 1].tolist(), r_s.tolist(), rv_pf.tolist(), rv_sp.tolist(), d_f.tolist()]
+        all_good = (
+            (good | self.fixed_mask).all(axis=1).tolist()
+        )  # per check: every judged meter passes
+        shown = [
+            r_pq[:, 0].tolist(),
+            r_pq[:, 1].tolist(),
+            r_s.tolist(),
+            rv_pf.tolist(),
+            rv_sp.tolist(),
+            d_f.tolist(),
+        ]
         lims_l = lims.tolist()
         live = fr.energized.tolist()
         na_, pass_ = bk[NA].append, bk[PASS].append
@@ -165,7 +242,9 @@ class MeterPlan:
                 pick = self.var_pick[check]
                 if pick is not None:
                     for t, a, b in zip(self.var_tp[check], pick(vl), pick(ll), strict=True):
-                        r = new(CheckResult)  # base.make, inlined: the meter checks make a third of all results
+                        r = new(
+                            CheckResult
+                        )  # base.make, inlined: the meter checks make a third of all results
                         d = r.__dict__
                         d.update(t)
                         d["value"] = a
@@ -173,7 +252,9 @@ class MeterPlan:
                         pass_(r)
                     continue
                 for mi in var:
-                    r = new(CheckResult)  # base.make, inlined: the meter checks make a third of all results
+                    r = new(
+                        CheckResult
+                    )  # base.make, inlined: the meter checks make a third of all results
                     d = r.__dict__
                     d.update(tp[mi])
                     d["value"] = vl[mi]
@@ -188,7 +269,9 @@ class MeterPlan:
                 elif is_f and not live[mi]:
                     na_(self.dead_f[mi])
                 elif c == PASS:
-                    r = new(CheckResult)  # base.make, inlined: the meter checks make a third of all results
+                    r = new(
+                        CheckResult
+                    )  # base.make, inlined: the meter checks make a third of all results
                     d = r.__dict__
                     d.update(tp[mi])
                     d["value"] = vl[mi]
@@ -206,45 +289,59 @@ class MeterPlan:
         if row < 2:
             check, name, unit = (("meter.p_sum", "p", "W"), ("meter.q_sum", "q", "var"))[row]
             xs = a["xb"][mi, row]
-            msg = (f"{name}.T = {fmt(xs[3], unit)} but the phases sum to {fmt(xs[:3].sum(), unit)} "
-                   f"(off by {fmt(val, unit)}, allowed {fmt(lim, unit)}): check scale, address and "
-                   f"word order of {name}.* in map {m.map_id}")
+            msg = (
+                f"{name}.T = {fmt(xs[3], unit)} but the phases sum to {fmt(xs[:3].sum(), unit)} "
+                f"(off by {fmt(val, unit)}, allowed {fmt(lim, unit)}): check scale, address and "
+                f"word order of {name}.* in map {m.map_id}"
+            )
             return result(check, m.id, code, val, lim, unit, msg, f"register_map:{name}")
         if row == 2:
             definition = self.definition[mi]
             s_t = a["s"][mi, 3]
             other = a["arith"][mi] if lay.vector_s[mi] else a["vec"][mi]
             if abs(float(s_t - other)) <= lim:
-                msg = (f"s.T = {fmt(s_t, 'VA')} fits the other IEEE 1459 definition, not the {definition} one "
-                       f"the profile states: set apparent_power in map {m.map_id}")
+                msg = (
+                    f"s.T = {fmt(s_t, 'VA')} fits the other IEEE 1459 definition, not the {definition} one "
+                    f"the profile states: set apparent_power in map {m.map_id}"
+                )
                 cause = "s_definition"
             else:
-                msg = (f"s.T = {fmt(s_t, 'VA')} but the {definition} value is {fmt(a['expect'][mi], 'VA')} "
-                       f"(allowed {fmt(lim, 'VA')}): check scale and address of s.* in map {m.map_id}")
+                msg = (
+                    f"s.T = {fmt(s_t, 'VA')} but the {definition} value is {fmt(a['expect'][mi], 'VA')} "
+                    f"(allowed {fmt(lim, 'VA')}): check scale and address of s.* in map {m.map_id}"
+                )
                 cause = "register_map:s"
             return result("meter.s_total", m.id, code, val, lim, "VA", msg, cause)
         if row == 3:
             kk = int(a["j_pf"][mi])
             pf, calc = a["pf"], a["calc"]
             if abs(pf[mi, kk] + calc[mi, kk]) <= lim:
-                msg = (f"{_PF_NAMES[kk]} = {pf[mi, kk]:.3f} is -(P/S) = {-calc[mi, kk]:.3f}: the meter uses a lead/lag sign "
-                       "convention, not the IEC sign of P; set the meter or the map accordingly")
+                msg = (
+                    f"{_PF_NAMES[kk]} = {pf[mi, kk]:.3f} is -(P/S) = {-calc[mi, kk]:.3f}: the meter uses a lead/lag sign "
+                    "convention, not the IEC sign of P; set the meter or the map accordingly"
+                )
                 cause = "pf_sign_convention"
             else:
-                msg = (f"{_PF_NAMES[kk]} = {pf[mi, kk]:.3f} but P/S = {calc[mi, kk]:.3f} (allowed +-{lim:.3f}): check scale "
-                       f"and address of pf.* in map {m.map_id}")
+                msg = (
+                    f"{_PF_NAMES[kk]} = {pf[mi, kk]:.3f} but P/S = {calc[mi, kk]:.3f} (allowed +-{lim:.3f}): check scale "
+                    f"and address of pf.* in map {m.map_id}"
+                )
                 cause = "register_map:pf"
             return result("meter.pf", m.id, code, val, lim, "1", msg, cause)
         if row == 4:
             jj = int(a["j_sp"][mi])
             ph = "ABC"[jj]
             v, i, s3 = a["v"], a["i"], a["s3"]
-            msg = (f"s.{ph} = {fmt(s3[mi, jj], 'VA')} but v_ln.{ph} x i.{ph} = {fmt(v[mi, jj] * i[mi, jj], 'VA')}: "
-                   f"check the scale of s, v_ln and i in map {m.map_id} and the CT/VT ratios of {m.id}")
+            msg = (
+                f"s.{ph} = {fmt(s3[mi, jj], 'VA')} but v_ln.{ph} x i.{ph} = {fmt(v[mi, jj] * i[mi, jj], 'VA')}: "
+                f"check the scale of s, v_ln and i in map {m.map_id} and the CT/VT ratios of {m.id}"
+            )
             return result("meter.s_phase", m.id, code, val, lim, "VA", msg, "register_map:s_phase")
         f = a["f"][mi]
-        msg = (f"f = {f:.3f} Hz is {val:+.3f} Hz from the nominal {lay.f_nom:g} Hz (band +-{lim:g} Hz): "
-               "check the supply, or the scale of f.T in map " + m.map_id)
+        msg = (
+            f"f = {f:.3f} Hz is {val:+.3f} Hz from the nominal {lay.f_nom:g} Hz (band +-{lim:g} Hz): "
+            "check the supply, or the scale of f.T in map " + m.map_id
+        )
         return result("meter.frequency", m.id, code, val, lim, "Hz", msg, "frequency")
 
 

@@ -42,8 +42,12 @@ class NetworkChecks:
             b = [i for i, m in enumerate(p.meters) if m.branch == br.id and m.bus == br.to_bus]
             if a and b:
                 self.two_end.append((br.id, a[0], b[0]))
-        self.sw_members = {sw.id: [i for i, m in enumerate(p.meters) if m.branch == sw.branch] for sw in p.switches}
-        self.on_bus: dict[str, list[int]] = {b.id: [i for i, m in enumerate(p.meters) if m.bus == b.id] for b in p.buses}
+        self.sw_members = {
+            sw.id: [i for i, m in enumerate(p.meters) if m.branch == sw.branch] for sw in p.switches
+        }
+        self.on_bus: dict[str, list[int]] = {
+            b.id: [i for i, m in enumerate(p.meters) if m.bus == b.id] for b in p.buses
+        }
         self.ids = [m.id for m in p.meters]
         self._plans: dict[int, tuple[TopoState, list[tuple]]] = {}
         self.vn = lay.v_n.tolist()
@@ -51,22 +55,60 @@ class NetworkChecks:
         self.loss_fixed = []
         for br, a, b in self.two_end:
             ids = f"{self.ids[a]} and {self.ids[b]}"
-            self.loss_fixed.append((na("network.losses", br, "branch is switched out (or its switch state is unknown)", "W"),
-                                    na("network.losses", br, "no good P total at both ends", "W"),
-                                    template("network.losses", br, PASS, "W", f"losses of {br} plausible ({ids})"), ids))
-        self.va_fixed = [(na("network.v_agree", bus, "fewer than two meters with a good voltage on this bus", "V"),
-                          na("network.v_agree", bus, "bus is not energized", "V"),
-                          template("network.v_agree", bus, PASS, "V",
-                                   f"voltages of {', '.join(self.ids[mi] for mi in mem)} agree"))
-                         for bus, mem in self.on_bus.items()]
-        self.en_fixed = [(na("network.energization", bus, "no meter with a good voltage on this bus", "V"),
-                          na("network.energization", bus, "depends on switches of unknown state", "V"),
-                          template("network.energization", bus, PASS, "V", f"{bus} is live as the switches say"),
-                          template("network.energization", bus, PASS, "V", f"{bus} is dead as the switches say"))
-                         for bus in self.on_bus]
-        self.va_peers = [[(mi, [p for p in mem if p != mi]) for mi in mem] for mem in self.on_bus.values()]
-        self.plain = not lay.profile.checks.overrides  # no limit overrides: Limits.apply returns its input
-        self.f_tp = template("network.f_agree", "bench", PASS, "Hz", "frequencies agree across the bench")
+            self.loss_fixed.append(
+                (
+                    na(
+                        "network.losses",
+                        br,
+                        "branch is switched out (or its switch state is unknown)",
+                        "W",
+                    ),
+                    na("network.losses", br, "no good P total at both ends", "W"),
+                    template("network.losses", br, PASS, "W", f"losses of {br} plausible ({ids})"),
+                    ids,
+                )
+            )
+        self.va_fixed = [
+            (
+                na(
+                    "network.v_agree",
+                    bus,
+                    "fewer than two meters with a good voltage on this bus",
+                    "V",
+                ),
+                na("network.v_agree", bus, "bus is not energized", "V"),
+                template(
+                    "network.v_agree",
+                    bus,
+                    PASS,
+                    "V",
+                    f"voltages of {', '.join(self.ids[mi] for mi in mem)} agree",
+                ),
+            )
+            for bus, mem in self.on_bus.items()
+        ]
+        self.en_fixed = [
+            (
+                na("network.energization", bus, "no meter with a good voltage on this bus", "V"),
+                na("network.energization", bus, "depends on switches of unknown state", "V"),
+                template(
+                    "network.energization", bus, PASS, "V", f"{bus} is live as the switches say"
+                ),
+                template(
+                    "network.energization", bus, PASS, "V", f"{bus} is dead as the switches say"
+                ),
+            )
+            for bus in self.on_bus
+        ]
+        self.va_peers = [
+            [(mi, [p for p in mem if p != mi]) for mi in mem] for mem in self.on_bus.values()
+        ]
+        self.plain = (
+            not lay.profile.checks.overrides
+        )  # no limit overrides: Limits.apply returns its input
+        self.f_tp = template(
+            "network.f_agree", "bench", PASS, "Hz", "frequencies agree across the bench"
+        )
 
     # ------------------------------------------------------------------ balances
     def _balance_plan(self, st: TopoState) -> list[tuple]:
@@ -92,26 +134,40 @@ class NetworkChecks:
                     reason = "no current flows at this bus"
             ids = ", ".join(ids_all[mi] for mi in mem)
             if reason:
-                fixed = (na("network.p_balance", bus, reason, "W"), na("network.q_balance", bus, reason, "var"))
+                fixed = (
+                    na("network.p_balance", bus, reason, "W"),
+                    na("network.q_balance", bus, reason, "var"),
+                )
                 tps = (None, None)
             else:
                 fixed = (None, None)
-                tps = (template("network.p_balance", bus, PASS, "W", f"P balances at {bus} ({ids})"),
-                       template("network.q_balance", bus, PASS, "var", f"Q balances at {bus} ({ids})"))
+                tps = (
+                    template("network.p_balance", bus, PASS, "W", f"P balances at {bus} ({ids})"),
+                    template("network.q_balance", bus, PASS, "var", f"Q balances at {bus} ({ids})"),
+                )
             plan.append((bus, fixed, tps, mem, ids, tuple(mem), len(mem) >= 2))
         if len(self._plans) > 256:
             self._plans.clear()
         self._plans[id(st)] = (st, plan)
         return plan
 
-    def _balance(self, cols: dict, st: TopoState, bk: Buckets, eqs: list[tuple[str, tuple[int, ...]]],
-                 failed: set[str]) -> None:
+    def _balance(
+        self,
+        cols: dict,
+        st: TopoState,
+        bk: Buckets,
+        eqs: list[tuple[str, tuple[int, ...]]],
+        failed: set[str],
+    ) -> None:
         lay = self.lay
         ids_all = self.ids
         k, warn = lay.limits.k, lay.limits.warn
         apply, plain = lay.limits.apply, self.plain
         plan = self._balance_plan(st)
-        for which, check, name, unit in ((0, "network.p_balance", "P", "W"), (1, "network.q_balance", "Q", "var")):
+        for which, check, name, unit in (
+            (0, "network.p_balance", "P", "W"),
+            (1, "network.q_balance", "Q", "var"),
+        ):
             xs, us = (cols["p"], cols["up"]) if which == 0 else (cols["q"], cols["uq"])
             for bus, fixed, tps, mem, ids, mem_t, multi in plan:
                 fx = fixed[which]
@@ -124,23 +180,29 @@ class NetworkChecks:
                 # is NaN too but reads no NaN, and is judged below as before)
                 if r != r and any(v != v for v in vals):
                     bad = [ids_all[mi] for mi, v in zip(mem, vals, strict=True) if v != v]
-                    bk[NA].append(na(check, bus, f"no good {name} total from {', '.join(bad)}", unit))
+                    bk[NA].append(
+                        na(check, bus, f"no good {name} total from {', '.join(bad)}", unit)
+                    )
                     continue
                 acc = 0
                 for mi in mem:
                     acc += us[mi] ** 2
                 u = math.sqrt(acc)  # meters independent: RSS (GUM 5.1.2)
                 lim = k * u if plain else float(apply(check, unit, k * u))
-                ar = abs(r)  # base.judge1, inlined (r is not NaN here; an override may make lim NaN)
+                ar = abs(
+                    r
+                )  # base.judge1, inlined (r is not NaN here; an override may make lim NaN)
                 code = NA if lim != lim else FAIL if ar > lim else WARN if ar > warn * lim else PASS
                 if code == PASS:
                     bk[PASS].append(make(tps[which], float(r), lim))
                 else:
                     if code == FAIL:
                         failed.add(bus)
-                    msg = (f"{name} does not balance at {bus}: readings of {ids} sum to {fmt(r, unit)} (allowed "
-                           f"{fmt(lim, unit)}): a CT/VT ratio, CT polarity or sign convention error, or an unmetered "
-                           "branch; see network.bad_data")
+                    msg = (
+                        f"{name} does not balance at {bus}: readings of {ids} sum to {fmt(r, unit)} (allowed "
+                        f"{fmt(lim, unit)}): a CT/VT ratio, CT polarity or sign convention error, or an unmetered "
+                        "branch; see network.bad_data"
+                    )
                     bk[code].append(result(check, bus, code, r, lim, unit, msg, "imbalance"))
                 if which == 0 and multi:
                     eqs.append((bus, mem_t))
@@ -159,14 +221,22 @@ class NetworkChecks:
             out.append(Equation(name, mem, np.fmax(sp, 1e-9), np.fmax(sq, 1e-9)))
         return out
 
-    def _losses(self, cols: dict, st: TopoState, bk: Buckets, eqs: list[tuple[str, tuple[int, ...]]],
-                failed: set[str]) -> None:
+    def _losses(
+        self,
+        cols: dict,
+        st: TopoState,
+        bk: Buckets,
+        eqs: list[tuple[str, tuple[int, ...]]],
+        failed: set[str],
+    ) -> None:
         lay = self.lay
         check = "network.losses"
         max_frac = self.loss_frac
         k, warn, apply = lay.limits.k, lay.limits.warn, lay.limits.apply
         xs, us = cols["p"], cols["up"]
-        for (br, a, b), (na_off, na_data, tp, ids) in zip(self.two_end, self.loss_fixed, strict=True):
+        for (br, a, b), (na_off, na_data, tp, ids) in zip(
+            self.two_end, self.loss_fixed, strict=True
+        ):
             if st.branch_on.get(br) is not True:
                 bk[NA].append(na_off)
                 continue
@@ -181,19 +251,25 @@ class NetworkChecks:
             hi = max_frac * through + lim
             if loss < -lim:
                 code = judge1(loss, lim, warn)
-                msg = (f"losses of {br} are negative ({fmt(loss, 'W')}, allowed -{fmt(lim, 'W')}) from {ids}: "
-                       "one end reads too high or has the wrong sign; see network.bad_data")
+                msg = (
+                    f"losses of {br} are negative ({fmt(loss, 'W')}, allowed -{fmt(lim, 'W')}) from {ids}: "
+                    "one end reads too high or has the wrong sign; see network.bad_data"
+                )
                 failed.add(br)
                 bk[code].append(result(check, br, code, loss, lim, "W", msg, "negative_losses"))
             elif loss > hi:
-                msg = (f"losses of {br} are {fmt(loss, 'W')}, more than {max_frac:.0%} of the {fmt(through, 'W')} it carries, "
-                       f"from {ids}: a CT/VT ratio or polarity error at one end; see network.bad_data")
+                msg = (
+                    f"losses of {br} are {fmt(loss, 'W')}, more than {max_frac:.0%} of the {fmt(through, 'W')} it carries, "
+                    f"from {ids}: a CT/VT ratio or polarity error at one end; see network.bad_data"
+                )
                 failed.add(br)
                 bk[FAIL].append(result(check, br, FAIL, loss, hi, "W", msg, "excess_losses"))
             elif loss > -warn * lim:
                 bk[PASS].append(make(tp, loss, lim))
             else:
-                bk[WARN].append(result(check, br, WARN, loss, lim, "W", f"losses of {br} plausible ({ids})"))
+                bk[WARN].append(
+                    result(check, br, WARN, loss, lim, "W", f"losses of {br} plausible ({ids})")
+                )
             eqs.append((br, (a, b)))
 
     # ------------------------------------------------------------------ voltages
@@ -206,8 +282,9 @@ class NetworkChecks:
         k_cov = lay.limits.k
         apply = None if self.plain else lay.limits.apply
         ratios: dict[int, float] = {}
-        for bus, mem0, (na_few, na_dead, tp), peers0 in zip(self.on_bus, self.on_bus.values(), self.va_fixed,
-                                                            self.va_peers, strict=True):
+        for bus, mem0, (na_few, na_dead, tp), peers0 in zip(
+            self.on_bus, self.on_bus.values(), self.va_fixed, self.va_peers, strict=True
+        ):
             mem = [mi for mi in mem0 if v[mi] == v[mi]]
             if len(mem) < 2:
                 bk[NA].append(na_few)
@@ -223,7 +300,9 @@ class NetworkChecks:
                 np_ = len(peers)
                 if np_ == 2:  # the usual bus of three meters: _median and the sum below, unrolled
                     p0, p1 = peers
-                    ref = (v[p0] + v[p1]) / 2  # = _median (IEEE addition commutes: the sort cannot matter)
+                    ref = (
+                        v[p0] + v[p1]
+                    ) / 2  # = _median (IEEE addition commutes: the sort cannot matter)
                     acc = u[p0] ** 2 + u[p1] ** 2  # = 0 + a + b, left to right
                 else:
                     ref = _median([v[p] for p in peers])
@@ -253,8 +332,10 @@ class NetworkChecks:
             cause = f"vt_ratio:{k:.3f}" if code == FAIL else ""
             if code == FAIL:
                 ratios[worst] = k
-            msg = (f"{mid} reads {fmt(v[worst], 'V')} L-N, {k:.3f} times the other meters on {bus} "
-                   f"(off by {fmt(wd, 'V')}, allowed {fmt(wl, 'V')}): check the VT ratio and voltage wiring of {mid}")
+            msg = (
+                f"{mid} reads {fmt(v[worst], 'V')} L-N, {k:.3f} times the other meters on {bus} "
+                f"(off by {fmt(wd, 'V')}, allowed {fmt(wl, 'V')}): check the VT ratio and voltage wiring of {mid}"
+            )
             if len(mem) == 2:
                 msg += " (only two meters here: the one farther from nominal is named)"
             bk[code].append(result(check, bus, code, wd, wl, "V", msg, cause))
@@ -266,20 +347,26 @@ class NetworkChecks:
         live, fa = cols["live"], cols["f"]
         sel = [mi for mi in range(len(fa)) if live[mi] and fa[mi] == fa[mi]]
         if len(sel) < 2:
-            bk[NA].append(na(check, "bench", "fewer than two energized meters report frequency", "Hz"))
+            bk[NA].append(
+                na(check, "bench", "fewer than two energized meters report frequency", "Hz")
+            )
             return
         f = [fa[mi] for mi in sel]
         med = _median(f)  # = np.median: the middle value, or the mean of the two middle ones
         d = [fi - med for fi in f]
         j = max(range(len(d)), key=lambda t: abs(d[t]))  # the first largest, as np.argmax
-        lim = float(lay.limits.apply(check, "Hz", lay.limits.k * math.sqrt(2.0) * cols["uf"][sel[j]]))
+        lim = float(
+            lay.limits.apply(check, "Hz", lay.limits.k * math.sqrt(2.0) * cols["uf"][sel[j]])
+        )
         code = judge1(d[j], lim, lay.limits.warn)
         mid = lay.meters[sel[j]].id
         if code == PASS:
             bk[PASS].append(make(self.f_tp, d[j], lim))
         else:
-            msg = (f"{mid} reads {f[j]:.3f} Hz, {d[j]:+.3f} Hz from the other meters (allowed {lim:.3f} Hz): "
-                   f"check the scale of f.T in map {lay.meters[sel[j]].map_id} or whether {mid} is on another supply")
+            msg = (
+                f"{mid} reads {f[j]:.3f} Hz, {d[j]:+.3f} Hz from the other meters (allowed {lim:.3f} Hz): "
+                f"check the scale of f.T in map {lay.meters[sel[j]].map_id} or whether {mid} is on another supply"
+            )
             bk[code].append(result(check, "bench", code, d[j], lim, "Hz", msg, f"frequency:{mid}"))
 
     # ------------------------------------------------------------------ switching
@@ -307,18 +394,25 @@ class NetworkChecks:
             code = judge1(val, lim, lay.limits.warn)
             mid = lay.meters[mem[r]].id
             if code == PASS:
-                bk[PASS].append(result(check, sw.id, PASS, val, lim, "A", f"no current through open {sw.id}"))
+                bk[PASS].append(
+                    result(check, sw.id, PASS, val, lim, "A", f"no current through open {sw.id}")
+                )
             else:
-                msg = (f"{sw.id} reports open but {mid} measures {fmt(val, 'A')} on phase {'ABC'[c]}: the status contact "
-                       f"is wrong, the switch did not open, or {mid} is on another branch")
-                bk[code].append(result(check, sw.id, code, val, lim, "A", msg, f"switch_status:{sw.id}"))
+                msg = (
+                    f"{sw.id} reports open but {mid} measures {fmt(val, 'A')} on phase {'ABC'[c]}: the status contact "
+                    f"is wrong, the switch did not open, or {mid} is on another branch"
+                )
+                bk[code].append(
+                    result(check, sw.id, code, val, lim, "A", msg, f"switch_status:{sw.id}")
+                )
 
     def _energization(self, cols: dict, st: TopoState, bk: Buckets) -> None:
         lay = self.lay
         check = "network.energization"
         v, vn = cols["v"], self.vn
-        for bus, mem0, (na_none, na_unknown, tp_live, tp_dead) in zip(self.on_bus, self.on_bus.values(), self.en_fixed,
-                                                                      strict=True):
+        for bus, mem0, (na_none, na_unknown, tp_live, tp_dead) in zip(
+            self.on_bus, self.on_bus.values(), self.en_fixed, strict=True
+        ):
             mem = [mi for mi in mem0 if v[mi] == v[mi]]
             bs = st.buses[bus]
             if not mem:
@@ -341,12 +435,25 @@ class NetworkChecks:
                 bk[PASS].append(make(tp_live if bs.live else tp_dead, val, math.nan))
             else:
                 mid = lay.meters[mem[j]].id
-                msg = (f"{bus} should be {want} but {mid} reads {fmt(val, 'V')} L-N: a switch status that does not match the "
-                       "switch, a blown VT fuse, or a backfeed")
-                bk[FAIL].append(result(check, bus, FAIL, val, unit="V", message=msg, cause=f"energization:{bus}"))
+                msg = (
+                    f"{bus} should be {want} but {mid} reads {fmt(val, 'V')} L-N: a switch status that does not match the "
+                    "switch, a blown VT fuse, or a backfeed"
+                )
+                bk[FAIL].append(
+                    result(
+                        check, bus, FAIL, val, unit="V", message=msg, cause=f"energization:{bus}"
+                    )
+                )
 
     # ------------------------------------------------------------------ bad data
-    def _bad_data(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]], failed: set[str], vt: dict[int, float], bk: Buckets) -> None:
+    def _bad_data(
+        self,
+        fr: Frame,
+        eqs: list[tuple[str, tuple[int, ...]]],
+        failed: set[str],
+        vt: dict[int, float],
+        bk: Buckets,
+    ) -> None:
         lay = self.lay
         check = "network.bad_data"
         named: set[int] = set()
@@ -356,9 +463,18 @@ class NetworkChecks:
             if mi not in named:
                 mid = lay.meters[mi].id
                 msg = f"{mid} is the most likely wrong meter: its voltage reads {k:.3f} times its peers; check its VT ratio and wiring"
-                bk[FAIL].append(result(check, mid, FAIL, k, math.nan, "1", msg, f"vt_ratio:{k:.3f}"))
+                bk[FAIL].append(
+                    result(check, mid, FAIL, k, math.nan, "1", msg, f"vt_ratio:{k:.3f}")
+                )
 
-    def _power_suspect(self, fr: Frame, eqs: list[Equation], failed: set[str], vt: dict[int, float], out: list[CheckResult]) -> set[int]:
+    def _power_suspect(
+        self,
+        fr: Frame,
+        eqs: list[Equation],
+        failed: set[str],
+        vt: dict[int, float],
+        out: list[CheckResult],
+    ) -> set[int]:
         lay = self.lay
         check = "network.bad_data"
         eq_f = [e for e in eqs if e.name in failed]
@@ -379,15 +495,24 @@ class NetworkChecks:
             if sus.meter in vt and abs(vt[sus.meter] / sus.k - 1.0) < 0.03:
                 k = vt[sus.meter]
                 alt = ""  # the voltage comparison settles which meter it is
-                cause, what = f"vt_ratio:{k:.3f}", f"its VT ratio looks off by a factor {k:.3f} (voltage and power both)"
+                cause, what = (
+                    f"vt_ratio:{k:.3f}",
+                    f"its VT ratio looks off by a factor {k:.3f} (voltage and power both)",
+                )
             else:
                 k = sus.k
-                cause, what = f"ct_ratio:{k:.3f}", f"its CT ratio looks off by a factor {k:.3f} (power reads {k:.3f} times the balance)"
+                cause, what = (
+                    f"ct_ratio:{k:.3f}",
+                    f"its CT ratio looks off by a factor {k:.3f} (power reads {k:.3f} times the balance)",
+                )
         else:
             cause = sus.cause
             kind, _, arg = cause.partition(":")
-            what = (f"the CT of phase {arg} looks reversed" if kind == "ct_reversed"
-                    else f"current inputs {arg} look swapped")
+            what = (
+                f"the CT of phase {arg} looks reversed"
+                if kind == "ct_reversed"
+                else f"current inputs {arg} look swapped"
+            )
         msg = f"{mid} is the most likely wrong meter at {where}: {what}{alt}; normalized residual {sus.lnr:.1f}"
         out.append(result(check, mid, FAIL, sus.lnr, lay.limits.k, "1", msg, cause))
         return {sus.meter}
@@ -395,9 +520,17 @@ class NetworkChecks:
     def run(self, fr: Frame, switches: dict[str, str], bk: Buckets) -> None:
         st = self.topo.state(switches)
         x, u = fr.x, fr.u
-        cols = {"p": x[:, P4.stop - 1].tolist(), "q": x[:, Q4.stop - 1].tolist(), "up": u[:, P4.stop - 1].tolist(),
-                "uq": u[:, Q4.stop - 1].tolist(), "v": fr.v_mean.tolist(), "vu": fr.v_mean_u.tolist(),
-                "live": fr.energized.tolist(), "f": x[:, F].tolist(), "uf": u[:, F].tolist()}
+        cols = {
+            "p": x[:, P4.stop - 1].tolist(),
+            "q": x[:, Q4.stop - 1].tolist(),
+            "up": u[:, P4.stop - 1].tolist(),
+            "uq": u[:, Q4.stop - 1].tolist(),
+            "v": fr.v_mean.tolist(),
+            "vu": fr.v_mean_u.tolist(),
+            "live": fr.energized.tolist(),
+            "f": x[:, F].tolist(),
+            "uf": u[:, F].tolist(),
+        }
         eqs: list[tuple[str, tuple[int, ...]]] = []
         failed: set[str] = set()
         self._balance(cols, st, bk, eqs, failed)

@@ -21,8 +21,10 @@ _WIRING_TEXT = {
     "vi_mismatch": "voltage and current inputs belong to different phases ({x} deg): check the voltage terminals against the CTs",
 }
 _FMAX = np.finfo(float).max
-_SEQ_FAIL = ("voltage phase sequence is A-C-B (negative): two voltage connections are swapped at the meter or the supply "
-             "rotation is reversed; compare with the other meters")
+_SEQ_FAIL = (
+    "voltage phase sequence is A-C-B (negative): two voltage connections are swapped at the meter or the supply "
+    "rotation is reversed; compare with the other meters"
+)
 
 
 class PhasePlan:
@@ -39,41 +41,93 @@ class PhasePlan:
         self._load_at: dict[float, np.ndarray] = {}  # min_load -> min_load * rated (see _loaded)
         # phase.v_sequence
         self.seq_has = has[:, V_ANG].all(axis=1).tolist()
-        self.seq_na_map = [na("phase.v_sequence", mid, "the register map has no voltage angles") for mid in ids]
-        self.seq_na_dead = [na("phase.v_sequence", mid, "no voltage (or no good angle readings) at the meter") for mid in ids]
-        self.seq_pass = [result("phase.v_sequence", mid, PASS, 1.0, message="voltage phase sequence A-B-C (positive)")
-                         for mid in ids]
+        self.seq_na_map = [
+            na("phase.v_sequence", mid, "the register map has no voltage angles") for mid in ids
+        ]
+        self.seq_na_dead = [
+            na("phase.v_sequence", mid, "no voltage (or no good angle readings) at the meter")
+            for mid in ids
+        ]
+        self.seq_pass = [
+            result(
+                "phase.v_sequence",
+                mid,
+                PASS,
+                1.0,
+                message="voltage phase sequence A-B-C (positive)",
+            )
+            for mid in ids
+        ]
         # phase.v_unbalance
         self.vu_warn = L.param("phase.v_unbalance", "warn_pct", L.s.unbalance_warn_pct)
         self.vu_fail = L.param("phase.v_unbalance", "fail_pct", 2.5 * self.vu_warn)
         self.vu_dead = [na("phase.v_unbalance", mid, "no voltage at the meter", "%") for mid in ids]
-        self.vu_nodata = [na("phase.v_unbalance", mid, "no good voltage readings to compute unbalance", "%") for mid in ids]
+        self.vu_nodata = [
+            na("phase.v_unbalance", mid, "no good voltage readings to compute unbalance", "%")
+            for mid in ids
+        ]
         self.vu_tp = [template("phase.v_unbalance", mid, PASS, "%") for mid in ids]
         # phase.i_unbalance
         self.iu_warn = L.param("phase.i_unbalance", "warn_pct", 50.0)
         self.iu_min = L.param("phase.i_unbalance", "min_load", 0.05)
         self.iu_min_i = self.iu_min * lay.i_n
         self.iu_has = has[:, I_PH].all(axis=1).tolist()
-        self.iu_na_map = [na("phase.i_unbalance", mid, "the register map has no phase currents", "%") for mid in ids]
-        self.iu_light = [na("phase.i_unbalance", mid, f"current below {self.iu_min:.0%} of the CT rating: unbalance not "
-                            "meaningful", "%") for mid in ids]
+        self.iu_na_map = [
+            na("phase.i_unbalance", mid, "the register map has no phase currents", "%")
+            for mid in ids
+        ]
+        self.iu_light = [
+            na(
+                "phase.i_unbalance",
+                mid,
+                f"current below {self.iu_min:.0%} of the CT rating: unbalance not meaningful",
+                "%",
+            )
+            for mid in ids
+        ]
         self.iu_tp = [template("phase.i_unbalance", mid, PASS, "%") for mid in ids]
         # phase.pf_spread and phase.wiring
         self.pf_warn = L.param("phase.pf_spread", "warn_deg", 45.0)
         self.pf_min = L.param("phase.pf_spread", "min_load", 0.05)
-        self.pf_light = [na("phase.pf_spread", mid, "load too small or too unbalanced to compare phase power angles", "deg")
-                         for mid in ids]
+        self.pf_light = [
+            na(
+                "phase.pf_spread",
+                mid,
+                "load too small or too unbalanced to compare phase power angles",
+                "deg",
+            )
+            for mid in ids
+        ]
         self.pf_tp = [template("phase.pf_spread", mid, PASS, "deg") for mid in ids]
         self.w_min = L.param("phase.wiring", "min_load", 0.05)
         self.trip = L.param("phase.wiring", "trip_deg", 75.0)
         self.coherent = L.param("phase.wiring", "coherent_deg", 40.0)
         w_has = (has[:, P4].all(axis=1) & has[:, Q4].all(axis=1)).tolist()
-        self.w_fixed = [None if (m.branch is not None and ok) else na("phase.wiring", m.id, "the meter lacks per-phase P and Q", "deg")
-                        for m, ok in zip(lay.meters, w_has, strict=True)]
-        self.w_light = [na("phase.wiring", mid, "load too small or too unbalanced to read the wiring signature", "deg")
-                        for mid in ids]
-        self.w_tp = [template("phase.wiring", mid, PASS, "deg", "phase powers consistent with correct CT and current-input wiring")
-                     for mid in ids]
+        self.w_fixed = [
+            None
+            if (m.branch is not None and ok)
+            else na("phase.wiring", m.id, "the meter lacks per-phase P and Q", "deg")
+            for m, ok in zip(lay.meters, w_has, strict=True)
+        ]
+        self.w_light = [
+            na(
+                "phase.wiring",
+                mid,
+                "load too small or too unbalanced to read the wiring signature",
+                "deg",
+            )
+            for mid in ids
+        ]
+        self.w_tp = [
+            template(
+                "phase.wiring",
+                mid,
+                PASS,
+                "deg",
+                "phase powers consistent with correct CT and current-input wiring",
+            )
+            for mid in ids
+        ]
 
     def _loaded(self, mag: np.ndarray, min_load: float) -> np.ndarray:
         at = self._load_at.get(min_load)
@@ -91,7 +145,9 @@ class PhasePlan:
 
         # ---- phase.v_sequence
         ang_v = x[:, V_ANG]
-        sign = ph.sequence_sign(np.minimum(np.maximum(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX), _FMAX)).tolist()  # = nan_to_num
+        sign = ph.sequence_sign(
+            np.minimum(np.maximum(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX), _FMAX)
+        ).tolist()  # = nan_to_num
         good = (fr.energized & ~np.isnan(ang_v).any(axis=1)).tolist()
         for mi in range(n):
             if not self.seq_has[mi]:
@@ -101,13 +157,23 @@ class PhasePlan:
             elif sign[mi] > 0:
                 pass_(self.seq_pass[mi])
             else:
-                bk[FAIL].append(result("phase.v_sequence", self.ids[mi], FAIL, float(sign[mi]), message=_SEQ_FAIL,
-                                       cause="v_sequence_negative"))
+                bk[FAIL].append(
+                    result(
+                        "phase.v_sequence",
+                        self.ids[mi],
+                        FAIL,
+                        float(sign[mi]),
+                        message=_SEQ_FAIL,
+                        cause="v_sequence_negative",
+                    )
+                )
 
         # ---- phase.v_unbalance
         # negative-sequence unbalance of voltages and currents in one call: (2, n, 3) stacks, every
         # row the same operations as on its own (checked bit for bit by the golden test)
-        u2_vi = ph.unbalance_u2(ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]])))
+        u2_vi = ph.unbalance_u2(
+            ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]]))
+        )
         u2_ph = u2_vi[0]
         v_ll = x[:, V_LL]
         u2_mag = ph.unbalance_iec_ll(v_ll)
@@ -128,7 +194,11 @@ class PhasePlan:
             if u2 != u2:
                 na_(self.vu_nodata[mi])
                 continue
-            how = "from symmetrical components (IEC 61000-4-30 style)" if use[mi] else "from L-L magnitudes (IEC 61000-4-30 formula)"
+            how = (
+                "from symmetrical components (IEC 61000-4-30 style)"
+                if use[mi]
+                else "from L-L magnitudes (IEC 61000-4-30 formula)"
+            )
             nm = nema[mi]
             extra = f"; NEMA MG-1 LVUR {nm:.2f} %" if nm == nm else ""
             code = FAIL if u2 > fail else WARN if u2 > warn else PASS
@@ -136,13 +206,29 @@ class PhasePlan:
                 r = new(CheckResult)  # base.make_msg, inlined (one per meter per run)
                 d = r.__dict__
                 d.update(vu_tp[mi])
-                d["value"], d["limit"], d["message"] = u2, warn, f"voltage unbalance u2 = {u2:.2f} % {how}{extra}"
+                d["value"], d["limit"], d["message"] = (
+                    u2,
+                    warn,
+                    f"voltage unbalance u2 = {u2:.2f} % {how}{extra}",
+                )
                 pass_(r)
             else:
-                msg = (f"voltage unbalance u2 = {u2:.2f} % {how}{extra}, above {warn if code == WARN else fail:g} %: "
-                       "a missing or reversed voltage connection, a blown VT fuse, or a strongly unbalanced supply")
-                bk[code].append(result("phase.v_unbalance", self.ids[mi], code, u2, warn if code == WARN else fail, "%",
-                                       msg, "v_unbalance"))
+                msg = (
+                    f"voltage unbalance u2 = {u2:.2f} % {how}{extra}, above {warn if code == WARN else fail:g} %: "
+                    "a missing or reversed voltage connection, a blown VT fuse, or a strongly unbalanced supply"
+                )
+                bk[code].append(
+                    result(
+                        "phase.v_unbalance",
+                        self.ids[mi],
+                        code,
+                        u2,
+                        warn if code == WARN else fail,
+                        "%",
+                        msg,
+                        "v_unbalance",
+                    )
+                )
 
         # ---- phase.i_unbalance
         u2 = u2_vi[1]
@@ -164,7 +250,11 @@ class PhasePlan:
             msg = f"current unbalance ({how}) {val:.1f} %"
             if val > warn:
                 msg += f", above {warn:g} %: a very unbalanced load, or a CT or current-input wiring error (see phase.wiring)"
-                bk[WARN].append(result("phase.i_unbalance", self.ids[mi], WARN, val, warn, "%", msg, "i_unbalance"))
+                bk[WARN].append(
+                    result(
+                        "phase.i_unbalance", self.ids[mi], WARN, val, warn, "%", msg, "i_unbalance"
+                    )
+                )
             else:
                 r = new(CheckResult)  # base.make_msg, inlined
                 d = r.__dict__
@@ -183,7 +273,9 @@ class PhasePlan:
         # may round differently on contiguous data), then narrowed to the loaded meters
         ang = ph.pf_angle_deg(s.real, s.imag)[rows_l]
         ok_w_rows = ok_w[rows_l]
-        sigs, spread0 = signature_rows(ang, lay.axis[rows_l], lay.is_load[rows_l], self.trip, self.coherent, ok_w_rows)
+        sigs, spread0 = signature_rows(
+            ang, lay.axis[rows_l], lay.is_load[rows_l], self.trip, self.coherent, ok_w_rows
+        )
         pos = dict(zip(rows_l.tolist(), range(len(rows_l)), strict=True))
         ok_pf_l = ok_pf.tolist()
         warn = self.pf_warn
@@ -195,7 +287,9 @@ class PhasePlan:
             msg = f"phase power-factor angles spread over {sp:.0f} deg"
             if sp > warn:
                 msg += f" (more than {warn:g}): very different loads per phase, or a wiring error (see phase.wiring)"
-                bk[WARN].append(result("phase.pf_spread", self.ids[mi], WARN, sp, warn, "deg", msg, "pf_spread"))
+                bk[WARN].append(
+                    result("phase.pf_spread", self.ids[mi], WARN, sp, warn, "deg", msg, "pf_spread")
+                )
             else:
                 r = new(CheckResult)  # base.make_msg, inlined
                 d = r.__dict__
@@ -227,15 +321,28 @@ class PhasePlan:
         for c in sg.cause.split(","):
             kind, _, arg = c.partition(":")
             if c == "ct_reversed:ABC":
-                parts.append("all three CTs are reversed or the meter faces the wrong way: a load cannot deliver power")
+                parts.append(
+                    "all three CTs are reversed or the meter faces the wrong way: a load cannot deliver power"
+                )
             else:
                 parts.append(_WIRING_TEXT[kind].format(x=arg))
         extra = ""
-        if (lay.angles[mi] and not np.isnan(fr.x[mi, I_ANG]).any()
-                and ph.sequence_sign(fr.x[mi, I_ANG]) < 0 < ph.sequence_sign(np.nan_to_num(fr.x[mi, V_ANG]))):
+        if (
+            lay.angles[mi]
+            and not np.isnan(fr.x[mi, I_ANG]).any()
+            and ph.sequence_sign(fr.x[mi, I_ANG])
+            < 0
+            < ph.sequence_sign(np.nan_to_num(fr.x[mi, V_ANG]))
+        ):
             extra = " (current angles run in negative sequence)"
-        msg = "; ".join(parts) + extra + f" [phase power angles spread {sg.spread_deg:.0f} deg, {sg.corrected_deg:.0f} deg once corrected]"
-        return result("phase.wiring", self.ids[mi], FAIL, sg.spread_deg, self.trip, "deg", msg, sg.cause)
+        msg = (
+            "; ".join(parts)
+            + extra
+            + f" [phase power angles spread {sg.spread_deg:.0f} deg, {sg.corrected_deg:.0f} deg once corrected]"
+        )
+        return result(
+            "phase.wiring", self.ids[mi], FAIL, sg.spread_deg, self.trip, "deg", msg, sg.cause
+        )
 
 
 def phase_checks(lay: Layout, fr: Frame) -> list:

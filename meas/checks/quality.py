@@ -18,7 +18,9 @@ from ..snapshot import CommState, Quality, Snapshot
 from .base import FAIL, NA, PASS, WARN, Buckets, fmt, make, na, result, template
 from .frame import I_PH, P4, V_LL, V_LN, Frame, Layout
 
-_FROZEN_COLS = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)]
+_FROZEN_COLS = np.r_[
+    np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)
+]
 _VI = np.r_[np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop)]
 NOISE_WINDOW = 16  # snapshots the noise estimate pools when the history has them (more samples, steadier estimate)
 _HIST = slice(0, P4.stop)  # the columns frozen and noise look at (V_LN .. P4) out of each frame
@@ -34,29 +36,56 @@ class QualityPlan:
         self.ids = ids
         self.comm_pass = [result("quality.comm", mid, PASS, message="all values ok") for mid in ids]
         self.v_band = L.param("quality.v_range", "band", L.s.voltage_band)
-        self.i_fail = L.param("quality.i_range", "fail_fraction", 1.2)  # CT extended rating 120 % (common practice)
+        self.i_fail = L.param(
+            "quality.i_range", "fail_fraction", 1.2
+        )  # CT extended rating 120 % (common practice)
         self.rows = np.arange(len(ids))
         self.has_i = lay.has[:, I_PH].any(axis=1).tolist()
         self.v_nodata = [na("quality.v_range", mid, "no good voltage reading", "%") for mid in ids]
-        self.v_dead = [na("quality.v_range", mid, "no voltage at the meter (see network.energization)", "%") for mid in ids]
-        self.v_tp = [template("quality.v_range", mid, PASS, "%", "voltages within the zone band") for mid in ids]
-        self.i_nomap = [na("quality.i_range", mid, "the register map has no phase currents", "%") for mid in ids]
+        self.v_dead = [
+            na("quality.v_range", mid, "no voltage at the meter (see network.energization)", "%")
+            for mid in ids
+        ]
+        self.v_tp = [
+            template("quality.v_range", mid, PASS, "%", "voltages within the zone band")
+            for mid in ids
+        ]
+        self.i_nomap = [
+            na("quality.i_range", mid, "the register map has no phase currents", "%") for mid in ids
+        ]
         self.i_nodata = [na("quality.i_range", mid, "no good current reading", "%") for mid in ids]
-        self.i_tp = [template("quality.i_range", mid, PASS, "%", "currents within the CT rating") for mid in ids]
+        self.i_tp = [
+            template("quality.i_range", mid, PASS, "%", "currents within the CT rating")
+            for mid in ids
+        ]
         self.frozen_need = max(2, L.s.frozen_cycles)
-        self.frozen_dead = [na("quality.frozen", mid, "no voltage at the meter: nothing has to move") for mid in ids]
-        self.frozen_pass = [result("quality.frozen", mid, PASS, message="values are updating") for mid in ids]
+        self.frozen_dead = [
+            na("quality.frozen", mid, "no voltage at the meter: nothing has to move") for mid in ids
+        ]
+        self.frozen_pass = [
+            result("quality.frozen", mid, PASS, message="values are updating") for mid in ids
+        ]
         self.noise_need = int(L.param("quality.noise", "min_snapshots", 8))
         self.noise_max = L.param("quality.noise", "max_sigma_of_limit", 0.35)
-        self.noise_idle = [na("quality.noise", mid, "no steady voltage or current to judge noise", "1") for mid in ids]
-        self.noise_few = [na("quality.noise", mid, "too few good readings to judge noise", "1") for mid in ids]
-        self.noise_tp = [template("quality.noise", mid, PASS, "1", "poll-to-poll scatter well inside the class") for mid in ids]
+        self.noise_idle = [
+            na("quality.noise", mid, "no steady voltage or current to judge noise", "1")
+            for mid in ids
+        ]
+        self.noise_few = [
+            na("quality.noise", mid, "too few good readings to judge noise", "1") for mid in ids
+        ]
+        self.noise_tp = [
+            template("quality.noise", mid, PASS, "1", "poll-to-poll scatter well inside the class")
+            for mid in ids
+        ]
         self.lim_v = lay.spec_v.main_pct / 100.0  # (n, 1)
         self.lim_i = lay.spec_i.main_pct / 100.0
         self.i_low = 0.05 * lay.i_n[None, :, None]
         self.v_low = 0.5 * lay.v_n[None, :, None]
         self.has_i3 = lay.has[:, I_PH].all(axis=1)
-        self.lim_vi = np.concatenate([np.repeat(self.lim_v, 3, axis=1), np.repeat(self.lim_i, 3, axis=1)], axis=1)
+        self.lim_vi = np.concatenate(
+            [np.repeat(self.lim_v, 3, axis=1), np.repeat(self.lim_i, 3, axis=1)], axis=1
+        )
 
     # ---------------------------------------------------------------- communication
     def comm(self, snap: Snapshot, fr: Frame, bk: Buckets) -> None:
@@ -65,8 +94,13 @@ class QualityPlan:
         qual_ok = fr.qual_ok
         for mi, m in enumerate(self.lay.meters):
             b = blocks.get(m.id)
-            if b is not None and b.state is ok_state and (qual_ok[mi] if qual_ok is not None else
-                                                          set(b.quality.values()) <= {Quality.OK}):
+            if (
+                b is not None
+                and b.state is ok_state
+                and (
+                    qual_ok[mi] if qual_ok is not None else set(b.quality.values()) <= {Quality.OK}
+                )
+            ):
                 bk[PASS].append(self.comm_pass[mi])
                 continue
             r = _comm_fault(m, b)
@@ -107,9 +141,13 @@ class QualityPlan:
                     code = FAIL if ad > b100 else WARN
                     m = lay.meters[mi]
                     jj = int(j_v[mi])
-                    msg = (f"v_ln.{'ABC'[jj]} = {fmt(float(v[mi, jj]), 'V')} is {d:+.1f} % from the zone nominal "
-                           f"{fmt(float(lay.v_n[mi]), 'V')} (band +-{b100:g} %): check the VT ratio and the supply")
-                    bk[code].append(result("quality.v_range", m.id, code, d, b100, "%", msg, "v_range"))
+                    msg = (
+                        f"v_ln.{'ABC'[jj]} = {fmt(float(v[mi, jj]), 'V')} is {d:+.1f} % from the zone nominal "
+                        f"{fmt(float(lay.v_n[mi]), 'V')} (band +-{b100:g} %): check the VT ratio and the supply"
+                    )
+                    bk[code].append(
+                        result("quality.v_range", m.id, code, d, b100, "%", msg, "v_range")
+                    )
                 else:
                     r = new(CheckResult)  # base.make, inlined (two per meter per run)
                     dd = r.__dict__
@@ -125,9 +163,13 @@ class QualityPlan:
                 if ld > ifl or ld > i100:
                     code = FAIL if ld > ifl else WARN
                     m = lay.meters[mi]
-                    msg = (f"current {ld:.0f} % of the CT rating {lay.i_n[mi]:g} A: overload, or a wrong CT ratio "
-                           f"(ct_primary_a / ct_ratio of {m.id})")
-                    bk[code].append(result("quality.i_range", m.id, code, ld, ifl, "%", msg, "i_range"))
+                    msg = (
+                        f"current {ld:.0f} % of the CT rating {lay.i_n[mi]:g} A: overload, or a wrong CT ratio "
+                        f"(ct_primary_a / ct_ratio of {m.id})"
+                    )
+                    bk[code].append(
+                        result("quality.i_range", m.id, code, ld, ifl, "%", msg, "i_range")
+                    )
                 else:
                     r = new(CheckResult)  # base.make, inlined
                     dd = r.__dict__
@@ -143,7 +185,9 @@ class QualityPlan:
         need = self.frozen_need
         if n_frames < need:
             for mid in self.ids:
-                bk[NA].append(na("quality.frozen", mid, f"needs {need} snapshots of history, has {n_frames}"))
+                bk[NA].append(
+                    na("quality.frozen", mid, f"needs {need} snapshots of history, has {n_frames}")
+                )
             return
         sub = hist[-need:][:, :, _FROZEN_COLS]
         cur, prev = sub[-1], sub[-2]
@@ -162,9 +206,22 @@ class QualityPlan:
             if not live[mi]:
                 bk[NA].append(self.frozen_dead[mi])
             elif same[mi]:
-                msg = (f"V, I and P of {mid} have not changed over {need} snapshots: the meter or its gateway is "
-                       "repeating a cached value; check its communication module and the map's register kind")
-                bk[FAIL].append(result("quality.frozen", mid, FAIL, float(need), float(need), "snapshots", msg, "frozen"))
+                msg = (
+                    f"V, I and P of {mid} have not changed over {need} snapshots: the meter or its gateway is "
+                    "repeating a cached value; check its communication module and the map's register kind"
+                )
+                bk[FAIL].append(
+                    result(
+                        "quality.frozen",
+                        mid,
+                        FAIL,
+                        float(need),
+                        float(need),
+                        "snapshots",
+                        msg,
+                        "frozen",
+                    )
+                )
             else:
                 bk[PASS].append(self.frozen_pass[mi])
 
@@ -180,9 +237,18 @@ class QualityPlan:
         ratio_max = self.noise_max
         if n_frames < need:
             for mid in self.ids:
-                bk[NA].append(na("quality.noise", mid, f"needs {need} snapshots of history, has {n_frames}", "1"))
+                bk[NA].append(
+                    na(
+                        "quality.noise",
+                        mid,
+                        f"needs {need} snapshots of history, has {n_frames}",
+                        "1",
+                    )
+                )
             return
-        x = hist[-max(need, NOISE_WINDOW):][:, :, _VI]  # (t, n, 6): V_LN then I_PH, up to NOISE_WINDOW
+        x = hist[-max(need, NOISE_WINDOW) :][
+            :, :, _VI
+        ]  # (t, n, 6): V_LN then I_PH, up to NOISE_WINDOW
         v, i = x[:, :, :3], x[:, :, 3:]
         d = (x[2:] - 2.0 * x[1:-1] + x[:-2]) / np.abs(x[1:-1])  # second differences, relative
         loaded_i = (i >= self.i_low).all(axis=(0, 2)) & self.has_i3
@@ -190,7 +256,9 @@ class QualityPlan:
         use = np.empty((len(live), 6), bool)
         use[:, :3] = live[:, None]
         use[:, 3:] = loaded_i[:, None]
-        z = np.where(use[None], d / self.lim_vi[None], np.nan)  # (t-1, n, 6), as concatenating V and I parts
+        z = np.where(
+            use[None], d / self.lim_vi[None], np.nan
+        )  # (t-1, n, 6), as concatenating V and I parts
         ok = ~np.isnan(z)
         cnt = ok.sum(axis=(0, 2))
         sig = np.sqrt(np.where(ok, z * z, 0.0).sum(axis=(0, 2)) / np.maximum(cnt, 1) / 6.0)
@@ -206,9 +274,13 @@ class QualityPlan:
             sg = sig_l[mi]
             if sg > ratio_max or sg > warn:
                 code = FAIL if sg > ratio_max else WARN
-                msg = (f"readings of {mid} scatter by {sg:.2f} of their class limit from poll to poll (allowed {ratio_max:g}): "
-                       "a loose connection, interference on the VT/CT wiring, or a faulty meter")
-                bk[code].append(result("quality.noise", mid, code, sg, ratio_max, "1", msg, "noisy"))
+                msg = (
+                    f"readings of {mid} scatter by {sg:.2f} of their class limit from poll to poll (allowed {ratio_max:g}): "
+                    "a loose connection, interference on the VT/CT wiring, or a faulty meter"
+                )
+                bk[code].append(
+                    result("quality.noise", mid, code, sg, ratio_max, "1", msg, "noisy")
+                )
             else:
                 bk[PASS].append(make(self.noise_tp[mi], sg, ratio_max))
 
@@ -219,21 +291,43 @@ STATUS_CODE = {s: c for c, s in enumerate(("fail", "warn", "pass", "n/a"))}
 def _comm_fault(m, b) -> CheckResult:
     check = "quality.comm"
     if b is None:
-        return result(check, m.id, FAIL, message=f"{m.id} is missing from this snapshot: it is not being polled", cause="missing")
+        return result(
+            check,
+            m.id,
+            FAIL,
+            message=f"{m.id} is missing from this snapshot: it is not being polled",
+            cause="missing",
+        )
     bad = sorted(k for k, q in b.quality.items() if q is not Quality.OK)
     if b.state in (CommState.FAILING, CommState.OFFLINE) or (bad and len(bad) == len(b.quality)):
         why = b.error or f"communication {b.state}"
-        msg = (f"no good data from {m.id}: {why}; check its wiring, address (unit {m.unit_id}) and "
-               f"{m.transport.endpoint}; captured data is kept")
+        msg = (
+            f"no good data from {m.id}: {why}; check its wiring, address (unit {m.unit_id}) and "
+            f"{m.transport.endpoint}; captured data is kept"
+        )
         return result(check, m.id, FAIL, float(b.error_count), message=msg, cause=f"comm:{b.state}")
     if bad:
         stale = [k for k in bad if b.quality[k] is Quality.STALE]
         kinds = sorted({str(b.quality[k]) for k in bad})
-        msg = (f"{len(bad)} value(s) not ok ({', '.join(kinds)}): {', '.join(bad[:6])}{' ...' if len(bad) > 6 else ''}; "
-               + ("values repeated from an earlier cycle" if stale else "check those registers in the map"))
-        return result(check, m.id, WARN, float(len(bad)), message=msg, cause="stale" if stale else "partial")
+        msg = (
+            f"{len(bad)} value(s) not ok ({', '.join(kinds)}): {', '.join(bad[:6])}{' ...' if len(bad) > 6 else ''}; "
+            + (
+                "values repeated from an earlier cycle"
+                if stale
+                else "check those registers in the map"
+            )
+        )
+        return result(
+            check, m.id, WARN, float(len(bad)), message=msg, cause="stale" if stale else "partial"
+        )
     if b.state is CommState.DEGRADED:
-        return result(check, m.id, WARN, message=f"{m.id} answered after a retry: {b.error or 'degraded'}", cause="degraded")
+        return result(
+            check,
+            m.id,
+            WARN,
+            message=f"{m.id} answered after a retry: {b.error or 'degraded'}",
+            cause="degraded",
+        )
     return result(check, m.id, PASS, message="all values ok")
 
 
@@ -269,4 +363,12 @@ def noise_checks(lay: Layout, frames: Sequence[Frame]) -> list[CheckResult]:
     return _run("noise", lay, history(frames), len(frames))
 
 
-__all__ = ["QualityPlan", "history", "comm_checks", "range_checks", "frozen_checks", "noise_checks", "V_LL"]
+__all__ = [
+    "QualityPlan",
+    "history",
+    "comm_checks",
+    "range_checks",
+    "frozen_checks",
+    "noise_checks",
+    "V_LL",
+]

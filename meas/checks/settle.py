@@ -30,7 +30,9 @@ class SettleState:
     spread: float  # worst relative spread in the window
     worst: str  # "<meter>:<quantity>" with the worst spread
     elapsed_s: float  # since the start time
-    settle_time_s: float  # start of the steady window, seconds after the start time; NaN until steady
+    settle_time_s: (
+        float  # start of the steady window, seconds after the start time; NaN until steady
+    )
     timed_out: bool  # not steady within timeout_s
 
 
@@ -65,7 +67,12 @@ class SettleDetector:
             v = [x for x in v if not math.isnan(x)]
             p, q = b.get("p.T"), b.get("q.T")
             s = b.get("s.T")
-            out[i] = (p, q, sum(v) / len(v) if v else math.nan, math.hypot(p, q) if math.isnan(s) else s)
+            out[i] = (
+                p,
+                q,
+                sum(v) / len(v) if v else math.nan,
+                math.hypot(p, q) if math.isnan(s) else s,
+            )
         return out
 
     def feed(self, snap: Snapshot) -> SettleState:
@@ -98,6 +105,15 @@ class SettleDetector:
         if steady and math.isnan(self.settled_at):
             self.settled_at = self._win[0][0] - self.t0  # steady ever since the window began
         if not steady and not math.isnan(self.settled_at):
-            self.settled_at = math.nan  # lost it again: settling time is the last entry into steady state
-        return SettleState(steady, full, spread, worst, elapsed, self.settled_at,
-                           (not steady) and elapsed > self.c.timeout_s)
+            self.settled_at = (
+                math.nan
+            )  # lost it again: settling time is the last entry into steady state
+        return SettleState(
+            steady,
+            full,
+            spread,
+            worst,
+            elapsed,
+            self.settled_at,
+            (not steady) and elapsed > self.c.timeout_s,
+        )

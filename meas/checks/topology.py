@@ -81,8 +81,15 @@ class Topology:
             in_service = tuple(br for br in at if branch_on[br] is not False)
             metered_br = {br for _, br in self.meters_at.get(b.id, [])}
             unmetered = tuple(br for br in in_service if br not in metered_br)
-            unknown = tuple(s for br in at for s in self.switch_of.get(br, []) if switches.get(s, "unknown") not in ("open", "closed"))
-            buses[b.id] = BusState(b.id, live, in_service, tuple(self.meters_at.get(b.id, [])), unmetered, unknown)
+            unknown = tuple(
+                s
+                for br in at
+                for s in self.switch_of.get(br, [])
+                if switches.get(s, "unknown") not in ("open", "closed")
+            )
+            buses[b.id] = BusState(
+                b.id, live, in_service, tuple(self.meters_at.get(b.id, [])), unmetered, unknown
+            )
         st = TopoState(buses, branch_on)
         if len(self._memo) < 256:
             self._memo[key] = st

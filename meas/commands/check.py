@@ -18,7 +18,9 @@ HELP = "re-run the checks offline from a dataset folder and compare with the rec
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("dataset", metavar="DATASET", type=Path, help="dataset folder written by benchwalk export")
+    parser.add_argument(
+        "dataset", metavar="DATASET", type=Path, help="dataset folder written by benchwalk export"
+    )
 
 
 def main(args: argparse.Namespace) -> int:
@@ -41,12 +43,18 @@ def main(args: argparse.Namespace) -> int:
     console.print(table)
     failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check", "subject", "message"])
     for r in failed.itertuples(index=False):
-        console.print(f"[red]FAIL[/red] step {r.step} {r.check} {r.subject}: {r.message}", highlight=False)
+        console.print(
+            f"[red]FAIL[/red] step {r.step} {r.check} {r.subject}: {r.message}", highlight=False
+        )
     diffs = compare_checks(exported, fresh)
     if diffs:
-        console.print(f"[yellow]the re-check does NOT reproduce the exported checks table ({len(diffs)} differences shown):[/yellow]")
+        console.print(
+            f"[yellow]the re-check does NOT reproduce the exported checks table ({len(diffs)} differences shown):[/yellow]"
+        )
         for d in diffs[:20]:
             console.print(f"  {d}", highlight=False, markup=False)
     else:
-        console.print(f"the re-check reproduces the exported checks table: {len(fresh)} results identical")
+        console.print(
+            f"the re-check reproduces the exported checks table: {len(fresh)} results identical"
+        )
     return 1 if len(failed) else 0

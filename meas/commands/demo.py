@@ -33,8 +33,14 @@ class SimTechnician:
     with the runner's last message as the reason.
     """
 
-    def __init__(self, bench, operator: str = SIM_OPERATOR, retakes: int = 1,
-                 out: TextIO = sys.stdout, attempts: int = 3):
+    def __init__(
+        self,
+        bench,
+        operator: str = SIM_OPERATOR,
+        retakes: int = 1,
+        out: TextIO = sys.stdout,
+        attempts: int = 3,
+    ):
         self.bench, self.operator, self.retakes, self.out = bench, operator, retakes, out
         self.attempts = attempts
         self._retaken: dict[str, int] = {}
@@ -45,16 +51,23 @@ class SimTechnician:
         n = self._tried[view.step.id] = self._tried.get(view.step.id, 0) + 1
         if n <= self.attempts:
             return False
-        print(f"  switch status still not as expected after {self.attempts} tries: skipping", file=self.out)
-        runner.skip(f"{self.operator}: gave up after {self.attempts} tries: {view.message or 'switch status not verified'}")
+        print(
+            f"  switch status still not as expected after {self.attempts} tries: skipping",
+            file=self.out,
+        )
+        runner.skip(
+            f"{self.operator}: gave up after {self.attempts} tries: {view.message or 'switch status not verified'}"
+        )
         return True
 
     def _set_by_hand(self, runner: Runner, view: RunnerView, keep: set[str] = frozenset()) -> None:
         for sid in view.mismatches:
             if sid not in keep:
                 self.bench.operate_by_hand(sid, view.expected[sid])
-                print(f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
-                      file=self.out)
+                print(
+                    f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
+                    file=self.out,
+                )
 
     async def act(self, runner: Runner, view: RunnerView) -> None:
         a, step = view.action, view.step
@@ -97,17 +110,27 @@ class SimTechnician:
                 print("  checks failed: retaking", file=self.out)
                 runner.retake()
             elif a == "accept_with_reason":
-                runner.accept(f"{self.operator}: checks still failing after {n} retake(s); "
-                              "accepted for the record (gate allow)")
+                runner.accept(
+                    f"{self.operator}: checks still failing after {n} retake(s); "
+                    "accepted for the record (gate allow)"
+                )
             else:
                 runner.skip(f"{self.operator}: checks still failing after {n} retake(s)")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--fault", action="append", default=[], metavar="KIND:METER[:ARG]",
-                   help="inject a fault into the simulated bench (repeatable), e.g. ct-reversed:M2:B")
-    p.add_argument("--headless", action="store_true",
-                   help="run the whole demo sequence in this terminal and write the dataset")
+    p.add_argument(
+        "--fault",
+        action="append",
+        default=[],
+        metavar="KIND:METER[:ARG]",
+        help="inject a fault into the simulated bench (repeatable), e.g. ct-reversed:M2:B",
+    )
+    p.add_argument(
+        "--headless",
+        action="store_true",
+        help="run the whole demo sequence in this terminal and write the dataset",
+    )
     p.add_argument("--seed", type=int, default=None, help="random seed of the simulated noise")
     p.add_argument("--profile", type=Path, default=DEMO_PROFILE, help=argparse.SUPPRESS)
     add_common(p)
@@ -116,9 +139,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 async def _headless(args: argparse.Namespace) -> int:
     operator = args.operator or SIM_OPERATOR
     print(CAUTION, flush=True)
-    session = await Session.new(args.profile, operator, sessions_dir=args.sessions,
-                                simulate=True, faults=args.fault, seed=args.seed,
-                                on_saved=saved_printer(args.log_saved), live_checks=False)
+    session = await Session.new(
+        args.profile,
+        operator,
+        sessions_dir=args.sessions,
+        simulate=True,
+        faults=args.fault,
+        seed=args.seed,
+        on_saved=saved_printer(args.log_saved),
+        live_checks=False,
+    )
     print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
     try:
         code = await drive(session, SimTechnician(session.bench, SIM_OPERATOR))
@@ -141,7 +171,13 @@ def start_console(**kwargs) -> int:
 
 def main(args: argparse.Namespace) -> int:
     if not args.headless:
-        return start_console(profile=str(args.profile), demo=True, faults=tuple(args.fault),
-                             seed=args.seed, operator=args.operator, sessions_dir=args.sessions,
-                             out=args.out)
+        return start_console(
+            profile=str(args.profile),
+            demo=True,
+            faults=tuple(args.fault),
+            seed=args.seed,
+            operator=args.operator,
+            sessions_dir=args.sessions,
+            out=args.out,
+        )
     return asyncio.run(_headless(args))

@@ -11,9 +11,21 @@ HELP = "export a session journal as a dataset folder (CSV, Parquet, datapackage.
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("session", metavar="SESSION", help="session id (in $BENCHWALK_SESSIONS or ./sessions) or path to the journal file")
-    parser.add_argument("--out", metavar="DIR", type=Path, default=None, help="dataset folder to write (default: beside the journal, SESSION-dataset)")
-    parser.add_argument("--overwrite", action="store_true", help="replace an existing dataset folder")
+    parser.add_argument(
+        "session",
+        metavar="SESSION",
+        help="session id (in $BENCHWALK_SESSIONS or ./sessions) or path to the journal file",
+    )
+    parser.add_argument(
+        "--out",
+        metavar="DIR",
+        type=Path,
+        default=None,
+        help="dataset folder to write (default: beside the journal, SESSION-dataset)",
+    )
+    parser.add_argument(
+        "--overwrite", action="store_true", help="replace an existing dataset folder"
+    )
 
 
 def main(args: argparse.Namespace) -> int:

@@ -37,7 +37,9 @@ def main(args: argparse.Namespace) -> int:
     rtu_total = 0.0
     for m in profile.meters:
         plan = plans[m.id]
-        reqs = "\n".join(f"FC{r.function_code} {r.address}-{r.end - 1} {r.count:>3}" for r in plan.requests)
+        reqs = "\n".join(
+            f"FC{r.function_code} {r.address}-{r.end - 1} {r.count:>3}" for r in plan.requests
+        )
         bus, endpoint = "-", m.transport.endpoint.removeprefix("tcp://")
         if isinstance(m.transport, RtuTransport):
             t = m.transport
@@ -45,17 +47,32 @@ def main(args: argparse.Namespace) -> int:
             rtu_total += secs
             bus = f"{secs * 1000:.1f}"
             endpoint = f"{t.device} {t.bytesize}{t.parity}{t.stopbits} {t.baudrate}"
-        table.add_row(m.id, endpoint, str(m.unit_id), reqs,
-                      str(plan.registers_read), str(plan.registers_wasted), bus)
+        table.add_row(
+            m.id,
+            endpoint,
+            str(m.unit_id),
+            reqs,
+            str(plan.registers_read),
+            str(plan.registers_wasted),
+            bus,
+        )
         n_req += len(plan.requests)
         n_read += plan.registers_read
         n_waste += plan.registers_wasted
         n_naive += naive_request_count(profile.maps[m.map_id])
     table.add_section()
-    table.add_row("total", f"{len({m.transport.endpoint for m in profile.meters})} endpoints",
-                  "", f"{n_req} requests", str(n_read), str(n_waste),
-                  f"{rtu_total * 1000:.1f}" if rtu_total else "-")
-    table.caption = (f"requests: FC first-last count; regs: registers read per cycle; gaps: of those "
-                     f"unused; bus ms: RTU wire time of one cycle. One read per quantity: {n_naive} requests.")
+    table.add_row(
+        "total",
+        f"{len({m.transport.endpoint for m in profile.meters})} endpoints",
+        "",
+        f"{n_req} requests",
+        str(n_read),
+        str(n_waste),
+        f"{rtu_total * 1000:.1f}" if rtu_total else "-",
+    )
+    table.caption = (
+        f"requests: FC first-last count; regs: registers read per cycle; gaps: of those "
+        f"unused; bus ms: RTU wire time of one cycle. One read per quantity: {n_naive} requests."
+    )
     Console().print(table)
     return 0

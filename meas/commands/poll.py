@@ -32,9 +32,16 @@ COLUMNS = [  # header, candidate keys (first present wins), format
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("profile", metavar="PROFILE", help="bench profile (.toml)")
-    parser.add_argument("--cycles", type=int, default=10, metavar="N", help="poll cycles (default 10)")
-    parser.add_argument("--interval", type=float, default=None, metavar="S",
-                        help="seconds between cycles (default: the profile's poll interval)")
+    parser.add_argument(
+        "--cycles", type=int, default=10, metavar="N", help="poll cycles (default 10)"
+    )
+    parser.add_argument(
+        "--interval",
+        type=float,
+        default=None,
+        metavar="S",
+        help="seconds between cycles (default: the profile's poll interval)",
+    )
 
 
 def _cell(block: MeterBlock, keys: tuple[str, ...], fmt: str) -> str:
@@ -46,15 +53,21 @@ def _cell(block: MeterBlock, keys: tuple[str, ...], fmt: str) -> str:
 
 
 def render(snap: Snapshot, total: int) -> Table:
-    table = Table(title=f"cycle {snap.seq}/{total}  {snap.time_utc:%H:%M:%S} UTC  {snap.cycle_s * 1000:.0f} ms")
+    table = Table(
+        title=f"cycle {snap.seq}/{total}  {snap.time_utc:%H:%M:%S} UTC  {snap.cycle_s * 1000:.0f} ms"
+    )
     table.add_column("meter")
     for head, _, _ in COLUMNS:
         table.add_column(head, justify="right")
     table.add_column("comm")
     table.add_column("note", no_wrap=True, overflow="ellipsis", max_width=36)
     for mid, block in snap.meters.items():
-        table.add_row(mid, *(_cell(block, keys, fmt) for _, keys, fmt in COLUMNS),
-                      str(block.state), block.error)
+        table.add_row(
+            mid,
+            *(_cell(block, keys, fmt) for _, keys, fmt in COLUMNS),
+            str(block.state),
+            block.error,
+        )
     if snap.switches:
         table.caption = "  ".join(f"{k}: {v}" for k, v in snap.switches.items())
     return table

@@ -11,8 +11,16 @@ HELP = "write the commissioning report (self-contained HTML and Markdown) of a d
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("dataset", metavar="DATASET", type=Path, help="dataset folder written by benchwalk export")
-    parser.add_argument("--out", metavar="FILE", type=Path, default=None, help="HTML file to write (default: DATASET-report.html beside the dataset folder); the Markdown goes beside it")
+    parser.add_argument(
+        "dataset", metavar="DATASET", type=Path, help="dataset folder written by benchwalk export"
+    )
+    parser.add_argument(
+        "--out",
+        metavar="FILE",
+        type=Path,
+        default=None,
+        help="HTML file to write (default: DATASET-report.html beside the dataset folder); the Markdown goes beside it",
+    )
 
 
 def main(args: argparse.Namespace) -> int:

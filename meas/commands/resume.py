@@ -21,24 +21,38 @@ HELP = "continue a session at the step where it stopped"
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("session", help="session id or path to its .sqlite journal")
-    p.add_argument("--allow-changed-profile", action="store_true",
-                   help="resume even though the profile file changed since the session started")
+    p.add_argument(
+        "--allow-changed-profile",
+        action="store_true",
+        help="resume even though the profile file changed since the session started",
+    )
     p.add_argument("--headless", action="store_true", help="continue in this terminal")
-    p.add_argument("--profile", type=Path, default=None,
-                   help="the profile file, if it moved since the session started")
+    p.add_argument(
+        "--profile",
+        type=Path,
+        default=None,
+        help="the profile file, if it moved since the session started",
+    )
     add_common(p)
 
 
 async def _headless(args: argparse.Namespace) -> int:
     print(CAUTION, flush=True)
     session = await Session.resume(
-        args.session, allow_changed_profile=args.allow_changed_profile,
-        sessions_dir=args.sessions, operator=args.operator, profile_path=args.profile,
-        on_saved=saved_printer(args.log_saved), live_checks=False,
+        args.session,
+        allow_changed_profile=args.allow_changed_profile,
+        sessions_dir=args.sessions,
+        operator=args.operator,
+        profile_path=args.profile,
+        on_saved=saved_printer(args.log_saved),
+        live_checks=False,
     )
     step = session.runner.step
-    print(f"Session {session.session_id}: resuming at "
-          f"{'the end' if step is None else f'step {step.id}'}", flush=True)
+    print(
+        f"Session {session.session_id}: resuming at "
+        f"{'the end' if step is None else f'step {step.id}'}",
+        flush=True,
+    )
     try:
         if session.bench is not None:
             tech = SimTechnician(session.bench, SIM_OPERATOR)
@@ -53,7 +67,12 @@ async def _headless(args: argparse.Namespace) -> int:
 
 def main(args: argparse.Namespace) -> int:
     if not args.headless:
-        return start_console(profile=str(args.profile) if args.profile else None,
-                             resume=args.session, allow_changed_profile=args.allow_changed_profile,
-                             operator=args.operator, sessions_dir=args.sessions, out=args.out)
+        return start_console(
+            profile=str(args.profile) if args.profile else None,
+            resume=args.session,
+            allow_changed_profile=args.allow_changed_profile,
+            operator=args.operator,
+            sessions_dir=args.sessions,
+            out=args.out,
+        )
     return asyncio.run(_headless(args))

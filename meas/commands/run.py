@@ -34,22 +34,36 @@ CAUTION = (
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("profile", help="bench profile (TOML)")
-    p.add_argument("--headless", action="store_true",
-                   help="run in this terminal with typed prompts instead of the console")
+    p.add_argument(
+        "--headless",
+        action="store_true",
+        help="run in this terminal with typed prompts instead of the console",
+    )
     add_common(p)
 
 
 def add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--operator", default=None, help="name recorded with every decision")
-    p.add_argument("--out", type=Path, default=None,
-                   help="folder for the dataset and report (default: ./benchwalk-<session>)")
-    p.add_argument("--sessions", type=Path, default=None,
-                   help="folder of session journals (default: $BENCHWALK_SESSIONS or ./sessions)")
-    p.add_argument("--log-saved", action="store_true",
-                   help="print one line per snapshot saved in the journal")
+    p.add_argument(
+        "--out",
+        type=Path,
+        default=None,
+        help="folder for the dataset and report (default: ./benchwalk-<session>)",
+    )
+    p.add_argument(
+        "--sessions",
+        type=Path,
+        default=None,
+        help="folder of session journals (default: $BENCHWALK_SESSIONS or ./sessions)",
+    )
+    p.add_argument(
+        "--log-saved", action="store_true", help="print one line per snapshot saved in the journal"
+    )
 
 
-def saved_printer(enabled: bool, out: TextIO = sys.stdout) -> Callable[[int, str, str], None] | None:
+def saved_printer(
+    enabled: bool, out: TextIO = sys.stdout
+) -> Callable[[int, str, str], None] | None:
     if not enabled:
         return None
 
@@ -167,9 +181,14 @@ def summarize(session: Session, out: TextIO) -> int:
     runner = session.runner
     print("", file=out)
     if runner.stopped:
-        print(f"Stopped at step {runner.step.id if runner.step else '-'}: {runner.message}", file=out)
-        print(f"Session {session.session_id} is saved in {session.path}; continue with: "
-              f"benchwalk resume {session.session_id} --headless", file=out)
+        print(
+            f"Stopped at step {runner.step.id if runner.step else '-'}: {runner.message}", file=out
+        )
+        print(
+            f"Session {session.session_id} is saved in {session.path}; continue with: "
+            f"benchwalk resume {session.session_id} --headless",
+            file=out,
+        )
         return EXIT_STOPPED
     failures = [(o.step_id, r) for o in runner.outcomes.values() for r in o.failures]
     for o in runner.outcomes.values():
@@ -179,8 +198,9 @@ def summarize(session: Session, out: TextIO) -> int:
         print("\nFailing checks:", file=out)
         print(f"  {'step':<20} {'check':<22} {'subject':<8} {'cause':<16} message", file=out)
         for step_id, r in failures:
-            print(f"  {step_id:<20} {r.check:<22} {r.subject:<8} {r.cause:<16} {r.message}",
-                  file=out)
+            print(
+                f"  {step_id:<20} {r.check:<22} {r.subject:<8} {r.cause:<16} {r.message}", file=out
+            )
     failed, skipped = runner.verdict() is Status.FAIL, runner.skipped_steps()
     if failed:
         word = "FAIL"
@@ -213,8 +233,13 @@ async def _run(args: argparse.Namespace) -> int:
     if not operator:
         raise BenchwalkError("an operator name is needed: give --operator NAME")
     print(CAUTION, flush=True)
-    session = await Session.new(args.profile, operator, sessions_dir=args.sessions,
-                                on_saved=saved_printer(args.log_saved), live_checks=False)
+    session = await Session.new(
+        args.profile,
+        operator,
+        sessions_dir=args.sessions,
+        on_saved=saved_printer(args.log_saved),
+        live_checks=False,
+    )
     print(f"Session {session.session_id}: journal {session.path}", flush=True)
     try:
         code = await drive(session, PromptTechnician(operator))
@@ -228,6 +253,11 @@ def main(args: argparse.Namespace) -> int:
     if not args.headless:
         from .demo import start_console
 
-        return start_console(profile=str(args.profile), demo=False, operator=args.operator,
-                             sessions_dir=args.sessions, out=args.out)
+        return start_console(
+            profile=str(args.profile),
+            demo=False,
+            operator=args.operator,
+            sessions_dir=args.sessions,
+            out=args.out,
+        )
     return asyncio.run(_run(args))

@@ -19,10 +19,20 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="KIND:METER[:ARG]",
         help="inject a fault, e.g. ct-reversed:M3:B, offline:M6, offline:PLC1, slow:M2:1.5 (repeatable; see docs/faults.md)",
     )
-    p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, loopback only)")
-    p.add_argument("--free-ports", action="store_true", help="let the OS pick free ports instead of the profile's")
-    p.add_argument("--seed", type=int, default=None, help="noise seed (default: [sim] seed of the profile)")
-    p.add_argument("--no-noise", action="store_true", help="report ideal values (faults still apply)")
+    p.add_argument(
+        "--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, loopback only)"
+    )
+    p.add_argument(
+        "--free-ports",
+        action="store_true",
+        help="let the OS pick free ports instead of the profile's",
+    )
+    p.add_argument(
+        "--seed", type=int, default=None, help="noise seed (default: [sim] seed of the profile)"
+    )
+    p.add_argument(
+        "--no-noise", action="store_true", help="report ideal values (faults still apply)"
+    )
 
 
 def _print_endpoints(bench, profile_path: str) -> None:
@@ -32,7 +42,10 @@ def _print_endpoints(bench, profile_path: str) -> None:
         print(f"  {e.kind:5} {e.id:6} tcp://{e.host}:{e.port}  unit {e.unit_id}{label}")
     for f in bench.faults:
         print(f"  fault {f.text}")
-    print("SIMULATION: no real equipment is connected or switched. Ctrl-C stops the bench.", flush=True)
+    print(
+        "SIMULATION: no real equipment is connected or switched. Ctrl-C stops the bench.",
+        flush=True,
+    )
 
 
 async def _serve(args: argparse.Namespace) -> int:

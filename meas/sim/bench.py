@@ -96,7 +96,9 @@ def _phasors(state, meter_id: str, ideal: Mapping[str, float], f0: float) -> Pha
     if given is None:
         return phasors_from_ideal(ideal, f0)
     v, i = given
-    return Phasors(np.array(v, dtype=complex), np.array(i, dtype=complex), float(ideal.get("f.T", f0)))
+    return Phasors(
+        np.array(v, dtype=complex), np.array(i, dtype=complex), float(ideal.get("f.T", f0))
+    )
 
 
 class SimulatedBench:
@@ -138,7 +140,9 @@ class SimulatedBench:
         self.clock = clock
         self.update_hz = float(profile.sim.get("update_hz", 10))
         if not math.isfinite(self.update_hz) or self.update_hz < 10:
-            raise BenchwalkError(f"{profile.path}: sim.update_hz must be at least 10, got {self.update_hz:g}")
+            raise BenchwalkError(
+                f"{profile.path}: sim.update_hz must be at least 10, got {self.update_hz:g}"
+            )
         self.tau, self.transient_kind = settle_settings(profile)
         self.plc = PlcSim(profile, t=clock())
         self._faults: tuple[Fault, ...] = tuple(faults)
@@ -146,8 +150,12 @@ class SimulatedBench:
         self._gates.update({p.id: UnitGate() for p in profile.plcs})
         self._cache: dict[tuple, dict[str, Phasors]] = {}
         self._transient: Transient | None = None
-        self._layouts = {m.id: _RegisterLayout.of(profile.maps[m.map_id].registers) for m in profile.meters}
-        self._targets: dict[str, list] = {m.id: [] for m in profile.meters}  # meter -> [(server, unit)]
+        self._layouts = {
+            m.id: _RegisterLayout.of(profile.maps[m.map_id].registers) for m in profile.meters
+        }
+        self._targets: dict[str, list] = {
+            m.id: [] for m in profile.meters
+        }  # meter -> [(server, unit)]
         self._plc_targets: list[tuple[object, int]] = []
         self._servers: list = []
         self._fronts: list[DelayFront] = []
@@ -155,7 +163,9 @@ class SimulatedBench:
         self._last_pt = {m.id: 0.0 for m in profile.meters}
         self._last_t: float | None = None
         self._task: asyncio.Task | None = None
-        self.values: dict[str, dict[str, float]] = {}  # last written, engineering units, meter's side
+        self.values: dict[
+            str, dict[str, float]
+        ] = {}  # last written, engineering units, meter's side
         self.endpoints: list[Endpoint] = []
         self.bound: Profile | None = None  # the profile as served, once started
         self._front_meters: dict[int, set[str]] = {}
@@ -176,7 +186,9 @@ class SimulatedBench:
             fronted = {m for f in self._fronts for m in self._front_meters.get(id(f), ())}
             for f in faults:
                 if f.kind == "slow" and f.meter not in fronted:
-                    raise BenchwalkError(f"fault {f.text!r}: slow faults must be given when the bench starts")
+                    raise BenchwalkError(
+                        f"fault {f.text!r}: slow faults must be given when the bench starts"
+                    )
         self._faults = tuple(faults)
         self._apply_gates()
 
@@ -215,7 +227,10 @@ class SimulatedBench:
         hit = self._cache.get(key)
         if hit is None:
             bench_state = (self._readings or ideal_readings)(self.profile, dict(states))
-            hit = {mid: _phasors(bench_state, mid, r, self.profile.bench.frequency_hz) for mid, r in bench_state.meters.items()}  # type: ignore[attr-defined]
+            hit = {
+                mid: _phasors(bench_state, mid, r, self.profile.bench.frequency_hz)
+                for mid, r in bench_state.meters.items()
+            }  # type: ignore[attr-defined]
             self._cache[key] = hit
             self.loads += 1
         return hit
@@ -248,8 +263,18 @@ class SimulatedBench:
                 e[0] += p * dt_h
             else:
                 e[1] -= p * dt_h
-            vals = values_from_phasors(self.profile, meter.id, now[meter.id], self._faults, self.rng, self.noise, (e[0], e[1]))
-            self._last_pt[meter.id] = to_primary(meter, "p.T", vals["p.T"]) if "p.T" in vals else 0.0
+            vals = values_from_phasors(
+                self.profile,
+                meter.id,
+                now[meter.id],
+                self._faults,
+                self.rng,
+                self.noise,
+                (e[0], e[1]),
+            )
+            self._last_pt[meter.id] = (
+                to_primary(meter, "p.T", vals["p.T"]) if "p.T" in vals else 0.0
+            )
             out[meter.id] = vals
         return out
 
@@ -260,7 +285,15 @@ class SimulatedBench:
         write registers; do not mix with a running update loop.
         """
         self.values = self.compute(t)
-        return snapshot_of(self.profile, self.values, self._faults, seq, self.plc.states(), t_mono=t, previous=previous)
+        return snapshot_of(
+            self.profile,
+            self.values,
+            self._faults,
+            seq,
+            self.plc.states(),
+            t_mono=t,
+            previous=previous,
+        )
 
     async def update(self, t: float | None = None) -> None:
         """One update: compute and write every meter's registers and the PLC's status points."""
@@ -327,22 +360,37 @@ class SimulatedBench:
             for (host, port), items in groups.items():
                 units = [i.unit_id for i in items]
                 if len(set(units)) != len(units):
-                    raise BenchwalkError(f"{self.profile.path}: two devices on {host}:{port} share a unit id")
+                    raise BenchwalkError(
+                        f"{self.profile.path}: two devices on {host}:{port} share a unit id"
+                    )
                 devices = [
-                    meter_device(i.unit_id, self.profile.maps[i.map_id], self._gates[i.id]) if isinstance(i, Meter) else self._plc_device(i)
+                    meter_device(i.unit_id, self.profile.maps[i.map_id], self._gates[i.id])
+                    if isinstance(i, Meter)
+                    else self._plc_device(i)
                     for i in items
                 ]
-                slow = [i.id for i in items if isinstance(i, Meter) and find(i.id, self._faults, "slow")]
+                slow = [
+                    i.id for i in items if isinstance(i, Meter) and find(i.id, self._faults, "slow")
+                ]
                 want = self._port_for(port)
                 if slow:  # pymodbus behind, a delaying front on the public port
-                    server, back_port = await start_tcp(devices, "127.0.0.1", 0, on_write=self._on_write)
-                    front = DelayFront(self.host, want, ("127.0.0.1", back_port), {i.unit_id: self._gates[i.id] for i in items if isinstance(i, Meter)})
+                    server, back_port = await start_tcp(
+                        devices, "127.0.0.1", 0, on_write=self._on_write
+                    )
+                    front = DelayFront(
+                        self.host,
+                        want,
+                        ("127.0.0.1", back_port),
+                        {i.unit_id: self._gates[i.id] for i in items if isinstance(i, Meter)},
+                    )
                     self._servers.append(server)
                     bound[(host, port)] = await front.start()
                     self._fronts.append(front)
                     self._front_meters[id(front)] = {i.id for i in items if isinstance(i, Meter)}
                 else:
-                    server, bound[(host, port)] = await start_tcp(devices, self.host, want, on_write=self._on_write)
+                    server, bound[(host, port)] = await start_tcp(
+                        devices, self.host, want, on_write=self._on_write
+                    )
                     self._servers.append(server)
                 for i in items:
                     if isinstance(i, Meter):
@@ -350,7 +398,14 @@ class SimulatedBench:
                     else:
                         self._plc_targets.append((server, i.unit_id))
                     self.endpoints.append(
-                        Endpoint("meter" if isinstance(i, Meter) else "plc", i.id, getattr(i, "label", ""), self.host, bound[(host, port)], i.unit_id)
+                        Endpoint(
+                            "meter" if isinstance(i, Meter) else "plc",
+                            i.id,
+                            getattr(i, "label", ""),
+                            self.host,
+                            bound[(host, port)],
+                            i.unit_id,
+                        )
                     )
             await self.update()
         except BaseException:
@@ -366,7 +421,9 @@ class SimulatedBench:
         def moved(item):
             tr = item.transport
             if isinstance(tr, TcpTransport) and (tr.host, tr.port) in bound:
-                return dataclasses.replace(item, transport=TcpTransport(self.host, bound[(tr.host, tr.port)]))
+                return dataclasses.replace(
+                    item, transport=TcpTransport(self.host, bound[(tr.host, tr.port)])
+                )
             return item
 
         return dataclasses.replace(
@@ -378,7 +435,10 @@ class SimulatedBench:
     def listening(self) -> list[tuple[str, int]]:
         """(host, port) of every listening TCP socket the bench holds, for tests and logs."""
         out = []
-        for holder in [*(getattr(s, "transport", None) for s in self._servers), *(f.server for f in self._fronts)]:
+        for holder in [
+            *(getattr(s, "transport", None) for s in self._servers),
+            *(f.server for f in self._fronts),
+        ]:
             for sock in getattr(holder, "sockets", None) or ():
                 out.append(tuple(sock.getsockname()[:2]))
         return out
@@ -398,12 +458,20 @@ class SimulatedBench:
         ``meter_ids`` default: the profile's RTU meters whose device is ``device``.
         """
         if meter_ids is None:
-            meter_ids = [m.id for m in self.profile.meters if isinstance(m.transport, RtuTransport) and m.transport.device == device]
+            meter_ids = [
+                m.id
+                for m in self.profile.meters
+                if isinstance(m.transport, RtuTransport) and m.transport.device == device
+            ]
         meters = [self.profile.meter(mid) for mid in meter_ids]
         if not meters:
             raise BenchwalkError(f"no meter of {self.profile.path} to serve on {device}")
-        devices = [meter_device(m.unit_id, self.profile.maps[m.map_id], self._gates[m.id]) for m in meters]
-        server = await start_rtu(devices, device, baudrate, parity, stopbits, bytesize, on_write=self._on_write)
+        devices = [
+            meter_device(m.unit_id, self.profile.maps[m.map_id], self._gates[m.id]) for m in meters
+        ]
+        server = await start_rtu(
+            devices, device, baudrate, parity, stopbits, bytesize, on_write=self._on_write
+        )
         self._servers.append(server)
         for m in meters:
             self._targets[m.id].append((server, m.unit_id))

@@ -132,7 +132,10 @@ def validate_faults(profile: Profile, faults: Sequence[Fault]) -> None:
             raise BenchwalkError(
                 f"fault {f.text!r}: meter {f.meter!r} is not in {profile.path}; meters: {known}"
             )
-        if f.kind in {"ct-reversed", "phases-swapped", "ct-ratio"} and profile.meter(f.meter).branch is None:
+        if (
+            f.kind in {"ct-reversed", "phases-swapped", "ct-ratio"}
+            and profile.meter(f.meter).branch is None
+        ):
             raise BenchwalkError(f"fault {f.text!r}: meter {f.meter} measures no current")
 
 

@@ -68,7 +68,9 @@ def class_limit(designation: str) -> float:
 def _limits(v: str, i: str, p: str) -> np.ndarray:
     """Class limits of the ten noisy inputs; frequency's 'limit' is set so sigma = F_SIGMA_HZ."""
     ang = class_limit(p) / math.sqrt(3.0)
-    out = np.array([class_limit(v)] * 3 + [class_limit(i)] * 3 + [ang] * 3 + [F_SIGMA_HZ / SIGMA_OF_LIMIT])
+    out = np.array(
+        [class_limit(v)] * 3 + [class_limit(i)] * 3 + [ang] * 3 + [F_SIGMA_HZ / SIGMA_OF_LIMIT]
+    )
     out.flags.writeable = False
     return out
 
@@ -133,7 +135,9 @@ def add_noise(ph: Phasors, meter: Meter, rng: np.random.Generator, factor: float
     """Class-consistent measurement noise on |V|, |I| and the V-I angle (see module docstring)."""
     lim = _limits(meter.classes.v, meter.classes.i, meter.classes.p) * factor
     # one draw for all ten errors: |V| x3, |I| x3, V-I angle x3, frequency
-    e = np.clip(rng.standard_normal(10) * lim * SIGMA_OF_LIMIT, -lim * CLIP_OF_LIMIT, lim * CLIP_OF_LIMIT)
+    e = np.clip(
+        rng.standard_normal(10) * lim * SIGMA_OF_LIMIT, -lim * CLIP_OF_LIMIT, lim * CLIP_OF_LIMIT
+    )
     ev, ei, ea = e[0:3], e[3:6], e[6:9]
     f = ph.f + float(e[9]) if ph.f > 0 else 0.0
     return Phasors(ph.v * (1.0 + ev), ph.i * (1.0 + ei) * np.exp(1j * ea), f)
@@ -248,7 +252,12 @@ def snapshot_of(
             decoded = register_roundtrip(rmap, mine or {})
             values = {k: to_primary(meter, k, v) for k, v in decoded.items()}
         blocks[meter.id] = MeterBlock(
-            meter.id, values, dict.fromkeys(values, Quality.OK), CommState.OK, last_good_utc=now, latency_s=latency
+            meter.id,
+            values,
+            dict.fromkeys(values, Quality.OK),
+            CommState.OK,
+            last_good_utc=now,
+            latency_s=latency,
         )
     return Snapshot(
         seq=seq,
@@ -259,11 +268,15 @@ def snapshot_of(
     )
 
 
-def _reported_switches(profile: Profile, switch_states: Mapping[str, str], faults: Sequence[Fault]) -> dict[str, str]:
+def _reported_switches(
+    profile: Profile, switch_states: Mapping[str, str], faults: Sequence[Fault]
+) -> dict[str, str]:
     """Switch states as read: ``unknown`` for every switch of a PLC with a comm fault."""
     silent = {f.meter for f in faults if f.kind in PLC_KINDS}
     plc_of = {sw.id: sw.plc for sw in profile.switches}
-    return {sid: "unknown" if plc_of.get(sid) in silent else st for sid, st in switch_states.items()}
+    return {
+        sid: "unknown" if plc_of.get(sid) in silent else st for sid, st in switch_states.items()
+    }
 
 
 def snapshot_from_sim(
@@ -291,8 +304,23 @@ def snapshot_from_sim(
     reported: dict[str, Mapping[str, float] | None] = {}
     for meter in profile.meters:
         prev = previous.meters.get(meter.id) if previous is not None else None
-        if find(meter.id, faults, "frozen") and prev is not None and prev.state is not CommState.FAILING:
+        if (
+            find(meter.id, faults, "frozen")
+            and prev is not None
+            and prev.state is not CommState.FAILING
+        ):
             reported[meter.id] = None
         else:
-            reported[meter.id] = meter_values(profile, meter.id, ideal.meters[meter.id], faults, rng, noise)  # type: ignore[attr-defined]
-    return snapshot_of(profile, reported, faults, seq, switch_states, t_mono=t_mono, previous=previous, time_utc=time_utc)
+            reported[meter.id] = meter_values(
+                profile, meter.id, ideal.meters[meter.id], faults, rng, noise
+            )  # type: ignore[attr-defined]
+    return snapshot_of(
+        profile,
+        reported,
+        faults,
+        seq,
+        switch_states,
+        t_mono=t_mono,
+        previous=previous,
+        time_utc=time_utc,
+    )

@@ -49,9 +49,20 @@ T012 = np.array([[1, 1, 1], [1, _A**2, _A], [1, _A, _A**2]], dtype=complex)
 _ALLOWED = {
     "source": {"v_ll", "sc_va", "x_r", "angle_deg"},
     "line": {
-        "r_ohm", "x_ohm", "b_us", "r0_ohm", "x0_ohm", "b0_us",
-        "r_ohm_per_km", "x_ohm_per_km", "b_us_per_km", "r0_ohm_per_km", "x0_ohm_per_km",
-        "b0_us_per_km", "length_km", "long_line",
+        "r_ohm",
+        "x_ohm",
+        "b_us",
+        "r0_ohm",
+        "x0_ohm",
+        "b0_us",
+        "r_ohm_per_km",
+        "x_ohm_per_km",
+        "b_us_per_km",
+        "r0_ohm_per_km",
+        "x0_ohm_per_km",
+        "b0_us_per_km",
+        "length_km",
+        "long_line",
     },
     "transformer": {"s_va", "v1_ll", "v2_ll", "uk_pct", "ur_pct", "vector_group", "tap_pct"},
     "load": {"p_w", "q_var", "model", "zip"},
@@ -131,10 +142,20 @@ class _Checker:
 
     def problem(self, key: str, message: str) -> None:
         path = f"{self.prefix}.{key}" if key else self.prefix
-        self.problems.append(Problem(self.file, None, path, f"{self.branch.kind} '{self.branch.id}': {message}"))
+        self.problems.append(
+            Problem(self.file, None, path, f"{self.branch.kind} '{self.branch.id}': {message}")
+        )
 
-    def number(self, key: str, *, required: bool = True, default: float | None = None,
-               minimum: float | None = None, positive: bool = False, allow_inf: bool = False) -> float | None:
+    def number(
+        self,
+        key: str,
+        *,
+        required: bool = True,
+        default: float | None = None,
+        minimum: float | None = None,
+        positive: bool = False,
+        allow_inf: bool = False,
+    ) -> float | None:
         sim = self.branch.sim
         if key not in sim:
             if required:
@@ -166,10 +187,13 @@ class _Checker:
         value = sim[key]
         if isinstance(value, list | tuple):
             ok = len(value) == 3 and all(
-                isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) for v in value
+                isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+                for v in value
             )
             if not ok:
-                self.problem(key, f"must be a number or a list of 3 finite numbers (A, B, C), got {value!r}")
+                self.problem(
+                    key, f"must be a number or a list of 3 finite numbers (A, B, C), got {value!r}"
+                )
                 return None
             return np.array(value, dtype=float)
         total = self.number(key)
@@ -210,7 +234,10 @@ def _line(c: _Checker) -> tuple[np.ndarray, float] | None:
     per_km = any(k.endswith("_per_km") or k == "length_km" for k in sim)
     lumped = any(k in sim for k in ("r_ohm", "x_ohm", "b_us", "r0_ohm", "x0_ohm", "b0_us"))
     if per_km and lumped:
-        c.problem("", "mixes lumped (r_ohm, x_ohm, b_us) and per-length (*_per_km, length_km) values; use one form")
+        c.problem(
+            "",
+            "mixes lumped (r_ohm, x_ohm, b_us) and per-length (*_per_km, length_km) values; use one form",
+        )
         return None
     long_line = sim.get("long_line", False)
     if not isinstance(long_line, bool):
@@ -221,7 +248,10 @@ def _line(c: _Checker) -> tuple[np.ndarray, float] | None:
         sfx = "_per_km"
     else:
         if long_line:
-            c.problem("long_line", "needs per-length data (r_ohm_per_km, x_ohm_per_km, b_us_per_km, length_km)")
+            c.problem(
+                "long_line",
+                "needs per-length data (r_ohm_per_km, x_ohm_per_km, b_us_per_km, length_km)",
+            )
         length, sfx = 1.0, ""
     r = c.number("r_ohm" + sfx, minimum=0.0)
     x = c.number("x_ohm" + sfx)
@@ -253,7 +283,9 @@ def _line(c: _Checker) -> tuple[np.ndarray, float] | None:
     return y, 0.0
 
 
-def _winding_ends(group: str) -> tuple[list[tuple[int, int | None]], list[tuple[int, int | None]], bool, bool]:
+def _winding_ends(
+    group: str,
+) -> tuple[list[tuple[int, int | None]], list[tuple[int, int | None]], bool, bool]:
     """Node pairs (+, -) per core for winding 1 and 2; node 0-2 = phases, None = ground, 3 = star point.
 
     Dyn11: core a's delta winding is A-B, so V_a(LV) is in phase with V_AB and leads V_A by 30
@@ -270,8 +302,15 @@ def _winding_ends(group: str) -> tuple[list[tuple[int, int | None]], list[tuple[
     return w1, w2, hv_star_floating, lv_star_floating
 
 
-def transformer_admittance(s_va: float, v1_ll: float, v2_ll: float, uk_pct: float, ur_pct: float,
-                           vector_group: str, tap_pct: float = 0.0) -> np.ndarray:
+def transformer_admittance(
+    s_va: float,
+    v1_ll: float,
+    v2_ll: float,
+    uk_pct: float,
+    ur_pct: float,
+    vector_group: str,
+    tap_pct: float = 0.0,
+) -> np.ndarray:
     """6x6 phase-frame admittance of a two-winding transformer (no magnetizing branch)."""
     delta1 = vector_group.startswith("D")
     v1w = v1_ll if delta1 else v1_ll / math.sqrt(3)
@@ -296,8 +335,12 @@ def transformer_admittance(s_va: float, v1_ll: float, v2_ll: float, uk_pct: floa
     floating = [i for i, f in ((6, n1), (7, n2)) if f]
     if floating:
         # generalized Schur complement; exact here because m is real positive semidefinite
-        m = m[np.ix_(keep, keep)] - m[np.ix_(keep, floating)] @ np.linalg.pinv(
-            m[np.ix_(floating, floating)]) @ m[np.ix_(floating, keep)]
+        m = (
+            m[np.ix_(keep, keep)]
+            - m[np.ix_(keep, floating)]
+            @ np.linalg.pinv(m[np.ix_(floating, floating)])
+            @ m[np.ix_(floating, keep)]
+        )
     else:
         m = m[np.ix_(keep, keep)]
     return y_leak * m
@@ -348,17 +391,22 @@ def _load(c: _Checker) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
     if model not in LOAD_MODELS:
         c.problem("model", f"must be one of {', '.join(LOAD_MODELS)}, got {model!r}")
         return None
-    fz, fi, fp = {"pq": (0.0, 0.0, 1.0), "z": (1.0, 0.0, 0.0), "i": (0.0, 1.0, 0.0)}.get(model, (0, 0, 0))
+    fz, fi, fp = {"pq": (0.0, 0.0, 1.0), "z": (1.0, 0.0, 0.0), "i": (0.0, 1.0, 0.0)}.get(
+        model, (0, 0, 0)
+    )
     if model == "zip":
         zip_ = c.branch.sim.get("zip")
-        good = (isinstance(zip_, list | tuple) and len(zip_) == 3
-                and all(isinstance(v, int | float) and not isinstance(v, bool) and v >= 0 for v in zip_))
+        good = (
+            isinstance(zip_, list | tuple)
+            and len(zip_) == 3
+            and all(isinstance(v, int | float) and not isinstance(v, bool) and v >= 0 for v in zip_)
+        )
         if not good or abs(sum(zip_) - 1.0) > 1e-6:
             c.problem("zip", f"must be 3 fractions [z, i, p] >= 0 that sum to 1, got {zip_!r}")
             return None
         fz, fi, fp = (float(v) for v in zip_)
     elif "zip" in c.branch.sim:
-        c.problem("zip", f"only used with model = \"zip\" (model is {model!r})")
+        c.problem("zip", f'only used with model = "zip" (model is {model!r})')
     if p is None or q is None:
         return None
     s = p + 1j * q
@@ -383,8 +431,16 @@ def bus_nominal_phase_voltage(profile: Profile) -> dict[str, float]:
         try:
             out[b.id] = profile.bench.zone(b.zone).bench_v_ll / math.sqrt(3)
         except KeyError:
-            raise ProfileError([Problem(profile.path, None, f"bus '{b.id}'.zone",
-                                        f"unknown zone {b.zone!r}; define it in a [[zone]] table")]) from None
+            raise ProfileError(
+                [
+                    Problem(
+                        profile.path,
+                        None,
+                        f"bus '{b.id}'.zone",
+                        f"unknown zone {b.zone!r}; define it in a [[zone]] table",
+                    )
+                ]
+            ) from None
     return out
 
 
@@ -404,10 +460,20 @@ def element_models(profile: Profile) -> dict[str, Element]:
         missing = [b for b in br.buses if b not in bus_ids]
         two_ended = br.kind in ("line", "transformer")
         if missing:
-            c.problems.append(Problem(profile.path, None, f"branch[{i}]", f"'{br.id}': unknown bus {missing[0]!r}"))
+            c.problems.append(
+                Problem(
+                    profile.path, None, f"branch[{i}]", f"'{br.id}': unknown bus {missing[0]!r}"
+                )
+            )
         elif two_ended != (br.to_bus is not None):
-            c.problems.append(Problem(profile.path, None, f"branch[{i}].to_bus",
-                                      f"'{br.id}': a {br.kind} {'needs' if two_ended else 'takes no'} to_bus"))
+            c.problems.append(
+                Problem(
+                    profile.path,
+                    None,
+                    f"branch[{i}].to_bus",
+                    f"'{br.id}': a {br.kind} {'needs' if two_ended else 'takes no'} to_bus",
+                )
+            )
         else:
             vn = v_nom[br.from_bus]
             if br.kind == "source":
@@ -432,9 +498,15 @@ def element_models(profile: Profile) -> dict[str, Element]:
     for m in out.values():
         if isinstance(m, SourceModel) and m.y is None:
             if m.bus in ideal_buses:
-                problems.append(Problem(profile.path, None, f"branch[{index[m.branch]}].sim.sc_va",
-                                        f"bus {m.bus!r} already has the ideal source '{ideal_buses[m.bus]}'; "
-                                        "give one of them a finite sc_va"))
+                problems.append(
+                    Problem(
+                        profile.path,
+                        None,
+                        f"branch[{index[m.branch]}].sim.sc_va",
+                        f"bus {m.bus!r} already has the ideal source '{ideal_buses[m.bus]}'; "
+                        "give one of them a finite sc_va",
+                    )
+                )
             ideal_buses[m.bus] = m.branch
     if problems:
         raise ProfileError(problems)
@@ -446,8 +518,10 @@ def open_branches(profile: Profile, switch_states: Mapping[str, str]) -> frozens
     known = {s.id for s in profile.switches}
     for sid, state in switch_states.items():
         if sid not in known:
-            raise BenchwalkError(f"switch state given for unknown switch {sid!r}; "
-                                 f"the profile has {', '.join(sorted(known)) or 'no switches'}")
+            raise BenchwalkError(
+                f"switch state given for unknown switch {sid!r}; "
+                f"the profile has {', '.join(sorted(known)) or 'no switches'}"
+            )
         if state not in ("open", "closed"):
             raise BenchwalkError(f"switch {sid!r}: state must be 'open' or 'closed', got {state!r}")
     return frozenset(
@@ -455,8 +529,9 @@ def open_branches(profile: Profile, switch_states: Mapping[str, str]) -> frozens
     )
 
 
-def build_network(profile: Profile, switch_states: Mapping[str, str],
-                  models: Mapping[str, Element] | None = None) -> Network:
+def build_network(
+    profile: Profile, switch_states: Mapping[str, str], models: Mapping[str, Element] | None = None
+) -> Network:
     """The model for one switch state, with energized buses found by a graph walk from sources."""
     models = element_models(profile) if models is None else models
     v_nom = bus_nominal_phase_voltage(profile)
@@ -502,4 +577,3 @@ def build_network(profile: Profile, switch_states: Mapping[str, str],
         angle0_deg=angle,
         branch_buses={b.id: b.buses for b in profile.branches},
     )
-

@@ -31,7 +31,9 @@ def settle_settings(profile: Profile) -> tuple[float, str]:
     if not math.isfinite(tau) or tau < 0:
         raise BenchwalkError(f"{profile.path}: sim.settle_s must be a number >= 0, got {tau}")
     if kind not in ("first_order", "damped"):
-        raise BenchwalkError(f"{profile.path}: sim.transient must be 'first_order' or 'damped', got {kind!r}")
+        raise BenchwalkError(
+            f"{profile.path}: sim.transient must be 'first_order' or 'damped', got {kind!r}"
+        )
     return tau, kind
 
 
@@ -63,16 +65,29 @@ class Mechanism:
 class PlcSim:
     """Switch states, command coils and status points of every switch in the profile."""
 
-    def __init__(self, profile: Profile, states: Mapping[str, SwitchState] | None = None, t: float = 0.0):
+    def __init__(
+        self, profile: Profile, states: Mapping[str, SwitchState] | None = None, t: float = 0.0
+    ):
         self.profile = profile
         self.t = t
         given = dict(states or {})
         self._mech = {
-            s.id: Mechanism(s.id, given.get(s.id, s.normal), given.get(s.id, s.normal), operate_time_s=s.operate_time_s)
+            s.id: Mechanism(
+                s.id,
+                given.get(s.id, s.normal),
+                given.get(s.id, s.normal),
+                operate_time_s=s.operate_time_s,
+            )
             for s in profile.switches
         }
-        self._coil_to_switch = {s.command_coil: s.id for s in profile.switches if s.operation == "remote" and s.command_coil is not None}
-        self.commands: list[tuple[float, str, SwitchState, str]] = []  # (t, switch, state, "coil"|"hand")
+        self._coil_to_switch = {
+            s.command_coil: s.id
+            for s in profile.switches
+            if s.operation == "remote" and s.command_coil is not None
+        }
+        self.commands: list[
+            tuple[float, str, SwitchState, str]
+        ] = []  # (t, switch, state, "coil"|"hand")
         self.changed_at = -math.inf  # when contacts last moved (the due time, not when asked)
 
     def _start(self, switch_id: str, state: SwitchState, t: float, how: str) -> None:
@@ -99,7 +114,9 @@ class PlcSim:
         if switch_id not in self._mech:
             raise BenchwalkError(f"switch {switch_id!r} is not in {self.profile.path}")
         if state not in ("open", "closed"):
-            raise BenchwalkError(f"switch {switch_id}: state must be 'open' or 'closed', got {state!r}")
+            raise BenchwalkError(
+                f"switch {switch_id}: state must be 'open' or 'closed', got {state!r}"
+            )
         self._start(switch_id, state, t, "hand")
 
     def advance(self, t: float) -> list[str]:
@@ -126,7 +143,9 @@ class PlcSim:
 
     def command_bits(self) -> list[tuple[int, bool]]:
         """(command coil address, value) as the coils read back: the last command, True = close."""
-        return [(addr, self._mech[sid].target == "closed") for addr, sid in self._coil_to_switch.items()]
+        return [
+            (addr, self._mech[sid].target == "closed") for addr, sid in self._coil_to_switch.items()
+        ]
 
 
 class Transient:
@@ -148,4 +167,7 @@ class Transient:
         r = remaining(self.kind, self.tau, t - self._t0)
         if r == 0.0:
             return dict(self._new)
-        return {m: blend(self._old[m], new, r) if m in self._old else new for m, new in self._new.items()}
+        return {
+            m: blend(self._old[m], new, r) if m in self._old else new
+            for m, new in self._new.items()
+        }

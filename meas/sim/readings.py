@@ -58,7 +58,9 @@ def _wrap_deg(a: np.ndarray) -> np.ndarray:
     return np.where(w == -180.0, 180.0, w)
 
 
-def meter_values(v: np.ndarray, i: np.ndarray, *, apparent_power: str, frequency_hz: float) -> dict[str, float]:
+def meter_values(
+    v: np.ndarray, i: np.ndarray, *, apparent_power: str, frequency_hz: float
+) -> dict[str, float]:
     """Every quantity a three-phase meter shows for phase-to-ground V and current I phasors.
 
     Pure function of the phasors; ``frequency_hz`` is what ``f.T`` reads (0 for a dead bus).
@@ -106,10 +108,14 @@ def meter_phasors(profile: Profile, meter: Meter, sol: Solution) -> tuple[np.nda
     try:
         br = profile.branch(meter.branch)
     except KeyError:
-        raise BenchwalkError(f"meter {meter.id!r}: branch {meter.branch!r} is not in the profile") from None
+        raise BenchwalkError(
+            f"meter {meter.id!r}: branch {meter.branch!r} is not in the profile"
+        ) from None
     if meter.bus not in br.buses:
-        raise BenchwalkError(f"meter {meter.id!r}: bus {meter.bus!r} is not an end of branch "
-                             f"{br.id!r} ({', '.join(br.buses)}); fix the meter's bus or branch")
+        raise BenchwalkError(
+            f"meter {meter.id!r}: bus {meter.bus!r} is not an end of branch "
+            f"{br.id!r} ({', '.join(br.buses)}); fix the meter's bus or branch"
+        )
     return v, sol.current_into(br.id, meter.bus, br.from_bus)
 
 
@@ -131,7 +137,9 @@ def _cache_for(profile: Profile) -> _ProfileCache:
     return entry
 
 
-def _compute(profile: Profile, states: Mapping[str, str], models: Mapping[str, Element]) -> BenchState:
+def _compute(
+    profile: Profile, states: Mapping[str, str], models: Mapping[str, Element]
+) -> BenchState:
     net = build_network(profile, states, models)
     sol = solve(net)
     meters: dict[str, dict[str, float]] = {}
@@ -142,9 +150,12 @@ def _compute(profile: Profile, states: Mapping[str, str], models: Mapping[str, E
         try:
             apparent = profile.meter_map(m.id).apparent_power
         except KeyError:
-            apparent = "arithmetic"  # map validation is meas.profile's job; keep the simulator usable
-        meters[m.id] = meter_values(v, i, apparent_power=apparent,
-                                    frequency_hz=profile.bench.frequency_hz if live else 0.0)
+            apparent = (
+                "arithmetic"  # map validation is meas.profile's job; keep the simulator usable
+            )
+        meters[m.id] = meter_values(
+            v, i, apparent_power=apparent, frequency_hz=profile.bench.frequency_hz if live else 0.0
+        )
         phasors[m.id] = (v, i)
     return BenchState(meters=meters, energized=dict(sol.energized), solution=sol, phasors=phasors)
 
@@ -161,7 +172,9 @@ def ideal_readings(profile: Profile, switch_states: Mapping[str, str]) -> BenchS
     key = tuple(switch_states.get(s.id, s.normal) for s in profile.switches)
     state = entry.states.get(key)
     if state is None:
-        state = _compute(profile, dict(zip((s.id for s in profile.switches), key, strict=True)), entry.models)
+        state = _compute(
+            profile, dict(zip((s.id for s in profile.switches), key, strict=True)), entry.models
+        )
         if len(entry.states) >= _MAX_STATES:
             entry.states.pop(next(iter(entry.states)))
         entry.states[key] = state
@@ -177,4 +190,3 @@ def dead_values(apparent_power: str = "arithmetic") -> dict[str, float]:
     """What a meter on a dead bus reads (all zero), for callers that need it without a profile."""
     z = np.zeros(3, dtype=complex)
     return meter_values(z, z, apparent_power=apparent_power, frequency_hz=0.0)
-

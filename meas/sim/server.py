@@ -152,7 +152,9 @@ class DelayFront:
         try:
             self._server = await asyncio.start_server(self._client, self.host, self.port)
         except OSError as exc:
-            raise BenchwalkError(f"cannot listen on {self.host}:{self.port}: {exc.strerror}; free the port or use --free-ports") from None
+            raise BenchwalkError(
+                f"cannot listen on {self.host}:{self.port}: {exc.strerror}; free the port or use --free-ports"
+            ) from None
         self.port = self._server.sockets[0].getsockname()[1]
         return self.port
 
@@ -237,36 +239,60 @@ def _write_tracer(where: int | str, on_write: OnWrite | None):
     def trace(sending: bool, pdu):
         if not sending and pdu.function_code in ANY_WRITE_FC:
             values = tuple(int(v) for v in (pdu.bits or pdu.registers or ()))
-            on_write(SeenWrite(datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"), where, pdu.dev_id,
-                               pdu.function_code, int(getattr(pdu, "address", 0) or 0), values))
+            on_write(
+                SeenWrite(
+                    datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
+                    where,
+                    pdu.dev_id,
+                    pdu.function_code,
+                    int(getattr(pdu, "address", 0) or 0),
+                    values,
+                )
+            )
         return pdu
 
     return trace
 
 
-async def start_tcp(devices: list[SimDevice], host: str, port: int,
-                    on_write: OnWrite | None = None) -> tuple[ModbusTcpServer, int]:
+async def start_tcp(
+    devices: list[SimDevice], host: str, port: int, on_write: OnWrite | None = None
+) -> tuple[ModbusTcpServer, int]:
     """Serve the devices on host:port (0 = any free port); returns the server and its port.
 
     ``on_write`` hears of every write request the server receives (FC 5, 6, 15, 16, 22, 23),
     whether or not a device accepts it.
     """
     holder: dict[str, int] = {}
-    tracer = _write_tracer(0, None if on_write is None else
-                           lambda w: on_write(dataclasses.replace(w, port=holder.get("port", port))))
-    server = ModbusTcpServer(devices, address=(host, port), ignore_missing_devices=True, trace_pdu=tracer)
+    tracer = _write_tracer(
+        0,
+        None
+        if on_write is None
+        else lambda w: on_write(dataclasses.replace(w, port=holder.get("port", port))),
+    )
+    server = ModbusTcpServer(
+        devices, address=(host, port), ignore_missing_devices=True, trace_pdu=tracer
+    )
     try:
         await server.serve_forever(background=True)
     except RuntimeError:
-        raise BenchwalkError(f"cannot listen on {host}:{port} (in use or not a local address); free the port or use --free-ports") from None
+        raise BenchwalkError(
+            f"cannot listen on {host}:{port} (in use or not a local address); free the port or use --free-ports"
+        ) from None
     sockets = getattr(server.transport, "sockets", None) or ()
     bound = int(sockets[0].getsockname()[1]) if sockets else port
     holder["port"] = bound
     return server, bound
 
 
-async def start_rtu(devices: list[SimDevice], device: str, baudrate: int = 19200, parity: str = "N",
-                    stopbits: int = 1, bytesize: int = 8, on_write: OnWrite | None = None) -> ModbusSerialServer:
+async def start_rtu(
+    devices: list[SimDevice],
+    device: str,
+    baudrate: int = 19200,
+    parity: str = "N",
+    stopbits: int = 1,
+    bytesize: int = 8,
+    on_write: OnWrite | None = None,
+) -> ModbusSerialServer:
     """Serve the devices as RTU slaves on a serial port path (a real port or a pty)."""
     server = ModbusSerialServer(
         devices,
@@ -282,7 +308,9 @@ async def start_rtu(devices: list[SimDevice], device: str, baudrate: int = 19200
     try:
         await server.serve_forever(background=True)
     except RuntimeError:
-        raise BenchwalkError(f"cannot open serial port {device}; check the path and permissions") from None
+        raise BenchwalkError(
+            f"cannot open serial port {device}; check the path and permissions"
+        ) from None
     return server
 
 

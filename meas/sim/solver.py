@@ -73,8 +73,13 @@ def _load_power(ld: LoadModel, vm: np.ndarray, vn: float) -> np.ndarray:
     return ld.s_z * r**2 + ld.s_i * r + ld.s_p
 
 
-def solve(net: Network, *, tol_pu: float = DEFAULT_TOL_PU, max_iter: int = DEFAULT_MAX_ITER,
-          raise_on_failure: bool = True) -> Solution:
+def solve(
+    net: Network,
+    *,
+    tol_pu: float = DEFAULT_TOL_PU,
+    max_iter: int = DEFAULT_MAX_ITER,
+    raise_on_failure: bool = True,
+) -> Solution:
     """Solve the load flow of ``net``; raises ``SolverError`` unless it converges."""
     tol_va = tol_pu * net.s_base_va
     live = [b for b in net.buses if net.energized[b]]
@@ -93,10 +98,10 @@ def solve(net: Network, *, tol_pu: float = DEFAULT_TOL_PU, max_iter: int = DEFAU
     shifts = np.exp(-2j * np.pi / 3 * np.arange(3))
     for b in live:
         i = idx[b]
-        vn[i:i + 3] = net.v_nominal[b]
-        v0[i:i + 3] = net.v_nominal[b] * np.exp(1j * np.radians(net.angle0_deg[b])) * shifts
+        vn[i : i + 3] = net.v_nominal[b]
+        v0[i : i + 3] = net.v_nominal[b] * np.exp(1j * np.radians(net.angle0_deg[b])) * shifts
     for tp in net.two_ports:
-        ii = np.r_[idx[tp.from_bus]:idx[tp.from_bus] + 3, idx[tp.to_bus]:idx[tp.to_bus] + 3]
+        ii = np.r_[idx[tp.from_bus] : idx[tp.from_bus] + 3, idx[tp.to_bus] : idx[tp.to_bus] + 3]
         y[np.ix_(ii, ii)] += tp.y
     for s in net.sources:
         bi = np.arange(idx[s.bus], idx[s.bus] + 3)
@@ -116,8 +121,8 @@ def solve(net: Network, *, tol_pu: float = DEFAULT_TOL_PU, max_iter: int = DEFAU
     for ld in net.loads:
         i = idx[ld.bus]
         y[range(i, i + 3), range(i, i + 3)] += np.conj(ld.s_z) / net.v_nominal[ld.bus] ** 2
-        sp[i:i + 3] += ld.s_p
-        si[i:i + 3] += ld.s_i
+        sp[i : i + 3] += ld.s_p
+        si[i : i + 3] += ld.s_i
 
     pq = np.flatnonzero(~slack)
     npq = len(pq)
@@ -152,7 +157,8 @@ def solve(net: Network, *, tol_pu: float = DEFAULT_TOL_PU, max_iter: int = DEFAU
                 raise SolverError(
                     f"load flow of {net.path}: singular Jacobian at iteration {it} (a part of the "
                     "network with no path to ground or no load, e.g. an unloaded Yy0 transformer); "
-                    "check the transformer vector groups") from None
+                    "check the transformer vector groups"
+                ) from None
             ang = np.angle(v[pq]) + dx[:npq]
             mag = vm[pq] + dx[npq:]
             v[pq] = mag * np.exp(1j * ang)
@@ -160,15 +166,27 @@ def solve(net: Network, *, tol_pu: float = DEFAULT_TOL_PU, max_iter: int = DEFAU
         raise SolverError(
             f"load flow of {net.path} did not converge after {iterations} iterations "
             f"(max mismatch {max_mis:.3g} VA, needed {tol_va:.3g} VA): the loads may exceed what the "
-            "source can supply; check load, source and line parameters")
+            "source can supply; check load, source and line parameters"
+        )
     return _results(net, y, v, idx, src_idx, sp, si, vn, iterations, max_mis, tol_va, converged)
 
 
-def _results(net: Network, y: np.ndarray, v: np.ndarray, idx: dict[str, int], src_idx: dict[str, int],
-             sp: np.ndarray, si: np.ndarray, vn: np.ndarray, iterations: int, max_mis: float,
-             tol_va: float, converged: bool) -> Solution:
+def _results(
+    net: Network,
+    y: np.ndarray,
+    v: np.ndarray,
+    idx: dict[str, int],
+    src_idx: dict[str, int],
+    sp: np.ndarray,
+    si: np.ndarray,
+    vn: np.ndarray,
+    iterations: int,
+    max_mis: float,
+    tol_va: float,
+    converged: bool,
+) -> Solution:
     zero = np.zeros(3, dtype=complex)
-    vb = {b: v[idx[b]:idx[b] + 3].copy() if b in idx else zero.copy() for b in net.buses}
+    vb = {b: v[idx[b] : idx[b] + 3].copy() if b in idx else zero.copy() for b in net.buses}
     i_from = {br: zero.copy() for br in net.branch_buses}
     i_to = {br: zero.copy() for br, buses in net.branch_buses.items() if len(buses) == 2}
     for tp in net.two_ports:
@@ -184,18 +202,33 @@ def _results(net: Network, y: np.ndarray, v: np.ndarray, idx: dict[str, int], sr
         if s.y is None:
             ideal.append(s)
         else:
-            e = v[src_idx[s.branch]:src_idx[s.branch] + 3]
+            e = v[src_idx[s.branch] : src_idx[s.branch] + 3]
             i_from[s.branch] = s.y @ (vb[s.bus] - e)
     for s in ideal:
         # KCL at the held bus: the ideal source takes whatever the rest of the bus does not
         i = idx[s.bus]
-        vv = v[i:i + 3]
-        rest = y[i:i + 3] @ v + np.conj((sp[i:i + 3] + si[i:i + 3] * np.abs(vv) / vn[i:i + 3]) / vv)
+        vv = v[i : i + 3]
+        rest = y[i : i + 3] @ v + np.conj(
+            (sp[i : i + 3] + si[i : i + 3] * np.abs(vv) / vn[i : i + 3]) / vv
+        )
         i_from[s.branch] = -rest  # one ideal source per bus (element_models enforces it)
     s_from = {br: vb[net.branch_buses[br][0]] * np.conj(c) for br, c in i_from.items()}
     s_to = {br: vb[net.branch_buses[br][1]] * np.conj(c) for br, c in i_to.items()}
-    frz = {k: {b: _frozen(a) for b, a in d.items()} for k, d in
-           (("v", vb), ("i_from", i_from), ("i_to", i_to), ("s_from", s_from), ("s_to", s_to))}
-    return Solution(energized=dict(net.energized), iterations=iterations, max_mismatch_va=max_mis,
-                    tol_va=tol_va, converged=converged, **frz)
-
+    frz = {
+        k: {b: _frozen(a) for b, a in d.items()}
+        for k, d in (
+            ("v", vb),
+            ("i_from", i_from),
+            ("i_to", i_to),
+            ("s_from", s_from),
+            ("s_to", s_to),
+        )
+    }
+    return Solution(
+        energized=dict(net.energized),
+        iterations=iterations,
+        max_mismatch_va=max_mis,
+        tol_va=tol_va,
+        converged=converged,
+        **frz,
+    )

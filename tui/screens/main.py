@@ -37,7 +37,13 @@ from .prompt import Alert, TextPrompt
 from .remote import RemoteConfirm
 
 VIEWS = ("step", "readings", "bench", "meter", "log")
-VIEW_TITLE = {"step": "1 Step", "readings": "2 Readings", "bench": "3 Bench", "meter": "4 Phasors", "log": "5 Log"}
+VIEW_TITLE = {
+    "step": "1 Step",
+    "readings": "2 Readings",
+    "bench": "3 Bench",
+    "meter": "4 Phasors",
+    "log": "5 Log",
+}
 WIDE_MIN = (110, 34)
 _STEP_ACTIONS = {"operated", "remote", "capture", "accept", "retake", "skip", "sign"}
 
@@ -123,7 +129,10 @@ class MainScreen(Screen):
         left = {"step", "readings", "log"}
         self.query_one("#col-left").display = wide or self.view in left
         self.query_one("#col-right").display = wide or self.view not in left
-        tabs = "  ".join(f"[reverse] {VIEW_TITLE[v]} [/]" if v == self.view else f" {VIEW_TITLE[v]} " for v in VIEWS)
+        tabs = "  ".join(
+            f"[reverse] {VIEW_TITLE[v]} [/]" if v == self.view else f" {VIEW_TITLE[v]} "
+            for v in VIEWS
+        )
         units = UNIT_MODE_LABEL[self.unit_mode]
         self.query_one("#tabs", Static).update(f"{tabs}  V=next  U={units}")
         self.query_one("#pane-readings").border_title = f"2 Readings ({units})"
@@ -197,18 +206,36 @@ class MainScreen(Screen):
             self.query_one(ReadingsGrid).update_snapshot(snap)
             self.query_one(BenchView).show(snap.switches)
         self._show_meter()
-        if old is None or (old.step and step and (old.step.state, old.step.index) != (step.state, step.index)):
+        if old is None or (
+            old.step and step and (old.step.state, old.step.index) != (step.state, step.index)
+        ):
             self.refresh_bindings()
-        if step is not None and step.message and (old is None or old.step is None or old.step.message != step.message):
+        if (
+            step is not None
+            and step.message
+            and (old is None or old.step is None or old.step.message != step.message)
+        ):
             self.notice(f"\u2718 {step.message}")
         if step is not None and step.state == "finished" and not self._auto_exported:
             self._auto_exported = True  # the sequence is complete: write the dataset at once
             self._export()
-        if step is not None and step.state == "stopped" and not self._alerted_stop and not self._remote_busy:
+        if (
+            step is not None
+            and step.state == "stopped"
+            and not self._alerted_stop
+            and not self._remote_busy
+        ):
             self._alerted_stop = True
-            msg = getattr(self.bridge.runner, "message", "") if hasattr(self.bridge, "runner") else ""
-            self.app.push_screen(Alert("SEQUENCE STOPPED", (msg or step.instruction) +
-                                       "\nThe session is saved; clear the cause, then resume it."))
+            msg = (
+                getattr(self.bridge.runner, "message", "") if hasattr(self.bridge, "runner") else ""
+            )
+            self.app.push_screen(
+                Alert(
+                    "SEQUENCE STOPPED",
+                    (msg or step.instruction)
+                    + "\nThe session is saved; clear the cause, then resume it.",
+                )
+            )
 
     def _show_meter(self) -> None:
         meter_id = self.profile.meters[self.meter_idx].id
@@ -216,7 +243,9 @@ class MainScreen(Screen):
         block = snap.meters.get(meter_id) if snap is not None else None
         self.query_one(PhasorView).show(meter_id, block, height=9 if self.wide else 11)
         key = TREND_KEYS[self.trend_idx]
-        samples = [(s.t_mono, s.meters[meter_id].get(key)) for s in self.history if meter_id in s.meters]
+        samples = [
+            (s.t_mono, s.meters[meter_id].get(key)) for s in self.history if meter_id in s.meters
+        ]
         window = self.frame.settle_window_s if self.frame else 2.0
         width = 36 if self.wide else 34
         self.query_one(TrendView).show(meter_id, key, samples, window, self.unit_mode, width=width)
@@ -243,7 +272,11 @@ class MainScreen(Screen):
     # ------------------------------------------------------------------ step actions
     def _run(self, name: str, *args) -> None:
         refusal = self.bridge.command(name, *args)
-        self.notice(f"\u2718 {refusal}" if refusal else f"\u2714 {_DONE_WORDS.get(name, name.replace('_', ' '))}")
+        self.notice(
+            f"\u2718 {refusal}"
+            if refusal
+            else f"\u2714 {_DONE_WORDS.get(name, name.replace('_', ' '))}"
+        )
         self._repaint_now()
 
     def _repaint_now(self) -> None:
@@ -270,7 +303,9 @@ class MainScreen(Screen):
         step = self.frame.step if self.frame else None
         if step is not None and any(r.status.value == "fail" for r in self.frame.checks):
             self.app.push_screen(
-                TextPrompt("Accept with failing checks", "Checks failed. Why is this step acceptable?"),
+                TextPrompt(
+                    "Accept with failing checks", "Checks failed. Why is this step acceptable?"
+                ),
                 lambda reason: reason and self._run("accept", reason),
             )
             return
@@ -284,12 +319,15 @@ class MainScreen(Screen):
 
     def action_note(self) -> None:
         self.app.push_screen(
-            TextPrompt("Note", "Note for the journal:"), lambda text: text and self._run("note", text)
+            TextPrompt("Note", "Note for the journal:"),
+            lambda text: text and self._run("note", text),
         )
 
     def action_sign(self) -> None:
         self.app.push_screen(
-            TextPrompt("Sign hold point", "Name of the person signing off:", value=self.bridge.operator),
+            TextPrompt(
+                "Sign hold point", "Name of the person signing off:", value=self.bridge.operator
+            ),
             lambda name: name and self._run("sign", name),
         )
 
@@ -307,8 +345,11 @@ class MainScreen(Screen):
             self.notice(f"\u2718 {exc}")
             return
         sw = self.profile.switch(switch_id)
-        present = step.actual.get(switch_id) or (self.frame.snapshot.switches.get(switch_id, "unknown")
-                                                 if self.frame.snapshot else "unknown")
+        present = step.actual.get(switch_id) or (
+            self.frame.snapshot.switches.get(switch_id, "unknown")
+            if self.frame.snapshot
+            else "unknown"
+        )
 
         def sent(ok: bool | None) -> None:
             if ok:
@@ -363,7 +404,9 @@ class MainScreen(Screen):
 
     def action_units(self) -> None:
         self.unit_mode = UNIT_MODES[(UNIT_MODES.index(self.unit_mode) + 1) % len(UNIT_MODES)]
-        self.query_one(ReadingsGrid).set_mode(self.unit_mode, self.frame.snapshot if self.frame else None)
+        self.query_one(ReadingsGrid).set_mode(
+            self.unit_mode, self.frame.snapshot if self.frame else None
+        )
         self._show_meter()
         self._apply_layout()
         self.notice(f"values in {UNIT_MODE_LABEL[self.unit_mode]}")

@@ -23,7 +23,9 @@ class RemoteConfirm(ModalScreen[bool]):
 
     BINDINGS = [Binding("escape", "cancel", "Cancel", id="remote.cancel")]
 
-    def __init__(self, switch_id: str, label: str, present: str, intended: str, question: str = "") -> None:
+    def __init__(
+        self, switch_id: str, label: str, present: str, intended: str, question: str = ""
+    ) -> None:
         super().__init__()
         self.switch_id = switch_id
         self.label = label
@@ -52,7 +54,9 @@ class RemoteConfirm(ModalScreen[bool]):
     def _show_keys(self) -> None:
         keys = self.query_one("#remote-keys", Static)
         if self.armed:
-            keys.update(f"ARMED. Press Y to send {self.switch_id} -> {self.intended}.  Any other key disarms.")
+            keys.update(
+                f"ARMED. Press Y to send {self.switch_id} -> {self.intended}.  Any other key disarms."
+            )
         else:
             keys.update("Press A to arm (1 of 2).  Esc = cancel, nothing is sent.")
 

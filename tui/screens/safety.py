@@ -29,7 +29,9 @@ class SafetyScreen(Screen[bool]):
             yield Label("\u26a0  SAFETY  \u26a0", id="safety-title")
             with VerticalScroll():
                 yield Static(CAUTION_TEXT, id="safety-text")
-            yield Static("Press Y to acknowledge and continue.   Ctrl+Q to leave.", id="safety-keys")
+            yield Static(
+                "Press Y to acknowledge and continue.   Ctrl+Q to leave.", id="safety-keys"
+            )
         yield Footer()
 
     def action_acknowledge(self) -> None:

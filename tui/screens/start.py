@@ -35,7 +35,9 @@ class StartScreen(Screen[StartChoice]):
 
     BINDINGS = [Binding("escape", "focus_name", "Edit name", id="start.name")]
 
-    def __init__(self, bench: str, sessions: list[tuple[str, str]], operator: str = "", highlight: int = 0) -> None:
+    def __init__(
+        self, bench: str, sessions: list[tuple[str, str]], operator: str = "", highlight: int = 0
+    ) -> None:
         super().__init__()
         self.highlight = highlight
         self.bench = bench
@@ -49,10 +51,15 @@ class StartScreen(Screen[StartChoice]):
             yield Input(value=self.operator, placeholder="your name", id="operator")
             yield Static("Session:")
             options = [Option("\u25b6 start a new session", id=NEW)]
-            options += [Option(f"\u21bb resume {sid}  {desc}", id=sid) for sid, desc in self.sessions]
+            options += [
+                Option(f"\u21bb resume {sid}  {desc}", id=sid) for sid, desc in self.sessions
+            ]
             yield OptionList(*options, id="sessions")
             yield Static("", id="start-error", classes="error-line")
-            yield Static("Enter on the name moves to the list; Enter on the list starts.", classes="modal-keys")
+            yield Static(
+                "Enter on the name moves to the list; Enter on the list starts.",
+                classes="modal-keys",
+            )
         yield Footer()
 
     def on_mount(self) -> None:

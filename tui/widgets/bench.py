@@ -27,12 +27,20 @@ def conducting(profile: Profile, branch_id: str, switch_states: Mapping[str, str
 
 def energized_buses(profile: Profile, switch_states: Mapping[str, str]) -> set[str]:
     """Buses reached from any source through conducting two-ended branches."""
-    live = {b.from_bus for b in profile.branches if b.kind == "source" and conducting(profile, b.id, switch_states)}
+    live = {
+        b.from_bus
+        for b in profile.branches
+        if b.kind == "source" and conducting(profile, b.id, switch_states)
+    }
     frontier = list(live)
     while frontier:
         bus = frontier.pop()
         for br in profile.branches:
-            if br.to_bus is None or bus not in br.buses or not conducting(profile, br.id, switch_states):
+            if (
+                br.to_bus is None
+                or bus not in br.buses
+                or not conducting(profile, br.id, switch_states)
+            ):
                 continue
             other = br.to_bus if br.from_bus == bus else br.from_bus
             if other not in live:

@@ -31,7 +31,9 @@ def overall_text(overall: str) -> Text:
     return Text(f" {sym} {word} ", style=OVERALL_STYLE.get(overall, "bold"))
 
 
-def checks_text(results: tuple[CheckResult, ...] | list[CheckResult], overall: str, limit: int = 40) -> Text:
+def checks_text(
+    results: tuple[CheckResult, ...] | list[CheckResult], overall: str, limit: int = 40
+) -> Text:
     """Overall line, then every failing and warning result with its cause, then a pass count."""
     out = Text()
     out.append_text(overall_text(overall))
@@ -43,7 +45,9 @@ def checks_text(results: tuple[CheckResult, ...] | list[CheckResult], overall: s
         f"  {counts[Status.FAIL]} fail  {counts[Status.WARN]} warn  {counts[Status.PASS]} pass  {counts[Status.NA]} n/a"
     )
     if overall == "settling" and results:
-        out.append("\n~ readings still moving after switching: provisional until they settle", style="bold")
+        out.append(
+            "\n~ readings still moving after switching: provisional until they settle", style="bold"
+        )
     shown = 0
     for r in ordered:
         if r.status in (Status.PASS, Status.NA) or shown >= limit:

@@ -27,7 +27,9 @@ def _deg(a: float) -> str:
     return f"{a:7.1f}\u00b0" if math.isfinite(a) else "     --\u00b0"
 
 
-def _ray(grid: list[list[str]], cx: int, cy: int, angle_deg: float, length: float, mark: str, tip: str) -> None:
+def _ray(
+    grid: list[list[str]], cx: int, cy: int, angle_deg: float, length: float, mark: str, tip: str
+) -> None:
     """Draw one ray from the centre; positive angles counter-clockwise (mathematical sense)."""
     a = math.radians(angle_deg)
     steps = max(1, int(length * 2))
@@ -40,7 +42,10 @@ def _ray(grid: list[list[str]], cx: int, cy: int, angle_deg: float, length: floa
 
 
 def phasor_canvas(
-    v: dict[str, tuple[float, float]], i: dict[str, tuple[float, float]], width: int = 31, height: int = 13
+    v: dict[str, tuple[float, float]],
+    i: dict[str, tuple[float, float]],
+    width: int = 31,
+    height: int = 13,
 ) -> list[str]:
     """Rows of the diagram. ``v``/``i`` map phase -> (magnitude, angle in degrees)."""
     grid = [[" "] * width for _ in range(height)]
@@ -62,7 +67,9 @@ def phasor_canvas(
     return ["".join(row) for row in grid]
 
 
-def phasor_text(profile: Profile, meter_id: str, block: MeterBlock | None, width: int = 31, height: int = 11) -> Text:
+def phasor_text(
+    profile: Profile, meter_id: str, block: MeterBlock | None, width: int = 31, height: int = 11
+) -> Text:
     out = Text()
     meter = profile.meter(meter_id)
     out.append(f"{meter_id} {meter.label}\n", style="bold")
@@ -81,11 +88,17 @@ def phasor_text(profile: Profile, meter_id: str, block: MeterBlock | None, width
             mi, ai = i[p]
             out.append(f"V{p}{eng(mv, 'V', 7)}{_deg(av)} I{p.lower()}{eng(mi, 'A', 8)}{_deg(ai)}\n")
     else:
-        out.append(f"map {rmap.id} has no angle registers: no phasor diagram.\n", style="bold yellow")
+        out.append(
+            f"map {rmap.id} has no angle registers: no phasor diagram.\n", style="bold yellow"
+        )
         out.append("current-to-voltage angle per phase from P and Q (reversed CT ~ 180 deg):\n")
         for p in PHASES:
             pw, qv = block.get(f"p.{p}"), block.get(f"q.{p}")
-            phi = math.degrees(math.atan2(qv, pw)) if math.isfinite(pw) and math.isfinite(qv) else math.nan
+            phi = (
+                math.degrees(math.atan2(qv, pw))
+                if math.isfinite(pw) and math.isfinite(qv)
+                else math.nan
+            )
             out.append(f"  phase {p}: {eng(block.get(f'i.{p}'), 'A', 9)}  phi {_deg(phi)}\n")
     return out
 

@@ -29,7 +29,16 @@ COMM_TEXT = {
     CommState.OFFLINE: "\u2298 offline",
 }
 # (header, width) of each column after the selection marker
-COLUMNS = (("meter", 6), ("comm", 10), ("V LL", 9), ("I", 8), ("P", 9), ("Q", 10), ("PF", 6), ("f", 9))
+COLUMNS = (
+    ("meter", 6),
+    ("comm", 10),
+    ("V LL", 9),
+    ("I", 8),
+    ("P", 9),
+    ("Q", 10),
+    ("PF", 6),
+    ("f", 9),
+)
 
 _HEADER = Style(bold=True, underline=True)
 _NORMAL = Style()
@@ -48,12 +57,17 @@ def _mean(block: MeterBlock, keys: tuple[str, ...]) -> float:
     return sum(vals) / len(vals) if vals else math.nan
 
 
-def row_cells(profile: Profile, meter_id: str, block: MeterBlock | None, mode: UnitMode) -> tuple[str, ...]:
+def row_cells(
+    profile: Profile, meter_id: str, block: MeterBlock | None, mode: UnitMode
+) -> tuple[str, ...]:
     """The text of one row: meter, comm state, V, I, P, Q, PF, f (fixed widths)."""
     widths = [w for _, w in COLUMNS]
     if block is None:
         cells = [meter_id, "no data"] + ["--"] * 6
-        return tuple(c.rjust(w) if i > 1 else c.ljust(w) for i, (c, w) in enumerate(zip(cells, widths, strict=True)))
+        return tuple(
+            c.rjust(w) if i > 1 else c.ljust(w)
+            for i, (c, w) in enumerate(zip(cells, widths, strict=True))
+        )
     bus = profile.meter(meter_id).bus
 
     def show(key: str, value: float, width: int) -> str:
@@ -87,7 +101,9 @@ class ReadingsGrid(Widget, can_focus=True):
             self.meter_id = meter_id
             super().__init__()
 
-    def __init__(self, profile: Profile, *, id: str | None = None, classes: str | None = None) -> None:
+    def __init__(
+        self, profile: Profile, *, id: str | None = None, classes: str | None = None
+    ) -> None:
         super().__init__(id=id, classes=classes)
         self.profile = profile
         self.meter_ids = [m.id for m in profile.meters]
@@ -161,8 +177,12 @@ class ReadingsGrid(Widget, can_focus=True):
         if y == 0:
             key = ("header", width, self.mode)
             if key not in self._strips:
-                text = "  " + " ".join(h.rjust(w) if i > 1 else h.ljust(w) for i, (h, w) in enumerate(COLUMNS))
-                self._strips[key] = Strip([Segment(text[:width], _HEADER)]).extend_cell_length(width)
+                text = "  " + " ".join(
+                    h.rjust(w) if i > 1 else h.ljust(w) for i, (h, w) in enumerate(COLUMNS)
+                )
+                self._strips[key] = Strip([Segment(text[:width], _HEADER)]).extend_cell_length(
+                    width
+                )
             return self._strips[key]
         idx = self.top + y - 1
         if idx >= len(self.meter_ids):
@@ -179,12 +199,19 @@ class ReadingsGrid(Widget, can_focus=True):
         return strip
 
     @staticmethod
-    def _build(cells: tuple[str, ...], state: CommState | None, selected: bool, width: int) -> Strip:
+    def _build(
+        cells: tuple[str, ...], state: CommState | None, selected: bool, width: int
+    ) -> Strip:
         base = _SELECTED if selected else _NORMAL
         dim = state in (CommState.FAILING, CommState.OFFLINE)
         value_style = base + Style(dim=True) if dim else base
-        comm_style = base + _COMM_STYLE.get(state, Style(dim=True)) if state else base + Style(dim=True)
-        segs = [Segment("\u25b6 " if selected else "  ", base), Segment(cells[0], base + Style(bold=True))]
+        comm_style = (
+            base + _COMM_STYLE.get(state, Style(dim=True)) if state else base + Style(dim=True)
+        )
+        segs = [
+            Segment("\u25b6 " if selected else "  ", base),
+            Segment(cells[0], base + Style(bold=True)),
+        ]
         segs.append(Segment(" ", base))
         segs.append(Segment(cells[1], comm_style))
         for c in cells[2:]:

@@ -40,7 +40,11 @@ def step_detail(step: StepInfo | None) -> Text:
         flagged = set(step.mismatches)
         good = [sw for sw, want in step.expected.items() if step.actual.get(sw, "unknown") == want]
         on_word = [sw for sw in step.expected if sw not in good and sw not in flagged]
-        unread = [sw for sw in step.expected if sw in flagged and step.actual.get(sw, "unknown") == "unknown"]
+        unread = [
+            sw
+            for sw in step.expected
+            if sw in flagged and step.actual.get(sw, "unknown") == "unknown"
+        ]
         wrong = [sw for sw in step.expected if sw in flagged and sw not in unread]
         if good:
             out.append("\u2714 as expected: ", style="green")
@@ -48,21 +52,29 @@ def step_detail(step: StepInfo | None) -> Text:
         for sw in wrong:
             if step.state == "waiting" and sw in step.to_operate:  # not done yet, not wrong
                 out.append("\u2192 TO OPERATE", style="bold reverse")
-                out.append(f" {sw}: reads {step.actual[sw]}, this step sets it {step.expected[sw]}\n")
+                out.append(
+                    f" {sw}: reads {step.actual[sw]}, this step sets it {step.expected[sw]}\n"
+                )
                 continue
             out.append("\u2718 MISMATCH", style="bold white on red")
             out.append(f" {sw}: expected {step.expected[sw]}, reads {step.actual[sw]}\n")
         if unread:
             out.append("? STATUS NOT READ", style="bold black on yellow")
-            out.append(" " + ", ".join(f"{sw} (expected {step.expected[sw]})" for sw in unread)
-                       + ": no answer from the PLC; check the PLC and its link\n")
+            out.append(
+                " "
+                + ", ".join(f"{sw} (expected {step.expected[sw]})" for sw in unread)
+                + ": no answer from the PLC; check the PLC and its link\n"
+            )
         if on_word:
             out.append("\u2022 no status point, on your word: ", style="dim")
             out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in on_word) + "\n")
     if step.hint:
         out.append(step.hint + "\n", style="italic")
     if step.remote_switches:
-        out.append("remote operation available: " + ", ".join(step.remote_switches) + " (press r)\n", style="bold")
+        out.append(
+            "remote operation available: " + ", ".join(step.remote_switches) + " (press r)\n",
+            style="bold",
+        )
     return out
 
 

@@ -78,13 +78,17 @@ def trend_text(
     out.append(f"\n{eng(last, unit, 0).strip()}", style="bold")
     finite = [v for v in values if math.isfinite(v)]
     if finite:
-        out.append(f"  lo {eng(min(finite), unit, 0).strip()}  hi {eng(max(finite), unit, 0).strip()}")
+        out.append(
+            f"  lo {eng(min(finite), unit, 0).strip()}  hi {eng(max(finite), unit, 0).strip()}"
+        )
     out.append("\n")
     for row in trend_rows(values, height):
         out.append(row + "\n", style="cyan")
     first_win = in_window.index(True) if any(in_window) else len(shown)
     n_win = len(shown) - first_win
-    axis = "\u2500" * first_win + ("\u2514" + "\u2500" * max(n_win - 2, 0) + "\u2518" if n_win >= 2 else "\u2502" * n_win)
+    axis = "\u2500" * first_win + (
+        "\u2514" + "\u2500" * max(n_win - 2, 0) + "\u2518" if n_win >= 2 else "\u2502" * n_win
+    )
     out.append(axis, style="dim")
     pct = "--" if not math.isfinite(spread) else f"{spread * 100:.2f} %"
     out.append(f"\n\u2514\u2518 settle window {window_s:g} s: spread {pct}\n", style="bold")
@@ -99,7 +103,9 @@ class TrendView(Static):
         self.profile = profile
         self._last: str | None = None
 
-    def show(self, meter_id: str, key: str, samples, window_s: float, mode: UnitMode, width: int = 48) -> None:
+    def show(
+        self, meter_id: str, key: str, samples, window_s: float, mode: UnitMode, width: int = 48
+    ) -> None:
         text = trend_text(self.profile, meter_id, key, samples, window_s, mode, width=max(width, 8))
         if text.plain != self._last:
             self._last = text.plain
