@@ -403,9 +403,12 @@ def test_not_a_dataset_and_cli_exit_codes(
 def test_cli_export_in_a_real_process(exported: tuple[Path, Path], tmp_path: Path) -> None:
     journal, _ = exported
     out = tmp_path / "cli-ds"
-    run = lambda *a: subprocess.run(
-        [sys.executable, "-m", "meas.cli", *a], capture_output=True, text=True, timeout=60
-    )  # noqa: E731
+
+    def run(*a):
+        return subprocess.run(
+            [sys.executable, "-m", "meas.cli", *a], capture_output=True, text=True, timeout=60
+        )
+
     first = run("export", str(journal), "--out", str(out))
     assert first.returncode == 0, first.stderr
     assert f"dataset written: {out}" in first.stdout

@@ -132,13 +132,16 @@ def test_demo_on_a_full_disk_stops_with_one_line_and_resumes_after_space_is_free
     with tmpfs(tmp_path / "disk", "3m") as disk:
         sessions = disk / "sessions"
         sessions.mkdir()
-        run = lambda *a: subprocess.run(
-            [sys.executable, "-m", "meas.cli", *a],
-            capture_output=True,  # noqa: E731
-            text=True,
-            timeout=120,
-            cwd=ROOT,
-        )
+
+        def run(*a):
+            return subprocess.run(
+                [sys.executable, "-m", "meas.cli", *a],
+                capture_output=True,
+                text=True,
+                timeout=120,
+                cwd=ROOT,
+            )
+
         proc = subprocess.Popen(
             [
                 sys.executable,
