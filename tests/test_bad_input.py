@@ -1,7 +1,7 @@
 """Bad input from the outside world: fuzzed dataset folders and malformed fault strings.
 
 A dataset folder may come from anyone, edited by hand or damaged in transit. Whatever it
-holds, ``benchwalk check`` and ``benchwalk report`` (through ``meas.cli.main``) answer with
+holds, ``benchwalk check`` and ``benchwalk report`` (through ``tui.cli.main``) answer with
 their normal result or exit 2 with one line, and never a traceback. The fuzzer also "re-seals"
 its damage (new sha256 and size in datapackage.json, as a careless editor or a hostile sender
 would) so the damage gets past the integrity check into the code that reads the tables.
@@ -26,10 +26,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_dataset import build_session  # noqa: E402
 from test_runner import write_bench  # noqa: E402
 
-from meas import cli  # noqa: E402
 from meas.dataset import TABLES, export_session  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
+from tui import cli  # noqa: E402
 
 
 @pytest.fixture(scope="module")

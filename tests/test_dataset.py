@@ -22,11 +22,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from meas import cli
 from meas.dataset import TABLES, compare_checks, export_session, load_dataset, write_collection
 from meas.errors import BenchwalkError
 from meas.journal import Journal
 from meas.results import CheckResult, Status
+from tui import cli
 
 sys.path.insert(0, str(Path(__file__).parent))
 from test_journal import KEYS, make_bench, make_snapshot  # noqa: E402
@@ -406,7 +406,7 @@ def test_cli_export_in_a_real_process(exported: tuple[Path, Path], tmp_path: Pat
 
     def run(*a):
         return subprocess.run(
-            [sys.executable, "-m", "meas.cli", *a], capture_output=True, text=True, timeout=60
+            [sys.executable, "-m", "tui.cli", *a], capture_output=True, text=True, timeout=60
         )
 
     first = run("export", str(journal), "--out", str(out))

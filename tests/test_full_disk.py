@@ -26,10 +26,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_journal import make_bench, make_snapshot  # noqa: E402
 from test_runner import FAST_CAPTURE, write_bench  # noqa: E402
 
-from meas import cli  # noqa: E402
 from meas.dataset import export_session, verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
 from meas.journal import Journal, JournalWriteError  # noqa: E402
+from tui import cli  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -135,7 +135,7 @@ def test_demo_on_a_full_disk_stops_with_one_line_and_resumes_after_space_is_free
 
         def run(*a):
             return subprocess.run(
-                [sys.executable, "-m", "meas.cli", *a],
+                [sys.executable, "-m", "tui.cli", *a],
                 capture_output=True,
                 text=True,
                 timeout=120,
@@ -146,7 +146,7 @@ def test_demo_on_a_full_disk_stops_with_one_line_and_resumes_after_space_is_free
             [
                 sys.executable,
                 "-m",
-                "meas.cli",
+                "tui.cli",
                 "demo",
                 "--headless",
                 "--profile",

@@ -26,7 +26,7 @@ ROOT = Path(__file__).resolve().parents[1]
 
 def benchwalk(*args: str, stdin: str | None = None, timeout: float = 120.0, env=None):
     return subprocess.run(
-        [sys.executable, "-m", "meas.cli", *args],
+        [sys.executable, "-m", "tui.cli", *args],
         input=stdin,
         capture_output=True,
         text=True,
@@ -55,7 +55,7 @@ def demo_runs(tmp_path_factory):
         cmd = [
             sys.executable,
             "-m",
-            "meas.cli",
+            "tui.cli",
             "demo",
             "--headless",
             "--out",
@@ -97,7 +97,7 @@ def test_bad_profile_is_one_line_and_exit_2(tmp_path):
 
 async def _walk(session: Session, steps: int) -> None:
     """The simulated technician walks ``steps`` steps, then the session is stopped."""
-    from meas.commands.demo import SimTechnician
+    from tui.commands.demo import SimTechnician
 
     tech = SimTechnician(session.bench, out=io.StringIO())
     r = session.runner

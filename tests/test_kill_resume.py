@@ -31,7 +31,7 @@ SAVED = re.compile(r"^saved snapshot (\d+) ")
 
 def start(args: list[str]) -> tuple[subprocess.Popen, list[int], threading.Event, threading.Thread]:
     proc = subprocess.Popen(
-        [sys.executable, "-m", "meas.cli", *args],
+        [sys.executable, "-m", "tui.cli", *args],
         cwd=ROOT,
         stdout=subprocess.PIPE,
         stderr=subprocess.STDOUT,
@@ -108,7 +108,7 @@ def test_sigkill_at_random_moments_loses_nothing_and_resume_completes(tmp_path):
         [
             sys.executable,
             "-m",
-            "meas.cli",
+            "tui.cli",
             "resume",
             str(journal_path),
             "--headless",

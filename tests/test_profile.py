@@ -25,10 +25,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from meas import cli
 from meas.errors import ProfileError
 from meas.model import CapturePolicy, RtuTransport, SettleCriterion
 from meas.profile import format_path, lint_profile, load_profile, locate_keys
+from tui import cli
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "profiles_demo" / "feeder_bench.toml"
@@ -798,7 +798,7 @@ def test_unreadable_profiles_give_one_line(tmp_path, capsys, kind):
 
 def test_other_commands_print_profile_errors_through_cli(tmp_path, monkeypatch, capsys):
     """A subcommand that loads a bad profile: cli.main prints the problem lines, exit 2."""
-    probe = types.ModuleType("meas.commands._profile_probe")
+    probe = types.ModuleType("tui.commands._profile_probe")
     probe.HELP = "load a profile"
     probe.add_arguments = lambda parser: parser.add_argument("profile")
     probe.main = lambda args: len(load_profile(args.profile).meters) and 0

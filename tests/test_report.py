@@ -16,11 +16,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from meas import cli
 from meas.dataset import compare_checks, export_session, load_dataset, recheck
 from meas.journal import Journal
 from meas.report import CAUTION, write_report
 from meas.results import overall
+from tui import cli
 
 checks_mod = pytest.importorskip("meas.checks")
 sim_meters = pytest.importorskip("meas.sim.meters")

@@ -39,7 +39,6 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_runner import FAST_CAPTURE, write_bench  # noqa: E402
 from write_recorder import WRITE_FC, parse_pdu, recording_profile  # noqa: E402
 
-from meas import cli  # noqa: E402
 from meas.control import ControlRefused, SwitchControl  # noqa: E402
 from meas.dataset import export_session, remove_stale_exports, verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError, ProfileError  # noqa: E402
@@ -48,6 +47,7 @@ from meas.poller import Poller  # noqa: E402
 from meas.profile import check_profile, load_profile  # noqa: E402
 from meas.sim.bench import WRITE_LOG_ENV, SimulatedBench  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
+from tui import cli  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "profiles_demo" / "feeder_bench.toml"
@@ -360,7 +360,7 @@ def test_headless_demo_writes_only_confirmed_command_coils(tmp_path):
         [
             sys.executable,
             "-m",
-            "meas.cli",
+            "tui.cli",
             "demo",
             "--headless",
             "--profile",
@@ -431,7 +431,7 @@ def test_simulated_bench_listens_on_loopback_only(tmp_path):
 def test_benchwalk_sim_command_listens_on_loopback_only(tmp_path):
     profile = write_bench(tmp_path)
     proc = subprocess.Popen(
-        [sys.executable, "-m", "meas.cli", "sim", str(profile), "--free-ports"],
+        [sys.executable, "-m", "tui.cli", "sim", str(profile), "--free-ports"],
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,

@@ -350,7 +350,7 @@ def test_cli_sim_prints_endpoints_and_stops_on_ctrl_c(tmp_path):
         [
             sys.executable,
             "-m",
-            "meas.cli",
+            "tui.cli",
             "sim",
             str(DEMO),
             "--free-ports",
@@ -396,7 +396,7 @@ def test_cli_sim_prints_endpoints_and_stops_on_ctrl_c(tmp_path):
 
 
 def test_cli_sim_bad_fault_is_one_line_exit_2(capsys):
-    from meas.cli import main
+    from tui.cli import main
 
     assert main(["sim", str(DEMO), "--fault", "offline:M9"]) == 2
     err = capsys.readouterr().err

@@ -147,7 +147,7 @@ def run_console(
 ) -> int:
     """Run the console on a profile with the simulated bench; returns the exit code.
 
-    ``profile=`` and ``demo=`` are accepted as aliases from ``meas.commands.demo``.
+    ``profile=`` and ``demo=`` are accepted as aliases from ``tui.commands.demo``.
     """
     from .launch import make_factory  # the session wiring; kept apart so tests can pass their own
 

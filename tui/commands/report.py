@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..report import write_report
+from meas.report import write_report
 
 HELP = "write the commissioning report (self-contained HTML and Markdown) of a dataset"
 

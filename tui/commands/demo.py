@@ -14,9 +14,10 @@ import sys
 from pathlib import Path
 from typing import TextIO
 
-from ..errors import BenchwalkError
-from ..runner import Runner, RunnerView
-from ..session import SIM_OPERATOR, Session
+from meas.errors import BenchwalkError
+from meas.runner import Runner, RunnerView
+from meas.session import SIM_OPERATOR, Session
+
 from .run import CAUTION, add_common, drive, finish, saved_printer
 
 HELP = "run the demo feeder bench on the simulated bench (console, or --headless end to end)"

@@ -14,9 +14,9 @@ from rich.console import Console
 from rich.live import Live
 from rich.table import Table
 
-from ..poller import Poller
-from ..profile import load_profile
-from ..snapshot import MeterBlock, Snapshot
+from meas.poller import Poller
+from meas.profile import load_profile
+from meas.snapshot import MeterBlock, Snapshot
 
 HELP = "poll the profile's meters and show V, I, P, Q, PF, f and comm state (read-only)"
 

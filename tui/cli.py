@@ -1,6 +1,6 @@
 """The ``benchwalk`` command: parses arguments and hands over to one module per subcommand.
 
-Each module in ``meas.commands`` exposes ``HELP`` (one line), ``add_arguments(parser)`` and
+Each module in ``tui.commands`` exposes ``HELP`` (one line), ``add_arguments(parser)`` and
 ``main(args) -> int``. Errors a user can cause arrive here as ``BenchwalkError`` and leave as
 one line on stderr with exit code 2 (or the error's own code), never a traceback.
 """
@@ -11,9 +11,9 @@ import argparse
 import importlib
 import sys
 
-from .errors import BenchwalkError
+from meas.errors import BenchwalkError
 
-# subcommand -> module in meas.commands (imported lazily so `benchwalk lint` stays quick)
+# subcommand -> module in tui.commands (imported lazily so `benchwalk lint` stays quick)
 COMMANDS: dict[str, str] = {
     "lint": "lint",
     "plan": "plan",
@@ -29,7 +29,7 @@ COMMANDS: dict[str, str] = {
 
 
 def _load(name: str):
-    return importlib.import_module(f"meas.commands.{COMMANDS[name]}")
+    return importlib.import_module(f"tui.commands.{COMMANDS[name]}")
 
 
 def build_parser(only: str | None = None) -> argparse.ArgumentParser:
@@ -45,7 +45,7 @@ def build_parser(only: str | None = None) -> argparse.ArgumentParser:
         try:
             mod = _load(name)
         except ModuleNotFoundError as exc:
-            if exc.name and exc.name.startswith("meas.commands"):
+            if exc.name and exc.name.startswith("tui.commands"):
                 continue  # subcommand not built into this version
             raise
         p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)

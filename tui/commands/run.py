@@ -16,10 +16,10 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import TextIO
 
-from ..errors import BenchwalkError
-from ..results import Status
-from ..runner import Runner, RunnerView, State
-from ..session import Session
+from meas.errors import BenchwalkError
+from meas.results import Status
+from meas.runner import Runner, RunnerView, State
+from meas.session import Session
 
 HELP = "walk a bench through its switching sequence headless, confirming steps on standard input"
 

@@ -11,9 +11,9 @@ import argparse
 from rich.console import Console
 from rich.table import Table
 
-from ..model import RtuTransport
-from ..plan import naive_request_count, plan_profile, rtu_cycle_time_s
-from ..profile import load_profile
+from meas.model import RtuTransport
+from meas.plan import naive_request_count, plan_profile, rtu_cycle_time_s
+from meas.profile import load_profile
 
 HELP = "show the poll plan: read requests, registers and RTU bus time per meter"
 

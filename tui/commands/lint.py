@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import argparse
 
-from ..profile import check_profile
+from meas.profile import check_profile
 
 HELP = "check a bench profile and its sequence file; list every problem"
 

@@ -12,7 +12,8 @@ import asyncio
 import sys
 from pathlib import Path
 
-from ..session import SIM_OPERATOR, Session
+from meas.session import SIM_OPERATOR, Session
+
 from .demo import SimTechnician, start_console
 from .run import CAUTION, PromptTechnician, add_common, drive, finish, saved_printer
 

@@ -49,9 +49,9 @@ def _print_endpoints(bench, profile_path: str) -> None:
 
 
 async def _serve(args: argparse.Namespace) -> int:
-    from ..profile import load_profile
-    from ..sim.bench import SimulatedBench
-    from ..sim.faults import parse_faults
+    from meas.profile import load_profile
+    from meas.sim.bench import SimulatedBench
+    from meas.sim.faults import parse_faults
 
     profile = load_profile(args.profile)
     faults = parse_faults(args.fault)
