@@ -15,15 +15,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .cautions import REPORT_CAUTION as CAUTION
 from .dataset import Dataset, load_dataset, read_table, terminal_progress
 from .errors import BenchwalkError
-
-CAUTION = (
-    "Switching and measuring on energized equipment is for qualified persons only. Follow the "
-    "site's switching procedures and lockout/tagout rules; local codes and licensed practice "
-    "prevail over anything in this report. benchwalk records and checks readings: it is not an "
-    "interlock and does not make any operation safe."
-)
 
 # quantity keys summarized per meter and step: (column title, unit, keys averaged per snapshot)
 KEY_READINGS = [

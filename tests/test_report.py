@@ -16,9 +16,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from meas.cautions import REPORT_CAUTION as CAUTION
 from meas.dataset import compare_checks, export_session, load_dataset, recheck
 from meas.journal import Journal
-from meas.report import CAUTION, write_report
+from meas.report import write_report
 from meas.results import overall
 from tui import cli
 

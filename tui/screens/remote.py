@@ -11,11 +11,7 @@ from textual.events import Key
 from textual.screen import ModalScreen
 from textual.widgets import Label, Static
 
-CAUTION = (
-    "CAUTION: this sends a real command to the controller. Operating plant is your site's "
-    "switching procedure, not this tool's: make sure the switching programme allows it, the "
-    "area is clear and lockout/tagout is respected. This tool is no interlock."
-)
+from meas.cautions import REMOTE_COMMAND_CAUTION
 
 
 class RemoteConfirm(ModalScreen[bool]):
@@ -45,7 +41,7 @@ class RemoteConfirm(ModalScreen[bool]):
             if self.question:
                 t.append(self.question + "\n")
             yield Static(t)
-            yield Static(CAUTION, classes="caution")
+            yield Static(REMOTE_COMMAND_CAUTION, classes="caution")
             yield Static("", id="remote-keys", classes="modal-keys")
 
     def on_mount(self) -> None:

@@ -8,15 +8,7 @@ from textual.containers import Vertical, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Label, Static
 
-CAUTION_TEXT = """\
-This console records meter readings while a network is switched. Switching live plant can kill.
-
-\u2022 Qualified persons only: work only on equipment you are trained, authorised and fit to operate.
-\u2022 The site's switching procedures, permits and lockout/tagout govern every operation; the sequence shown here is a measurement plan, not a switching programme.
-\u2022 Local codes, regulations and licensed practice prevail over anything this tool says.
-\u2022 This tool is no interlock and does not replace one. It may read wrong, late or not at all; prove dead with approved test equipment, never with this screen.
-\u2022 Remote commands are sent only when the profile enables control and you confirm each one.
-"""
+from meas.cautions import SAFETY_ACKNOWLEDGEMENT
 
 
 class SafetyScreen(Screen[bool]):
@@ -28,7 +20,7 @@ class SafetyScreen(Screen[bool]):
         with Vertical(id="safety-box"):
             yield Label("\u26a0  SAFETY  \u26a0", id="safety-title")
             with VerticalScroll():
-                yield Static(CAUTION_TEXT, id="safety-text")
+                yield Static(SAFETY_ACKNOWLEDGEMENT, id="safety-text")
             yield Static(
                 "Press Y to acknowledge and continue.   Ctrl+Q to leave.", id="safety-keys"
             )
