@@ -97,7 +97,7 @@ def test_bad_profile_is_one_line_and_exit_2(tmp_path):
 
 async def _walk(session: Session, steps: int) -> None:
     """The simulated technician walks ``steps`` steps, then the session is stopped."""
-    from tui.commands.demo import SimTechnician
+    from tui.commands.technicians import SimTechnician
 
     tech = SimTechnician(session.bench, out=io.StringIO())
     r = session.runner

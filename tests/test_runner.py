@@ -492,7 +492,7 @@ async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(
 ):
     import io
 
-    from tui.commands.run import summarize
+    from tui.commands.headless import summarize
 
     s = await make_session(ONE_STEP, name=decision)
     r = s.runner
@@ -517,8 +517,8 @@ async def test_the_demo_technician_gives_up_on_a_silent_plc_and_the_run_ends_inc
 ):
     import io
 
-    from tui.commands.demo import SimTechnician
-    from tui.commands.run import drive
+    from tui.commands.headless import drive
+    from tui.commands.technicians import SimTechnician
 
     sequence = ONE_STEP + TEST_SEQUENCE.split("[[step]]", 3)[2].join(
         ["[[step]]", ""]
@@ -603,8 +603,8 @@ async def test_a_remote_first_step_runs_headless_to_a_pass(make_session):
     # drive() and the demo technician both wait for the first poll: before it no status is known
     import io
 
-    from tui.commands.demo import SimTechnician
-    from tui.commands.run import drive
+    from tui.commands.headless import drive
+    from tui.commands.technicians import SimTechnician
 
     remote_first = TEST_SEQUENCE.split("[[step]]", 3)[2].join(
         ["[[step]]", ""]

@@ -10,113 +10,18 @@ from __future__ import annotations
 
 import argparse
 import asyncio
-import sys
 from pathlib import Path
-from typing import TextIO
 
-from meas.errors import BenchwalkError
-from meas.runner import Runner, RunnerView
+from meas.cautions import HEADLESS_CAUTION
 from meas.session import SIM_OPERATOR, Session
 
-from .run import CAUTION, add_common, drive, finish, saved_printer
+from .common import add_common, saved_printer, start_console
+from .headless import walk
+from .technicians import SimTechnician
 
 HELP = "run the demo feeder bench on the simulated bench (console, or --headless end to end)"
 
 DEMO_PROFILE = Path(__file__).resolve().parents[2] / "profiles_demo" / "feeder_bench.toml"
-
-
-class SimTechnician:
-    """Answers every prompt the way a careful technician would, on the simulated bench.
-
-    Failing reviews: one retake, then a gate-allow step is accepted with a recorded reason
-    and a gate-block step is skipped with a reason, so the run ends and exits 1. A step whose
-    switch status cannot be verified (a silent PLC) is tried ``attempts`` times, then skipped
-    with the runner's last message as the reason.
-    """
-
-    def __init__(
-        self,
-        bench,
-        operator: str = SIM_OPERATOR,
-        retakes: int = 1,
-        out: TextIO = sys.stdout,
-        attempts: int = 3,
-    ):
-        self.bench, self.operator, self.retakes, self.out = bench, operator, retakes, out
-        self.attempts = attempts
-        self._retaken: dict[str, int] = {}
-        self._tried: dict[str, int] = {}
-
-    def _give_up(self, runner: Runner, view: RunnerView) -> bool:
-        """True (and the step skipped) once this step has been tried ``attempts`` times."""
-        n = self._tried[view.step.id] = self._tried.get(view.step.id, 0) + 1
-        if n <= self.attempts:
-            return False
-        print(
-            f"  switch status still not as expected after {self.attempts} tries: skipping",
-            file=self.out,
-        )
-        runner.skip(
-            f"{self.operator}: gave up after {self.attempts} tries: {view.message or 'switch status not verified'}"
-        )
-        return True
-
-    def _set_by_hand(self, runner: Runner, view: RunnerView, keep: set[str] = frozenset()) -> None:
-        for sid in view.mismatches:
-            if sid not in keep:
-                self.bench.operate_by_hand(sid, view.expected[sid])
-                print(
-                    f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
-                    file=self.out,
-                )
-
-    async def act(self, runner: Runner, view: RunnerView) -> None:
-        a, step = view.action, view.step
-        if step is None or a in ("wait", "none") or not view.polled:
-            return  # nothing to do, or no switch status read yet: wait for the first poll
-        if a == "confirm_operation":
-            if self._give_up(runner, view):
-                return
-            self._set_by_hand(runner, view)
-            runner.confirm_operation()
-        elif a == "capture":
-            if self._give_up(runner, view):
-                return
-            self._set_by_hand(runner, view)
-            runner.capture()
-        elif a == "request_remote":
-            self._set_by_hand(runner, view, keep={s for s, _ in view.remote_todo})
-            sid, state = view.remote_todo[0]
-            try:
-                question = runner.request_remote(sid, state)
-            except BenchwalkError as exc:  # refused (e.g. status unreadable): nothing was sent
-                print(f"  remote command refused: {exc}; skipping", file=self.out)
-                runner.skip(f"{self.operator}: remote command not sent: {exc}")
-                return
-            print(f"  {question} yes ({self.operator})", file=self.out)
-            await runner.confirm_remote(sid, state, self.operator)
-        elif a == "accept":
-            runner.accept()
-        elif a == "sign":
-            runner.sign(self.operator)
-        elif a == "note":
-            runner.note(f"{self.operator}: nothing unusual on the simulated bench")
-        elif a in ("retake", "accept_with_reason"):
-            if view.settle_timed_out and view.state.value == "settling":
-                runner.capture()  # journalled as captured before the readings settled
-                return
-            n = self._retaken.get(step.id, 0)
-            if n < self.retakes:
-                self._retaken[step.id] = n + 1
-                print("  checks failed: retaking", file=self.out)
-                runner.retake()
-            elif a == "accept_with_reason":
-                runner.accept(
-                    f"{self.operator}: checks still failing after {n} retake(s); "
-                    "accepted for the record (gate allow)"
-                )
-            else:
-                runner.skip(f"{self.operator}: checks still failing after {n} retake(s)")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -139,7 +44,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 async def _headless(args: argparse.Namespace) -> int:
     operator = args.operator or SIM_OPERATOR
-    print(CAUTION, flush=True)
+    print(HEADLESS_CAUTION, flush=True)
     session = await Session.new(
         args.profile,
         operator,
@@ -151,23 +56,7 @@ async def _headless(args: argparse.Namespace) -> int:
         live_checks=False,
     )
     print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
-    try:
-        code = await drive(session, SimTechnician(session.bench, SIM_OPERATOR))
-    except BaseException:
-        await session.close()
-        raise
-    return await finish(session, code, args.out, sys.stdout)
-
-
-def start_console(**kwargs) -> int:
-    """Start the console (``tui.app``), imported only here so the core stays headless."""
-    try:
-        from tui.app import run_console
-    except ImportError as exc:
-        raise BenchwalkError(
-            f"the console is not available in this build ({exc}); use --headless"
-        ) from None
-    return int(run_console(**kwargs) or 0)
+    return await walk(session, SimTechnician(session.bench, SIM_OPERATOR), args.out)
 
 
 def main(args: argparse.Namespace) -> int:

@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import argparse
 import asyncio
-import sys
 from pathlib import Path
 
+from meas.cautions import HEADLESS_CAUTION
 from meas.session import SIM_OPERATOR, Session
 
-from .demo import SimTechnician, start_console
-from .run import CAUTION, PromptTechnician, add_common, drive, finish, saved_printer
+from .common import add_common, saved_printer, start_console
+from .headless import walk
+from .technicians import PromptTechnician, SimTechnician, Technician
 
 HELP = "continue a session at the step where it stopped"
 
@@ -38,7 +39,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 async def _headless(args: argparse.Namespace) -> int:
-    print(CAUTION, flush=True)
+    print(HEADLESS_CAUTION, flush=True)
     session = await Session.resume(
         args.session,
         allow_changed_profile=args.allow_changed_profile,
@@ -54,16 +55,12 @@ async def _headless(args: argparse.Namespace) -> int:
         f"{'the end' if step is None else f'step {step.id}'}",
         flush=True,
     )
-    try:
-        if session.bench is not None:
-            tech = SimTechnician(session.bench, SIM_OPERATOR)
-        else:
-            tech = PromptTechnician(session.runner.operator)
-        code = await drive(session, tech)
-    except BaseException:
-        await session.close()
-        raise
-    return await finish(session, code, args.out, sys.stdout)
+    tech: Technician
+    if session.bench is not None:
+        tech = SimTechnician(session.bench, SIM_OPERATOR)
+    else:
+        tech = PromptTechnician(session.runner.operator)
+    return await walk(session, tech, args.out)
 
 
 def main(args: argparse.Namespace) -> int:

@@ -1,0 +1,190 @@
+"""Who answers the runner in a headless walk: a person typing at prompts, or the simulated technician.
+
+Both answer what the runner's view asks for (``act``), one action per call; the drive loop in
+``headless`` calls them until the sequence ends or the technician stops.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import sys
+from collections.abc import Collection
+from typing import Protocol, TextIO, cast
+
+from meas.errors import BenchwalkError
+from meas.model import SwitchState
+from meas.runner import Runner, RunnerView
+from meas.session import SIM_OPERATOR
+
+
+class Technician(Protocol):
+    """Answers the runner's current view with one action (or none, to wait for the next view)."""
+
+    async def act(self, runner: Runner, view: RunnerView) -> None: ...
+
+
+class Hands(Protocol):
+    """The simulated bench's switch panel: operating a switch by hand, not by a Modbus write."""
+
+    def operate_by_hand(self, switch_id: str, state: SwitchState) -> None: ...
+
+
+class PromptTechnician:
+    """A person at the bench answering typed prompts; end of input stops the session."""
+
+    def __init__(self, operator: str, inp: TextIO = sys.stdin, out: TextIO = sys.stdout):
+        self.operator, self.inp, self.out = operator, inp, out
+
+    async def _ask(self, prompt: str) -> str | None:
+        print(prompt, end="", file=self.out, flush=True)
+        line = await asyncio.to_thread(self.inp.readline)
+        return None if line == "" else line.strip()
+
+    async def act(self, runner: Runner, view: RunnerView) -> None:
+        a = view.action
+        if a in ("wait", "none"):
+            return
+        if view.message:
+            print(f"  ! {view.message}", file=self.out)
+        if a == "request_remote":
+            sid, state = view.remote_todo[0]
+            question = runner.request_remote(sid, state)
+            answer = await self._ask(f"  {question} [yes/skip REASON/stop] ")
+            if answer is None or answer == "stop":
+                return runner.stop("stopped at the prompt")
+            if answer.lower() in ("y", "yes"):
+                return await runner.confirm_remote(sid, state, self.operator)
+            return self._other(runner, answer)
+        prompts = {
+            "confirm_operation": "  Operate as instructed, then type 'done'",
+            "capture": "  Check the bench is as instructed, then type 'capture'",
+            "accept": "  Checks passed: type 'accept' (or 'retake')",
+            "accept_with_reason": "  Checks failed: 'accept REASON', 'retake' or 'skip REASON'",
+            "retake": "  'retake', 'capture' (anyway, if not settled) or 'skip REASON'",
+            "sign": "  Hold point: type 'sign NAME'",
+            "note": "  Type 'note TEXT'",
+        }
+        answer = await self._ask(prompts[a] + " [or 'stop']: ")
+        if answer is None or answer == "stop":
+            return runner.stop("stopped at the prompt")
+        self._other(runner, answer)
+
+    def _other(self, runner: Runner, answer: str) -> None:
+        word, _, rest = answer.partition(" ")
+        word = word.lower()
+        try:
+            if word == "done":
+                runner.confirm_operation()
+            elif word == "capture":
+                runner.capture()
+            elif word == "accept":
+                runner.accept(rest or None)
+            elif word == "retake":
+                runner.retake()
+            elif word == "skip":
+                runner.skip(rest)
+            elif word == "sign":
+                runner.sign(rest)
+            elif word == "note":
+                runner.note(rest)
+            else:
+                print(f"  ? {answer!r} is not an answer here", file=self.out)
+        except BenchwalkError as exc:
+            print(f"  ! {exc}", file=self.out)
+
+
+class SimTechnician:
+    """Answers every prompt the way a careful technician would, on the simulated bench.
+
+    Failing reviews: one retake, then a gate-allow step is accepted with a recorded reason
+    and a gate-block step is skipped with a reason, so the run ends and exits 1. A step whose
+    switch status cannot be verified (a silent PLC) is tried ``attempts`` times, then skipped
+    with the runner's last message as the reason.
+    """
+
+    def __init__(
+        self,
+        bench: Hands,
+        operator: str = SIM_OPERATOR,
+        retakes: int = 1,
+        out: TextIO = sys.stdout,
+        attempts: int = 3,
+    ):
+        self.bench, self.operator, self.retakes, self.out = bench, operator, retakes, out
+        self.attempts = attempts
+        self._retaken: dict[str, int] = {}
+        self._tried: dict[str, int] = {}
+
+    def _give_up(self, runner: Runner, view: RunnerView) -> bool:
+        """True (and the step skipped) once this step has been tried ``attempts`` times."""
+        assert view.step is not None  # act() returns before this when there is no step
+        n = self._tried[view.step.id] = self._tried.get(view.step.id, 0) + 1
+        if n <= self.attempts:
+            return False
+        print(
+            f"  switch status still not as expected after {self.attempts} tries: skipping",
+            file=self.out,
+        )
+        runner.skip(
+            f"{self.operator}: gave up after {self.attempts} tries: {view.message or 'switch status not verified'}"
+        )
+        return True
+
+    def _set_by_hand(
+        self, runner: Runner, view: RunnerView, keep: Collection[str] = frozenset()
+    ) -> None:
+        for sid in view.mismatches:
+            if sid not in keep:
+                self.bench.operate_by_hand(sid, cast(SwitchState, view.expected[sid]))
+                print(
+                    f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
+                    file=self.out,
+                )
+
+    async def act(self, runner: Runner, view: RunnerView) -> None:
+        a, step = view.action, view.step
+        if step is None or a in ("wait", "none") or not view.polled:
+            return  # nothing to do, or no switch status read yet: wait for the first poll
+        if a == "confirm_operation":
+            if self._give_up(runner, view):
+                return
+            self._set_by_hand(runner, view)
+            runner.confirm_operation()
+        elif a == "capture":
+            if self._give_up(runner, view):
+                return
+            self._set_by_hand(runner, view)
+            runner.capture()
+        elif a == "request_remote":
+            self._set_by_hand(runner, view, keep={s for s, _ in view.remote_todo})
+            sid, state = view.remote_todo[0]
+            try:
+                question = runner.request_remote(sid, state)
+            except BenchwalkError as exc:  # refused (e.g. status unreadable): nothing was sent
+                print(f"  remote command refused: {exc}; skipping", file=self.out)
+                runner.skip(f"{self.operator}: remote command not sent: {exc}")
+                return
+            print(f"  {question} yes ({self.operator})", file=self.out)
+            await runner.confirm_remote(sid, state, self.operator)
+        elif a == "accept":
+            runner.accept()
+        elif a == "sign":
+            runner.sign(self.operator)
+        elif a == "note":
+            runner.note(f"{self.operator}: nothing unusual on the simulated bench")
+        elif a in ("retake", "accept_with_reason"):
+            if view.settle_timed_out and view.state.value == "settling":
+                runner.capture()  # journalled as captured before the readings settled
+                return
+            n = self._retaken.get(step.id, 0)
+            if n < self.retakes:
+                self._retaken[step.id] = n + 1
+                print("  checks failed: retaking", file=self.out)
+                runner.retake()
+            elif a == "accept_with_reason":
+                runner.accept(
+                    f"{self.operator}: checks still failing after {n} retake(s); "
+                    "accepted for the record (gate allow)"
+                )
+            else:
+                runner.skip(f"{self.operator}: checks still failing after {n} retake(s)")
