@@ -1,4 +1,8 @@
-"""The core must run headless: nothing in meas/ may import textual or the console package."""
+"""The core must run headless: nothing in meas/ may import textual, rich or the console package.
+
+The same rules are import-linter contracts in pyproject.toml (``lint-imports`` in CI); these
+tests keep them in the default test run, the last one at run time in a fresh interpreter.
+"""
 
 from __future__ import annotations
 
@@ -7,7 +11,9 @@ import pathlib
 import subprocess
 import sys
 
-MEAS = pathlib.Path(__file__).resolve().parent.parent / "meas"
+ROOT = pathlib.Path(__file__).resolve().parent.parent
+MEAS = ROOT / "meas"
+COMMANDS = ROOT / "tui" / "commands"
 FORBIDDEN = ("textual", "tui")
 
 
@@ -24,37 +30,44 @@ def _imported_roots(path: pathlib.Path) -> set[str]:
 
 def test_no_static_import_of_console_in_core():
     offenders = {
-        str(p.relative_to(MEAS.parent)): sorted(_imported_roots(p) & set(FORBIDDEN))
+        str(p.relative_to(ROOT)): sorted(_imported_roots(p) & set(FORBIDDEN))
         for p in MEAS.rglob("*.py")
     }
-    offenders = {k: v for k, v in offenders.items() if v}
-    # meas/commands/demo.py may start the console lazily inside a function; that is the one
-    # sanctioned edge, and it must stay inside a function body (checked below).
-    offenders.pop("meas/commands/demo.py", None)
-    offenders.pop("meas/commands/resume.py", None)
-    assert offenders == {}
+    assert {k: v for k, v in offenders.items() if v} == {}
 
 
-def test_console_imports_in_commands_are_lazy():
-    for name in ("demo.py", "resume.py"):
-        path = MEAS / "commands" / name
-        if not path.exists():
-            continue
-        tree = ast.parse(path.read_text(encoding="utf-8"))
-        for node in tree.body:  # module level only
-            if isinstance(node, ast.Import | ast.ImportFrom):
-                mod = node.module if isinstance(node, ast.ImportFrom) else node.names[0].name
-                assert (mod or "").split(".")[0] not in FORBIDDEN, (
-                    f"{name} imports {mod} at module level"
-                )
+def _module_level_imports(path: pathlib.Path, package: str) -> list[str]:
+    """Absolute names of what ``path`` (a module of ``package``) imports at module level."""
+    names = []
+    for node in ast.parse(path.read_text(encoding="utf-8")).body:
+        if isinstance(node, ast.Import):
+            names.extend(alias.name for alias in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            base = package.split(".")[: len(package.split(".")) - node.level + 1]
+            prefix = ".".join(base) if node.level else ""
+            names.append(".".join(p for p in (prefix, node.module or "") if p))
+    return names
 
 
-def test_importing_every_core_module_loads_no_textual():
+def test_command_line_starts_the_console_only_lazily():
+    """``benchwalk run --headless`` and friends must not load textual or the console screens."""
+    files = [(ROOT / "tui" / "cli.py", "tui")] + [
+        (p, "tui.commands") for p in sorted(COMMANDS.glob("*.py"))
+    ]
+    for path, package in files:
+        for name in _module_level_imports(path, package):
+            console = name.startswith("tui.") and not name.startswith(("tui.commands", "tui.cli"))
+            assert not (name.split(".")[0] == "textual" or console), (
+                f"{path.relative_to(ROOT)} imports {name} at module level"
+            )
+
+
+def test_importing_every_core_module_loads_no_textual_rich_or_tui():
     code = (
         "import importlib, pkgutil, sys, meas\n"
         "for m in pkgutil.walk_packages(meas.__path__, 'meas.'):\n"
         "    importlib.import_module(m.name)\n"
-        "bad = sorted(k for k in sys.modules if k.split('.')[0] in ('textual', 'tui'))\n"
+        "bad = sorted(k for k in sys.modules if k.split('.')[0] in ('textual', 'rich', 'tui'))\n"
         "print(','.join(bad))\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
