@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+from types import ModuleType
 
 from meas.errors import BenchwalkError
 
@@ -28,7 +29,7 @@ COMMANDS: dict[str, str] = {
 }
 
 
-def _load(name: str):
+def _load(name: str) -> ModuleType:
     return importlib.import_module(f"tui.commands.{COMMANDS[name]}")
 
 

@@ -6,6 +6,10 @@ import argparse
 import asyncio
 import contextlib
 import signal
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from meas.sim.bench import SimulatedBench
 
 HELP = "serve a simulated bench (meters and PLC over Modbus TCP on loopback) for a profile"
 
@@ -35,7 +39,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
 
 
-def _print_endpoints(bench, profile_path: str) -> None:
+def _print_endpoints(bench: SimulatedBench, profile_path: str) -> None:
     print(f"simulated bench for {profile_path}")
     for e in bench.endpoints:
         label = f"  {e.label}" if e.label else ""
