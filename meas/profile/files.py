@@ -19,9 +19,9 @@ from collections.abc import Callable, Iterable
 from pathlib import Path
 from typing import Any
 
-from . import quantities
-from .errors import Problem, ProfileError
-from .model import (
+from .. import quantities
+from ..errors import Problem, ProfileError
+from ..model import (
     REGISTER_COUNT,
     AccuracyClasses,
     Bench,
