@@ -150,7 +150,7 @@ def companion_path(profile_path: str | Path, name: str) -> Path | None:
     return folder / name if inside else None
 
 
-_TOP = (
+_TOP = (  # the top-level keys the loader reads; any other is reported as unknown
     "bench",
     "zone",
     "control",
