@@ -29,6 +29,7 @@ from rich.console import Console  # noqa: E402
 from rich.table import Table  # noqa: E402
 
 from meas.model import (  # noqa: E402
+    REGISTER_KINDS,
     Bench,
     Meter,
     PollSettings,
@@ -214,7 +215,7 @@ def _dp_min(regmap: RegisterMap, max_gap: int = 8) -> int:
     """Exact minimum number of reads (DP over contiguous groups), independent of the greedy plan."""
     limit = min(125, regmap.max_read)
     total = 0
-    for kind in ("holding", "input"):
+    for kind in REGISTER_KINDS:
         s = sorted((x for x in regmap.registers if x.kind == kind), key=lambda x: x.address)
         best = [0] + [10**9] * len(s)
         for j in range(1, len(s) + 1):

@@ -8,23 +8,40 @@ Electrical values are on the bench side, in SI units (V, A, W, var, VA, ohm, S).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Literal
+from typing import Any, Literal, get_args
 
+# Each vocabulary is written once, as a Literal for the type checker; the tuple beside it (same
+# order) is what the loader offers in its messages and what other modules iterate over.
 RegisterKind = Literal["holding", "input"]
+REGISTER_KINDS: tuple[RegisterKind, ...] = get_args(RegisterKind)
 DataType = Literal["int16", "uint16", "int32", "uint32", "float32", "float64"]
+DATA_TYPES: tuple[DataType, ...] = get_args(DataType)
 Order = Literal["big", "little"]
+ORDERS: tuple[Order, ...] = get_args(Order)
+ApparentPower = Literal["vector", "arithmetic"]  # IEEE 1459 definitions of S_total
+APPARENT_POWER: tuple[ApparentPower, ...] = get_args(ApparentPower)
+Parity = Literal["N", "E", "O"]
+PARITIES: tuple[Parity, ...] = get_args(Parity)
+Reporting = Literal["primary", "secondary"]  # which side of the CT/VT a meter reports
+REPORTING: tuple[Reporting, ...] = get_args(Reporting)
+# Class designations as printed on meters (IEC 62053-21/-22/-24 style, common practice).
+AccuracyClass = Literal["0.1S", "0.2S", "0.5S", "1S", "0.1", "0.2", "0.5", "1", "2", "3"]
+ACCURACY_CLASSES: tuple[AccuracyClass, ...] = get_args(AccuracyClass)
 BranchKind = Literal["source", "line", "transformer", "load", "shunt"]
-StepKind = Literal["manual", "remote", "capture", "hold", "note"]
+BRANCH_KINDS: tuple[BranchKind, ...] = get_args(BranchKind)
+TWO_ENDED: tuple[BranchKind, ...] = ("line", "transformer")  # the kinds with a to_bus
+StatusKind = Literal["coil", "discrete"]
+STATUS_KINDS: tuple[StatusKind, ...] = get_args(StatusKind)
+Operation = Literal["manual", "remote"]
+OPERATIONS: tuple[Operation, ...] = get_args(Operation)
 SwitchState = Literal["open", "closed"]
+SWITCH_STATES: tuple[SwitchState, ...] = get_args(SwitchState)
+StepKind = Literal["manual", "remote", "capture", "hold", "note"]
+STEP_KINDS: tuple[StepKind, ...] = get_args(StepKind)
+Gate = Literal["block", "allow"]  # allow = may accept failing checks with a reason
+GATES: tuple[Gate, ...] = get_args(Gate)
 
-REGISTER_COUNT: dict[str, int] = {
-    "int16": 1,
-    "uint16": 1,
-    "int32": 2,
-    "uint32": 2,
-    "float32": 2,
-    "float64": 4,
-}
+REGISTER_COUNT: dict[str, int] = dict(zip(DATA_TYPES, (1, 1, 2, 2, 2, 4), strict=True))
 
 
 @dataclass(frozen=True)
@@ -87,9 +104,7 @@ class RegisterMap:
     id: str
     registers: tuple[RegisterSpec, ...]
     description: str = ""
-    apparent_power: Literal["vector", "arithmetic"] = (
-        "arithmetic"  # IEEE 1459 definition of S_total
-    )
+    apparent_power: ApparentPower = "arithmetic"
     max_read: int = 125  # some meters accept fewer registers per read than the spec allows
 
     def has(self, key: str) -> bool:
@@ -116,7 +131,7 @@ class TcpTransport:
 class RtuTransport:
     device: str
     baudrate: int = 9600
-    parity: Literal["N", "E", "O"] = "E"
+    parity: Parity = "E"
     stopbits: int = 1
     bytesize: int = 8
 
@@ -132,10 +147,10 @@ Transport = TcpTransport | RtuTransport
 class AccuracyClasses:
     """Class designations as printed on the meter: "0.2S", "0.5S", "1", "2", "3"."""
 
-    p: str = "1"
-    q: str = "2"
-    v: str = "0.5"
-    i: str = "0.5"
+    p: AccuracyClass = "1"
+    q: AccuracyClass = "2"
+    v: AccuracyClass = "0.5"
+    i: AccuracyClass = "0.5"
 
 
 @dataclass(frozen=True)
@@ -150,7 +165,7 @@ class Meter:
     # Sign convention: positive P/Q = power flowing from ``bus`` into ``branch``.
     timeout_s: float = 0.5
     retries: int = 1
-    reports: Literal["primary", "secondary"] = "primary"
+    reports: Reporting = "primary"
     ct_ratio: float = 1.0  # primary A per secondary A, applied when reports == "secondary"
     vt_ratio: float = 1.0  # primary V per secondary V, applied when reports == "secondary"
     ct_primary_a: float | None = None  # rated primary current, for out-of-range checks
@@ -186,7 +201,7 @@ class Branch:
 
 @dataclass(frozen=True)
 class StatusPoint:
-    kind: Literal["coil", "discrete"]
+    kind: StatusKind
     address: int
 
 
@@ -205,7 +220,7 @@ class Switch:
     id: str
     branch: str
     label: str = ""
-    operation: Literal["manual", "remote"] = "manual"
+    operation: Operation = "manual"
     normal: SwitchState = "closed"
     plc: str | None = None
     command_coil: int | None = None  # write True = close, False = open; only if remote
@@ -263,7 +278,7 @@ class Step:
     expect: dict[str, SwitchState] = field(default_factory=dict, compare=False, hash=False)
     operate: dict[str, SwitchState] = field(default_factory=dict, compare=False, hash=False)
     capture: CapturePolicy | None = field(default_factory=CapturePolicy)
-    gate: Literal["block", "allow"] = "block"  # allow = may accept failing checks with a reason
+    gate: Gate = "block"
 
 
 @dataclass(frozen=True)

@@ -19,6 +19,7 @@ from hypothesis import strategies as st
 from test_checks_support import demo
 
 from meas.checks import CheckEngine, run_checks
+from meas.model import SWITCH_STATES
 from meas.results import STATUS_RANK, Status
 from meas.sim.faults import parse_fault
 from meas.sim.meters import snapshot_from_sim
@@ -50,7 +51,7 @@ def _run_series(engine, switches, faults, n, seed):
 def test_no_false_alarms_in_any_switch_configuration(engine):
     prof = engine.profile
     ids = [s.id for s in prof.switches]
-    combos = list(itertools.product(("open", "closed"), repeat=len(ids)))
+    combos = list(itertools.product(SWITCH_STATES, repeat=len(ids)))
     assert len(combos) == 64  # every reachable combination of the demo's six switches
     snapshots, fails, warns = 0, [], 0
     for c, combo in enumerate(combos):

@@ -15,7 +15,7 @@ from modbus_helpers import MeterServer, Write, make_profile, plc, switch
 
 from meas.control import ControlRefused, SwitchControl
 from meas.errors import BenchwalkError
-from meas.model import Control
+from meas.model import SWITCH_STATES, Control
 from meas.poller import Poller
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
@@ -42,7 +42,7 @@ async def _run(srv: MeterServer, prof, coro_fn):
     try:
         await poller.start()
         snap = await poller.poll_once()  # the link works: reads go through
-        assert snap.switches["CB1"] in ("open", "closed")
+        assert snap.switches["CB1"] in SWITCH_STATES
         return await coro_fn(SwitchControl(prof, poller))
     finally:
         await poller.close()

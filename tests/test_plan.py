@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from modbus_helpers import make_map, spec, tcp_meter
 
 from meas.errors import BenchwalkError
-from meas.model import REGISTER_COUNT, RegisterMap
+from meas.model import DATA_TYPES, REGISTER_COUNT, REGISTER_KINDS, RegisterMap
 from meas.plan import (
     MAX_READ_REGISTERS,
     bits_per_character,
@@ -31,7 +31,7 @@ from meas.plan import (
 from meas.profile import load_profile
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
-DTYPES = list(REGISTER_COUNT)
+DTYPES = list(DATA_TYPES)
 
 
 @st.composite
@@ -52,7 +52,7 @@ def register_maps(draw):
 def _dp_minimum(regmap: RegisterMap, max_gap: int) -> int:
     limit = min(MAX_READ_REGISTERS, regmap.max_read)
     total = 0
-    for kind in ("holding", "input"):
+    for kind in REGISTER_KINDS:
         s = sorted((x for x in regmap.registers if x.kind == kind), key=lambda x: x.address)
         best = [0] + [10**9] * len(s)
         for j in range(1, len(s) + 1):

@@ -43,6 +43,7 @@ from meas.control import ControlRefused, SwitchControl  # noqa: E402
 from meas.dataset import export_session, remove_stale_exports, verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError, ProfileError  # noqa: E402
 from meas.journal import Journal  # noqa: E402
+from meas.model import SWITCH_STATES  # noqa: E402
 from meas.poller import Poller  # noqa: E402
 from meas.profile import check_profile, load_profile  # noqa: E402
 from meas.sim.bench import WRITE_LOG_ENV, SimulatedBench  # noqa: E402
@@ -120,7 +121,7 @@ def test_profile_without_control_table_has_control_off(tmp_path):
                 await poller.poll_once()
                 ctl = SwitchControl(prof, poller)
                 for sid in remote_coils(profile):
-                    for state in ("open", "closed"):
+                    for state in SWITCH_STATES:
                         with pytest.raises(ControlRefused, match="control is disabled"):
                             await ctl.operate(sid, state, confirmed_by="A. Tech")
                 await poller.poll_once()
@@ -230,7 +231,7 @@ def test_only_named_command_coils_are_ever_written(live_bench, ops):
                 assert len(wire_writes()) == before and len(bench.writes_seen) == seen_before
                 continue
             # accepted: every guard held, so these must be exactly the ones the guards name
-            assert sid in coils and state in ("open", "closed") and who.strip()
+            assert sid in coils and state in SWITCH_STATES and who.strip()
             new = wire_writes()[before:]
             assert len(new) == 1, new
             w = new[0]

@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import BenchwalkError
-from ..model import Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
+from ..model import REGISTER_KINDS, Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
 from ..registers import encode
 from ..scaling import to_primary
 from ..snapshot import Snapshot
@@ -72,8 +72,8 @@ class _RegisterLayout:
 
     @classmethod
     def of(cls, specs) -> _RegisterLayout:
-        blocks = {}
-        for kind in ("holding", "input"):
+        blocks: dict[str, tuple[int, int, list]] = {}
+        for kind in REGISTER_KINDS:
             mine = [s for s in specs if s.kind == kind]
             if mine:
                 lo = min(s.address for s in mine)

@@ -18,7 +18,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 from ..errors import BenchwalkError
-from ..model import Profile, SwitchState
+from ..model import SWITCH_STATES, Profile, SwitchState
 from .meters import Phasors, blend
 
 DAMPING = 0.7
@@ -113,7 +113,7 @@ class PlcSim:
         """The simulated technician operating a switch at its panel (not a Modbus write)."""
         if switch_id not in self._mech:
             raise BenchwalkError(f"switch {switch_id!r} is not in {self.profile.path}")
-        if state not in ("open", "closed"):
+        if state not in SWITCH_STATES:
             raise BenchwalkError(
                 f"switch {switch_id}: state must be 'open' or 'closed', got {state!r}"
             )
