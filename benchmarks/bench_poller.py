@@ -28,6 +28,8 @@ from common import Figure, Target, median, missing, ratio  # noqa: E402
 from rich.console import Console  # noqa: E402
 from rich.table import Table  # noqa: E402
 
+from meas.modbus.codec import encode  # noqa: E402
+from meas.modbus.plan import naive_request_count, plan_map  # noqa: E402
 from meas.model import (  # noqa: E402
     Bench,
     Meter,
@@ -38,10 +40,8 @@ from meas.model import (  # noqa: E402
     TcpTransport,
     Zone,
 )
-from meas.plan import naive_request_count, plan_map  # noqa: E402
 from meas.poller import Poller  # noqa: E402
 from meas.profile import load_profile  # noqa: E402
-from meas.registers import encode  # noqa: E402
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
 

@@ -40,8 +40,8 @@ from datetime import UTC, datetime
 from pymodbus.client import AsyncModbusSerialClient, AsyncModbusTcpClient
 from pymodbus.exceptions import ConnectionException, ModbusException, ModbusIOException
 
+from .modbus.plan import MeterPlan, ReadRequest, plan_profile
 from .model import Meter, Plc, Profile, RegisterMap, RegisterSpec, RtuTransport, Switch, Transport
-from .plan import MeterPlan, ReadRequest, plan_profile
 from .quantities import split_key
 from .scaling import ratio
 from .snapshot import CommState, MeterBlock, Quality, Snapshot

@@ -1,6 +1,6 @@
 """The poller against real pymodbus servers on loopback sockets and a real pseudo-terminal.
 
-Register contents are encoded with ``meas.registers.encode`` and then read back through the
+Register contents are encoded with ``meas.modbus.codec.encode`` and then read back through the
 whole stack (client, plan, decode, scaling). Float values are chosen exactly representable
 in IEEE 754-2008 binary32 (dyadic rationals with <= 24 significant bits) so equality is exact.
 """
@@ -33,9 +33,9 @@ from modbus_helpers import (
     wait_until,
 )
 
-from meas.plan import ReadRequest
+from meas.modbus.codec import DecodeError, decode
+from meas.modbus.plan import ReadRequest
 from meas.poller import Poller, RequestDecoder, backoff_delay
-from meas.registers import DecodeError, decode
 from meas.scaling import to_primary
 from meas.snapshot import CommState, Quality
 
@@ -62,7 +62,7 @@ async def test_tcp_meter_values_exact_in_engineering_units():
     fmap, imap = float_map(), int_map()
     async with MeterServer(units=(1, 2)) as srv:
         await srv.load(1, fmap, EXACT)
-        # raw integers chosen so raw * scale is the value below (scale/offset per meas.registers)
+        # raw integers chosen so raw * scale is the value below (scale/offset per meas.modbus.codec)
         await srv.load(
             2,
             imap,
@@ -395,7 +395,7 @@ _DTYPES = ["int16", "uint16", "int32", "uint32", "float32", "float64"]
     secondary=st.booleans(),
 )
 def test_request_decoder_matches_registers_decode(layout, words, scale, secondary):
-    """The poller's one-pass decoder == meas.registers.decode then meas.scaling.to_primary."""
+    """The poller's one-pass decoder == meas.modbus.codec.decode then meas.scaling.to_primary."""
     keys = ["v_ln.A", "i.B", "p.T", "q.C", "pf.T", "f.T"]
     specs, addr = [], 0
     for (dtype, wo, bo, gap), key in zip(layout, keys, strict=False):

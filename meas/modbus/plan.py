@@ -16,8 +16,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .errors import BenchwalkError
-from .model import Meter, Profile, RegisterKind, RegisterMap, RegisterSpec
+from ..errors import BenchwalkError
+from ..model import Meter, Profile, RegisterKind, RegisterMap, RegisterSpec
 
 MAX_READ_REGISTERS = 125  # Modbus Application Protocol Specification V1.1b3, FC3/FC4 quantity
 FUNCTION_CODE: dict[str, int] = {"holding": 3, "input": 4}
