@@ -1,4 +1,4 @@
-"""Full-cycle time of ``meas.poller.Poller`` against a bare pymodbus loop, side by side.
+"""Full-cycle time of ``meas.poll.cycle.Poller`` against a bare pymodbus loop, side by side.
 
 Run:  /work/venv/bin/python benchmarks/bench_poller.py [--cycles 30] [--sizes 1,8,32,128]
 
@@ -40,7 +40,7 @@ from meas.model import (  # noqa: E402
     TcpTransport,
     Zone,
 )
-from meas.poller import Poller  # noqa: E402
+from meas.poll.cycle import Poller  # noqa: E402
 from meas.profile import load_profile  # noqa: E402
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"

@@ -33,9 +33,13 @@ from modbus_helpers import (
     wait_until,
 )
 
+from meas.errors import BenchwalkError
 from meas.modbus.codec import DecodeError, decode
+from meas.modbus.decode import RequestDecoder
+from meas.modbus.hardening import require_supported_pymodbus
+from meas.modbus.link import backoff_delay
 from meas.modbus.plan import ReadRequest
-from meas.poller import Poller, RequestDecoder, backoff_delay
+from meas.poll.cycle import Poller
 from meas.scaling import to_primary
 from meas.snapshot import CommState, Quality
 
@@ -373,6 +377,16 @@ def test_backoff_doubles_with_jitter_and_caps():
             assert base * 0.8 <= d <= base * 1.2
     assert all(backoff_delay(12, 0.5, 10.0, rng) <= 10.0 for _ in range(50))
     assert len({round(backoff_delay(3, 0.5, 10.0, rng), 6) for _ in range(20)}) > 1  # jittered
+
+
+def test_an_unsupported_pymodbus_is_refused_in_one_line():
+    """The client hardening reaches into 3.16 internals: any other release must stop us early."""
+    require_supported_pymodbus()  # the installed one (pinned in pyproject.toml) is fine
+    require_supported_pymodbus("3.16.9")
+    for version in ("3.16.0", "3.17.0", "3.17.0rc1", "4.0", "3.9.2"):
+        with pytest.raises(BenchwalkError, match=rf"pymodbus {version} is installed") as err:
+            require_supported_pymodbus(version)
+        assert "\n" not in str(err.value) and ">=3.16.1,<3.17" in str(err.value)
 
 
 _DTYPES = ["int16", "uint16", "int32", "uint32", "float32", "float64"]

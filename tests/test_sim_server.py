@@ -27,7 +27,7 @@ from pymodbus.exceptions import ModbusException, ModbusIOException
 from meas.errors import BenchwalkError
 from meas.modbus.codec import decode
 from meas.model import RtuTransport
-from meas.poller import Poller
+from meas.poll.cycle import Poller
 from meas.profile import load_profile
 from meas.scaling import to_primary
 from meas.sim.bench import SimulatedBench

@@ -14,7 +14,7 @@ from rich.console import Console
 from rich.live import Live
 from rich.table import Table
 
-from ..poller import Poller
+from ..poll.cycle import Poller
 from ..profile import load_profile
 from ..snapshot import MeterBlock, Snapshot
 
