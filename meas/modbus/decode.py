@@ -51,7 +51,6 @@ class RequestDecoder:
     """
 
     def __init__(self, req: ReadRequest, specs: dict[str, RegisterSpec], meter: Meter):
-        self.count = req.count
         self._pack = struct.Struct(f">{req.count}H").pack
         items = []
         for key in req.keys:
