@@ -27,7 +27,7 @@ from .hardening import BadFrames, harden
 RTU_QUIET_S = 0.05  # after an RTU timeout: let a late reply drain before the next request
 
 ReadKind = Literal["holding", "input", "coil", "discrete"]
-_FC_FOR_KIND: dict[str, int] = {"coil": 1, "discrete": 2, "holding": 3, "input": 4}
+_FC_FOR_KIND: dict[ReadKind, int] = {"coil": 1, "discrete": 2, "holding": 3, "input": 4}
 
 
 class _ReadMethod(Protocol):
@@ -38,7 +38,7 @@ class _ReadMethod(Protocol):
     ) -> Awaitable[ModbusPDU]: ...
 
 
-_READ: dict[str, _ReadMethod] = {
+_READ: dict[ReadKind, _ReadMethod] = {
     "holding": ModbusBaseClient.read_holding_registers,
     "input": ModbusBaseClient.read_input_registers,
     "coil": ModbusBaseClient.read_coils,
@@ -103,7 +103,7 @@ class DeviceException(ReadFailed):
 
 
 def make_client(transport: Transport, timeout_s: float) -> ModbusBaseClient:
-    """A hardened pymodbus client with its own reconnect and retries off (we do both)."""
+    """A pymodbus client with its own reconnect and retries off (we do both); harden it next."""
     client: ModbusBaseClient
     if isinstance(transport, RtuTransport):
         client = AsyncModbusSerialClient(
@@ -128,7 +128,7 @@ def make_client(transport: Transport, timeout_s: float) -> ModbusBaseClient:
     return client
 
 
-def check_reply(rr: ModbusPDU, kind: str, unit_id: int) -> None:
+def check_reply(rr: ModbusPDU, kind: ReadKind, unit_id: int) -> None:
     """Refuse a reply that is not the answer to this request (function code, unit id)."""
     fc = _FC_FOR_KIND[kind]
     got = rr.function_code
