@@ -1,4 +1,4 @@
-"""Full-cycle time of ``meas.poller.Poller`` against a bare pymodbus loop, side by side.
+"""Full-cycle time of ``meas.poll.cycle.Poller`` against a bare pymodbus loop, side by side.
 
 Run:  /work/venv/bin/python benchmarks/bench_poller.py [--cycles 30] [--sizes 1,8,32,128]
 
@@ -28,6 +28,8 @@ from common import Figure, Target, median, missing, ratio  # noqa: E402
 from rich.console import Console  # noqa: E402
 from rich.table import Table  # noqa: E402
 
+from meas.modbus.codec import encode  # noqa: E402
+from meas.modbus.plan import naive_request_count, plan_map  # noqa: E402
 from meas.model import (  # noqa: E402
     REGISTER_KINDS,
     Bench,
@@ -39,10 +41,8 @@ from meas.model import (  # noqa: E402
     TcpTransport,
     Zone,
 )
-from meas.plan import naive_request_count, plan_map  # noqa: E402
-from meas.poller import Poller  # noqa: E402
+from meas.poll.cycle import Poller  # noqa: E402
 from meas.profile import load_profile  # noqa: E402
-from meas.registers import encode  # noqa: E402
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
 

@@ -22,7 +22,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from common import Figure, Target, median, percentile  # noqa: E402
 
-from meas.poller import Poller
+from meas.poll.cycle import Poller
 from meas.profile import load_profile
 from meas.sim.bench import SimulatedBench
 

@@ -265,8 +265,8 @@ class Session:
         prior: dict[str, StepOutcome],
     ) -> Session:
         from .checks import CheckEngine
-        from .control import SwitchControl
-        from .poller import Poller
+        from .poll.control import SwitchControl
+        from .poll.cycle import Poller
 
         poller = Poller(profile)
         try:

@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 from pymodbus.server import ModbusSerialServer, ModbusTcpServer
 from pymodbus.simulator import DataType, SimData, SimDevice
 
+from meas.modbus.codec import encode
 from meas.model import (
     Bench,
     Control,
@@ -38,7 +39,6 @@ from meas.model import (
     Transport,
     Zone,
 )
-from meas.registers import encode
 
 LOOPBACK = "127.0.0.1"
 WRITE_FUNCTION_CODES = {5, 6, 15, 16}

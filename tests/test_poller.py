@@ -1,6 +1,6 @@
 """The poller against real pymodbus servers on loopback sockets and a real pseudo-terminal.
 
-Register contents are encoded with ``meas.registers.encode`` and then read back through the
+Register contents are encoded with ``meas.modbus.codec.encode`` and then read back through the
 whole stack (client, plan, decode, scaling). Float values are chosen exactly representable
 in IEEE 754-2008 binary32 (dyadic rationals with <= 24 significant bits) so equality is exact.
 """
@@ -33,9 +33,13 @@ from modbus_helpers import (
     wait_until,
 )
 
-from meas.plan import ReadRequest
-from meas.poller import Poller, RequestDecoder, backoff_delay
-from meas.registers import DecodeError, decode
+from meas.errors import BenchwalkError
+from meas.modbus.codec import DecodeError, decode
+from meas.modbus.decode import RequestDecoder
+from meas.modbus.hardening import require_supported_pymodbus
+from meas.modbus.link import backoff_delay
+from meas.modbus.plan import ReadRequest
+from meas.poll.cycle import Poller
 from meas.scaling import to_primary
 from meas.snapshot import CommState, Quality
 
@@ -62,7 +66,7 @@ async def test_tcp_meter_values_exact_in_engineering_units():
     fmap, imap = float_map(), int_map()
     async with MeterServer(units=(1, 2)) as srv:
         await srv.load(1, fmap, EXACT)
-        # raw integers chosen so raw * scale is the value below (scale/offset per meas.registers)
+        # raw integers chosen so raw * scale is the value below (scale/offset per meas.modbus.codec)
         await srv.load(
             2,
             imap,
@@ -375,6 +379,16 @@ def test_backoff_doubles_with_jitter_and_caps():
     assert len({round(backoff_delay(3, 0.5, 10.0, rng), 6) for _ in range(20)}) > 1  # jittered
 
 
+def test_an_unsupported_pymodbus_is_refused_in_one_line():
+    """The client hardening reaches into 3.16 internals: any other release must stop us early."""
+    require_supported_pymodbus()  # the installed one (pinned in pyproject.toml) is fine
+    require_supported_pymodbus("3.16.9")
+    for version in ("3.16.0", "3.17.0", "3.17.0rc1", "4.0", "3.9.2"):
+        with pytest.raises(BenchwalkError, match=rf"pymodbus {version} is installed") as err:
+            require_supported_pymodbus(version)
+        assert "\n" not in str(err.value) and ">=3.16.1,<3.17" in str(err.value)
+
+
 _DTYPES = ["int16", "uint16", "int32", "uint32", "float32", "float64"]
 
 
@@ -395,7 +409,7 @@ _DTYPES = ["int16", "uint16", "int32", "uint32", "float32", "float64"]
     secondary=st.booleans(),
 )
 def test_request_decoder_matches_registers_decode(layout, words, scale, secondary):
-    """The poller's one-pass decoder == meas.registers.decode then meas.scaling.to_primary."""
+    """The poller's one-pass decoder == meas.modbus.codec.decode then meas.scaling.to_primary."""
     keys = ["v_ln.A", "i.B", "p.T", "q.C", "pf.T", "f.T"]
     specs, addr = [], 0
     for (dtype, wo, bo, gap), key in zip(layout, keys, strict=False):

@@ -6,7 +6,7 @@ values (IEEE 754-2008 binary32, exactly representable), so a reply assigned to t
 meter or the wrong cycle shows up as a wrong value, not just a wrong flag.
 
 Bounds stated here (timeouts 0.2 s, retries 1, interval 0.1 s, backoff 0.1 s doubling to a
-0.4 s cap with +-20 % jitter, see ``meas.poller.backoff_delay``):
+0.4 s cap with +-20 % jitter, see ``meas.modbus.link.backoff_delay``):
 - a cycle returns by its deadline, which is the interval here (no meter slower than 33 ms),
   plus ``SLACK_S`` for a loaded 2-core machine;
 - recovery after the meter behaves again <= longest backoff wait (0.4 x 1.2) + one probe
@@ -24,7 +24,7 @@ from hostile_server import EXCEPTION_CODES, HostileServer
 from modbus_helpers import encoded, float_map, make_profile, tcp_meter
 
 from meas.model import PollSettings
-from meas.poller import Poller
+from meas.poll.cycle import Poller
 from meas.snapshot import CommState, Quality, Snapshot
 
 TIMEOUT_S, RETRIES = 0.2, 1

@@ -19,8 +19,8 @@ from hypothesis import strategies as st
 from pymodbus.client import AsyncModbusTcpClient
 from pymodbus.pdu.register_message import ReadHoldingRegistersResponse
 
+from meas.modbus.codec import DecodeError, decode, encode, raw_to_words, words_to_raw
 from meas.model import RegisterSpec
-from meas.registers import DecodeError, decode, encode, raw_to_words, words_to_raw
 
 DT = AsyncModbusTcpClient.DATATYPE
 PM_TYPE = {

@@ -39,12 +39,12 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_runner import FAST_CAPTURE, write_bench  # noqa: E402
 from write_recorder import WRITE_FC, parse_pdu, recording_profile  # noqa: E402
 
-from meas.control import ControlRefused, SwitchControl  # noqa: E402
 from meas.dataset import export_session, remove_stale_exports, verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError, ProfileError  # noqa: E402
 from meas.journal import Journal  # noqa: E402
 from meas.model import SWITCH_STATES  # noqa: E402
-from meas.poller import Poller  # noqa: E402
+from meas.poll.control import ControlRefused, SwitchControl  # noqa: E402
+from meas.poll.cycle import Poller  # noqa: E402
 from meas.profile import check_profile, load_profile  # noqa: E402
 from meas.sim.bench import WRITE_LOG_ENV, SimulatedBench  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
@@ -307,10 +307,10 @@ def test_static_scan_only_control_writes_to_a_device():
             hits = _write_uses(ast.parse(path.read_text(encoding="utf-8"), filename=str(path)))
             if hits:
                 found[path.relative_to(ROOT).as_posix()] = hits
-    assert set(found) == {"meas/control.py"}, found
+    assert set(found) == {"meas/poll/control.py"}, found
     # and in control.py exactly one write: the switch's own command coil
-    assert [name for _, name in found["meas/control.py"]] == ["write_coil"]
-    src = (ROOT / "meas/control.py").read_text()
+    assert [name for _, name in found["meas/poll/control.py"]] == ["write_coil"]
+    src = (ROOT / "meas/poll/control.py").read_text()
     assert 'write_coil(sw.command_coil, state == "closed"' in src
     # the scanner does see writes when they are there
     assert _write_uses(ast.parse("c.write_register(1, 2)\ngetattr(c, 'write_coils')")) == [

@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 
 from meas.errors import BenchwalkError
+from meas.modbus.codec import decode, encode
 from meas.profile import load_profile
-from meas.registers import decode, encode
 from meas.sim.bench import SimulatedBench
 from meas.sim.faults import Fault, parse_fault, validate_faults
 from meas.sim.meters import (

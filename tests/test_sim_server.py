@@ -25,10 +25,10 @@ from pymodbus.client import AsyncModbusTcpClient
 from pymodbus.exceptions import ModbusException, ModbusIOException
 
 from meas.errors import BenchwalkError
+from meas.modbus.codec import decode
 from meas.model import RtuTransport
-from meas.poller import Poller
+from meas.poll.cycle import Poller
 from meas.profile import load_profile
-from meas.registers import decode
 from meas.scaling import to_primary
 from meas.sim.bench import SimulatedBench
 from meas.sim.faults import parse_fault

@@ -26,7 +26,7 @@ import psutil
 from modbus_helpers import encoded, float_map, make_profile, tcp_meter
 
 from meas.model import PollSettings
-from meas.poller import Poller
+from meas.poll.cycle import Poller
 from meas.snapshot import CommState
 
 DURATION_S = 600.0 if os.environ.get("BENCHWALK_SOAK") == "1" else 30.0

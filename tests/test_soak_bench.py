@@ -39,8 +39,9 @@ from pathlib import Path
 import psutil
 
 from meas.journal import Journal
+from meas.modbus.hardening import tame_pymodbus_logging
 from meas.model import Profile, TcpTransport
-from meas.poller import Poller, tame_pymodbus_logging
+from meas.poll.cycle import Poller
 from meas.profile import load_profile
 from meas.snapshot import CommState, MeterBlock, Quality, Snapshot
 

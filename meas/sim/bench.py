@@ -4,7 +4,7 @@
 that share a host:port become unit ids behind one gateway; a PLC gets its coils and discrete
 inputs), then an update loop at ``[sim] update_hz`` advances the PLC and the transient,
 recomputes the load flow only when the switch states change (cached per state), applies
-faults and noise, and writes every meter's registers with ``meas.registers.encode``.
+faults and noise, and writes every meter's registers with ``meas.modbus.codec.encode``.
 """
 
 from __future__ import annotations
@@ -25,7 +25,7 @@ import numpy as np
 
 from ..errors import BenchwalkError
 from ..model import REGISTER_KINDS, Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
-from ..registers import encode
+from ..modbus.codec import encode
 from ..scaling import to_primary
 from ..snapshot import Snapshot
 from .faults import Fault, find, validate_faults

@@ -30,9 +30,9 @@ from functools import lru_cache
 
 import numpy as np
 
+from ..modbus.codec import decode, encode
 from ..model import Meter, Profile, RegisterMap
 from ..quantities import PHASES
-from ..registers import decode, encode
 from ..scaling import to_primary, to_secondary
 from ..snapshot import CommState, MeterBlock, Quality, Snapshot
 from .faults import PHASE_INDEX, PLC_KINDS, WIRING, Fault, faults_for, find

@@ -14,7 +14,7 @@ from rich.console import Console
 from rich.live import Live
 from rich.table import Table
 
-from meas.poller import Poller
+from meas.poll.cycle import Poller
 from meas.profile import load_profile
 from meas.snapshot import MeterBlock, Snapshot
 

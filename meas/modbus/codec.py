@@ -13,7 +13,7 @@ import math
 import struct
 from collections.abc import Sequence
 
-from .model import REGISTER_COUNT, RegisterSpec
+from ..model import REGISTER_COUNT, RegisterSpec
 
 _FMT = {"int16": "h", "uint16": "H", "int32": "i", "uint32": "I", "float32": "f", "float64": "d"}
 _INT_RANGE = {

@@ -14,10 +14,11 @@ import time
 from dataclasses import dataclass
 
 from pymodbus.exceptions import ModbusException
+from pymodbus.pdu import ModbusPDU
 
-from .errors import BenchwalkError
-from .model import Profile, Switch
-from .poller import Poller, plc_of
+from ..errors import BenchwalkError
+from ..model import Profile, Switch
+from .cycle import Poller, plc_of
 
 VERIFY_POLL_S = 0.02  # status re-read period while waiting for the switch to follow
 
@@ -92,17 +93,18 @@ class SwitchControl:
             )
         t0 = time.monotonic()
         sent_error = ""
-        rr = None
+        unit = plc.unit_id
+        rr: ModbusPDU | None = None
         async with link.lock:  # the poller's reads wait; only this one request goes out
+            client = link.client
+            assert client is not None
             try:
                 async with asyncio.timeout(plc.timeout_s):
-                    rr = await link.client.write_coil(
-                        sw.command_coil, state == "closed", device_id=plc.unit_id
-                    )
+                    rr = await client.write_coil(sw.command_coil, state == "closed", device_id=unit)
             except (TimeoutError, ModbusException) as exc:
                 sent_error = f"no reply to the command ({type(exc).__name__}); "
         if rr is not None and rr.isError():
-            code = int(getattr(rr, "exception_code", 0) or 0)
+            code = rr.exception_code
             status = await self.poller.read_switch(switch_id)
             return OperateResult(
                 switch_id,

@@ -1,5 +1,8 @@
 """Coalesce a meter's register map into the fewest read requests, and bound RTU bus time.
 
+A PLC's switch status points are coalesced the same way into few coil / discrete-input reads
+(``status_reads``): at most ``MAX_BIT_READ`` bits per read, bridging at most ``BIT_GAP``.
+
 Each Modbus read costs a round trip (and on RS-485 two silent intervals), so neighbouring
 quantities are read together. Rules: one register kind per read (holding = FC3, input = FC4),
 at most min(125, map.max_read) registers per read (Modbus Application Protocol Specification
@@ -15,11 +18,14 @@ never costs a request (``tests/test_plan.py`` checks this against an exact minim
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Literal
 
-from .errors import BenchwalkError
-from .model import Meter, Profile, RegisterKind, RegisterMap, RegisterSpec
+from ..errors import BenchwalkError
+from ..model import Meter, Profile, RegisterKind, RegisterMap, RegisterSpec, Switch
 
 MAX_READ_REGISTERS = 125  # Modbus Application Protocol Specification V1.1b3, FC3/FC4 quantity
+MAX_BIT_READ = 2000  # coils / discrete inputs per read, Modbus Application Protocol V1.1b3
+BIT_GAP = 16  # unused status bits one read may bridge
 FUNCTION_CODE: dict[str, int] = {"holding": 3, "input": 4}
 
 
@@ -119,6 +125,45 @@ def plan_profile(profile: Profile) -> dict[str, MeterPlan]:
 def naive_request_count(regmap: RegisterMap) -> int:
     """Requests when every quantity is read on its own (the benchmark's baseline)."""
     return len(regmap.registers)
+
+
+# ---------------------------------------------------------------- PLC status bits
+
+BitKind = Literal["coil", "discrete"]
+
+
+@dataclass(frozen=True)
+class StatusRead:
+    """One FC1/FC2 read of a PLC and the switch status points it carries."""
+
+    kind: BitKind
+    address: int
+    count: int
+    switches: tuple[tuple[str, int], ...]  # (switch id, bit address)
+
+
+def status_reads(switches: list[Switch]) -> list[StatusRead]:
+    """Coalesce a PLC's status points per kind into few bit reads."""
+    reads: list[StatusRead] = []
+    kinds: tuple[BitKind, ...] = ("coil", "discrete")
+    for kind in kinds:
+        pts = sorted(
+            (s.status.address, s.id) for s in switches if s.status and s.status.kind == kind
+        )
+        group: list[tuple[int, str]] = []
+        for addr, sid in pts:
+            if group and (addr - group[-1][0] > BIT_GAP or addr - group[0][0] >= MAX_BIT_READ):
+                reads.append(_bits_read(kind, group))
+                group = []
+            group.append((addr, sid))
+        if group:
+            reads.append(_bits_read(kind, group))
+    return reads
+
+
+def _bits_read(kind: BitKind, group: list[tuple[int, str]]) -> StatusRead:
+    start = group[0][0]
+    return StatusRead(kind, start, group[-1][0] - start + 1, tuple((sid, a) for a, sid in group))
 
 
 # ---------------------------------------------------------------- RTU timing

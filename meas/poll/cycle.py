@@ -1,0 +1,346 @@
+"""Poll every meter and PLC status point once per cycle over Modbus TCP/RTU -> ``Snapshot``.
+
+Endpoints (one client each, ``meas.modbus.link``) run concurrently; units behind one endpoint
+are polled in turn (``units.py``), healthy ones first. A read whose cycle has closed while a
+newer cycle waits is not retried: its answer could reach no snapshot and would only hold back
+the neighbours.
+
+Cycle deadline: a cycle waits for its answers only until ``max(interval, 1.5 x the learned
+healthy time of the slowest endpoint + 50 ms)``. A unit that has not answered by then is
+reported with quality timeout for that cycle while its request finishes in the background
+on its endpoint's worker task (one task and one outstanding request per client). An answer
+belongs only to the cycle it was requested for and is dropped if that cycle has closed, so a
+late reply is never shown under a later cycle. The first pass over an endpoint has no
+learned time and waits for every unit's full budget.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+import math
+import random
+import struct
+import time
+from collections.abc import AsyncIterator
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+
+from pymodbus.exceptions import ModbusException
+
+from ..modbus.decode import RequestDecoder
+from ..modbus.hardening import require_supported_pymodbus, tame_pymodbus_logging
+from ..modbus.link import Backoff, EndpointLink, NoAnswer, ReadFailed
+from ..modbus.plan import MeterPlan, plan_profile, status_reads
+from ..model import Plc, Profile, Switch, Transport
+from ..snapshot import Quality, Snapshot
+from .units import Draft, MeterStatus, Unit, note_silence, poll_meter, poll_plc, unanswered
+
+log = logging.getLogger(__name__)
+
+DEADLINE_HEADROOM = 1.5  # cycle deadline = headroom x learned healthy endpoint time + margin
+DEADLINE_MARGIN_S = 0.05
+RUN_SLOT_MARGIN_S = 0.005  # run(): a cycle's answers are due this long before the next slot
+
+
+@dataclass
+class _Cycle:
+    """One poll cycle being assembled; workers publish drafts into it until it closes."""
+
+    seq: int
+    time_utc: datetime
+    deadline: float  # monotonic
+    remaining: set[str]  # endpoints that have not finished their pass for this cycle
+    drafts: dict[str, Draft] = field(default_factory=dict)
+    done: asyncio.Event = field(default_factory=asyncio.Event)
+    closed: bool = False
+
+    def publish(self, unit_id: str, draft: Draft) -> bool:
+        if self.closed:
+            return False  # a late answer: its cycle is gone, never show it under another one
+        self.drafts[unit_id] = draft
+        return True
+
+    def link_done(self, endpoint: str) -> None:
+        self.remaining.discard(endpoint)
+        if not self.remaining:
+            self.done.set()
+
+
+@dataclass
+class _Endpoint:
+    """One endpoint's link, the units behind it and the worker that serves its cycles."""
+
+    link: EndpointLink
+    units: list[Unit] = field(default_factory=list)
+    task: asyncio.Task[None] | None = None  # the worker serving this endpoint's cycles
+    wanted: _Cycle | None = None  # newest cycle this endpoint has not served yet
+    learned: bool = False  # one full pass done: the cycle deadline applies from now on
+    busy_with: str = ""  # unit id whose request is outstanding, for the pending message
+
+
+class Poller:
+    """Concurrent cycles over every endpoint; see the module docstring for the strategy."""
+
+    def __init__(self, profile: Profile, *, plans: dict[str, MeterPlan] | None = None):
+        require_supported_pymodbus()
+        self.profile = profile
+        self.plans = plans if plans is not None else plan_profile(profile)
+        self._rng = random.Random()
+        self._endpoints: dict[str, _Endpoint] = {}
+        self._units: dict[str, Unit] = {}
+        self._plc_units: dict[str, Unit] = {}
+        self._seq = 0
+        self._started = False
+        self.late_answers = 0  # drafts that arrived after their cycle closed (dropped)
+        for m in profile.meters:
+            plan = self.plans[m.id]
+            specs = {s.key: s for s in profile.maps[m.map_id].registers}
+            keys = tuple(k for r in plan.requests for k in r.keys)
+            unit = Unit(
+                m.id,
+                m.unit_id,
+                m.timeout_s,
+                m.retries,
+                self._backoff(),
+                meter=m,
+                plan=plan,
+                decoders=[RequestDecoder(r, specs, m) for r in plan.requests],
+                keys=keys,
+                nan_values=dict.fromkeys(keys, math.nan),
+            )
+            self._attach(m.transport, unit)
+            self._units[m.id] = unit
+        for p in profile.plcs:
+            sw = [s for s in profile.switches if s.plc == p.id and s.status is not None]
+            unit = Unit(
+                p.id, p.unit_id, p.timeout_s, 0, self._backoff(), status_reads=status_reads(sw)
+            )
+            self._attach(p.transport, unit)
+            self._plc_units[p.id] = unit
+        tame_pymodbus_logging()
+
+    def _backoff(self) -> Backoff:
+        return Backoff(
+            self.profile.poll.backoff_initial_s, self.profile.poll.backoff_max_s, self._rng
+        )
+
+    def _attach(self, transport: Transport, unit: Unit) -> None:
+        ep = self._endpoints.get(transport.endpoint)
+        if ep is None:
+            link = EndpointLink(transport.endpoint, transport, unit.timeout_s, self._backoff())
+            ep = self._endpoints[transport.endpoint] = _Endpoint(link)
+        ep.link.timeout_s = max(ep.link.timeout_s, unit.timeout_s)
+        ep.units.append(unit)
+        ep.link.uniform_timeout = len({u.timeout_s for u in ep.units}) == 1
+
+    # ------------------------------------------------------------ public API
+
+    @property
+    def endpoint_clients(self) -> dict[str, EndpointLink]:
+        """Endpoint -> link (client + lock)."""
+        return {name: ep.link for name, ep in self._endpoints.items()}
+
+    async def ensure_link(self, transport: Transport) -> EndpointLink:
+        """The endpoint's link, dialled now if down (a technician is waiting: no backoff)."""
+        link = self._endpoints[transport.endpoint].link
+        if not link.connected:
+            await link.connect(time.monotonic())
+        return link
+
+    async def read_switch(self, switch_id: str) -> str:
+        """One fresh read of a switch's status point: "open", "closed" or "unknown"."""
+        sw = self.profile.switch(switch_id)
+        if sw.plc is None or sw.status is None:
+            return "unknown"
+        unit = self._plc_units.get(sw.plc)
+        if unit is None:
+            return "unknown"
+        ep = self._endpoints[plc_of(self.profile, sw.plc).transport.endpoint]
+        try:
+            bits, _ = await ep.link.read(
+                sw.status.kind,
+                sw.status.address,
+                1,
+                unit.unit_id,
+                unit.timeout_s,
+                unit.retries + 1,
+            )
+        except NoAnswer:
+            note_silence(ep.link, unit, ep.units)
+            return "unknown"
+        except ReadFailed:
+            return "unknown"
+        return "closed" if bits[0] else "open"
+
+    async def start(self) -> None:
+        """Connect every endpoint concurrently; an unreachable one just enters backoff."""
+        self._started = True
+        now = time.monotonic()
+        await asyncio.gather(*(ep.link.connect(now) for ep in self._endpoints.values()))
+
+    def cycle_budget(self, interval_s: float | None = None) -> float:
+        """Seconds the next cycle may wait for answers (see the module docstring)."""
+        interval = self.profile.poll.interval_s if interval_s is None else interval_s
+        return max([interval, *(self._need(ep) for ep in self._endpoints.values())])
+
+    async def poll_once(self, *, deadline_s: float | None = None) -> Snapshot:
+        """One cycle; returns by ``cycle_budget(deadline_s)`` whatever any meter does."""
+        if not self._started:
+            await self.start()
+        t_mono = time.monotonic()
+        time_utc = datetime.now(UTC)
+        self._seq += 1
+        cyc = _Cycle(
+            self._seq, time_utc, t_mono + self.cycle_budget(deadline_s), set(self._endpoints)
+        )
+        for ep in self._endpoints.values():
+            ep.wanted = cyc
+            if ep.task is None or ep.task.done():
+                ep.task = asyncio.create_task(self._serve(ep), name=f"poll {ep.link.endpoint}")
+        if cyc.remaining:
+            with contextlib.suppress(TimeoutError):
+                async with asyncio.timeout_at(cyc.deadline):
+                    await cyc.done.wait()
+        cyc.closed = True
+        blocks = {}
+        bits: dict[tuple[str, str], bool] = {}
+        for m in self.profile.meters:
+            unit = self._units[m.id]
+            blocks[m.id] = unit.deliver(
+                cyc.drafts.get(m.id) or self._pending(unit, cyc, t_mono), time_utc
+            )
+        for unit in self._plc_units.values():
+            draft = cyc.drafts.get(unit.id)
+            if draft is None and unit.status_reads:
+                draft = self._pending(unit, cyc, t_mono)
+            if draft is not None:
+                unit.deliver(draft, time_utc)
+                bits.update(draft.bits)
+        switches = {sw.id: _switch_state(sw, bits) for sw in self.profile.switches}
+        return Snapshot(
+            seq=cyc.seq,
+            time_utc=time_utc,
+            t_mono=t_mono,
+            meters=blocks,
+            switches=switches,
+            cycle_s=time.monotonic() - t_mono,
+        )
+
+    async def run(self, interval_s: float | None = None) -> AsyncIterator[Snapshot]:
+        """Cycles on a fixed grid; an overrun skips to the next free slot instead of bursting."""
+        interval = self.profile.poll.interval_s if interval_s is None else interval_s
+        t0 = time.monotonic()
+        k = 0
+        while True:
+            # end the cycle just before the next slot, so a pending meter never costs a slot
+            slot_left = t0 + (k + 1) * interval - time.monotonic() - RUN_SLOT_MARGIN_S
+            yield await self.poll_once(deadline_s=max(0.0, slot_left))
+            k += 1
+            now = time.monotonic()
+            if t0 + k * interval < now:
+                k = math.ceil((now - t0) / interval)
+            await asyncio.sleep(max(0.0, t0 + k * interval - time.monotonic()))
+
+    def meter_status(self) -> dict[str, MeterStatus]:
+        return {mid: u.status() for mid, u in self._units.items()}
+
+    def plc_status(self) -> dict[str, MeterStatus]:
+        return {pid: u.status() for pid, u in self._plc_units.items()}
+
+    async def close(self) -> None:
+        """Stop the workers (an outstanding request is cancelled) and close every client."""
+        tasks = [
+            ep.task for ep in self._endpoints.values() if ep.task is not None and not ep.task.done()
+        ]
+        for t in tasks:
+            t.cancel()
+        for t in tasks:
+            with contextlib.suppress(asyncio.CancelledError, Exception):
+                await t
+        for ep in self._endpoints.values():
+            ep.task = None
+            ep.wanted = None
+            ep.link.close()
+        self._started = False
+
+    # ------------------------------------------------------------ one cycle
+
+    @staticmethod
+    def _need(ep: _Endpoint) -> float:
+        """How long a cycle should wait for this endpoint: learned healthy time, or the full budget."""
+        if not ep.learned:
+            return ep.link.connect_timeout_s + sum(
+                u.timeout_s * (u.retries + 1) * max(1, u.requests) for u in ep.units
+            )
+        healthy = sum(u.answer_s for u in ep.units if u.backoff.failures == 0)
+        return DEADLINE_HEADROOM * healthy + DEADLINE_MARGIN_S
+
+    async def _serve(self, ep: _Endpoint) -> None:
+        """The endpoint's worker: serve the newest wanted cycle until none is open any more."""
+        while True:
+            cyc, ep.wanted = ep.wanted, None
+            if cyc is None or cyc.closed:
+                return
+            try:
+                await self._poll_endpoint(ep, cyc)
+            finally:
+                ep.busy_with = ""
+                cyc.link_done(ep.link.endpoint)
+
+    async def _poll_endpoint(self, ep: _Endpoint, cyc: _Cycle) -> None:
+        link = ep.link
+        now = time.monotonic()
+        if not link.connected and link.backoff.ready(now):
+            await link.connect(now)  # first redial after a drop is immediate
+
+        def superseded() -> bool:  # no retry for a closed cycle while a newer one waits
+            return cyc.closed and ep.wanted is not None
+
+        # healthy units first: a dead one's probe must not hold back its neighbours
+        for unit in sorted(ep.units, key=lambda u: u.backoff.failures > 0):
+            if unit.backoff.failures and superseded():
+                break  # no probe for a cycle that can take no answer while a newer one waits
+            if unit.meter is None and not unit.status_reads:
+                continue  # a PLC with no status points: nothing to read
+            ep.busy_with = unit.id
+            try:
+                if unit.meter is not None:
+                    draft = await poll_meter(link, unit, ep.units, superseded)
+                else:
+                    draft = await poll_plc(link, unit, ep.units, superseded)
+            except (
+                ModbusException,
+                OSError,
+                ValueError,
+                struct.error,
+            ) as exc:  # never kill the worker
+                log.warning("%s unit %s: %s", link.endpoint, unit.unit_id, exc)
+                draft = unanswered(unit, Quality.DECODE, f"{type(exc).__name__}: {exc}")
+            if not cyc.publish(unit.id, draft):
+                self.late_answers += 1
+        ep.learned = True
+
+    def _pending(self, unit: Unit, cyc: _Cycle, t_mono: float) -> Draft:
+        """A unit with no answer by the cycle deadline: timeout for this cycle, request kept."""
+        ep = next(e for e in self._endpoints.values() if unit in e.units)
+        waiting = ep.busy_with
+        why = f"no answer by the cycle deadline ({(cyc.deadline - t_mono) * 1000:.0f} ms)" + (
+            f"; {ep.link.endpoint} busy with {waiting}" if waiting and waiting != unit.id else ""
+        )
+        return unanswered(unit, Quality.TIMEOUT, why)
+
+
+def _switch_state(sw: Switch, bits: dict[tuple[str, str], bool]) -> str:
+    if sw.plc is None or sw.status is None:
+        return "unknown"
+    closed = bits.get((sw.plc, sw.id))
+    return "unknown" if closed is None else ("closed" if closed else "open")
+
+
+def plc_of(profile: Profile, plc_id: str) -> Plc:
+    for p in profile.plcs:
+        if p.id == plc_id:
+            return p
+    raise KeyError(plc_id)
