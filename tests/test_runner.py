@@ -16,8 +16,9 @@ import pytest
 from meas.errors import BenchwalkError, ProfileError
 from meas.profile import load_profile
 from meas.results import CheckResult, Status
-from meas.runner import Runner, State
 from meas.session import Session
+from meas.walk.runner import Runner
+from meas.walk.states import State
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
 
@@ -375,7 +376,7 @@ def write_fast_demo(folder: Path) -> Path:
 def test_review_takes_the_median_status_per_check():
     # statuses chosen to exercise the rule (no measured values involved)
     from meas.results import CheckResult
-    from meas.runner import median_per_subject
+    from meas.walk.capture import median_per_subject
 
     def batch(*statuses):
         return [CheckResult("meter.p_sum", "M1", st) for st in statuses]

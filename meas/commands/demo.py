@@ -15,8 +15,10 @@ from pathlib import Path
 from typing import TextIO
 
 from ..errors import BenchwalkError
-from ..runner import Runner, RunnerView
 from ..session import SIM_OPERATOR, Session
+from ..sim.hands import set_by_hand
+from ..walk.runner import Runner
+from ..walk.view import RunnerView
 from .run import CAUTION, add_common, drive, finish, saved_printer
 
 HELP = "run the demo feeder bench on the simulated bench (console, or --headless end to end)"
@@ -60,14 +62,9 @@ class SimTechnician:
         )
         return True
 
-    def _set_by_hand(self, runner: Runner, view: RunnerView, keep: set[str] = frozenset()) -> None:
-        for sid in view.mismatches:
-            if sid not in keep:
-                self.bench.operate_by_hand(sid, view.expected[sid])
-                print(
-                    f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
-                    file=self.out,
-                )
+    def _set_by_hand(self, view: RunnerView, command: str) -> None:
+        for sid, state in set_by_hand(view, self.bench, command):
+            print(f"  (simulated technician sets {sid} {state} by hand)", file=self.out)
 
     async def act(self, runner: Runner, view: RunnerView) -> None:
         a, step = view.action, view.step
@@ -76,15 +73,15 @@ class SimTechnician:
         if a == "confirm_operation":
             if self._give_up(runner, view):
                 return
-            self._set_by_hand(runner, view)
+            self._set_by_hand(view, "confirm_operation")
             runner.confirm_operation()
         elif a == "capture":
             if self._give_up(runner, view):
                 return
-            self._set_by_hand(runner, view)
+            self._set_by_hand(view, "capture")
             runner.capture()
         elif a == "request_remote":
-            self._set_by_hand(runner, view, keep={s for s, _ in view.remote_todo})
+            self._set_by_hand(view, "request_remote")
             sid, state = view.remote_todo[0]
             try:
                 question = runner.request_remote(sid, state)

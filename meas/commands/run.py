@@ -18,8 +18,10 @@ from typing import TextIO
 
 from ..errors import BenchwalkError
 from ..results import Status
-from ..runner import Runner, RunnerView, State
 from ..session import Session
+from ..walk.runner import Runner
+from ..walk.states import State
+from ..walk.view import RunnerView
 
 HELP = "walk a bench through its switching sequence headless, confirming steps on standard input"
 
