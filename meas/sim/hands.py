@@ -21,20 +21,25 @@ class Hands(Protocol):
     def operate_by_hand(self, switch_id: str, state: SwitchState) -> None: ...
 
 
-def set_by_hand(view: RunnerView, bench: Hands, command: str) -> list[tuple[str, SwitchState]]:
-    """Set the switches ``command`` needs on the simulated bench; returns what was set.
+def to_set_by_hand(view: RunnerView, command: str) -> list[tuple[str, SwitchState]]:
+    """The switches (and states) set by hand before ``command`` on the simulated bench.
 
     ``confirm_operation`` and ``capture`` while waiting: every mismatched switch.
     ``request_remote``: every mismatched switch but those the step commands remotely.
-    Anything else: nothing.
+    Anything else: none.
     """
     if command == "request_remote":
         keep = {s for s, _ in view.remote_todo}
-    elif command in ("confirm_operation", "capture") and view.state is State.WAITING:
+    elif command in ("confirm_operation", "capture") and view.state == State.WAITING:
         keep = set()
     else:
         return []
-    done = [(sid, view.expected[sid]) for sid in view.mismatches if sid not in keep]
+    return [(sid, view.expected[sid]) for sid in view.mismatches if sid not in keep]
+
+
+def set_by_hand(view: RunnerView, bench: Hands, command: str) -> list[tuple[str, SwitchState]]:
+    """Set the switches ``command`` needs on the simulated bench; returns what was set."""
+    done = to_set_by_hand(view, command)
     for sid, state in done:
         bench.operate_by_hand(sid, state)
     return done
