@@ -100,7 +100,8 @@ class Bridge:
     and keeps being fed after the sequence ends, so the readings stay live.
     On the simulated bench (``session.bench``) the technician's hands are simulated too: the
     confirm keys first set the switches the step expects (all but those it commands remotely),
-    as a person at the bench would, the same way ``benchwalk demo --headless`` does.
+    as a person at the bench would, by the same rule as ``benchwalk demo --headless``
+    (``meas.sim.hands``).
     """
 
     def __init__(self, session: Any, operator: str = "", out_dir: Path | None = None) -> None:
