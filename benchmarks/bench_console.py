@@ -77,6 +77,7 @@ class ReplayFeed:
             "waiting",
             overall="consistent",
             next_action="none",
+            allowed=frozenset({"skip", "note", "stop"}),
         )
 
     async def cycle(self) -> Frame:

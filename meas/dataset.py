@@ -1346,7 +1346,7 @@ def terminal_progress(description: str):
 
 # ---------------------------------------------------------------- offline re-check
 
-HISTORY = 64  # snapshots the runner keeps for history-dependent checks (meas.runner default)
+HISTORY = 64  # snapshots the runner keeps for history-dependent checks (meas.walk.runner default)
 CHECK_COLUMNS = [c.name for c in TABLES["checks"]["columns"]]
 
 

@@ -27,8 +27,10 @@ from .journal import Journal, new_session_id, resolve_session, session_path
 from .model import CapturePolicy, Profile
 from .profile import load_profile
 from .results import Status
-from .runner import Runner, RunnerView, StepOutcome
-from .sequence import configuration_before, find_step, validate_sequence
+from .walk.runner import Runner
+from .walk.sequence import configuration_before, find_step, validate_sequence
+from .walk.states import StepOutcome
+from .walk.view import RunnerView
 
 SIM_OPERATOR = "simulated technician"
 

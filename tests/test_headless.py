@@ -18,8 +18,8 @@ from test_runner import write_bench, write_fast_demo
 
 from meas.errors import BenchwalkError
 from meas.journal import Journal
-from meas.sequence import configuration_before
 from meas.session import Session
+from meas.walk.sequence import configuration_before
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -16,8 +16,9 @@ import pytest
 from meas.errors import BenchwalkError, ProfileError
 from meas.profile import load_profile
 from meas.results import CheckResult, Status
-from meas.runner import Runner, State
 from meas.session import Session
+from meas.walk.runner import Runner
+from meas.walk.states import State
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
 
@@ -375,7 +376,7 @@ def write_fast_demo(folder: Path) -> Path:
 def test_review_takes_the_median_status_per_check():
     # statuses chosen to exercise the rule (no measured values involved)
     from meas.results import CheckResult
-    from meas.runner import median_per_subject
+    from meas.walk.capture import median_per_subject
 
     def batch(*statuses):
         return [CheckResult("meter.p_sum", "M1", st) for st in statuses]
@@ -616,3 +617,83 @@ async def test_a_remote_first_step_runs_headless_to_a_pass(make_session):
     assert code == 0, text
     assert "refused" not in text and "skipped" not in text
     assert [c[1:3] for c in s.bench.plc.commands if c[3] != "hand"] == [("RX", "closed")]
+
+
+# The commands offered in each (state, next action): the console enables exactly these keys.
+# Derived by hand from the runner's command guards (``meas.walk.runner``): note at any time,
+# stop until the sequence is over, skip in every state of an open step.
+ALWAYS = {"note", "stop"}
+ALLOWED_BY_HAND = [
+    (State.WAITING, "capture", False, {"capture", "skip"} | ALWAYS),
+    (State.WAITING, "confirm_operation", False, {"confirm_operation", "skip"} | ALWAYS),
+    (State.WAITING, "request_remote", False, {"request_remote", "skip"} | ALWAYS),
+    (State.WAITING, "request_remote", True, {"request_remote", "confirm_remote", "skip"} | ALWAYS),
+    (State.WAITING, "sign", False, {"sign", "skip"} | ALWAYS),
+    (State.WAITING, "note", False, {"skip"} | ALWAYS),
+    (State.OPERATING, "wait", False, ALWAYS),
+    (State.VERIFYING, "wait", False, {"skip"} | ALWAYS),
+    (State.SETTLING, "wait", False, {"capture", "retake", "skip"} | ALWAYS),
+    (State.SETTLING, "retake", False, {"capture", "retake", "skip"} | ALWAYS),  # timed out
+    (State.CAPTURING, "wait", False, {"skip"} | ALWAYS),
+    (State.REVIEWING, "accept", False, {"accept", "retake", "skip"} | ALWAYS),
+    (State.REVIEWING, "accept_with_reason", False, {"accept", "retake", "skip"} | ALWAYS),
+    (State.REVIEWING, "retake", False, {"retake", "skip"} | ALWAYS),  # failed, gate block
+    (State.FINISHED, "none", False, {"note"}),
+    (State.STOPPED, "none", False, {"note"}),
+]
+
+
+@pytest.mark.parametrize(("state", "action", "pending", "allowed"), ALLOWED_BY_HAND)
+def test_the_view_allows_the_commands_of_each_state(state, action, pending, allowed):
+    from meas.walk.states import COMMANDS
+    from meas.walk.view import allowed_now
+
+    got = allowed_now(state, action, pending)
+    assert got == frozenset(allowed)
+    assert got <= set(COMMANDS)
+
+
+async def test_every_command_the_view_does_not_allow_is_refused_without_a_trace(make_session):
+    # A whole walk of the test sequence by the demo technician; at every view each command
+    # outside ``allowed`` is tried and must be refused, leaving the picture as it was.
+    import io
+
+    from meas.commands.demo import SimTechnician
+
+    s = await make_session()
+    r = s.runner
+    tech = SimTechnician(s.bench, out=io.StringIO())
+    probes = {
+        "confirm_operation": r.confirm_operation,
+        "request_remote": lambda: r.request_remote("RX", "closed"),
+        "capture": r.capture,
+        "retake": r.retake,
+        "skip": lambda: r.skip("probe"),
+        "accept": lambda: r.accept("probe"),
+        "sign": lambda: r.sign("probe"),
+    }
+    seen: set[tuple[State, str]] = set()
+    deadline = time.monotonic() + 60
+    async with contextlib.aclosing(s.views()) as views:
+        async for v in views:
+            assert time.monotonic() < deadline, (v.state, v.step)
+            assert v.allowed == r.view().allowed
+            for name, call in probes.items():
+                if name not in v.allowed:
+                    with pytest.raises(BenchwalkError):
+                        call()
+                    assert r.view() == v, f"{name} left a trace in {v.state}"
+            if "confirm_remote" not in v.allowed:
+                with pytest.raises(BenchwalkError):
+                    await r.confirm_remote("RX", "closed", "probe")
+                assert r.view() == v
+            seen.add((v.state, v.action))
+            if r.done:
+                break
+            await tech.act(r, v)
+    assert r.finished, r.message
+    states = {st for st, _ in seen}
+    assert {State.WAITING, State.SETTLING, State.CAPTURING, State.REVIEWING} <= states
+    assert {"capture", "request_remote", "sign", "confirm_operation", "note", "accept"} <= {
+        a for _, a in seen
+    }

@@ -8,7 +8,7 @@ import pytest
 
 from meas.errors import ProfileError
 from meas.profile import load_profile
-from meas.sequence import (
+from meas.walk.sequence import (
     changes,
     configuration_after,
     configuration_before,

@@ -19,6 +19,7 @@ from textual import events
 
 from meas.session import Session
 from tui.app import BenchwalkApp
+from tui.keys import KEYS
 from tui.screens.main import MainScreen
 from tui.screens.prompt import Alert, TextPrompt
 from tui.screens.remote import RemoteConfirm
@@ -391,3 +392,53 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         )  # nothing to accept while settling: the key is inert (press waits for idle)
         assert str(main.query_one("#notice").content) == notice
         assert all(r["state"] != "accepted" for r in runner.journal.step_history())
+
+
+async def test_the_console_enables_exactly_the_step_keys_the_runner_allows(tmp_path):
+    # The runner's view owns "what can be done now"; the frame carries it and the footer offers
+    # exactly those step keys, through a capture step, two remote steps and a manual step.
+    app = make_app(tmp_path, skip_intro=True, operator="AT")
+    async with app.run_test(size=(80, 24)) as pilot:
+        main = await open_main(pilot, app)
+        runner = app.bridge.runner
+        step_keys = [k for k in KEYS if k.command]
+        seen: set[str] = set()
+
+        def agrees() -> str:
+            view = runner.view()
+            frame = app.bridge.frame()  # built from the same view: nothing ticks in between
+            assert frame.step.allowed == view.allowed
+            main.show_frame(frame)
+            active = main.active_bindings
+            enabled = {k.command for k in step_keys if k.key in active}
+            assert enabled == view.allowed & {k.command for k in step_keys}, (
+                view.state,
+                view.action,
+            )
+            seen.add(f"{view.state}/{view.action}")
+            return view.action
+
+        deadline = time.monotonic() + 40
+        while runner.index < 3 or runner.view().action != "confirm_operation":
+            assert time.monotonic() < deadline, f"stuck at {runner.view().state} {runner.step}"
+            assert not runner.stopped, runner.message
+            a = agrees()
+            if a == "capture" or (a == "retake" and runner.view().settle_timed_out):
+                await tap(pilot, "c")
+            elif a == "request_remote":
+                await tap(pilot, "r")
+                await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
+                await tap(pilot, "a", "y")
+                await until(pilot, lambda: app.screen is main, 5, "back on the main screen")
+            elif a in ("accept", "accept_with_reason"):
+                await tap(pilot, "a")
+                if a == "accept_with_reason":
+                    await answer(pilot, app, fast=True, text="loop")
+            elif a == "retake":
+                await tap(pilot, "s")
+                await answer(pilot, app, fast=True, text="fails")
+            await pilot.pause(0.05)
+        agrees()
+        assert {"waiting/capture", "waiting/request_remote", "waiting/confirm_operation"} <= seen
+        assert any(s.startswith("settling/") for s in seen), seen
+        assert any(s.startswith("reviewing/") for s in seen), seen

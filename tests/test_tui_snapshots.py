@@ -54,6 +54,7 @@ class StillFeed:
             next_action="Checks failed: retake, or skip (press X to retake, S to skip)",
             captured=4,
             to_capture=4,
+            allowed=frozenset({"retake", "skip", "note", "stop"}),  # as the runner's view has it
         )
         checks = (
             CheckResult(

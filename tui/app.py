@@ -19,7 +19,7 @@ from textual.screen import Screen
 from meas.errors import BenchwalkError
 
 from .bridge import Bridge
-from .keys import KEYS
+from .keys import KEYS, QUIT
 from .screens.main import MainScreen
 from .screens.safety import SafetyScreen
 from .screens.start import StartChoice, StartScreen
@@ -31,7 +31,7 @@ SessionFactory = Callable[[str, str | None], Any]
 class BenchwalkApp(App[int]):
     CSS_PATH = "console.tcss"
     TITLE = "benchwalk"
-    BINDINGS = [Binding("ctrl+q", "quit", "Quit", priority=True, id="app.quit")]
+    BINDINGS = [Binding(QUIT, "quit", "Quit", priority=True, id="app.quit")]
 
     def __init__(
         self,

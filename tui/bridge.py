@@ -1,6 +1,6 @@
 """The one place the console meets the session and runner: views in, decisions out.
 
-``frame_from_view`` turns a ``meas.runner.RunnerView`` into the console's plain ``Frame``;
+``frame_from_view`` turns a ``meas.walk.view.RunnerView`` into the console's plain ``Frame``;
 ``Bridge`` wraps a session (poll one cycle, tick the runner) and forwards the technician's
 commands, turning refusals (``BenchwalkError``) into one-line notices. Everything else in
 ``tui/`` sees only frames.
@@ -17,23 +17,11 @@ from pathlib import Path
 from typing import Any
 
 from meas.errors import BenchwalkError
+from meas.sim.hands import set_by_hand, to_set_by_hand
 from meas.snapshot import Snapshot
 
 from .frame import Frame, StepInfo
-
-# runner action -> the keys to press, shown before the runner's own sentence so that a
-# narrow terminal cuts the sentence, never the key
-ACTION_KEYS: dict[str, str] = {
-    "confirm_operation": "O",
-    "request_remote": "R",
-    "capture": "C",
-    "accept": "A",
-    "accept_with_reason": "A (with reason) or X",
-    "retake": "X (or S to skip)",
-    "sign": "G",
-    "note": "N",
-    "none": "E export, Ctrl+Q quit",
-}
+from .keys import action_keys
 
 
 def frame_from_view(
@@ -49,17 +37,14 @@ def frame_from_view(
     """
     step = view.step
     action = getattr(view, "action", "none")
-    keys = ACTION_KEYS.get(action, "")
-    if action == "retake" and getattr(view, "settle_timed_out", False):
-        keys = "C capture anyway, X wait again, S skip"
+    # the keys go before the runner's own sentence so that a narrow terminal cuts the
+    # sentence, never the key
+    keys = action_keys(action, getattr(view, "settle_timed_out", False))
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
     hint = ""
-    if (
-        simulated_hands
-        and action in ("capture", "confirm_operation")
-        and getattr(view, "mismatches", ())
-    ):
-        hint = f"simulated bench: {keys} also sets {', '.join(view.mismatches)} by hand for you"
+    hands = to_set_by_hand(view, action) if simulated_hands and action != "request_remote" else []
+    if hands:
+        hint = f"simulated bench: {keys} also sets {', '.join(s for s, _ in hands)} by hand for you"
     state = str(getattr(view.state, "value", view.state))
     finished = state in ("finished", "stopped")
     if step is None:
@@ -93,6 +78,7 @@ def frame_from_view(
             overall="inconsistent" if state == "stopped" else view.overall,
             next_action=next_action,
             action=action,
+            allowed=frozenset(getattr(view, "allowed", ())),
             message=getattr(view, "message", ""),
             remote_switches=remote,
             captured=view.captured,
@@ -114,7 +100,8 @@ class Bridge:
     and keeps being fed after the sequence ends, so the readings stay live.
     On the simulated bench (``session.bench``) the technician's hands are simulated too: the
     confirm keys first set the switches the step expects (all but those it commands remotely),
-    as a person at the bench would, the same way ``benchwalk demo --headless`` does.
+    as a person at the bench would, by the same rule as ``benchwalk demo --headless``
+    (``meas.sim.hands``).
     """
 
     def __init__(self, session: Any, operator: str = "", out_dir: Path | None = None) -> None:
@@ -160,20 +147,17 @@ class Bridge:
         hands = getattr(self.session, "bench", None) is not None
         return frame_from_view(view, self.last_snapshot, events, simulated_hands=hands)
 
-    def _simulated_hands(self, keep: set[str] = frozenset()) -> None:
+    def _simulated_hands(self, command: str) -> None:
+        """On the simulated bench, set by hand what ``command`` needs (``meas.sim.hands``)."""
         bench = getattr(self.session, "bench", None)
         if bench is None:
             return
-        view = self.runner.view()
-        for sid in view.mismatches:
-            if sid not in keep:
-                bench.operate_by_hand(sid, view.expected[sid])
-                self.log(f"simulated bench: {sid} set {view.expected[sid]} by hand")
+        for sid, state in set_by_hand(self.runner.view(), bench, command):
+            self.log(f"simulated bench: {sid} set {state} by hand")
 
     def command(self, name: str, *args: Any) -> str:
         """Run a synchronous runner command; returns '' or the refusal sentence."""
-        if name in ("confirm_operation", "capture") and self.runner.view().state == "waiting":
-            self._simulated_hands()
+        self._simulated_hands(name)
         fn: Callable[..., Any] = getattr(self.runner, name)
         try:
             fn(*args)
@@ -184,7 +168,7 @@ class Bridge:
         return ""
 
     def request_remote(self, switch_id: str, state: str) -> str:
-        self._simulated_hands(keep={s for s, _ in self.runner.view().remote_todo})
+        self._simulated_hands("request_remote")
         return self.runner.request_remote(switch_id, state)
 
     async def confirm_remote(self, switch_id: str, state: str) -> str:

@@ -38,7 +38,8 @@ class StepInfo:
     overall: str = "waiting"  # key of OVERALL_MARK
     next_action: str = ""  # what to press next, in words
     message: str = ""  # the runner's last notice (why verification failed, ...)
-    action: str = ""  # the runner's action id (meas.runner.ACTIONS), gates the footer keys
+    action: str = ""  # the runner's next action (meas.walk.states.ACTIONS)
+    allowed: frozenset[str] = frozenset()  # runner commands allowed now: the step keys enabled
     remote_switches: tuple[str, ...] = ()  # switches this step may operate remotely
     captured: int = 0
     to_capture: int = 0

@@ -1,12 +1,16 @@
-"""The console's key map, defined once: main-screen bindings, the help screen and the command
-palette all read it. Letters and F-keys only (ctrl+m/i/h are Enter/Tab/Backspace on classic
-terminals)."""
+"""The console's key map, defined once: main-screen bindings, the help screen, the command
+palette and every "press ..." hint read it. Letters and F-keys only (ctrl+m/i/h are
+Enter/Tab/Backspace on classic terminals). A step key names the runner command it gives; the
+main screen enables it exactly when the runner's view allows that command."""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
 from textual.binding import Binding
+
+# the remote modal's two deliberate keys, in order: arm, then send (anything else disarms)
+ARM_KEY, SEND_KEY = "a", "y"
 
 
 @dataclass(frozen=True)
@@ -17,6 +21,7 @@ class Key:
     help: str  # one sentence for the help screen and the command palette
     group: str
     footer: bool = True
+    command: str = ""  # the runner command this key gives (meas.walk.states.COMMANDS), if any
 
 
 KEYS: tuple[Key, ...] = (
@@ -26,13 +31,16 @@ KEYS: tuple[Key, ...] = (
         "Operated",
         "Confirm you have operated the switches this step asks for.",
         "step",
+        command="confirm_operation",
     ),
     Key(
         "r",
         "remote",
         "Remote",
-        "Operate this step's remote switch: a caution, then A and Y to send.",
+        f"Operate this step's remote switch: a caution, then {ARM_KEY.upper()} and "
+        f"{SEND_KEY.upper()} to send.",
         "step",
+        command="request_remote",
     ),
     Key(
         "c",
@@ -40,6 +48,7 @@ KEYS: tuple[Key, ...] = (
         "Capture",
         "Start the capture (or capture anyway after the settle timeout).",
         "step",
+        command="capture",
     ),
     Key(
         "a",
@@ -47,11 +56,33 @@ KEYS: tuple[Key, ...] = (
         "Accept",
         "Accept the reviewed capture (a reason is asked when checks failed).",
         "step",
+        command="accept",
     ),
-    Key("x", "retake", "Retake", "Discard the review and settle and capture again.", "step"),
-    Key("s", "skip", "Skip", "Skip this step; a reason is required and journalled.", "step"),
-    Key("g", "sign", "Sign", "Sign off a hold point with your name.", "step"),
-    Key("n", "note", "Note", "Add a note to the journal (completes a note step).", "step"),
+    Key(
+        "x",
+        "retake",
+        "Retake",
+        "Discard the review and settle and capture again.",
+        "step",
+        command="retake",
+    ),
+    Key(
+        "s",
+        "skip",
+        "Skip",
+        "Skip this step; a reason is required and journalled.",
+        "step",
+        command="skip",
+    ),
+    Key("g", "sign", "Sign", "Sign off a hold point with your name.", "step", command="sign"),
+    Key(
+        "n",
+        "note",
+        "Note",
+        "Add a note to the journal (completes a note step).",
+        "step",
+        command="note",
+    ),
     Key("m", "next_meter", "Meter", "Select the next meter for phasors and trend.", "view"),
     Key("shift+m", "prev_meter", "Prev meter", "Select the previous meter.", "view", footer=False),
     Key(
@@ -90,6 +121,12 @@ KEYS: tuple[Key, ...] = (
 )
 
 
+QUIT = "ctrl+q"  # the App's quit key (kept out of KEYS: it is not a screen action)
+
+# key action -> the runner command it gives (step keys only)
+COMMAND_OF: dict[str, str] = {k.action: k.command for k in KEYS if k.command}
+
+
 def bindings() -> list[Binding]:
     return [
         Binding(k.key, k.action, k.label, show=k.footer, id=f"bench.{k.action.split('(')[0]}")
@@ -98,4 +135,32 @@ def bindings() -> list[Binding]:
 
 
 def display_key(key: str) -> str:
+    if key.startswith("ctrl+"):
+        return "Ctrl+" + display_key(key.removeprefix("ctrl+"))
     return {"shift+m": "Shift+M", "f1": "F1"}.get(key, key.upper() if len(key) == 1 else key)
+
+
+def key_of(name: str) -> str:
+    """The key bound to a runner command or a key action (as in ``KEYS``)."""
+    return next(k.key for k in KEYS if name in (k.command, k.action))
+
+
+def action_keys(action: str, settle_timed_out: bool = False) -> str:
+    """The keys to press for the runner's next action (``RunnerView.action``), as shown."""
+
+    def k(name: str) -> str:
+        return display_key(key_of(name))
+
+    if action == "retake" and settle_timed_out:
+        return f"{k('capture')} capture anyway, {k('retake')} wait again, {k('skip')} skip"
+    return {
+        "confirm_operation": k("confirm_operation"),
+        "request_remote": k("request_remote"),
+        "capture": k("capture"),
+        "accept": k("accept"),
+        "accept_with_reason": f"{k('accept')} (with reason) or {k('retake')}",
+        "retake": f"{k('retake')} (or {k('skip')} to skip)",
+        "sign": k("sign"),
+        "note": k("note"),
+        "none": f"{k('export')} export, {display_key(QUIT)} quit",
+    }.get(action, "")

@@ -12,9 +12,10 @@ from collections.abc import Collection
 from typing import Protocol, TextIO, cast
 
 from meas.errors import BenchwalkError
-from meas.model import SwitchState
-from meas.runner import Runner, RunnerView
 from meas.session import SIM_OPERATOR
+from meas.sim.hands import set_by_hand
+from meas.walk.runner import Runner
+from meas.walk.view import RunnerView
 
 
 class Technician(Protocol):
@@ -130,16 +131,9 @@ class SimTechnician:
         )
         return True
 
-    def _set_by_hand(
-        self, runner: Runner, view: RunnerView, keep: Collection[str] = frozenset()
-    ) -> None:
-        for sid in view.mismatches:
-            if sid not in keep:
-                self.bench.operate_by_hand(sid, cast(SwitchState, view.expected[sid]))
-                print(
-                    f"  (simulated technician sets {sid} {view.expected[sid]} by hand)",
-                    file=self.out,
-                )
+    def _set_by_hand(self, view: RunnerView, command: str) -> None:
+        for sid, state in set_by_hand(view, self.bench, command):
+            print(f"  (simulated technician sets {sid} {state} by hand)", file=self.out)
 
     async def act(self, runner: Runner, view: RunnerView) -> None:
         a, step = view.action, view.step
@@ -148,15 +142,15 @@ class SimTechnician:
         if a == "confirm_operation":
             if self._give_up(runner, view):
                 return
-            self._set_by_hand(runner, view)
+            self._set_by_hand(view, "confirm_operation")
             runner.confirm_operation()
         elif a == "capture":
             if self._give_up(runner, view):
                 return
-            self._set_by_hand(runner, view)
+            self._set_by_hand(view, "capture")
             runner.capture()
         elif a == "request_remote":
-            self._set_by_hand(runner, view, keep={s for s, _ in view.remote_todo})
+            self._set_by_hand(view, "request_remote")
             sid, state = view.remote_todo[0]
             try:
                 question = runner.request_remote(sid, state)

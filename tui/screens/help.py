@@ -9,7 +9,7 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Label, Static
 
-from ..keys import KEYS, display_key
+from ..keys import KEYS, QUIT, display_key
 
 GROUP_TITLE = {"step": "The step", "view": "Views", "session": "Session"}
 
@@ -25,7 +25,7 @@ def help_table() -> Table:
                 table.add_row(display_key(k.key), k.help)
     table.add_row("up/down", "Move the meter selection in the readings view.")
     table.add_row("Ctrl+P", "Command palette: every action by name.")
-    table.add_row("Ctrl+Q", "Quit. The session stays in its journal and can be resumed.")
+    table.add_row(display_key(QUIT), "Quit. The session stays in its journal and can be resumed.")
     return table
 
 

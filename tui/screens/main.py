@@ -23,7 +23,7 @@ from meas.errors import BenchwalkError
 
 from ..bridge import Bridge
 from ..frame import Frame
-from ..keys import bindings
+from ..keys import COMMAND_OF, bindings
 from ..messages import FrameReady, LogLines, PollTrouble
 from ..units import UNIT_MODE_LABEL, UNIT_MODES
 from ..widgets.bench import BenchView
@@ -45,7 +45,6 @@ VIEW_TITLE = {
     "log": "5 Log",
 }
 WIDE_MIN = (110, 34)
-_STEP_ACTIONS = {"operated", "remote", "capture", "accept", "retake", "skip", "sign"}
 
 
 # what the technician is told once a step command is taken (journalled by the runner)
@@ -252,22 +251,13 @@ class MainScreen(Screen):
 
     # ------------------------------------------------------------------ key gating
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        """Step keys show in the footer only when the step can use them."""
-        if action not in _STEP_ACTIONS:
+        """A step key is enabled (and shown in the footer) exactly when the runner's view
+        allows its command now."""
+        command = COMMAND_OF.get(action)
+        if command is None:
             return True
         step = self.frame.step if self.frame else None
-        if step is None or step.finished:
-            return False
-        st, act = step.state, step.action
-        return {
-            "operated": act == "confirm_operation",
-            "remote": act == "request_remote",
-            "capture": act == "capture" or st == "settling",
-            "accept": st == "reviewing" and act in ("accept", "accept_with_reason"),
-            "retake": st in ("reviewing", "settling"),
-            "skip": st in ("waiting", "verifying", "settling", "capturing", "reviewing"),
-            "sign": act == "sign",
-        }[action]
+        return step is not None and command in step.allowed
 
     # ------------------------------------------------------------------ step actions
     def _run(self, name: str, *args) -> None:

@@ -13,6 +13,8 @@ from textual.widgets import Label, Static
 
 from meas.cautions import REMOTE_COMMAND_CAUTION
 
+from ..keys import ARM_KEY, SEND_KEY, display_key
+
 
 class RemoteConfirm(ModalScreen[bool]):
     """Dismisses True only after A then Y; Escape or any other key after A disarms."""
@@ -51,10 +53,13 @@ class RemoteConfirm(ModalScreen[bool]):
         keys = self.query_one("#remote-keys", Static)
         if self.armed:
             keys.update(
-                f"ARMED. Press Y to send {self.switch_id} -> {self.intended}.  Any other key disarms."
+                f"ARMED. Press {display_key(SEND_KEY)} to send {self.switch_id} -> {self.intended}.  "
+                "Any other key disarms."
             )
         else:
-            keys.update("Press A to arm (1 of 2).  Esc = cancel, nothing is sent.")
+            keys.update(
+                f"Press {display_key(ARM_KEY)} to arm (1 of 2).  Esc = cancel, nothing is sent."
+            )
 
     def on_key(self, event: Key) -> None:
         event.stop()
@@ -62,9 +67,9 @@ class RemoteConfirm(ModalScreen[bool]):
             self.dismiss(False)
             return
         event.prevent_default()
-        if not self.armed and event.key == "a":
+        if not self.armed and event.key == ARM_KEY:
             self.armed = True
-        elif self.armed and event.key == "y":
+        elif self.armed and event.key == SEND_KEY:
             self.dismiss(True)
             return
         else:

@@ -6,6 +6,7 @@ from rich.text import Text
 from textual.widgets import Static
 
 from ..frame import StepInfo
+from ..keys import key_of
 from .checks import overall_text
 
 
@@ -72,7 +73,9 @@ def step_detail(step: StepInfo | None) -> Text:
         out.append(step.hint + "\n", style="italic")
     if step.remote_switches:
         out.append(
-            "remote operation available: " + ", ".join(step.remote_switches) + " (press r)\n",
+            "remote operation available: "
+            + ", ".join(step.remote_switches)
+            + f" (press {key_of('request_remote')})\n",
             style="bold",
         )
     return out

@@ -3,54 +3,58 @@
 The loader checks each step on its own; this module checks the walk as a whole: every
 expected state must be reached by an operation of the step (a command of a remote step, a
 hand operation of a manual step) or carried over from earlier steps; capture, hold and note
-steps change nothing; remote steps need control enabled. A sequence that passes can be run end to end without a surprise.
+steps change nothing; remote steps need control enabled. A sequence that passes can be run
+end to end without a surprise.
 """
 
 from __future__ import annotations
 
-from .errors import Problem, ProfileError
-from .model import Profile, Step
+from ..errors import Problem, ProfileError
+from ..model import Profile, Step, SwitchState
+
+# switch id -> the state a step leaves it in (or must find it in)
+Configuration = dict[str, SwitchState]
 
 
-def _apply(config: dict[str, str], step: Step) -> dict[str, str]:
+def _apply(config: Configuration, step: Step) -> Configuration:
     out = dict(config)
     out.update(step.operate)
     out.update(step.expect)
     return out
 
 
-def configurations(profile: Profile) -> list[dict[str, str]]:
+def configurations(profile: Profile) -> list[Configuration]:
     """The switch configuration each step leaves the bench in, in step order.
 
     It accumulates: a step states only what it changes or cares about; switches it does not
     mention keep the state an earlier step gave them. Before the first step nothing is known.
     """
-    out: list[dict[str, str]] = []
-    config: dict[str, str] = {}
+    out: list[Configuration] = []
+    config: Configuration = {}
     for step in profile.steps:
         config = _apply(config, step)
         out.append(config)
     return out
 
 
-def configuration_after(profile: Profile, index: int) -> dict[str, str]:
+def configuration_after(profile: Profile, index: int) -> Configuration:
     """The configuration the bench is in once step ``index`` is done."""
     return configurations(profile)[index] if profile.steps else {}
 
 
-def configuration_before(profile: Profile, index: int) -> dict[str, str]:
+def configuration_before(profile: Profile, index: int) -> Configuration:
     """The configuration the bench is in when step ``index`` starts (empty for the first)."""
     return configurations(profile)[index - 1] if index > 0 else {}
 
 
-def expected_for(profile: Profile, index: int) -> dict[str, str]:
+def expected_for(profile: Profile, index: int) -> Configuration:
     """Every switch state the step at ``index`` must find before it captures."""
     return configuration_after(profile, index)
 
 
-def distinct_configurations(profile: Profile) -> list[dict[str, str]]:
+def distinct_configurations(profile: Profile) -> list[Configuration]:
     """Configurations visited, first occurrence order, duplicates dropped."""
-    seen: list[dict[str, str]] = []
+    seen: list[Configuration] = []
     for c in configurations(profile):
         if c not in seen:
             seen.append(c)
@@ -64,7 +68,7 @@ def find_step(profile: Profile, step_id: str) -> int:
     raise KeyError(step_id)
 
 
-def changes(profile: Profile, index: int) -> dict[str, str]:
+def changes(profile: Profile, index: int) -> Configuration:
     """The switch states step ``index`` changes: commands of a remote step, hand operations
     of a manual step (its ``expect`` entries that differ from the carried configuration)."""
     before = configuration_before(profile, index)
@@ -79,7 +83,7 @@ def sequence_problems(profile: Profile) -> list[Problem]:
     """
     problems: list[Problem] = []
     switches = {s.id: s for s in profile.switches}
-    config: dict[str, str] = {}
+    config: Configuration = {}
 
     def add(i: int, step: Step, path: str, message: str) -> None:
         problems.append(Problem(profile.path, None, f"step[{i}] {step.id}: {path}", message))

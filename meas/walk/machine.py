@@ -1,0 +1,375 @@
+"""The step state machine: a step's state and its transitions on each polled snapshot.
+
+It knows steps, switch states, settle and checks; it knows nothing of Modbus or of screens.
+Whoever owns the poll loop feeds it every snapshot (``tick``); the technician's commands are
+``meas.walk.runner.Runner``'s, built on this class. What it is given is typed in
+``meas.walk.ports``; the public API is the docstring of ``meas.walk``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+from ..errors import BenchwalkError
+from ..model import Profile, Step, SwitchState
+from ..results import CheckResult, Status, overall
+from ..snapshot import Snapshot
+from .capture import CaptureBook
+from .live import LiveWatch
+from .ports import CheckFn, JournalSink, Settle, SettleFactory, SwitchOperator
+from .remote import RemoteOps
+from .sequence import configurations
+from .states import State, StepOutcome
+from .status import mismatch_text, mismatches, unread
+from .view import RunnerView, view_of
+
+
+class StepMachine:
+    """One session's walk through ``profile.steps``: state, bookkeeping, the poll feed."""
+
+    def __init__(
+        self,
+        profile: Profile,
+        journal: JournalSink,
+        *,
+        checks: CheckFn,
+        settle_factory: SettleFactory,
+        control: SwitchOperator | None = None,
+        operator: str = "",
+        start_index: int = 0,
+        live_every_s: float = 1.0,
+        live_checks: bool = True,
+        history: int = 64,
+        on_saved: Callable[[int, str, str], None] | None = None,
+        prior_outcomes: dict[str, StepOutcome] | None = None,
+    ) -> None:
+        if not profile.steps:
+            raise BenchwalkError(
+                f"{profile.path}: the profile has no steps; name a [sequence] file"
+            )
+        self.profile = profile
+        self.configs = configurations(profile)  # what each step must find, computed once
+        self.journal = journal
+        self._checks = checks
+        self._settle_factory = settle_factory
+        self.control = control
+        self.operator = operator
+        self.live_every_s = live_every_s
+        self.live_checks = live_checks  # False: check only captured snapshots (headless)
+        self.on_saved = on_saved
+        self.outcomes: dict[str, StepOutcome] = dict(prior_outcomes or {})
+        self.book = CaptureBook(history)
+        self.live = LiveWatch(profile, settle_factory)  # gates the live noise/frozen checks
+        self.live_results: list[CheckResult] = []
+        self.last: Snapshot | None = None
+        self._last_live_t = float("-inf")
+        self.index = start_index
+        self.state = State.WAITING
+        self.message = ""
+        self._reset_step()
+        if self.index >= len(profile.steps):
+            self.state = State.FINISHED
+        else:
+            self._enter_step()
+
+    # ------------------------------------------------------------------ properties
+
+    @property
+    def step(self) -> Step | None:
+        return self.profile.steps[self.index] if self.index < len(self.profile.steps) else None
+
+    @property
+    def finished(self) -> bool:
+        return self.state is State.FINISHED
+
+    @property
+    def stopped(self) -> bool:
+        return self.state is State.STOPPED
+
+    @property
+    def done(self) -> bool:
+        return self.state in (State.FINISHED, State.STOPPED)
+
+    def skipped_steps(self) -> list[str]:
+        """Steps left without acceptance: the record is incomplete even when nothing failed."""
+        return [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
+
+    def verdict(self) -> Status:
+        """FAIL when any step ended with failing checks (accepted under gate allow, or skipped)."""
+        return overall([CheckResult("step", o.step_id, o.status) for o in self.outcomes.values()])
+
+    def expected(self) -> dict[str, SwitchState]:
+        """The switch states the current step must find (its full configuration)."""
+        return dict(self.configs[self.index]) if self.index < len(self.configs) else {}
+
+    def actual(self) -> dict[str, str]:
+        """The switch status of the latest snapshot (empty before the first poll)."""
+        return dict(self.last.switches) if self.last is not None else {}
+
+    def mismatches(self) -> list[str]:
+        return mismatches(self.profile, self.expected(), self.actual())
+
+    def view(self) -> RunnerView:
+        return view_of(self)
+
+    # ------------------------------------------------------------------ step bookkeeping
+
+    def _reset_step(self) -> None:
+        self.settle: Settle | None = None
+        self._verify_deadline: float | None = None
+        self._unread_since: float | None = None  # first snapshot whose switch status was unread
+        self._settle_t0: float | None = None
+        self.book.reset()
+        self.remote = RemoteOps()
+
+    def _enter_step(self) -> None:
+        step = self.step
+        assert step is not None
+        self._reset_step()
+        self.state = State.WAITING
+        self.journal.record_step(
+            step.id,
+            "waiting",
+            operator=self.operator,
+            expected_switches=self.expected(),
+        )
+
+    def _advance(self) -> None:
+        self.index += 1
+        if self.index >= len(self.profile.steps):
+            self.state = State.FINISHED
+            self.journal.record_event("finished", "sequence completed", operator=self.operator)
+            return
+        self._enter_step()
+
+    def _now(self) -> float:
+        return self.last.t_mono if self.last is not None else 0.0
+
+    def _mismatch_text(self, bad: list[str]) -> str:
+        return mismatch_text(self.expected(), self.actual(), bad)
+
+    def _journal(self, kind: str, message: str, **data: object) -> None:
+        """An event of the current step, by the operator."""
+        self.journal.record_event(
+            kind,
+            message,
+            step_id=self.step.id if self.step else None,
+            operator=self.operator,
+            data=data or None,
+        )
+
+    def _record(self, snapshot: Snapshot, role: str) -> int:
+        step = self.step
+        row = self.journal.record_snapshot(snapshot, step_id=step.id if step else None, role=role)
+        self.book.saved(snapshot, row)
+        if self.on_saved is not None:
+            self.on_saved(row, step.id if step else "", role)
+        return row
+
+    def _require(self, *states: State, what: str) -> Step:
+        step = self.step
+        if step is None or self.state not in states:
+            now = "the sequence is over" if step is None else f"the step is {self.state.value}"
+            raise BenchwalkError(f"cannot {what} now: {now}")
+        return step
+
+    # ------------------------------------------------------------------ the poll feed
+
+    async def tick(self, snapshot: Snapshot) -> None:
+        """Advance on one polled snapshot; records it in the journal with its role."""
+        self.last = snapshot
+        self.book.history.append(snapshot)
+        if self.done:
+            return
+        self.live.follow(snapshot, self.step)
+        self.book.new_tick()
+        if self.live_checks:
+            self.live_results = self._results_for(snapshot)
+        st = self.state
+        if st in (State.OPERATING, State.VERIFYING, State.SETTLING):
+            self._record(snapshot, "settling")
+        if st is State.VERIFYING:
+            self._tick_verify(snapshot)
+        elif st is State.SETTLING:
+            self._tick_settle(snapshot)
+        elif st is State.CAPTURING:
+            self._tick_capture(snapshot)
+        elif st in (State.WAITING, State.REVIEWING) and (
+            snapshot.t_mono - self._last_live_t >= self.live_every_s
+        ):
+            self._last_live_t = snapshot.t_mono
+            self._record(snapshot, "live")
+
+    def _results_for(self, snapshot: Snapshot) -> list[CheckResult]:
+        capturing = self.state is State.CAPTURING
+        return self.book.results(snapshot, self._checks, capturing=capturing, live=self.live)
+
+    def _status_hold(self, snapshot: Snapshot) -> str | None:
+        """Settling and capturing: ``"changed"``, ``"unread"`` (hold this snapshot) or None.
+
+        A status read as the wrong state is a change of configuration. A status that could not
+        be read (the PLC missed a poll) proves nothing either way: the snapshot is kept but not
+        captured, and only a loss lasting past ``control.verify_timeout_s`` sends the step back.
+        """
+        bad = self.mismatches()
+        if not bad:
+            if self._unread_since is not None:
+                self._unread_since = None
+                self.message = ""
+            return None
+        if not unread(self.actual(), bad):
+            self._unread_since = None
+            self._config_changed()
+            return "changed"
+        if self._unread_since is None:
+            self._unread_since = snapshot.t_mono
+            self.message = f"status of {', '.join(bad)} not read: captures held until it is"
+            self._journal("status_unread", self.message)
+        elif snapshot.t_mono - self._unread_since > self.profile.control.verify_timeout_s:
+            lost_s = snapshot.t_mono - self._unread_since
+            self._unread_since = None
+            text = ", ".join(bad)
+            self._journal("status_lost", f"status of {text} unread for {lost_s:.1f} s")
+            self.message = (
+                f"status of {text} not read for {lost_s:.1f} s: check the PLC and its link, "
+                "then confirm again"
+            )
+            self.book.restart()
+            self.state = State.WAITING
+        return "unread"
+
+    def _tick_verify(self, snapshot: Snapshot) -> None:
+        step = self.step
+        assert step is not None
+        if self._verify_deadline is None:
+            self._verify_deadline = snapshot.t_mono + self.profile.control.verify_timeout_s
+        bad = self.mismatches()
+        if not bad:
+            self.journal.record_step(
+                step.id,
+                "verified",
+                operator=self.operator,
+                actual_switches=self.actual(),
+                expected_switches=self.expected(),
+            )
+            self.message = ""
+            self._start_settle()
+            return
+        if snapshot.t_mono < self._verify_deadline:
+            return
+        text = self._mismatch_text(bad)
+        if step.kind == "remote":
+            self._stop(f"switch status does not match after the remote command: {text}")
+        else:
+            self._journal("mismatch", text, actual=self.actual(), expected=self.expected())
+            todo = (
+                "check the PLC and its link"
+                if unread(self.actual(), bad)
+                else "set the switches as instructed"
+            )
+            self.message = f"{text}; {todo}, then confirm again"
+            self._verify_deadline = None
+            self.state = State.WAITING
+
+    def _start_settle(self) -> None:
+        step = self.step
+        assert step is not None
+        if step.capture is None:
+            self.book.review = []
+            self.state = State.REVIEWING
+            self.journal.record_step(step.id, "reviewing", operator=self.operator, outcome="pass")
+            return
+        self.settle = self._settle_factory(step.capture)
+        self._settle_t0 = None
+        self._unread_since = None
+        self.book.restart()
+        self.state = State.SETTLING
+        self.journal.record_step(step.id, "settling", operator=self.operator)
+
+    def _tick_settle(self, snapshot: Snapshot) -> None:
+        step = self.step
+        assert step is not None and self.settle is not None
+        hold = self._status_hold(snapshot)
+        if hold == "changed" or self.state is not State.SETTLING:
+            return
+        settle = self.settle
+        was_timed_out = settle.timed_out
+        if self._settle_t0 is None:
+            self._settle_t0 = snapshot.t_mono
+        settle.update(snapshot)
+        if settle.settled:
+            self.book.steady_t0 = self._settle_t0 + settle.settle_s
+            self.journal.record_step(
+                step.id, "capturing", operator=self.operator, settle_s=settle.settle_s
+            )
+            self.state = State.CAPTURING
+            self.book.new_tick()  # judge this snapshot again, on the steady history
+            self._tick_capture(snapshot)
+        elif settle.timed_out and not was_timed_out:
+            worst = settle.worst
+            self.message = (
+                f"not settled after {settle.elapsed_s:.1f} s"
+                + (f" (least steady: {worst})" if worst else "")
+                + ": wait again (retake), capture anyway, or skip with a reason"
+            )
+            self._journal("settle_timeout", self.message, elapsed_s=settle.elapsed_s, worst=worst)
+
+    def _tick_capture(self, snapshot: Snapshot) -> None:
+        step = self.step
+        assert step is not None and step.capture is not None
+        hold = self._status_hold(snapshot)
+        if hold == "changed" or self.state is not State.CAPTURING:
+            return
+        policy = step.capture
+        if hold == "unread" or not self.book.due(snapshot, policy, self.profile.poll.interval_s):
+            self._record(snapshot, "live")
+            return
+        row = self._record(snapshot, "capture")
+        results = self.live_results = self._results_for(snapshot)
+        self.journal.record_checks(row, step.id, results)
+        # the exact history these checks saw, so an offline re-check can replay it
+        used = self.book.history_rows()
+        self.journal.record_event(
+            "check_history",
+            f"checks of snapshot {row} used {len(used)} earlier snapshots",
+            step_id=step.id,
+            data={"snapshot": row, "history": used},
+        )
+        self.book.take(row, results, snapshot.t_mono)
+        if self.book.complete(policy):
+            status = overall(self.book.review)
+            self.state = State.REVIEWING
+            self.journal.record_step(
+                step.id,
+                "reviewing",
+                operator=self.operator,
+                outcome=status.value,
+                actual_switches=self.actual(),
+                expected_switches=self.expected(),
+            )
+
+    def _config_changed(self) -> None:
+        step = self.step
+        assert step is not None
+        text = self._mismatch_text(self.mismatches())
+        self._journal("config_changed", text)
+        self.message = (
+            f"switch state changed during the step ({text}); restore it and confirm again"
+        )
+        self.book.restart()
+        self.state = State.WAITING
+
+    def _stop(self, reason: str) -> None:
+        step = self.step
+        self.message = reason
+        if step is not None:
+            self.journal.record_step(
+                step.id,
+                "stopped",
+                operator=self.operator,
+                reason=reason,
+                actual_switches=self.actual(),
+                expected_switches=self.expected(),
+            )
+        self._journal("stopped", reason)
+        self.state = State.STOPPED
