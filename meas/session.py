@@ -24,7 +24,7 @@ from typing import Any
 
 from .errors import BenchwalkError
 from .journal import Journal, new_session_id, resolve_session, session_path
-from .model import CapturePolicy, Profile
+from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
 from .walk.runner import Runner
@@ -297,6 +297,23 @@ class Session:
         return cls(profile, journal, poller, runner, bench, control)
 
     # ------------------------------------------------------------------ running
+
+    def would_set_by_hand(self, view: RunnerView, command: str) -> list[tuple[str, SwitchState]]:
+        """What a hand at the simulated bench sets before ``command`` (none on a real bench)."""
+        if self.bench is None:
+            return []
+        from .sim.hands import to_set_by_hand
+
+        return to_set_by_hand(view, command)
+
+    def set_by_hand(self, view: RunnerView, command: str) -> list[tuple[str, SwitchState]]:
+        """On the simulated bench, set by hand what ``command`` needs (the one rule, in
+        ``meas.sim.hands``, for the console and the headless demo alike); returns what was set."""
+        if self.bench is None:
+            return []
+        from .sim.hands import set_by_hand
+
+        return set_by_hand(view, self.bench, command)
 
     async def views(self) -> AsyncIterator[RunnerView]:
         """Poll, feed the runner, yield its picture; ends when the sequence is done."""

@@ -99,7 +99,7 @@ async def _walk(session: Session, steps: int) -> None:
     """The simulated technician walks ``steps`` steps, then the session is stopped."""
     from tui.commands.technicians import SimTechnician
 
-    tech = SimTechnician(session.bench, out=io.StringIO())
+    tech = SimTechnician(session, out=io.StringIO())
     r = session.runner
     start = r.index
     async for view in session.views():

@@ -15,7 +15,6 @@ from hypothesis import strategies as st
 from modbus_helpers import make_map, spec, tcp_meter
 
 from meas.errors import BenchwalkError
-from meas.model import DATA_TYPES, REGISTER_COUNT, REGISTER_KINDS, RegisterMap
 from meas.modbus.plan import (
     MAX_READ_REGISTERS,
     bits_per_character,
@@ -28,7 +27,7 @@ from meas.modbus.plan import (
     rtu_request_time_s,
     t35_s,
 )
-from meas.model import REGISTER_COUNT, RegisterMap
+from meas.model import DATA_TYPES, REGISTER_COUNT, REGISTER_KINDS, RegisterMap
 from meas.profile import load_profile
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]

@@ -528,7 +528,7 @@ async def test_the_demo_technician_gives_up_on_a_silent_plc_and_the_run_ends_inc
         sequence, edit=lambda t: fast_profile_text(t, verify_timeout_s=0.3), faults=["offline:PLC1"]
     )
     out = io.StringIO()
-    code = await drive(s, SimTechnician(s.bench, out=out, attempts=2), out)
+    code = await drive(s, SimTechnician(s, out=out, attempts=2), out)
     text = out.getvalue()
     assert code == 1, text
     assert "gave up after 2 tries" in text and "check the PLC and its link" in text
@@ -612,7 +612,7 @@ async def test_a_remote_first_step_runs_headless_to_a_pass(make_session):
     )  # the remote RX step alone
     s = await make_session(remote_first)
     out = io.StringIO()
-    code = await drive(s, SimTechnician(s.bench, out=out), out)
+    code = await drive(s, SimTechnician(s, out=out), out)
     text = out.getvalue()
     assert code == 0, text
     assert "refused" not in text and "skipped" not in text
@@ -658,11 +658,11 @@ async def test_every_command_the_view_does_not_allow_is_refused_without_a_trace(
     # outside ``allowed`` is tried and must be refused, leaving the picture as it was.
     import io
 
-    from meas.commands.demo import SimTechnician
+    from tui.commands.technicians import SimTechnician
 
     s = await make_session()
     r = s.runner
-    tech = SimTechnician(s.bench, out=io.StringIO())
+    tech = SimTechnician(s, out=io.StringIO())
     probes = {
         "confirm_operation": r.confirm_operation,
         "request_remote": lambda: r.request_remote("RX", "closed"),

@@ -12,12 +12,11 @@ import asyncio
 import contextlib
 import inspect
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 from meas.errors import BenchwalkError
-from meas.sim.hands import set_by_hand, to_set_by_hand
 from meas.snapshot import Snapshot
 
 from .frame import Frame, StepInfo
@@ -28,12 +27,12 @@ def frame_from_view(
     view: Any,
     snapshot: Snapshot | None,
     events: tuple[str, ...] = (),
-    simulated_hands: bool = False,
+    hands: Sequence[tuple[str, str]] = (),
 ) -> Frame:
     """A console frame from a RunnerView (duck-typed, so tests can hand-build either).
 
-    ``simulated_hands``: on the simulated bench the capture and confirm keys also set the
-    mismatched switches by hand, and the step panel says so.
+    ``hands``: on the simulated bench, the switches the next key also sets by hand
+    (``Session.would_set_by_hand``), which the step panel names.
     """
     step = view.step
     action = getattr(view, "action", "none")
@@ -42,8 +41,7 @@ def frame_from_view(
     keys = action_keys(action, getattr(view, "settle_timed_out", False))
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
     hint = ""
-    hands = to_set_by_hand(view, action) if simulated_hands and action != "request_remote" else []
-    if hands:
+    if hands and action != "request_remote":
         hint = f"simulated bench: {keys} also sets {', '.join(s for s, _ in hands)} by hand for you"
     state = str(getattr(view.state, "value", view.state))
     finished = state in ("finished", "stopped")
@@ -144,15 +142,12 @@ class Bridge:
             self._last_state = mark
             self.transitions += 1
         events, self._events = tuple(self._events), []
-        hands = getattr(self.session, "bench", None) is not None
-        return frame_from_view(view, self.last_snapshot, events, simulated_hands=hands)
+        hands = self.session.would_set_by_hand(view, str(getattr(view, "action", "none")))
+        return frame_from_view(view, self.last_snapshot, events, hands=hands)
 
     def _simulated_hands(self, command: str) -> None:
-        """On the simulated bench, set by hand what ``command`` needs (``meas.sim.hands``)."""
-        bench = getattr(self.session, "bench", None)
-        if bench is None:
-            return
-        for sid, state in set_by_hand(self.runner.view(), bench, command):
+        """On the simulated bench, set by hand what ``command`` needs (``Session.set_by_hand``)."""
+        for sid, state in self.session.set_by_hand(self.runner.view(), command):
             self.log(f"simulated bench: {sid} set {state} by hand")
 
     def command(self, name: str, *args: Any) -> str:

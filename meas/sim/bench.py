@@ -24,8 +24,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import BenchwalkError
-from ..model import REGISTER_KINDS, Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
 from ..modbus.codec import encode
+from ..model import REGISTER_KINDS, Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
 from ..scaling import to_primary
 from ..snapshot import Snapshot
 from .faults import Fault, find, validate_faults

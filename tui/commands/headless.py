@@ -13,9 +13,9 @@ from pathlib import Path
 from typing import TextIO
 
 from meas.results import Status
+from meas.session import Session
 from meas.walk.states import State
 from meas.walk.view import RunnerView
-from meas.session import Session
 
 from .technicians import Technician
 

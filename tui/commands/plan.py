@@ -11,8 +11,8 @@ import argparse
 from rich.console import Console
 from rich.table import Table
 
-from meas.model import RtuTransport
 from meas.modbus.plan import naive_request_count, plan_profile, rtu_cycle_time_s
+from meas.model import RtuTransport
 from meas.profile import load_profile
 
 HELP = "show the poll plan: read requests, registers and RTU bus time per meter"

@@ -57,7 +57,7 @@ async def _headless(args: argparse.Namespace) -> int:
     )
     tech: Technician
     if session.bench is not None:
-        tech = SimTechnician(session.bench, SIM_OPERATOR)
+        tech = SimTechnician(session, SIM_OPERATOR)
     else:
         tech = PromptTechnician(session.runner.operator)
     return await walk(session, tech, args.out)

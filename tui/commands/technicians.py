@@ -8,12 +8,11 @@ from __future__ import annotations
 
 import asyncio
 import sys
-from collections.abc import Collection
-from typing import Protocol, TextIO, cast
+from typing import Protocol, TextIO
 
 from meas.errors import BenchwalkError
+from meas.model import SwitchState
 from meas.session import SIM_OPERATOR
-from meas.sim.hands import set_by_hand
 from meas.walk.runner import Runner
 from meas.walk.view import RunnerView
 
@@ -25,9 +24,9 @@ class Technician(Protocol):
 
 
 class Hands(Protocol):
-    """The simulated bench's switch panel: operating a switch by hand, not by a Modbus write."""
+    """Sets switches by hand on the simulated bench (``Session.set_by_hand``), no Modbus write."""
 
-    def operate_by_hand(self, switch_id: str, state: SwitchState) -> None: ...
+    def set_by_hand(self, view: RunnerView, command: str) -> list[tuple[str, SwitchState]]: ...
 
 
 class PromptTechnician:
@@ -105,13 +104,13 @@ class SimTechnician:
 
     def __init__(
         self,
-        bench: Hands,
+        hands: Hands,
         operator: str = SIM_OPERATOR,
         retakes: int = 1,
         out: TextIO = sys.stdout,
         attempts: int = 3,
     ):
-        self.bench, self.operator, self.retakes, self.out = bench, operator, retakes, out
+        self.hands, self.operator, self.retakes, self.out = hands, operator, retakes, out
         self.attempts = attempts
         self._retaken: dict[str, int] = {}
         self._tried: dict[str, int] = {}
@@ -132,7 +131,7 @@ class SimTechnician:
         return True
 
     def _set_by_hand(self, view: RunnerView, command: str) -> None:
-        for sid, state in set_by_hand(view, self.bench, command):
+        for sid, state in self.hands.set_by_hand(view, command):
             print(f"  (simulated technician sets {sid} {state} by hand)", file=self.out)
 
     async def act(self, runner: Runner, view: RunnerView) -> None:
