@@ -20,15 +20,22 @@ import contextlib
 import math
 from collections.abc import AsyncIterator, Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, cast
 
 from .errors import BenchwalkError
 from .journal import Journal, new_session_id, resolve_session, session_path
-from .model import CapturePolicy, Profile
+from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
 from .runner import Runner, RunnerView, StepOutcome
 from .sequence import configuration_before, find_step, validate_sequence
+from .snapshot import Snapshot
+
+if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
+    from .checks.settle import SettleState
+    from .control import SwitchControl
+    from .poller import Poller
+    from .sim.bench import SimulatedBench
 
 SIM_OPERATOR = "simulated technician"
 
@@ -42,9 +49,9 @@ class _SettleAdapter:
         self._det = SettleDetector(profile, policy.settle)
         self._window_s = policy.settle.window_s
         self._limit = policy.settle.rel_spread
-        self._state: Any = None
+        self._state: SettleState | None = None
 
-    def update(self, snapshot) -> None:
+    def update(self, snapshot: Snapshot) -> None:
         self._state = self._det.feed(snapshot)
 
     @property
@@ -111,11 +118,11 @@ class Session:
         self,
         profile: Profile,
         journal: Journal,
-        poller: Any,
+        poller: Poller,
         runner: Runner,
-        bench: Any = None,
-        control: Any = None,
-    ):
+        bench: SimulatedBench | None = None,
+        control: SwitchControl | None = None,
+    ) -> None:
         self.profile = profile
         self.journal = journal
         self.poller = poller
@@ -232,7 +239,8 @@ class Session:
                     profile, meta.get("faults", ()), meta.get("seed"), meta.get("noise", True)
                 )
                 for sid, state in configuration_before(profile, index).items():
-                    bench.operate_by_hand(sid, state)
+                    # the states of the profile's steps (Step.operate: SwitchState), typed str there
+                    bench.operate_by_hand(sid, cast(SwitchState, state))
             journal.record_event(
                 "session_resumed", f"resumed at step {point}", step_id=point, operator=op
             )
@@ -258,8 +266,8 @@ class Session:
         journal: Journal,
         operator: str,
         index: int,
-        bench: Any,
-        on_saved,
+        bench: SimulatedBench | None,
+        on_saved: Callable[[int, str, str], None] | None,
         live_every_s: float,
         live_checks: bool,
         prior: dict[str, StepOutcome],
@@ -334,7 +342,7 @@ class Session:
 
 async def _start_bench(
     profile: Profile, faults: Sequence[str], seed: int | None, noise: bool
-) -> tuple[Any, Profile]:
+) -> tuple[SimulatedBench, Profile]:
     from .sim.bench import SimulatedBench
     from .sim.faults import parse_fault, validate_faults
 
