@@ -12,7 +12,7 @@ import math
 from rich.segment import Segment
 from rich.style import Style
 from textual.binding import Binding
-from textual.geometry import Region
+from textual.geometry import Region, Size
 from textual.message import Message
 from textual.strip import Strip
 from textual.widget import Widget
@@ -118,10 +118,10 @@ class ReadingsGrid(Widget, can_focus=True):
         self._states: dict[str, CommState | None] = {}
         self.rebuilt_rows = 0  # rows whose text changed (benchmark and tests read it)
 
-    def get_content_height(self, container, viewport, width: int) -> int:
+    def get_content_height(self, container: Size, viewport: Size, width: int) -> int:
         return len(self.meter_ids) + 1
 
-    def get_content_width(self, container, viewport) -> int:
+    def get_content_width(self, container: Size, viewport: Size) -> int:
         return 2 + sum(w for _, w in COLUMNS) + len(COLUMNS) - 1
 
     # -- data in -------------------------------------------------------------------------
