@@ -12,8 +12,9 @@ from numpy.typing import ArrayLike, NDArray
 
 A_OP = np.exp(2j * np.pi / 3)  # the operator a = 1 at 120 degrees
 # rows: zero, positive, negative sequence; V012 = F @ Vabc
-_F = np.array([[1, 1, 1], [1, A_OP, A_OP**2], [1, A_OP**2, A_OP]]) / 3.0
-_F_INV = np.array([[1, 1, 1], [1, A_OP**2, A_OP], [1, A_OP, A_OP**2]])
+# (complex128 either way: the dtype is spelt out for the type checker)
+_F = np.array([[1, 1, 1], [1, A_OP, A_OP**2], [1, A_OP**2, A_OP]], np.complex128) / 3.0
+_F_INV = np.array([[1, 1, 1], [1, A_OP**2, A_OP], [1, A_OP, A_OP**2]], np.complex128)
 
 
 def phasor(mag: ArrayLike, ang_deg: ArrayLike) -> NDArray[np.complex128]:
@@ -32,7 +33,7 @@ def from_sequence(s012: ArrayLike) -> NDArray[np.complex128]:
     return np.asarray(s012, complex) @ _F_INV.T
 
 
-def _ratio(num: NDArray, den: NDArray) -> NDArray[np.float64]:
+def _ratio(num: NDArray[np.float64], den: NDArray[np.float64]) -> NDArray[np.float64]:
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(den > 0, num / np.where(den > 0, den, 1.0), np.where(num > 0, np.inf, 0.0))
 
@@ -74,11 +75,6 @@ def lvur(u_ll: ArrayLike) -> NDArray[np.float64]:
     avg = u.mean(axis=-1)
     dev = np.max(np.abs(u - avg[..., None]), axis=-1)
     return 100.0 * _ratio(dev, np.abs(avg))
-
-
-def pvur(u_ln: ArrayLike) -> NDArray[np.float64]:
-    """IEEE phase voltage unbalance rate in %: the LVUR form on phase-to-neutral magnitudes."""
-    return lvur(u_ln)
 
 
 def sequence_sign(ang_deg: ArrayLike) -> NDArray[np.int8]:

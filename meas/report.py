@@ -9,8 +9,10 @@ from __future__ import annotations
 import html
 import math
 import os
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Protocol, cast
 
 import numpy as np
 import pandas as pd
@@ -36,7 +38,83 @@ class ReportData:
     balance: pd.DataFrame  # step, check, subject, value, limit, residual (medians over captures)
 
 
-def _fmt(x: float, digits: int = 4) -> str:
+# The rows the report reads from the dataset tables (``DataFrame.itertuples``), as the dataset
+# schema defines their columns; an optional text is None (or NaN) when empty.
+
+
+class _MeterRow(Protocol):
+    id: str
+    label: str | None
+    map: str
+    bus: str
+    branch: str | None
+    reports: str | None
+    ct_ratio: float
+    vt_ratio: float
+    class_p: str | None
+    class_q: str | None
+    class_v: str | None
+    class_i: str | None
+    endpoint: str | None
+
+
+class _StepRow(Protocol):
+    id: str
+    order: int
+    title: str | None
+    kind: str
+    state: str | None
+    outcome: str | None
+    operator: str | None
+    settle_s: float
+    reason: str | None
+
+
+class _IssueRow(Protocol):
+    """One row of ``ReportData.issues``."""
+
+    step: str | None
+    check: str
+    subject: str
+    message: str | None
+    count: int
+    value: float
+    limit: float
+    unit: str | None
+    waived: bool
+    reason: str
+
+
+class _BalanceRow(Protocol):
+    """One row of ``ReportData.balance``."""
+
+    step: str | None
+    check: str
+    subject: str
+    value: float
+    limit: float
+    unit: str | None
+    worst: str
+    residual: float
+
+
+def _meter_rows(ds: Dataset) -> Iterable[_MeterRow]:
+    return cast(Iterable[_MeterRow], ds["meters"].itertuples(index=False))
+
+
+def _step_rows(steps: pd.DataFrame) -> Iterable[_StepRow]:
+    return cast(Iterable[_StepRow], steps.itertuples(index=False))
+
+
+def _issue_rows(issues: pd.DataFrame) -> Iterable[_IssueRow]:
+    return cast(Iterable[_IssueRow], issues.itertuples(index=False))
+
+
+def _balance_rows(balance: pd.DataFrame) -> Iterable[_BalanceRow]:
+    return cast(Iterable[_BalanceRow], balance.itertuples(index=False))
+
+
+def _fmt(x: float | None, digits: int = 4) -> str:
     if x is None or (isinstance(x, float) and math.isnan(x)):
         return "-"
     ax = abs(x)
@@ -151,7 +229,7 @@ def balance_svg(rows: pd.DataFrame, width: int = 640) -> str:
             f'<line x1="{x(tick):.1f}" y1="{top - 6}" x2="{x(tick):.1f}" y2="{height - 18}" class="grid"/>'
         )
         parts.append(f'<text x="{x(tick):.1f}" y="{height - 4}" class="tick">{tick:.2g}</text>')
-    for n, r in enumerate(rows.itertuples(index=False)):
+    for n, r in enumerate(_balance_rows(rows)):
         y = top + n * (bar_h + gap)
         res = float(r.residual)
         w = max(1.0, x(res) - left) if math.isfinite(res) else 0.0
@@ -242,7 +320,7 @@ def render_html(rd: ReportData) -> str:
         f"<p>Sign convention: {_e(meta.get('sign_convention'))}. Values are primary, bench-side SI units.</p>"
     )
     mrows = []
-    for m in ds["meters"].itertuples(index=False):
+    for m in _meter_rows(ds):
         mrows.append(
             [
                 _e(m.id),
@@ -276,7 +354,7 @@ def render_html(rd: ReportData) -> str:
 
     out.append("<h2>Sequence</h2>")
     srows = []
-    for s in steps.itertuples(index=False):
+    for s in _step_rows(steps):
         srows.append(
             [
                 str(s.order),
@@ -303,7 +381,7 @@ def render_html(rd: ReportData) -> str:
         out.append("<p>No check failed in this session.</p>")
     else:
         irows = []
-        for r in rd.issues.itertuples(index=False):
+        for r in _issue_rows(rd.issues):
             tag = (
                 '<span class="waived">waived</span>'
                 if r.waived
@@ -333,7 +411,7 @@ def render_html(rd: ReportData) -> str:
         "<h2>Key readings per step</h2><p>Median over the step's captures of each snapshot's value "
         "(V and I: mean of the three phases). Only values of quality ok.</p>"
     )
-    for s in steps.itertuples(index=False):
+    for s in _step_rows(steps):
         sub = rd.readings[rd.readings["step"] == s.id] if not rd.readings.empty else rd.readings
         bal = rd.balance[rd.balance["step"] == s.id]
         if sub.empty and bal.empty:
@@ -370,7 +448,7 @@ def render_html(rd: ReportData) -> str:
 # ---------------------------------------------------------------- Markdown
 
 
-def _md_table(headers: list[str], rows: list[list[str]]) -> str:
+def _md_table(headers: list[str], rows: Sequence[Sequence[object]]) -> str:
     esc = lambda c: _s(c).replace("|", "\\|").replace("\n", " ")  # noqa: E731
     lines = ["| " + " | ".join(headers) + " |", "|" + "---|" * len(headers)]
     lines += ["| " + " | ".join(esc(c) for c in r) + " |" for r in rows]
@@ -406,7 +484,7 @@ def render_markdown(rd: ReportData) -> str:
                     _fmt(m.vt_ratio),
                     f"P {m.class_p}, Q {m.class_q}, V {m.class_v}, I {m.class_i}",
                 ]
-                for m in ds["meters"].itertuples(index=False)
+                for m in _meter_rows(ds)
             ],
         ),
         "",
@@ -416,7 +494,7 @@ def render_markdown(rd: ReportData) -> str:
             ["#", "step", "title", "state", "outcome", "operator", "reason"],
             [
                 [s.order, s.id, s.title, s.state or "not reached", s.outcome, s.operator, s.reason]
-                for s in ds["steps"].itertuples(index=False)
+                for s in _step_rows(ds["steps"])
             ],
         ),
         "",
@@ -439,7 +517,7 @@ def render_markdown(rd: ReportData) -> str:
                         f"{_fmt(r.value)} / {_fmt(r.limit)} {_s(r.unit)}",
                         r.count,
                     ]
-                    for r in rd.issues.itertuples(index=False)
+                    for r in _issue_rows(rd.issues)
                 ],
             )
         )
@@ -450,7 +528,7 @@ def render_markdown(rd: ReportData) -> str:
         "Median over the step's captures (V and I: mean of the three phases).",
         "",
     ]
-    for s in ds["steps"].itertuples(index=False):
+    for s in _step_rows(ds["steps"]):
         sub = rd.readings[rd.readings["step"] == s.id] if not rd.readings.empty else rd.readings
         bal = rd.balance[rd.balance["step"] == s.id]
         if sub.empty and bal.empty:
@@ -480,7 +558,7 @@ def render_markdown(rd: ReportData) -> str:
                             _fmt(r.residual, 3),
                             r.worst,
                         ]
-                        for r in bal.itertuples(index=False)
+                        for r in _balance_rows(bal)
                     ],
                 )
             )

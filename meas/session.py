@@ -20,17 +20,24 @@ import contextlib
 import math
 from collections.abc import AsyncIterator, Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .errors import BenchwalkError
 from .journal import Journal, new_session_id, resolve_session, session_path
 from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
+from .snapshot import Snapshot
 from .walk.runner import Runner
 from .walk.sequence import configuration_before, find_step, validate_sequence
 from .walk.states import StepOutcome
 from .walk.view import RunnerView
+
+if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
+    from .checks.settle import SettleState
+    from .poll.control import SwitchControl
+    from .poll.cycle import Poller
+    from .sim.bench import SimulatedBench
 
 SIM_OPERATOR = "simulated technician"
 
@@ -44,9 +51,9 @@ class _SettleAdapter:
         self._det = SettleDetector(profile, policy.settle)
         self._window_s = policy.settle.window_s
         self._limit = policy.settle.rel_spread
-        self._state: Any = None
+        self._state: SettleState | None = None
 
-    def update(self, snapshot) -> None:
+    def update(self, snapshot: Snapshot) -> None:
         self._state = self._det.feed(snapshot)
 
     @property
@@ -113,11 +120,11 @@ class Session:
         self,
         profile: Profile,
         journal: Journal,
-        poller: Any,
+        poller: Poller,
         runner: Runner,
-        bench: Any = None,
-        control: Any = None,
-    ):
+        bench: SimulatedBench | None = None,
+        control: SwitchControl | None = None,
+    ) -> None:
         self.profile = profile
         self.journal = journal
         self.poller = poller
@@ -260,8 +267,8 @@ class Session:
         journal: Journal,
         operator: str,
         index: int,
-        bench: Any,
-        on_saved,
+        bench: SimulatedBench | None,
+        on_saved: Callable[[int, str, str], None] | None,
         live_every_s: float,
         live_checks: bool,
         prior: dict[str, StepOutcome],
@@ -353,7 +360,7 @@ class Session:
 
 async def _start_bench(
     profile: Profile, faults: Sequence[str], seed: int | None, noise: bool
-) -> tuple[Any, Profile]:
+) -> tuple[SimulatedBench, Profile]:
     from .sim.bench import SimulatedBench
     from .sim.faults import parse_fault, validate_faults
 

@@ -71,15 +71,3 @@ class Snapshot:
     def __post_init__(self) -> None:
         object.__setattr__(self, "meters", MappingProxyType(dict(self.meters)))
         object.__setattr__(self, "switches", MappingProxyType(dict(self.switches)))
-
-    def value(self, meter: str, key: str) -> float:
-        block = self.meters.get(meter)
-        return math.nan if block is None else block.get(key)
-
-    def rows(self) -> list[tuple[str, str, float, str]]:
-        """(meter, key, value, quality) rows: the tidy view used by journal and dataset."""
-        out = []
-        for m, block in self.meters.items():
-            for k, v in block.values.items():
-                out.append((m, k, v, str(block.quality.get(k, Quality.DECODE))))
-        return out

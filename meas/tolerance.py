@@ -19,6 +19,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -205,7 +206,9 @@ def judge(value: float, limit: float, warn_fraction: float) -> Status:
     return Status.PASS
 
 
-def judge_many(value: NDArray, limit: NDArray, warn_fraction: float) -> NDArray[np.int8]:
+def judge_many(
+    value: NDArray[np.float64], limit: NDArray[np.float64], warn_fraction: float
+) -> NDArray[np.int8]:
     """Vectorized ``judge``: 0 fail, 1 warn, 2 pass, 3 n/a (the STATUS_RANK order)."""
     r = np.abs(value)
     out = np.full(r.shape, 2, np.int8)
@@ -243,7 +246,16 @@ class Limits:
         self.warn = settings.warn_fraction
         self._o = dict(settings.overrides)
 
-    def apply(self, check: str, unit: str, computed: float | NDArray) -> float | NDArray:
+    @overload
+    def apply(self, check: str, unit: str, computed: float) -> float: ...
+    @overload
+    def apply(
+        self, check: str, unit: str, computed: NDArray[np.float64]
+    ) -> NDArray[np.float64]: ...
+    def apply(
+        self, check: str, unit: str, computed: float | NDArray[np.float64]
+    ) -> float | NDArray[np.float64]:
+        """The limit after the overrides: a fixed value in the unit, or the computed one scaled."""
         if not self._o:
             return computed
         fixed = self._o.get(f"{check}.limit_{_UNIT_NAME.get(unit, unit.lower())}")

@@ -6,10 +6,11 @@ console module that knows ``meas.session``.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Awaitable, Callable
 from datetime import datetime
 from pathlib import Path
 
+from meas.errors import BenchwalkError
 from meas.journal import default_sessions_dir
 from meas.profile import load_profile
 from meas.session import Session
@@ -35,7 +36,9 @@ def make_factory(
     sessions_dir: Path | None = None,
     simulate: bool = True,
     allow_changed_profile: bool = False,
-) -> tuple[Callable, str, Callable[[], list[tuple[str, str]]]]:
+) -> tuple[
+    Callable[[str, str | None], Awaitable[Session]], str, Callable[[], list[tuple[str, str]]]
+]:
     """(factory(operator, resume) -> awaitable Session, bench name, session lister).
 
     The profile is loaded once up front so a bad profile fails before the screen opens.
@@ -50,6 +53,10 @@ def make_factory(
                 operator=operator,
                 profile_path=profile_path,
                 allow_changed_profile=allow_changed_profile,
+            )
+        if profile_path is None:  # the start screen offers a new session even when resuming
+            raise BenchwalkError(
+                "no profile to start a new session from: give --profile, or resume a listed session"
             )
         return await Session.new(
             profile_path,

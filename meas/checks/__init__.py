@@ -15,6 +15,7 @@ tests/test_checks_golden.py pins every field of every result bit for bit.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Literal, TypedDict
 
 import numpy as np
 
@@ -30,13 +31,21 @@ from .quality import QualityPlan
 from .quality import history as stack_history
 from .settle import SettleDetector, SettleState
 
-_QUIET = {"invalid": "ignore", "divide": "ignore", "over": "ignore"}
+
+class _Quiet(TypedDict):
+    """numpy.errstate keywords: NaN marks a missing reading, its warnings say nothing new."""
+
+    invalid: Literal["ignore"]
+    divide: Literal["ignore"]
+    over: Literal["ignore"]
+
+
+_QUIET: _Quiet = {"invalid": "ignore", "divide": "ignore", "over": "ignore"}
 
 __all__ = [
     "CheckEngine",
     "run_checks",
     "sort_results",
-    "by_status",
     "SettleDetector",
     "SettleState",
     "CHECK_IDS",
@@ -76,19 +85,6 @@ def sort_results(results: Sequence[CheckResult]) -> list[CheckResult]:
     return sorted(
         results, key=lambda r: (STATUS_RANK[r.status], _ORDER.get(r.check, 99), r.check, r.subject)
     )
-
-
-def by_status(results: Sequence[CheckResult]) -> list[CheckResult]:
-    """Failures first, then warnings, passes, n/a, keeping the given order within each status.
-
-    The engine emits results in a fixed order (check id order, subjects in profile order), so
-    this stable bucket pass is deterministic and much cheaper than a full sort.
-    """
-    buckets: tuple[list[CheckResult], ...] = ([], [], [], [])
-    rank = STATUS_RANK
-    for r in results:
-        buckets[rank[r.status]].append(r)
-    return buckets[0] + buckets[1] + buckets[2] + buckets[3]
 
 
 class CheckEngine:

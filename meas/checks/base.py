@@ -3,19 +3,13 @@
 from __future__ import annotations
 
 import math
-
-import numpy as np
+from typing import TypedDict
 
 from ..results import CheckResult, Status
 
 # status codes as returned by tolerance.judge_many (the STATUS_RANK order)
 FAIL, WARN, PASS, NA = 0, 1, 2, 3
 _STATUS = (Status.FAIL, Status.WARN, Status.PASS, Status.NA)
-
-
-def status(code: int) -> Status:
-    return _STATUS[int(code)]
-
 
 _new = object.__new__
 _set = object.__setattr__
@@ -27,6 +21,19 @@ def buckets() -> Buckets:
     """Result lists by status code (FAIL, WARN, PASS, NA): checks append to ``bk[code]``, so the
     engine's output is failures first in emission order without a sorting pass at the end."""
     return ([], [], [], [])
+
+
+class Template(TypedDict):
+    """Every field of a CheckResult, as its ``__dict__`` holds them (see ``template``)."""
+
+    check: str
+    subject: str
+    status: Status
+    value: float
+    limit: float
+    unit: str
+    message: str
+    cause: str
 
 
 def result(
@@ -61,7 +68,7 @@ def result(
 
 def template(
     check: str, subject: str, code: int = PASS, unit: str = "", message: str = "", cause: str = ""
-) -> dict:
+) -> Template:
     """The fixed fields of a result that recurs every run with new numbers (see ``make``)."""
     return {
         "check": check,
@@ -75,24 +82,13 @@ def template(
     }
 
 
-def make(tp: dict, value: float, limit: float) -> CheckResult:
+def make(tp: Template, value: float, limit: float) -> CheckResult:
     """A result from a ``template`` and its two numbers (plain Python floats, e.g. from tolist)."""
     r = _new(CheckResult)
     d = r.__dict__
     d.update(tp)
     d["value"] = value
     d["limit"] = limit
-    return r
-
-
-def make_msg(tp: dict, value: float, limit: float, message: str) -> CheckResult:
-    """``make`` for a result whose message embeds its figures."""
-    r = _new(CheckResult)
-    d = r.__dict__
-    d.update(tp)
-    d["value"] = value
-    d["limit"] = limit
-    d["message"] = message
     return r
 
 
@@ -117,21 +113,10 @@ def judge1(value: float, limit: float, warn_fraction: float) -> int:
     return FAIL if r > limit else WARN if r > warn_fraction * limit else PASS
 
 
-def fmt(x: float, unit: str) -> str:
+def fmt(x: float | None, unit: str) -> str:
     """Readable number with unit: 3 significant figures, no exponent for everyday sizes."""
     if x is None or (isinstance(x, float) and math.isnan(x)):
         return "n/a"
     ax = abs(x)
     s = f"{x:.0f}" if ax >= 100 else f"{x:.3g}" if ax >= 0.01 or ax == 0 else f"{x:.2e}"
     return f"{s} {unit}".strip()
-
-
-def missing(keys: list[str], x_row: np.ndarray, cols: list[int], has_row: np.ndarray) -> str:
-    """Which of the needed keys are absent from the map or not ok in this snapshot ('' if none)."""
-    absent = [k for k, c in zip(keys, cols, strict=True) if not has_row[c]]
-    if absent:
-        return "the register map has no " + ", ".join(absent)
-    bad = [k for k, c in zip(keys, cols, strict=True) if math.isnan(x_row[c])]
-    if bad:
-        return "no good reading of " + ", ".join(bad) + " in this snapshot"
-    return ""

@@ -18,8 +18,12 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 
 from ..phasors import circular_spread_deg
+
+_Floats = NDArray[np.float64]
+_Complex = NDArray[np.complex128]
 
 PH = "ABC"
 # per-phase angle corrections that undo each wiring fault (degrees); "none" first
@@ -79,59 +83,13 @@ HEALTHY = Signature(
 )  # signature_rows: no wiring fault (spread given apart)
 
 
-def signatures(
-    s_ph: np.ndarray,
-    axis: np.ndarray,
-    is_load: np.ndarray,
-    trip_deg: float = 75.0,
-    coherent_deg: float = 40.0,
-) -> list[Signature | None]:
-    """Wiring signature per meter from (n, 3) complex phase powers; None where S is NaN.
-
-    The plain all-hypotheses form; the engine runs the equivalent ``signature_rows``."""
-    ang = np.rad2deg(np.angle(s_ph))  # (n, 3)
-    corr = ang[:, None, :] + _OFF[None, :, :]  # (n, h, 3)
-    spread = circular_spread_deg(corr)  # (n, h)
-    means = np.rad2deg(np.angle(np.exp(1j * np.deg2rad(corr)).sum(axis=2))).tolist()  # (n, h)
-    first = np.argmin(spread[:, :5], axis=1).tolist()  # the three swaps share one spread
-    bad = np.isnan(s_ph).any(axis=1).tolist()
-    spread_l = spread.tolist()
-    axis_l, load_l = np.asarray(axis).tolist(), np.asarray(is_load).tolist()
-    out: list[Signature | None] = []
-    for mi in range(len(s_ph)):
-        if bad[mi]:
-            out.append(None)
-            continue
-        sp = spread_l[mi]
-        best = first[mi]
-        if best != 0 and sp[0] >= trip_deg and sp[best] <= coherent_deg:
-            if best == 4:
-                best = min(_SWAPS, key=lambda h: (_misfit(means[mi][h], axis_l[mi]), h))
-            cause = HYP_CAUSES[best]
-        else:
-            best, cause = 0, ""
-        mean = means[mi][best]
-        if (
-            load_l[mi]
-            and not cause.startswith("phases")
-            and sp[best] <= coherent_deg
-            and _misfit(mean, FORWARD) > 100.0
-        ):
-            _, tag, off = min((_misfit(mean + off, FORWARD), tag, off) for tag, off in _ALL)
-            if tag:
-                cause = tag if not cause else f"{cause},{tag}"
-                mean = _wrap(mean + off)
-        out.append(Signature(cause, float(sp[0]), float(sp[best]), mean))
-    return out
-
-
 def signature_rows(
-    ang: np.ndarray,
-    axis: np.ndarray,
-    is_load: np.ndarray,
+    ang: _Floats,
+    axis: NDArray[np.int_],
+    is_load: NDArray[np.bool_],
     trip_deg: float,
     coherent_deg: float,
-    want: np.ndarray,
+    want: NDArray[np.bool_],
 ) -> tuple[list[Signature | None], list[float]]:
     """Signatures from (m, 3) per-phase power angles (degrees) of the rows where ``want``
     (None elsewhere; ``HEALTHY`` for no fault seen), and every row's spread as measured (the
@@ -212,8 +170,8 @@ class Equation:
 
     name: str  # bus or branch id
     members: tuple[int, ...]
-    sig_p: np.ndarray  # (3,) standard uncertainty of the P residual per phase
-    sig_q: np.ndarray
+    sig_p: _Floats  # (3,) standard uncertainty of the P residual per phase
+    sig_q: _Floats
 
 
 @dataclass(frozen=True)
@@ -233,9 +191,9 @@ _ROT = {
 }
 
 
-def _deltas(s: np.ndarray) -> list[tuple[str, np.ndarray]]:
+def _deltas(s: _Complex) -> list[tuple[str, _Complex]]:
     """Change of the meter's reading that each non-scale fault would have made."""
-    out = []
+    out: list[tuple[str, _Complex]] = []
     for x in range(3):
         d = np.zeros(3, complex)
         d[x] = 2.0 * s[x]
@@ -249,11 +207,11 @@ def _deltas(s: np.ndarray) -> list[tuple[str, np.ndarray]]:
     return out
 
 
-def _wss(r: np.ndarray, sp: np.ndarray, sq: np.ndarray) -> float:
+def _wss(r: _Complex, sp: _Floats, sq: _Floats) -> float:
     return float(np.sum((r.real / sp) ** 2 + (r.imag / sq) ** 2))
 
 
-def suspects(eqs: list[Equation], s_ph: np.ndarray, ambiguity: float = 0.8) -> Suspect | None:
+def suspects(eqs: list[Equation], s_ph: _Complex, ambiguity: float = 0.8) -> Suspect | None:
     """The single-meter fault that best explains the residuals of the equations (or None)."""
     if not eqs:
         return None

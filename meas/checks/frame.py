@@ -9,9 +9,12 @@ from __future__ import annotations
 
 import math
 import operator
+from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Protocol, TypeVar, cast
 
 import numpy as np
+from numpy.typing import NDArray
 
 from ..errors import BenchwalkError
 from ..model import Meter, Profile
@@ -23,6 +26,10 @@ from ..tolerance import (
     Limits,
     class_spec,
 )
+
+FloatArray = NDArray[np.float64]
+BoolArray = NDArray[np.bool_]
+IndexArray = NDArray[np.intp]
 
 KEYS: tuple[str, ...] = tuple(all_keys())
 _OK_SET = frozenset({Quality.OK})
@@ -49,52 +56,79 @@ _PQ = slice(P4.start, Q4.stop)  # P4 then Q4, adjacent columns
 assert P4.stop == Q4.start
 
 
-def _stack(specs: list[ClassSpec]) -> ClassSpec:
-    """One ClassSpec whose numeric fields are (n, 1) arrays, for broadcasting over meters."""
+@dataclass(frozen=True)
+class StackedSpec:
+    """The numeric fields of every meter's ClassSpec as (n, 1) columns, broadcasting over meters."""
 
-    def col(name: str) -> np.ndarray:
+    main_pct: FloatArray
+    low_i_pct: FloatArray
+    low_i_frac: FloatArray
+    min_i_frac: FloatArray
+    low_pf_pct: FloatArray
+    low_pf_low_i_pct: FloatArray
+    low_pf_i_frac: FloatArray
+
+
+def _stack(specs: list[ClassSpec]) -> StackedSpec:
+    """One StackedSpec of the meters' ClassSpecs, in meter order."""
+
+    def col(name: str) -> FloatArray:
         return np.array([getattr(s, name) for s in specs], float)[:, None]
 
-    names = (
-        "main_pct",
-        "low_i_pct",
-        "low_i_frac",
-        "min_i_frac",
-        "low_pf_pct",
-        "low_pf_low_i_pct",
-        "low_pf_i_frac",
+    return StackedSpec(
+        main_pct=col("main_pct"),
+        low_i_pct=col("low_i_pct"),
+        low_i_frac=col("low_i_frac"),
+        min_i_frac=col("min_i_frac"),
+        low_pf_pct=col("low_pf_pct"),
+        low_pf_low_i_pct=col("low_pf_low_i_pct"),
+        low_pf_i_frac=col("low_pf_i_frac"),
     )
-    return ClassSpec(
-        specs[0].kind if specs else "", "*", *(col(n) for n in names), source="stacked"
-    )
+
+
+_V = TypeVar("_V")
+
+
+class _Pick(Protocol):
+    """The items of a meter's mapped keys, in map order, from a values or a quality mapping."""
+
+    def __call__(self, d: Mapping[str, _V], /) -> tuple[_V, ...]: ...
+
+
+# per meter, what Frame.build needs: (meter id, picker of its keys, its keys, one NaN per key)
+_Fill = tuple[str, _Pick, list[str], list[float]]
 
 
 @dataclass
 class Layout:
+    """What the profile alone decides, built once per profile by ``build``."""
+
     profile: Profile
     limits: Limits
     meters: tuple[Meter, ...]
     index: dict[str, int]
     cols: list[list[tuple[int, str]]]  # per meter: (column, key) of every mapped key
-    has: np.ndarray  # (n, K) bool
-    scale: np.ndarray  # (n, K) register scale (primary units)
-    is_float: np.ndarray  # (n, K) bool
-    i_n: np.ndarray  # (n,) rated primary current
-    v_n: np.ndarray  # (n,) nominal L-N voltage
-    vector_s: np.ndarray  # (n,) bool: S_total is the IEEE 1459 vector definition
-    angles: np.ndarray  # (n,) bool: the map has voltage and current angles
-    spec_p: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
-    spec_q: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
-    spec_v: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
-    spec_i: ClassSpec = field(repr=False, default=None)  # type: ignore[assignment]
-    f_nom: float = 50.0
-    axis: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]  # diagnose.FORWARD...
-    is_load: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
-    keys_of: list = field(repr=False, default=None)  # type: ignore[assignment]
-    fill: list = field(repr=False, default=None)  # type: ignore[assignment]  # per meter, for Frame.build
-    fill_rows: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
-    fill_cols: np.ndarray = field(repr=False, default=None)  # type: ignore[assignment]
-    consts: Consts = field(repr=False, default=None)  # type: ignore[assignment]
+    has: BoolArray  # (n, K) bool
+    scale: FloatArray  # (n, K) register scale (primary units)
+    is_float: BoolArray  # (n, K) bool
+    i_n: FloatArray  # (n,) rated primary current
+    v_n: FloatArray  # (n,) nominal L-N voltage
+    vector_s: BoolArray  # (n,) bool: S_total is the IEEE 1459 vector definition
+    angles: BoolArray  # (n,) bool: the map has voltage and current angles
+    spec_p: StackedSpec = field(repr=False)
+    spec_q: StackedSpec = field(repr=False)
+    spec_v: StackedSpec = field(repr=False)
+    spec_i: StackedSpec = field(repr=False)
+    f_nom: float
+    axis: NDArray[np.int_] = field(repr=False)  # diagnose.FORWARD ... per meter
+    is_load: BoolArray = field(repr=False)
+    fill: list[_Fill] = field(repr=False)  # per meter, for Frame.build
+    fill_rows: IndexArray = field(repr=False)
+    fill_cols: IndexArray = field(repr=False)
+    consts: Consts = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        self.consts = Consts.build(self)
 
     @classmethod
     def build(cls, profile: Profile) -> Layout:
@@ -123,8 +157,12 @@ class Layout:
             zone = profile.zone_of_bus(m.bus)
             v_n[mi] = zone.bench_v_ll / math.sqrt(3.0)
             i_n[mi] = m.ct_primary_a or profile.bench.s_base_va / (math.sqrt(3.0) * zone.bench_v_ll)
-        angles = has[:, V_ANG].all(axis=1) & has[:, I_ANG].all(axis=1)
-        lay = cls(
+        angles = rows_all(has[:, V_ANG]) & rows_all(has[:, I_ANG])
+        axis, is_load = _flow_axes(profile)
+        spec_p, spec_q, spec_v, spec_i = (
+            _stack([_spec(profile, m, kind) for m in meters]) for kind in "pqvi"
+        )
+        return cls(
             profile,
             Limits(profile.checks),
             meters,
@@ -137,37 +175,43 @@ class Layout:
             v_n,
             vector_s,
             angles,
+            spec_p,
+            spec_q,
+            spec_v,
+            spec_i,
             f_nom=profile.bench.frequency_hz,
+            axis=axis,
+            is_load=is_load,
+            fill=[
+                (
+                    m.id,
+                    _getter([key for _, key in mc]),
+                    [key for _, key in mc],
+                    [math.nan] * len(mc),
+                )
+                for m, mc in zip(meters, cols, strict=True)
+            ],
+            fill_rows=np.array([mi for mi, mc in enumerate(cols) for _ in mc], np.intp),
+            fill_cols=np.array([c for mc in cols for c, _ in mc], np.intp),
         )
-        lay.axis, lay.is_load = _flow_axes(profile)
-        lay.keys_of = [[key for _, key in mc] for mc in cols]
-        lay.fill = [
-            (
-                m.id,
-                _getter([key for _, key in mc]),
-                (Quality.OK,) * len(mc),
-                [key for _, key in mc],
-                [math.nan] * len(mc),
-            )
-            for m, mc in zip(meters, cols, strict=True)
-        ]
-        lay.fill_rows = np.array([mi for mi, mc in enumerate(cols) for _ in mc], np.intp)
-        lay.fill_cols = np.array([c for mc in cols for c, _ in mc], np.intp)
-        lay.spec_p, lay.spec_q, lay.spec_v, lay.spec_i = (
-            _stack([_spec(profile, m, kind) for m in meters]) for kind in "pqvi"
-        )
-        lay.consts = Consts.build(lay)
-        return lay
 
 
-def _getter(keys: list[str]):
+def _getter(keys: list[str]) -> _Pick:
     """A tuple of the keys' items, always a tuple (itemgetter of one key returns the bare item)."""
     if not keys:
-        return lambda d: ()
+        return _none
     if len(keys) == 1:
         only = keys[0]
-        return lambda d: (d[only],)
-    return operator.itemgetter(*keys)
+
+        def one(d: Mapping[str, _V], /) -> tuple[_V, ...]:
+            return (d[only],)
+
+        return one
+    return cast(_Pick, operator.itemgetter(*keys))
+
+
+def _none(d: Mapping[str, _V], /) -> tuple[_V, ...]:
+    return ()
 
 
 def _spec(profile: Profile, meter: Meter, kind: str) -> ClassSpec:
@@ -177,7 +221,7 @@ def _spec(profile: Profile, meter: Meter, kind: str) -> ClassSpec:
         raise BenchwalkError(f"{profile.path}: meter {meter.id}: {exc}") from None
 
 
-def _flow_axes(profile: Profile) -> tuple[np.ndarray, np.ndarray]:
+def _flow_axes(profile: Profile) -> tuple[NDArray[np.int_], BoolArray]:
     """Expected power direction of every meter (diagnose.FORWARD ...) and whether it meters a load.
 
     Loads draw power (forward); shunts exchange reactive power; on a line, power is expected
@@ -198,19 +242,20 @@ def _flow_axes(profile: Profile) -> tuple[np.ndarray, np.ndarray]:
                     dist[b] = dist[a] + 1
                     nxt.append(b)
         frontier = nxt
-    axis, is_load = [], []
+    axis: list[int] = []
+    is_load: list[bool] = []
     for m in profile.meters:
-        br = profile.branch(m.branch) if m.branch else None
-        is_load.append(br is not None and br.kind == "load")
-        if br is None or br.kind == "source":
+        mbr = profile.branch(m.branch) if m.branch else None
+        is_load.append(mbr is not None and mbr.kind == "load")
+        if mbr is None or mbr.kind == "source":
             axis.append(EITHER)
-        elif br.kind == "load":
+        elif mbr.kind == "load":
             axis.append(FORWARD)
-        elif br.kind == "shunt":
+        elif mbr.kind == "shunt":
             axis.append(REACTIVE)
         else:
-            far = br.to_bus if br.from_bus == m.bus else br.from_bus
-            d0, d1 = dist.get(m.bus), dist.get(far)
+            far = mbr.to_bus if mbr.from_bus == m.bus else mbr.from_bus
+            d0, d1 = dist.get(m.bus), (None if far is None else dist.get(far))
             if d0 is None or d1 is None or d0 == d1:
                 axis.append(EITHER)
             else:
@@ -222,14 +267,14 @@ def _flow_axes(profile: Profile) -> tuple[np.ndarray, np.ndarray]:
 class Frame:
     """One snapshot as arrays plus standard uncertainties (same shape) of every reading."""
 
-    x: np.ndarray  # (n, K) values, NaN = missing / not ok
-    u: np.ndarray  # (n, K) standard uncertainty of each reading
-    present: np.ndarray  # (n,) meter block present in the snapshot
-    energized: np.ndarray  # (n,) the meter sees voltage (> 50 % of nominal)
-    loaded: np.ndarray  # (n,) mean current above 1 % of In
-    v_mean: np.ndarray  # (n,) mean L-N voltage (from L-L / sqrt 3 without L-N readings)
-    v_mean_u: np.ndarray  # (n,) its standard uncertainty (the phases share the meter: linear mean)
-    i_mean: np.ndarray  # (n,) mean phase current
+    x: FloatArray  # (n, K) values, NaN = missing / not ok
+    u: FloatArray  # (n, K) standard uncertainty of each reading
+    present: BoolArray  # (n,) meter block present in the snapshot
+    energized: BoolArray  # (n,) the meter sees voltage (> 50 % of nominal)
+    loaded: BoolArray  # (n,) mean current above 1 % of In
+    v_mean: FloatArray  # (n,) mean L-N voltage (from L-L / sqrt 3 without L-N readings)
+    v_mean_u: FloatArray  # (n,) its standard uncertainty (the phases share the meter: linear mean)
+    i_mean: FloatArray  # (n,) mean phase current
     qual_ok: list[bool] | None = None  # per meter: block present and every quality ok (from build)
 
     @classmethod
@@ -244,7 +289,7 @@ class Frame:
         blocks = snap.meters
         qual_ok: list[bool] = []
         flag = qual_ok.append
-        for mi, (mid, getter, _ok_all, keys, nans) in enumerate(lay.fill):
+        for mi, (mid, getter, keys, nans) in enumerate(lay.fill):
             block = blocks.get(mid)
             if block is None:
                 fill(nans)
@@ -269,7 +314,7 @@ class Frame:
         return fr
 
     @classmethod
-    def from_array(cls, lay: Layout, x: np.ndarray, present: np.ndarray) -> Frame:
+    def from_array(cls, lay: Layout, x: FloatArray, present: BoolArray) -> Frame:
         """Values plus standard uncertainties: tolerance.power_limit / magnitude_limit /
         resolution_limit fused into a few whole-array operations (tests check they agree)."""
         c = lay.consts
@@ -310,21 +355,21 @@ class Frame:
 class Consts:
     """Per-profile matrices for Frame.from_array (shapes (n, K) or (n, 8) for P4 + Q4)."""
 
-    mag_pct: np.ndarray
-    mag_floor: np.ndarray
-    const_a: np.ndarray
-    res_abs: np.ndarray
-    res_rel: np.ndarray
-    pq: np.ndarray
-    main: np.ndarray
-    low_i: np.ndarray
-    low_i_frac: np.ndarray
-    low_pf: np.ndarray
-    low_pf_low_i: np.ndarray
-    low_pf_i_frac: np.ndarray
-    min_rated: np.ndarray
-    i_n_col: np.ndarray = field(default=None)  # type: ignore[assignment]  # (n, 1) rated current
-    v_half: np.ndarray = field(default=None)  # type: ignore[assignment]  # (n,) half the nominal voltage
+    mag_pct: FloatArray
+    mag_floor: FloatArray
+    const_a: FloatArray
+    res_abs: FloatArray
+    res_rel: FloatArray
+    pq: IndexArray
+    main: FloatArray
+    low_i: FloatArray
+    low_i_frac: FloatArray
+    low_pf: FloatArray
+    low_pf_low_i: FloatArray
+    low_pf_i_frac: FloatArray
+    min_rated: FloatArray
+    i_n_col: FloatArray  # (n, 1) rated current
+    v_half: FloatArray  # (n,) half the nominal voltage
 
     @classmethod
     def build(cls, lay: Layout) -> Consts:
@@ -351,7 +396,7 @@ class Consts:
         res_rel = np.where(lay.is_float, 2.0**-24, 0.0)  # float32: half an ulp
         pq = np.r_[np.arange(P4.start, P4.stop), np.arange(Q4.start, Q4.stop)]
 
-        def pair(name: str, scale: float = 1.0) -> np.ndarray:
+        def pair(name: str, scale: float = 1.0) -> FloatArray:
             return (
                 np.concatenate(
                     [
@@ -383,7 +428,18 @@ class Consts:
         )
 
 
-def nanmean(a: np.ndarray) -> np.ndarray:
+def rows_all(a: BoolArray) -> BoolArray:
+    """Per row of a 2-D array, whether every column is True (numpy types a reduction as maybe
+    a scalar; along axis 1 of a 2-D array it is always a 1-D array)."""
+    return cast(BoolArray, a.all(axis=1))
+
+
+def rows_any(a: BoolArray) -> BoolArray:
+    """Per row of a 2-D array, whether any column is True (see ``rows_all``)."""
+    return cast(BoolArray, a.any(axis=1))
+
+
+def nanmean(a: FloatArray) -> FloatArray:
     """Row mean ignoring NaN, NaN for an all-NaN row, without numpy's warning."""
     ok = ~np.isnan(a)
     c = ok.sum(axis=1)

@@ -13,13 +13,29 @@ the texts of passing results) is prepared once in ``MeterPlan``.
 from __future__ import annotations
 
 from operator import itemgetter
+from typing import Any
 
 import numpy as np
 
 from ..results import CheckResult
 from ..tolerance import judge_many
-from .base import FAIL, NA, PASS, WARN, Buckets, fmt, na, result, template
-from .frame import COL, I_PH, P4, PF4, Q4, S4, V_LN, F, Frame, Layout
+from .base import NA, PASS, Buckets, Template, fmt, na, result, template
+from .frame import (
+    COL,
+    I_PH,
+    P4,
+    PF4,
+    Q4,
+    S4,
+    V_LN,
+    F,
+    FloatArray,
+    Frame,
+    IndexArray,
+    Layout,
+    rows_all,
+    rows_any,
+)
 
 _BLOCK = slice(P4.start, PF4.stop)  # p.A..p.T, q.A..q.T, s.A..s.T, pf.A..pf.T: contiguous columns
 assert (
@@ -39,7 +55,7 @@ _CHECKS = (
 )
 
 
-def _worst(vals: np.ndarray, lims: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _worst(vals: FloatArray, lims: FloatArray) -> tuple[IndexArray, FloatArray, FloatArray]:
     """Per row, the column with the largest |value|/limit (NaN ignored): (index, value, limit)."""
     z = np.abs(vals) / lims
     z = np.where(np.isnan(z), -1.0, z)
@@ -58,11 +74,12 @@ class MeterPlan:
         rated = lay.v_n * lay.i_n
         self.small_at = 0.01 * np.c_[rated, rated, rated, 3 * rated]
         self.rows = np.arange(len(ids))
-        self.fixed: dict[
-            str, list
-        ] = {}  # check -> per meter a fixed n/a result (profile-only reason) or None
-        self.data_na: dict[str, list] = {}  # check -> per meter the n/a result for missing data
-        self.tp: dict[str, list[dict]] = {}  # check -> per meter the template of the passing result
+        # check -> per meter a fixed n/a result (profile-only reason) or None
+        self.fixed: dict[str, list[CheckResult | None]] = {}
+        # check -> per meter the n/a result for missing data
+        self.data_na: dict[str, list[CheckResult]] = {}
+        # check -> per meter the template of the passing result
+        self.tp: dict[str, list[Template]] = {}
 
         def plan(
             check: str, need: list[bool], reason: str, data_reason: str, unit: str, msg: str
@@ -80,7 +97,7 @@ class MeterPlan:
         ):
             plan(
                 check,
-                has[:, sl].all(axis=1).tolist(),
+                rows_all(has[:, sl]).tolist(),
                 f"the register map has no {name}.A-C and {name}.T",
                 f"no good reading of every {name}.* in this snapshot",
                 unit,
@@ -88,8 +105,8 @@ class MeterPlan:
             )
         need_s = np.where(
             lay.vector_s,
-            has[:, [COL["p.T"], COL["q.T"], COL["s.T"]]].all(axis=1),
-            has[:, S4].all(axis=1),
+            rows_all(has[:, [COL["p.T"], COL["q.T"], COL["s.T"]]]),
+            rows_all(has[:, S4]),
         ).tolist()
         plan(
             "meter.s_total",
@@ -111,14 +128,14 @@ class MeterPlan:
         ]
         plan(
             "meter.pf",
-            has[:, PF4].any(axis=1).tolist(),
+            rows_any(has[:, PF4]).tolist(),
             "the register map has no power factor",
             "too little load (or no good reading) to judge the power factor",
             "1",
             "power factor matches P/S with the sign of P (IEC)",
         )
         need_sp = (
-            has[:, V_LN].all(axis=1) & has[:, I_PH].all(axis=1) & has[:, S4][:, :3].all(axis=1)
+            rows_all(has[:, V_LN]) & rows_all(has[:, I_PH]) & rows_all(has[:, S4][:, :3])
         ).tolist()
         plan(
             "meter.s_phase",
@@ -282,7 +299,9 @@ class MeterPlan:
                 else:
                     bk[c].append(self._fault(row, mi, c, vl[mi], ll[mi], locals()))
 
-    def _fault(self, row: int, mi: int, code: int, val: float, lim: float, a: dict):
+    def _fault(
+        self, row: int, mi: int, code: int, val: float, lim: float, a: dict[str, Any]
+    ) -> CheckResult:
         """A warning or failure with its diagnosis (rare: built with plain, unhurried code)."""
         lay = self.lay
         m = lay.meters[mi]
@@ -345,11 +364,4 @@ class MeterPlan:
         return result("meter.frequency", m.id, code, val, lim, "Hz", msg, "frequency")
 
 
-def meter_checks(lay: Layout, fr: Frame) -> list:
-    """The meter checks alone, in emission order (a plan per call: keep a MeterPlan for speed)."""
-    bk: Buckets = ([], [], [], [])
-    MeterPlan(lay).run(fr, bk)
-    return bk[0] + bk[1] + bk[2] + bk[3]
-
-
-__all__ = ["MeterPlan", "meter_checks", "FAIL", "WARN"]
+__all__ = ["MeterPlan"]

@@ -9,14 +9,56 @@ sees the same phase voltage and KCL holds per conductor).
 from __future__ import annotations
 
 import math
+from typing import TypedDict
 
 import numpy as np
 
 from ..results import CheckResult
-from .base import FAIL, NA, PASS, WARN, Buckets, fmt, judge1, make, na, result, template
+from .base import (
+    FAIL,
+    NA,
+    PASS,
+    WARN,
+    Buckets,
+    Template,
+    fmt,
+    judge1,
+    make,
+    na,
+    result,
+    template,
+)
 from .diagnose import Equation, suspects
 from .frame import I_PH, P4, Q4, F, Frame, Layout
 from .topology import Topology, TopoState
+
+
+class _Cols(TypedDict):
+    """Per meter, the figures the network checks read, as Python lists (cheap to index)."""
+
+    p: list[float]  # P total
+    q: list[float]  # Q total
+    up: list[float]  # standard uncertainty of P total
+    uq: list[float]
+    v: list[float]  # mean L-N voltage
+    vu: list[float]
+    live: list[bool]  # energized
+    f: list[float]
+    uf: list[float]
+
+
+# per bus, what the switch state alone decides (see NetworkChecks._balance_plan): bus, the
+# fixed n/a results of P and Q (None: judged), the templates of their passing results, the
+# judged meters, their ids as text, the meters as a tuple, and whether two or more meet there
+_BusPlan = tuple[
+    str,
+    tuple[CheckResult | None, CheckResult | None],
+    tuple[Template, Template],
+    list[int],
+    str,
+    tuple[int, ...],
+    bool,
+]
 
 
 def _median(x: list[float]) -> float:
@@ -49,22 +91,25 @@ class NetworkChecks:
             b.id: [i for i, m in enumerate(p.meters) if m.bus == b.id] for b in p.buses
         }
         self.ids = [m.id for m in p.meters]
-        self._plans: dict[int, tuple[TopoState, list[tuple]]] = {}
-        self.vn = lay.v_n.tolist()
+        self._plans: dict[int, tuple[TopoState, list[_BusPlan]]] = {}
+        self.vn: list[float] = lay.v_n.tolist()
         self.loss_frac = lay.limits.param("network.losses", "max_fraction", 0.05)
-        self.loss_fixed = []
-        for br, a, b in self.two_end:
-            ids = f"{self.ids[a]} and {self.ids[b]}"
+        # per two-end branch: n/a switched out, n/a without data, passing template, meter ids
+        self.loss_fixed: list[tuple[CheckResult, CheckResult, Template, str]] = []
+        for br_id, ia, ib in self.two_end:
+            ids = f"{self.ids[ia]} and {self.ids[ib]}"
             self.loss_fixed.append(
                 (
                     na(
                         "network.losses",
-                        br,
+                        br_id,
                         "branch is switched out (or its switch state is unknown)",
                         "W",
                     ),
-                    na("network.losses", br, "no good P total at both ends", "W"),
-                    template("network.losses", br, PASS, "W", f"losses of {br} plausible ({ids})"),
+                    na("network.losses", br_id, "no good P total at both ends", "W"),
+                    template(
+                        "network.losses", br_id, PASS, "W", f"losses of {br_id} plausible ({ids})"
+                    ),
                     ids,
                 )
             )
@@ -111,14 +156,14 @@ class NetworkChecks:
         )
 
     # ------------------------------------------------------------------ balances
-    def _balance_plan(self, st: TopoState) -> list[tuple]:
+    def _balance_plan(self, st: TopoState) -> list[_BusPlan]:
         """Per bus, what the switch state alone decides: fixed n/a results, or the members and
         the templates of the passing results (cached per switch state)."""
         hit = self._plans.get(id(st))
         if hit is not None and hit[0] is st:
             return hit[1]
         ids_all = self.ids
-        plan = []
+        plan: list[_BusPlan] = []
         for bus, bs in st.buses.items():
             reason = ""
             mem: list[int] = []
@@ -133,18 +178,17 @@ class NetworkChecks:
                 if not mem:
                     reason = "no current flows at this bus"
             ids = ", ".join(ids_all[mi] for mi in mem)
+            fixed: tuple[CheckResult | None, CheckResult | None] = (None, None)
             if reason:
                 fixed = (
                     na("network.p_balance", bus, reason, "W"),
                     na("network.q_balance", bus, reason, "var"),
                 )
-                tps = (None, None)
-            else:
-                fixed = (None, None)
-                tps = (
-                    template("network.p_balance", bus, PASS, "W", f"P balances at {bus} ({ids})"),
-                    template("network.q_balance", bus, PASS, "var", f"Q balances at {bus} ({ids})"),
-                )
+            # the templates are read only where ``fixed`` is None (made for every bus: one type)
+            tps = (
+                template("network.p_balance", bus, PASS, "W", f"P balances at {bus} ({ids})"),
+                template("network.q_balance", bus, PASS, "var", f"Q balances at {bus} ({ids})"),
+            )
             plan.append((bus, fixed, tps, mem, ids, tuple(mem), len(mem) >= 2))
         if len(self._plans) > 256:
             self._plans.clear()
@@ -153,7 +197,7 @@ class NetworkChecks:
 
     def _balance(
         self,
-        cols: dict,
+        cols: _Cols,
         st: TopoState,
         bk: Buckets,
         eqs: list[tuple[str, tuple[int, ...]]],
@@ -184,7 +228,7 @@ class NetworkChecks:
                         na(check, bus, f"no good {name} total from {', '.join(bad)}", unit)
                     )
                     continue
-                acc = 0
+                acc: float = 0
                 for mi in mem:
                     acc += us[mi] ** 2
                 u = math.sqrt(acc)  # meters independent: RSS (GUM 5.1.2)
@@ -209,7 +253,7 @@ class NetworkChecks:
 
     def _equations(self, fr: Frame, eqs: list[tuple[str, tuple[int, ...]]]) -> list[Equation]:
         """Per-phase equations with their standard uncertainties (built only when needed)."""
-        out = []
+        out: list[Equation] = []
         two = {br: (a, b) for br, a, b in self.two_end}
         for name, mem in eqs:
             m = list(mem)
@@ -223,7 +267,7 @@ class NetworkChecks:
 
     def _losses(
         self,
-        cols: dict,
+        cols: _Cols,
         st: TopoState,
         bk: Buckets,
         eqs: list[tuple[str, tuple[int, ...]]],
@@ -273,7 +317,7 @@ class NetworkChecks:
             eqs.append((br, (a, b)))
 
     # ------------------------------------------------------------------ voltages
-    def _v_agree(self, cols: dict, st: TopoState, bk: Buckets) -> dict[int, float]:
+    def _v_agree(self, cols: _Cols, st: TopoState, bk: Buckets) -> dict[int, float]:
         """Per-bus agreement; returns meter -> voltage ratio to its peers for an outlier."""
         lay = self.lay
         check = "network.v_agree"
@@ -341,7 +385,7 @@ class NetworkChecks:
             bk[code].append(result(check, bus, code, wd, wl, "V", msg, cause))
         return ratios
 
-    def _f_agree(self, cols: dict, bk: Buckets) -> None:
+    def _f_agree(self, cols: _Cols, bk: Buckets) -> None:
         lay = self.lay
         check = "network.f_agree"
         live, fa = cols["live"], cols["f"]
@@ -406,7 +450,7 @@ class NetworkChecks:
                     result(check, sw.id, code, val, lim, "A", msg, f"switch_status:{sw.id}")
                 )
 
-    def _energization(self, cols: dict, st: TopoState, bk: Buckets) -> None:
+    def _energization(self, cols: _Cols, st: TopoState, bk: Buckets) -> None:
         lay = self.lay
         check = "network.energization"
         v, vn = cols["v"], self.vn
@@ -520,7 +564,7 @@ class NetworkChecks:
     def run(self, fr: Frame, switches: dict[str, str], bk: Buckets) -> None:
         st = self.topo.state(switches)
         x, u = fr.x, fr.u
-        cols = {
+        cols: _Cols = {
             "p": x[:, P4.stop - 1].tolist(),
             "q": x[:, Q4.stop - 1].tolist(),
             "up": u[:, P4.stop - 1].tolist(),
@@ -542,4 +586,4 @@ class NetworkChecks:
         self._bad_data(fr, eqs, failed, vt, bk)
 
 
-__all__ = ["NetworkChecks", "FAIL", "NA", "WARN"]
+__all__ = ["NetworkChecks"]

@@ -11,9 +11,23 @@ import numpy as np
 
 from .. import phasors as ph
 from ..results import CheckResult
-from .base import FAIL, NA, PASS, WARN, Buckets, judge1, na, result, template
-from .diagnose import signature_rows
-from .frame import I_ANG, I_PH, P4, Q4, V_ANG, V_LL, V_LN, Frame, Layout
+from .base import FAIL, NA, PASS, WARN, Buckets, na, result, template
+from .diagnose import Signature, signature_rows
+from .frame import (
+    I_ANG,
+    I_PH,
+    P4,
+    Q4,
+    V_ANG,
+    V_LL,
+    V_LN,
+    BoolArray,
+    FloatArray,
+    Frame,
+    Layout,
+    rows_all,
+    rows_any,
+)
 
 _WIRING_TEXT = {
     "ct_reversed": "the CT of phase {x} is reversed (or its secondary leads are swapped): P and Q of that phase have the wrong sign",
@@ -38,9 +52,9 @@ class PhasePlan:
         has = lay.has
         rated = lay.v_n * lay.i_n
         self.rated = rated[:, None]
-        self._load_at: dict[float, np.ndarray] = {}  # min_load -> min_load * rated (see _loaded)
+        self._load_at: dict[float, FloatArray] = {}  # min_load -> min_load * rated (see _loaded)
         # phase.v_sequence
-        self.seq_has = has[:, V_ANG].all(axis=1).tolist()
+        self.seq_has = rows_all(has[:, V_ANG]).tolist()
         self.seq_na_map = [
             na("phase.v_sequence", mid, "the register map has no voltage angles") for mid in ids
         ]
@@ -71,7 +85,7 @@ class PhasePlan:
         self.iu_warn = L.param("phase.i_unbalance", "warn_pct", 50.0)
         self.iu_min = L.param("phase.i_unbalance", "min_load", 0.05)
         self.iu_min_i = self.iu_min * lay.i_n
-        self.iu_has = has[:, I_PH].all(axis=1).tolist()
+        self.iu_has = rows_all(has[:, I_PH]).tolist()
         self.iu_na_map = [
             na("phase.i_unbalance", mid, "the register map has no phase currents", "%")
             for mid in ids
@@ -102,7 +116,7 @@ class PhasePlan:
         self.w_min = L.param("phase.wiring", "min_load", 0.05)
         self.trip = L.param("phase.wiring", "trip_deg", 75.0)
         self.coherent = L.param("phase.wiring", "coherent_deg", 40.0)
-        w_has = (has[:, P4].all(axis=1) & has[:, Q4].all(axis=1)).tolist()
+        w_has = (rows_all(has[:, P4]) & rows_all(has[:, Q4])).tolist()
         self.w_fixed = [
             None
             if (m.branch is not None and ok)
@@ -129,11 +143,11 @@ class PhasePlan:
             for mid in ids
         ]
 
-    def _loaded(self, mag: np.ndarray, min_load: float) -> np.ndarray:
+    def _loaded(self, mag: FloatArray, min_load: float) -> BoolArray:
         at = self._load_at.get(min_load)
         if at is None:  # min_load x rating: profile-only, made once per threshold
             at = self._load_at[min_load] = min_load * self.rated
-        return (mag >= at).all(axis=1) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
+        return rows_all(mag >= at) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
 
     def run(self, fr: Frame, bk: Buckets) -> None:
         lay = self.lay
@@ -148,7 +162,7 @@ class PhasePlan:
         sign = ph.sequence_sign(
             np.minimum(np.maximum(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX), _FMAX)
         ).tolist()  # = nan_to_num
-        good = (fr.energized & ~np.isnan(ang_v).any(axis=1)).tolist()
+        good = (fr.energized & ~rows_any(np.isnan(ang_v))).tolist()
         for mi in range(n):
             if not self.seq_has[mi]:
                 na_(self.seq_na_map[mi])
@@ -203,7 +217,7 @@ class PhasePlan:
             extra = f"; NEMA MG-1 LVUR {nm:.2f} %" if nm == nm else ""
             code = FAIL if u2 > fail else WARN if u2 > warn else PASS
             if code == PASS:
-                r = new(CheckResult)  # base.make_msg, inlined (one per meter per run)
+                r = new(CheckResult)  # base.make plus the message, inlined (one per meter per run)
                 d = r.__dict__
                 d.update(vu_tp[mi])
                 d["value"], d["limit"], d["message"] = (
@@ -256,7 +270,7 @@ class PhasePlan:
                     )
                 )
             else:
-                r = new(CheckResult)  # base.make_msg, inlined
+                r = new(CheckResult)  # base.make plus the message, inlined
                 d = r.__dict__
                 d.update(self.iu_tp[mi])
                 d["value"], d["limit"], d["message"] = val, warn, msg
@@ -291,7 +305,7 @@ class PhasePlan:
                     result("phase.pf_spread", self.ids[mi], WARN, sp, warn, "deg", msg, "pf_spread")
                 )
             else:
-                r = new(CheckResult)  # base.make_msg, inlined
+                r = new(CheckResult)  # base.make plus the message, inlined
                 d = r.__dict__
                 d.update(self.pf_tp[mi])
                 d["value"], d["limit"], d["message"] = sp, warn, msg
@@ -303,7 +317,10 @@ class PhasePlan:
                 na_(fx)
                 continue
             k = pos.get(mi)
-            sg = sigs[k] if k is not None else None
+            if k is None:
+                na_(self.w_light[mi])
+                continue
+            sg = sigs[k]
             if sg is None:
                 na_(self.w_light[mi])
             elif not sg.cause:  # HEALTHY, or no fault once the hypotheses were tried
@@ -315,7 +332,7 @@ class PhasePlan:
             else:
                 bk[FAIL].append(self._wiring_fault(fr, mi, sg))
 
-    def _wiring_fault(self, fr: Frame, mi: int, sg):
+    def _wiring_fault(self, fr: Frame, mi: int, sg: Signature) -> CheckResult:
         lay = self.lay
         parts = []
         for c in sg.cause.split(","):
@@ -345,11 +362,4 @@ class PhasePlan:
         )
 
 
-def phase_checks(lay: Layout, fr: Frame) -> list:
-    """The phase checks alone, in emission order (a plan per call: keep a PhasePlan for speed)."""
-    bk: Buckets = ([], [], [], [])
-    PhasePlan(lay).run(fr, bk)
-    return bk[0] + bk[1] + bk[2] + bk[3]
-
-
-__all__ = ["PhasePlan", "phase_checks", "judge1"]
+__all__ = ["PhasePlan"]

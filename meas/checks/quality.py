@@ -10,13 +10,26 @@ one poll to the next, and a healthy meter repeats far better than its class limi
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import cast
 
 import numpy as np
 
+from ..model import Meter
 from ..results import CheckResult
-from ..snapshot import CommState, Quality, Snapshot
+from ..snapshot import CommState, MeterBlock, Quality, Snapshot
 from .base import FAIL, NA, PASS, WARN, Buckets, fmt, make, na, result, template
-from .frame import I_PH, P4, V_LL, V_LN, Frame, Layout
+from .frame import (
+    I_PH,
+    P4,
+    V_LL,
+    V_LN,
+    BoolArray,
+    FloatArray,
+    Frame,
+    Layout,
+    rows_all,
+    rows_any,
+)
 
 _FROZEN_COLS = np.r_[
     np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)
@@ -40,7 +53,7 @@ class QualityPlan:
             "quality.i_range", "fail_fraction", 1.2
         )  # CT extended rating 120 % (common practice)
         self.rows = np.arange(len(ids))
-        self.has_i = lay.has[:, I_PH].any(axis=1).tolist()
+        self.has_i: list[bool] = rows_any(lay.has[:, I_PH]).tolist()
         self.v_nodata = [na("quality.v_range", mid, "no good voltage reading", "%") for mid in ids]
         self.v_dead = [
             na("quality.v_range", mid, "no voltage at the meter (see network.energization)", "%")
@@ -82,7 +95,7 @@ class QualityPlan:
         self.lim_i = lay.spec_i.main_pct / 100.0
         self.i_low = 0.05 * lay.i_n[None, :, None]
         self.v_low = 0.5 * lay.v_n[None, :, None]
-        self.has_i3 = lay.has[:, I_PH].all(axis=1)
+        self.has_i3 = rows_all(lay.has[:, I_PH])
         self.lim_vi = np.concatenate(
             [np.repeat(self.lim_v, 3, axis=1), np.repeat(self.lim_i, 3, axis=1)], axis=1
         )
@@ -111,17 +124,17 @@ class QualityPlan:
         lay = self.lay
         band, i_fail = self.v_band, self.i_fail
         v = fr.x[:, V_LN]
-        no_ln = np.isnan(v).all(axis=1)
+        no_ln = rows_all(np.isnan(v))
         if no_ln.any():  # L-L readings stand in where a meter has no L-N ones
             v = np.where(no_ln[:, None], fr.x[:, V_LL] / np.sqrt(3.0), v)
-            no_v = np.isnan(v).all(axis=1).tolist()
+            no_v = rows_all(np.isnan(v)).tolist()
         else:
             no_v = no_ln.tolist()
         dev = 100.0 * (v / lay.v_n[:, None] - 1.0)
         j_v = np.where(np.isnan(dev), -1.0, np.abs(dev)).argmax(axis=1)
         d_v = dev[self.rows, j_v].tolist()
         i = fr.x[:, I_PH]
-        no_i = np.isnan(i).all(axis=1).tolist()
+        no_i = rows_all(np.isnan(i)).tolist()
         load = (100.0 * np.where(np.isnan(i), -np.inf, i).max(axis=1) / lay.i_n).tolist()
         live, has_i = fr.energized.tolist(), self.has_i
         b100, warn = 100 * band, lay.limits.warn
@@ -178,7 +191,7 @@ class QualityPlan:
                     pass_(r)
 
     # ---------------------------------------------------------------- history
-    def frozen(self, hist: np.ndarray, n_frames: int, fr: Frame, bk: Buckets) -> None:
+    def frozen(self, hist: FloatArray, n_frames: int, fr: Frame, bk: Buckets) -> None:
         """Frozen: every V, I and P of a live meter identical over the last frozen_cycles snapshots.
 
         ``hist`` = (t, n, c) columns V_LN..P4 of the most recent frames, oldest first."""
@@ -225,7 +238,7 @@ class QualityPlan:
             else:
                 bk[PASS].append(self.frozen_pass[mi])
 
-    def noise(self, hist: np.ndarray, n_frames: int, bk: Buckets) -> None:
+    def noise(self, hist: FloatArray, n_frames: int, bk: Buckets) -> None:
         """Excess noise: the poll-to-poll scatter of V and I against the class limit.
 
         The scatter is estimated from second differences, x[k+1] - 2 x[k] + x[k-1], whose
@@ -251,9 +264,10 @@ class QualityPlan:
         ]  # (t, n, 6): V_LN then I_PH, up to NOISE_WINDOW
         v, i = x[:, :, :3], x[:, :, 3:]
         d = (x[2:] - 2.0 * x[1:-1] + x[:-2]) / np.abs(x[1:-1])  # second differences, relative
-        loaded_i = (i >= self.i_low).all(axis=(0, 2)) & self.has_i3
-        live = (v >= self.v_low).all(axis=(0, 2))
-        use = np.empty((len(live), 6), bool)
+        # (t, n, 3) reduced over time and phase: one flag per meter
+        loaded_i = cast(BoolArray, (i >= self.i_low).all(axis=(0, 2))) & self.has_i3
+        live = cast(BoolArray, (v >= self.v_low).all(axis=(0, 2)))
+        use = np.empty((len(live), 6), np.bool_)
         use[:, :3] = live[:, None]
         use[:, 3:] = loaded_i[:, None]
         z = np.where(
@@ -288,7 +302,7 @@ class QualityPlan:
 STATUS_CODE = {s: c for c, s in enumerate(("fail", "warn", "pass", "n/a"))}
 
 
-def _comm_fault(m, b) -> CheckResult:
+def _comm_fault(m: Meter, b: MeterBlock | None) -> CheckResult:
     check = "quality.comm"
     if b is None:
         return result(
@@ -331,44 +345,9 @@ def _comm_fault(m, b) -> CheckResult:
     return result(check, m.id, PASS, message="all values ok")
 
 
-def history(frames: Sequence[Frame]) -> np.ndarray:
+def history(frames: Sequence[Frame]) -> FloatArray:
     """(t, n, c) stack of the columns V_LN..P4 of the frames, oldest first."""
     return np.array([f.x[:, _HIST] for f in frames])
 
 
-def _run(plan_method: str, lay: Layout, *args) -> list[CheckResult]:
-    bk: Buckets = ([], [], [], [])
-    getattr(QualityPlan(lay), plan_method)(*args, bk)
-    return bk[0] + bk[1] + bk[2] + bk[3]
-
-
-def comm_checks(lay: Layout, snap: Snapshot) -> list[CheckResult]:
-    """The communication checks alone (a plan per call: keep a QualityPlan for speed)."""
-    bk: Buckets = ([], [], [], [])
-    fr = Frame.build(lay, snap)
-    QualityPlan(lay).comm(snap, fr, bk)
-    return bk[0] + bk[1] + bk[2] + bk[3]
-
-
-def range_checks(lay: Layout, fr: Frame) -> list[CheckResult]:
-    """The range checks alone (a plan per call: keep a QualityPlan for speed)."""
-    return _run("ranges", lay, fr)
-
-
-def frozen_checks(lay: Layout, frames: Sequence[Frame]) -> list[CheckResult]:
-    return _run("frozen", lay, history(frames), len(frames), frames[-1])
-
-
-def noise_checks(lay: Layout, frames: Sequence[Frame]) -> list[CheckResult]:
-    return _run("noise", lay, history(frames), len(frames))
-
-
-__all__ = [
-    "QualityPlan",
-    "history",
-    "comm_checks",
-    "range_checks",
-    "frozen_checks",
-    "noise_checks",
-    "V_LL",
-]
+__all__ = ["QualityPlan", "history"]

@@ -20,7 +20,7 @@ import numpy as np
 
 from ..model import Profile, SettleCriterion
 from ..snapshot import Snapshot
-from .frame import nanmean
+from .frame import FloatArray, nanmean
 
 
 @dataclass(frozen=True)
@@ -48,7 +48,7 @@ class SettleDetector:
             v_n = profile.zone_of_bus(m.bus).bench_v_ll / math.sqrt(3.0)
             i_n = m.ct_primary_a or profile.bench.s_base_va / (3 * v_n)
             self.floor[i] = (0.05 * 3 * v_n * i_n, 0.05 * 3 * v_n * i_n, 0.1 * v_n)
-        self._win: deque[tuple[float, np.ndarray]] = deque()
+        self._win: deque[tuple[float, FloatArray]] = deque()
         self.t0 = math.nan
         self.settled_at = math.nan
 
@@ -57,7 +57,7 @@ class SettleDetector:
         self.t0 = t_start
         self.settled_at = math.nan
 
-    def _row(self, snap: Snapshot) -> np.ndarray:
+    def _row(self, snap: Snapshot) -> FloatArray:
         out = np.full((len(self.ids), 4), np.nan)
         for i, mid in enumerate(self.ids):
             b = snap.meters.get(mid)

@@ -11,21 +11,26 @@ import asyncio
 import contextlib
 import time
 from collections import deque
+from collections.abc import Callable, Iterable
+from pathlib import Path
+from typing import ClassVar
 
 from textual import work
 from textual.app import ComposeResult
+from textual.binding import BindingType
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Log, Static
 from textual.worker import Worker, WorkerState, get_current_worker
 
 from meas.errors import BenchwalkError
+from meas.snapshot import Snapshot
 
 from ..bridge import Bridge
 from ..frame import Frame
 from ..keys import COMMAND_OF, bindings
 from ..messages import FrameReady, LogLines, PollTrouble
-from ..units import UNIT_MODE_LABEL, UNIT_MODES
+from ..units import UNIT_MODE_LABEL, UNIT_MODES, UnitMode
 from ..widgets.bench import BenchView
 from ..widgets.checks import ChecksPanel
 from ..widgets.phasor import PhasorView
@@ -60,7 +65,7 @@ _DONE_WORDS = {
 
 
 class MainScreen(Screen):
-    BINDINGS = bindings()
+    BINDINGS: ClassVar[list[BindingType]] = [*bindings()]
 
     def __init__(self, bridge: Bridge, *, autopoll: bool = True) -> None:
         super().__init__()
@@ -68,17 +73,17 @@ class MainScreen(Screen):
         self.profile = bridge.profile
         self.autopoll = autopoll
         self.view = "step"
-        self.unit_mode = "bench"
+        self.unit_mode: UnitMode = "bench"
         self.meter_idx = 0
         self.trend_idx = 0
         self.frame: Frame | None = None
-        self.history: deque = deque(maxlen=400)
+        self.history: deque[Snapshot] = deque(maxlen=400)
         self.latencies: deque[float] = deque(maxlen=2000)  # post -> painted, seconds
         self.frames_shown = 0
         self._alerted_stop = False
         self._auto_exported = False
         self._remote_busy = False  # a remote command is being sent; its worker reports the outcome
-        self.exported = None
+        self.exported: Path | None = None
 
     # ------------------------------------------------------------------ layout
     def compose(self) -> ComposeResult:
@@ -185,7 +190,7 @@ class MainScreen(Screen):
     def notice(self, text: str) -> None:
         self.query_one("#notice", Static).update(text)
 
-    def log_lines(self, lines) -> None:
+    def log_lines(self, lines: Iterable[str]) -> None:
         log = self.query_one("#pane-log", Log)
         for line in lines:
             log.write_line(line)
@@ -260,7 +265,7 @@ class MainScreen(Screen):
         return step is not None and command in step.allowed
 
     # ------------------------------------------------------------------ step actions
-    def _run(self, name: str, *args) -> None:
+    def _run(self, name: str, *args: str) -> None:
         refusal = self.bridge.command(name, *args)
         self.notice(
             f"\u2718 {refusal}"
@@ -289,14 +294,27 @@ class MainScreen(Screen):
     def action_retake(self) -> None:
         self._run("retake")
 
+    def _run_with(self, name: str) -> Callable[[str | None], None]:
+        """A prompt's callback: the command with the answer, nothing when it was cancelled."""
+
+        def run(answer: str | None) -> None:
+            if answer:
+                self._run(name, answer)
+
+        return run
+
     def action_accept(self) -> None:
-        step = self.frame.step if self.frame else None
-        if step is not None and any(r.status.value == "fail" for r in self.frame.checks):
+        frame = self.frame
+        if (
+            frame is not None
+            and frame.step is not None
+            and any(r.status.value == "fail" for r in frame.checks)
+        ):
             self.app.push_screen(
                 TextPrompt(
                     "Accept with failing checks", "Checks failed. Why is this step acceptable?"
                 ),
-                lambda reason: reason and self._run("accept", reason),
+                self._run_with("accept"),
             )
             return
         self._run("accept")
@@ -304,28 +322,26 @@ class MainScreen(Screen):
     def action_skip(self) -> None:
         self.app.push_screen(
             TextPrompt("Skip step", "Why is this step skipped? (journalled)"),
-            lambda reason: reason and self._run("skip", reason),
+            self._run_with("skip"),
         )
 
     def action_note(self) -> None:
-        self.app.push_screen(
-            TextPrompt("Note", "Note for the journal:"),
-            lambda text: text and self._run("note", text),
-        )
+        self.app.push_screen(TextPrompt("Note", "Note for the journal:"), self._run_with("note"))
 
     def action_sign(self) -> None:
         self.app.push_screen(
             TextPrompt(
                 "Sign hold point", "Name of the person signing off:", value=self.bridge.operator
             ),
-            lambda name: name and self._run("sign", name),
+            self._run_with("sign"),
         )
 
     def action_remote(self) -> None:
-        step = self.frame.step if self.frame else None
+        frame = self.frame
+        step = frame.step if frame else None
         view = self.bridge.runner.view()
         todo = list(getattr(view, "remote_todo", ()))
-        if step is None or not todo:
+        if frame is None or step is None or not todo:
             self.notice("\u2718 no remote operation in this step")
             return
         switch_id, state = todo[0]
@@ -336,9 +352,7 @@ class MainScreen(Screen):
             return
         sw = self.profile.switch(switch_id)
         present = step.actual.get(switch_id) or (
-            self.frame.snapshot.switches.get(switch_id, "unknown")
-            if self.frame.snapshot
-            else "unknown"
+            frame.snapshot.switches.get(switch_id, "unknown") if frame.snapshot else "unknown"
         )
 
         def sent(ok: bool | None) -> None:

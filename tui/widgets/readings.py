@@ -12,7 +12,7 @@ import math
 from rich.segment import Segment
 from rich.style import Style
 from textual.binding import Binding
-from textual.geometry import Region
+from textual.geometry import Region, Size
 from textual.message import Message
 from textual.strip import Strip
 from textual.widget import Widget
@@ -21,6 +21,9 @@ from meas.model import Profile
 from meas.snapshot import CommState, MeterBlock, Snapshot
 
 from ..units import UnitMode, eng, scale_factor, unit_label
+
+# a cached line: the header ("header", width, mode) or a meter row (id, cells, selected, width)
+_StripKey = tuple[str, int, UnitMode] | tuple[str, tuple[str, ...], bool, int]
 
 COMM_TEXT = {
     CommState.OK: "ok",
@@ -111,14 +114,14 @@ class ReadingsGrid(Widget, can_focus=True):
         self.selected = 0
         self.top = 0  # first meter row shown
         self._cells: dict[str, tuple[str, ...]] = {}
-        self._strips: dict[tuple, Strip] = {}
+        self._strips: dict[_StripKey, Strip] = {}
         self._states: dict[str, CommState | None] = {}
         self.rebuilt_rows = 0  # rows whose text changed (benchmark and tests read it)
 
-    def get_content_height(self, container, viewport, width: int) -> int:
+    def get_content_height(self, container: Size, viewport: Size, width: int) -> int:
         return len(self.meter_ids) + 1
 
-    def get_content_width(self, container, viewport) -> int:
+    def get_content_width(self, container: Size, viewport: Size) -> int:
         return 2 + sum(w for _, w in COLUMNS) + len(COLUMNS) - 1
 
     # -- data in -------------------------------------------------------------------------
@@ -175,22 +178,22 @@ class ReadingsGrid(Widget, can_focus=True):
     def render_line(self, y: int) -> Strip:
         width = self.size.width
         if y == 0:
-            key = ("header", width, self.mode)
-            if key not in self._strips:
+            head: _StripKey = ("header", width, self.mode)
+            if head not in self._strips:
                 text = "  " + " ".join(
                     h.rjust(w) if i > 1 else h.ljust(w) for i, (h, w) in enumerate(COLUMNS)
                 )
-                self._strips[key] = Strip([Segment(text[:width], _HEADER)]).extend_cell_length(
+                self._strips[head] = Strip([Segment(text[:width], _HEADER)]).extend_cell_length(
                     width
                 )
-            return self._strips[key]
+            return self._strips[head]
         idx = self.top + y - 1
         if idx >= len(self.meter_ids):
             return Strip.blank(width)
         mid = self.meter_ids[idx]
         cells = self._cells.get(mid) or row_cells(self.profile, mid, None, self.mode)
         selected = idx == self.selected
-        key = (mid, cells, selected, width)
+        key: _StripKey = (mid, cells, selected, width)
         strip = self._strips.get(key)
         if strip is None:
             strip = self._build(cells, self._states.get(mid), selected, width)
