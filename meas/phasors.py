@@ -22,15 +22,26 @@ def phasor(mag: ArrayLike, ang_deg: ArrayLike) -> NDArray[np.complex128]:
     return np.asarray(mag, float) * np.exp(1j * np.deg2rad(np.asarray(ang_deg, float)))
 
 
+def _apply(m: NDArray[np.complex128], x: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    """``x @ m.T`` written out element by element.
+
+    A matrix product goes to BLAS, whose kernel (chosen per processor, or by
+    OPENBLAS_CORETYPE) changes the last bits of the result; the checks must give the same
+    bits on every machine, since an exported dataset's re-check is compared bit for bit.
+    """
+    a, b, c = x[..., 0, None], x[..., 1, None], x[..., 2, None]
+    out: NDArray[np.complex128] = a * m[:, 0] + b * m[:, 1] + c * m[:, 2]
+    return out
+
+
 def sequence(abc: ArrayLike) -> NDArray[np.complex128]:
     """Zero, positive and negative sequence components (last axis abc -> 012)."""
-    x = np.asarray(abc, complex)
-    return x @ _F.T
+    return _apply(_F, np.asarray(abc, complex))
 
 
 def from_sequence(s012: ArrayLike) -> NDArray[np.complex128]:
     """Phase quantities from sequence components (inverse of ``sequence``)."""
-    return np.asarray(s012, complex) @ _F_INV.T
+    return _apply(_F_INV, np.asarray(s012, complex))
 
 
 def _ratio(num: NDArray[np.float64], den: NDArray[np.float64]) -> NDArray[np.float64]:
