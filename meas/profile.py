@@ -840,9 +840,12 @@ def _buses(doc: _Doc, root: _Table, zones: list[Zone]) -> dict[str, Bus]:
 
 def _branches(doc: _Doc, root: _Table, buses: dict[str, Bus]) -> tuple[dict[str, Branch], set[str]]:
     """Every branch with a valid id (so references resolve) and the ids of incomplete ones."""
+    from .profile_branch_model import branch_model
+
     tables = _array_of_tables(doc, root, "branch")
     out = {}
     partial = set()
+    ideal: dict[str, str] = {}
     for ident, t in _ids(tables, "branch").items():
         kind = t.choice("kind", BRANCH_KINDS, None, required=True, what="branch kind")
         from_bus = _ref(t, "from_bus", buses, "bus")
@@ -862,10 +865,10 @@ def _branches(doc: _Doc, root: _Table, buses: dict[str, Bus]) -> tuple[dict[str,
                     f"a {kind} is one-ended: remove to_bus (only line and transformer have one)",
                 )
         label = t.get("label", "str", "")
-        sim = t.get("sim", "table", {})
+        model = branch_model(t, kind, from_bus, ideal)
         if kind is None or from_bus is None or (kind in TWO_ENDED and to_bus is None):
             partial.add(ident)
-        out[ident] = Branch(ident, kind or "load", from_bus or "", to_bus, label, dict(sim))
+        out[ident] = Branch(ident, kind or "load", from_bus or "", to_bus, label, model)
     for t in tables:
         t.finish()
     return out, partial
