@@ -22,6 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from pymodbus.server import ModbusTcpServer
 
 from ..errors import BenchwalkError
 from ..model import Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
@@ -31,7 +32,7 @@ from ..snapshot import Snapshot
 from .faults import Fault, find, validate_faults
 from .meters import Phasors, phasors_from_ideal, snapshot_of, values_from_phasors
 from .plc import PlcSim, Transient, settle_settings
-from .readings import ideal_readings
+from .readings import IdealReadings, ideal_readings
 from .server import (
     FC_COIL,
     FC_DISCRETE,
@@ -90,7 +91,7 @@ class _RegisterLayout:
         return out
 
 
-def _phasors(state, meter_id: str, ideal: Mapping[str, float], f0: float) -> Phasors:
+def _phasors(state: IdealReadings, meter_id: str, ideal: Mapping[str, float], f0: float) -> Phasors:
     """The load flow's own phasors when it gives them, else rebuilt from magnitudes and angles."""
     given = getattr(state, "phasors", {}).get(meter_id)
     if given is None:
@@ -122,7 +123,7 @@ class SimulatedBench:
         port_map: str | Mapping[int, int] | None = None,
         seed: int | None = None,
         noise: bool = True,
-        readings: Callable[[Profile, dict[str, str]], object] | None = None,
+        readings: Callable[[Profile, dict[str, str]], IdealReadings] | None = None,
         clock: Callable[[], float] = time.monotonic,
         write_log: str | os.PathLike | None = None,
     ):
@@ -156,7 +157,7 @@ class SimulatedBench:
         self._targets: dict[str, list] = {
             m.id: [] for m in profile.meters
         }  # meter -> [(server, unit)]
-        self._plc_targets: list[tuple[object, int]] = []
+        self._plc_targets: list[tuple[ModbusTcpServer, int]] = []
         self._servers: list = []
         self._fronts: list[DelayFront] = []
         self._energy = {m.id: [0.0, 0.0] for m in profile.meters}
@@ -230,7 +231,7 @@ class SimulatedBench:
             hit = {
                 mid: _phasors(bench_state, mid, r, self.profile.bench.frequency_hz)
                 for mid, r in bench_state.meters.items()
-            }  # type: ignore[attr-defined]
+            }
             self._cache[key] = hit
             self.loads += 1
         return hit
@@ -352,7 +353,8 @@ class SimulatedBench:
     async def start(self) -> Profile:
         """Serve every TCP endpoint and start updating; the profile as actually bound."""
         groups: dict[tuple[str, int], list[Meter | Plc]] = {}
-        for item in (*self.profile.meters, *self.profile.plcs):
+        devices_all: tuple[Meter | Plc, ...] = (*self.profile.meters, *self.profile.plcs)
+        for item in devices_all:
             if isinstance(item.transport, TcpTransport):
                 groups.setdefault((item.transport.host, item.transport.port), []).append(item)
         bound: dict[tuple[str, int], int] = {}

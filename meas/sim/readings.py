@@ -25,6 +25,7 @@ from __future__ import annotations
 import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 
@@ -37,6 +38,16 @@ from ..network.topology import settled_states
 from ..quantities import LL_PAIRS, PHASES
 
 _MAX_STATES = 256  # cached switch states per profile (a bench with 8 switches has 256)
+
+
+class IdealReadings(Protocol):
+    """What the meter emulation reads of a solved state: ``BenchState`` or a hand-made one.
+
+    A ``phasors`` attribute like ``BenchState``'s is used when present.
+    """
+
+    @property
+    def meters(self) -> Mapping[str, Mapping[str, float]]: ...
 
 
 @dataclass(frozen=True)
