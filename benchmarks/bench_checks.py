@@ -30,7 +30,17 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from common import Figure, Target, interleaved, machine_line, median, percentile  # noqa: E402
 
 from meas.checks import CheckEngine, run_checks  # noqa: E402
-from meas.model import AccuracyClasses, Branch, Bus, Meter, Profile, TcpTransport  # noqa: E402
+from meas.model import (  # noqa: E402
+    AccuracyClasses,
+    Branch,
+    Bus,
+    LineParams,
+    LoadParams,
+    Meter,
+    Profile,
+    SourceParams,
+    TcpTransport,
+)
 from meas.profile import load_profile  # noqa: E402
 from meas.sim.meters import snapshot_from_sim  # noqa: E402
 from meas.sim.readings import ideal_readings  # noqa: E402
@@ -42,7 +52,7 @@ def radial_bench(base: Profile, n_meters: int = 32) -> Profile:
     """A chain of buses with two-end-metered lines and metered loads, about ``n_meters`` meters."""
     buses, branches, meters = (
         [Bus("B0", base.buses[0].zone)],
-        [Branch("SRC", "source", "B0", sim={"v_ll": 408.0, "sc_va": 2.0e6, "x_r": 8.0})],
+        [Branch("SRC", "source", "B0", model=SourceParams(408.0, 2.0e6, 8.0))],
         [],
     )
     maps = ["lumen-f32", "corvid-i32", "wren-i16"]
@@ -76,14 +86,10 @@ def radial_bench(base: Profile, n_meters: int = 32) -> Profile:
         i += 1
         prev, bus = f"B{i - 1}", f"B{i}"
         buses.append(Bus(bus, base.buses[0].zone))
-        branches.append(
-            Branch(f"L{i}", "line", prev, bus, sim={"r_ohm": 0.02, "x_ohm": 0.03, "b_us": 10.0})
-        )
+        branches.append(Branch(f"L{i}", "line", prev, bus, model=LineParams(0.02, 0.03, 10.0)))
         meter(prev, f"L{i}", maps[i % 3])
         meter(bus, f"L{i}", maps[(i + 1) % 3])
-        branches.append(
-            Branch(f"LD{i}", "load", bus, sim={"model": "pq", "p_w": 1500.0, "q_var": 500.0})
-        )
+        branches.append(Branch(f"LD{i}", "load", bus, model=LoadParams(1500.0, 500.0, "pq")))
         if len(meters) < n_meters:
             meter(bus, f"LD{i}", maps[(i + 2) % 3])
     return dataclasses.replace(

@@ -32,10 +32,11 @@ import numpy as np  # noqa: E402
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
 from common import Figure, Target, interleaved, median, ratio  # noqa: E402
 
-from meas.model import Bench, Branch, Bus, Profile, Zone
+from meas.model import Bench, Branch, Bus, LineParams, LoadParams, Profile, SourceParams, Zone
+from meas.network.admittance import build_network
+from meas.network.elements import element_models
+from meas.network.loadflow import solve
 from meas.profile import load_profile
-from meas.sim.network import build_network, element_models
-from meas.sim.solver import solve
 
 DEMO = pathlib.Path(__file__).resolve().parent.parent / "profiles_demo" / "feeder_bench.toml"
 DEMO_STATES = {
@@ -51,7 +52,7 @@ def feeder(n: int = 100, seed: int = 7) -> tuple[Profile, list[tuple], list[tupl
     """A random radial 400 V feeder: bus k hangs off one of the previous few buses."""
     rng = np.random.default_rng(seed)
     buses = [Bus(f"N{k}", "lv") for k in range(n)]
-    branches = [Branch("SRC", "source", "N0", sim={"v_ll": 410.0, "sc_va": 2e6, "x_r": 6.0})]
+    branches = [Branch("SRC", "source", "N0", model=SourceParams(410.0, 2e6, 6.0))]
     lines, loads = [], []
     for k in range(1, n):
         parent = int(rng.integers(max(0, k - 4), k))
@@ -64,14 +65,7 @@ def feeder(n: int = 100, seed: int = 7) -> tuple[Profile, list[tuple], list[tupl
                 "line",
                 f"N{parent}",
                 f"N{k}",
-                sim={
-                    "r_ohm": r,
-                    "x_ohm": x,
-                    "b_us": b,
-                    "r0_ohm": 3 * r,
-                    "x0_ohm": 3.5 * x,
-                    "b0_us": 0.6 * b,
-                },
+                model=LineParams(r, x, b, 3 * r, 3.5 * x, 0.6 * b),
             )
         )
         p = rng.uniform(50.0, 300.0, 3)
@@ -82,7 +76,7 @@ def feeder(n: int = 100, seed: int = 7) -> tuple[Profile, list[tuple], list[tupl
                 f"LD{k}",
                 "load",
                 f"N{k}",
-                sim={"model": "pq", "p_w": p.tolist(), "q_var": q.tolist()},
+                model=LoadParams(tuple(p.tolist()), tuple(q.tolist()), "pq"),
             )
         )
     bench = Bench("feeder100", 50.0, 1.0, 100e3, (Zone("lv", 400.0, 400.0),))

@@ -40,6 +40,11 @@ StepKind = Literal["manual", "remote", "capture", "hold", "note"]
 STEP_KINDS: tuple[StepKind, ...] = get_args(StepKind)
 Gate = Literal["block", "allow"]  # allow = may accept failing checks with a reason
 GATES: tuple[Gate, ...] = get_args(Gate)
+VectorGroup = Literal["Yy0", "Yyn0", "YNyn0", "Dyn11", "Dyn1"]
+LoadBehaviour = Literal["pq", "z", "i", "zip"]
+# A per-phase quantity as the profile gives it: a three-phase total (split equally over the
+# phases) or the three phase values A, B, C.
+PhaseValues = float | tuple[float, float, float]
 
 REGISTER_COUNT: dict[str, int] = dict(zip(DATA_TYPES, (1, 1, 2, 2, 2, 4), strict=True))
 
@@ -179,12 +184,79 @@ class Bus:
     label: str = ""
 
 
+# ---------------------------------------------------------------- nameplate models of branches
+# What a branch's ``model`` table says, validated by the profile loader; ``meas.network`` turns
+# these into phase-frame matrices. Bench-side SI units throughout.
+
+
+@dataclass(frozen=True)
+class SourceParams:
+    """A three-phase EMF behind its short-circuit impedance; ``sc_va = inf`` holds the bus voltage."""
+
+    v_ll: float  # EMF, line-to-line rms, V
+    sc_va: float  # three-phase short-circuit power at the bus, VA (inf = ideal source)
+    x_r: float = 1.0  # X/R of the source impedance (required unless the source is ideal)
+    angle_deg: float = 0.0  # angle of the phase-A EMF
+
+
+@dataclass(frozen=True)
+class LineParams:
+    """A pi section. Lumped when ``length_km`` is None, else every value is per km.
+
+    Zero-sequence series values default to the positive-sequence ones (no mutual coupling),
+    ``b0_us`` to ``b_us``; ``long_line`` applies the exact hyperbolic correction (per-km only).
+    """
+
+    r_ohm: float
+    x_ohm: float
+    b_us: float = 0.0  # total shunt susceptance (both halves of the pi), microsiemens
+    r0_ohm: float | None = None
+    x0_ohm: float | None = None
+    b0_us: float | None = None
+    length_km: float | None = None
+    long_line: bool = False
+
+
+@dataclass(frozen=True)
+class TransformerParams:
+    """A two-winding transformer; winding 1 is at ``from_bus``, the tap on winding 1."""
+
+    s_va: float  # rated power
+    v1_ll: float  # rated line-to-line voltage, winding 1
+    v2_ll: float  # rated line-to-line voltage, winding 2
+    uk_pct: float  # short-circuit voltage, percent
+    vector_group: VectorGroup
+    ur_pct: float = 0.0  # resistive part of uk, percent (copper losses)
+    tap_pct: float = 0.0  # ratio change on winding 1, percent
+
+
+@dataclass(frozen=True)
+class LoadParams:
+    """Power consumed at the zone's nominal voltage, wye-grounded, with a voltage dependence."""
+
+    p_w: PhaseValues
+    q_var: PhaseValues = 0.0
+    behaviour: LoadBehaviour = "pq"  # the profile's key ``model``
+    zip: tuple[float, float, float] | None = None  # fractions z, i, p when behaviour is "zip"
+
+
+@dataclass(frozen=True)
+class ShuntParams:
+    """A constant admittance to ground; positive ``q_var`` absorbs (a reactor)."""
+
+    q_var: PhaseValues  # at the zone's nominal voltage
+    p_w: PhaseValues = 0.0
+
+
+BranchParams = SourceParams | LineParams | TransformerParams | LoadParams | ShuntParams
+
+
 @dataclass(frozen=True)
 class Branch:
     """A source, line, transformer, load or shunt. One-ended kinds have ``to_bus`` None.
 
-    ``sim`` keeps the electrical parameters for the simulated bench as given in the profile;
-    ``meas.sim.network`` validates and interprets them.
+    ``model`` is the branch's nameplate model (the profile's ``model`` table) matching its
+    kind, or None when the profile gives none (a real bench needs none; a simulated one does).
     """
 
     id: str
@@ -192,7 +264,7 @@ class Branch:
     from_bus: str
     to_bus: str | None = None
     label: str = ""
-    sim: dict[str, Any] = field(default_factory=dict, compare=False, hash=False)
+    model: BranchParams | None = field(default=None, compare=False, hash=False)
 
     @property
     def buses(self) -> tuple[str, ...]:

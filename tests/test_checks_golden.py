@@ -30,7 +30,18 @@ import numpy as np
 import pytest
 
 from meas.checks import CheckEngine, run_checks
-from meas.model import AccuracyClasses, Branch, Bus, CheckSettings, Meter, Profile, TcpTransport
+from meas.model import (
+    AccuracyClasses,
+    Branch,
+    Bus,
+    CheckSettings,
+    LineParams,
+    LoadParams,
+    Meter,
+    Profile,
+    SourceParams,
+    TcpTransport,
+)
 from meas.profile import load_profile
 from meas.results import CheckResult
 from meas.sim.faults import parse_fault
@@ -49,7 +60,7 @@ def synthetic_bench(base: Profile, n_meters: int = 32) -> Profile:
     """A frozen copy of benchmarks/bench_checks.py ``radial_bench`` (the fixture depends on it
     exactly): a chain of buses, lines metered at both ends, a metered load at every bus."""
     buses = [Bus("B0", base.buses[0].zone)]
-    branches = [Branch("SRC", "source", "B0", sim={"v_ll": 408.0, "sc_va": 2.0e6, "x_r": 8.0})]
+    branches = [Branch("SRC", "source", "B0", model=SourceParams(408.0, 2.0e6, 8.0))]
     meters: list[Meter] = []
     maps = ["lumen-f32", "corvid-i32", "wren-i16"]
 
@@ -80,14 +91,10 @@ def synthetic_bench(base: Profile, n_meters: int = 32) -> Profile:
         i += 1
         prev, bus = f"B{i - 1}", f"B{i}"
         buses.append(Bus(bus, base.buses[0].zone))
-        branches.append(
-            Branch(f"L{i}", "line", prev, bus, sim={"r_ohm": 0.02, "x_ohm": 0.03, "b_us": 10.0})
-        )
+        branches.append(Branch(f"L{i}", "line", prev, bus, model=LineParams(0.02, 0.03, 10.0)))
         meter(prev, f"L{i}", maps[i % 3])
         meter(bus, f"L{i}", maps[(i + 1) % 3])
-        branches.append(
-            Branch(f"LD{i}", "load", bus, sim={"model": "pq", "p_w": 1500.0, "q_var": 500.0})
-        )
+        branches.append(Branch(f"LD{i}", "load", bus, model=LoadParams(1500.0, 500.0, "pq")))
         if len(meters) < n_meters:
             meter(bus, f"LD{i}", maps[(i + 2) % 3])
     return dataclasses.replace(

@@ -26,7 +26,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from meas.errors import ProfileError
-from meas.model import CapturePolicy, RtuTransport, SettleCriterion
+from meas.model import CapturePolicy, LoadParams, RtuTransport, SettleCriterion
 from meas.profile import format_path, lint_profile, load_profile, locate_keys
 from tui import cli
 
@@ -124,7 +124,7 @@ def test_demo_profile_loads_with_its_sequence():
         "corvid-i32",
     )
     assert p.switch("CB1").command_coil == 0 and p.switch("CB1").status.kind == "discrete"
-    assert p.branch("LD2").sim["p_w"] == [2500.0, 1500.0, 1000.0]
+    assert p.branch("LD2").model == LoadParams((2500.0, 1500.0, 1000.0), (800.0, 500.0, 300.0), "z")
     for raw_step, step in zip(seq["step"], p.steps, strict=True):
         if raw_step.get("capture") is False or (
             "capture" not in raw_step and step.kind in ("note", "hold")

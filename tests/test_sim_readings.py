@@ -18,7 +18,7 @@ import numpy as np
 import pandapower as pp
 import pytest
 
-from meas.model import Meter, Profile, TcpTransport
+from meas.model import LoadParams, Meter, Profile, TcpTransport
 from meas.profile import load_profile
 from meas.quantities import all_keys
 from meas.sim.readings import dead_values, ideal_readings, meter_values
@@ -93,18 +93,16 @@ def test_receiving_end_meter_reads_negative_and_losses_are_the_sum(demo):
     assert m7["pf.T"] < 0 and m2["pf.T"] > 0
     loss = m2["p.T"] + m7["p.T"]
     v, i = st.phasors["M2"]
-    b = demo.branch("L2").sim
-    i_series = i - 1j * b["b_us"] * 1e-6 / 2 * v
-    assert loss == pytest.approx(b["r_ohm"] * float(np.sum(np.abs(i_series) ** 2)), rel=1e-8)
+    b = demo.branch("L2").model
+    i_series = i - 1j * b.b_us * 1e-6 / 2 * v
+    assert loss == pytest.approx(b.r_ohm * float(np.sum(np.abs(i_series) ** 2)), rel=1e-8)
     assert loss > 0
 
 
 def test_meter_signs_and_losses_against_pandapower(demo):
     """Balanced demo (LD2 made balanced): M1 = res_line p_from of L1, M7 = p_to of L2 (negative)."""
     branches = tuple(
-        dataclasses.replace(b, sim={"model": "z", "p_w": 5000.0, "q_var": 1600.0})
-        if b.id == "LD2"
-        else b
+        dataclasses.replace(b, model=LoadParams(5000.0, 1600.0, "z")) if b.id == "LD2" else b
         for b in demo.branches
     )
     p = dataclasses.replace(demo, branches=branches)
@@ -118,16 +116,16 @@ def test_meter_signs_and_losses_against_pandapower(demo):
     pp.create_line_from_parameters(net, emf, bus["B0"], 1.0, r, 8 * r, 0.0, 10.0)
     line = {}
     for br in p.branches:
-        s = br.sim
+        s = br.model
         if br.kind == "line":
             line[br.id] = pp.create_line_from_parameters(
                 net,
                 bus[br.from_bus],
                 bus[br.to_bus],
                 1.0,
-                s["r_ohm"],
-                s["x_ohm"],
-                s["b_us"] / (2 * math.pi * 50) * 1e3,
+                s.r_ohm,
+                s.x_ohm,
+                s.b_us / (2 * math.pi * 50) * 1e3,
                 10.0,
                 in_service=br.id != "L4",
             )

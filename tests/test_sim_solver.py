@@ -23,10 +23,22 @@ import pytest
 from pandapower.pf.runpp_3ph import runpp_3ph
 
 from meas.errors import ProfileError
-from meas.model import Bench, Branch, Bus, Profile, Zone
+from meas.model import (
+    Bench,
+    Branch,
+    Bus,
+    LineParams,
+    LoadParams,
+    Profile,
+    ShuntParams,
+    SourceParams,
+    TransformerParams,
+    Zone,
+)
+from meas.network.admittance import build_network
+from meas.network.elements import element_models, transformer_admittance
+from meas.network.loadflow import SolverError, solve
 from meas.profile import load_profile
-from meas.sim.network import build_network, element_models, transformer_admittance
-from meas.sim.solver import SolverError, solve
 
 DEMO = pathlib.Path(__file__).resolve().parent.parent / "profiles_demo" / "feeder_bench.toml"
 SQ3 = math.sqrt(3)
@@ -42,9 +54,7 @@ def demo() -> Profile:
 def balanced_variant(p: Profile) -> Profile:
     """The demo with load bank 2 made balanced (same totals), so a positive-sequence flow applies."""
     branches = tuple(
-        dataclasses.replace(b, sim={"model": "z", "p_w": 5000.0, "q_var": 1600.0})
-        if b.id == "LD2"
-        else b
+        dataclasses.replace(b, model=LoadParams(5000.0, 1600.0, "z")) if b.id == "LD2" else b
         for b in p.branches
     )
     return dataclasses.replace(p, branches=branches)
@@ -68,10 +78,10 @@ def opened(p: Profile, states: dict[str, str]) -> set[str]:
     return {s.branch for s in p.switches if states.get(s.id, s.normal) == "open"}
 
 
-def thevenin(sim) -> tuple[float, float]:
-    z = sim["v_ll"] ** 2 / sim["sc_va"]
-    r = z / math.sqrt(1 + sim["x_r"] ** 2)
-    return r, r * sim["x_r"]
+def thevenin(src: SourceParams) -> tuple[float, float]:
+    z = src.v_ll**2 / src.sc_va
+    r = z / math.sqrt(1 + src.x_r**2)
+    return r, r * src.x_r
 
 
 def pp_demo(p: Profile, states: dict[str, str]):
@@ -79,24 +89,25 @@ def pp_demo(p: Profile, states: dict[str, str]):
     f = p.bench.frequency_hz
     net = pp.create_empty_network(f_hz=f, sn_mva=p.bench.s_base_va / 1e6)
     bus = {b.id: pp.create_bus(net, vn_kv=0.4, name=b.id) for b in p.buses}
-    src = p.branch("SRC").sim
+    src = p.branch("SRC").model
+    assert isinstance(src, SourceParams)
     emf = pp.create_bus(net, vn_kv=0.4, name="EMF")
-    pp.create_ext_grid(net, emf, vm_pu=src["v_ll"] / 400.0, va_degree=0.0)
+    pp.create_ext_grid(net, emf, vm_pu=src.v_ll / 400.0, va_degree=0.0)
     r, x = thevenin(src)
     pp.create_line_from_parameters(net, emf, bus["B0"], 1.0, r, x, 0.0, 10.0, name="SRC")
     out = opened(p, states)
     lines = {}
     for b in p.branches:
-        s, live = b.sim, b.id not in out
+        s, live = b.model, b.id not in out
         if b.kind == "line":
-            c_nf = s.get("b_us", 0.0) * 1e-6 / (2 * math.pi * f) * 1e9
+            c_nf = s.b_us * 1e-6 / (2 * math.pi * f) * 1e9
             lines[b.id] = pp.create_line_from_parameters(
                 net,
                 bus[b.from_bus],
                 bus[b.to_bus],
                 1.0,
-                s["r_ohm"],
-                s["x_ohm"],
+                s.r_ohm,
+                s.x_ohm,
                 c_nf,
                 10.0,
                 in_service=live,
@@ -106,13 +117,13 @@ def pp_demo(p: Profile, states: dict[str, str]):
             zip_ = {
                 "pq": (0, 0),
                 "z": (100, 0),
-                "zip": (100 * s.get("zip", [0, 0, 0])[0], 100 * s.get("zip", [0, 0, 0])[1]),
-            }[s["model"]]
+                "zip": (100 * (s.zip or (0, 0, 0))[0], 100 * (s.zip or (0, 0, 0))[1]),
+            }[s.behaviour]
             pp.create_load(
                 net,
                 bus[b.from_bus],
-                s["p_w"] / 1e6,
-                s["q_var"] / 1e6,
+                s.p_w / 1e6,
+                s.q_var / 1e6,
                 const_z_p_percent=zip_[0],
                 const_z_q_percent=zip_[0],
                 const_i_p_percent=zip_[1],
@@ -121,7 +132,7 @@ def pp_demo(p: Profile, states: dict[str, str]):
             )
         elif b.kind == "shunt":
             pp.create_shunt(
-                net, bus[b.from_bus], q_mvar=s["q_var"] / 1e6, p_mw=0.0, vn_kv=0.4, in_service=live
+                net, bus[b.from_bus], q_mvar=s.q_var / 1e6, p_mw=0.0, vn_kv=0.4, in_service=live
             )
     pp.runpp(net, algorithm="nr", calculate_voltage_angles=True, tolerance_mva=1e-9)
     return net, bus, lines
@@ -201,11 +212,9 @@ def case14_profile(net) -> Profile:
             "EG",
             "source",
             f"b{eg.bus}",
-            sim={
-                "v_ll": eg.vm_pu * vn[f"b{eg.bus}"],
-                "sc_va": math.inf,
-                "angle_deg": float(eg.va_degree),
-            },
+            model=SourceParams(
+                v_ll=eg.vm_pu * vn[f"b{eg.bus}"], sc_va=math.inf, angle_deg=float(eg.va_degree)
+            ),
         )
     )
     for i, r in net.line.iterrows():
@@ -217,11 +226,11 @@ def case14_profile(net) -> Profile:
                 "line",
                 f"b{r.from_bus}",
                 f"b{r.to_bus}",
-                sim={
-                    "r_ohm": r.r_ohm_per_km * r.length_km / r.parallel,
-                    "x_ohm": r.x_ohm_per_km * r.length_km / r.parallel,
-                    "b_us": b_us,
-                },
+                model=LineParams(
+                    r_ohm=r.r_ohm_per_km * r.length_km / r.parallel,
+                    x_ohm=r.x_ohm_per_km * r.length_km / r.parallel,
+                    b_us=b_us,
+                ),
             )
         )
     for i, r in net.trafo.iterrows():
@@ -234,15 +243,15 @@ def case14_profile(net) -> Profile:
                 "transformer",
                 f"b{r.hv_bus}",
                 f"b{r.lv_bus}",
-                sim={
-                    "s_va": r.sn_mva * 1e6,
-                    "v1_ll": r.vn_hv_kv * 1e3,
-                    "v2_ll": r.vn_lv_kv * 1e3,
-                    "uk_pct": r.vk_percent,
-                    "ur_pct": r.vkr_percent,
-                    "vector_group": "YNyn0",
-                    "tap_pct": tap,
-                },
+                model=TransformerParams(
+                    s_va=r.sn_mva * 1e6,
+                    v1_ll=r.vn_hv_kv * 1e3,
+                    v2_ll=r.vn_lv_kv * 1e3,
+                    uk_pct=r.vk_percent,
+                    ur_pct=r.vkr_percent,
+                    vector_group="YNyn0",
+                    tap_pct=tap,
+                ),
             )
         )
     for i, r in net.load.iterrows():
@@ -251,11 +260,9 @@ def case14_profile(net) -> Profile:
                 f"ld{i}",
                 "load",
                 f"b{r.bus}",
-                sim={
-                    "model": "pq",
-                    "p_w": r.p_mw * 1e6 * r.scaling,
-                    "q_var": r.q_mvar * 1e6 * r.scaling,
-                },
+                model=LoadParams(
+                    p_w=r.p_mw * 1e6 * r.scaling, q_var=r.q_mvar * 1e6 * r.scaling, behaviour="pq"
+                ),
             )
         )
     for i, r in net.gen.iterrows():
@@ -265,7 +272,7 @@ def case14_profile(net) -> Profile:
                 f"g{i}",
                 "load",
                 f"b{r.bus}",
-                sim={"model": "pq", "p_w": -res.p_mw * 1e6, "q_var": -res.q_mvar * 1e6},
+                model=LoadParams(p_w=-res.p_mw * 1e6, q_var=-res.q_mvar * 1e6, behaviour="pq"),
             )
         )
     for i, r in net.shunt.iterrows():
@@ -275,7 +282,7 @@ def case14_profile(net) -> Profile:
                 f"sh{i}",
                 "shunt",
                 f"b{r.bus}",
-                sim={"q_var": r.q_mvar * 1e6 * k, "p_w": r.p_mw * 1e6 * k},
+                model=ShuntParams(q_var=r.q_mvar * 1e6 * k, p_w=r.p_mw * 1e6 * k),
             )
         )
     return make_profile(
@@ -334,12 +341,12 @@ UNBAL_LOADS = {  # bus: (p per phase W, q per phase var), constant power, wye-gr
     "B2": ([1000.0, 3000.0, 2000.0], [300.0, 1000.0, 600.0]),
     "B3": ([0.0, 2200.0, 400.0], [0.0, 700.0, -150.0]),
 }
-SRC_SIM = {"v_ll": 408.0, "sc_va": 600000.0, "x_r": 8.0}
+SRC_SIM = SourceParams(v_ll=408.0, sc_va=600000.0, x_r=8.0)
 
 
 def unbalanced_profile() -> Profile:
     buses = [Bus(b, "z") for b in ("B0", "B1", "B2", "B3")]
-    br = [Branch("SRC", "source", "B0", sim=dict(SRC_SIM))]
+    br = [Branch("SRC", "source", "B0", model=SRC_SIM)]
     for lid, (f, t, r, x, b, r0, x0, b0) in UNBAL_LINES.items():
         br.append(
             Branch(
@@ -347,11 +354,11 @@ def unbalanced_profile() -> Profile:
                 "line",
                 f,
                 t,
-                sim={"r_ohm": r, "x_ohm": x, "b_us": b, "r0_ohm": r0, "x0_ohm": x0, "b0_us": b0},
+                model=LineParams(r_ohm=r, x_ohm=x, b_us=b, r0_ohm=r0, x0_ohm=x0, b0_us=b0),
             )
         )
     for bus, (pw, qv) in UNBAL_LOADS.items():
-        br.append(Branch(f"LD{bus}", "load", bus, sim={"model": "pq", "p_w": pw, "q_var": qv}))
+        br.append(Branch(f"LD{bus}", "load", bus, model=LoadParams(tuple(pw), tuple(qv), "pq")))
     return make_profile(buses, br)
 
 
@@ -459,19 +466,19 @@ def test_long_line_open_end_matches_abcd():
         p = make_profile(
             [Bus("S", "z"), Bus("R", "z")],
             [
-                Branch("G", "source", "S", sim={"v_ll": 345e3, "sc_va": math.inf}),
+                Branch("G", "source", "S", model=SourceParams(v_ll=345e3, sc_va=math.inf)),
                 Branch(
                     "LN",
                     "line",
                     "S",
                     "R",
-                    sim={
-                        "r_ohm_per_km": z.real,
-                        "x_ohm_per_km": z.imag,
-                        "b_us_per_km": y.imag * 1e6,
-                        "length_km": length,
-                        "long_line": long_line,
-                    },
+                    model=LineParams(
+                        r_ohm=z.real,
+                        x_ohm=z.imag,
+                        b_us=y.imag * 1e6,
+                        length_km=length,
+                        long_line=long_line,
+                    ),
                 ),
             ],
             zones=(("z", 345e3),),
@@ -487,24 +494,19 @@ def test_long_line_open_end_matches_abcd():
 
 def _trafo_profile(group: str, load=None) -> Profile:
     br = [
-        Branch("G", "source", "HV", sim={"v_ll": 11000.0, "sc_va": math.inf}),
+        Branch("G", "source", "HV", model=SourceParams(v_ll=11000.0, sc_va=math.inf)),
         Branch(
             "T",
             "transformer",
             "HV",
             "LV",
-            sim={
-                "s_va": 400e3,
-                "v1_ll": 11000.0,
-                "v2_ll": 400.0,
-                "uk_pct": 4.0,
-                "ur_pct": 1.0,
-                "vector_group": group,
-            },
+            model=TransformerParams(
+                s_va=400e3, v1_ll=11000.0, v2_ll=400.0, uk_pct=4.0, ur_pct=1.0, vector_group=group
+            ),
         ),
     ]
     if load:
-        br.append(Branch("LD", "load", "LV", sim={"model": "pq", "p_w": load[0], "q_var": load[1]}))
+        br.append(Branch("LD", "load", "LV", model=LoadParams(load[0], load[1], "pq")))
     return make_profile(
         [Bus("HV", "hv"), Bus("LV", "lv")], br, zones=(("hv", 11000.0), ("lv", 400.0)), s_base=400e3
     )
@@ -558,7 +560,7 @@ def test_delta_winding_blocks_zero_sequence():
                     "LD",
                     "load",
                     "LV",
-                    sim={"model": "pq", "p_w": [60e3, 0.0, 0.0], "q_var": [20e3, 0.0, 0.0]},
+                    model=LoadParams((60e3, 0.0, 0.0), (20e3, 0.0, 0.0), "pq"),
                 ),
             ),
         )
@@ -602,57 +604,38 @@ def test_tie_alone_feeds_the_trunk_end(demo):
 
 def test_overload_raises_solver_error(demo):
     branches = tuple(
-        dataclasses.replace(b, sim={"model": "pq", "p_w": 2e6, "q_var": 1e6})
-        if b.id == "LD1"
-        else b
+        dataclasses.replace(b, model=LoadParams(2e6, 1e6, "pq")) if b.id == "LD1" else b
         for b in demo.branches
     )
     with pytest.raises(SolverError, match=r"did not converge after \d+ iterations \(max mismatch"):
         solve(build_network(dataclasses.replace(demo, branches=branches), {}))
 
 
-@pytest.mark.parametrize(
-    "bid,sim,path,words",
-    [
-        ("L2", {"x_ohm": 0.15}, "branch[2].sim.r_ohm", "missing"),
-        ("L2", {"r_ohm": -0.1, "x_ohm": 0.15}, "branch[2].sim.r_ohm", "at least 0"),
-        ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "length_km": 2.0}, "branch[2].sim", "mixes"),
-        ("L2", {"r_ohm": 0.1, "x_ohm": "0.1"}, "branch[2].sim.x_ohm", "must be a number"),
-        (
-            "L2",
-            {"r_ohm": 0.1, "x_ohm": 0.1, "r0_ohm": 0.3},
-            "branch[2].sim.x0_ohm",
-            "zero-sequence",
-        ),
-        ("L2", {"r_ohm": 0.1, "x_ohm": 0.1, "xohm": 1}, "branch[2].sim.xohm", "unknown parameter"),
-        ("SRC", {"v_ll": 408.0, "sc_va": 0.0, "x_r": 8.0}, "branch[0].sim.sc_va", "greater than 0"),
-        (
-            "LD3",
-            {"model": "zip", "p_w": 1.0, "zip": [0.5, 0.5, 0.5]},
-            "branch[7].sim.zip",
-            "sum to 1",
-        ),
-        ("LD2", {"model": "z", "p_w": [1.0, 2.0]}, "branch[6].sim.p_w", "list of 3"),
-        ("LD1", {"model": "const", "p_w": 1.0}, "branch[5].sim.model", "must be one of"),
-    ],
-)
-def test_bad_sim_parameters_name_file_and_path(demo, bid, sim, path, words):
-    branches = tuple(dataclasses.replace(b, sim=sim) if b.id == bid else b for b in demo.branches)
+def test_branch_without_model_is_named(demo):
+    """The loader accepts a profile without model tables (a real bench); the network model
+    cannot, and names every such branch at once."""
+    branches = tuple(
+        dataclasses.replace(b, model=None) if b.id in ("L2", "LD1") else b for b in demo.branches
+    )
     with pytest.raises(ProfileError) as exc:
         element_models(dataclasses.replace(demo, branches=branches))
-    assert len(exc.value.problems) == 1
-    prob = exc.value.problems[0]
-    assert prob.file == str(DEMO) and prob.path == path and words in prob.message
-    assert "\n" not in str(exc.value)
+    assert [(p.file, p.path) for p in exc.value.problems] == [
+        (str(DEMO), "branch[2].model"),
+        (str(DEMO), "branch[5].model"),
+    ]
+    assert "'L2': no model table" in exc.value.problems[0].message
+    assert all("\n" not in p.message for p in exc.value.problems)
 
 
-def test_bad_transformer_group_and_all_problems_listed():
-    p = _trafo_profile("Dyn5")
-    p = dataclasses.replace(p, branches=p.branches + (Branch("LN", "line", "HV", "LV", sim={}),))
-    with pytest.raises(ProfileError) as exc:
+def test_two_ideal_sources_on_one_bus_are_refused():
+    p = _trafo_profile("YNyn0")
+    p = dataclasses.replace(
+        p,
+        branches=p.branches
+        + (Branch("G2", "source", "HV", model=SourceParams(v_ll=11000.0, sc_va=math.inf)),),
+    )
+    with pytest.raises(ProfileError, match="already has the ideal source 'G'"):
         element_models(p)
-    paths = sorted(pr.path for pr in exc.value.problems)
-    assert paths == ["branch[1].sim.vector_group", "branch[2].sim.r_ohm", "branch[2].sim.x_ohm"]
 
 
 def test_unknown_switch_is_a_user_error(demo):

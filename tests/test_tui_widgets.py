@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from meas.network.topology import live_buses
 from meas.profile import load_profile
 from meas.results import CheckResult, Status
 from meas.sim.faults import parse_fault
@@ -20,7 +21,6 @@ from meas.sim.meters import snapshot_from_sim
 from meas.snapshot import CommState
 from tui.frame import StepInfo
 from tui.units import eng, scale_factor
-from tui.widgets.bench import energized_buses
 from tui.widgets.checks import checks_text
 from tui.widgets.phasor import phasor_canvas, phasor_text
 from tui.widgets.readings import row_cells
@@ -115,13 +115,13 @@ def test_rows_show_the_simulated_values_and_comm_state(profile):
 def test_energization_follows_closed_switches(profile):
     # Demo topology: SRC at B0; CB1 (L1) B0-B1; SW2 (L2) B1-B2; SW3 (L3) B1-B3; TIE (L4) B2-B3.
     states = {s.id: "open" for s in profile.switches}
-    assert energized_buses(profile, states) == {"B0"}
+    assert live_buses(profile, states) == {"B0"}
     states |= {"CB1": "closed", "SW2": "closed"}
-    assert energized_buses(profile, states) == {"B0", "B1", "B2"}
+    assert live_buses(profile, states) == {"B0", "B1", "B2"}
     states |= {"TIE": "closed"}  # B3 fed through the tie with the lateral open
-    assert energized_buses(profile, states) == {"B0", "B1", "B2", "B3"}
+    assert live_buses(profile, states) == {"B0", "B1", "B2", "B3"}
     states |= {"CB1": "unknown"}  # an unknown status is never drawn live
-    assert energized_buses(profile, states) == {"B0"}
+    assert live_buses(profile, states) == {"B0"}
 
 
 # ---------------------------------------------------------------- phasors

@@ -1,7 +1,9 @@
 """Which branches are in service, which buses are live, which buses are fully metered.
 
 Built once per profile; ``state(switches)`` answers for one snapshot's switch positions
-(memoized, since a bench sits in few configurations).
+(memoized, since a bench sits in few configurations). Whether a branch conducts and a bus is
+live is ``meas.network.topology``'s rule; a switch of unknown state makes a bus's liveness
+None when counting the switch closed and counting it open disagree.
 """
 
 from __future__ import annotations
@@ -9,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from ..model import Profile
+from ..network.topology import branch_conducts, energization
 
 
 @dataclass(frozen=True)
@@ -41,39 +44,16 @@ class Topology:
         for br in profile.branches:
             for bus in br.buses:
                 self.branches_at.setdefault(bus, []).append(br.id)
-        self.two_ended = [br for br in profile.branches if br.to_bus is not None]
         self._memo: dict[tuple, TopoState] = {}
-
-    def _on(self, branch: str, switches: dict[str, str]) -> bool | None:
-        states = [switches.get(s, "unknown") for s in self.switch_of.get(branch, [])]
-        if any(s == "open" for s in states):
-            return False
-        if all(s == "closed" for s in states):
-            return True
-        return None
-
-    def _live(self, branch_on: dict[str, bool | None], optimistic: bool) -> set[str]:
-        def on(b: str) -> bool:
-            v = branch_on[b]
-            return optimistic if v is None else v
-
-        live = {br.from_bus for br in self.profile.branches if br.kind == "source" and on(br.id)}
-        changed = True
-        while changed:
-            changed = False
-            for br in self.two_ended:
-                if on(br.id) and (br.from_bus in live) != (br.to_bus in live):
-                    live |= {br.from_bus, br.to_bus}  # type: ignore[arg-type]
-                    changed = True
-        return live
 
     def state(self, switches: dict[str, str]) -> TopoState:
         key = tuple(sorted(switches.items()))
         hit = self._memo.get(key)
         if hit is not None:
             return hit
-        branch_on = {br.id: self._on(br.id, switches) for br in self.profile.branches}
-        hi, lo = self._live(branch_on, True), self._live(branch_on, False)
+        branch_on = branch_conducts(self.profile, switches)
+        hi = energization(self.profile, branch_on, unknown_conducts=True)
+        lo = energization(self.profile, branch_on, unknown_conducts=False)
         buses = {}
         for b in self.profile.buses:
             live = True if b.id in lo else (False if b.id not in hi else None)

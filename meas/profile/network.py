@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 
 from ..model import BRANCH_KINDS, TWO_ENDED, Branch, Bus, Zone
+from .branch_model import branch_model
 from .tables import Doc, Table, array_of_tables, ids, ref
 
 __all__ = ["read_branches", "read_buses"]
@@ -31,6 +32,7 @@ def read_branches(
     tables = array_of_tables(doc, root, "branch")
     out = {}
     partial = set()
+    ideal: dict[str, str] = {}  # bus -> the ideal source on it (one per bus)
     for ident, t in ids(tables, "branch").items():
         kind = t.choice("kind", BRANCH_KINDS, None, required=True, what="branch kind")
         from_bus = ref(t, "from_bus", buses, "bus")
@@ -50,10 +52,10 @@ def read_branches(
                     f"a {kind} is one-ended: remove to_bus (only line and transformer have one)",
                 )
         label = t.get("label", "str", "")
-        sim = t.get("sim", "table", {})
+        model = branch_model(t, kind, from_bus, ideal)
         if kind is None or from_bus is None or (kind in TWO_ENDED and to_bus is None):
             partial.add(ident)
-        out[ident] = Branch(ident, kind or "load", from_bus or "", to_bus, label, dict(sim))
+        out[ident] = Branch(ident, kind or "load", from_bus or "", to_bus, label, model)
     for t in tables:
         t.finish()
     return out, partial

@@ -1,10 +1,11 @@
 """The simulated bench: PLC, transients, meter noise and faults, served as real Modbus on loopback.
 
-``SimulatedBench(profile)`` starts one pymodbus server per TCP endpoint of the profile (meters
-that share a host:port become unit ids behind one gateway; a PLC gets its coils and discrete
-inputs), then an update loop at ``[sim] update_hz`` advances the PLC and the transient,
-recomputes the load flow only when the switch states change (cached per state), applies
-faults and noise, and writes every meter's registers with ``meas.modbus.codec.encode``.
+``SimulatedBench(profile)`` serves a ``meas.sim.emulator.BenchEmulator``: one pymodbus server
+per TCP endpoint of the profile (meters that share a host:port become unit ids behind one
+gateway; a PLC gets its coils and discrete inputs), then an update loop at ``[sim] update_hz``
+advances the PLC and the transient, recomputes the load flow only when the switch states
+change (cached per state), applies faults and noise, and writes every meter's registers with
+``meas.modbus.codec.encode``.
 """
 
 from __future__ import annotations
@@ -14,24 +15,20 @@ import contextlib
 import dataclasses
 import json
 import logging
-import math
 import os
 import time
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
+from pymodbus.server import ModbusTcpServer
 
 from ..errors import BenchwalkError
 from ..modbus.codec import encode
-from ..model import REGISTER_KINDS, Meter, Plc, Profile, RtuTransport, SwitchState, TcpTransport
-from ..scaling import to_primary
-from ..snapshot import Snapshot
-from .faults import Fault, find, validate_faults
-from .meters import Phasors, phasors_from_ideal, snapshot_of, values_from_phasors
-from .plc import PlcSim, Transient, settle_settings
-from .readings import ideal_readings
+from ..model import REGISTER_KINDS, Meter, Plc, Profile, RtuTransport, TcpTransport
+from .emulator import BenchEmulator
+from .faults import Fault, find
+from .readings import IdealReadings
 from .server import (
     FC_COIL,
     FC_DISCRETE,
@@ -90,23 +87,12 @@ class _RegisterLayout:
         return out
 
 
-def _phasors(state, meter_id: str, ideal: Mapping[str, float], f0: float) -> Phasors:
-    """The load flow's own phasors when it gives them, else rebuilt from magnitudes and angles."""
-    given = getattr(state, "phasors", {}).get(meter_id)
-    if given is None:
-        return phasors_from_ideal(ideal, f0)
-    v, i = given
-    return Phasors(
-        np.array(v, dtype=complex), np.array(i, dtype=complex), float(ideal.get("f.T", f0))
-    )
-
-
-class SimulatedBench:
+class SimulatedBench(BenchEmulator):
     """The whole simulated bench in this event loop. Bind is 127.0.0.1 unless ``host`` says else.
 
     ``port_map``: None = the profile's ports; ``"free"`` = ports from the OS; or a mapping
-    profile port -> port to use. ``readings`` replaces the load flow (tests with hand-made
-    ideal readings); ``clock`` is the time source (seconds, monotonic).
+    profile port -> port to use. ``seed``, ``noise``, ``readings`` and ``clock`` are
+    ``BenchEmulator``'s.
 
     Every write request any simulated server receives is kept in ``writes_seen`` and, when
     ``write_log`` (default ``$BENCHWALK_SIM_WRITE_LOG``) names a file, appended to it as one
@@ -122,66 +108,37 @@ class SimulatedBench:
         port_map: str | Mapping[int, int] | None = None,
         seed: int | None = None,
         noise: bool = True,
-        readings: Callable[[Profile, dict[str, str]], object] | None = None,
+        readings: Callable[[Profile, dict[str, str]], IdealReadings] | None = None,
         clock: Callable[[], float] = time.monotonic,
         write_log: str | os.PathLike | None = None,
     ):
-        validate_faults(profile, faults)
+        super().__init__(profile, faults, seed=seed, noise=noise, readings=readings, clock=clock)
         log_to = write_log if write_log is not None else os.environ.get(WRITE_LOG_ENV) or None
         self.write_log: Path | None = Path(log_to) if log_to else None
         self.writes_seen: list[SeenWrite] = []
-        self.profile = profile
         self.host = host
         self.port_map = port_map
-        self.noise = noise
-        seed = profile.sim.get("seed") if seed is None else seed
-        self.rng = np.random.default_rng(seed)
-        self._readings = readings
-        self.clock = clock
-        self.update_hz = float(profile.sim.get("update_hz", 10))
-        if not math.isfinite(self.update_hz) or self.update_hz < 10:
-            raise BenchwalkError(
-                f"{profile.path}: sim.update_hz must be at least 10, got {self.update_hz:g}"
-            )
-        self.tau, self.transient_kind = settle_settings(profile)
-        self.plc = PlcSim(profile, t=clock())
-        self._faults: tuple[Fault, ...] = tuple(faults)
         self._gates: dict[str, UnitGate] = {m.id: UnitGate() for m in profile.meters}
         self._gates.update({p.id: UnitGate() for p in profile.plcs})
-        self._cache: dict[tuple, dict[str, Phasors]] = {}
-        self._transient: Transient | None = None
         self._layouts = {
             m.id: _RegisterLayout.of(profile.maps[m.map_id].registers) for m in profile.meters
         }
         self._targets: dict[str, list] = {
             m.id: [] for m in profile.meters
         }  # meter -> [(server, unit)]
-        self._plc_targets: list[tuple[object, int]] = []
+        self._plc_targets: list[tuple[ModbusTcpServer, int]] = []
         self._servers: list = []
         self._fronts: list[DelayFront] = []
-        self._energy = {m.id: [0.0, 0.0] for m in profile.meters}
-        self._last_pt = {m.id: 0.0 for m in profile.meters}
-        self._last_t: float | None = None
         self._task: asyncio.Task | None = None
-        self.values: dict[
-            str, dict[str, float]
-        ] = {}  # last written, engineering units, meter's side
         self.endpoints: list[Endpoint] = []
         self.bound: Profile | None = None  # the profile as served, once started
         self._front_meters: dict[int, set[str]] = {}
         self.update_times: list[float] = []  # clock() of each update, for rate measurements
-        self.loads: int = 0  # load flows computed (cache misses)
         self._apply_gates()
 
     # ------------------------------------------------------------------ faults
 
-    @property
-    def faults(self) -> tuple[Fault, ...]:
-        return self._faults
-
-    def set_faults(self, faults: Sequence[Fault]) -> None:
-        """Change the injected faults while running (``frozen`` freezes from this moment)."""
-        validate_faults(self.profile, faults)
+    def _admit(self, faults: Sequence[Fault]) -> None:
         if self._servers:
             fronted = {m for f in self._fronts for m in self._front_meters.get(id(f), ())}
             for f in faults:
@@ -189,7 +146,8 @@ class SimulatedBench:
                     raise BenchwalkError(
                         f"fault {f.text!r}: slow faults must be given when the bench starts"
                     )
-        self._faults = tuple(faults)
+
+    def _faults_changed(self) -> None:
         self._apply_gates()
 
     def _apply_gates(self) -> None:
@@ -213,87 +171,7 @@ class SimulatedBench:
         """Client requests that reached this meter (the bench's own updates not counted)."""
         return self._gates[meter_id].requests
 
-    # ------------------------------------------------------------------ switches and readings
-
-    def switch_states(self) -> dict[str, SwitchState]:
-        return self.plc.states()
-
-    def operate_by_hand(self, switch_id: str, state: SwitchState) -> None:
-        """The simulated technician operates a switch at its panel (not a Modbus write)."""
-        self.plc.operate_by_hand(switch_id, state, self.clock())
-
-    def _ideal(self, states: Mapping[str, str]) -> dict[str, Phasors]:
-        key = tuple(sorted(states.items()))
-        hit = self._cache.get(key)
-        if hit is None:
-            bench_state = (self._readings or ideal_readings)(self.profile, dict(states))
-            hit = {
-                mid: _phasors(bench_state, mid, r, self.profile.bench.frequency_hz)
-                for mid, r in bench_state.meters.items()
-            }  # type: ignore[attr-defined]
-            self._cache[key] = hit
-            self.loads += 1
-        return hit
-
-    def steady(self) -> dict[str, Phasors]:
-        """The ideal phasors of every meter for the present switch states (no transient)."""
-        return self._ideal(self.plc.states())
-
-    def compute(self, t: float) -> dict[str, dict[str, float]]:
-        """Advance PLC, transient and energy counters to ``t``; the values every meter reports.
-
-        Frozen meters keep their last values. Pure of I/O: ``update`` writes the result.
-        """
-        changed = self.plc.advance(t)
-        if self._transient is None:
-            self._transient = Transient(self.transient_kind, self.tau, self.steady(), t)
-        elif changed:  # the transient starts when the contacts moved, even if asked later
-            self._transient.retarget(self.steady(), min(self.plc.changed_at, t))
-        now = self._transient.at(t)
-        dt_h = 0.0 if self._last_t is None else max(t - self._last_t, 0.0) / 3600.0
-        self._last_t = t
-        out = {}
-        for meter in self.profile.meters:
-            if find(meter.id, self._faults, "frozen") and meter.id in self.values:
-                out[meter.id] = self.values[meter.id]
-                continue
-            e = self._energy[meter.id]
-            p = self._last_pt[meter.id]
-            if p > 0:
-                e[0] += p * dt_h
-            else:
-                e[1] -= p * dt_h
-            vals = values_from_phasors(
-                self.profile,
-                meter.id,
-                now[meter.id],
-                self._faults,
-                self.rng,
-                self.noise,
-                (e[0], e[1]),
-            )
-            self._last_pt[meter.id] = (
-                to_primary(meter, "p.T", vals["p.T"]) if "p.T" in vals else 0.0
-            )
-            out[meter.id] = vals
-        return out
-
-    def snapshot(self, t: float, seq: int = 0, previous: Snapshot | None = None) -> Snapshot:
-        """Advance to ``t`` and return what a poller would decode then, without sockets.
-
-        For testing settle and checks over many snapshots through real transients. Does not
-        write registers; do not mix with a running update loop.
-        """
-        self.values = self.compute(t)
-        return snapshot_of(
-            self.profile,
-            self.values,
-            self._faults,
-            seq,
-            self.plc.states(),
-            t_mono=t,
-            previous=previous,
-        )
+    # ------------------------------------------------------------------ register updates
 
     async def update(self, t: float | None = None) -> None:
         """One update: compute and write every meter's registers and the PLC's status points."""
@@ -352,7 +230,8 @@ class SimulatedBench:
     async def start(self) -> Profile:
         """Serve every TCP endpoint and start updating; the profile as actually bound."""
         groups: dict[tuple[str, int], list[Meter | Plc]] = {}
-        for item in (*self.profile.meters, *self.profile.plcs):
+        devices_all: tuple[Meter | Plc, ...] = (*self.profile.meters, *self.profile.plcs)
+        for item in devices_all:
             if isinstance(item.transport, TcpTransport):
                 groups.setdefault((item.transport.host, item.transport.port), []).append(item)
         bound: dict[tuple[str, int], int] = {}

@@ -36,7 +36,7 @@ from ..quantities import PHASES
 from ..scaling import to_primary, to_secondary
 from ..snapshot import CommState, MeterBlock, Quality, Snapshot
 from .faults import PHASE_INDEX, PLC_KINDS, WIRING, Fault, faults_for, find
-from .readings import ideal_readings
+from .readings import IdealReadings, ideal_readings
 from .readings import meter_values as derive_values  # the one derivation from phasors
 
 SIGMA_OF_LIMIT = 0.1
@@ -288,7 +288,7 @@ def snapshot_from_sim(
     noise: bool = True,
     t_mono: float | None = None,
     *,
-    ideal: object | None = None,
+    ideal: IdealReadings | None = None,
     previous: Snapshot | None = None,
     time_utc: datetime | None = None,
 ) -> Snapshot:
@@ -313,7 +313,7 @@ def snapshot_from_sim(
         else:
             reported[meter.id] = meter_values(
                 profile, meter.id, ideal.meters[meter.id], faults, rng, noise
-            )  # type: ignore[attr-defined]
+            )
     return snapshot_of(
         profile,
         reported,

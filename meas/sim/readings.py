@@ -25,16 +25,29 @@ from __future__ import annotations
 import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 
 from ..errors import BenchwalkError
 from ..model import Meter, Profile
+from ..network.admittance import build_network
+from ..network.elements import Element, element_models
+from ..network.loadflow import Solution, solve
+from ..network.topology import settled_states
 from ..quantities import LL_PAIRS, PHASES
-from .network import Element, build_network, element_models, open_branches
-from .solver import Solution, solve
 
 _MAX_STATES = 256  # cached switch states per profile (a bench with 8 switches has 256)
+
+
+class IdealReadings(Protocol):
+    """What the meter emulation reads of a solved state: ``BenchState`` or a hand-made one.
+
+    A ``phasors`` attribute like ``BenchState``'s is used when present.
+    """
+
+    @property
+    def meters(self) -> Mapping[str, Mapping[str, float]]: ...
 
 
 @dataclass(frozen=True)
@@ -165,11 +178,10 @@ def ideal_readings(profile: Profile, switch_states: Mapping[str, str]) -> BenchS
 
     Switches missing from ``switch_states`` are in their ``normal`` state. Results are cached
     per profile object and effective switch state; the returned dicts are fresh copies.
-    Raises ``ProfileError`` for bad sim parameters and ``SolverError`` if the flow diverges.
+    Raises ``ProfileError`` for a branch without a model and ``SolverError`` if the flow diverges.
     """
     entry = _cache_for(profile)
-    open_branches(profile, switch_states)  # validates ids and state words
-    key = tuple(switch_states.get(s.id, s.normal) for s in profile.switches)
+    key = tuple(settled_states(profile, switch_states).values())  # validates ids and words
     state = entry.states.get(key)
     if state is None:
         state = _compute(

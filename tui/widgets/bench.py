@@ -1,7 +1,8 @@
 """The bench drawn with characters: each branch between its buses, its switch, live or dead.
 
 Live parts are drawn with heavy lines and dead ones dotted, so the picture reads without
-colour; colour only repeats it. Energization follows closed switches out from the sources.
+colour; colour only repeats it. Energization is ``meas.network.topology``'s rule, with a
+switch of unknown status drawn open: the picture never shows a part live that may be dead.
 """
 
 from __future__ import annotations
@@ -12,45 +13,15 @@ from rich.text import Text
 from textual.widgets import Static
 
 from meas.model import Profile
+from meas.network.topology import branch_conducts, live_buses
 
 LIVE_DOT, DEAD_DOT = "\u25cf", "\u25cb"
 KIND_GLYPH = {"source": "\u25c9 source", "load": "\u25bc load", "shunt": "\u2307 shunt"}
 
 
-def conducting(profile: Profile, branch_id: str, switch_states: Mapping[str, str]) -> bool:
-    """A branch conducts unless a switch on it is open or its status is unknown."""
-    for sw in profile.switches:
-        if sw.branch == branch_id and switch_states.get(sw.id, "unknown") != "closed":
-            return False
-    return True
-
-
-def energized_buses(profile: Profile, switch_states: Mapping[str, str]) -> set[str]:
-    """Buses reached from any source through conducting two-ended branches."""
-    live = {
-        b.from_bus
-        for b in profile.branches
-        if b.kind == "source" and conducting(profile, b.id, switch_states)
-    }
-    frontier = list(live)
-    while frontier:
-        bus = frontier.pop()
-        for br in profile.branches:
-            if (
-                br.to_bus is None
-                or bus not in br.buses
-                or not conducting(profile, br.id, switch_states)
-            ):
-                continue
-            other = br.to_bus if br.from_bus == bus else br.from_bus
-            if other not in live:
-                live.add(other)
-                frontier.append(other)
-    return live
-
-
 def bench_text(profile: Profile, switch_states: Mapping[str, str]) -> Text:
-    live = energized_buses(profile, switch_states)
+    live = live_buses(profile, switch_states)
+    conducts = branch_conducts(profile, switch_states)
     out = Text()
     out.append("bus ", style="bold")
     for bus in profile.buses:
@@ -65,7 +36,7 @@ def bench_text(profile: Profile, switch_states: Mapping[str, str]) -> Text:
             meters_of.setdefault(m.branch, []).append(m.id)
     for br in profile.branches:
         sw = switch_of.get(br.id)
-        cond = conducting(profile, br.id, switch_states)
+        cond = conducts[br.id] is True
         ends_live = all(b in live for b in br.buses) if br.to_bus else br.from_bus in live
         live_br = cond and ends_live
         wire = "\u2501\u2501" if live_br else "\u2504\u2504"

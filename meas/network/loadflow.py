@@ -1,18 +1,19 @@
 """Three-phase load flow in the phase frame: Newton-Raphson on the phase-node admittance matrix.
 
-Method: every energized bus contributes three phase nodes (phase-to-ground voltages); each
-finite source adds three internal EMF nodes, which (like the nodes of an ideal source's bus)
-are the slack. Lines, transformers, source impedances, shunts and the constant-impedance part
-of loads go into the nodal admittance matrix Y; the constant-current and constant-power parts
-of loads are voltage-dependent power injections. Unknowns are the angle and magnitude of every
-non-slack node; the Jacobian is the polar form of MATPOWER's ``dSbus_dV`` (Zimmerman,
-Murillo-Sanchez & Thomas, MATPOWER, IEEE Trans. Power Systems 26(1), 2011) plus the derivative
-of the constant-current loads. Because the network is solved node by node in the phase frame,
-unbalanced loads, mutual line coupling and transformer vector groups need no special handling,
-and a balanced network reduces exactly to a positive-sequence load flow.
+Method: ``meas.network.admittance.assemble`` gives three phase nodes (phase-to-ground
+voltages) per energized bus and three internal EMF nodes per finite source, which (like the
+nodes of an ideal source's bus) are the slack, with the nodal admittance matrix Y and the
+voltage-dependent constant-current and constant-power load injections. Unknowns are the angle
+and magnitude of every non-slack node; the Jacobian is the polar form of MATPOWER's
+``dSbus_dV`` (Zimmerman, Murillo-Sanchez & Thomas, MATPOWER, IEEE Trans. Power Systems 26(1),
+2011) plus the derivative of the constant-current loads. Because the network is solved node by
+node in the phase frame, unbalanced loads, mutual line coupling and transformer vector groups
+need no special handling, and a balanced network reduces exactly to a positive-sequence load
+flow.
 
 Convergence: max over non-slack nodes of |S_calc - S_spec| (complex, per phase, VA) below
-``tol_pu * s_base_va`` (``DEFAULT_TOL_PU`` = 1e-10 pu, i.e. 3 uVA on the 30 kVA demo bench). Non-convergence raises ``SolverError`` naming iterations and mismatch.
+``tol_pu * s_base_va`` (``DEFAULT_TOL_PU`` = 1e-10 pu, i.e. 3 uVA on the 30 kVA demo bench).
+Non-convergence raises ``SolverError`` naming iterations and mismatch.
 Dense linear algebra is used: the bench has tens of nodes and a 100-bus feeder solves in
 milliseconds (``benchmarks/bench_solver.py``).
 """
@@ -24,7 +25,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import BenchwalkError
-from .network import LoadModel, Network, SourceModel
+from .admittance import Network, Nodal, assemble
+from .elements import LoadModel, SourceModel
 
 DEFAULT_TOL_PU = 1e-10
 DEFAULT_MAX_ITER = 30
@@ -82,51 +84,12 @@ def solve(
 ) -> Solution:
     """Solve the load flow of ``net``; raises ``SolverError`` unless it converges."""
     tol_va = tol_pu * net.s_base_va
-    live = [b for b in net.buses if net.energized[b]]
-    idx = {b: 3 * k for k, b in enumerate(live)}
-    n = 3 * len(live)
-    finite = [s for s in net.sources if s.y is not None]
-    src_idx = {s.branch: n + 3 * k for k, s in enumerate(finite)}
-    n += 3 * len(finite)
-
-    y = np.zeros((n, n), dtype=complex)
-    v0 = np.zeros(n, dtype=complex)
-    vn = np.ones(n)
-    slack = np.zeros(n, dtype=bool)
-    sp = np.zeros(n, dtype=complex)
-    si = np.zeros(n, dtype=complex)
-    shifts = np.exp(-2j * np.pi / 3 * np.arange(3))
-    for b in live:
-        i = idx[b]
-        vn[i : i + 3] = net.v_nominal[b]
-        v0[i : i + 3] = net.v_nominal[b] * np.exp(1j * np.radians(net.angle0_deg[b])) * shifts
-    for tp in net.two_ports:
-        ii = np.r_[idx[tp.from_bus] : idx[tp.from_bus] + 3, idx[tp.to_bus] : idx[tp.to_bus] + 3]
-        y[np.ix_(ii, ii)] += tp.y
-    for s in net.sources:
-        bi = np.arange(idx[s.bus], idx[s.bus] + 3)
-        if s.y is None:
-            slack[bi] = True
-            v0[bi] = s.emf
-        else:
-            ei = np.arange(src_idx[s.branch], src_idx[s.branch] + 3)
-            ii = np.r_[bi, ei]
-            y[np.ix_(ii, ii)] += np.block([[s.y, -s.y], [-s.y, s.y]])
-            slack[ei] = True
-            v0[ei] = s.emf
-            vn[ei] = np.abs(s.emf)
-    for sh in net.shunts:
-        i = idx[sh.bus]
-        y[range(i, i + 3), range(i, i + 3)] += sh.y
-    for ld in net.loads:
-        i = idx[ld.bus]
-        y[range(i, i + 3), range(i, i + 3)] += np.conj(ld.s_z) / net.v_nominal[ld.bus] ** 2
-        sp[i : i + 3] += ld.s_p
-        si[i : i + 3] += ld.s_i
-
+    nodal = assemble(net)
+    y, slack, sp, si, vn = nodal.y, nodal.slack, nodal.sp, nodal.si, nodal.vn
+    n = len(vn)
     pq = np.flatnonzero(~slack)
     npq = len(pq)
-    v = v0.copy()
+    v = nodal.v0.copy()
     iterations, max_mis, converged = 0, 0.0, True
     if npq:
         converged = False
@@ -168,23 +131,19 @@ def solve(
             f"(max mismatch {max_mis:.3g} VA, needed {tol_va:.3g} VA): the loads may exceed what the "
             "source can supply; check load, source and line parameters"
         )
-    return _results(net, y, v, idx, src_idx, sp, si, vn, iterations, max_mis, tol_va, converged)
+    return _results(net, nodal, v, iterations, max_mis, tol_va, converged)
 
 
 def _results(
     net: Network,
-    y: np.ndarray,
+    nodal: Nodal,
     v: np.ndarray,
-    idx: dict[str, int],
-    src_idx: dict[str, int],
-    sp: np.ndarray,
-    si: np.ndarray,
-    vn: np.ndarray,
     iterations: int,
     max_mis: float,
     tol_va: float,
     converged: bool,
 ) -> Solution:
+    y, idx, src_idx, sp, si, vn = nodal.y, nodal.idx, nodal.src_idx, nodal.sp, nodal.si, nodal.vn
     zero = np.zeros(3, dtype=complex)
     vb = {b: v[idx[b] : idx[b] + 3].copy() if b in idx else zero.copy() for b in net.buses}
     i_from = {br: zero.copy() for br in net.branch_buses}
