@@ -27,7 +27,8 @@ from test_dataset import build_session  # noqa: E402
 from test_runner import write_bench  # noqa: E402
 
 from meas import cli  # noqa: E402
-from meas.dataset import TABLES, export_session  # noqa: E402
+from meas.dataset.export import export_session  # noqa: E402
+from meas.dataset.schema import TABLES  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
 

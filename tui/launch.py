@@ -10,7 +10,7 @@ from collections.abc import Callable
 from datetime import datetime
 from pathlib import Path
 
-from meas.journal import default_sessions_dir
+from meas.journal.sessions import default_sessions_dir
 from meas.profile import load_profile
 from meas.session import Session
 

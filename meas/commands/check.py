@@ -12,7 +12,9 @@ from pathlib import Path
 from rich.console import Console
 from rich.table import Table
 
-from ..dataset import compare_checks, load_dataset, recheck, terminal_progress
+from ..dataset.read import load_dataset
+from ..recheck import compare_checks, recheck
+from .progress import terminal_progress
 
 HELP = "re-run the checks offline from a dataset folder and compare with the recorded ones"
 
