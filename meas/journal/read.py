@@ -139,13 +139,25 @@ def keysets(conn: sqlite3.Connection) -> dict[int, tuple[str, ...]]:
 
 
 def step_history(conn: sqlite3.Connection) -> list[StepTransition]:
-    out: list[StepTransition] = []
-    for r in conn.execute("SELECT * FROM step_log ORDER BY id"):
-        d = dict(r)
-        for k in ("actual_switches", "expected_switches"):
-            d[k] = json.loads(d[k]) if d[k] is not None else None
-        out.append(StepTransition(**d))  # type: ignore[typeddict-item]  # the table's columns
-    return out
+    return [
+        StepTransition(
+            id=r["id"],
+            time_utc=r["time_utc"],
+            step=r["step"],
+            state=r["state"],
+            outcome=r["outcome"],
+            operator=r["operator"],
+            reason=r["reason"],
+            settle_s=r["settle_s"],
+            actual_switches=_switches(r["actual_switches"]),
+            expected_switches=_switches(r["expected_switches"]),
+        )
+        for r in conn.execute("SELECT * FROM step_log ORDER BY id")
+    ]
+
+
+def _switches(text: str | None) -> dict[str, str] | None:
+    return json.loads(text) if text is not None else None
 
 
 def resume_point(conn: sqlite3.Connection, step_ids: Sequence[str]) -> str | None:
@@ -177,7 +189,7 @@ def read_snapshot(
         raise KeyError(row_id)
     blocks = {}
     for r in conn.execute("SELECT * FROM reading WHERE snapshot=? ORDER BY pos", (row_id,)):
-        blocks[r["meter"]] = block_from_row(r, keys_by_id[r["keyset"]])
+        blocks[r["meter"]] = _block_from_row(r, keys_by_id[r["keyset"]])
     time_utc = parse_iso(s["time_utc"])
     assert time_utc is not None  # NOT NULL in the schema
     return Snapshot(
@@ -190,7 +202,7 @@ def read_snapshot(
     )
 
 
-def block_from_row(r: Mapping[str, Any], keys: Sequence[str]) -> MeterBlock:
+def _block_from_row(r: sqlite3.Row, keys: Sequence[str]) -> MeterBlock:
     """A ``reading`` row back into the meter block it was packed from."""
     vals = array("d")
     vals.frombytes(r["vals"])
