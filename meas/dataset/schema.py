@@ -32,9 +32,14 @@ def _c(
     return Col(name, type_, description, unit, required)
 
 
+class Reference(TypedDict):
+    resource: str
+    fields: list[str]
+
+
 class ForeignKey(TypedDict):
     fields: list[str]
-    reference: dict[str, Any]  # {"resource": name, "fields": [...]}, as Table Schema has it
+    reference: Reference
 
 
 class TableSpec(TypedDict):
