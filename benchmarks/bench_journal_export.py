@@ -38,7 +38,8 @@ sys.path.insert(0, str(ROOT / "benchmarks"))
 from common import Figure, Target, ratio, slowdown  # noqa: E402
 from test_journal import KEYS, make_bench, make_snapshot  # noqa: E402
 
-from meas.journal import Journal  # noqa: E402
+from meas.journal.store import Journal  # noqa: E402
+from meas.profile_files import profile_files  # noqa: E402
 
 N_METERS = 32
 
@@ -51,7 +52,12 @@ def _snapshots(n: int, meters: list[str], seed: int = 0) -> list:
 def journal_rate(folder: Path, n: int) -> float:
     profile = make_bench(folder / "profile", N_METERS)
     snaps = _snapshots(n, [m.id for m in profile.meters])
-    j = Journal.create(folder / f"j-{time.monotonic_ns()}.sqlite", profile, operator="bench")
+    j = Journal.create(
+        folder / f"j-{time.monotonic_ns()}.sqlite",
+        profile,
+        files=profile_files(profile),
+        operator="bench",
+    )
     t = time.perf_counter()
     for s in snaps:
         j.record_snapshot(s, step_id="S1", role="capture")
@@ -122,7 +128,13 @@ def build_journal(folder: Path, n_values: int) -> Path:
     per_snapshot = N_METERS * len(KEYS)
     n = -(-n_values // per_snapshot)
     path = folder / f"long-{n_values}.sqlite"
-    j = Journal.create(path, profile, operator="bench", session_id=f"bench-{n_values}")
+    j = Journal.create(
+        path,
+        profile,
+        files=profile_files(profile),
+        operator="bench",
+        session_id=f"bench-{n_values}",
+    )
     j._conn.execute("PRAGMA synchronous=OFF")  # fixture only: build fast, same format
     rng = np.random.default_rng(1)
     base = make_snapshot(0, meters, rng)
@@ -151,7 +163,7 @@ def _child(phase: str, src: str, out: str) -> dict:
 def child_main(phase: str, src: str, out: str) -> None:
     t = time.perf_counter()
     if phase == "export":
-        from meas.dataset import export_session
+        from meas.dataset.export import export_session
 
         export_session(Path(src), Path(out), overwrite=True)
         rows = None

@@ -18,8 +18,9 @@ import numpy as np
 import pandas as pd
 
 from .cautions import REPORT_CAUTION as CAUTION
-from .dataset import Dataset, load_dataset, read_table, terminal_progress
+from .dataset.read import Dataset, load_dataset, read_table
 from .errors import BenchwalkError
+from .progress import Progress
 
 # quantity keys summarized per meter and step: (column title, unit, keys averaged per snapshot)
 KEY_READINGS = [
@@ -589,7 +590,9 @@ def default_report_path(dataset_dir: Path) -> Path:
     return d.parent / f"{d.name}-report.html"
 
 
-def write_report(dataset_dir: Path, out: Path | None = None) -> tuple[Path, Path]:
+def write_report(
+    dataset_dir: Path, out: Path | None = None, *, progress: Progress | None = None
+) -> tuple[Path, Path]:
     """Write ``out`` (HTML) and the Markdown beside it; returns both paths."""
     html_path = Path(out) if out is not None else default_report_path(dataset_dir)
     md_path = html_path.with_suffix(".md")
@@ -599,17 +602,14 @@ def write_report(dataset_dir: Path, out: Path | None = None) -> tuple[Path, Path
             f"{html_path}: the report would be written inside the dataset folder {dataset_dir} and "
             "change it; give an --out outside it"
         )
-    bar, update = terminal_progress("report")
-    if bar is not None:
-        with bar:
-            update(0, 3)
-            rd = gather(dataset_dir)
-            update(1, 3)
-            texts = render_html(rd), render_markdown(rd)
-            update(2, 3)
-    else:
-        rd = gather(dataset_dir)
-        texts = render_html(rd), render_markdown(rd)
+    if progress:
+        progress(0, 3)
+    rd = gather(dataset_dir)
+    if progress:
+        progress(1, 3)
+    texts = render_html(rd), render_markdown(rd)
+    if progress:
+        progress(2, 3)
     for path, text in zip((html_path, md_path), texts, strict=True):
         tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
         try:

@@ -23,9 +23,11 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from .errors import BenchwalkError
-from .journal import Journal, new_session_id, resolve_session, session_path
+from .journal.sessions import new_session_id, resolve_session, session_path
+from .journal.store import Journal
 from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
+from .profile_files import profile_files
 from .results import Status
 from .snapshot import Snapshot
 from .walk.runner import Runner
@@ -169,7 +171,14 @@ class Session:
         if simulate:
             bench, live_profile = await _start_bench(profile, faults, seed, noise)
         try:
-            journal = Journal.create(path, profile, operator=operator, session_id=sid, meta=meta)
+            journal = Journal.create(
+                path,
+                profile,
+                operator=operator,
+                files=profile_files(profile),
+                session_id=sid,
+                meta=meta,
+            )
         except BaseException:
             if bench is not None:
                 await bench.stop()
@@ -335,7 +344,7 @@ class Session:
 
     def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
         """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
-        from .dataset import export_session
+        from .dataset.export import export_session
         from .report import write_report
 
         out = Path(out_dir)

@@ -26,7 +26,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_dataset import build_session  # noqa: E402
 from test_runner import write_bench  # noqa: E402
 
-from meas.dataset import TABLES, export_session  # noqa: E402
+from meas.dataset.export import export_session  # noqa: E402
+from meas.dataset.schema import TABLES  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
 from tui import cli  # noqa: E402

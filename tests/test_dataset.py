@@ -22,9 +22,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from meas.dataset import TABLES, compare_checks, export_session, load_dataset, write_collection
+from meas.dataset.collection import write_collection
+from meas.dataset.export import export_session
+from meas.dataset.read import load_dataset
+from meas.dataset.schema import TABLES
 from meas.errors import BenchwalkError
-from meas.journal import Journal
+from meas.journal.store import Journal
+from meas.profile_files import profile_files
+from meas.recheck import compare_checks
 from meas.results import CheckResult, Status
 from tui import cli
 
@@ -39,7 +44,7 @@ def build_session(
     profile = make_bench(folder / "profile", n_meters=n_meters)
     meters = [m.id for m in profile.meters]
     path = folder / f"{name}.sqlite"
-    j = Journal.create(path, profile, operator="ana", session_id=name)
+    j = Journal.create(path, profile, files=profile_files(profile), operator="ana", session_id=name)
     rng = np.random.default_rng(7)
     j.record_step("S1", "settling", expected_switches={"CB1": "closed"})
     for i in range(n_snapshots):
@@ -255,7 +260,7 @@ def test_export_refuses_to_overwrite_and_replaces_with_flag(
 CHILD = """
 import resource, signal, sys
 from pathlib import Path
-from meas.dataset import export_session
+from meas.dataset.export import export_session
 from meas.errors import BenchwalkError
 signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
 resource.setrlimit(resource.RLIMIT_FSIZE, (150_000, resource.RLIM_INFINITY))

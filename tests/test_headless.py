@@ -17,7 +17,7 @@ import pytest
 from test_runner import write_bench, write_fast_demo
 
 from meas.errors import BenchwalkError
-from meas.journal import Journal
+from meas.journal.store import Journal
 from meas.session import Session
 from meas.walk.sequence import configuration_before
 
@@ -245,7 +245,8 @@ def test_demo_headless_clean_exits_0_and_exports(demo_runs):
 
 
 def assert_recheck_identical(dataset: Path) -> None:
-    from meas.dataset import compare_checks, load_dataset, recheck
+    from meas.dataset.read import load_dataset
+    from meas.recheck import compare_checks, recheck
 
     exported = load_dataset(dataset, tables=["checks"])["checks"]
     assert len(exported) > 0

@@ -22,7 +22,7 @@ from pathlib import Path
 import frictionless
 from test_runner import TEST_SEQUENCE, write_bench
 
-from meas.journal import Journal
+from meas.journal.store import Journal
 
 ROOT = Path(__file__).resolve().parents[1]
 KILLS = 20 if os.environ.get("BENCHWALK_LONG") == "1" else 5

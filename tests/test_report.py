@@ -17,8 +17,11 @@ import numpy as np
 import pytest
 
 from meas.cautions import REPORT_CAUTION as CAUTION
-from meas.dataset import compare_checks, export_session, load_dataset, recheck
-from meas.journal import Journal
+from meas.dataset.export import export_session
+from meas.dataset.read import load_dataset
+from meas.journal.store import Journal
+from meas.profile_files import profile_files
+from meas.recheck import compare_checks, recheck
 from meas.report import write_report
 from meas.results import overall
 from tui import cli
@@ -49,7 +52,13 @@ def record_sim_session(folder: Path, faults: list[str]) -> Path:
     ideal = sim_readings.ideal_readings(profile, NORMAL)
     rng = np.random.default_rng(20261201)
     path = folder / "20261201-221500-kestrel.sqlite"
-    j = Journal.create(path, profile, operator="ana", session_id="20261201-221500-kestrel")
+    j = Journal.create(
+        path,
+        profile,
+        files=profile_files(profile),
+        operator="ana",
+        session_id="20261201-221500-kestrel",
+    )
     seq, prev = 0, None
     for step, n_settle, n_capture in (("radial-sign-off", 4, 4), ("load-bank-2", 3, 5)):
         j.record_step(step, "settling", operator="ana", expected_switches=NORMAL)
@@ -113,7 +122,7 @@ def test_recheck_notices_an_edited_measurement(sim_dataset: Path, tmp_path: Path
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    from meas.dataset import _sha256
+    from meas.dataset.files import sha256_of as _sha256
 
     copy = tmp_path / "edited"
     shutil.copytree(sim_dataset, copy)

@@ -39,13 +39,15 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_runner import FAST_CAPTURE, write_bench  # noqa: E402
 from write_recorder import WRITE_FC, parse_pdu, recording_profile  # noqa: E402
 
-from meas.dataset import export_session, remove_stale_exports, verify_dataset  # noqa: E402
+from meas.dataset.export import export_session, remove_stale_exports  # noqa: E402
+from meas.dataset.read import verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError, ProfileError  # noqa: E402
-from meas.journal import Journal  # noqa: E402
+from meas.journal.store import Journal  # noqa: E402
 from meas.model import SWITCH_STATES  # noqa: E402
 from meas.poll.control import ControlRefused, SwitchControl  # noqa: E402
 from meas.poll.cycle import Poller  # noqa: E402
 from meas.profile import check_profile, load_profile  # noqa: E402
+from meas.profile_files import profile_files  # noqa: E402
 from meas.sim.bench import WRITE_LOG_ENV, SimulatedBench  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
 from tui import cli  # noqa: E402
@@ -556,7 +558,11 @@ def test_hostile_strings_travel_as_text_through_journal_export_and_report(tmp_pa
     path.write_text(text)
     profile = load_profile(path)
     j = Journal.create(
-        tmp_path / "s.sqlite", profile, operator="<script>alert(2)</script>", session_id="s"
+        tmp_path / "s.sqlite",
+        profile,
+        files=profile_files(profile),
+        operator="<script>alert(2)</script>",
+        session_id="s",
     )
     # [sim.extra] file = "/etc/hostname" is data: the journal copies only the sequence file
     assert [name for name, _ in j.profile_files()] == ["p.toml"]
@@ -611,7 +617,7 @@ def test_export_never_replaces_anything_without_the_flag(small_journal, tmp_path
 KILLED_EXPORT = """
 import os, signal, sys
 from pathlib import Path
-from meas.dataset import export_session
+from meas.dataset.export import export_session
 def die(done, total):
     os.kill(os.getpid(), signal.SIGKILL)  # a pulled plug half-way through the measurements
 export_session(Path(sys.argv[1]), Path(sys.argv[2]), progress=die)

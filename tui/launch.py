@@ -11,7 +11,7 @@ from datetime import datetime
 from pathlib import Path
 
 from meas.errors import BenchwalkError
-from meas.journal import default_sessions_dir
+from meas.journal.sessions import default_sessions_dir
 from meas.profile import load_profile
 from meas.session import Session
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 from typing import Literal
 
+from meas.bases import bases_of, energy_base, network_factor, per_unit_base
 from meas.model import Profile
 from meas.quantities import split_key, unit_of
 
@@ -16,40 +17,21 @@ UnitMode = Literal["bench", "network", "pu"]
 UNIT_MODES: tuple[UnitMode, ...] = ("bench", "network", "pu")
 UNIT_MODE_LABEL = {"bench": "bench SI", "network": "network scale", "pu": "per unit"}
 
-_SQRT3 = math.sqrt(3.0)
+_AS_READ = ("pf", "f", "v_ang", "i_ang")  # no scale and no per-unit base
 _PREFIXES = ((1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"))
 
 
 def scale_factor(profile: Profile, bus: str, key: str, mode: UnitMode) -> float:
     """Multiply a primary bench value by this to show it in ``mode``; 1.0 for PF, f, angles.
 
-    Network scale: voltages by the zone's voltage ratio, powers by the bench power scale and
-    currents by power/voltage ratio (S = sqrt(3) V I). Per unit: on the bench's three-phase
-    base S_base and the zone's bench V_LL; phase powers on S_base/3 so that a balanced
-    phase and the total read the same per-unit figure (common practice).
+    The factors are ``meas.bases``'s (the dataset's too); energies show in per-unit hours.
     """
-    quantity, phase = split_key(key)
-    if mode == "bench" or quantity in ("pf", "f", "v_ang", "i_ang"):
+    if mode == "bench" or split_key(key)[0] in _AS_READ:
         return 1.0
-    zone = profile.zone_of_bus(bus)
-    bench = profile.bench
+    bases = bases_of(profile, bus)
     if mode == "network":
-        if quantity in ("v_ln", "v_ll"):
-            return zone.voltage_scale
-        if quantity == "i":
-            return bench.power_scale / zone.voltage_scale
-        return bench.power_scale  # p, q, s, energies
-    # per unit
-    if quantity == "v_ll":
-        return 1.0 / zone.bench_v_ll
-    if quantity == "v_ln":
-        return _SQRT3 / zone.bench_v_ll
-    if quantity == "i":
-        return _SQRT3 * zone.bench_v_ll / bench.s_base_va
-    if quantity in ("p", "q", "s"):
-        base = bench.s_base_va if phase == "T" else bench.s_base_va / 3.0
-        return 1.0 / base
-    return 1.0 / bench.s_base_va  # energies in pu-hours
+        return network_factor(bases, key)
+    return (per_unit_base(bases, key) or energy_base(bases)).factor
 
 
 def unit_label(key: str, mode: UnitMode) -> str:

@@ -12,7 +12,10 @@ from pathlib import Path
 from rich.console import Console
 from rich.table import Table
 
-from meas.dataset import compare_checks, load_dataset, recheck, terminal_progress
+from meas.dataset.read import load_dataset
+from meas.recheck import compare_checks, recheck
+
+from .progress import terminal_progress
 
 HELP = "re-run the checks offline from a dataset folder and compare with the recorded ones"
 

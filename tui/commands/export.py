@@ -5,7 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from meas.dataset import export_session, terminal_progress
+from meas.dataset.export import export_session
+
+from .progress import terminal_progress
 
 HELP = "export a session journal as a dataset folder (CSV, Parquet, datapackage.json, profile)"
 

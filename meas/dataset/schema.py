@@ -1,0 +1,346 @@
+"""The dataset's tables: their columns, descriptions and units, as Table Schema and as Arrow.
+
+One definition serves the writer (``meas.dataset.export``), the reader (``meas.dataset.read``)
+and the ``datapackage.json`` that describes every table to anyone else.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, NotRequired, TypedDict
+
+import pyarrow as pa
+
+DATA_DIR = "data"
+PROFILE_DIR = "profile"
+MAIN_PROFILE = "profile.toml"
+TS_SCHEMA = "https://datapackage.org/profiles/2.0/tableschema.json"
+
+
+@dataclass(frozen=True)
+class Col:
+    name: str
+    type: str  # Table Schema type: string, integer, number, datetime
+    description: str
+    unit: str | None = None
+    required: bool = False
+
+
+def _c(
+    name: str, type_: str, description: str, unit: str | None = None, required: bool = False
+) -> Col:
+    return Col(name, type_, description, unit, required)
+
+
+class Reference(TypedDict):
+    resource: str
+    fields: list[str]
+
+
+class ForeignKey(TypedDict):
+    fields: list[str]
+    reference: Reference
+
+
+class TableSpec(TypedDict):
+    """A table as ``datapackage.json`` describes it (keys spelt as Table Schema spells them)."""
+
+    title: str
+    columns: list[Col]
+    primaryKey: NotRequired[list[str]]
+    foreignKeys: NotRequired[list[ForeignKey]]
+
+
+TABLES: dict[str, TableSpec] = {
+    "measurements": {
+        "title": "Every recorded value, one row per meter, quantity and phase per snapshot",
+        "columns": [
+            _c("session", "string", "session id", required=True),
+            _c("step", "string", "step id of the sequence; empty outside a step"),
+            _c(
+                "snapshot",
+                "integer",
+                "snapshot row id in the journal (joins snapshots.snapshot)",
+                required=True,
+            ),
+            _c(
+                "role",
+                "string",
+                "settling (before the step settled), capture (the step's record) or live",
+                required=True,
+            ),
+            _c("time_utc", "datetime", "poll time, UTC", required=True),
+            _c("meter", "string", "meter id (joins meters.id)", required=True),
+            _c(
+                "quantity",
+                "string",
+                "quantity name: v_ln, v_ll, i, p, q, s, pf, f, v_ang, i_ang, e_imp, e_exp",
+                required=True,
+            ),
+            _c(
+                "phase",
+                "string",
+                "A, B, C, N, AB, BC, CA, or T for total / single-valued",
+                required=True,
+            ),
+            _c(
+                "value",
+                "number",
+                "primary, bench-side value in SI units as read; empty when the read failed",
+            ),
+            _c("unit", "string", "unit of value and value_network", required=True),
+            _c(
+                "quality",
+                "string",
+                "ok, timeout, exception, decode, offline or stale; only ok values are valid",
+                required=True,
+            ),
+            _c(
+                "value_network",
+                "number",
+                "value at network scale: V x zone scale, A x power_scale/voltage_scale, W/var/VA x power_scale",
+            ),
+            _c(
+                "value_pu",
+                "number",
+                "per unit on the bench bases (V: zone bench_v_ll, or over sqrt 3 for phase-neutral; power: s_base_va, over 3 per phase; A: base current)",
+                unit="pu",
+            ),
+            _c("mmxu", "string", "IEC 61850-7-4 MMXU data object name of the quantity"),
+        ],
+        "primaryKey": ["snapshot", "meter", "quantity", "phase"],
+        "foreignKeys": [
+            {
+                "fields": ["snapshot"],
+                "reference": {"resource": "snapshots", "fields": ["snapshot"]},
+            },
+            {"fields": ["meter"], "reference": {"resource": "meters", "fields": ["id"]}},
+        ],
+    },
+    "snapshots": {
+        "title": "One row per recorded poll cycle",
+        "columns": [
+            _c("snapshot", "integer", "snapshot row id in the journal", required=True),
+            _c("seq", "integer", "poll cycle number from the poller", required=True),
+            _c("step", "string", "step id; empty outside a step"),
+            _c("role", "string", "settling, capture or live", required=True),
+            _c("time_utc", "datetime", "poll time, UTC", required=True),
+            _c("t_mono", "number", "monotonic clock at the poll, for intervals", unit="s"),
+            _c("cycle_s", "number", "time the poll cycle took", unit="s"),
+            _c("saved_utc", "datetime", "when the journal committed it", required=True),
+        ],
+        "primaryKey": ["snapshot"],
+    },
+    "polls": {
+        "title": "Communication state of each meter in each snapshot",
+        "columns": [
+            _c("snapshot", "integer", "snapshot row id", required=True),
+            _c("meter", "string", "meter id", required=True),
+            _c("state", "string", "ok, degraded, failing or offline", required=True),
+            _c(
+                "exception_code", "integer", "Modbus exception code the meter answered with, if any"
+            ),
+            _c("error", "string", "what went wrong this cycle, one line"),
+            _c("error_count", "integer", "consecutive failed cycles", required=True),
+            _c("latency_s", "number", "request-response time", unit="s"),
+            _c("last_good_utc", "datetime", "last good answer, UTC"),
+        ],
+        "primaryKey": ["snapshot", "meter"],
+        "foreignKeys": [
+            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}
+        ],
+    },
+    "switch_states": {
+        "title": "Switch positions reported in each snapshot",
+        "columns": [
+            _c("snapshot", "integer", "snapshot row id", required=True),
+            _c("switch", "string", "switch id", required=True),
+            _c("state", "string", "open, closed or unknown", required=True),
+        ],
+        "primaryKey": ["snapshot", "switch"],
+        "foreignKeys": [
+            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}
+        ],
+    },
+    "steps": {
+        "title": "The sequence, one row per step, with its final outcome",
+        "columns": [
+            _c("id", "string", "step id", required=True),
+            _c("order", "integer", "position in the sequence, from 1", required=True),
+            _c("title", "string", "one line"),
+            _c("kind", "string", "manual, remote, capture, hold or note", required=True),
+            _c(
+                "expected_switches",
+                "string",
+                "switch states the step expects, SWITCH=state separated by ;",
+            ),
+            _c(
+                "actual_switches",
+                "string",
+                "switch states found at the last transition, SWITCH=state separated by ;",
+            ),
+            _c(
+                "settle_s",
+                "number",
+                "time the network took to settle after the step's operation (its first settle; a retake does not count)",
+                unit="s",
+            ),
+            _c(
+                "state",
+                "string",
+                "last state reached: accepted, skipped, reviewing, ...; empty if never started",
+            ),
+            _c("outcome", "string", "last outcome: pass, warn, fail, signed, noted, ..."),
+            _c("operator", "string", "who took the last decision"),
+            _c("reason", "string", "reason given (skip, accept with failing checks)"),
+            _c("started_utc", "datetime", "first transition"),
+            _c("ended_utc", "datetime", "last transition"),
+        ],
+        "primaryKey": ["id"],
+    },
+    "step_log": {
+        "title": "Every state transition of every step, in order",
+        "columns": [
+            _c("id", "integer", "transition number", required=True),
+            _c("time_utc", "datetime", "when", required=True),
+            _c("step", "string", "step id", required=True),
+            _c("state", "string", "state entered", required=True),
+            _c("outcome", "string", "outcome at this transition"),
+            _c("operator", "string", "who"),
+            _c("reason", "string", "reason given"),
+            _c("settle_s", "number", "settle time", unit="s"),
+            _c("actual_switches", "string", "switch states found, SWITCH=state separated by ;"),
+            _c(
+                "expected_switches", "string", "switch states expected, SWITCH=state separated by ;"
+            ),
+        ],
+        "primaryKey": ["id"],
+    },
+    "checks": {
+        "title": "Every check result recorded with a snapshot",
+        "columns": [
+            _c("step", "string", "step id"),
+            _c("snapshot", "integer", "snapshot row id", required=True),
+            _c("check", "string", "check id", required=True),
+            _c("subject", "string", "meter, bus, branch or switch id", required=True),
+            _c("status", "string", "pass, warn, fail or n/a", required=True),
+            _c("value", "number", "the measured figure, in unit"),
+            _c("limit", "number", "the allowed figure (expanded uncertainty), in unit"),
+            _c("residual", "number", "|value| / limit; 1 is the edge of the band", unit="1"),
+            _c("unit", "string", "unit of value and limit"),
+            _c("message", "string", "one sentence: what is wrong, likely cause, what to look at"),
+            _c("cause", "string", "machine-readable cause tag"),
+        ],
+        "foreignKeys": [
+            {"fields": ["snapshot"], "reference": {"resource": "snapshots", "fields": ["snapshot"]}}
+        ],
+    },
+    "meters": {
+        "title": "The instruments",
+        "columns": [
+            _c("id", "string", "meter id", required=True),
+            _c("label", "string", "name on the bench"),
+            _c("map", "string", "register map id", required=True),
+            _c("bus", "string", "bus where the voltage is measured", required=True),
+            _c(
+                "branch",
+                "string",
+                "branch whose current it measures; empty for a voltage-only meter",
+            ),
+            _c("zone", "string", "voltage zone of the bus"),
+            _c("sign_convention", "string", "what positive P and Q mean for this meter"),
+            _c("reports", "string", "primary or secondary values"),
+            _c("ct_ratio", "number", "primary A per secondary A", unit="A/A"),
+            _c("vt_ratio", "number", "primary V per secondary V", unit="V/V"),
+            _c("ct_primary_a", "number", "rated CT primary current", unit="A"),
+            _c("class_p", "string", "active power accuracy class"),
+            _c("class_q", "string", "reactive power accuracy class"),
+            _c("class_v", "string", "voltage accuracy class"),
+            _c("class_i", "string", "current accuracy class"),
+            _c("endpoint", "string", "tcp://host:port or rtu://device"),
+            _c("unit_id", "integer", "Modbus unit id"),
+        ],
+        "primaryKey": ["id"],
+    },
+    "topology": {
+        "title": "Buses, branches and switches of the bench",
+        "columns": [
+            _c("element", "string", "bus, branch or switch", required=True),
+            _c("id", "string", "element id", required=True),
+            _c(
+                "kind",
+                "string",
+                "branch kind (source, line, transformer, load, shunt) or switch operation",
+            ),
+            _c("label", "string", "name on the bench"),
+            _c("zone", "string", "voltage zone (buses; from-bus zone for branches)"),
+            _c("from_bus", "string", "branch from-bus"),
+            _c("to_bus", "string", "branch to-bus; empty for one-ended branches"),
+            _c("branch", "string", "switch: the branch it opens"),
+            _c("normal", "string", "switch: normal state"),
+            _c("bench_v_ll", "number", "zone nominal line-to-line voltage on the bench", unit="V"),
+            _c(
+                "network_v_ll",
+                "number",
+                "line-to-line voltage it stands for on the network",
+                unit="V",
+            ),
+        ],
+        "primaryKey": ["element", "id"],
+    },
+    "events": {
+        "title": "Everything that happened besides readings: operations, notes, timeouts",
+        "columns": [
+            _c("id", "integer", "event number", required=True),
+            _c("time_utc", "datetime", "when", required=True),
+            _c("kind", "string", "event kind", required=True),
+            _c("step", "string", "step id"),
+            _c("operator", "string", "who"),
+            _c("message", "string", "what"),
+            _c("data", "string", "details as a JSON object"),
+        ],
+        "primaryKey": ["id"],
+    },
+}
+
+ARROW_TYPES = {
+    "string": pa.string(),
+    "integer": pa.int64(),
+    "number": pa.float64(),
+    "datetime": pa.timestamp("us", tz="UTC"),
+}
+
+
+def arrow_schema(table: str, *, for_csv: bool = False) -> pa.Schema:
+    """Parquet keeps real timestamps; CSV gets ISO 8601 text with a Z (what Table Schema parses)."""
+    return pa.schema(
+        [
+            pa.field(
+                c.name, pa.string() if for_csv and c.type == "datetime" else ARROW_TYPES[c.type]
+            )
+            for c in TABLES[table]["columns"]
+        ]
+    )
+
+
+def column_names(table: str) -> list[str]:
+    return [c.name for c in TABLES[table]["columns"]]
+
+
+def table_schema(name: str) -> dict[str, Any]:
+    """The table's Table Schema, as ``datapackage.json`` lists it."""
+    spec = TABLES[name]
+    fields = []
+    for c in spec["columns"]:
+        f: dict[str, Any] = {"name": c.name, "type": c.type, "description": c.description}
+        if c.unit:
+            f["unit"] = c.unit
+        if c.required:
+            f["constraints"] = {"required": True}
+        fields.append(f)
+    schema: dict[str, Any] = {"$schema": TS_SCHEMA, "fields": fields, "missingValues": [""]}
+    if "primaryKey" in spec:
+        schema["primaryKey"] = spec["primaryKey"]
+    if "foreignKeys" in spec:
+        schema["foreignKeys"] = spec["foreignKeys"]
+    return schema

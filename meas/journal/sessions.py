@@ -1,0 +1,40 @@
+"""Where session journals live and what they are called: ids, paths, look-up by id or path."""
+
+from __future__ import annotations
+
+import os
+import re
+from datetime import UTC, datetime
+from pathlib import Path
+
+from ..errors import BenchwalkError
+
+
+def default_sessions_dir() -> Path:
+    """Where session journals live: ``$BENCHWALK_SESSIONS`` or ``./sessions``."""
+    return Path(os.environ.get("BENCHWALK_SESSIONS") or "sessions")
+
+
+def session_path(session_id: str, sessions_dir: Path | None = None) -> Path:
+    return (sessions_dir or default_sessions_dir()) / f"{session_id}.sqlite"
+
+
+def new_session_id(bench_name: str, when: datetime | None = None) -> str:
+    """Readable id: UTC time and the bench's first word, e.g. ``20261201-221500-kestrel``."""
+    when = when or datetime.now(UTC)
+    words = re.findall(r"[a-z0-9]+", bench_name.lower())
+    return f"{when:%Y%m%d-%H%M%S}-{(words[0] if words else 'bench')[:16]}"
+
+
+def resolve_session(session: str | Path, sessions_dir: Path | None = None) -> Path:
+    """A journal path from a session id or a path; BenchwalkError when there is none."""
+    p = Path(session)
+    if p.is_file():
+        return p
+    by_id = session_path(str(session), sessions_dir)
+    if by_id.is_file():
+        return by_id
+    raise BenchwalkError(
+        f"no session {str(session)!r}: not a journal file and not in {by_id.parent}/ "
+        "(give the path to the .sqlite file or set BENCHWALK_SESSIONS)"
+    )

@@ -1,0 +1,35 @@
+"""A progress bar on the terminal for the commands; the core only calls a ``Progress``."""
+
+from __future__ import annotations
+
+import sys
+from typing import TYPE_CHECKING
+
+from meas.progress import Progress
+
+if TYPE_CHECKING:
+    from rich.progress import Progress as Bar
+
+
+def terminal_progress(description: str) -> tuple[Bar, Progress] | tuple[None, None]:
+    """A rich progress bar on stderr when it is a terminal, else None (quiet in pipes and tests)."""
+    if not sys.stderr.isatty():
+        return None, None
+    from rich.console import Console  # noqa: PLC0415
+    from rich.progress import BarColumn, TimeRemainingColumn
+    from rich.progress import Progress as Bar
+
+    bar = Bar(
+        "[progress.description]{task.description}",
+        BarColumn(),
+        "{task.percentage:>3.0f}%",
+        TimeRemainingColumn(),
+        console=Console(stderr=True),
+        transient=True,
+    )
+    task = bar.add_task(description, total=None)
+
+    def update(done: int, total: int) -> None:
+        bar.update(task, completed=done, total=total)
+
+    return bar, update
