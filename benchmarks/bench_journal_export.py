@@ -39,7 +39,6 @@ from common import Figure, Target, ratio, slowdown  # noqa: E402
 from test_journal import KEYS, make_bench, make_snapshot  # noqa: E402
 
 from meas.journal.store import Journal  # noqa: E402
-from meas.profile_files import profile_files  # noqa: E402
 
 N_METERS = 32
 
@@ -55,7 +54,6 @@ def journal_rate(folder: Path, n: int) -> float:
     j = Journal.create(
         folder / f"j-{time.monotonic_ns()}.sqlite",
         profile,
-        files=profile_files(profile),
         operator="bench",
     )
     t = time.perf_counter()
@@ -131,7 +129,6 @@ def build_journal(folder: Path, n_values: int) -> Path:
     j = Journal.create(
         path,
         profile,
-        files=profile_files(profile),
         operator="bench",
         session_id=f"bench-{n_values}",
     )

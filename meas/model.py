@@ -354,6 +354,15 @@ class Step:
 
 
 @dataclass(frozen=True)
+class SourceFile:
+    """One file of the profile exactly as the loader read and validated it; the journal keeps
+    this text, so a session records what was checked, not what is on disk later."""
+
+    name: str  # relative to the profile's folder, POSIX separators; the main file first
+    text: str
+
+
+@dataclass(frozen=True)
 class Profile:
     path: str
     sha256: str  # of the profile file and any companion files, in order
@@ -369,6 +378,7 @@ class Profile:
     checks: CheckSettings = field(default_factory=CheckSettings)
     steps: tuple[Step, ...] = ()
     sim: dict[str, Any] = field(default_factory=dict, compare=False, hash=False)
+    sources: tuple[SourceFile, ...] = field(default=(), compare=False, hash=False)
 
     def meter(self, meter_id: str) -> Meter:
         for m in self.meters:

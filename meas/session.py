@@ -27,7 +27,6 @@ from .journal.sessions import new_session_id, resolve_session, session_path
 from .journal.store import Journal
 from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
-from .profile_files import profile_files
 from .results import Status
 from .snapshot import Snapshot
 from .walk.runner import Runner
@@ -175,7 +174,6 @@ class Session:
                 path,
                 profile,
                 operator=operator,
-                files=profile_files(profile),
                 session_id=sid,
                 meta=meta,
             )

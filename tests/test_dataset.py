@@ -28,7 +28,6 @@ from meas.dataset.read import load_dataset
 from meas.dataset.schema import TABLES
 from meas.errors import BenchwalkError
 from meas.journal.store import Journal
-from meas.profile_files import profile_files
 from meas.recheck import compare_checks
 from meas.results import CheckResult, Status
 from tui import cli
@@ -44,7 +43,7 @@ def build_session(
     profile = make_bench(folder / "profile", n_meters=n_meters)
     meters = [m.id for m in profile.meters]
     path = folder / f"{name}.sqlite"
-    j = Journal.create(path, profile, files=profile_files(profile), operator="ana", session_id=name)
+    j = Journal.create(path, profile, operator="ana", session_id=name)
     rng = np.random.default_rng(7)
     j.record_step("S1", "settling", expected_switches={"CB1": "closed"})
     for i in range(n_snapshots):

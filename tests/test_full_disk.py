@@ -30,7 +30,6 @@ from meas.dataset.export import export_session  # noqa: E402
 from meas.dataset.read import verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
 from meas.journal.store import Journal, JournalWriteError  # noqa: E402
-from meas.profile_files import profile_files  # noqa: E402
 from tui import cli  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -78,9 +77,7 @@ def test_journal_fills_the_disk_keeps_what_it_saved_and_goes_on_after_space_is_f
     rng = np.random.default_rng(1)
     with tmpfs(tmp_path / "disk", "2m") as disk:
         path = disk / "s.sqlite"
-        j = Journal.create(
-            path, profile, files=profile_files(profile), operator="ana", session_id="s"
-        )
+        j = Journal.create(path, profile, operator="ana", session_id="s")
         fill(disk, 256 * 1024)
         saved: dict[int, object] = {}
         error = None

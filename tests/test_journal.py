@@ -29,7 +29,6 @@ from meas.journal.sessions import new_session_id, resolve_session, session_path
 from meas.journal.store import Journal, JournalWriteError
 from meas.model import Profile
 from meas.profile import load_profile
-from meas.profile_files import profile_files
 from meas.quantities import QUANTITIES
 from meas.results import CheckResult, Status
 from meas.snapshot import CommState, MeterBlock, Quality, Snapshot
@@ -187,7 +186,7 @@ def _meters(profile: Profile) -> list[str]:
 
 def test_snapshots_round_trip_bit_exact(tmp_path: Path, bench: Profile) -> None:
     rng = np.random.default_rng(1)
-    j = Journal.create(tmp_path / "s.sqlite", bench, files=profile_files(bench), operator="ana")
+    j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
     snaps = [make_snapshot(i, _meters(bench), rng, bad="M2" if i == 3 else None) for i in range(6)]
     ids = [j.record_snapshot(s, step_id="S1", role="capture") for s in snaps]
     j.close()
@@ -215,7 +214,6 @@ def test_session_keeps_profile_text_and_hash(tmp_path: Path, bench: Profile) -> 
     j = Journal.create(
         tmp_path / "s.sqlite",
         bench,
-        files=profile_files(bench),
         operator="ana",
         meta={"site": "lab 2"},
     )
@@ -232,8 +230,23 @@ def test_session_keeps_profile_text_and_hash(tmp_path: Path, bench: Profile) -> 
     assert j.profile_text.startswith("# invented test bench") and j.meta == {"site": "lab 2"}
 
 
+def test_journal_stores_the_text_the_loader_validated(tmp_path: Path, bench: Profile) -> None:
+    """The files are taken from the loader, not re-read: an edit on disk after loading (or a
+    file gone) cannot slip unvalidated text, or a text that does not match the hash, into
+    the session."""
+    main = tmp_path / "profile" / "plover.toml"
+    validated = main.read_text()
+    main.write_text(validated.replace("plover", "edited after loading"))
+    (tmp_path / "profile" / "plover.sequence.toml").unlink()
+    j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
+    files = j.profile_files()
+    assert files == [("plover.toml", validated), ("plover.sequence.toml", SEQUENCE_TOML)]
+    assert hashlib.sha256("".join(t for _, t in files).encode()).hexdigest() == bench.sha256
+    j.close()
+
+
 def test_append_only_rejects_update_and_delete(tmp_path: Path, bench: Profile) -> None:
-    j = Journal.create(tmp_path / "s.sqlite", bench, files=profile_files(bench), operator="ana")
+    j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
     rid = j.record_snapshot(
         make_snapshot(0, _meters(bench), np.random.default_rng(2)), step_id="S1", role="capture"
     )
@@ -270,7 +283,7 @@ def test_disk_full_raises_journal_write_error_and_keeps_earlier_data(tmp_path: P
     the same "database or disk is full" error as a full drive (sqlite.org/pragma.html)."""
     profile = make_bench(tmp_path / "profile", n_meters=8)
     path = tmp_path / "s.sqlite"
-    j = Journal.create(path, profile, files=profile_files(profile), operator="ana")
+    j = Journal.create(path, profile, operator="ana")
     rng = np.random.default_rng(3)
     saved = [
         j.record_snapshot(make_snapshot(i, _meters(profile), rng), step_id="S1", role="capture")
@@ -307,9 +320,8 @@ import numpy as np
 sys.path.insert(0, {tests!r})
 from test_journal import make_bench, make_snapshot
 from meas.journal.store import Journal
-from meas.profile_files import profile_files
 profile = make_bench(Path({folder!r}), n_meters=8)
-j = Journal.create(Path({path!r}), profile, files=profile_files(profile), operator="ana")
+j = Journal.create(Path({path!r}), profile, operator="ana")
 rng = np.random.default_rng(4)
 i = 0
 while True:
@@ -349,7 +361,7 @@ def test_sigkill_mid_stream_loses_nothing_reported_saved(tmp_path: Path) -> None
 
 
 def test_resume_point_and_step_history(tmp_path: Path, bench: Profile) -> None:
-    j = Journal.create(tmp_path / "s.sqlite", bench, files=profile_files(bench), operator="ana")
+    j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
     assert j.resume_point() == "S1"
     j.record_step("S1", "settling", settle_s=None, expected_switches={"CB1": "closed"})
     j.record_step(
@@ -384,11 +396,11 @@ def test_session_files_resolve_and_refuse(
     assert sid == "20261201-221500-plover"
     path = session_path(sid)
     assert path == tmp_path / "sess" / "20261201-221500-plover.sqlite"
-    Journal.create(path, bench, files=profile_files(bench), operator="ana", session_id=sid).close()
+    Journal.create(path, bench, operator="ana", session_id=sid).close()
     assert resolve_session(sid) == path and resolve_session(str(path)) == path
     assert Journal.open(path).session_id == sid
     with pytest.raises(BenchwalkError, match="already exists"):
-        Journal.create(path, bench, files=profile_files(bench), operator="ana")
+        Journal.create(path, bench, operator="ana")
     with pytest.raises(BenchwalkError, match="no session"):
         resolve_session("20260101-000000-nope")
     junk = tmp_path / "junk.sqlite"
@@ -400,7 +412,7 @@ def test_session_files_resolve_and_refuse(
 
 
 def test_events_and_checks_are_stored(tmp_path: Path, bench: Profile) -> None:
-    j = Journal.create(tmp_path / "s.sqlite", bench, files=profile_files(bench), operator="ana")
+    j = Journal.create(tmp_path / "s.sqlite", bench, operator="ana")
     rid = j.record_snapshot(
         make_snapshot(0, _meters(bench), np.random.default_rng(5)), step_id=None, role="live"
     )

@@ -20,7 +20,6 @@ from meas.cautions import REPORT_CAUTION as CAUTION
 from meas.dataset.export import export_session
 from meas.dataset.read import load_dataset
 from meas.journal.store import Journal
-from meas.profile_files import profile_files
 from meas.recheck import compare_checks, recheck
 from meas.report import write_report
 from meas.results import overall
@@ -55,7 +54,6 @@ def record_sim_session(folder: Path, faults: list[str]) -> Path:
     j = Journal.create(
         path,
         profile,
-        files=profile_files(profile),
         operator="ana",
         session_id="20261201-221500-kestrel",
     )

@@ -350,13 +350,11 @@ async def test_remote_refused_when_control_disabled(tmp_path):
     with pytest.raises(ProfileError, match="control is disabled"):
         await Session.new(path, "T. Tester", sessions_dir=tmp_path / "s", simulate=True)
     # and the runner refuses a remote request on its own, before any write
+
     from meas.journal.store import Journal
-    from meas.profile_files import profile_files
 
     profile = load_profile(path)
-    with Journal.create(
-        tmp_path / "j.sqlite", profile, files=profile_files(profile), operator="T"
-    ) as j:
+    with Journal.create(tmp_path / "j.sqlite", profile, operator="T") as j:
         r = Runner(profile, j, checks=lambda snap, hist: [], settle_factory=None, start_index=1)
         assert r.step.id == "rx-in"
         with pytest.raises(BenchwalkError, match="control is disabled"):

@@ -47,7 +47,6 @@ from meas.model import SWITCH_STATES  # noqa: E402
 from meas.poll.control import ControlRefused, SwitchControl  # noqa: E402
 from meas.poll.cycle import Poller  # noqa: E402
 from meas.profile import check_profile, load_profile  # noqa: E402
-from meas.profile_files import profile_files  # noqa: E402
 from meas.sim.bench import WRITE_LOG_ENV, SimulatedBench  # noqa: E402
 from meas.sim.faults import parse_fault  # noqa: E402
 from tui import cli  # noqa: E402
@@ -560,7 +559,6 @@ def test_hostile_strings_travel_as_text_through_journal_export_and_report(tmp_pa
     j = Journal.create(
         tmp_path / "s.sqlite",
         profile,
-        files=profile_files(profile),
         operator="<script>alert(2)</script>",
         session_id="s",
     )

@@ -43,7 +43,6 @@ from meas.modbus.hardening import tame_pymodbus_logging
 from meas.model import Profile, TcpTransport
 from meas.poll.cycle import Poller
 from meas.profile import load_profile
-from meas.profile_files import profile_files
 from meas.snapshot import CommState, MeterBlock, Quality, Snapshot
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -170,7 +169,7 @@ async def test_soak_demo_bench_with_journal(tmp_path: Path):
         first = await asyncio.wait_for(proc.stdout.readline(), 20.0)
         profile = _bound(load_profile(DEMO), json.loads(first)["ports"])
         meters = [m.id for m in profile.meters]
-        journal = Journal.create(jpath, profile, files=profile_files(profile), operator="soak")
+        journal = Journal.create(jpath, profile, operator="soak")
         poller = Poller(profile)
         me = psutil.Process()
         rng = random.Random(SEED)

@@ -80,14 +80,12 @@ class Journal:
         profile: Profile,
         *,
         operator: str,
-        files: Sequence[tuple[str, str]],
         session_id: str | None = None,
         meta: Json | None = None,
     ) -> Journal:
         """A new session file; refuses to reuse an existing one (captured data is never overwritten).
 
-        ``files`` are the profile's files, (name, text) with the main file first, as
-        ``meas.profile_files.profile_files`` reads them.
+        The profile's files are stored as the loader validated them (``Profile.sources``).
         """
         path = Path(path)
         if path.exists():
@@ -109,7 +107,7 @@ class Journal:
                         profile.bench.name,
                         str(profile.path),
                         profile.sha256,
-                        to_json(dataclasses.asdict(profile)),
+                        to_json(_profile_dict(profile)),
                         to_json(meta or {}),
                         f"benchwalk {__version__}",
                         FORMAT_VERSION,
@@ -119,7 +117,7 @@ class Journal:
                     "INSERT INTO profile_file VALUES(?,?,?,?)",
                     [
                         (i, name, hashlib.sha256(text.encode()).hexdigest(), text)
-                        for i, (name, text) in enumerate(files)
+                        for i, (name, text) in enumerate(_profile_texts(profile))
                     ],
                 )
         except (OSError, sqlite3.Error) as exc:
@@ -398,3 +396,18 @@ def _write_advice(path: Path, what: str, exc: sqlite3.Error) -> str:
     else:
         advice = "check the drive, then resume the session; everything saved before this is intact"
     return f"{path}: could not save {what} ({text}); {advice}"
+
+
+def _profile_dict(profile: Profile) -> dict[str, object]:
+    """The validated profile as data; its file texts are kept once, in ``profile_file``."""
+    data = dataclasses.asdict(profile)
+    data.pop("sources", None)
+    return data
+
+
+def _profile_texts(profile: Profile) -> list[tuple[str, str]]:
+    """(name, text) of the profile's files, the main file first. A profile built in memory
+    (no files) is kept as its JSON form, so a journal is never without its description."""
+    if profile.sources:
+        return [(f.name, f.text) for f in profile.sources]
+    return [("profile.json", json.dumps(_profile_dict(profile), sort_keys=True, default=str))]

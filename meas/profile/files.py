@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import Problem, ProfileError
-from ..model import Profile
+from ..model import Profile, SourceFile
 from .devices import read_meters, read_plcs, read_switches
 from .maps import read_maps
 from .network import read_branches, read_buses
@@ -177,6 +177,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
         return None, problems
     raw, doc, data = read
     digest = hashlib.sha256(raw)
+    sources = [SourceFile(p.name, raw.decode("utf-8"))]
     root = Table(doc, data, ())
     bench = read_bench(doc, root)
     control = read_control(root)
@@ -213,6 +214,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
             if companion is not None:
                 craw, cdoc, cdata = companion
                 digest.update(craw)
+                sources.append(SourceFile(Path(file).as_posix(), craw.decode("utf-8")))
                 croot = Table(cdoc, cdata, ())
                 step_tables = array_of_tables(cdoc, croot, "step")
                 croot.finish()
@@ -240,6 +242,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
         checks=checks,
         steps=tuple(steps),
         sim=dict(sim),
+        sources=tuple(sources),
     )
     return profile, []
 
