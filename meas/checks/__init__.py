@@ -23,7 +23,8 @@ from ..model import Profile
 from ..results import STATUS_RANK, CheckResult
 from ..snapshot import Snapshot
 from .base import buckets
-from .frame import Frame, Layout
+from .frame import Frame
+from .layout import Layout
 from .meter import MeterPlan
 from .network import NetworkChecks
 from .phase import PhasePlan

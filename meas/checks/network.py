@@ -28,8 +28,10 @@ from .base import (
     result,
     template,
 )
+from .columns import I_PH, P4, Q4, F
 from .diagnose import Equation, suspects
-from .frame import I_PH, P4, Q4, F, Frame, Layout
+from .frame import Frame
+from .layout import Layout
 from .topology import Topology, TopoState
 
 

@@ -12,8 +12,7 @@ import numpy as np
 from .. import phasors as ph
 from ..results import CheckResult
 from .base import FAIL, NA, PASS, WARN, Buckets, na, result, template
-from .diagnose import Signature, signature_rows
-from .frame import (
+from .columns import (
     I_ANG,
     I_PH,
     P4,
@@ -23,11 +22,12 @@ from .frame import (
     V_LN,
     BoolArray,
     FloatArray,
-    Frame,
-    Layout,
     rows_all,
     rows_any,
 )
+from .diagnose import Signature, signature_rows
+from .frame import Frame
+from .layout import Layout
 
 _WIRING_TEXT = {
     "ct_reversed": "the CT of phase {x} is reversed (or its secondary leads are swapped): P and Q of that phase have the wrong sign",

@@ -18,18 +18,9 @@ from ..model import Meter
 from ..results import CheckResult
 from ..snapshot import CommState, MeterBlock, Quality, Snapshot
 from .base import FAIL, NA, PASS, WARN, Buckets, fmt, make, na, result, template
-from .frame import (
-    I_PH,
-    P4,
-    V_LL,
-    V_LN,
-    BoolArray,
-    FloatArray,
-    Frame,
-    Layout,
-    rows_all,
-    rows_any,
-)
+from .columns import I_PH, P4, V_LL, V_LN, BoolArray, FloatArray, rows_all, rows_any
+from .frame import Frame
+from .layout import Layout
 
 _FROZEN_COLS = np.r_[
     np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)
