@@ -23,6 +23,7 @@ from ..model import Profile
 from ..results import STATUS_RANK, CheckResult
 from ..snapshot import Snapshot
 from .base import buckets
+from .comm import CommPlan
 from .frame import Frame
 from .layout import Layout
 from .meter import MeterPlan
@@ -98,6 +99,7 @@ class CheckEngine:
         self.meter = MeterPlan(self.layout)
         self.phase = PhasePlan(self.layout)
         self.quality = QualityPlan(self.layout)
+        self.comm = CommPlan(self.layout)
         self._cache: dict[int, tuple[Snapshot, Frame]] = {}
 
     def frame(self, snap: Snapshot) -> Frame:
@@ -127,7 +129,7 @@ class CheckEngine:
         fr = self.frame(snapshot)
         frames = [self.frame(s) for s in history[-max(lay.limits.s.frozen_cycles, 16) :]] + [fr]
         bk = buckets()
-        self.quality.comm(snapshot, fr, bk)
+        self.comm.run(snapshot, fr, bk)
         self.meter.run(fr, bk)
         self.phase.run(fr, bk)
         self.network.run(fr, dict(snapshot.switches), bk)
