@@ -150,15 +150,28 @@ class PhasePlan:
         return rows_all(mag >= at) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
 
     def run(self, fr: Frame, bk: Buckets) -> None:
-        lay = self.lay
-        n = len(self.ids)
+        """Every phase check on one frame, in check id order."""
         x = fr.x
-        live = fr.energized.tolist()
-        na_, pass_ = bk[NA].append, bk[PASS].append
-        new = object.__new__
-
-        # ---- phase.v_sequence
         ang_v = x[:, V_ANG]
+        self._sequence(fr, ang_v, bk)
+        # negative-sequence unbalance of voltages and currents in one call: (2, n, 3) stacks, every
+        # row the same operations as on its own (checked bit for bit by the golden test)
+        u2_vi = ph.unbalance_u2(
+            ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]]))
+        )
+        v_ll = x[:, V_LL]
+        u2_mag = ph.unbalance_iec_ll(v_ll)
+        # NEMA-style deviation of V_LL and of the phase currents in one call (row-wise, so each
+        # row's figure is the same as from its own call)
+        lv = ph.lvur(np.array([v_ll, x[:, I_PH]]))
+        self._v_unbalance(fr, u2_vi[0], u2_mag, lv[0], bk)
+        self._i_unbalance(fr, u2_vi[1], lv[1], bk)
+        self._angles(fr, bk)
+
+    def _sequence(self, fr: Frame, ang_v: FloatArray, bk: Buckets) -> None:
+        """phase.v_sequence: the voltage angles run A-B-C."""
+        n = len(self.ids)
+        na_, pass_ = bk[NA].append, bk[PASS].append
         sign = ph.sequence_sign(
             np.minimum(np.maximum(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX), _FMAX)
         ).tolist()  # = nan_to_num
@@ -182,19 +195,17 @@ class PhasePlan:
                     )
                 )
 
-        # ---- phase.v_unbalance
-        # negative-sequence unbalance of voltages and currents in one call: (2, n, 3) stacks, every
-        # row the same operations as on its own (checked bit for bit by the golden test)
-        u2_vi = ph.unbalance_u2(
-            ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]]))
-        )
-        u2_ph = u2_vi[0]
-        v_ll = x[:, V_LL]
-        u2_mag = ph.unbalance_iec_ll(v_ll)
-        # NEMA-style deviation of V_LL and of the phase currents in one call (row-wise, so each
-        # row's figure is the same as from its own call)
-        lv = ph.lvur(np.array([v_ll, x[:, I_PH]]))
-        nema = lv[0].tolist()
+    def _v_unbalance(
+        self, fr: Frame, u2_ph: FloatArray, u2_mag: FloatArray, lv_v: FloatArray, bk: Buckets
+    ) -> None:
+        """phase.v_unbalance: from symmetrical components where the map has angles, else from
+        the L-L magnitudes."""
+        lay = self.lay
+        n = len(self.ids)
+        live = fr.energized.tolist()
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
+        nema = lv_v.tolist()
         use = lay.angles & ~np.isnan(u2_ph)
         u2v = np.where(use, u2_ph, u2_mag).tolist()
         use = use.tolist()
@@ -244,9 +255,12 @@ class PhasePlan:
                     )
                 )
 
-        # ---- phase.i_unbalance
-        u2 = u2_vi[1]
-        dev = lv[1]
+    def _i_unbalance(self, fr: Frame, u2: FloatArray, dev: FloatArray, bk: Buckets) -> None:
+        """phase.i_unbalance: I2/I1 where the map has angles, else the deviation from the mean."""
+        lay = self.lay
+        n = len(self.ids)
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
         loaded = (fr.i_mean >= self.iu_min_i).tolist()
         use_i = lay.angles & ~np.isnan(u2)
         vals = np.where(use_i, u2, dev).tolist()
@@ -276,7 +290,13 @@ class PhasePlan:
                 d["value"], d["limit"], d["message"] = val, warn, msg
                 pass_(r)
 
-        # ---- phase.pf_spread and phase.wiring: one set of phase-power angles
+    def _angles(self, fr: Frame, bk: Buckets) -> None:
+        """phase.pf_spread and phase.wiring: one set of phase-power angles, loaded meters only."""
+        lay = self.lay
+        n = len(self.ids)
+        x = fr.x
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
         s = x[:, P4][:, :3] + 1j * x[:, Q4][:, :3]
         mag = np.abs(s)
         ok_pf = self._loaded(mag, self.pf_min)
