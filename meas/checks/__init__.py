@@ -32,6 +32,7 @@ from .phase import PhasePlan
 from .quality import QualityPlan
 from .quality import history as stack_history
 from .settle import SettleDetector, SettleState
+from .wiring import WiringPlan
 
 
 class _Quiet(TypedDict):
@@ -98,6 +99,7 @@ class CheckEngine:
         self.network = NetworkChecks(self.layout)
         self.meter = MeterPlan(self.layout)
         self.phase = PhasePlan(self.layout)
+        self.wiring = WiringPlan(self.layout)
         self.quality = QualityPlan(self.layout)
         self.comm = CommPlan(self.layout)
         self._cache: dict[int, tuple[Snapshot, Frame]] = {}
@@ -132,6 +134,7 @@ class CheckEngine:
         self.comm.run(snapshot, fr, bk)
         self.meter.run(fr, bk)
         self.phase.run(fr, bk)
+        self.wiring.run(fr, bk)
         self.network.run(fr, dict(snapshot.switches), bk)
         self.quality.ranges(fr, bk)
         hist = stack_history(frames[-max(self.quality.frozen_need, self.quality.noise_need) :])
