@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .columns import I_ANG, I_PH, P4, PF4, Q4, S4, V_ANG, V_LL, V_LN, F, FloatArray, IndexArray
+from .columns import I_ANG, I_PH, PF4, S4, V_ANG, V_LL, V_LN, F, FloatArray
 
 if TYPE_CHECKING:
     from .layout import Layout
@@ -27,7 +27,6 @@ class Consts:
     const_a: FloatArray
     res_abs: FloatArray
     res_rel: FloatArray
-    pq: IndexArray
     main: FloatArray
     low_i: FloatArray
     low_i_frac: FloatArray
@@ -61,7 +60,6 @@ class Consts:
         const_a[:, I_ANG] = 1.0
         res_abs = np.where(lay.is_float, 0.0, np.abs(lay.scale) / 2.0)  # one LSB: +-scale/2
         res_rel = np.where(lay.is_float, 2.0**-24, 0.0)  # float32: half an ulp
-        pq = np.r_[np.arange(P4.start, P4.stop), np.arange(Q4.start, Q4.stop)]
 
         def pair(name: str, scale: float = 1.0) -> FloatArray:
             return (
@@ -82,7 +80,6 @@ class Consts:
             const_a,
             res_abs,
             res_rel,
-            pq,
             pair("main_pct", 0.01),
             pair("low_i_pct", 0.01),
             pair("low_i_frac"),

@@ -31,9 +31,7 @@ class Frame:
 
     x: FloatArray  # (n, K) values, NaN = missing / not ok
     u: FloatArray  # (n, K) standard uncertainty of each reading
-    present: BoolArray  # (n,) meter block present in the snapshot
     energized: BoolArray  # (n,) the meter sees voltage (> 50 % of nominal)
-    loaded: BoolArray  # (n,) mean current above 1 % of In
     v_mean: FloatArray  # (n,) mean L-N voltage (from L-L / sqrt 3 without L-N readings)
     v_mean_u: FloatArray  # (n,) its standard uncertainty (the phases share the meter: linear mean)
     i_mean: FloatArray  # (n,) mean phase current
@@ -43,7 +41,6 @@ class Frame:
     def build(cls, lay: Layout, snap: Snapshot) -> Frame:
         """One fancy-index store of every meter's values (per-meter stores dominated the run)."""
         n, k = lay.has.shape
-        present = np.zeros(n, bool)
         ok = Quality.OK
         ok_set = _OK_SET
         flat: list[float] = []
@@ -51,13 +48,12 @@ class Frame:
         blocks = snap.meters
         qual_ok: list[bool] = []
         flag = qual_ok.append
-        for mi, (mid, getter, keys, nans) in enumerate(lay.fill):
+        for mid, getter, keys, nans in lay.fill:
             block = blocks.get(mid)
             if block is None:
                 fill(nans)
                 flag(False)
                 continue
-            present[mi] = True
             vals, qual = block.values, block.quality
             every = ok_set.issuperset(qual.values())  # every value ok (quality.comm asks the same)
             flag(every)
@@ -71,12 +67,12 @@ class Frame:
             fill([vals.get(key, np.nan) if qual.get(key) is ok else np.nan for key in keys])
         x = np.full((n, k), np.nan)
         x[lay.fill_rows, lay.fill_cols] = flat
-        fr = cls.from_array(lay, x, present)
+        fr = cls.from_array(lay, x)
         fr.qual_ok = qual_ok
         return fr
 
     @classmethod
-    def from_array(cls, lay: Layout, x: FloatArray, present: BoolArray) -> Frame:
+    def from_array(cls, lay: Layout, x: FloatArray) -> Frame:
         """Values plus standard uncertainties: tolerance.power_limit / magnitude_limit /
         resolution_limit fused into a few whole-array operations (tests check they agree)."""
         c = lay.consts
@@ -109,5 +105,4 @@ class Frame:
         vmean_u = np.where(np.isnan(m6[:, 2]), m6[:, 3] / math.sqrt(3.0), m6[:, 2])
         i_mean = i8[:, 3] * lay.i_n
         energized = vmean > c.v_half
-        loaded = i8[:, 3] > 0.01
-        return cls(x, u, present, energized, loaded, vmean, vmean_u, i_mean)
+        return cls(x, u, energized, vmean, vmean_u, i_mean)

@@ -73,8 +73,6 @@ class Layout:
     profile: Profile
     limits: Limits
     meters: tuple[Meter, ...]
-    index: dict[str, int]
-    cols: list[list[tuple[int, str]]]  # per meter: (column, key) of every mapped key
     has: BoolArray  # (n, K) bool
     scale: FloatArray  # (n, K) register scale (primary units)
     is_float: BoolArray  # (n, K) bool
@@ -133,8 +131,6 @@ class Layout:
             profile,
             Limits(profile.checks),
             meters,
-            {m.id: i for i, m in enumerate(meters)},
-            cols,
             has,
             scale,
             is_float,
