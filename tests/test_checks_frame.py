@@ -8,7 +8,7 @@ import numpy as np
 from test_checks_support import demo
 
 from meas.checks import CheckEngine
-from meas.checks.frame import COL, I_PH, P4, Q4, S4, V_LN
+from meas.checks.columns import COL, I_PH, P4, Q4, S4, V_LN
 from meas.sim.meters import snapshot_from_sim
 from meas.sim.readings import ideal_readings
 from meas.tolerance import class_spec, magnitude_limit, power_limit, resolution_limit, rss, std_rect

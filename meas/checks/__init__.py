@@ -23,13 +23,16 @@ from ..model import Profile
 from ..results import STATUS_RANK, CheckResult
 from ..snapshot import Snapshot
 from .base import buckets
-from .frame import Frame, Layout
+from .comm import CommPlan
+from .frame import Frame
+from .layout import Layout
 from .meter import MeterPlan
 from .network import NetworkChecks
 from .phase import PhasePlan
 from .quality import QualityPlan
 from .quality import history as stack_history
 from .settle import SettleDetector, SettleState
+from .wiring import WiringPlan
 
 
 class _Quiet(TypedDict):
@@ -96,7 +99,9 @@ class CheckEngine:
         self.network = NetworkChecks(self.layout)
         self.meter = MeterPlan(self.layout)
         self.phase = PhasePlan(self.layout)
+        self.wiring = WiringPlan(self.layout)
         self.quality = QualityPlan(self.layout)
+        self.comm = CommPlan(self.layout)
         self._cache: dict[int, tuple[Snapshot, Frame]] = {}
 
     def frame(self, snap: Snapshot) -> Frame:
@@ -126,9 +131,10 @@ class CheckEngine:
         fr = self.frame(snapshot)
         frames = [self.frame(s) for s in history[-max(lay.limits.s.frozen_cycles, 16) :]] + [fr]
         bk = buckets()
-        self.quality.comm(snapshot, fr, bk)
+        self.comm.run(snapshot, fr, bk)
         self.meter.run(fr, bk)
         self.phase.run(fr, bk)
+        self.wiring.run(fr, bk)
         self.network.run(fr, dict(snapshot.switches), bk)
         self.quality.ranges(fr, bk)
         hist = stack_history(frames[-max(self.quality.frozen_need, self.quality.noise_need) :])

@@ -211,6 +211,35 @@ def _wss(r: _Complex, sp: _Floats, sq: _Floats) -> float:
     return float(np.sum((r.real / sp) ** 2 + (r.imag / sq) ** 2))
 
 
+def _scores(
+    m: int, s: _Complex, idx: list[int], res: list[_Complex], eqs: list[Equation]
+) -> list[tuple[float, int, str, float, float]]:
+    """Every fault hypothesis for meter ``m`` (a scale, or a per-phase fault): the weighted
+    squared residual it removes from the equations ``idx`` it sits in, and what it leaves."""
+    out: list[tuple[float, int, str, float, float]] = []
+    j0 = sum(_wss(res[j], eqs[j].sig_p, eqs[j].sig_q) for j in idx)
+    num = sum(
+        float(
+            np.sum(
+                s.real * res[j].real / eqs[j].sig_p ** 2 + s.imag * res[j].imag / eqs[j].sig_q ** 2
+            )
+        )
+        for j in idx
+    )
+    den = sum(
+        float(np.sum(s.real**2 / eqs[j].sig_p ** 2 + s.imag**2 / eqs[j].sig_q ** 2)) for j in idx
+    )
+    if den > 0:
+        c = num / den
+        jh = sum(_wss(res[j] - c * s, eqs[j].sig_p, eqs[j].sig_q) for j in idx)
+        k = 1.0 / (1.0 - c) if c < 1.0 else math.inf
+        out.append((j0 - jh, m, "scale", k, jh / len(idx)))
+    for tag, d in _deltas(s):
+        jh = sum(_wss(res[j] - d, eqs[j].sig_p, eqs[j].sig_q) for j in idx)
+        out.append((j0 - jh, m, tag, math.nan, jh / len(idx)))
+    return out
+
+
 def suspects(eqs: list[Equation], s_ph: _Complex, ambiguity: float = 0.8) -> Suspect | None:
     """The single-meter fault that best explains the residuals of the equations (or None)."""
     if not eqs:
@@ -223,28 +252,7 @@ def suspects(eqs: list[Equation], s_ph: _Complex, ambiguity: float = 0.8) -> Sus
         s = s_ph[m]
         if np.isnan(s).any():
             continue
-        j0 = sum(_wss(res[j], eqs[j].sig_p, eqs[j].sig_q) for j in idx)
-        num = sum(
-            float(
-                np.sum(
-                    s.real * res[j].real / eqs[j].sig_p ** 2
-                    + s.imag * res[j].imag / eqs[j].sig_q ** 2
-                )
-            )
-            for j in idx
-        )
-        den = sum(
-            float(np.sum(s.real**2 / eqs[j].sig_p ** 2 + s.imag**2 / eqs[j].sig_q ** 2))
-            for j in idx
-        )
-        if den > 0:
-            c = num / den
-            jh = sum(_wss(res[j] - c * s, eqs[j].sig_p, eqs[j].sig_q) for j in idx)
-            k = 1.0 / (1.0 - c) if c < 1.0 else math.inf
-            scored.append((j0 - jh, m, "scale", k, jh / len(idx)))
-        for tag, d in _deltas(s):
-            jh = sum(_wss(res[j] - d, eqs[j].sig_p, eqs[j].sig_q) for j in idx)
-            scored.append((j0 - jh, m, tag, math.nan, jh / len(idx)))
+        scored.extend(_scores(m, s, idx, res, eqs))
     if not scored:
         return None
     scored.sort(key=lambda t: (-t[0], t[1], t[2]))

@@ -20,22 +20,9 @@ import numpy as np
 from ..results import CheckResult
 from ..tolerance import judge_many
 from .base import NA, PASS, Buckets, Template, fmt, na, result, template
-from .frame import (
-    COL,
-    I_PH,
-    P4,
-    PF4,
-    Q4,
-    S4,
-    V_LN,
-    F,
-    FloatArray,
-    Frame,
-    IndexArray,
-    Layout,
-    rows_all,
-    rows_any,
-)
+from .columns import COL, I_PH, P4, PF4, Q4, S4, V_LN, F, FloatArray, IndexArray, rows_all, rows_any
+from .frame import Frame
+from .layout import Layout
 
 _BLOCK = slice(P4.start, PF4.stop)  # p.A..p.T, q.A..q.T, s.A..s.T, pf.A..pf.T: contiguous columns
 assert (

@@ -1,8 +1,9 @@
-"""Phase consistency of one meter: sequence, unbalance, power-angle spread, wiring signature.
+"""Phase symmetry of one meter: voltage sequence, voltage and current unbalance.
 
 Speed: ``PhasePlan`` prepares what the profile alone decides (maps without angles or currents,
-fixed n/a results, texts of passing results) once; a run computes the phase-power angles once
-and shares them between the angle-spread and wiring checks, on the loaded meters only.
+fixed n/a results, texts of passing results) once; a run computes the negative-sequence and
+NEMA-style unbalance of voltages and currents in one call each. The phase-power angle checks
+(pf_spread, wiring) are ``wiring``.
 """
 
 from __future__ import annotations
@@ -12,28 +13,19 @@ import numpy as np
 from .. import phasors as ph
 from ..results import CheckResult
 from .base import FAIL, NA, PASS, WARN, Buckets, na, result, template
-from .diagnose import Signature, signature_rows
-from .frame import (
+from .columns import (
     I_ANG,
     I_PH,
-    P4,
-    Q4,
     V_ANG,
     V_LL,
     V_LN,
-    BoolArray,
     FloatArray,
-    Frame,
-    Layout,
     rows_all,
     rows_any,
 )
+from .frame import Frame
+from .layout import Layout
 
-_WIRING_TEXT = {
-    "ct_reversed": "the CT of phase {x} is reversed (or its secondary leads are swapped): P and Q of that phase have the wrong sign",
-    "phases_swapped": "current inputs {x} are swapped: check which CT feeds which current terminal (pair chosen by the expected flow direction)",
-    "vi_mismatch": "voltage and current inputs belong to different phases ({x} deg): check the voltage terminals against the CTs",
-}
 _FMAX = np.finfo(float).max
 _SEQ_FAIL = (
     "voltage phase sequence is A-C-B (negative): two voltage connections are swapped at the meter or the supply "
@@ -50,9 +42,6 @@ class PhasePlan:
         ids = [m.id for m in lay.meters]
         self.ids = ids
         has = lay.has
-        rated = lay.v_n * lay.i_n
-        self.rated = rated[:, None]
-        self._load_at: dict[float, FloatArray] = {}  # min_load -> min_load * rated (see _loaded)
         # phase.v_sequence
         self.seq_has = rows_all(has[:, V_ANG]).tolist()
         self.seq_na_map = [
@@ -100,65 +89,29 @@ class PhasePlan:
             for mid in ids
         ]
         self.iu_tp = [template("phase.i_unbalance", mid, PASS, "%") for mid in ids]
-        # phase.pf_spread and phase.wiring
-        self.pf_warn = L.param("phase.pf_spread", "warn_deg", 45.0)
-        self.pf_min = L.param("phase.pf_spread", "min_load", 0.05)
-        self.pf_light = [
-            na(
-                "phase.pf_spread",
-                mid,
-                "load too small or too unbalanced to compare phase power angles",
-                "deg",
-            )
-            for mid in ids
-        ]
-        self.pf_tp = [template("phase.pf_spread", mid, PASS, "deg") for mid in ids]
-        self.w_min = L.param("phase.wiring", "min_load", 0.05)
-        self.trip = L.param("phase.wiring", "trip_deg", 75.0)
-        self.coherent = L.param("phase.wiring", "coherent_deg", 40.0)
-        w_has = (rows_all(has[:, P4]) & rows_all(has[:, Q4])).tolist()
-        self.w_fixed = [
-            None
-            if (m.branch is not None and ok)
-            else na("phase.wiring", m.id, "the meter lacks per-phase P and Q", "deg")
-            for m, ok in zip(lay.meters, w_has, strict=True)
-        ]
-        self.w_light = [
-            na(
-                "phase.wiring",
-                mid,
-                "load too small or too unbalanced to read the wiring signature",
-                "deg",
-            )
-            for mid in ids
-        ]
-        self.w_tp = [
-            template(
-                "phase.wiring",
-                mid,
-                PASS,
-                "deg",
-                "phase powers consistent with correct CT and current-input wiring",
-            )
-            for mid in ids
-        ]
-
-    def _loaded(self, mag: FloatArray, min_load: float) -> BoolArray:
-        at = self._load_at.get(min_load)
-        if at is None:  # min_load x rating: profile-only, made once per threshold
-            at = self._load_at[min_load] = min_load * self.rated
-        return rows_all(mag >= at) & (mag.min(axis=1) >= 0.2 * mag.max(axis=1))
 
     def run(self, fr: Frame, bk: Buckets) -> None:
-        lay = self.lay
-        n = len(self.ids)
+        """Every phase check on one frame, in check id order."""
         x = fr.x
-        live = fr.energized.tolist()
-        na_, pass_ = bk[NA].append, bk[PASS].append
-        new = object.__new__
-
-        # ---- phase.v_sequence
         ang_v = x[:, V_ANG]
+        self._sequence(fr, ang_v, bk)
+        # negative-sequence unbalance of voltages and currents in one call: (2, n, 3) stacks, every
+        # row the same operations as on its own (checked bit for bit by the golden test)
+        u2_vi = ph.unbalance_u2(
+            ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]]))
+        )
+        v_ll = x[:, V_LL]
+        u2_mag = ph.unbalance_iec_ll(v_ll)
+        # NEMA-style deviation of V_LL and of the phase currents in one call (row-wise, so each
+        # row's figure is the same as from its own call)
+        lv = ph.lvur(np.array([v_ll, x[:, I_PH]]))
+        self._v_unbalance(fr, u2_vi[0], u2_mag, lv[0], bk)
+        self._i_unbalance(fr, u2_vi[1], lv[1], bk)
+
+    def _sequence(self, fr: Frame, ang_v: FloatArray, bk: Buckets) -> None:
+        """phase.v_sequence: the voltage angles run A-B-C."""
+        n = len(self.ids)
+        na_, pass_ = bk[NA].append, bk[PASS].append
         sign = ph.sequence_sign(
             np.minimum(np.maximum(np.where(np.isnan(ang_v), 0.0, ang_v), -_FMAX), _FMAX)
         ).tolist()  # = nan_to_num
@@ -182,19 +135,17 @@ class PhasePlan:
                     )
                 )
 
-        # ---- phase.v_unbalance
-        # negative-sequence unbalance of voltages and currents in one call: (2, n, 3) stacks, every
-        # row the same operations as on its own (checked bit for bit by the golden test)
-        u2_vi = ph.unbalance_u2(
-            ph.phasor(np.array([x[:, V_LN], x[:, I_PH]]), np.array([ang_v, x[:, I_ANG]]))
-        )
-        u2_ph = u2_vi[0]
-        v_ll = x[:, V_LL]
-        u2_mag = ph.unbalance_iec_ll(v_ll)
-        # NEMA-style deviation of V_LL and of the phase currents in one call (row-wise, so each
-        # row's figure is the same as from its own call)
-        lv = ph.lvur(np.array([v_ll, x[:, I_PH]]))
-        nema = lv[0].tolist()
+    def _v_unbalance(
+        self, fr: Frame, u2_ph: FloatArray, u2_mag: FloatArray, lv_v: FloatArray, bk: Buckets
+    ) -> None:
+        """phase.v_unbalance: from symmetrical components where the map has angles, else from
+        the L-L magnitudes."""
+        lay = self.lay
+        n = len(self.ids)
+        live = fr.energized.tolist()
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
+        nema = lv_v.tolist()
         use = lay.angles & ~np.isnan(u2_ph)
         u2v = np.where(use, u2_ph, u2_mag).tolist()
         use = use.tolist()
@@ -244,9 +195,12 @@ class PhasePlan:
                     )
                 )
 
-        # ---- phase.i_unbalance
-        u2 = u2_vi[1]
-        dev = lv[1]
+    def _i_unbalance(self, fr: Frame, u2: FloatArray, dev: FloatArray, bk: Buckets) -> None:
+        """phase.i_unbalance: I2/I1 where the map has angles, else the deviation from the mean."""
+        lay = self.lay
+        n = len(self.ids)
+        na_, pass_ = bk[NA].append, bk[PASS].append
+        new = object.__new__
         loaded = (fr.i_mean >= self.iu_min_i).tolist()
         use_i = lay.angles & ~np.isnan(u2)
         vals = np.where(use_i, u2, dev).tolist()
@@ -275,91 +229,6 @@ class PhasePlan:
                 d.update(self.iu_tp[mi])
                 d["value"], d["limit"], d["message"] = val, warn, msg
                 pass_(r)
-
-        # ---- phase.pf_spread and phase.wiring: one set of phase-power angles
-        s = x[:, P4][:, :3] + 1j * x[:, Q4][:, :3]
-        mag = np.abs(s)
-        ok_pf = self._loaded(mag, self.pf_min)
-        ok_w = ok_pf if self.w_min == self.pf_min else self._loaded(mag, self.w_min)
-        both = ok_pf | ok_w
-        rows_l = both.nonzero()[0]  # = np.flatnonzero (1-D)
-        # = rad2deg(angle(S)); on the same strided views as ever (numpy's SIMD transcendental loops
-        # may round differently on contiguous data), then narrowed to the loaded meters
-        ang = ph.pf_angle_deg(s.real, s.imag)[rows_l]
-        ok_w_rows = ok_w[rows_l]
-        sigs, spread0 = signature_rows(
-            ang, lay.axis[rows_l], lay.is_load[rows_l], self.trip, self.coherent, ok_w_rows
-        )
-        pos = dict(zip(rows_l.tolist(), range(len(rows_l)), strict=True))
-        ok_pf_l = ok_pf.tolist()
-        warn = self.pf_warn
-        for mi in range(n):
-            if not ok_pf_l[mi]:
-                na_(self.pf_light[mi])
-                continue
-            sp = spread0[pos[mi]]
-            msg = f"phase power-factor angles spread over {sp:.0f} deg"
-            if sp > warn:
-                msg += f" (more than {warn:g}): very different loads per phase, or a wiring error (see phase.wiring)"
-                bk[WARN].append(
-                    result("phase.pf_spread", self.ids[mi], WARN, sp, warn, "deg", msg, "pf_spread")
-                )
-            else:
-                r = new(CheckResult)  # base.make plus the message, inlined
-                d = r.__dict__
-                d.update(self.pf_tp[mi])
-                d["value"], d["limit"], d["message"] = sp, warn, msg
-                pass_(r)
-        trip = self.trip
-        for mi in range(n):
-            fx = self.w_fixed[mi]
-            if fx is not None:
-                na_(fx)
-                continue
-            k = pos.get(mi)
-            if k is None:
-                na_(self.w_light[mi])
-                continue
-            sg = sigs[k]
-            if sg is None:
-                na_(self.w_light[mi])
-            elif not sg.cause:  # HEALTHY, or no fault once the hypotheses were tried
-                r = new(CheckResult)  # base.make, inlined
-                d = r.__dict__
-                d.update(self.w_tp[mi])
-                d["value"], d["limit"] = spread0[k], trip
-                pass_(r)
-            else:
-                bk[FAIL].append(self._wiring_fault(fr, mi, sg))
-
-    def _wiring_fault(self, fr: Frame, mi: int, sg: Signature) -> CheckResult:
-        lay = self.lay
-        parts = []
-        for c in sg.cause.split(","):
-            kind, _, arg = c.partition(":")
-            if c == "ct_reversed:ABC":
-                parts.append(
-                    "all three CTs are reversed or the meter faces the wrong way: a load cannot deliver power"
-                )
-            else:
-                parts.append(_WIRING_TEXT[kind].format(x=arg))
-        extra = ""
-        if (
-            lay.angles[mi]
-            and not np.isnan(fr.x[mi, I_ANG]).any()
-            and ph.sequence_sign(fr.x[mi, I_ANG])
-            < 0
-            < ph.sequence_sign(np.nan_to_num(fr.x[mi, V_ANG]))
-        ):
-            extra = " (current angles run in negative sequence)"
-        msg = (
-            "; ".join(parts)
-            + extra
-            + f" [phase power angles spread {sg.spread_deg:.0f} deg, {sg.corrected_deg:.0f} deg once corrected]"
-        )
-        return result(
-            "phase.wiring", self.ids[mi], FAIL, sg.spread_deg, self.trip, "deg", msg, sg.cause
-        )
 
 
 __all__ = ["PhasePlan"]

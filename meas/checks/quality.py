@@ -1,4 +1,5 @@
-"""Data quality: communication state, frozen values, out-of-range values, excess noise.
+"""Data quality of the readings: out-of-range values, frozen values, excess noise (the
+communication state is ``comm``).
 
 ``QualityPlan`` prepares the per-profile results and texts once (constant passing results are
 shared objects, like the n/a ones). Frozen and noise use the recent history (oldest first); both look only at quantities that
@@ -14,22 +15,11 @@ from typing import cast
 
 import numpy as np
 
-from ..model import Meter
 from ..results import CheckResult
-from ..snapshot import CommState, MeterBlock, Quality, Snapshot
 from .base import FAIL, NA, PASS, WARN, Buckets, fmt, make, na, result, template
-from .frame import (
-    I_PH,
-    P4,
-    V_LL,
-    V_LN,
-    BoolArray,
-    FloatArray,
-    Frame,
-    Layout,
-    rows_all,
-    rows_any,
-)
+from .columns import I_PH, P4, V_LL, V_LN, BoolArray, FloatArray, rows_all, rows_any
+from .frame import Frame
+from .layout import Layout
 
 _FROZEN_COLS = np.r_[
     np.arange(V_LN.start, V_LN.stop), np.arange(I_PH.start, I_PH.stop), np.arange(P4.start, P4.stop)
@@ -47,7 +37,6 @@ class QualityPlan:
         L = lay.limits
         ids = [m.id for m in lay.meters]
         self.ids = ids
-        self.comm_pass = [result("quality.comm", mid, PASS, message="all values ok") for mid in ids]
         self.v_band = L.param("quality.v_range", "band", L.s.voltage_band)
         self.i_fail = L.param(
             "quality.i_range", "fail_fraction", 1.2
@@ -99,25 +88,6 @@ class QualityPlan:
         self.lim_vi = np.concatenate(
             [np.repeat(self.lim_v, 3, axis=1), np.repeat(self.lim_i, 3, axis=1)], axis=1
         )
-
-    # ---------------------------------------------------------------- communication
-    def comm(self, snap: Snapshot, fr: Frame, bk: Buckets) -> None:
-        ok_state = CommState.OK
-        blocks = snap.meters
-        qual_ok = fr.qual_ok
-        for mi, m in enumerate(self.lay.meters):
-            b = blocks.get(m.id)
-            if (
-                b is not None
-                and b.state is ok_state
-                and (
-                    qual_ok[mi] if qual_ok is not None else set(b.quality.values()) <= {Quality.OK}
-                )
-            ):
-                bk[PASS].append(self.comm_pass[mi])
-                continue
-            r = _comm_fault(m, b)
-            bk[STATUS_CODE[r.status]].append(r)
 
     # ---------------------------------------------------------------- ranges
     def ranges(self, fr: Frame, bk: Buckets) -> None:
@@ -297,52 +267,6 @@ class QualityPlan:
                 )
             else:
                 bk[PASS].append(make(self.noise_tp[mi], sg, ratio_max))
-
-
-STATUS_CODE = {s: c for c, s in enumerate(("fail", "warn", "pass", "n/a"))}
-
-
-def _comm_fault(m: Meter, b: MeterBlock | None) -> CheckResult:
-    check = "quality.comm"
-    if b is None:
-        return result(
-            check,
-            m.id,
-            FAIL,
-            message=f"{m.id} is missing from this snapshot: it is not being polled",
-            cause="missing",
-        )
-    bad = sorted(k for k, q in b.quality.items() if q is not Quality.OK)
-    if b.state in (CommState.FAILING, CommState.OFFLINE) or (bad and len(bad) == len(b.quality)):
-        why = b.error or f"communication {b.state}"
-        msg = (
-            f"no good data from {m.id}: {why}; check its wiring, address (unit {m.unit_id}) and "
-            f"{m.transport.endpoint}; captured data is kept"
-        )
-        return result(check, m.id, FAIL, float(b.error_count), message=msg, cause=f"comm:{b.state}")
-    if bad:
-        stale = [k for k in bad if b.quality[k] is Quality.STALE]
-        kinds = sorted({str(b.quality[k]) for k in bad})
-        msg = (
-            f"{len(bad)} value(s) not ok ({', '.join(kinds)}): {', '.join(bad[:6])}{' ...' if len(bad) > 6 else ''}; "
-            + (
-                "values repeated from an earlier cycle"
-                if stale
-                else "check those registers in the map"
-            )
-        )
-        return result(
-            check, m.id, WARN, float(len(bad)), message=msg, cause="stale" if stale else "partial"
-        )
-    if b.state is CommState.DEGRADED:
-        return result(
-            check,
-            m.id,
-            WARN,
-            message=f"{m.id} answered after a retry: {b.error or 'degraded'}",
-            cause="degraded",
-        )
-    return result(check, m.id, PASS, message="all values ok")
 
 
 def history(frames: Sequence[Frame]) -> FloatArray:

@@ -20,7 +20,7 @@ import numpy as np
 
 from ..model import Profile, SettleCriterion
 from ..snapshot import Snapshot
-from .frame import FloatArray, nanmean
+from .columns import FloatArray, nanmean
 
 
 @dataclass(frozen=True)
