@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from meas.dataset import terminal_progress
 from meas.report import write_report
 
 HELP = "write the commissioning report (self-contained HTML and Markdown) of a dataset"
@@ -24,6 +25,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
-    html_path, md_path = write_report(args.dataset, args.out)
+    bar, update = terminal_progress("report")
+    if bar is not None:
+        with bar:
+            html_path, md_path = write_report(args.dataset, args.out, progress=update)
+    else:
+        html_path, md_path = write_report(args.dataset, args.out)
     print(f"report written: {html_path}\n                {md_path}")
     return 0
