@@ -203,9 +203,9 @@ def test_report_is_one_self_contained_file_with_failures_and_caution(
         & (m["quantity"] == "p")
         & (m["phase"] == "T")
     ]
-    from meas.report import _fmt
+    from meas.report.text import fmt
 
-    assert _fmt(float(np.median(sel["value"]))) in text
+    assert fmt(float(np.median(sel["value"]))) in text
 
 
 def html_escape(s: str) -> str:

@@ -1,0 +1,142 @@
+"""The report as Markdown: the same sections as the HTML page, as text that diffs and greps."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from ..cautions import REPORT_CAUTION as CAUTION
+from .rows import KEY_READINGS, ReportData, balance_rows, issue_rows, meter_rows, step_rows
+from .text import fmt, plain
+
+
+def _md_table(headers: list[str], rows: Sequence[Sequence[object]]) -> str:
+    esc = lambda c: plain(c).replace("|", "\\|").replace("\n", " ")  # noqa: E731
+    lines = ["| " + " | ".join(headers) + " |", "|" + "---|" * len(headers)]
+    lines += ["| " + " | ".join(esc(c) for c in r) + " |" for r in rows]
+    return "\n".join(lines)
+
+
+def render_markdown(rd: ReportData) -> str:
+    ds, meta = rd.ds, rd.ds.meta
+    out = [
+        f"# Commissioning report: {meta['bench']}",
+        "",
+        f"> **Caution.** {CAUTION}",
+        "",
+        f"- Session: {meta.get('session')}",
+        f"- Operator: {meta.get('operator')}",
+        f"- Session started (UTC): {meta.get('session_started_utc')}",
+        f"- Profile sha256: `{meta.get('profile_sha256')}`",
+        f"- Recorded with: {meta.get('software')}",
+        "",
+        "## Bench and instruments",
+        "",
+        f"Sign convention: {meta.get('sign_convention')}.",
+        "",
+        _md_table(
+            ["meter", "label", "bus -> branch", "reports", "CT ratio", "VT ratio", "classes"],
+            [
+                [
+                    m.id,
+                    m.label,
+                    f"{m.bus} -> {plain(m.branch) or '(voltage only)'}",
+                    m.reports,
+                    fmt(m.ct_ratio),
+                    fmt(m.vt_ratio),
+                    f"P {m.class_p}, Q {m.class_q}, V {m.class_v}, I {m.class_i}",
+                ]
+                for m in meter_rows(ds)
+            ],
+        ),
+        "",
+        "## Sequence",
+        "",
+        _md_table(
+            ["#", "step", "title", "state", "outcome", "operator", "reason"],
+            [
+                [s.order, s.id, s.title, s.state or "not reached", s.outcome, s.operator, s.reason]
+                for s in step_rows(ds["steps"])
+            ],
+        ),
+        "",
+        "## Failed and waived checks",
+        "",
+    ]
+    if rd.issues.empty:
+        out.append("No check failed in this session.")
+    else:
+        out.append(
+            _md_table(
+                ["step", "check", "subject", "", "finding", "value / limit", "snapshots"],
+                [
+                    [
+                        r.step,
+                        r.check,
+                        r.subject,
+                        ("waived: " + r.reason) if r.waived else "failed",
+                        r.message,
+                        f"{fmt(r.value)} / {fmt(r.limit)} {plain(r.unit)}",
+                        r.count,
+                    ]
+                    for r in issue_rows(rd.issues)
+                ],
+            )
+        )
+    out += [
+        "",
+        "## Key readings per step",
+        "",
+        "Median over the step's captures (V and I: mean of the three phases).",
+        "",
+    ]
+    for s in step_rows(ds["steps"]):
+        sub = rd.readings[rd.readings["step"] == s.id] if not rd.readings.empty else rd.readings
+        bal = rd.balance[rd.balance["step"] == s.id]
+        if sub.empty and bal.empty:
+            continue
+        out += [f"### {s.order}. {s.title} ({s.id})", ""]
+        if not sub.empty:
+            out.append(
+                _md_table(
+                    ["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS],
+                    [
+                        [r["meter"]] + [fmt(r[t]) for t, _, _ in KEY_READINGS]
+                        for _, r in sub.iterrows()
+                    ],
+                )
+            )
+            out.append("")
+        if not bal.empty:
+            out.append(
+                _md_table(
+                    ["bus", "check", "median value", "limit", "residual", "worst"],
+                    [
+                        [
+                            r.subject,
+                            r.check,
+                            f"{fmt(r.value)} {plain(r.unit)}",
+                            fmt(r.limit),
+                            fmt(r.residual, 3),
+                            r.worst,
+                        ]
+                        for r in balance_rows(bal)
+                    ],
+                )
+            )
+            out.append("")
+    out += [
+        "## Sign-off",
+        "",
+        _md_table(
+            ["role", "name", "signature", "date"],
+            [
+                ["Commissioning engineer", "", "", ""],
+                ["Witness", "", "", ""],
+                ["Accepted for the owner", "", "", ""],
+            ],
+        ),
+        "",
+        f"> **Caution.** {CAUTION}",
+        "",
+    ]
+    return "\n".join(out)
