@@ -13,7 +13,7 @@ median and the 10th percentile of the wall time per call and the minimum (closes
 machine). The ratio column compares each bench with the engine rebuilt on every call
 (``run_checks``), which shows what the per-profile preparation of ``CheckEngine`` saves.
 Target: < 2 ms median for 32 meters with a prebuilt ``CheckEngine``. Results are pinned bit for
-bit by tests/test_checks_golden.py, so any speed-up is checked against the same answers.
+bit by tests/checks/test_checks_golden.py, so any speed-up is checked against the same answers.
 """
 
 from __future__ import annotations
@@ -159,7 +159,7 @@ def measure(repeat: int = 300) -> tuple[dict[str, list[float]], dict[str, int]]:
         cases[f"{label}, run_checks (engine built per call)"] = rebuilt
         if not _same(CheckEngine(prof).run(snaps[-1], snaps[-17:-1]), rebuilt()):
             raise SystemExit(
-                f"{label}: a prebuilt engine and run_checks disagree; run tests/test_checks_golden.py"
+                f"{label}: a prebuilt engine and run_checks disagree; run tests/checks/test_checks_golden.py"
             )
         counts[f"{label}, run_checks (engine built per call)"] = len(rebuilt())
     return interleaved(cases, repeat), counts

@@ -36,7 +36,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(ROOT / "benchmarks"))
 
 from common import Figure, Target, ratio, slowdown  # noqa: E402
-from test_journal import KEYS, make_bench, make_snapshot  # noqa: E402
+from support.invented_bench import KEYS, make_bench, make_snapshot  # noqa: E402
 
 from meas.journal.store import Journal  # noqa: E402
 

@@ -9,7 +9,7 @@ bigger; rates are inverted so the meaning stays the same), the target and pass/m
 ``--quick`` (about 1-2 minutes) shrinks repetitions; the full run takes about 5-10 minutes.
 A benchmark that cannot run here (missing module or package, a failure) becomes a row that says
 why; the exit code is 1 then, and 0 otherwise: a missed target is a finding, not a crash.
-Timings are never asserted in unit tests; ``tests/test_benchmarks_smoke.py`` checks the table.
+Timings are never asserted in unit tests; ``tests/proofs/test_benchmarks_smoke.py`` checks the table.
 """
 
 from __future__ import annotations

@@ -9,7 +9,7 @@ output comes failures first without a sort. Results are deterministic: the same 
 give the same list in the same order, so an offline re-check of an exported dataset reproduces
 the table exactly. The speed-ups keep every IEEE 754 operation and its memory layout (numpy's
 SIMD loops may round transcendental functions differently on contiguous and strided data);
-tests/test_checks_golden.py pins every field of every result bit for bit.
+tests/checks/test_checks_golden.py pins every field of every result bit for bit.
 """
 
 from __future__ import annotations

@@ -45,7 +45,7 @@ class RequestDecoder:
     The word/byte-order permutation of the whole read and one struct format (pad bytes for
     the gaps) are precompiled, so a read costs one pack, at most one permutation and one
     unpack, then the scale, offset and CT/VT ratio in one pass in the reference's order of
-    operations (``tests/test_poller.py`` checks it against ``codec.decode`` +
+    operations (``tests/poll/test_poller.py`` checks it against ``codec.decode`` +
     ``scaling.to_primary``). A read with an impossible or non-finite value takes a slow path
     that names each bad value.
     """

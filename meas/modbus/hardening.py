@@ -5,7 +5,7 @@ wrapping two hooks of the client's transaction manager, and the library's ERROR 
 every timeout is quieted. Both depend on internals (``ctx.framer.handleFrame``,
 ``ctx.callback_disconnected``, ``ctx.response_future``) that minor releases change, so
 ``require_supported_pymodbus`` refuses any other release with one line instead of letting the
-wrappers fail obscurely. Widen ``SUPPORTED`` only after re-running ``tests/test_poller_hostile.py``
+wrappers fail obscurely. Widen ``SUPPORTED`` only after re-running ``tests/poll/test_poller_hostile.py``
 against the new release.
 """
 

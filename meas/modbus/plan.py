@@ -12,7 +12,7 @@ exception 2 for them).
 
 Greedy left-to-right coalescing is optimal here: whether specs ``i..j`` fit one read only
 gets harder as ``j`` grows or ``i`` shrinks, so extending the current read as far as it goes
-never costs a request (``tests/test_plan.py`` checks this against an exact minimum).
+never costs a request (``tests/modbus/test_plan.py`` checks this against an exact minimum).
 """
 
 from __future__ import annotations
