@@ -12,12 +12,14 @@ import asyncio
 import contextlib
 import inspect
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import AsyncGenerator, Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 from meas.errors import BenchwalkError
+from meas.session import Session
 from meas.snapshot import Snapshot
+from meas.walk.runner import Runner
 
 from .frame import Frame, StepInfo
 from .keys import action_keys
@@ -102,7 +104,7 @@ class Bridge:
     (``meas.sim.hands``).
     """
 
-    def __init__(self, session: Any, operator: str = "", out_dir: Path | None = None) -> None:
+    def __init__(self, session: Session, operator: str = "", out_dir: Path | None = None) -> None:
         self.session = session
         self.profile = session.profile
         self.operator = operator
@@ -111,12 +113,12 @@ class Bridge:
         self.report: Path | None = None
         self._last_state: tuple[int, str] | None = None
         self._events: list[str] = []
-        self._snapshots = None
+        self._snapshots: AsyncGenerator[Snapshot, None] | None = None
         self.last_snapshot: Snapshot | None = None
         self.transitions = 0  # step or state changes seen; tests wait on it
 
     @property
-    def runner(self) -> Any:
+    def runner(self) -> Runner:
         return self.session.runner
 
     def log(self, text: str) -> None:

@@ -23,7 +23,7 @@ import math
 import random
 import struct
 import time
-from collections.abc import AsyncIterator
+from collections.abc import AsyncGenerator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 
@@ -228,7 +228,7 @@ class Poller:
             cycle_s=time.monotonic() - t_mono,
         )
 
-    async def run(self, interval_s: float | None = None) -> AsyncIterator[Snapshot]:
+    async def run(self, interval_s: float | None = None) -> AsyncGenerator[Snapshot, None]:
         """Cycles on a fixed grid; an overrun skips to the next free slot instead of bursting."""
         interval = self.profile.poll.interval_s if interval_s is None else interval_s
         t0 = time.monotonic()
