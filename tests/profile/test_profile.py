@@ -24,16 +24,15 @@ from pathlib import Path
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from support.profile_edits import BASE, MINIMAL, edit, line_of, problems_of, write
 
 from meas.errors import ProfileError
 from meas.model import CapturePolicy, LoadParams, RtuTransport, SettleCriterion
-from meas.profile import format_path, lint_profile, load_profile, locate_keys
+from meas.profile import format_path, load_profile, locate_keys
 from tui import cli
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "profiles_demo" / "feeder_bench.toml"
-MINIMAL = ROOT / "profiles_demo" / "minimal_bench.toml"
-BASE = MINIMAL.read_text(encoding="utf-8")
 
 REMOTE_SWITCH = """
 [[plc]]
@@ -48,34 +47,6 @@ plc = "PLC1"
 command_coil = 0
 status = { kind = "discrete", address = 0 }
 """
-
-
-def edit(old: str, new: str, text: str = BASE) -> str:
-    assert text.count(old) >= 1, f"fixture text not found: {old!r}"
-    return text.replace(old, new, 1)
-
-
-def line_of(text: str, needle: str | tuple[str, int], nth: int = 1) -> int:
-    """1-based line of the nth line containing needle (independent of the loader)."""
-    if isinstance(needle, tuple):
-        needle, nth = needle
-    hits = [i for i, line in enumerate(text.splitlines(), 1) if needle in line]
-    assert len(hits) >= nth, f"{needle!r} not in text"
-    return hits[nth - 1]
-
-
-def write(tmp_path: Path, text: str, name: str = "bench.toml") -> Path:
-    path = tmp_path / name
-    path.write_text(text, encoding="utf-8")
-    return path
-
-
-def problems_of(path: Path) -> list[str]:
-    with pytest.raises(ProfileError) as info:
-        load_profile(path)
-    lines = str(info.value).splitlines()
-    assert lines == [str(p) for p in lint_profile(path)]  # lint and load agree
-    return lines
 
 
 # ----------------------------------------------------------------------------- good profiles

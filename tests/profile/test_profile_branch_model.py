@@ -10,45 +10,17 @@ sum to 1) are the simulator's rules kept as they were (common practice).
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import pytest
+from support.profile_edits import BASE, edit, line_of, problems_of, write
 
-from meas.errors import ProfileError
 from meas.model import LineParams, LoadParams, ShuntParams, SourceParams, TransformerParams
-from meas.profile import lint_profile, load_profile
+from meas.profile import load_profile
 
-MINIMAL = Path(__file__).resolve().parents[2] / "profiles_demo" / "minimal_bench.toml"
-BASE = MINIMAL.read_text(encoding="utf-8")
 GRID = "model = { v_ll = 404.0, sc_va = 400000.0, x_r = 6.0 }"
 LINE = "model = { r_ohm = 0.18, x_ohm = 0.14, b_us = 30.0 }"
 LOAD = 'model = { model = "pq", p_w = 5000.0, q_var = 1500.0 }'
 TRAFO = "s_va = 3e4, v1_ll = 400.0, v2_ll = 400.0, uk_pct = 4.0"
-
-
-def edit(old: str, new: str, text: str = BASE) -> str:
-    assert text.count(old) >= 1, f"fixture text not found: {old!r}"
-    return text.replace(old, new, 1)
-
-
-def line_of(text: str, needle: str) -> int:
-    hits = [i for i, line in enumerate(text.splitlines(), 1) if needle in line]
-    assert hits, f"{needle!r} not in text"
-    return hits[0]
-
-
-def write(tmp_path: Path, text: str) -> Path:
-    path = tmp_path / "bench.toml"
-    path.write_text(text, encoding="utf-8")
-    return path
-
-
-def problems_of(path: Path) -> list[str]:
-    with pytest.raises(ProfileError) as info:
-        load_profile(path)
-    lines = str(info.value).splitlines()
-    assert lines == [str(p) for p in lint_profile(path)]  # lint and load agree
-    return lines
 
 
 def as_transformer(model: str) -> str:
