@@ -143,16 +143,11 @@ def run_console(
     sessions_dir: str | Path | None = None,
     out: str | Path | None = None,
     allow_changed_profile: bool = False,
-    **compat: Any,
+    simulate: bool = True,
 ) -> int:
-    """Run the console on a profile with the simulated bench; returns the exit code.
-
-    ``profile=`` and ``demo=`` are accepted as aliases from ``tui.commands.demo``.
-    """
+    """Run the console on a profile (``simulate``: on the simulated bench); returns the exit code."""
     from .launch import make_factory  # the session wiring; kept apart so tests can pass their own
 
-    profile_path = profile_path or compat.pop("profile", None)
-    simulate = bool(compat.pop("demo", True))
     sdir = Path(sessions_dir) if sessions_dir else None
     factory, bench_name, lister = make_factory(
         profile_path,

@@ -62,8 +62,8 @@ async def _headless(args: argparse.Namespace) -> int:
 def main(args: argparse.Namespace) -> int:
     if not args.headless:
         return start_console(
-            profile=str(args.profile),
-            demo=True,
+            profile_path=str(args.profile),
+            simulate=True,
             faults=tuple(args.fault),
             seed=args.seed,
             operator=args.operator,

@@ -66,7 +66,7 @@ async def _headless(args: argparse.Namespace) -> int:
 def main(args: argparse.Namespace) -> int:
     if not args.headless:
         return start_console(
-            profile=str(args.profile) if args.profile else None,
+            profile_path=str(args.profile) if args.profile else None,
             resume=args.session,
             allow_changed_profile=args.allow_changed_profile,
             operator=args.operator,

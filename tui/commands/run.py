@@ -52,8 +52,8 @@ async def _run(args: argparse.Namespace) -> int:
 def main(args: argparse.Namespace) -> int:
     if not args.headless:
         return start_console(
-            profile=str(args.profile),
-            demo=False,
+            profile_path=str(args.profile),
+            simulate=False,
             operator=args.operator,
             sessions_dir=args.sessions,
             out=args.out,
