@@ -1,6 +1,7 @@
 """Time of all checks on one snapshot: the demo bench and a synthetic 32-meter bench.
 
-The synthetic bench (``radial_bench``) is invented data built in code: a source, a chain of
+The synthetic bench (``radial_bench`` in tests/support/check_inputs.py, which the golden check
+results also pin) is invented data built in code: a source, a chain of
 line sections metered at both ends and load banks metered at each bus, on the demo's maps.
 
 Run:  /work/venv/bin/python benchmarks/bench_checks.py [--repeat 300]
@@ -27,81 +28,16 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from common import Figure, Target, interleaved, machine_line, median, percentile  # noqa: E402
+from support.check_inputs import radial_bench  # noqa: E402
 
 from meas.checks import CheckEngine, run_checks  # noqa: E402
-from meas.model import (  # noqa: E402
-    AccuracyClasses,
-    Branch,
-    Bus,
-    LineParams,
-    LoadParams,
-    Meter,
-    Profile,
-    SourceParams,
-    TcpTransport,
-)
 from meas.profile import load_profile  # noqa: E402
 from meas.sim.meters import snapshot_from_sim  # noqa: E402
 from meas.sim.readings import ideal_readings  # noqa: E402
 
 DEMO = Path(__file__).resolve().parent.parent / "profiles_demo" / "feeder_bench.toml"
-
-
-def radial_bench(base: Profile, n_meters: int = 32) -> Profile:
-    """A chain of buses with two-end-metered lines and metered loads, about ``n_meters`` meters."""
-    buses, branches, meters = (
-        [Bus("B0", base.buses[0].zone)],
-        [Branch("SRC", "source", "B0", model=SourceParams(408.0, 2.0e6, 8.0))],
-        [],
-    )
-    maps = ["lumen-f32", "corvid-i32", "wren-i16"]
-    k = 0
-
-    def meter(bus: str, branch: str, map_id: str) -> None:
-        nonlocal k
-        k += 1
-        extra = (
-            {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0}
-            if map_id == "corvid-i32"
-            else {}
-        )
-        meters.append(
-            Meter(
-                f"X{k}",
-                f"synthetic meter {k}",
-                TcpTransport("127.0.0.1", 15100 + k),
-                1,
-                map_id,
-                bus,
-                branch,
-                ct_primary_a=100.0,
-                classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"),
-                **extra,
-            )
-        )
-
-    i = 0
-    while len(meters) < n_meters:
-        i += 1
-        prev, bus = f"B{i - 1}", f"B{i}"
-        buses.append(Bus(bus, base.buses[0].zone))
-        branches.append(Branch(f"L{i}", "line", prev, bus, model=LineParams(0.02, 0.03, 10.0)))
-        meter(prev, f"L{i}", maps[i % 3])
-        meter(bus, f"L{i}", maps[(i + 1) % 3])
-        branches.append(Branch(f"LD{i}", "load", bus, model=LoadParams(1500.0, 500.0, "pq")))
-        if len(meters) < n_meters:
-            meter(bus, f"LD{i}", maps[(i + 2) % 3])
-    return dataclasses.replace(
-        base,
-        path="<synthetic>",
-        meters=tuple(meters[:n_meters]),
-        buses=tuple(buses),
-        branches=tuple(branches),
-        switches=(),
-        plcs=(),
-        steps=(),
-    )
 
 
 def _series(profile, switches, n: int = 40, seed: int = 1):

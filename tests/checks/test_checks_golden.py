@@ -10,7 +10,7 @@ exported check table exactly, and the optimized engine is required to do the sam
 operations in the same order. Messages, which embed formatted numbers, must match character
 for character. Regenerate the fixture only for an intended change of results, and say so.
 
-The inputs are invented bench data (the demo profile and a synthetic radial bench built here),
+The inputs are invented bench data (the demo profile and the invented radial bench of tests/support/check_inputs.py),
 so the check values are not facts of the trade: their source is the engine's own earlier output.
 """
 
@@ -28,19 +28,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from support.check_inputs import radial_bench
 
 from meas.checks import CheckEngine, run_checks
 from meas.model import (
-    AccuracyClasses,
-    Branch,
-    Bus,
     CheckSettings,
-    LineParams,
-    LoadParams,
-    Meter,
     Profile,
-    SourceParams,
-    TcpTransport,
 )
 from meas.profile import load_profile
 from meas.results import CheckResult
@@ -54,59 +47,6 @@ DEMO = ROOT / "profiles_demo" / "feeder_bench.toml"
 FIXTURE = Path(__file__).resolve().parents[1] / "data" / "checks_golden.json.gz"
 T0 = datetime(2026, 3, 1, 12, 0, tzinfo=UTC)
 FIELDS = ("check", "subject", "status", "value", "limit", "unit", "message", "cause")
-
-
-def synthetic_bench(base: Profile, n_meters: int = 32) -> Profile:
-    """A frozen copy of benchmarks/bench_checks.py ``radial_bench`` (the fixture depends on it
-    exactly): a chain of buses, lines metered at both ends, a metered load at every bus."""
-    buses = [Bus("B0", base.buses[0].zone)]
-    branches = [Branch("SRC", "source", "B0", model=SourceParams(408.0, 2.0e6, 8.0))]
-    meters: list[Meter] = []
-    maps = ["lumen-f32", "corvid-i32", "wren-i16"]
-
-    def meter(bus: str, branch: str, map_id: str) -> None:
-        k = len(meters) + 1
-        extra = (
-            {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0}
-            if map_id == "corvid-i32"
-            else {}
-        )
-        meters.append(
-            Meter(
-                f"X{k}",
-                f"synthetic meter {k}",
-                TcpTransport("127.0.0.1", 15100 + k),
-                1,
-                map_id,
-                bus,
-                branch,
-                ct_primary_a=100.0,
-                classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"),
-                **extra,
-            )
-        )
-
-    i = 0
-    while len(meters) < n_meters:
-        i += 1
-        prev, bus = f"B{i - 1}", f"B{i}"
-        buses.append(Bus(bus, base.buses[0].zone))
-        branches.append(Branch(f"L{i}", "line", prev, bus, model=LineParams(0.02, 0.03, 10.0)))
-        meter(prev, f"L{i}", maps[i % 3])
-        meter(bus, f"L{i}", maps[(i + 1) % 3])
-        branches.append(Branch(f"LD{i}", "load", bus, model=LoadParams(1500.0, 500.0, "pq")))
-        if len(meters) < n_meters:
-            meter(bus, f"LD{i}", maps[(i + 2) % 3])
-    return dataclasses.replace(
-        base,
-        path="<synthetic>",
-        meters=tuple(meters[:n_meters]),
-        buses=tuple(buses),
-        branches=tuple(branches),
-        switches=(),
-        plcs=(),
-        steps=(),
-    )
 
 
 def with_overrides(base: Profile) -> Profile:
@@ -268,7 +208,7 @@ def _edit(name: str, snap: Snapshot) -> Snapshot:
 
 def profiles() -> dict[str, Profile]:
     demo = load_profile(DEMO)
-    return {"demo": demo, "synthetic": synthetic_bench(demo), "overrides": with_overrides(demo)}
+    return {"demo": demo, "synthetic": radial_bench(demo), "overrides": with_overrides(demo)}
 
 
 def series(prof: Profile, sc: Scenario) -> Iterator[tuple[Snapshot, list[Snapshot]]]:

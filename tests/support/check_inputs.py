@@ -14,7 +14,17 @@ from pathlib import Path
 import numpy as np
 
 from meas import phasors as ph
-from meas.model import AccuracyClasses, Branch, Bus, Meter, Profile, TcpTransport
+from meas.model import (
+    AccuracyClasses,
+    Branch,
+    Bus,
+    LineParams,
+    LoadParams,
+    Meter,
+    Profile,
+    SourceParams,
+    TcpTransport,
+)
 from meas.profile import load_profile
 from meas.snapshot import CommState, MeterBlock, Quality, Snapshot
 
@@ -119,6 +129,60 @@ def one_bus_profile(base: Profile, feeders: list[tuple[str, str]], ct_a: float =
         base,
         meters=tuple(meters),
         buses=buses,
+        branches=tuple(branches),
+        switches=(),
+        plcs=(),
+        steps=(),
+    )
+
+
+def radial_bench(base: Profile, n_meters: int = 32) -> Profile:
+    """An invented radial bench of ``n_meters``: a chain of buses, lines metered at both ends, a
+    metered load at every bus. The check benchmark times it and the golden check results pin
+    it, so a change here shows as a golden failure."""
+    buses = [Bus("B0", base.buses[0].zone)]
+    branches = [Branch("SRC", "source", "B0", model=SourceParams(408.0, 2.0e6, 8.0))]
+    meters: list[Meter] = []
+    maps = ["lumen-f32", "corvid-i32", "wren-i16"]
+
+    def meter(bus: str, branch: str, map_id: str) -> None:
+        k = len(meters) + 1
+        extra = (
+            {"reports": "secondary", "ct_ratio": 10.0, "vt_ratio": 4.0}
+            if map_id == "corvid-i32"
+            else {}
+        )
+        meters.append(
+            Meter(
+                f"X{k}",
+                f"synthetic meter {k}",
+                TcpTransport("127.0.0.1", 15100 + k),
+                1,
+                map_id,
+                bus,
+                branch,
+                ct_primary_a=100.0,
+                classes=AccuracyClasses("0.5S", "2", "0.5", "0.5"),
+                **extra,
+            )
+        )
+
+    i = 0
+    while len(meters) < n_meters:
+        i += 1
+        prev, bus = f"B{i - 1}", f"B{i}"
+        buses.append(Bus(bus, base.buses[0].zone))
+        branches.append(Branch(f"L{i}", "line", prev, bus, model=LineParams(0.02, 0.03, 10.0)))
+        meter(prev, f"L{i}", maps[i % 3])
+        meter(bus, f"L{i}", maps[(i + 1) % 3])
+        branches.append(Branch(f"LD{i}", "load", bus, model=LoadParams(1500.0, 500.0, "pq")))
+        if len(meters) < n_meters:
+            meter(bus, f"LD{i}", maps[(i + 2) % 3])
+    return dataclasses.replace(
+        base,
+        path="<synthetic>",
+        meters=tuple(meters[:n_meters]),
+        buses=tuple(buses),
         branches=tuple(branches),
         switches=(),
         plcs=(),
