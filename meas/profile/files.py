@@ -31,8 +31,8 @@ MAX_DEPTH = 32  # nesting levels of tables and arrays; real profiles use about 5
 
 def _read_file(
     path: Path, problems: list[Problem], ref: tuple[Doc, Key] | None = None
-) -> tuple[bytes, Doc, dict[str, Any]] | None:
-    """Bytes, locator and parsed data of one file, or None with the reason recorded."""
+) -> tuple[bytes, str, Doc, dict[str, Any]] | None:
+    """Bytes, text, locator and parsed data of one file, or None with the reason recorded."""
     file = printable(str(path))
 
     def fail(message: str, line: int | None = None) -> None:
@@ -111,7 +111,7 @@ def _read_file(
         )
         return None
     doc.lines = locate_keys(text)
-    return raw, doc, data
+    return raw, text, doc, data
 
 
 def _too_deep(data: Any, limit: int | None = None) -> Key | None:
@@ -175,9 +175,9 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
     read = _read_file(p, problems)
     if read is None:
         return None, problems
-    raw, doc, data = read
+    raw, text, doc, data = read
     digest = hashlib.sha256(raw)
-    sources = [SourceFile(p.name, raw.decode("utf-8"))]
+    sources = [SourceFile(p.name, text)]
     root = Table(doc, data, ())
     bench = read_bench(doc, root)
     control = read_control(root)
@@ -212,9 +212,9 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
             else:
                 companion = _read_file(where, problems, ref=(doc, ("sequence", "file")))
             if companion is not None:
-                craw, cdoc, cdata = companion
+                craw, ctext, cdoc, cdata = companion
                 digest.update(craw)
-                sources.append(SourceFile(Path(file).as_posix(), craw.decode("utf-8")))
+                sources.append(SourceFile(Path(file).as_posix(), ctext))
                 croot = Table(cdoc, cdata, ())
                 step_tables = array_of_tables(cdoc, croot, "step")
                 croot.finish()
