@@ -265,6 +265,9 @@ class Branch:
     to_bus: str | None = None
     label: str = ""
     model: BranchParams | None = field(default=None, compare=False, hash=False)
+    # (key, ± limit) pairs the profile states in the model's ``tolerance_pct``; the defaults
+    # and their meaning are in ``meas.network.parameters``
+    tolerance_pct: tuple[tuple[str, float], ...] = field(default=(), compare=False, hash=False)
 
     @property
     def buses(self) -> tuple[str, ...]:

@@ -23,6 +23,12 @@ from ..model import (
     TransformerParams,
     VectorGroup,
 )
+from ..network.parameters import (
+    ABSOLUTE_KEYS,
+    MAX_ABSOLUTE_POINTS,
+    MAX_RELATIVE_PCT,
+    tolerance_keys,
+)
 from .tables import Table, show, typename
 
 VECTOR_GROUPS: tuple[str, ...] = get_args(VectorGroup)
@@ -204,10 +210,42 @@ def _shunt(t: Table) -> ShuntParams | None:
     return ShuntParams(q, p)
 
 
+def _limit_check(hi: float, unit: str) -> Check:
+    def check(v: float) -> str | None:
+        return None if 0 <= v <= hi else f"a ± limit in {unit} from 0 to {hi:g}, got {show(v)}"
+
+    return check
+
+
+def _tolerances(m: Table, kind: str, params: BranchParams) -> tuple[tuple[str, float], ...]:
+    """The model's ``tolerance_pct`` table: a ± limit per parameter key, checked for sense."""
+    t = m.table("tolerance_pct")
+    if t is None:
+        return ()
+    allowed = tolerance_keys(kind, params)
+    out = []
+    for key in list(t.data):
+        if key not in allowed:
+            t.seen.add(key)
+            t.doc.add(
+                t.at(key),
+                f"not a {kind} parameter that takes a tolerance; use one of {', '.join(allowed)}",
+            )
+            continue
+        hi = MAX_ABSOLUTE_POINTS if key in ABSOLUTE_KEYS else MAX_RELATIVE_PCT
+        unit = "percentage points" if key in ABSOLUTE_KEYS else "percent"
+        value = t.get(key, "number", None, check=_limit_check(hi, unit))
+        if value is not None:
+            out.append((key, float(value)))
+    t.finish()
+    return tuple(out)
+
+
 def branch_model(
     t: Table, kind: str | None, from_bus: str | None, ideal: dict[str, str]
-) -> BranchParams | None:
-    """The branch's ``model`` table as typed parameters, None if absent or with problems.
+) -> tuple[BranchParams | None, tuple[tuple[str, float], ...]]:
+    """The branch's ``model`` table as typed parameters (None if absent or with problems) and
+    the tolerances it states.
 
     ``ideal`` collects bus -> branch of the ideal sources read so far, for the one-per-bus rule.
     """
@@ -220,8 +258,9 @@ def branch_model(
         )
     raw = t.get("model", "table", None)
     if raw is None or kind is None:
-        return None
+        return None, ()
     m = Table(t.doc, raw, t.at("model"))
+    m.seen.add("tolerance_pct")
     before = len(t.doc.problems)
     out: BranchParams | None
     if kind == "source":
@@ -234,5 +273,8 @@ def branch_model(
         out = _load(m)
     else:
         out = _shunt(m)
+    tolerances = _tolerances(m, kind, out) if out is not None else ()
     m.finish()
-    return out if len(t.doc.problems) == before else None
+    if len(t.doc.problems) != before:
+        return None, ()
+    return out, tolerances

@@ -52,10 +52,10 @@ def read_branches(
                     f"a {kind} is one-ended: remove to_bus (only line and transformer have one)",
                 )
         label = t.get("label", "str", "")
-        model = branch_model(t, kind, from_bus, ideal)
+        model, tolerance = branch_model(t, kind, from_bus, ideal)
         if kind is None or from_bus is None or (kind in TWO_ENDED and to_bus is None):
             partial.add(ident)
-        out[ident] = Branch(ident, kind or "load", from_bus or "", to_bus, label, model)
+        out[ident] = Branch(ident, kind or "load", from_bus or "", to_bus, label, model, tolerance)
     for t in tables:
         t.finish()
     return out, partial
