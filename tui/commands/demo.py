@@ -62,7 +62,7 @@ async def _headless(args: argparse.Namespace, built: str | None) -> int:
     print(f"Session {session.session_id}: journal {session.path} ({bench})", flush=True)
     code = await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
     if built:
-        print(f"The {bench}; the checks used the profile's nameplate model.", flush=True)
+        print(f"Simulated bench on an {built}. The checks used the nameplate model.", flush=True)
     return code
 
 
