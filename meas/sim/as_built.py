@@ -28,7 +28,7 @@ from typing import Any, Literal
 import numpy as np
 
 from ..errors import BenchwalkError, ProfileError
-from ..model import Branch, Profile
+from ..model import Branch, Profile, TransformerParams
 from ..network.elements import element_models
 from ..network.parameters import MAX_ABSOLUTE_POINTS, ModelParameter, model_parameters, with_values
 from .readings import BenchState, ideal_readings
@@ -245,17 +245,31 @@ def from_options(profile: Profile, seed: int | str | None, model_errors: Iterabl
 def _build(profile: Profile, applied: tuple[AppliedValue, ...], seed: int | None) -> AsBuilt:
     branches = with_values(profile.branches, {a.parameter.name: a.value for a in applied})
     built = AsBuilt(branches, applied, seed)
+    why = next(filter(None, map(_unphysical, branches)), None)
     try:
         element_models(built.profile(profile))
     except (ProfileError, ValueError) as exc:
         element_models(profile)  # a nameplate model that cannot be built says so itself
-        what = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        why = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    if why is not None:
         option = ERROR_OPTION if any(a.origin == "given" for a in applied) else SEED_OPTION
         raise BenchwalkError(
-            f"{option}: the as-built network is not one the load flow can model ({what}); "
+            f"{option}: the as-built network is not one the load flow can model ({why}); "
             "choose smaller model errors"
-        ) from None
+        )
     return built
+
+
+def _unphysical(branch: Branch) -> str | None:
+    """What a changed value breaks of the loader's rules (docs/profile-format.md), if anything;
+    the other rules hold under a positive factor."""
+    m = branch.model
+    if isinstance(m, TransformerParams):
+        if m.ur_pct >= m.uk_pct:
+            return f"{branch.id}: ur_pct {m.ur_pct:g} is not below uk_pct {m.uk_pct:g}"
+        if m.tap_pct < -50:
+            return f"{branch.id}: tap_pct {m.tap_pct:g} is below -50"
+    return None
 
 
 def from_meta(profile: Profile, session_meta: Mapping[str, Any]) -> AsBuilt | None:
