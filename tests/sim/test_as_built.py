@@ -332,6 +332,24 @@ async def test_the_served_registers_are_the_true_network_and_resume_keeps_it(tmp
     assert again.meters["M7"].get("v_ln.A") == pytest.approx(v_real, rel=2e-6)
 
 
+async def test_the_console_starts_the_same_as_built_bench(tmp_path):
+    """The console's session factory passes the options through (``tui.launch``)."""
+    from tui.launch import make_factory
+
+    path = write_bench(tmp_path / "bench")
+    factory, name, _ = make_factory(
+        path, sessions_dir=tmp_path / "s", as_built_seed="3", model_errors=("L2.r_ohm:1.2",)
+    )
+    assert name == "Kestrel Hollow feeder bench (simulated, as built)"
+    session = await factory("t", None)
+    try:
+        meta = session.journal.meta["as_built"]
+        assert meta["seed"] == 3 and meta["model_errors"] == ["L2.r_ohm:1.2"]
+        assert session.bench is not None
+    finally:
+        await session.close()
+
+
 def benchwalk(*args: str, timeout: float = 180.0) -> subprocess.CompletedProcess:
     return subprocess.run(
         [sys.executable, "-m", "tui.cli", *args],
