@@ -30,6 +30,7 @@ import numpy as np
 from ..errors import BenchwalkError, ProfileError
 from ..model import Branch, Profile, TransformerParams
 from ..network.elements import element_models
+from ..network.loadflow import SolverError
 from ..network.parameters import MAX_ABSOLUTE_POINTS, ModelParameter, model_parameters, with_values
 from .readings import BenchState, ideal_readings
 
@@ -251,6 +252,11 @@ def _build(profile: Profile, applied: tuple[AppliedValue, ...], seed: int | None
     except (ProfileError, ValueError) as exc:
         element_models(profile)  # a nameplate model that cannot be built says so itself
         why = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    if why is None and applied:
+        try:  # the bench starts in the normal switch state: its load flow must converge
+            ideal_readings(built.profile(profile), {})
+        except SolverError:
+            why = "its load flow does not converge with the switches in their normal state"
     if why is not None:
         option = ERROR_OPTION if any(a.origin == "given" for a in applied) else SEED_OPTION
         raise BenchwalkError(

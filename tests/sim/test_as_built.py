@@ -127,7 +127,9 @@ def test_a_seed_gives_the_same_network_every_time_and_another_seed_another(demo)
 def test_a_draw_depends_only_on_the_seed_and_the_parameter(demo):
     alone = as_built(demo, 7)
     with_factor = as_built(demo, 7, {"L1.r_ohm": 1.1})
-    fewer = as_built(dataclasses.replace(demo, branches=demo.branches[:3]), 7)  # SRC, L1, L2
+    # the source and the two trunk sections alone, no meters or switches
+    small = dataclasses.replace(demo, branches=demo.branches[:3], meters=(), switches=())
+    fewer = as_built(small, 7)
     for name in ("SRC.v_ll", "L1.x_ohm", "L2.r_ohm"):
         assert alone.values[name] == with_factor.values[name] == fewer.values[name]
 
@@ -238,6 +240,14 @@ def test_a_network_the_load_flow_cannot_model_is_refused(meshed):
     # ur_pct must stay below uk_pct (docs/profile-format.md): 1.5 x 4 = 6 > 4.5
     with pytest.raises(BenchwalkError, match="not one the load flow can model"):
         as_built(meshed, None, {"T1.ur_pct": 4.0})
+
+
+def test_a_network_whose_load_flow_diverges_is_refused_before_it_starts(demo):
+    # ten times every load behind a tenth of the short-circuit power: no operating point
+    errors = {"LD1.p_w": 10.0, "LD3.p_w": 10.0, "SRC.sc_va": 0.1}
+    with pytest.raises(BenchwalkError, match="does not converge") as err:
+        as_built(demo, None, errors)
+    assert str(err.value).startswith("--model-error")
 
 
 @pytest.mark.parametrize("command", ["sim", "demo"])
