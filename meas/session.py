@@ -11,7 +11,9 @@ picks); while waiting for the technician or reviewing, one ``live`` snapshot per
 
 A demo session records in the journal meta that it ran on the simulated bench, with its
 seed and faults, so ``resume`` can start the same bench again and bring its switches to
-the configuration the sequence had reached.
+the configuration the sequence had reached. A bench run as built (``as_built_seed``,
+``model_errors``: its true network off the nameplate, ``meas.sim.as_built``) also records the
+seed and every applied value under ``as_built``; the profile keeps the nameplate model.
 """
 
 from __future__ import annotations
@@ -38,6 +40,7 @@ if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
     from .checks.settle import SettleState
     from .poll.control import SwitchControl
     from .poll.cycle import Poller
+    from .sim.as_built import AsBuilt
     from .sim.bench import SimulatedBench
 
 SIM_OPERATOR = "simulated technician"
@@ -159,16 +162,26 @@ class Session:
         on_saved: Callable[[int, str, str], None] | None = None,
         live_every_s: float = 1.0,
         live_checks: bool = True,
+        as_built_seed: int | str | None = None,
+        model_errors: Sequence[str] = (),
     ) -> Session:
-        """Start a new session (and, for a demo, the simulated bench) from a profile file."""
+        """Start a new session (and, for a demo, the simulated bench) from a profile file.
+
+        ``as_built_seed`` and ``model_errors`` run the simulated bench on a true network off
+        the nameplate (``meas.sim.as_built``); they are checked before anything starts.
+        """
         profile = load_profile(profile_path)
         validate_sequence(profile)
+        built = _as_built(profile, simulate, as_built_seed, model_errors)
         sid = session_id or new_session_id(profile.bench.name)
         path = session_path(sid, sessions_dir)
-        meta = {"simulated": simulate, "faults": list(faults), "seed": seed, "noise": noise}
+        meta: dict[str, Any] = {"simulated": simulate, "faults": list(faults), "seed": seed}
+        meta["noise"] = noise
+        if built is not None:  # the true network the simulated bench runs
+            meta["as_built"] = built.meta(model_errors)
         bench, live_profile = None, profile
         if simulate:
-            bench, live_profile = await _start_bench(profile, faults, seed, noise)
+            bench, live_profile = await _start_bench(profile, faults, seed, noise, built)
         try:
             journal = Journal.create(
                 path,
@@ -244,8 +257,15 @@ class Session:
             meta = journal.meta
             bench, live_profile = None, profile
             if meta.get("simulated"):
+                from .sim.as_built import from_meta
+
+                built = from_meta(profile, meta)  # the recorded true network, if any
                 bench, live_profile = await _start_bench(
-                    profile, meta.get("faults", ()), meta.get("seed"), meta.get("noise", True)
+                    profile,
+                    meta.get("faults", ()),
+                    meta.get("seed"),
+                    meta.get("noise", True),
+                    built,
                 )
                 for sid, state in configuration_before(profile, index).items():
                     bench.operate_by_hand(sid, state)
@@ -365,8 +385,34 @@ class Session:
             self.journal.close()
 
 
+def as_built_line(
+    profile_path: str | Path, as_built_seed: int | str | None, model_errors: Sequence[str]
+) -> str | None:
+    """Check the as-built options before anything starts; the line a command shows for them.
+
+    None without them; ``BenchwalkError`` names a bad option."""
+    built = _as_built(load_profile(profile_path), True, as_built_seed, model_errors)
+    return None if built is None else built.summary()
+
+
+def _as_built(
+    profile: Profile, simulate: bool, seed: int | str | None, model_errors: Sequence[str]
+) -> AsBuilt | None:
+    if seed is None and not model_errors:
+        return None
+    if not simulate:
+        raise BenchwalkError("--as-built and --model-error apply to the simulated bench only")
+    from .sim.as_built import from_options
+
+    return from_options(profile, seed, model_errors)
+
+
 async def _start_bench(
-    profile: Profile, faults: Sequence[str], seed: int | None, noise: bool
+    profile: Profile,
+    faults: Sequence[str],
+    seed: int | None,
+    noise: bool,
+    built: AsBuilt | None = None,
 ) -> tuple[SimulatedBench, Profile]:
     from .sim.bench import SimulatedBench
     from .sim.faults import parse_fault, validate_faults
@@ -376,6 +422,10 @@ async def _start_bench(
     kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}
     if seed is not None:
         kwargs["seed"] = seed
+    if built is not None:
+        from .sim.as_built import readings_on
+
+        kwargs["readings"] = readings_on(built.profile(profile))
     bench = SimulatedBench(profile, **kwargs)
     live = await bench.start()
     return bench, live

@@ -144,6 +144,8 @@ def run_console(
     out: str | Path | None = None,
     allow_changed_profile: bool = False,
     simulate: bool = True,
+    as_built_seed: str | None = None,
+    model_errors: tuple[str, ...] = (),
 ) -> int:
     """Run the console on a profile (``simulate``: on the simulated bench); returns the exit code."""
     from .launch import make_factory  # the session wiring; kept apart so tests can pass their own
@@ -156,6 +158,8 @@ def run_console(
         sessions_dir=sdir,
         simulate=simulate,
         allow_changed_profile=allow_changed_profile,
+        as_built_seed=as_built_seed,
+        model_errors=model_errors,
     )
     app = BenchwalkApp(
         factory,

@@ -36,6 +36,8 @@ def make_factory(
     sessions_dir: Path | None = None,
     simulate: bool = True,
     allow_changed_profile: bool = False,
+    as_built_seed: str | None = None,
+    model_errors: tuple[str, ...] = (),
 ) -> tuple[
     Callable[[str, str | None], Awaitable[Session]], str, Callable[[], list[tuple[str, str]]]
 ]:
@@ -44,6 +46,8 @@ def make_factory(
     The profile is loaded once up front so a bad profile fails before the screen opens.
     """
     bench_name = load_profile(profile_path).bench.name if profile_path else "resumed session"
+    if simulate and (as_built_seed is not None or model_errors):
+        bench_name += " (simulated, as built)"  # the true network is not the nameplate
 
     async def factory(operator: str, resume: str | None) -> Session:
         if resume:
@@ -65,6 +69,8 @@ def make_factory(
             simulate=simulate,
             faults=list(faults),
             seed=seed,
+            as_built_seed=as_built_seed,
+            model_errors=model_errors,
         )
 
     return factory, bench_name, lambda: list_sessions(sessions_dir)

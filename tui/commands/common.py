@@ -30,6 +30,25 @@ def add_common(p: argparse.ArgumentParser) -> None:
     )
 
 
+def add_as_built(p: argparse.ArgumentParser) -> None:
+    """``--as-built`` and ``--model-error``: the simulated bench's true network (docs/as-built.md)."""
+    p.add_argument(
+        "--as-built",
+        default=None,
+        metavar="SEED",
+        help="run the simulated bench on a network drawn within the profile's model tolerances "
+        "from SEED (the checks keep the nameplate model; see docs/as-built.md)",
+    )
+    p.add_argument(
+        "--model-error",
+        action="append",
+        default=[],
+        metavar="BRANCH.KEY:FACTOR",
+        help="set one model parameter of the simulated bench's true network, e.g. L2.r_ohm:1.2 "
+        "(x1.2; for tap_pct an offset in points); repeatable, overrides --as-built for it",
+    )
+
+
 def saved_printer(
     enabled: bool, out: TextIO = sys.stdout
 ) -> Callable[[int, str, str], None] | None:

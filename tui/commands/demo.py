@@ -13,9 +13,9 @@ import asyncio
 from pathlib import Path
 
 from meas.cautions import HEADLESS_CAUTION
-from meas.session import SIM_OPERATOR, Session
+from meas.session import SIM_OPERATOR, Session, as_built_line
 
-from .common import add_common, saved_printer, start_console
+from .common import add_as_built, add_common, saved_printer, start_console
 from .headless import walk
 from .technicians import SimTechnician
 
@@ -38,11 +38,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="run the whole demo sequence in this terminal and write the dataset",
     )
     p.add_argument("--seed", type=int, default=None, help="random seed of the simulated noise")
+    add_as_built(p)
     p.add_argument("--profile", type=Path, default=DEMO_PROFILE, help=argparse.SUPPRESS)
     add_common(p)
 
 
-async def _headless(args: argparse.Namespace) -> int:
+async def _headless(args: argparse.Namespace, built: str | None) -> int:
     operator = args.operator or SIM_OPERATOR
     print(HEADLESS_CAUTION, flush=True)
     session = await Session.new(
@@ -54,12 +55,19 @@ async def _headless(args: argparse.Namespace) -> int:
         seed=args.seed,
         on_saved=saved_printer(args.log_saved),
         live_checks=False,
+        as_built_seed=args.as_built,
+        model_errors=args.model_error,
     )
-    print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
-    return await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
+    bench = f"simulated bench, {built}" if built else "simulated bench"
+    print(f"Session {session.session_id}: journal {session.path} ({bench})", flush=True)
+    code = await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
+    if built:
+        print(f"Simulated bench on an {built}. The checks used the nameplate model.", flush=True)
+    return code
 
 
 def main(args: argparse.Namespace) -> int:
+    built = as_built_line(args.profile, args.as_built, args.model_error)  # before anything starts
     if not args.headless:
         return start_console(
             profile_path=str(args.profile),
@@ -69,5 +77,7 @@ def main(args: argparse.Namespace) -> int:
             operator=args.operator,
             sessions_dir=args.sessions,
             out=args.out,
+            as_built_seed=args.as_built,
+            model_errors=tuple(args.model_error),
         )
-    return asyncio.run(_headless(args))
+    return asyncio.run(_headless(args, built))

@@ -8,7 +8,10 @@ import contextlib
 import signal
 from typing import TYPE_CHECKING
 
+from .common import add_as_built
+
 if TYPE_CHECKING:
+    from meas.sim.as_built import AsBuilt
     from meas.sim.bench import SimulatedBench
 
 HELP = "serve a simulated bench (meters and PLC over Modbus TCP on loopback) for a profile"
@@ -37,15 +40,20 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--no-noise", action="store_true", help="report ideal values (faults still apply)"
     )
+    add_as_built(p)
 
 
-def _print_endpoints(bench: SimulatedBench, profile_path: str) -> None:
+def _print_endpoints(bench: SimulatedBench, profile_path: str, built: AsBuilt | None) -> None:
     print(f"simulated bench for {profile_path}")
     for e in bench.endpoints:
         label = f"  {e.label}" if e.label else ""
         print(f"  {e.kind:5} {e.id:6} tcp://{e.host}:{e.port}  unit {e.unit_id}{label}")
     for f in bench.faults:
         print(f"  fault {f.text}")
+    if built is not None:
+        print(f"  {built.summary()}; the profile keeps its nameplate model")
+        for a in built.applied:
+            print(f"    {a.text()}")
     print(
         "SIMULATION: no real equipment is connected or switched. Ctrl-C stops the bench.",
         flush=True,
@@ -54,11 +62,15 @@ def _print_endpoints(bench: SimulatedBench, profile_path: str) -> None:
 
 async def _serve(args: argparse.Namespace) -> int:
     from meas.profile import load_profile
+    from meas.sim.as_built import from_options, readings_on
     from meas.sim.bench import SimulatedBench
     from meas.sim.faults import parse_faults
 
     profile = load_profile(args.profile)
     faults = parse_faults(args.fault)
+    built = None
+    if args.as_built is not None or args.model_error:
+        built = from_options(profile, args.as_built, args.model_error)
     bench = SimulatedBench(
         profile,
         faults,
@@ -66,6 +78,7 @@ async def _serve(args: argparse.Namespace) -> int:
         port_map="free" if args.free_ports else None,
         seed=args.seed,
         noise=not args.no_noise,
+        readings=readings_on(built.profile(profile)) if built is not None else None,
     )
     stop = asyncio.Event()
     loop = asyncio.get_running_loop()
@@ -74,7 +87,7 @@ async def _serve(args: argparse.Namespace) -> int:
             loop.add_signal_handler(sig, stop.set)
     await bench.start()
     try:
-        _print_endpoints(bench, args.profile)
+        _print_endpoints(bench, args.profile, built)
         await stop.wait()
     finally:
         await bench.stop()
