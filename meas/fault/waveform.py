@@ -10,7 +10,7 @@ predicts; with no load before the fault it is the recorded current itself.
   current just before it; the trigger time of the file is not trusted;
 - U_pre: rms of the last full cycle before inception (line to line = sqrt(3) times the mean
   phase value);
-- peak per phase: the largest sampled |i|, with the bound of the sampling rate: the worst
+- peak per phase: the largest sampled |i| of the fault component (the recorded one too), with the bound of the sampling rate: the worst
   loss over every sampling phase, evaluated on the fitted waveform;
 - steady Ik: a one-cycle DFT of the last whole cycle of the fault, checked to start >= 5 tau
   after inception;
@@ -47,7 +47,8 @@ class PhaseAnalysis:
     r_x_u: float
     alpha_deg: float  # voltage angle (sine convention) at inception
     alpha_source: str  # "voltage" or "fit"
-    peak_a: float  # largest sampled |i| of the recorded current
+    peak_a: float  # largest sampled |i| of the fault component
+    peak_recorded_a: float  # largest sampled |i| of the recorded current (with any load current)
     peak_fit_a: float  # continuous peak of the fitted fault current
     peak_sampling_bound_a: float  # worst loss of the sampled peak for this sampling rate
     fit_rms_a: float  # rms residual of the fit
@@ -193,7 +194,7 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
     for k, name in enumerate(rec.current_names):
         if k not in fits:
             nan = math.nan
-            out.append(PhaseAnalysis(name, False, nan, nan, nan, nan, False, nan, nan, nan, nan, nan, "none", nan, nan, nan, nan))
+            out.append(PhaseAnalysis(name, False, nan, nan, nan, nan, False, nan, nan, nan, nan, nan, "none", nan, nan, nan, nan, nan))
             continue
         p, u, rms_fit, t0, ik_dft = fits[k]
         a, th, _, tau = p
@@ -222,7 +223,8 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
                 r_x_u=r_x * float(u[3]) / tau,
                 alpha_deg=(alpha + 180.0) % 360.0 - 180.0,
                 alpha_source=src,
-                peak_a=float(np.abs(rec.currents[k, i_det:i_end]).max()),
+                peak_a=float(np.abs(fc[k, i_det:i_end]).max()),
+                peak_recorded_a=float(np.abs(rec.currents[k, i_det:i_end]).max()),
                 peak_fit_a=cont,
                 peak_sampling_bound_a=loss,
                 fit_rms_a=rms_fit,

@@ -94,9 +94,14 @@ def short_circuit(
     tk_s: float = 1.0,
     scale: Literal["bench", "network"] = "bench",
     kt_exempt: frozenset[str] = frozenset(),
+    apply_kt: bool | None = None,
 ) -> ShortCircuit:
-    """I"k, ip, Ib, Ik, Ith, R/X and Zk for one fault; ``c`` overrides the table's factor
-    (e.g. c = U_pre/Un to compare like for like with a record; K_T keeps the table's cmax)."""
+    """I"k, ip, Ib, Ik, Ith, R/X and Zk for one fault.
+
+    ``c`` overrides the table's factor (c = U_pre/Un compares like for like with a record);
+    ``apply_kt`` overrides whether K_T applies (by default: in the max case only); a
+    like-for-like comparison uses the physical impedance, so it passes False.
+    """
     if fault not in FAULTS:
         raise BenchwalkError(f"fault must be one of {', '.join(FAULTS)}, got {fault!r}")
     try:
@@ -107,7 +112,8 @@ def short_circuit(
         ) from None
     cmax, cmin = voltage_factors(zone.network_v_ll, lv_tol_pct)
     c_used = c if c is not None else (cmax if case == "max" else cmin)
-    kt_cmax = cmax if case == "max" else None
+    use_kt = case == "max" if apply_kt is None else apply_kt
+    kt_cmax = cmax if use_kt else None
     th = thevenin(profile, bus, switch_states, kt_cmax=kt_cmax, kt_exempt=kt_exempt)
     f = profile.bench.frequency_hz
     rx = th.z1.real / th.z1.imag
