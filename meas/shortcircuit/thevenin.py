@@ -32,8 +32,8 @@ class Thevenin:
     """The short-circuit impedances seen at one bus, bench-side ohms."""
 
     bus: str
-    z_abc: np.ndarray  # (3, 3) phase matrix
-    z0: complex
+    z_abc: np.ndarray  # (3, 3) phase matrix (pseudo-inverse when the zero sequence is blocked)
+    z0: complex  # inf + inf j when no zero-sequence path reaches the bus
     z1: complex
     z2: complex
     meshed: bool  # more than one path from the bus to a source
@@ -133,18 +133,26 @@ def thevenin(
     i = nod.idx[bus]
     if nod.slack[i]:
         raise BenchwalkError(f"{profile.path}: bus {bus!r} is held by an ideal source (sc_va = inf); its short-circuit current is unbounded")
-    z_all = np.linalg.inv(nod.y[np.ix_(keep, keep)])
-    pos = {int(n): k for k, n in enumerate(keep)}
-    rows = [pos[i], pos[i + 1], pos[i + 2]]
-    z_abc = z_all[np.ix_(rows, rows)]
-    z012 = to_sequence_matrix(z_abc)
+    # Kron-reduce every other node (pinv: a zero-sequence island behind a delta or a floating
+    # star is singular in Y; its null space is the blocked zero sequence, which pinv leaves out)
+    b_rows = [i, i + 1, i + 2]
+    others = [int(n) for n in keep if n not in b_rows]
+    y = nod.y
+    y_th = y[np.ix_(b_rows, b_rows)]
+    if others:
+        y_th = y_th - y[np.ix_(b_rows, others)] @ np.linalg.pinv(y[np.ix_(others, others)]) @ y[np.ix_(others, b_rows)]
+    y012 = to_sequence_matrix(y_th)
+    ys = [complex(y012[k, k]) for k in range(3)]
+    scale = max(abs(v) for v in ys)
+    z0, z1, z2 = (1 / v if abs(v) > 1e-9 * scale else complex(math.inf, math.inf) for v in ys)
+    z_abc = np.linalg.pinv(y_th)
     r_x_small = all(_branch_rx(br.model) < 0.3 for br in branches if br.model is not None and br.kind in ("line", "transformer", "source"))
     return Thevenin(
         bus=bus,
         z_abc=z_abc,
-        z0=complex(z012[0, 0]),
-        z1=complex(z012[1, 1]),
-        z2=complex(z012[2, 2]),
+        z0=z0,
+        z1=z1,
+        z2=z2,
         meshed=_meshed(net, bus),
         all_branches_below_0_3=r_x_small,
         kt=kts,
