@@ -59,11 +59,16 @@ class Analysis:
     phases: tuple[PhaseAnalysis, ...]
     inception_s: float
     u_pre_ll_v: float | None  # None when the record has no voltages
+    u_pre_phase_v: tuple[float, ...]  # rms of each voltage channel over the same cycle
     fault_end_s: float
     fs_hz: float
     frequency_hz: float
     t: np.ndarray
     fault_component: np.ndarray  # (phases, samples)
+
+    @property
+    def current_names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.phases)
 
     @property
     def faulted(self) -> tuple[PhaseAnalysis, ...]:
@@ -184,12 +189,14 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
         fits[int(k)] = (p, u, rms_fit, _inception(p, w, t_det, f), abs(dft))
     t0_min = min(v[3] for v in fits.values())
     u_pre = None
+    u_phase: tuple[float, ...] = ()
     v_phasors: list[complex] = []
     i_pre_end = int(np.searchsorted(t, t0_min - 0.5 / fs))  # samples strictly before inception
     if rec.voltages is not None and i_pre_end - n_cyc >= 0:
         win = slice(i_pre_end - n_cyc, i_pre_end)
         v_phasors = [_fundamental(t[win], v[win], f) for v in rec.voltages]
-        u_pre = math.sqrt(3) * float(np.mean([math.sqrt(np.mean(v[win] ** 2)) for v in rec.voltages]))
+        u_phase = tuple(math.sqrt(float(np.mean(v[win] ** 2))) for v in rec.voltages)
+        u_pre = math.sqrt(3) * float(np.mean(u_phase))
     out: list[PhaseAnalysis] = []
     for k, name in enumerate(rec.current_names):
         if k not in fits:
@@ -234,6 +241,7 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
         phases=tuple(out),
         inception_s=t0_min,
         u_pre_ll_v=u_pre,
+        u_pre_phase_v=u_phase,
         fault_end_s=float(t[i_end - 1]),
         fs_hz=fs,
         frequency_hz=f,
