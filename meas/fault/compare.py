@@ -1,7 +1,8 @@
 """Measured against predicted: the figures of a staged fault and the pass rule.
 
 Prediction (``meas.shortcircuit``) at the faulted bus of the (calibrated) profile:
-- like for like: I"k with c = U_pre/Un from the record's pre-fault voltage and the physical
+- like for like: I"k with c = U_pre/Un from the record's pre-fault voltage (the faulted
+  phase's for 1ph, the faulted pair's for 2ph) and the physical
   impedance (no K_T), its R/X and |Zk|, and the exact RL peak at each phase's measured
   inception angle;
 - the IEC figures: I"k at cmin and cmax (the band) and ip by kappa at c = U_pre/Un and cmax.
@@ -83,6 +84,21 @@ class Comparison:
         return "fail" if "fail" in v else ("unverified" if "unverified" in v else "pass")
 
 
+def _driving_voltage(analysis: Analysis, fault: FaultKind) -> float:
+    """The pre-fault voltage that drives the fault, line to line: the mean of the three phases
+    (3ph), sqrt3 times the faulted phase's (1ph), the faulted pair's difference (2ph)."""
+    assert analysis.u_pre_ll_v is not None
+    idx = [analysis.current_names.index(p.name) for p in analysis.faulted]
+    v = analysis.v_pre_phasors
+    if len(v) != len(analysis.phases) or fault == "3ph":
+        return analysis.u_pre_ll_v
+    if fault == "1ph" and len(idx) == 1:
+        return math.sqrt(3) * abs(v[idx[0]])
+    if fault == "2ph" and len(idx) == 2:
+        return abs(v[idx[0]] - v[idx[1]])
+    return analysis.u_pre_ll_v
+
+
 def _zk_measured(u_pre: float, ik: float, fault: FaultKind) -> float:
     return u_pre / (2.0 * ik) if fault == "2ph" else u_pre / (math.sqrt(3) * ik)
 
@@ -106,7 +122,7 @@ def compare(
     phases = analysis.faulted
     if analysis.u_pre_ll_v is None:
         raise BenchwalkError("the record has no voltage channels; U_pre (and so c = U_pre/Un) needs them (--voltages)")
-    u_pre = analysis.u_pre_ll_v
+    u_pre = _driving_voltage(analysis, fault)
     cov = covariance if covariance is not None else nameplate_covariance(profile)
     source = "calibration covariance" if covariance is not None else "nameplate tolerances of the profile (no calibration given)"
     model = calibrated_profile(profile, covariance) if covariance is not None else profile

@@ -1,10 +1,10 @@
 """A simulated staged fault: the record a disturbance recorder would write on the bench.
 
 From the (as-built) model: the pre-fault load flow for the switch state gives the fault bus's
-phase voltages and the current of the recorded branch; the Thevenin impedance at the bus
+phase voltages and the current of the recorded branch; the Thevenin impedances at the bus
 (``meas.shortcircuit.thevenin``: the model's series impedances, loads neglected as IEC 60909
-does) gives the RL transient of a bolted three-phase fault switched at a chosen angle of the
-phase-A voltage. The recorded current is the pre-fault current continued plus the fault
+does) give the RL transient of a bolted fault (3ph, 2ph B-C, or 1ph A-earth) switched at a
+chosen angle of the phase-A voltage. The recorded current is the pre-fault current continued plus the fault
 current (superposition); loads stay only in that pre-fault current. The fault-bus voltages
 collapse at inception. Gaussian noise and the file format's quantisation are the recorder's.
 This fakes a record only; nothing is ever staged on equipment.
@@ -24,6 +24,7 @@ from ..model import Profile, SourceParams
 from ..network.admittance import build_network
 from ..network.loadflow import solve
 from ..network.parameters import model_parameters, with_values
+from ..shortcircuit.iec60909 import FaultKind
 from ..shortcircuit.thevenin import thevenin
 from .comtrade_write import DataFormat, Revision, write_comtrade
 from .synth import as_record, fault_waves
@@ -34,10 +35,10 @@ class StagedFault:
     path: Path
     bus: str
     branch: str  # whose current is recorded
-    z_ohm: complex
+    z_ohm: complex  # the loop impedance per phase (Z1; (2 Z1 + Z0)/3 for 1ph)
     u_pre_ll_v: float
     alpha_deg: float  # phase-A voltage angle (sine convention) at inception
-    ik_a: float  # steady fault component, U_pre / (sqrt3 |Z|)
+    ik_a: float  # steady fault component: U_pre/(sqrt3 |Z|), U_pre/(2 |Z1|) for 2ph
 
 
 def as_built(profile: Profile, values: Mapping[str, float]) -> Profile:
@@ -66,8 +67,9 @@ def stage_fault(
     cff: bool = False,
     ct: tuple[float, float] | None = None,
     vt: tuple[float, float] | None = None,
+    kind: FaultKind = "3ph",
 ) -> StagedFault:
-    """Write the record of a bolted three-phase fault at ``bus`` and describe what was staged."""
+    """Write the record of a bolted fault at ``bus`` and describe what was staged."""
     states = dict(switch_states or {})
     net = build_network(profile, states)
     if bus not in net.energized or not net.energized[bus]:
@@ -84,10 +86,13 @@ def stage_fault(
     rot = np.exp(1j * (math.radians(alpha_deg) - math.pi / 2 - np.angle(v_bus[0])))
     samples = int(round(duration_s * fs_hz))
     u_pre = math.sqrt(3) * float(np.mean(np.abs(v_bus)))
-    ik = u_pre / (math.sqrt(3) * abs(th.z1))
+    z = (2 * th.z1 + th.z0) / 3 if kind == "1ph" else th.z1
+    if not math.isfinite(abs(z)):
+        raise BenchwalkError(f"{profile.path}: no zero-sequence path to {bus}; a line-to-earth fault there draws no current")
+    ik = u_pre / (2 * abs(z)) if kind == "2ph" else u_pre / (math.sqrt(3) * abs(z))
     waves = fault_waves(
         v_bus * rot,
-        th.z1,
+        z,
         f,
         fs_hz,
         samples,
@@ -96,6 +101,7 @@ def stage_fault(
         noise_i_a=noise_pct / 100 * ik * math.sqrt(2),
         noise_v_v=noise_pct / 100 * u_pre * math.sqrt(2 / 3),
         seed=seed,
+        kind=kind,
     )
     rec = as_record(waves, f, fs_hz, t_fault_s, ct=ct, vt=vt)
     path = write_comtrade(out_stem, rec, revision, data_format, cff=cff)

@@ -60,6 +60,7 @@ class Analysis:
     inception_s: float
     u_pre_ll_v: float | None  # None when the record has no voltages
     u_pre_phase_v: tuple[float, ...]  # rms of each voltage channel over the same cycle
+    v_pre_phasors: tuple[complex, ...]  # their fundamental rms phasors (cosine, record time 0)
     fault_end_s: float
     fs_hz: float
     frequency_hz: float
@@ -140,8 +141,13 @@ def _inception(p: np.ndarray, w: float, t_det: float, f: float) -> float:
     return float(grid[0])
 
 
-def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
-    """Analyse every current channel of a record of a bolted fault."""
+def analyse(rec: Record, min_fault_fraction: float = 0.1, voltage_angle: bool = True) -> Analysis:
+    """Analyse every current channel of a record of a bolted fault.
+
+    ``voltage_angle`` takes each phase's inception angle from its own pre-fault voltage (3ph,
+    1ph); a line-to-line fault is driven by the loop voltage, so pass False to take it from
+    the fit instead.
+    """
     f, fs, t = rec.frequency_hz, rec.fs_hz, rec.t
     w = 2 * math.pi * f
     n_cyc = int(round(fs / f))
@@ -207,7 +213,7 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
         a, th, _, tau = p
         r_x = 1.0 / (w * tau)
         phi = math.atan2(1.0, r_x)
-        if v_phasors:
+        if v_phasors and voltage_angle:
             vph = v_phasors[k] if k < len(v_phasors) else v_phasors[0]
             alpha = math.degrees(w * t0 + math.atan2(vph.imag, vph.real) + math.pi / 2)
             src = "voltage"
@@ -242,6 +248,7 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1) -> Analysis:
         inception_s=t0_min,
         u_pre_ll_v=u_pre,
         u_pre_phase_v=u_phase,
+        v_pre_phasors=tuple(v_phasors),
         fault_end_s=float(t[i_end - 1]),
         fs_hz=fs,
         frequency_hz=f,

@@ -100,3 +100,24 @@ def test_predict_command(capsys: pytest.CaptureFixture[str]) -> None:
     assert line.split()[1:4] == ["1.10", "362.96", "634.87"]  # CALIBRATION_NOTES §6.7, in A
     assert main(["fault", "predict", str(DEMO), "--scale", "network", "--case", "min", "--kappa", "B", "--switch", "TIE=closed"]) == 0
     assert math.isfinite(float(next(ln for ln in capsys.readouterr().out.splitlines() if ln.startswith("B3")).split()[2]))
+
+
+@pytest.mark.parametrize("kind", ["2ph", "1ph"])
+def test_line_to_line_and_earth_faults(tmp_path: Path, kind: str) -> None:
+    # I"k2 = c Un/|2 Z1|, I"k1 = sqrt3 c Un/|2 Z1 + Z0| with c = U_pre/Un (IEC 60909-0 §8.2, §8.3)
+    sf = stage_fault(PROFILE, "B3", tmp_path / kind, alpha_deg=10.0, kind=kind)  # type: ignore[arg-type]
+    a = analyse(read_record(sf.path), voltage_angle=kind != "2ph")
+    assert [p.name for p in a.faulted] == (["IB", "IC"] if kind == "2ph" else ["IA"])
+    comp = compare(a, PROFILE, "B3", fault=kind)  # type: ignore[arg-type]
+    figs = {f.key: f for f in comp.figures}
+    assert comp.verdict == "pass", [(f.key, f.deviation_pct) for f in comp.figures]
+    assert abs(figs["ikss"].deviation_pct) < 0.1 and abs(figs["zk"].deviation_pct) < 0.1
+    assert abs(figs["peak"].deviation_pct) < 0.2
+
+
+def test_fit_angle_agrees_with_the_voltage_angle(tmp_path: Path) -> None:
+    sf = stage_fault(PROFILE, "B2", tmp_path / "s", alpha_deg=-35.0, noise_pct=0.0)
+    rec = read_record(sf.path)
+    by_v = [p.alpha_deg for p in analyse(rec).phases]
+    by_fit = [p.alpha_deg for p in analyse(rec, voltage_angle=False).phases]
+    assert by_fit == pytest.approx(by_v, abs=0.05) and by_v[0] == pytest.approx(-35.0, abs=0.05)

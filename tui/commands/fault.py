@@ -90,6 +90,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     sm.add_argument("--vt", help="write secondary voltages with this VT ratio, e.g. 400/100")
     sm.add_argument("--set", action="append", default=[], metavar="BRANCH.key=VALUE", help="as-built parameter differing from the profile (repeatable)")
     sm.add_argument("--switch", action="append", default=[], metavar="ID=open|closed")
+    sm.add_argument("--fault", choices=("3ph", "2ph", "1ph"), default="3ph", help="3ph, 2ph (B-C) or 1ph (A-earth)")
 
 
 def _predict(args: argparse.Namespace) -> int:
@@ -145,7 +146,7 @@ def _check(args: argparse.Namespace) -> int:
     profile = load_profile(args.profile)
     cov = read_covariance(args.covariance) if args.covariance else None
     record = read_record(args.record, _names(args.currents), _names(args.voltages), as_recorded=args.as_recorded)
-    analysis = analyse(record)
+    analysis = analyse(record, voltage_angle=args.fault != "2ph")
     comp = compare(analysis, profile, args.bus, fault=args.fault, scale=args.scale, switch_states=_pairs(args.switch, "--switch"), covariance=cov, rec_class_pct=args.rec_class, kappa_method=args.kappa, lv_tol_pct=args.lv_tol)
     out = args.out or args.record.with_name(args.record.stem + "-fault")
     paths = write_outputs(out, record, analysis, comp, profile.path)
@@ -175,8 +176,8 @@ def _simulate(args: argparse.Namespace) -> int:
             raise BenchwalkError(f"--set {k}={v}: the value must be a number") from None
     built = as_built(profile, values) if values else profile
     rev, fmt = _FORMATS[args.format]
-    sf = stage_fault(built, args.bus, args.out, switch_states=_pairs(args.switch, "--switch"), alpha_deg=args.angle, fs_hz=args.fs, duration_s=args.duration, t_fault_s=args.at, noise_pct=args.noise, seed=args.seed, revision=rev, data_format=fmt, cff=args.cff, ct=_ratio(args.ct), vt=_ratio(args.vt))  # type: ignore[arg-type]
-    print(f"SIMULATION: wrote {sf.path} (COMTRADE {rev} {fmt}): bolted 3ph fault at {sf.bus}, current of {sf.branch}, inception at {args.angle:g} deg of V_A")
+    sf = stage_fault(built, args.bus, args.out, switch_states=_pairs(args.switch, "--switch"), alpha_deg=args.angle, fs_hz=args.fs, duration_s=args.duration, t_fault_s=args.at, noise_pct=args.noise, seed=args.seed, revision=rev, data_format=fmt, cff=args.cff, ct=_ratio(args.ct), vt=_ratio(args.vt), kind=args.fault)  # type: ignore[arg-type]
+    print(f"SIMULATION: wrote {sf.path} (COMTRADE {rev} {fmt}): bolted {args.fault} fault at {sf.bus}, current of {sf.branch}, inception at {args.angle:g} deg of V_A")
     print(f"  model: Zk {sf.z_ohm.real:.6g} + j{sf.z_ohm.imag:.6g} ohm, U_pre {sf.u_pre_ll_v:.6g} V, Ik {sf.ik_a:.6g} A" + (f"; as built: {', '.join(f'{k}={v:g}' for k, v in values.items())}" if values else ""))
     return 0
 
