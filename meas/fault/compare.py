@@ -24,9 +24,20 @@ from typing import Literal
 import numpy as np
 
 from ..model import Profile
-from ..shortcircuit.iec60909 import FaultKind, KappaMethod, ShortCircuit, short_circuit, to_network_scale
+from ..shortcircuit.iec60909 import (
+    FaultKind,
+    KappaMethod,
+    ShortCircuit,
+    short_circuit,
+    to_network_scale,
+)
 from ..shortcircuit.rl import peak_factor
-from ..shortcircuit.uncertainty import Covariance, calibrated_profile, nameplate_covariance, propagate
+from ..shortcircuit.uncertainty import (
+    Covariance,
+    calibrated_profile,
+    nameplate_covariance,
+    propagate,
+)
 from .waveform import Analysis
 
 COVERAGE_K = 2.0  # expansion factor, ~95 % (JCGM 100:2008 §6.2.1)
@@ -121,12 +132,20 @@ def compare(
 
     phases = analysis.faulted
     if analysis.u_pre_ll_v is None:
-        raise BenchwalkError("the record has no voltage channels; U_pre (and so c = U_pre/Un) needs them (--voltages)")
+        raise BenchwalkError(
+            "the record has no voltage channels; U_pre (and so c = U_pre/Un) needs them (--voltages)"
+        )
     u_pre = _driving_voltage(analysis, fault)
     cov = covariance if covariance is not None else nameplate_covariance(profile)
-    source = "calibration covariance" if covariance is not None else "nameplate tolerances of the profile (no calibration given)"
+    source = (
+        "calibration covariance"
+        if covariance is not None
+        else "nameplate tolerances of the profile (no calibration given)"
+    )
     model = calibrated_profile(profile, covariance) if covariance is not None else profile
-    kw = dict(switch_states=switch_states, kappa_method=kappa_method, lv_tol_pct=lv_tol_pct, scale=scale)
+    kw = dict(
+        switch_states=switch_states, kappa_method=kappa_method, lv_tol_pct=lv_tol_pct, scale=scale
+    )
     probe = short_circuit(model, bus, fault, "max", **kw)  # type: ignore[arg-type]
     un = probe.un_v
     c_like = u_pre / un
@@ -134,7 +153,11 @@ def compare(
     # like for like per phase: the phase's own pre-fault voltage drives its fault current
     k_pk = analysis.current_names.index(pk_ph.name)
     u_ph = analysis.u_pre_phase_v
-    v_share = u_ph[k_pk] / (sum(u_ph) / len(u_ph)) if fault == "3ph" and len(u_ph) == len(analysis.phases) else 1.0
+    v_share = (
+        u_ph[k_pk] / (sum(u_ph) / len(u_ph))
+        if fault == "3ph" and len(u_ph) == len(analysis.phases)
+        else 1.0
+    )
 
     def peak_of(sc: ShortCircuit, alpha_deg: float, share: float) -> float:
         rx = sc.zk_ohm.real / sc.zk_ohm.imag
@@ -154,7 +177,14 @@ def compare(
     u_rel = rec_class_pct / 100.0 / math.sqrt(3)
     for key in ("ikss", "peak", "ip"):  # the prediction scales with the measured U_pre
         u_p[key] = math.hypot(u_p[key], pred[key] * u_rel)
-    shares = {p.name: (u_ph[analysis.current_names.index(p.name)] / (sum(u_ph) / len(u_ph)) if fault == "3ph" and len(u_ph) == len(analysis.phases) else 1.0) for p in phases}
+    shares = {
+        p.name: (
+            u_ph[analysis.current_names.index(p.name)] / (sum(u_ph) / len(u_ph))
+            if fault == "3ph" and len(u_ph) == len(analysis.phases)
+            else 1.0
+        )
+        for p in phases
+    }
     by_phase = {p.name: peak_of(like, p.alpha_deg, shares[p.name]) for p in phases}
 
     ik_fit = float(np.mean([p.ik_fit_a for p in phases]))
@@ -166,14 +196,72 @@ def compare(
     zk_m = _zk_measured(u_pre, ik_dft, fault)
     pk_m = pk_ph.peak_a + pk_ph.peak_sampling_bound_a / 2
     pk_u = math.hypot(pk_m * u_rel, pk_ph.peak_sampling_bound_a / (2 * math.sqrt(3)))
-    late = "" if all(p.dft_after_5tau for p in phases) else "; the last cycle starts before 5 tau: DC not fully decayed"
+    late = (
+        ""
+        if all(p.dft_after_5tau for p in phases)
+        else "; the last cycle starts before 5 tau: DC not fully decayed"
+    )
     figures = (
-        Figure("ikss", 'I"k', "A", ik_fit, ik_fit_u, pred["ikss"], u_p["ikss"], "AC amplitude of the fit / sqrt 2; predicted with c = U_pre/Un"),
-        Figure("ik", "Ik", "A", ik_dft, math.hypot(ik_dft * u_rel, fit_u), pred["ikss"], u_p["ikss"], "one-cycle DFT of the last fault cycle; far from generators Ik = I\"k" + late),
-        Figure("peak", "peak (exact at the measured angle)", "A", pk_m, pk_u, pred["peak"], u_p["peak"], f"sampled peak {pk_ph.peak_a:.4g} A + half its sampling bound {pk_ph.peak_sampling_bound_a:.3g} A; predicted: RL peak of phase {pk_ph.name} at its measured inception angle and pre-fault voltage"),
-        Figure("ip", "peak against IEC ip", "A", pk_m, pk_u, pred["ip"], u_p["ip"], f"ip = kappa sqrt2 I\"k at c = U_pre/Un (kappa {like.kappa:.4f}, {like.kappa_method}); cmax gives {iec_max.ip_a:.4g} A"),
-        Figure("r_x", "R/X", "", rx_m, rx_u, pred["rx"], u_p["rx"], "from tau of the fit: R/X = 1/(w tau)"),
-        Figure("zk", "|Zk|", "ohm", zk_m, zk_m * math.sqrt(2) * u_rel, pred["zk"], u_p["zk"], "U_pre / (sqrt3 Ik)" if fault != "2ph" else "U_pre / (2 Ik)"),
+        Figure(
+            "ikss",
+            'I"k',
+            "A",
+            ik_fit,
+            ik_fit_u,
+            pred["ikss"],
+            u_p["ikss"],
+            "AC amplitude of the fit / sqrt 2; predicted with c = U_pre/Un",
+        ),
+        Figure(
+            "ik",
+            "Ik",
+            "A",
+            ik_dft,
+            math.hypot(ik_dft * u_rel, fit_u),
+            pred["ikss"],
+            u_p["ikss"],
+            'one-cycle DFT of the last fault cycle; far from generators Ik = I"k' + late,
+        ),
+        Figure(
+            "peak",
+            "peak (exact at the measured angle)",
+            "A",
+            pk_m,
+            pk_u,
+            pred["peak"],
+            u_p["peak"],
+            f"sampled peak {pk_ph.peak_a:.4g} A + half its sampling bound {pk_ph.peak_sampling_bound_a:.3g} A; predicted: RL peak of phase {pk_ph.name} at its measured inception angle and pre-fault voltage",
+        ),
+        Figure(
+            "ip",
+            "peak against IEC ip",
+            "A",
+            pk_m,
+            pk_u,
+            pred["ip"],
+            u_p["ip"],
+            f'ip = kappa sqrt2 I"k at c = U_pre/Un (kappa {like.kappa:.4f}, {like.kappa_method}); cmax gives {iec_max.ip_a:.4g} A',
+        ),
+        Figure(
+            "r_x",
+            "R/X",
+            "",
+            rx_m,
+            rx_u,
+            pred["rx"],
+            u_p["rx"],
+            "from tau of the fit: R/X = 1/(w tau)",
+        ),
+        Figure(
+            "zk",
+            "|Zk|",
+            "ohm",
+            zk_m,
+            zk_m * math.sqrt(2) * u_rel,
+            pred["zk"],
+            u_p["zk"],
+            "U_pre / (sqrt3 Ik)" if fault != "2ph" else "U_pre / (2 Ik)",
+        ),
     )
     return Comparison(
         bus=bus,

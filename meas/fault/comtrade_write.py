@@ -87,7 +87,9 @@ def _stamp(t: dt.datetime) -> str:
     return t.strftime("%d/%m/%Y,%H:%M:%S.%f")
 
 
-def cfg_text(rec: RecordData, rev: Revision, fmt: DataFormat, scales: list[tuple[float, float]]) -> str:
+def cfg_text(
+    rec: RecordData, rev: Revision, fmt: DataFormat, scales: list[tuple[float, float]]
+) -> str:
     na, ns = len(rec.analogs), len(rec.statuses)
     lines = [f"{rec.station},{rec.device},{rev}", f"{na + ns},{na}A,{ns}D"]
     for k, (a_sig, (a, b)) in enumerate(zip(rec.analogs, scales, strict=True), start=1):
@@ -155,7 +157,9 @@ def dat_bytes(rec: RecordData, fmt: DataFormat) -> tuple[bytes, list[tuple[float
     return rows.tobytes(), scales
 
 
-def write_comtrade(stem: Path, rec: RecordData, rev: Revision, fmt: DataFormat, *, cff: bool = False) -> Path:
+def write_comtrade(
+    stem: Path, rec: RecordData, rev: Revision, fmt: DataFormat, *, cff: bool = False
+) -> Path:
     """Write ``stem.cfg`` + ``stem.dat`` (or ``stem.cff``); returns the path to load."""
     if cff and rev != "2013":
         raise ValueError("a .cff file is a 2013 format")

@@ -44,9 +44,15 @@ def read_covariance(path: str | Path) -> Covariance:
     except BenchwalkError:
         raise
     except (KeyError, ValueError, TypeError, json.JSONDecodeError) as exc:
-        raise BenchwalkError(f"{p}: not a covariance table ({type(exc).__name__}: {exc}); see docs/fault-validation.md") from None
+        raise BenchwalkError(
+            f"{p}: not a covariance table ({type(exc).__name__}: {exc}); see docs/fault-validation.md"
+        ) from None
     if matrix.shape != (len(names), len(names)) or len(values) != len(names):
-        raise BenchwalkError(f"{p}: {len(names)} parameters but {len(values)} values and a {matrix.shape} covariance")
-    if not np.allclose(matrix, matrix.T) or np.linalg.eigvalsh(matrix).min() < -1e-12 * max(1.0, float(np.abs(matrix).max())):
+        raise BenchwalkError(
+            f"{p}: {len(names)} parameters but {len(values)} values and a {matrix.shape} covariance"
+        )
+    if not np.allclose(matrix, matrix.T) or np.linalg.eigvalsh(matrix).min() < -1e-12 * max(
+        1.0, float(np.abs(matrix).max())
+    ):
         raise BenchwalkError(f"{p}: the covariance is not symmetric positive semi-definite")
     return Covariance(tuple(names), tuple(values), matrix)

@@ -43,7 +43,9 @@ def _sc(sc: ShortCircuit) -> dict[str, Any]:
     return {k: (_num(v) if isinstance(v, float) else v) for k, v in d.items()}
 
 
-def summary(record: Record, analysis: Analysis, comp: Comparison, profile_path: str) -> dict[str, Any]:
+def summary(
+    record: Record, analysis: Analysis, comp: Comparison, profile_path: str
+) -> dict[str, Any]:
     return {
         "version": SUMMARY_VERSION,
         "caution": STAGED_FAULT_CAUTION,
@@ -54,7 +56,10 @@ def summary(record: Record, analysis: Analysis, comp: Comparison, profile_path: 
             "fs_hz": record.fs_hz,
             "frequency_hz": record.frequency_hz,
             "values": record.values,
-            "channels": {"currents": list(record.current_names), "voltages": list(record.voltage_names)},
+            "channels": {
+                "currents": list(record.current_names),
+                "voltages": list(record.voltage_names),
+            },
             "notes": list(record.notes),
         },
         "analysis": {
@@ -106,7 +111,24 @@ def phases_csv(analysis: Analysis, comp: Comparison) -> str:
             [p.name, p.faulted]
             + [f"{v:.9g}" for v in (p.inception_s * 1e3, p.alpha_deg)]
             + [p.alpha_source]
-            + [f"{v:.9g}" for v in (p.ik_fit_a, p.ik_fit_u_a, p.ik_dft_a, p.tau_s * 1e3, p.tau_u_s * 1e3, p.r_x, p.r_x_u, p.peak_a, p.peak_recorded_a, p.peak_sampling_bound_a, p.peak_fit_a, pred, p.fit_rms_a)]
+            + [
+                f"{v:.9g}"
+                for v in (
+                    p.ik_fit_a,
+                    p.ik_fit_u_a,
+                    p.ik_dft_a,
+                    p.tau_s * 1e3,
+                    p.tau_u_s * 1e3,
+                    p.r_x,
+                    p.r_x_u,
+                    p.peak_a,
+                    p.peak_recorded_a,
+                    p.peak_sampling_bound_a,
+                    p.peak_fit_a,
+                    pred,
+                    p.fit_rms_a,
+                )
+            ]
         )
     return buf.getvalue()
 
@@ -117,12 +139,22 @@ def _atomic(path: Path, text: str) -> None:
     os.replace(tmp, path)
 
 
-def write_outputs(out: Path, record: Record, analysis: Analysis, comp: Comparison, profile_path: str) -> dict[str, Path]:
+def write_outputs(
+    out: Path, record: Record, analysis: Analysis, comp: Comparison, profile_path: str
+) -> dict[str, Path]:
     """Write the three files into ``out`` and return their paths."""
     out.mkdir(parents=True, exist_ok=True)
-    paths = {"summary": out / "summary.json", "phases": out / "phases.csv", "waveform": out / "waveform.svg"}
-    _atomic(paths["summary"], json.dumps(summary(record, analysis, comp, profile_path), indent=2) + "\n")
+    paths = {
+        "summary": out / "summary.json",
+        "phases": out / "phases.csv",
+        "waveform": out / "waveform.svg",
+    }
+    _atomic(
+        paths["summary"], json.dumps(summary(record, analysis, comp, profile_path), indent=2) + "\n"
+    )
     _atomic(paths["phases"], phases_csv(analysis, comp))
-    title = f"{Path(record.path).name}: fault at {comp.bus} ({comp.fault}), measured against predicted"
+    title = (
+        f"{Path(record.path).name}: fault at {comp.bus} ({comp.fault}), measured against predicted"
+    )
     _atomic(paths["waveform"], waveform_svg(analysis, comp, title))
     return paths

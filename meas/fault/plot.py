@@ -50,24 +50,43 @@ def waveform_svg(analysis: Analysis, comparison: Comparison, title: str) -> str:
         f'<line x1="{x(t0):.1f}" y1="{_PAD / 2}" x2="{x(t0):.1f}" y2="{_H - _PAD / 2}" stroke="#999" stroke-dasharray="4 3"/>',
         f'<text x="{x(t0) + 4:.1f}" y="{_H - _PAD / 2 - 4}" fill="#555">inception {t0 * 1e3:.3f} ms</text>',
     ]
-    w = 2 * math.pi * f
     for k, ph in enumerate(analysis.phases):
         if not ph.faulted:
             continue
         c = _COLOURS[k % 3]
-        parts.append(f'<path d="{_path(x(tt), y(analysis.fault_component[k][sel][::step]))}" fill="none" stroke="{c}" stroke-width="1.2"/>')
+        parts.append(
+            f'<path d="{_path(x(tt), y(analysis.fault_component[k][sel][::step]))}" fill="none" stroke="{c}" stroke-width="1.2"/>'
+        )
         te = tt[tt >= ph.inception_s]
         phi = math.atan2(1.0, ph.r_x)
-        dc = -math.sqrt(2) * ph.ik_fit_a * math.sin(math.radians(ph.alpha_deg) - phi) * np.exp(-(te - ph.inception_s) / ph.tau_s)
+        dc = (
+            -math.sqrt(2)
+            * ph.ik_fit_a
+            * math.sin(math.radians(ph.alpha_deg) - phi)
+            * np.exp(-(te - ph.inception_s) / ph.tau_s)
+        )
         amp = math.sqrt(2) * ph.ik_fit_a
         for sign in (1.0, -1.0):
-            parts.append(f'<path d="{_path(x(te), y(dc + sign * amp))}" fill="none" stroke="{c}" stroke-width="0.8" stroke-dasharray="5 3"/>')
-        parts.append(f'<text x="{_W - _PAD + 4}" y="{40 + 16 * k}" fill="{c}">{escape(ph.name)}</text>')
-    for val, label, colour in ((pk_pred, "predicted peak (exact RL at the measured angle)", "#000"), (ip, "IEC ip at c = U_pre/Un", "#777")):
+            parts.append(
+                f'<path d="{_path(x(te), y(dc + sign * amp))}" fill="none" stroke="{c}" stroke-width="0.8" stroke-dasharray="5 3"/>'
+            )
+        parts.append(
+            f'<text x="{_W - _PAD + 4}" y="{40 + 16 * k}" fill="{c}">{escape(ph.name)}</text>'
+        )
+    for val, label, colour in (
+        (pk_pred, "predicted peak (exact RL at the measured angle)", "#000"),
+        (ip, "IEC ip at c = U_pre/Un", "#777"),
+    ):
         if math.isfinite(val):
             for sign in (1.0, -1.0):
-                parts.append(f'<line x1="{_PAD}" y1="{float(y(sign * val)):.1f}" x2="{_W - _PAD}" y2="{float(y(sign * val)):.1f}" stroke="{colour}" stroke-width="0.8"/>')
-            parts.append(f'<text x="{_PAD + 4}" y="{float(y(val)) - 4:.1f}" fill="{colour}">{escape(label)}: {val:.4g} A</text>')
-    parts.append(f'<text x="{_PAD}" y="{_H - 8}" fill="#555">time {lo * 1e3:.1f} to {hi * 1e3:.1f} ms; solid: recorded fault current; dashed: fitted envelope; current axis \u00b1{ymax:.4g} A</text>')
+                parts.append(
+                    f'<line x1="{_PAD}" y1="{float(y(sign * val)):.1f}" x2="{_W - _PAD}" y2="{float(y(sign * val)):.1f}" stroke="{colour}" stroke-width="0.8"/>'
+                )
+            parts.append(
+                f'<text x="{_PAD + 4}" y="{float(y(val)) - 4:.1f}" fill="{colour}">{escape(label)}: {val:.4g} A</text>'
+            )
+    parts.append(
+        f'<text x="{_PAD}" y="{_H - 8}" fill="#555">time {lo * 1e3:.1f} to {hi * 1e3:.1f} ms; solid: recorded fault current; dashed: fitted envelope; current axis \u00b1{ymax:.4g} A</text>'
+    )
     parts.append("</svg>")
     return "\n".join(parts) + "\n"

@@ -20,6 +20,7 @@ import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -54,24 +55,48 @@ def _fail(path: Path, message: str) -> BenchwalkError:
     return BenchwalkError(f"{path}: {message}")
 
 
-def _row_count_check(path: Path, fmt: str, n_analog: int, n_status: int, samples: int, data: bytes) -> None:
+def _row_count_check(
+    path: Path, fmt: str, n_analog: int, n_status: int, samples: int, data: bytes
+) -> None:
     fmt = fmt.upper()
     if fmt == "ASCII":
-        rows = [ln for ln in data.decode("ascii", errors="replace").splitlines() if ln.strip() and ln.strip() != "\x1a"]
+        rows = [
+            ln
+            for ln in data.decode("ascii", errors="replace").splitlines()
+            if ln.strip() and ln.strip() != "\x1a"
+        ]
         if len(rows) != samples:
-            raise _fail(path, f"the .cfg states {samples} samples but the data holds {len(rows)} rows; the .dat is truncated or the .cfg is wrong")
+            raise _fail(
+                path,
+                f"the .cfg states {samples} samples but the data holds {len(rows)} rows; the .dat is truncated or the .cfg is wrong",
+            )
         return
     if fmt not in _ROW_ANALOG_BYTES:
-        raise _fail(path, f"unknown data file type {fmt!r} in the .cfg (ASCII, BINARY, BINARY32 or FLOAT32)")
+        raise _fail(
+            path, f"unknown data file type {fmt!r} in the .cfg (ASCII, BINARY, BINARY32 or FLOAT32)"
+        )
     row = 8 + n_analog * _ROW_ANALOG_BYTES[fmt] + 2 * math.ceil(n_status / 16)
     data = data.rstrip(b"\x1a") if len(data) % row else data
     if len(data) % row:
-        raise _fail(path, f"the .dat ends inside a sample ({len(data)} bytes is not a whole number of {row}-byte rows); the file is truncated")
+        raise _fail(
+            path,
+            f"the .dat ends inside a sample ({len(data)} bytes is not a whole number of {row}-byte rows); the file is truncated",
+        )
     if len(data) // row != samples:
-        raise _fail(path, f"the .cfg states {samples} samples but the .dat holds {len(data) // row}; the .dat is truncated or the .cfg is wrong")
+        raise _fail(
+            path,
+            f"the .cfg states {samples} samples but the .dat holds {len(data) // row}; the .dat is truncated or the .cfg is wrong",
+        )
     numbers = np.frombuffer(data, dtype="<u4")[:: row // 4] if row % 4 == 0 else None
-    if numbers is not None and len(numbers) and not np.array_equal(numbers, np.arange(numbers[0], numbers[0] + len(numbers))):
-        raise _fail(path, "the sample numbers in the .dat are not consecutive; samples are missing or the file is damaged")
+    if (
+        numbers is not None
+        and len(numbers)
+        and not np.array_equal(numbers, np.arange(numbers[0], numbers[0] + len(numbers)))
+    ):
+        raise _fail(
+            path,
+            "the sample numbers in the .dat are not consecutive; samples are missing or the file is damaged",
+        )
 
 
 def _data_of(path: Path, cfg_ft: str) -> bytes:
@@ -83,15 +108,20 @@ def _data_of(path: Path, cfg_ft: str) -> bytes:
             raise _fail(path, "no '--- file type: DAT ... ---' section; not a complete .cff")
         data = blob[m.end() :]
         if m.group(2) is not None and len(data) != int(m.group(2)):
-            raise _fail(path, f"the DAT section states {int(m.group(2))} bytes but holds {len(data)}; the file is truncated")
+            raise _fail(
+                path,
+                f"the DAT section states {int(m.group(2))} bytes but holds {len(data)}; the file is truncated",
+            )
         return data
-    dat = next((path.with_suffix(s) for s in (".dat", ".DAT") if path.with_suffix(s).exists()), None)
+    dat = next(
+        (path.with_suffix(s) for s in (".dat", ".DAT") if path.with_suffix(s).exists()), None
+    )
     if dat is None:
         raise _fail(path, f"no data file {path.with_suffix('.dat').name} beside it")
     return dat.read_bytes()
 
 
-def _load(path: Path):  # type: ignore[no-untyped-def]
+def _load(path: Path) -> Any:
     import comtrade
 
     if not path.exists():
@@ -101,19 +131,42 @@ def _load(path: Path):  # type: ignore[no-untyped-def]
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            rec = comtrade.Comtrade(use_double_precision=True, use_numpy_arrays=True, ignore_warnings=True)
+            rec = comtrade.Comtrade(
+                use_double_precision=True, use_numpy_arrays=True, ignore_warnings=True
+            )
             if path.suffix.lower() == ".cfg":
                 cfg = comtrade.Cfg(ignore_warnings=True)
                 cfg.load(str(path))
-                _row_count_check(path, cfg.ft, cfg.analog_count, cfg.status_count, int(cfg.sample_rates[-1][1]), _data_of(path, cfg.ft))
+                _row_count_check(
+                    path,
+                    cfg.ft,
+                    cfg.analog_count,
+                    cfg.status_count,
+                    int(cfg.sample_rates[-1][1]),
+                    _data_of(path, cfg.ft),
+                )
             rec.load(str(path))
     except BenchwalkError:
         raise
-    except (ValueError, IndexError, KeyError, TypeError, UnicodeDecodeError, comtrade.ComtradeError) as exc:
+    except (
+        ValueError,
+        IndexError,
+        KeyError,
+        TypeError,
+        UnicodeDecodeError,
+        comtrade.ComtradeError,
+    ) as exc:
         raise _fail(path, f"not a readable COMTRADE record ({type(exc).__name__}: {exc})") from None
     if path.suffix.lower() == ".cff":
         cfg = rec.cfg
-        _row_count_check(path, cfg.ft, cfg.analog_count, cfg.status_count, int(cfg.sample_rates[-1][1]), _data_of(path, cfg.ft))
+        _row_count_check(
+            path,
+            cfg.ft,
+            cfg.analog_count,
+            cfg.status_count,
+            int(cfg.sample_rates[-1][1]),
+            _data_of(path, cfg.ft),
+        )
     return rec
 
 
@@ -141,13 +194,25 @@ def read_record(
         if names:
             for n in names:
                 if n not in ids:
-                    raise _fail(p, f"no analog channel {n!r} for the {what}; the record has {', '.join(ids)}")
+                    raise _fail(
+                        p,
+                        f"no analog channel {n!r} for the {what}; the record has {', '.join(ids)}",
+                    )
             picked = [ids.index(n) for n in names]
         else:
             picked = [
                 k
                 for ph in "ABC"
-                for k in [next((i for i, c in enumerate(chans) if c.uu.strip().lower() in units and c.ph.strip().upper().endswith(ph)), -1)]
+                for k in [
+                    next(
+                        (
+                            i
+                            for i, c in enumerate(chans)
+                            if c.uu.strip().lower() in units and c.ph.strip().upper().endswith(ph)
+                        ),
+                        -1,
+                    )
+                ]
                 if k >= 0
             ]
         for k in picked:
@@ -159,23 +224,36 @@ def read_record(
         c = chans[k]
         x = np.asarray(rec.analog[k], dtype=float) * units[c.uu.strip().lower()]
         if np.isnan(x).any():
-            raise _fail(p, f"channel {c.name.strip()!r} has {int(np.isnan(x).sum())} missing samples")
+            raise _fail(
+                p, f"channel {c.name.strip()!r} has {int(np.isnan(x).sum())} missing samples"
+            )
         flag = str(c.pors).strip().upper() or "P"
         if as_recorded:
-            notes.append(f"{c.name.strip()}: values taken as recorded ({'secondary' if flag == 'S' else 'primary'} per the file)")
+            notes.append(
+                f"{c.name.strip()}: values taken as recorded ({'secondary' if flag == 'S' else 'primary'} per the file)"
+            )
             return x
         if flag == "S":
             if not (c.primary > 0 and c.secondary > 0):
-                raise _fail(p, f"channel {c.name.strip()!r} is secondary but states no primary/secondary ratio")
+                raise _fail(
+                    p,
+                    f"channel {c.name.strip()!r} is secondary but states no primary/secondary ratio",
+                )
             ratio = c.primary / c.secondary
-            notes.append(f"{c.name.strip()}: file values are secondary; multiplied by {c.primary:g}/{c.secondary:g} = {ratio:g} to primary")
+            notes.append(
+                f"{c.name.strip()}: file values are secondary; multiplied by {c.primary:g}/{c.secondary:g} = {ratio:g} to primary"
+            )
             return x * ratio
-        notes.append(f"{c.name.strip()}: file values are primary (ratio {c.primary:g}/{c.secondary:g} not applied)")
+        notes.append(
+            f"{c.name.strip()}: file values are primary (ratio {c.primary:g}/{c.secondary:g} not applied)"
+        )
         return x
 
     ic = select(currents, _CURRENT_UNITS, "currents")
     if not ic:
-        raise _fail(p, "no current channels (unit A or kA, phases A, B, C); name them with --currents")
+        raise _fail(
+            p, "no current channels (unit A or kA, phases A, B, C); name them with --currents"
+        )
     iv = select(voltages, _VOLTAGE_UNITS, "voltages")
     cur = np.vstack([values(k, _CURRENT_UNITS) for k in ic])
     vol = np.vstack([values(k, _VOLTAGE_UNITS) for k in iv]) if iv else None

@@ -78,7 +78,9 @@ def stage_fault(
     th = thevenin(profile, bus, states)
     src = next((s for s in net.sources if s.y is not None), None)
     if src is None:
-        raise BenchwalkError(f"{profile.path}: no finite source; a fault current needs a source impedance")
+        raise BenchwalkError(
+            f"{profile.path}: no finite source; a fault current needs a source impedance"
+        )
     f = profile.bench.frequency_hz
     v_bus = np.asarray(sol.v[bus])
     i_pre = -np.asarray(sol.i_from[src.branch])  # delivered by the source into the network
@@ -88,7 +90,9 @@ def stage_fault(
     u_pre = math.sqrt(3) * float(np.mean(np.abs(v_bus)))
     z = (2 * th.z1 + th.z0) / 3 if kind == "1ph" else th.z1
     if not math.isfinite(abs(z)):
-        raise BenchwalkError(f"{profile.path}: no zero-sequence path to {bus}; a line-to-earth fault there draws no current")
+        raise BenchwalkError(
+            f"{profile.path}: no zero-sequence path to {bus}; a line-to-earth fault there draws no current"
+        )
     ik = u_pre / (2 * abs(z)) if kind == "2ph" else u_pre / (math.sqrt(3) * abs(z))
     waves = fault_waves(
         v_bus * rot,

@@ -64,18 +64,28 @@ def fault_waves(
     tr = t - t0_s
     r_x = z.real / z.imag
     v = np.asarray(v_pre, dtype=complex)
-    drive = {"3ph": [(k, v[k], z, 1.0) for k in range(3)], "1ph": [(0, v[0], z, 1.0)], "2ph": [(1, v[1] - v[2], 2 * z, 1.0), (2, v[1] - v[2], 2 * z, -1.0)]}[kind]
+    drive = {
+        "3ph": [(k, v[k], z, 1.0) for k in range(3)],
+        "1ph": [(0, v[0], z, 1.0)],
+        "2ph": [(1, v[1] - v[2], 2 * z, 1.0), (2, v[1] - v[2], 2 * z, -1.0)],
+    }[kind]
     i_f = [np.zeros_like(t) for _ in range(3)]
     for k, vk, zk, sign in drive:
         alpha = math.atan2(vk.imag, vk.real) + math.pi / 2
         i_f[k] = sign * rl_current(tr, abs(vk) / abs(zk), r_x, f_hz, alpha)
-    after = {"3ph": np.zeros(3, complex), "1ph": np.array([0, v[1], v[2]]), "2ph": np.array([v[0], (v[1] + v[2]) / 2, (v[1] + v[2]) / 2])}[kind]
+    after = {
+        "3ph": np.zeros(3, complex),
+        "1ph": np.array([0, v[1], v[2]]),
+        "2ph": np.array([v[0], (v[1] + v[2]) / 2, (v[1] + v[2]) / 2]),
+    }[kind]
     cur, vol = [], []
     for k, (vk, ik) in enumerate(zip(v, i_pre, strict=True)):
         i_load = np.real(math.sqrt(2) * ik * np.exp(1j * w * tr))
         cur.append(i_load + i_f[k])
         v_before = np.real(math.sqrt(2) * vk * np.exp(1j * w * tr))
-        vol.append(np.where(tr < 0, v_before, np.real(math.sqrt(2) * after[k] * np.exp(1j * w * tr))))
+        vol.append(
+            np.where(tr < 0, v_before, np.real(math.sqrt(2) * after[k] * np.exp(1j * w * tr)))
+        )
     rng = np.random.default_rng(seed)
     currents = np.array(cur) + (rng.normal(0.0, noise_i_a, (3, samples)) if noise_i_a else 0.0)
     voltages = np.array(vol) + (rng.normal(0.0, noise_v_v, (3, samples)) if noise_v_v else 0.0)
@@ -107,7 +117,9 @@ def as_record(
             if ratio is None:
                 analogs.append(AnalogSignal(name, ph, unit, row))
             else:
-                analogs.append(AnalogSignal(name, ph, unit, row * ratio[1] / ratio[0], ratio[0], ratio[1], "S"))
+                analogs.append(
+                    AnalogSignal(name, ph, unit, row * ratio[1] / ratio[0], ratio[0], ratio[1], "S")
+                )
     return RecordData(
         station=station,
         device=device,

@@ -94,7 +94,9 @@ def _model(p: np.ndarray, t: np.ndarray, w: float, t0: float) -> np.ndarray:
     return a * np.sin(w * (t - t0) + th) + b * np.exp(-(t - t0) / tau)
 
 
-def _fit(t: np.ndarray, y: np.ndarray, w: float, t0: float, ik0: float, th0: float) -> tuple[np.ndarray, np.ndarray, float]:
+def _fit(
+    t: np.ndarray, y: np.ndarray, w: float, t0: float, ik0: float, th0: float
+) -> tuple[np.ndarray, np.ndarray, float]:
     b0 = float(y[0] - math.sqrt(2) * ik0 * math.sin(w * (t[0] - t0) + th0))
     p0 = np.array([math.sqrt(2) * ik0, th0, b0, 0.01])
     res = least_squares(
@@ -117,7 +119,9 @@ def _fit(t: np.ndarray, y: np.ndarray, w: float, t0: float, ik0: float, th0: flo
     return res.x, u, math.sqrt(s2)
 
 
-def _sampling_loss(p: np.ndarray, w: float, t0: float, fs: float, t_end: float) -> tuple[float, float]:
+def _sampling_loss(
+    p: np.ndarray, w: float, t0: float, fs: float, t_end: float
+) -> tuple[float, float]:
     """(continuous peak of the fitted waveform, worst loss of its sampled maximum)."""
     tt = np.arange(t0, min(t_end, t0 + 0.1), 1.0 / (fs * 50))
     y = np.abs(_model(p, tt, w, t0))
@@ -152,7 +156,9 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1, voltage_angle: bool = 
     w = 2 * math.pi * f
     n_cyc = int(round(fs / f))
     if n_cyc < 8:
-        raise BenchwalkError(f"{rec.path}: {fs:g} samples/s is too slow for {f:g} Hz (fewer than 8 samples per cycle)")
+        raise BenchwalkError(
+            f"{rec.path}: {fs:g} samples/s is too slow for {f:g} Hz (fewer than 8 samples per cycle)"
+        )
     if len(t) < 4 * n_cyc:
         raise BenchwalkError(f"{rec.path}: the record is shorter than four cycles")
     pre = slice(0, n_cyc)
@@ -167,9 +173,9 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1, voltage_angle: bool = 
     big = peaks.max()
     faulted = peaks >= min_fault_fraction * big
     starts = []
-    for k in np.flatnonzero(faulted):
-        thr = max(6 * sigmas[k], 0.01 * peaks[k])
-        idx = np.flatnonzero(np.abs(fc[k, n_cyc:]) > thr)
+    for j in np.flatnonzero(faulted):
+        thr = max(6 * sigmas[j], 0.01 * peaks[j])
+        idx = np.flatnonzero(np.abs(fc[j, n_cyc:]) > thr)
         if len(idx):
             starts.append(int(idx[0]) + n_cyc)
     if not starts or big <= 0:
@@ -182,17 +188,20 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1, voltage_angle: bool = 
     low = np.flatnonzero(rms[i_det + n_cyc :] < 0.1 * level)
     i_end = (int(low[0]) + i_det + n_cyc - half) if len(low) else len(t)
     if i_end - i_det < 3 * n_cyc:
-        raise BenchwalkError(f"{rec.path}: the fault lasts under three cycles; too short for a steady current")
+        raise BenchwalkError(
+            f"{rec.path}: the fault lasts under three cycles; too short for a steady current"
+        )
     t_det = float(t[i_det])
     fits: dict[int, tuple[np.ndarray, np.ndarray, float, float, float]] = {}
-    for k in np.flatnonzero(faulted):
+    for kf in np.flatnonzero(faulted):
+        k = int(kf)
         y = fc[k]
         last = slice(i_end - n_cyc, i_end)
         dft = _fundamental(t[last], y[last], f)
         # the DFT's cosine phasor as the sine phase at t_det: sin(w (t - t_det) + th0)
         th0 = math.remainder(w * t_det + math.atan2(dft.imag, dft.real) + math.pi / 2, 2 * math.pi)
         p, u, rms_fit = _fit(t[i_det:i_end], y[i_det:i_end], w, t_det, abs(dft), th0)
-        fits[int(k)] = (p, u, rms_fit, _inception(p, w, t_det, f), abs(dft))
+        fits[k] = (p, u, rms_fit, _inception(p, w, t_det, f), abs(dft))
     t0_min = min(v[3] for v in fits.values())
     u_pre = None
     u_phase: tuple[float, ...] = ()
@@ -207,7 +216,28 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1, voltage_angle: bool = 
     for k, name in enumerate(rec.current_names):
         if k not in fits:
             nan = math.nan
-            out.append(PhaseAnalysis(name, False, nan, nan, nan, nan, False, nan, nan, nan, nan, nan, "none", nan, nan, nan, nan, nan))
+            out.append(
+                PhaseAnalysis(
+                    name,
+                    False,
+                    nan,
+                    nan,
+                    nan,
+                    nan,
+                    False,
+                    nan,
+                    nan,
+                    nan,
+                    nan,
+                    nan,
+                    "none",
+                    nan,
+                    nan,
+                    nan,
+                    nan,
+                    nan,
+                )
+            )
             continue
         p, u, rms_fit, t0, ik_dft = fits[k]
         a, th, _, tau = p

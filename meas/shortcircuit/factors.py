@@ -24,7 +24,9 @@ def voltage_factors(un_v: float, lv_tol_pct: float = 10.0) -> tuple[float, float
             return 1.10, 0.90
         if lv_tol_pct == 6.0:
             return 1.05, 0.95
-        raise ValueError(f"LV tolerance must be 6 or 10 percent (IEC 60909-0 Table 1), got {lv_tol_pct}")
+        raise ValueError(
+            f"LV tolerance must be 6 or 10 percent (IEC 60909-0 Table 1), got {lv_tol_pct}"
+        )
     return 1.10, 1.00
 
 

@@ -58,7 +58,9 @@ class ShortCircuit:
     kappa: float
     kappa_method: str  # "radial", "B" or "C"
     r_x: float  # of the positive-sequence impedance at the fault (R/X that kappa uses)
-    zk_ohm: complex  # the impedance the fault current sees: Z1 (3ph), (Z1+Z2)/2 (2ph), (2Z1+Z0)/3 (1ph)
+    zk_ohm: (
+        complex  # the impedance the fault current sees: Z1 (3ph), (Z1+Z2)/2 (2ph), (2Z1+Z0)/3 (1ph)
+    )
     z1_ohm: complex
     z2_ohm: complex
     z0_ohm: complex
@@ -121,8 +123,12 @@ def short_circuit(
     if th.meshed and kappa_method == "C":
         fc = FC_HZ.get(f)
         if fc is None:
-            raise BenchwalkError(f"kappa method C needs 50 or 60 Hz (IEC 60909-0 §8.1.3), not {f} Hz")
-        thc = thevenin(profile, bus, switch_states, x_scale=fc / f, kt_cmax=kt_cmax, kt_exempt=kt_exempt)
+            raise BenchwalkError(
+                f"kappa method C needs 50 or 60 Hz (IEC 60909-0 §8.1.3), not {f} Hz"
+            )
+        thc = thevenin(
+            profile, bus, switch_states, x_scale=fc / f, kt_cmax=kt_cmax, kt_exempt=kt_exempt
+        )
         rx_c = thc.z1.real / thc.z1.imag * fc / f
     k, how = _kappa(th, rx, kappa_method, zone.network_v_ll <= LV_LIMIT_V, rx_c)
     un = zone.bench_v_ll
@@ -187,7 +193,9 @@ def to_network_scale(profile: Profile, sc: ShortCircuit) -> ShortCircuit:
     )
 
 
-def every_bus(profile: Profile, fault: FaultKind = "3ph", case: Case = "max", **kw: object) -> list[ShortCircuit]:
+def every_bus(
+    profile: Profile, fault: FaultKind = "3ph", case: Case = "max", **kw: object
+) -> list[ShortCircuit]:
     """The fault at every live bus of the profile (normal switch states unless given)."""
     out = []
     for b in profile.buses:

@@ -24,7 +24,11 @@ def rl_current(
     phi = math.atan2(1.0, r_x)
     tau = 1.0 / (w * r_x) if r_x > 0 else math.inf
     ts = np.clip(t, 0.0, None)
-    i = math.sqrt(2) * i_rms * (np.sin(w * ts + alpha_rad - phi) - math.sin(alpha_rad - phi) * np.exp(-ts / tau))
+    i = (
+        math.sqrt(2)
+        * i_rms
+        * (np.sin(w * ts + alpha_rad - phi) - math.sin(alpha_rad - phi) * np.exp(-ts / tau))
+    )
     return np.where(t >= 0, i, 0.0)
 
 
@@ -45,7 +49,9 @@ def peak_factor(r_x: float, alpha_rad: float) -> float:
     vals = np.abs(np.sin(xs + alpha_rad - phi) - s * np.exp(-xs / w_tau))
     k = int(np.argmax(vals))
     lo, hi = xs[max(k - 1, 0)], xs[min(k + 1, len(xs) - 1)]
-    res = minimize_scalar(lambda x: -abs(g(x)), bounds=(lo, hi), method="bounded", options={"xatol": 1e-12})
+    res = minimize_scalar(
+        lambda x: -abs(g(x)), bounds=(lo, hi), method="bounded", options={"xatol": 1e-12}
+    )
     return max(float(-res.fun), float(vals[k]))
 
 

@@ -45,7 +45,14 @@ def _scaled_params(params: BranchParams, xk: float, kt: float) -> BranchParams:
     """The series parameters with reactances times ``xk`` and transformer impedance times kt."""
     if isinstance(params, LineParams):
         x0 = None if params.x0_ohm is None else params.x0_ohm * xk
-        return replace(params, x_ohm=params.x_ohm * xk, x0_ohm=x0, b_us=0.0, b0_us=0.0 if params.b0_us is not None else None, long_line=False)
+        return replace(
+            params,
+            x_ohm=params.x_ohm * xk,
+            x0_ohm=x0,
+            b_us=0.0,
+            b0_us=0.0 if params.b0_us is not None else None,
+            long_line=False,
+        )
     if isinstance(params, TransformerParams):
         ur = params.ur_pct * kt
         ux = math.sqrt(max(params.uk_pct**2 - params.ur_pct**2, 0.0)) * kt * xk
@@ -59,7 +66,11 @@ def _scaled_params(params: BranchParams, xk: float, kt: float) -> BranchParams:
 
 
 def sc_branches(
-    profile: Profile, *, x_scale: float, kt_cmax: float | None, kt_exempt: frozenset[str] = frozenset()
+    profile: Profile,
+    *,
+    x_scale: float,
+    kt_cmax: float | None,
+    kt_exempt: frozenset[str] = frozenset(),
 ) -> tuple[tuple[Branch, ...], dict[str, float]]:
     """The branches as the short-circuit calculation sees them, and K_T per transformer.
 
@@ -124,15 +135,21 @@ def thevenin(
     prof = replace(profile, branches=branches)
     net = _series_only(build_network(prof, switch_states or {}))
     if bus not in net.energized:
-        raise BenchwalkError(f"{profile.path}: bus {bus!r} is not in the profile; buses are {', '.join(net.buses)}")
+        raise BenchwalkError(
+            f"{profile.path}: bus {bus!r} is not in the profile; buses are {', '.join(net.buses)}"
+        )
     if not net.energized[bus]:
-        raise BenchwalkError(f"{profile.path}: bus {bus!r} is dead in this switch state; no source feeds a fault there")
+        raise BenchwalkError(
+            f"{profile.path}: bus {bus!r} is dead in this switch state; no source feeds a fault there"
+        )
     nod = assemble(net)
     n_bus = 3 * sum(1 for b in net.buses if net.energized[b])
     keep = np.flatnonzero(~nod.slack[:n_bus])
     i = nod.idx[bus]
     if nod.slack[i]:
-        raise BenchwalkError(f"{profile.path}: bus {bus!r} is held by an ideal source (sc_va = inf); its short-circuit current is unbounded")
+        raise BenchwalkError(
+            f"{profile.path}: bus {bus!r} is held by an ideal source (sc_va = inf); its short-circuit current is unbounded"
+        )
     # Kron-reduce every other node (pinv: a zero-sequence island behind a delta or a floating
     # star is singular in Y; its null space is the blocked zero sequence, which pinv leaves out)
     b_rows = [i, i + 1, i + 2]
@@ -140,13 +157,22 @@ def thevenin(
     y = nod.y
     y_th = y[np.ix_(b_rows, b_rows)]
     if others:
-        y_th = y_th - y[np.ix_(b_rows, others)] @ np.linalg.pinv(y[np.ix_(others, others)]) @ y[np.ix_(others, b_rows)]
+        y_th = (
+            y_th
+            - y[np.ix_(b_rows, others)]
+            @ np.linalg.pinv(y[np.ix_(others, others)])
+            @ y[np.ix_(others, b_rows)]
+        )
     y012 = to_sequence_matrix(y_th)
     ys = [complex(y012[k, k]) for k in range(3)]
     scale = max(abs(v) for v in ys)
     z0, z1, z2 = (1 / v if abs(v) > 1e-9 * scale else complex(math.inf, math.inf) for v in ys)
     z_abc = np.linalg.pinv(y_th)
-    r_x_small = all(_branch_rx(br.model) < 0.3 for br in branches if br.model is not None and br.kind in ("line", "transformer", "source"))
+    r_x_small = all(
+        _branch_rx(br.model) < 0.3
+        for br in branches
+        if br.model is not None and br.kind in ("line", "transformer", "source")
+    )
     return Thevenin(
         bus=bus,
         z_abc=z_abc,

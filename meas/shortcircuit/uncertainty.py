@@ -33,7 +33,9 @@ class Covariance:
     def __post_init__(self) -> None:
         n = len(self.names)
         if self.matrix.shape != (n, n) or len(self.values) != n:
-            raise BenchwalkError(f"covariance: {n} parameters but a {self.matrix.shape} matrix and {len(self.values)} values")
+            raise BenchwalkError(
+                f"covariance: {n} parameters but a {self.matrix.shape} matrix and {len(self.values)} values"
+            )
 
 
 def nameplate_covariance(profile: Profile, names: Sequence[str] | None = None) -> Covariance:
@@ -42,7 +44,12 @@ def nameplate_covariance(profile: Profile, names: Sequence[str] | None = None) -
     params = [p for p in model_parameters(profile.branches) if names is None or p.name in names]
     if names is None:
         kinds = {b.id: b.kind for b in profile.branches}
-        params = [p for p in params if kinds[p.branch] in ("source", "line", "transformer") and not p.key.startswith(("b_us", "v_ll", "tap"))]
+        params = [
+            p
+            for p in params
+            if kinds[p.branch] in ("source", "line", "transformer")
+            and not p.key.startswith(("b_us", "v_ll", "tap"))
+        ]
     return Covariance(
         tuple(p.name for p in params),
         tuple(p.nominal for p in params),
@@ -53,13 +60,19 @@ def nameplate_covariance(profile: Profile, names: Sequence[str] | None = None) -
 def calibrated_profile(profile: Profile, cov: Covariance) -> Profile:
     """The profile with the covariance's parameter values (a calibration's estimates)."""
     try:
-        return replace(profile, branches=with_values(profile.branches, dict(zip(cov.names, cov.values, strict=True))))
+        return replace(
+            profile,
+            branches=with_values(profile.branches, dict(zip(cov.names, cov.values, strict=True))),
+        )
     except KeyError as exc:
         raise BenchwalkError(f"covariance: {exc.args[0]}") from None
 
 
 def propagate(
-    profile: Profile, cov: Covariance, evaluate: Callable[[Profile], Mapping[str, float]], rel_step: float = 1e-6
+    profile: Profile,
+    cov: Covariance,
+    evaluate: Callable[[Profile], Mapping[str, float]],
+    rel_step: float = 1e-6,
 ) -> dict[str, float]:
     """Standard uncertainty of every figure ``evaluate`` returns, by the delta method."""
     base = calibrated_profile(profile, cov)

@@ -20,10 +20,16 @@ from tui.cli import main
 Z = complex(0.31441, 0.62530)
 
 
-def _record(folder: Path, fmt: str = "BINARY", rev: str = "1999", cff: bool = False, unit_ia: str = "A") -> Path:
-    rec = as_record(fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 0.04), 50.0, 10_000.0, 0.04)
+def _record(
+    folder: Path, fmt: str = "BINARY", rev: str = "1999", cff: bool = False, unit_ia: str = "A"
+) -> Path:
+    rec = as_record(
+        fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 0.04), 50.0, 10_000.0, 0.04
+    )
     if unit_ia != "A":
-        rec = dataclasses.replace(rec, analogs=(dataclasses.replace(rec.analogs[0], unit=unit_ia), *rec.analogs[1:]))
+        rec = dataclasses.replace(
+            rec, analogs=(dataclasses.replace(rec.analogs[0], unit=unit_ia), *rec.analogs[1:])
+        )
     return write_comtrade(folder / "rec", rec, rev, fmt, cff=cff)  # type: ignore[arg-type]
 
 
@@ -39,14 +45,21 @@ def _check(capsys: pytest.CaptureFixture[str], path: Path, *extra: str) -> str:
 def test_missing_channel(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     p = _record(tmp_path)
     err = _check(capsys, p, "--currents", "IA,IB,IX")
-    assert f"{p}: no analog channel 'IX' for the currents; the record has IA, IB, IC, VA, VB, VC" in err
+    assert (
+        f"{p}: no analog channel 'IX' for the currents; the record has IA, IB, IC, VA, VB, VC"
+        in err
+    )
 
 
 def test_wrong_units(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     p = _record(tmp_path, unit_ia="kV")
-    assert f"{p}: channel 'IA' has unit 'kV'; currents must be in A or kA" in _check(capsys, p, "--currents", "IA,IB,IC")
+    assert f"{p}: channel 'IA' has unit 'kV'; currents must be in A or kA" in _check(
+        capsys, p, "--currents", "IA,IB,IC"
+    )
     p = _record(tmp_path)
-    assert f"{p}: channel 'IA' has unit 'A'; voltages must be in V or kV" in _check(capsys, p, "--voltages", "IA,VB,VC")
+    assert f"{p}: channel 'IA' has unit 'A'; voltages must be in V or kV" in _check(
+        capsys, p, "--voltages", "IA,VB,VC"
+    )
 
 
 def test_truncated_binary_dat(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -70,7 +83,9 @@ def test_truncated_cff(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> No
 
 
 @pytest.mark.parametrize("stated", [2500, 1500])
-def test_cfg_lies_about_the_sample_count(tmp_path: Path, capsys: pytest.CaptureFixture[str], stated: int) -> None:
+def test_cfg_lies_about_the_sample_count(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], stated: int
+) -> None:
     p = _record(tmp_path, "BINARY32", "2013")
     p.write_text(p.read_text().replace("10000,2000", f"10000,{stated}"), newline="")
     assert f"{p}: the .cfg states {stated} samples but the .dat holds 2000" in _check(capsys, p)
@@ -87,6 +102,10 @@ def test_not_a_record_and_no_data_file(tmp_path: Path, capsys: pytest.CaptureFix
 
 
 def test_a_record_without_a_fault(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    waves = fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 10.0)  # fault after the end
-    p = write_comtrade(tmp_path / "quiet", as_record(waves, 50.0, 10_000.0, 0.04), "2013", "FLOAT32")
+    waves = fault_waves(
+        phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 10.0
+    )  # fault after the end
+    p = write_comtrade(
+        tmp_path / "quiet", as_record(waves, 50.0, 10_000.0, 0.04), "2013", "FLOAT32"
+    )
     assert "no fault current found" in _check(capsys, p)

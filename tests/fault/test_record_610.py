@@ -29,13 +29,19 @@ Z = complex(Z_S / math.sqrt(65) + 0.28, 8 * Z_S / math.sqrt(65) + 0.35)
 
 def record_610(folder: Path, rev: str, fmt: str, cff: bool) -> Path:
     waves = fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 0.040)
-    return write_comtrade(folder / f"r610_{rev}_{fmt}", as_record(waves, 50.0, 10_000.0, 0.040), rev, fmt, cff=cff)  # type: ignore[arg-type]
+    return write_comtrade(
+        folder / f"r610_{rev}_{fmt}", as_record(waves, 50.0, 10_000.0, 0.040), rev, fmt, cff=cff
+    )  # type: ignore[arg-type]
 
 
-CASES = [(rev, fmt, False) for rev, fmt in VARIANTS] + [(rev, fmt, True) for rev, fmt in VARIANTS if rev == "2013"]
+CASES = [(rev, fmt, False) for rev, fmt in VARIANTS] + [
+    (rev, fmt, True) for rev, fmt in VARIANTS if rev == "2013"
+]
 
 
-@pytest.mark.parametrize(("rev", "fmt", "cff"), CASES, ids=[f"{r}-{f}{'-cff' if c else ''}" for r, f, c in CASES])
+@pytest.mark.parametrize(
+    ("rev", "fmt", "cff"), CASES, ids=[f"{r}-{f}{'-cff' if c else ''}" for r, f, c in CASES]
+)
 def test_record_610(tmp_path: Path, rev: str, fmt: str, cff: bool) -> None:
     rec = read_record(record_610(tmp_path, rev, fmt, cff))
     assert (rec.revision, rec.data_format, rec.fs_hz, len(rec.t)) == (rev, fmt, 10_000.0, 2000)
@@ -71,7 +77,13 @@ def test_record_610(tmp_path: Path, rev: str, fmt: str, cff: bool) -> None:
 def test_sampling_bound_at_1_khz(tmp_path: Path) -> None:
     # CALIBRATION_NOTES §4.10: a 1 kHz recorder can miss the peak by up to 0.89 % [C]
     waves = fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 1000.0, 200, 0.040)
-    a = analyse(read_record(write_comtrade(tmp_path / "slow", as_record(waves, 50.0, 1000.0, 0.040), "2013", "FLOAT32")))
+    a = analyse(
+        read_record(
+            write_comtrade(
+                tmp_path / "slow", as_record(waves, 50.0, 1000.0, 0.040), "2013", "FLOAT32"
+            )
+        )
+    )
     ph = max(a.phases, key=lambda p: p.peak_fit_a)
     assert ph.peak_sampling_bound_a / ph.peak_fit_a == pytest.approx(0.0089, abs=0.0005)
     assert ph.peak_fit_a - ph.peak_a <= ph.peak_sampling_bound_a + 1e-9
@@ -79,7 +91,12 @@ def test_sampling_bound_at_1_khz(tmp_path: Path) -> None:
 
 def test_secondary_values_are_made_primary_and_said_so(tmp_path: Path) -> None:
     waves = fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 0.040)
-    path = write_comtrade(tmp_path / "sec", as_record(waves, 50.0, 10_000.0, 0.040, ct=(600.0, 1.0), vt=(400.0, 100.0)), "2013", "FLOAT32")
+    path = write_comtrade(
+        tmp_path / "sec",
+        as_record(waves, 50.0, 10_000.0, 0.040, ct=(600.0, 1.0), vt=(400.0, 100.0)),
+        "2013",
+        "FLOAT32",
+    )
     prim = read_record(path)
     raw = read_record(path, as_recorded=True)
     assert prim.values == "primary" and raw.values == "as recorded"

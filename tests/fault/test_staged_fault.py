@@ -34,7 +34,15 @@ def _tight_cov_json(path: Path, rel: float = 0.005) -> Path:
     """A calibration-like result: the nameplate values, each known to ``rel`` (standard)."""
     names = nameplate_covariance(PROFILE).names
     values = nameplate_covariance(PROFILE).values
-    path.write_text(json.dumps({"parameters": list(names), "values": list(values), "std": [abs(v) * rel for v in values]}))
+    path.write_text(
+        json.dumps(
+            {
+                "parameters": list(names),
+                "values": list(values),
+                "std": [abs(v) * rel for v in values],
+            }
+        )
+    )
     return path
 
 
@@ -51,14 +59,18 @@ def test_staged_fault_matches_the_model(tmp_path: Path) -> None:
     assert abs(figs["ikss"].deviation_pct) < 0.1 and abs(figs["r_x"].deviation_pct) < 0.5
     assert abs(figs["peak"].deviation_pct) < 0.1  # the exact RL peak at the measured angle
     assert comp.c_like == pytest.approx(sf.u_pre_ll_v / 400.0, rel=2e-4)
-    assert comp.iec_min.ikss_a < comp.iec_max.ikss_a and comp.uncertainty_source.startswith("nameplate")
+    assert comp.iec_min.ikss_a < comp.iec_max.ikss_a and comp.uncertainty_source.startswith(
+        "nameplate"
+    )
 
 
 def test_a_bench_built_differently_fails_against_a_tight_model(tmp_path: Path) -> None:
     built = as_built(PROFILE, {"L2.r_ohm": 0.18, "L2.x_ohm": 0.12})  # as built: +50 % R, -20 % X
     sf = stage_fault(built, "B2", tmp_path / "stage", noise_pct=0.02)
     a = analyse(read_record(sf.path))
-    tight = compare(a, PROFILE, "B2", covariance=read_covariance(_tight_cov_json(tmp_path / "cov.json")))
+    tight = compare(
+        a, PROFILE, "B2", covariance=read_covariance(_tight_cov_json(tmp_path / "cov.json"))
+    )
     verdicts = {f.key: f.verdict for f in tight.figures}
     assert tight.verdict == "fail" and verdicts["r_x"] == "fail", verdicts
     assert tight.uncertainty_source == "calibration covariance"
@@ -68,13 +80,50 @@ def test_a_bench_built_differently_fails_against_a_tight_model(tmp_path: Path) -
 
 def test_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     stem = tmp_path / "staged"
-    assert main(["fault", "simulate", str(DEMO), "--bus", "B2", "--out", str(stem), "--ct", "600/1", "--vt", "400/100", "--format", "2013-float32", "--cff"]) == 0
+    assert (
+        main(
+            [
+                "fault",
+                "simulate",
+                str(DEMO),
+                "--bus",
+                "B2",
+                "--out",
+                str(stem),
+                "--ct",
+                "600/1",
+                "--vt",
+                "400/100",
+                "--format",
+                "2013-float32",
+                "--cff",
+            ]
+        )
+        == 0
+    )
     out = capsys.readouterr().out
     assert out.startswith(STAGED_FAULT_CAUTION) and "SIMULATION: wrote" in out
     cov = tmp_path / "cov.csv"
     names, values = nameplate_covariance(PROFILE).names, nameplate_covariance(PROFILE).values
-    cov.write_text("parameter,value,std\n" + "".join(f"{n},{v!r},{abs(v) * 0.01!r}\n" for n, v in zip(names, values, strict=True)))
-    rc = main(["fault", "check", str(stem.with_suffix(".cff")), "--profile", str(DEMO), "--bus", "B2", "--covariance", str(cov), "--out", str(tmp_path / "out")])
+    cov.write_text(
+        "parameter,value,std\n"
+        + "".join(f"{n},{v!r},{abs(v) * 0.01!r}\n" for n, v in zip(names, values, strict=True))
+    )
+    rc = main(
+        [
+            "fault",
+            "check",
+            str(stem.with_suffix(".cff")),
+            "--profile",
+            str(DEMO),
+            "--bus",
+            "B2",
+            "--covariance",
+            str(cov),
+            "--out",
+            str(tmp_path / "out"),
+        ]
+    )
     out = capsys.readouterr().out
     assert rc == 0, out
     assert out.startswith(STAGED_FAULT_CAUTION)
@@ -87,9 +136,24 @@ def test_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str])
     csv_lines = (tmp_path / "out" / "phases.csv").read_text().splitlines()
     assert csv_lines[0].startswith("phase,faulted,inception_ms,alpha_deg") and len(csv_lines) == 4
     svg = ET.parse(tmp_path / "out" / "waveform.svg").getroot()
-    assert svg.tag.endswith("svg") and len(svg.findall("{http://www.w3.org/2000/svg}path")) == 9  # 3 records + 6 envelopes
+    assert (
+        svg.tag.endswith("svg") and len(svg.findall("{http://www.w3.org/2000/svg}path")) == 9
+    )  # 3 records + 6 envelopes
     # as recorded (secondary) the currents are 600 times too small: the check fails, exit 1
-    rc = main(["fault", "check", str(stem.with_suffix(".cff")), "--profile", str(DEMO), "--bus", "B2", "--as-recorded", "--out", str(tmp_path / "raw")])
+    rc = main(
+        [
+            "fault",
+            "check",
+            str(stem.with_suffix(".cff")),
+            "--profile",
+            str(DEMO),
+            "--bus",
+            "B2",
+            "--as-recorded",
+            "--out",
+            str(tmp_path / "raw"),
+        ]
+    )
     assert rc == 1 and "values taken as recorded" in capsys.readouterr().out
 
 
@@ -98,8 +162,31 @@ def test_predict_command(capsys: pytest.CaptureFixture[str]) -> None:
     out = capsys.readouterr().out
     line = next(ln for ln in out.splitlines() if ln.startswith("B2"))
     assert line.split()[1:4] == ["1.10", "362.96", "634.87"]  # CALIBRATION_NOTES §6.7, in A
-    assert main(["fault", "predict", str(DEMO), "--scale", "network", "--case", "min", "--kappa", "B", "--switch", "TIE=closed"]) == 0
-    assert math.isfinite(float(next(ln for ln in capsys.readouterr().out.splitlines() if ln.startswith("B3")).split()[2]))
+    assert (
+        main(
+            [
+                "fault",
+                "predict",
+                str(DEMO),
+                "--scale",
+                "network",
+                "--case",
+                "min",
+                "--kappa",
+                "B",
+                "--switch",
+                "TIE=closed",
+            ]
+        )
+        == 0
+    )
+    assert math.isfinite(
+        float(
+            next(ln for ln in capsys.readouterr().out.splitlines() if ln.startswith("B3")).split()[
+                2
+            ]
+        )
+    )
 
 
 @pytest.mark.parametrize("kind", ["2ph", "1ph"])

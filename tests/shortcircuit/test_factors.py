@@ -65,12 +65,16 @@ def test_method_b_factor_and_caps() -> None:
     assert kappa_b(0.5, meshed=False, lv=False) == pytest.approx(kappa(0.5))
     assert kappa_b(0.05, meshed=True, lv=True) == 1.8
     assert kappa_b(0.05, meshed=True, lv=False) == 2.0
-    assert kappa_b(0.2, meshed=True, lv=False, all_branches_below_0_3=True) == pytest.approx(kappa(0.2))
+    assert kappa_b(0.2, meshed=True, lv=False, all_branches_below_0_3=True) == pytest.approx(
+        kappa(0.2)
+    )
 
 
 def test_kt_and_heat_factor() -> None:
     # K_T = 0.95 cmax/(1 + 0.6 x_T), IEC 60909-0 eq. (12a); uk 6 %, ur 1.2 % -> x_T 0.058788
-    assert kt_network_transformer(1.05, 6.0, 1.2) == pytest.approx(0.95 * 1.05 / (1 + 0.6 * 0.0587878), rel=1e-6)
+    assert kt_network_transformer(1.05, 6.0, 1.2) == pytest.approx(
+        0.95 * 1.05 / (1 + 0.6 * 0.0587878), rel=1e-6
+    )
     # m = 0 at kappa 1 (no DC); Ith of the POC, CALIBRATION_NOTES §4.9: 0.36921 kA at Tk 0.2 s
     assert heat_factor_m(1.0, 50.0, 1.0) == 0.0
     assert thermal_current(362.9607, kappa(0.50282), 50.0, 0.2) == pytest.approx(369.21, abs=0.01)

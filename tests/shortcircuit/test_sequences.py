@@ -29,7 +29,13 @@ def _bench(group: str) -> Profile:
     zone = Zone("lv", 400.0, 400.0)
     branches = (
         Branch("Q", "source", "B0", model=SourceParams(v_ll=400.0, sc_va=5e6, x_r=10.0)),
-        Branch("T", "transformer", "B0", "B1", model=TransformerParams(250e3, 400.0, 400.0, 4.0, group, 1.0)),  # type: ignore[arg-type]
+        Branch(
+            "T",
+            "transformer",
+            "B0",
+            "B1",
+            model=TransformerParams(250e3, 400.0, 400.0, 4.0, group, 1.0),
+        ),  # type: ignore[arg-type]
     )
     bench = Bench("sequence bench", 50.0, 1.0, 250e3, (zone,))
     return Profile("seq", "", bench, {}, (), (Bus("B0", "lv"), Bus("B1", "lv")), branches, ())
@@ -50,7 +56,9 @@ def test_dyn11_zero_sequence_is_the_transformer_alone() -> None:
 def test_floating_star_blocks_an_earth_fault_and_yn_passes_it() -> None:
     blocked = short_circuit(_bench("Yy0"), "B1", "1ph", "min")
     assert blocked.ikss_a == 0.0 and math.isinf(blocked.z0_ohm.real)
-    assert short_circuit(_bench("Yy0"), "B1", "3ph", "min").ikss_a == pytest.approx(0.9 * 400 / (math.sqrt(3) * abs(ZQ + ZT)), rel=1e-9)
+    assert short_circuit(_bench("Yy0"), "B1", "3ph", "min").ikss_a == pytest.approx(
+        0.9 * 400 / (math.sqrt(3) * abs(ZQ + ZT)), rel=1e-9
+    )
     grounded = thevenin(_bench("YNyn0"), "B1")
     assert grounded.z0 == pytest.approx(ZQ + ZT, rel=1e-9)  # the source is grounded wye, Z0 = Z1
 
@@ -61,7 +69,9 @@ def test_kt_multiplies_the_transformer_in_the_max_case_only() -> None:
     assert s_max.kt == {"T": pytest.approx(kt)}
     assert s_max.z1_ohm == pytest.approx(ZQ + kt * ZT, rel=1e-9)
     assert short_circuit(_bench("Dyn11"), "B1", "3ph", "min").kt == {}
-    assert short_circuit(_bench("Dyn11"), "B1", "3ph", "max", apply_kt=False).z1_ohm == pytest.approx(ZQ + ZT, rel=1e-9)
+    assert short_circuit(
+        _bench("Dyn11"), "B1", "3ph", "max", apply_kt=False
+    ).z1_ohm == pytest.approx(ZQ + ZT, rel=1e-9)
 
 
 def test_delta_method_against_an_analytic_gradient() -> None:
@@ -79,4 +89,6 @@ def test_nameplate_covariance_takes_the_series_parameters() -> None:
     assert "SRC.sc_va" in cov.names and "L2.x_ohm" in cov.names
     assert not any(n.startswith(("LD", "SH")) or n.endswith("b_us") for n in cov.names)
     k = cov.names.index("L1.r_ohm")
-    assert math.sqrt(cov.matrix[k, k]) == pytest.approx(0.16 * 0.20 / math.sqrt(3))  # ±20 %, u = a/sqrt3
+    assert math.sqrt(cov.matrix[k, k]) == pytest.approx(
+        0.16 * 0.20 / math.sqrt(3)
+    )  # ±20 %, u = a/sqrt3

@@ -9,7 +9,6 @@ at the zones' network voltages with impedances times (vs^2 / ps).
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping
 
 import pandapower as pp
@@ -19,7 +18,12 @@ from meas.network.topology import branch_conducts, settled_states
 from meas.shortcircuit.factors import voltage_factors
 
 
-def demo_bench_net(profile: Profile, states: Mapping[str, str] | None = None, scale: str = "bench", case: str = "max") -> tuple[pp.pandapowerNet, dict[str, int]]:
+def demo_bench_net(
+    profile: Profile,
+    states: Mapping[str, str] | None = None,
+    scale: str = "bench",
+    case: str = "max",
+) -> tuple[pp.pandapowerNet, dict[str, int]]:
     conducts = branch_conducts(profile, settled_states(profile, dict(states or {})))
     net = pp.create_empty_network(f_hz=profile.bench.frequency_hz, sn_mva=1.0)
     zone = {z.id: z for z in profile.bench.zones}
@@ -44,13 +48,50 @@ def demo_bench_net(profile: Profile, states: Mapping[str, str] | None = None, sc
             cmax, cmin = voltage_factors(un * 1000.0)
             c = cmax if case == "max" else cmin
             s = c * un**2 / z
-            pp.create_ext_grid(net, idx[br.from_bus], s_sc_max_mva=s, s_sc_min_mva=s, rx_max=1 / p.x_r, rx_min=1 / p.x_r, x0x_max=1.0, r0x0_max=1 / p.x_r, x0x_min=1.0, r0x0_min=1 / p.x_r, in_service=on)
+            pp.create_ext_grid(
+                net,
+                idx[br.from_bus],
+                s_sc_max_mva=s,
+                s_sc_min_mva=s,
+                rx_max=1 / p.x_r,
+                rx_min=1 / p.x_r,
+                x0x_max=1.0,
+                r0x0_max=1 / p.x_r,
+                x0x_min=1.0,
+                r0x0_min=1 / p.x_r,
+                in_service=on,
+            )
         elif isinstance(p, LineParams) and br.to_bus is not None:
             f = fz(br.from_bus)
-            pp.create_line_from_parameters(net, idx[br.from_bus], idx[br.to_bus], length_km=1.0, r_ohm_per_km=p.r_ohm * f, x_ohm_per_km=p.x_ohm * f, c_nf_per_km=0.0, max_i_ka=1.0, r0_ohm_per_km=(p.r0_ohm if p.r0_ohm is not None else p.r_ohm) * f, x0_ohm_per_km=(p.x0_ohm if p.x0_ohm is not None else p.x_ohm) * f, c0_nf_per_km=0.0, in_service=on, name=br.id)
+            pp.create_line_from_parameters(
+                net,
+                idx[br.from_bus],
+                idx[br.to_bus],
+                length_km=1.0,
+                r_ohm_per_km=p.r_ohm * f,
+                x_ohm_per_km=p.x_ohm * f,
+                c_nf_per_km=0.0,
+                max_i_ka=1.0,
+                r0_ohm_per_km=(p.r0_ohm if p.r0_ohm is not None else p.r_ohm) * f,
+                x0_ohm_per_km=(p.x0_ohm if p.x0_ohm is not None else p.x_ohm) * f,
+                c0_nf_per_km=0.0,
+                in_service=on,
+                name=br.id,
+            )
         elif isinstance(p, TransformerParams) and br.to_bus is not None:
-            pp.create_transformer_from_parameters(net, idx[br.from_bus], idx[br.to_bus], sn_mva=p.s_va * (ps if scale == "network" else 1.0) / 1e6, vn_hv_kv=p.v1_ll * vs(br.from_bus) / 1e3, vn_lv_kv=p.v2_ll * vs(br.to_bus) / 1e3, vk_percent=p.uk_pct, vkr_percent=p.ur_pct, pfe_kw=0.0, i0_percent=0.0, in_service=on, name=br.id)
+            pp.create_transformer_from_parameters(
+                net,
+                idx[br.from_bus],
+                idx[br.to_bus],
+                sn_mva=p.s_va * (ps if scale == "network" else 1.0) / 1e6,
+                vn_hv_kv=p.v1_ll * vs(br.from_bus) / 1e3,
+                vn_lv_kv=p.v2_ll * vs(br.to_bus) / 1e3,
+                vk_percent=p.uk_pct,
+                vkr_percent=p.ur_pct,
+                pfe_kw=0.0,
+                i0_percent=0.0,
+                in_service=on,
+                name=br.id,
+            )
     net.line["endtemp_degree"] = 20.0  # no conductor heating: benchwalk takes R as given
     return net, idx
-
-
