@@ -87,11 +87,10 @@ def _row_count_check(
             path,
             f"the .cfg states {samples} samples but the .dat holds {len(data) // row}; the .dat is truncated or the .cfg is wrong",
         )
-    numbers = np.frombuffer(data, dtype="<u4")[:: row // 4] if row % 4 == 0 else None
-    if (
-        numbers is not None
-        and len(numbers)
-        and not np.array_equal(numbers, np.arange(numbers[0], numbers[0] + len(numbers)))
+    rows = np.frombuffer(data, dtype=np.uint8).reshape(-1, row)
+    numbers = rows[:, :4].copy().view("<u4").ravel()
+    if len(numbers) and not np.array_equal(
+        numbers, np.arange(numbers[0], numbers[0] + len(numbers))
     ):
         raise _fail(
             path,

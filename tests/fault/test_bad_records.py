@@ -109,3 +109,15 @@ def test_a_record_without_a_fault(tmp_path: Path, capsys: pytest.CaptureFixture[
         tmp_path / "quiet", as_record(waves, 50.0, 10_000.0, 0.04), "2013", "FLOAT32"
     )
     assert "no fault current found" in _check(capsys, p)
+
+
+def test_a_sample_missing_inside_the_dat(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # int16 rows are 22 bytes here (not whole 32-bit words): sample numbers still checked
+    p = _record(tmp_path)
+    dat = p.with_suffix(".dat")
+    data = bytearray(dat.read_bytes())
+    data[22 * 700 : 22 * 700 + 4] = (9999).to_bytes(4, "little")
+    dat.write_bytes(bytes(data))
+    assert f"{p}: the sample numbers in the .dat are not consecutive" in _check(capsys, p)
