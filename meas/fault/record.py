@@ -87,8 +87,8 @@ def _row_count_check(
             path,
             f"the .cfg states {samples} samples but the .dat holds {len(data) // row}; the .dat is truncated or the .cfg is wrong",
         )
-    rows = np.frombuffer(data, dtype=np.uint8).reshape(-1, row)
-    numbers = rows[:, :4].copy().view("<u4").ravel()
+    table = np.frombuffer(data, dtype=np.uint8).reshape(-1, row)
+    numbers = table[:, :4].copy().view("<u4").ravel()
     if len(numbers) and not np.array_equal(
         numbers, np.arange(numbers[0], numbers[0] + len(numbers))
     ):
@@ -98,7 +98,7 @@ def _row_count_check(
         )
 
 
-def _data_of(path: Path, cfg_ft: str) -> bytes:
+def _data_of(path: Path) -> bytes:
     """The raw data part: the .dat beside a .cfg, or the DAT section of a .cff."""
     if path.suffix.lower() == ".cff":
         blob = path.read_bytes()
@@ -142,7 +142,7 @@ def _load(path: Path) -> Any:
                     cfg.analog_count,
                     cfg.status_count,
                     int(cfg.sample_rates[-1][1]),
-                    _data_of(path, cfg.ft),
+                    _data_of(path),
                 )
             rec.load(str(path))
     except BenchwalkError:
@@ -164,7 +164,7 @@ def _load(path: Path) -> Any:
             cfg.analog_count,
             cfg.status_count,
             int(cfg.sample_rates[-1][1]),
-            _data_of(path, cfg.ft),
+            _data_of(path),
         )
     return rec
 

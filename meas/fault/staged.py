@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import BenchwalkError
-from ..model import Profile, SourceParams
+from ..model import Profile
 from ..network.admittance import build_network
 from ..network.loadflow import solve
 from ..network.parameters import model_parameters, with_values
@@ -110,7 +110,3 @@ def stage_fault(
     rec = as_record(waves, f, fs_hz, t_fault_s, ct=ct, vt=vt)
     path = write_comtrade(out_stem, rec, revision, data_format, cff=cff)
     return StagedFault(path, bus, src.branch, th.z1, u_pre, alpha_deg, ik)
-
-
-def source_of(profile: Profile) -> SourceParams | None:
-    return next((b.model for b in profile.branches if isinstance(b.model, SourceParams)), None)

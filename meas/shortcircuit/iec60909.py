@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 from ..bases import bases_of, network_factor
@@ -175,8 +175,6 @@ def to_network_scale(profile: Profile, sc: ShortCircuit) -> ShortCircuit:
     b = bases_of(profile, sc.bus)
     fi = network_factor(b, "i.A")
     fz = b.voltage_scale**2 / b.power_scale
-    from dataclasses import replace
-
     return replace(
         sc,
         scale="network",

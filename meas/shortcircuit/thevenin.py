@@ -50,7 +50,7 @@ def _scaled_params(params: BranchParams, xk: float, kt: float) -> BranchParams:
             x_ohm=params.x_ohm * xk,
             x0_ohm=x0,
             b_us=0.0,
-            b0_us=0.0 if params.b0_us is not None else None,
+            b0_us=None,  # follows b_us: zero
             long_line=False,
         )
     if isinstance(params, TransformerParams):
