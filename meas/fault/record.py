@@ -6,8 +6,9 @@ FLOAT32; .cfg/.dat and .cff) when asked for double precision and numpy arrays
 or a .cfg whose sample count disagrees with the data, so the data size is checked here first.
 Every problem is one ``BenchwalkError`` line naming the file.
 
-Channels are chosen by name (``currents``/``voltages``) or, by default, as the analog channels
-whose unit is a current (A, kA) or a voltage (V, kV) for phases A, B, C in that order.
+Channels are chosen by name (``currents``/``voltages``, in the same phase order) or, by
+default, as the analog channels whose unit is a current (A, kA) or a voltage (V, kV) and whose
+phase is A, B, C (or L1, L2, L3), in that order; voltages are phase to ground.
 Values are made primary by each channel's own P/S flag and primary/secondary ratio unless
 ``as_recorded`` is set; either way ``Record.notes`` states what was done per channel.
 """
@@ -49,6 +50,12 @@ class Record:
     voltages: np.ndarray | None  # (phases, samples), V phase-to-ground
     values: str  # "primary" or "as recorded"
     notes: tuple[str, ...]
+
+
+def _phase(ph: str) -> str:
+    """A channel's phase as A, B or C ('A', 'a', 'PhA', 'L1'); '' for anything else (e.g. 'AB')."""
+    p = ph.strip().upper().removeprefix("PH")
+    return {"L1": "A", "L2": "B", "L3": "C"}.get(p, p if p in ("A", "B", "C") else "")
 
 
 def _fail(path: Path, message: str) -> BenchwalkError:
@@ -207,7 +214,7 @@ def read_record(
                         (
                             i
                             for i, c in enumerate(chans)
-                            if c.uu.strip().lower() in units and c.ph.strip().upper().endswith(ph)
+                            if c.uu.strip().lower() in units and _phase(c.ph) == ph
                         ),
                         -1,
                     )

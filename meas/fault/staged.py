@@ -76,7 +76,13 @@ def stage_fault(
         raise BenchwalkError(f"{profile.path}: bus {bus!r} is not live in this switch state")
     sol = solve(net)
     th = thevenin(profile, bus, states)
-    src = next((s for s in net.sources if s.y is not None), None)
+    finite = [s for s in net.sources if s.y is not None]
+    if len(finite) > 1 or len(finite) < len(net.sources):
+        raise BenchwalkError(
+            f"{profile.path}: the simulated record models one feeding source with a finite sc_va; "
+            f"this switch state has {len(net.sources)} live sources"
+        )
+    src = finite[0] if finite else None
     if src is None:
         raise BenchwalkError(
             f"{profile.path}: no finite source; a fault current needs a source impedance"

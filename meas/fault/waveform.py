@@ -178,6 +178,20 @@ def analyse(rec: Record, min_fault_fraction: float = 0.1, voltage_angle: bool = 
         idx = np.flatnonzero(np.abs(fc[j, n_cyc:]) > thr)
         if len(idx):
             starts.append(int(idx[0]) + n_cyc)
+    first_rms = [float(np.sqrt(np.mean(x[pre] ** 2))) for x in rec.currents]
+    # a fault inside the first cycle spoils the pre-fault fit: a large residual there, and a
+    # record that reaches far above it (pure noise without a fault does not)
+    unsteady = any(
+        sigmas[j] > 0.05 * first_rms[j] and np.abs(rec.currents[j]).max() > 10 * sigmas[j]
+        for j in range(len(sigmas))
+    )
+    if (not starts and unsteady) or any(
+        sigmas[j] > 0.05 * peaks[j] for j in np.flatnonzero(faulted)
+    ):
+        raise BenchwalkError(
+            f"{rec.path}: the first cycle is not a steady pre-fault cycle; the analysis needs one "
+            "full cycle recorded before the fault"
+        )
     if not starts or big <= 0:
         raise BenchwalkError(f"{rec.path}: no fault current found after the first cycle")
     i_det = min(starts)

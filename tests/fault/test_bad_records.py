@@ -121,3 +121,22 @@ def test_a_sample_missing_inside_the_dat(
     data[22 * 700 : 22 * 700 + 4] = (9999).to_bytes(4, "little")
     dat.write_bytes(bytes(data))
     assert f"{p}: the sample numbers in the .dat are not consecutive" in _check(capsys, p)
+
+
+def test_a_fault_inside_the_first_cycle(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    waves = fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 2000, 0.005)
+    p = write_comtrade(
+        tmp_path / "early", as_record(waves, 50.0, 10_000.0, 0.005), "2013", "FLOAT32"
+    )
+    assert "needs one full cycle recorded before the fault" in _check(capsys, p)
+
+
+def test_line_to_line_voltage_channels_are_not_taken_for_phases(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    p = _record(tmp_path)
+    text = p.read_text()
+    for ph in ("A", "B", "C"):  # relabel the voltage channels' phases as line to line
+        text = text.replace(f",V{ph},{ph},,V,", f",V{ph},{ph}{'BCA'['ABC'.index(ph)]},,V,")
+    p.write_text(text, newline="")
+    assert "needs them (--voltages)" in _check(capsys, p)

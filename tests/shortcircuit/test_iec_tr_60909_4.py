@@ -7,7 +7,7 @@ Values: pandapower's own test ``test_iec_60909_4_3ph_small_without_gen``
 
 The network is rebuilt twice: as pandapower builds it in that test (so ``calc_sc`` runs live
 as the oracle) and as a benchwalk profile. benchwalk has no three-winding transformer, so each
-400/120/30 kV unit enters as its star equivalent (IEC 60909-0 §6.3.2, eq. (10)) with K_TAB,
+400/120/30 kV unit enters as its star equivalent (IEC 60909-0 §6.3.2, eq. (10); clause numbers from memory) with K_TAB,
 K_TAC, K_TBC applied per winding pair first (§6.3.3, eq. (13)), as pandapower does: a
 400/120 kV transformer (star branch A, positive), a line at 120 kV (branch B, whose reactance
 is negative), a 120/30 kV transformer (branch C). Those star branches are exempt from the

@@ -117,7 +117,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--currents", help="current channels, e.g. IA,IB,IC (default: by unit and phase)"
     )
     ck.add_argument(
-        "--voltages", help="phase-to-ground voltage channels at the faulted bus, e.g. VA,VB,VC"
+        "--voltages",
+        help="phase-to-ground voltage channels at the faulted bus, in the order of --currents, e.g. VA,VB,VC",
     )
     ck.add_argument(
         "--as-recorded",
