@@ -1,6 +1,6 @@
 """The factors of IEC 60909-0 that are plain formulas: c, kappa, K_T and the heat factor m.
 
-Sources: IEC 60909-0:2016 Table 1 (voltage factor c), eq. (55) for kappa, §6.3.3 for the
+Sources (clause and equation numbers from memory): IEC 60909-0:2016 Table 1 (voltage factor c), eq. (55) for kappa, §6.3.3 for the
 network-transformer correction K_T, eq. (102)/(103) for the thermal factors m and n; the
 formulas and the c table are as pandapower implements them (REFERENCES.md §6).
 """
