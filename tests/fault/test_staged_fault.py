@@ -217,8 +217,12 @@ def test_a_record_at_network_scale(tmp_path: Path) -> None:
 
     vs, ps = 33000.0 / 400.0, 333.3333333
     z_bench = complex(0.31441219676443, 0.62529757411544)  # Z1 at B2 (CALIBRATION_NOTES §4.9)
-    waves = fault_waves(phase_voltages(408.0 * vs, 0.0), z_bench * vs**2 / ps, 50.0, 10_000.0, 2000, 0.04)
-    rec = read_record(write_comtrade(tmp_path / "net", as_record(waves, 50.0, 10_000.0, 0.04), "2013", "FLOAT32"))
+    waves = fault_waves(
+        phase_voltages(408.0 * vs, 0.0), z_bench * vs**2 / ps, 50.0, 10_000.0, 2000, 0.04
+    )
+    rec = read_record(
+        write_comtrade(tmp_path / "net", as_record(waves, 50.0, 10_000.0, 0.04), "2013", "FLOAT32")
+    )
     comp = compare(analyse(rec), PROFILE, "B2", scale="network")
     figs = {f.key: f for f in comp.figures}
     assert comp.un_v == 33000.0 and comp.c_like == pytest.approx(408.0 / 400.0, rel=1e-6)
@@ -239,6 +243,6 @@ def test_simulated_record_refuses_what_it_does_not_model(tmp_path: Path) -> None
 def test_predict_with_a_covariance(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     cov = _tight_cov_json(tmp_path / "cov.json", rel=0.01)
     assert main(["fault", "predict", str(DEMO), "--bus", "B2", "--covariance", str(cov)]) == 0
-    line = next(ln for ln in capsys.readouterr().out.splitlines() if "u(I\"k)" in ln)
+    line = next(ln for ln in capsys.readouterr().out.splitlines() if 'u(I"k)' in ln)
     u = float(line.split()[2])
     assert 0.5 < u < 5.0  # about 1 % of 363 A from 1 % parameters (delta method)
