@@ -131,6 +131,11 @@ def compare(
     from ..errors import BenchwalkError
 
     phases = analysis.faulted
+    if abs(analysis.frequency_hz - profile.bench.frequency_hz) > 1.0:
+        raise BenchwalkError(
+            f"the record is at {analysis.frequency_hz:g} Hz but the profile {profile.path} at "
+            f"{profile.bench.frequency_hz:g} Hz; is it the right record?"
+        )
     if analysis.u_pre_ll_v is None:
         raise BenchwalkError(
             "the record has no voltage channels; U_pre (and so c = U_pre/Un) needs them (--voltages)"

@@ -263,6 +263,12 @@ def read_record(
     iv = select(voltages, _VOLTAGE_UNITS, "voltages")
     cur = np.vstack([values(k, _CURRENT_UNITS) for k in ic])
     vol = np.vstack([values(k, _VOLTAGE_UNITS) for k in iv]) if iv else None
+    rates = {float(r[0]) for r in cfg.sample_rates}
+    if len(rates) > 1:
+        raise _fail(
+            p,
+            f"the record has {len(rates)} sampling rates; the analysis needs one (resample the record)",
+        )
     fs = float(cfg.sample_rates[0][0])
     t = np.asarray(rec.time, dtype=float)
     if fs <= 0:

@@ -87,7 +87,7 @@ def test_cfg_lies_about_the_sample_count(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], stated: int
 ) -> None:
     p = _record(tmp_path, "BINARY32", "2013")
-    p.write_text(p.read_text().replace("10000,2000", f"10000,{stated}"), newline="")
+    p.write_bytes(p.read_bytes().replace(b"10000,2000", f"10000,{stated}".encode()))
     assert f"{p}: the .cfg states {stated} samples but the .dat holds 2000" in _check(capsys, p)
 
 
@@ -135,8 +135,22 @@ def test_line_to_line_voltage_channels_are_not_taken_for_phases(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     p = _record(tmp_path)
-    text = p.read_text()
+    text = p.read_bytes().decode("ascii")
     for ph in ("A", "B", "C"):  # relabel the voltage channels' phases as line to line
         text = text.replace(f",V{ph},{ph},,V,", f",V{ph},{ph}{'BCA'['ABC'.index(ph)]},,V,")
     p.write_text(text, newline="")
     assert "needs them (--voltages)" in _check(capsys, p)
+
+
+def test_several_sampling_rates_and_a_foreign_frequency(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    p = _record(tmp_path, "FLOAT32", "2013")
+    good = p.read_bytes().decode("ascii")
+    assert "\r\n1\r\n10000,2000\r\n" in good and "\r\n50\r\n1\r\n" in good
+    p.write_text(
+        good.replace("\r\n1\r\n10000,2000\r\n", "\r\n2\r\n10000,1000\r\n5000,2000\r\n"), newline=""
+    )
+    assert f"{p}: the record has 2 sampling rates" in _check(capsys, p)
+    p.write_text(good.replace("\r\n50\r\n1\r\n", "\r\n60\r\n1\r\n"), newline="")
+    assert "the record is at 60 Hz but the profile" in _check(capsys, p)

@@ -105,3 +105,22 @@ def test_secondary_values_are_made_primary_and_said_so(tmp_path: Path) -> None:
     assert "IA: file values are secondary; multiplied by 600/1 = 600 to primary" in prim.notes
     assert any(n.startswith("IA: values taken as recorded (secondary") for n in raw.notes)
     assert analyse(prim).phases[0].ik_dft_a == pytest.approx(336.5635, abs=1e-3)
+
+
+def test_a_fault_cleared_by_a_breaker(tmp_path: Path) -> None:
+    # 2 s record with 10 A of load before the fault; every current is interrupted at 0.3 s.
+    # The fault component still gives the §6.10 figures (the steady cycle is the last before
+    # clearing), and the end of the fault is found within a half cycle.
+    import dataclasses
+
+    import numpy as np
+
+    i_pre = [10 * np.exp(-1j * (0.3 + 2 * np.pi / 3 * k)) for k in range(3)]
+    waves = fault_waves(phase_voltages(408.0, 0.0), Z, 50.0, 10_000.0, 20_000, 0.04, i_pre=i_pre)
+    cur = waves.currents.copy()
+    cur[:, 3000:] = 0.0
+    rec = as_record(dataclasses.replace(waves, currents=cur), 50.0, 10_000.0, 0.04)
+    a = analyse(read_record(write_comtrade(tmp_path / "cleared", rec, "2013", "FLOAT32")))
+    assert 0.29 <= a.fault_end_s <= 0.3
+    assert [p.ik_dft_a for p in a.phases] == pytest.approx([336.5635] * 3, abs=1e-3)
+    assert a.phases[0].tau_s * 1e3 == pytest.approx(6.3305, abs=5e-5)
