@@ -23,6 +23,7 @@ from typing import Literal
 
 import numpy as np
 
+from ..errors import BenchwalkError
 from ..model import Profile
 from ..shortcircuit.iec60909 import (
     FaultKind,
@@ -128,8 +129,6 @@ def compare(
     lv_tol_pct: float = 10.0,
 ) -> Comparison:
     """Compare a record's analysis with the model's prediction at ``bus``."""
-    from ..errors import BenchwalkError
-
     phases = analysis.faulted
     if abs(analysis.frequency_hz - profile.bench.frequency_hz) > 1.0:
         raise BenchwalkError(
@@ -155,14 +154,15 @@ def compare(
     un = probe.un_v
     c_like = u_pre / un
     pk_ph = max(phases, key=lambda p: p.peak_a)
-    # like for like per phase: the phase's own pre-fault voltage drives its fault current
-    k_pk = analysis.current_names.index(pk_ph.name)
+    # like for like per phase (3ph): the phase's own pre-fault voltage drives its fault current
     u_ph = analysis.u_pre_phase_v
-    v_share = (
-        u_ph[k_pk] / (sum(u_ph) / len(u_ph))
-        if fault == "3ph" and len(u_ph) == len(analysis.phases)
-        else 1.0
-    )
+    per_phase = fault == "3ph" and len(u_ph) == len(analysis.phases)
+    mean_u = sum(u_ph) / len(u_ph) if u_ph else 1.0
+    shares = {
+        p.name: u_ph[analysis.current_names.index(p.name)] / mean_u if per_phase else 1.0
+        for p in phases
+    }
+    v_share = shares[pk_ph.name]
 
     def peak_of(sc: ShortCircuit, alpha_deg: float, share: float) -> float:
         rx = sc.zk_ohm.real / sc.zk_ohm.imag
@@ -182,14 +182,6 @@ def compare(
     u_rel = rec_class_pct / 100.0 / math.sqrt(3)
     for key in ("ikss", "peak", "ip"):  # the prediction scales with the measured U_pre
         u_p[key] = math.hypot(u_p[key], pred[key] * u_rel)
-    shares = {
-        p.name: (
-            u_ph[analysis.current_names.index(p.name)] / (sum(u_ph) / len(u_ph))
-            if fault == "3ph" and len(u_ph) == len(analysis.phases)
-            else 1.0
-        )
-        for p in phases
-    }
     by_phase = {p.name: peak_of(like, p.alpha_deg, shares[p.name]) for p in phases}
 
     ik_fit = float(np.mean([p.ik_fit_a for p in phases]))
