@@ -246,3 +246,28 @@ def test_predict_with_a_covariance(tmp_path: Path, capsys: pytest.CaptureFixture
     line = next(ln for ln in capsys.readouterr().out.splitlines() if 'u(I"k)' in ln)
     u = float(line.split()[2])
     assert 0.5 < u < 5.0  # about 1 % of 363 A from 1 % parameters (delta method)
+
+
+def test_superposition_check_of_the_notes(tmp_path: Path) -> None:
+    # CALIBRATION_NOTES §6.11 [C]: POC step C3 (the demo's normal state), true parameters, fault
+    # at B2: V_pre(B2) = 391.709 V and V_pre/(sqrt3 |Zk|) without loads = 323.125 A. The POC is
+    # balanced, so load bank 2 gets its total (5 kW, 1.6 kvar) spread evenly, as there.
+    import dataclasses
+
+    from meas.model import LoadParams
+
+    def balanced(b):  # type: ignore[no-untyped-def]
+        if b.id == "LD2" and isinstance(b.model, LoadParams):
+            return dataclasses.replace(
+                b, model=dataclasses.replace(b.model, p_w=5000.0, q_var=1600.0)
+            )
+        return b
+
+    poc = dataclasses.replace(PROFILE, branches=tuple(balanced(b) for b in PROFILE.branches))
+    sf = stage_fault(poc, "B2", tmp_path / "c3", noise_pct=0.0, data_format="FLOAT32")
+    assert sf.u_pre_ll_v == pytest.approx(391.709, abs=5e-4) and sf.ik_a == pytest.approx(
+        323.125, abs=5e-4
+    )
+    a = analyse(read_record(sf.path))
+    assert a.u_pre_ll_v == pytest.approx(391.709, abs=1e-3)
+    assert [p.ik_dft_a for p in a.phases] == pytest.approx([323.125] * 3, abs=1e-3)
