@@ -39,3 +39,11 @@ REMOTE_COMMAND_CAUTION = (
     "switching procedure, not this tool's: make sure the switching programme allows it, the "
     "area is clear and lockout/tagout is respected. This tool is no interlock."
 )
+
+# Printed first by the fault-validation commands and kept in their summary.json.
+STAGED_FAULT_CAUTION = (
+    "CAUTION: staging a fault is hazardous work for qualified persons only, under the site's "
+    "switching procedures, permits and lockout/tagout; local codes and licensed practice "
+    "prevail. benchwalk only analyses recordings of a fault: it never stages, triggers or "
+    "controls one, and it is no interlock."
+)
