@@ -26,6 +26,7 @@ COMMANDS: dict[str, str] = {
     "export": "export",
     "check": "check",
     "report": "report",
+    "calibrate": "calibrate",
 }
 
 

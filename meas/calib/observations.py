@@ -100,25 +100,27 @@ def pooled_observations(
 ) -> Observations:
     """Medians with uncertainties from the pooled within-step scatter (see module docstring).
 
+    The spread is pooled relative to each reading's scale (``_scales``).
+
     ``repeatability`` (relative standard deviation of one capture) replaces the scatter
     when given, and is the fallback when no reading of a meter and quantity repeats.
     """
+    scale = _scales(rows)
     pooled: dict[tuple[str, str], list[float]] = {}
-    for r in rows:
+    for r, sc in zip(rows, scale, strict=True):
         s = np.asarray(r.samples, float)
-        med = float(np.median(s))
-        if len(s) >= 2 and abs(med) > 0:
-            pooled.setdefault((r.meter, r.quantity), []).append(float(np.var(s, ddof=1)) / med**2)
+        if len(s) >= 2 and sc > 0:
+            pooled.setdefault((r.meter, r.quantity), []).append(float(np.var(s, ddof=1)) / sc**2)
     rel = {k: math.sqrt(float(np.mean(v))) for k, v in pooled.items()}
     value, sigma, caps = [], [], []
-    for r in rows:
+    for r, sc in zip(rows, scale, strict=True):
         s = np.asarray(r.samples, float)
         med = float(np.median(s))
         n = len(s)
         spread = repeatability if repeatability is not None else rel.get((r.meter, r.quantity))
         if spread is None:
             spread = DEFAULT_REPEATABILITY
-        u = median_factor(n) * spread * abs(med) / math.sqrt(n)
+        u = median_factor(n) * spread * sc / math.sqrt(n)
         res = resolution_sigma(profile, profile.meter(r.meter), r.quantity, r.phase, med)
         value.append(med)
         sigma.append(max(u, res, ABS_FLOOR[r.quantity]))
@@ -133,6 +135,22 @@ def pooled_observations(
         sigma=np.array(sigma, float),
         captures=np.array(caps, dtype=int),
     )
+
+
+def _scales(rows: Sequence[RawRow]) -> list[float]:
+    """What a reading's spread is relative to: |V| and |I| themselves, and for P and Q the
+    apparent power of the same phase (a meter's angle error moves Q by |S|·δφ, however small Q
+    is)."""
+    med = {(r.step, r.meter, r.quantity, r.phase): float(np.median(r.samples)) for r in rows}
+    out = []
+    for r in rows:
+        own = abs(med[(r.step, r.meter, r.quantity, r.phase)])
+        if r.quantity in ("p", "q"):
+            p = med.get((r.step, r.meter, "p", r.phase), 0.0)
+            q = med.get((r.step, r.meter, "q", r.phase), 0.0)
+            own = max(own, math.hypot(p, q))
+        out.append(own)
+    return out
 
 
 # Relative repeatability assumed when nothing repeats (our choice: 0.05 %, a bench meter's
