@@ -27,6 +27,7 @@ COMMANDS: dict[str, str] = {
     "check": "check",
     "report": "report",
     "calibrate": "calibrate",
+    "campaign": "campaign",
 }
 
 
