@@ -115,11 +115,12 @@ def drifting_steps(problem: Problem, fit: FitResult) -> list[str]:
 
 def judge(problem: Problem, fit: FitResult, dev: Deviations, alpha: float) -> Verdict:
     obs = problem.obs
+    text = ""
     if not fit.converged:
-        return Verdict(False, f"the fit did not converge ({fit.message}).")
+        text = f"the fit did not converge after {fit.nfev} evaluations ({fit.message}). "
     if fit.chi2_rejected(alpha):
         worst = int(np.argmax(fit.normalized))
-        text = (
+        text += (
             f"χ² = {fit.chi2:.1f} for {fit.dof} degrees of freedom (p = {fit.p_value:.2g}) rejects "
             f"the fit at {alpha:g}: the readings do not fit one model within their uncertainty; "
             f"the worst is step {obs.key(worst)} (normalized residual {fit.normalized[worst]:.1f})."
@@ -130,9 +131,10 @@ def judge(problem: Problem, fit: FitResult, dev: Deviations, alpha: float) -> Ve
                 f" The voltages of every meter move together in step {', '.join(drift[:3])}"
                 f"{' and more' if len(drift) > 3 else ''}, as when the supply EMF drifts between "
                 "steps: fit one source EMF per step with --emf per-step (the source impedance then "
-                "comes from its prior)."
+                "rests on its prior and on what the EMF cannot explain)."
             )
-        return Verdict(False, text)
+    if text:
+        return Verdict(False, text.strip())
     bad = ~dev.pass_after
     if np.any(bad):
         ratio = np.abs(dev.dev_after) / dev.limit_after

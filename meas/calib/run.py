@@ -31,6 +31,7 @@ class Options:
     repeatability: float | None = None  # relative, per capture; None = from the captures
     alpha: float = 0.05  # significance of the χ² test
     method: str = "trf"
+    tol: float = 1e-10  # ftol, xtol and gtol of least_squares
 
 
 @dataclass(frozen=True)
@@ -66,8 +67,10 @@ def _notes(problem: Problem, params: Sequence[ModelParameter], fixed: Sequence[s
     out = []
     if problem.emf_per_step:
         out.append(
-            "The source EMF is fitted per step, so the source impedance (sc_va, x_r) comes from "
-            "its prior: a step-to-step voltage change can no longer tell the EMF from the drop."
+            "The source EMF is fitted per step: a step-to-step voltage change no longer tells the "
+            "EMF from the drop across the source impedance (sc_va, x_r), which then rests on its "
+            "prior and on what a balanced EMF cannot explain (the drop of unbalanced currents); "
+            "see its post/prior ratio."
         )
     if (problem.gain_of_row >= 0).any():
         out.append(
@@ -98,7 +101,7 @@ def calibrate(
         emf_per_step=options.emf_per_step,
         gains=options.noise == "systematic",
     )
-    fit = run_fit(problem, method=options.method)
+    fit = run_fit(problem, method=options.method, tol=options.tol)
     ests = tuple(estimates(problem.unknowns, fit.z, fit.cov))
     m = len(obs)
     dirs = tuple(directions(problem.unknowns, fit.jac[:m], only=problem.n_model))
