@@ -99,18 +99,24 @@ class Verdict:
 
 
 def drifting_steps(problem: Problem, fit: FitResult) -> list[str]:
-    """Steps whose voltage residuals, over every meter, sit together off zero (a moving EMF)."""
+    """Steps whose voltage residuals, over every meter, sit together off zero (a moving EMF).
+
+    A step counts when the mean of its weighted voltage residuals is more than DRIFT_T standard
+    errors off zero, and only if such step means carry most of the voltage misfit: when every
+    reading is off in its own way, that is not a drifting supply.
+    """
     obs = problem.obs
-    out = []
+    out, explained, total = [], 0.0, 0.0
     for k, st in enumerate(obs.steps):
         rows = [i for i in range(len(obs)) if obs.step[i] == k and obs.quantity[i] == "v_ln"]
         if len(rows) < 2:
             continue
         r = fit.weighted[rows]
-        t = float(np.mean(r) * math.sqrt(len(r)))
-        if abs(t) > DRIFT_T:
+        explained += len(r) * float(np.mean(r)) ** 2
+        total += float(r @ r)
+        if abs(float(np.mean(r)) * math.sqrt(len(r))) > DRIFT_T:
             out.append(st.id)
-    return out
+    return out if total > 0 and explained >= 0.5 * total else []
 
 
 def judge(problem: Problem, fit: FitResult, dev: Deviations, alpha: float) -> Verdict:

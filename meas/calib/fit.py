@@ -76,7 +76,7 @@ def _guarded(problem: Problem):
 
 
 def run_fit(
-    problem: Problem, *, method: str = "trf", max_nfev: int = 60, tol: float = 1e-10
+    problem: Problem, *, method: str = "trf", max_nfev: int = 40, tol: float = 1e-10
 ) -> FitResult:
     """Fit from the profile values (z = 0) and collect everything the report needs."""
     t0 = time.perf_counter()

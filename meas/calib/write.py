@@ -58,6 +58,18 @@ def _schema(df: pd.DataFrame) -> dict[str, Any]:
     }
 
 
+def _file(folder: Path, rel: str, fmt: str, media: str) -> dict[str, Any]:
+    """A non-table resource: a plain file with its hash (Data Package v2 ``type: file``)."""
+    return {
+        "name": slug(rel),
+        "type": "file",
+        "path": rel,
+        "format": fmt,
+        "mediatype": media,
+        "hash": "sha256:" + sha256_of(folder / rel),
+    }
+
+
 def _write(folder: Path, ds: Dataset, c: Calibration, date: str) -> dict[str, Any]:
     folder.mkdir(parents=True)
     resources = []
@@ -100,13 +112,16 @@ def _write(folder: Path, ds: Dataset, c: Calibration, date: str) -> dict[str, An
     (folder / "fit.json").write_text(json.dumps(summary, indent=2, default=str) + "\n", "utf-8")
     title = f"Calibration of {c.profile.bench.name} from session {ds.session}"
     (folder / "report.html").write_text(render(c, summary, title), encoding="utf-8")
-    for extra in ("fit.json", "report.html"):
-        resources.append({"name": extra.replace(".", "-"), "path": extra, "hash": "sha256:" + sha256_of(folder / extra)})
+    for extra, fmt, media in (
+        ("fit.json", "json", "application/json"),
+        ("report.html", "html", "text/html"),
+    ):
+        resources.append(_file(folder, extra, fmt, media))
     if c.verdict.accepted:
         for p in sorted((folder / PROFILE_DIR).rglob("*")):
             if p.is_file():
                 rel = p.relative_to(folder).as_posix()
-                resources.append({"name": slug(rel), "path": rel, "hash": "sha256:" + sha256_of(p)})
+                resources.append(_file(folder, rel, "toml", "application/toml"))
     pkg = {
         "$schema": DP_SCHEMA,
         "name": f"benchwalk-calibration-{slug(ds.session)}",
