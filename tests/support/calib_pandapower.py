@@ -120,7 +120,9 @@ class PandapowerPredictor:
         for k in todo:
             net = self.nets[k]
             self._write(net, profile, 1.0 if emf is None else float(emf[k]))
-            pp.runpp(net, tolerance_mva=1e-12, max_iteration=30, calculate_voltage_angles=True)
+            pp.runpp(
+                net, tolerance_mva=1e-12, max_iteration=30, calculate_voltage_angles=True, numba=False
+            )
             self.solves += 1
             for i in np.flatnonzero(self.obs.step == k):
                 out[i] = self._reading(net, profile, i)

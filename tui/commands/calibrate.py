@@ -6,12 +6,18 @@ reason names the worst step, meter and quantity); 2 a usage or data error (one l
 
 from __future__ import annotations
 
-import argparse
-from pathlib import Path
+import os
 
-from meas.calib.run import Calibration, Options, calibrate_dataset
-from meas.calib.write import write_calibration
-from meas.errors import BenchwalkError
+# The fit works on small dense matrices: BLAS threads only oversubscribe a shared machine (they
+# made a fit 7x slower here; see benchmarks/bench_solver.py). numpy is not imported yet.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import argparse  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+from meas.calib.run import Calibration, Options, calibrate_dataset  # noqa: E402
+from meas.calib.write import write_calibration  # noqa: E402
+from meas.errors import BenchwalkError  # noqa: E402
 
 HELP = "fit the profile's network model (lines, source, loads) to a dataset's captured readings"
 

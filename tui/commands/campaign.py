@@ -7,13 +7,19 @@ switch configuration the profile's switches allow) would help most. No device is
 
 from __future__ import annotations
 
-import argparse
-from pathlib import Path
+import os
 
-from meas.calib.design import CampaignPlan, plan_campaign, proposal
-from meas.calib.observations import DEFAULT_REPEATABILITY
-from meas.errors import BenchwalkError
-from meas.profile import load_profile
+# The fit works on small dense matrices: BLAS threads only oversubscribe a shared machine (they
+# made a fit 7x slower here; see benchmarks/bench_solver.py). numpy is not imported yet.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import argparse  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+from meas.calib.design import CampaignPlan, plan_campaign, proposal  # noqa: E402
+from meas.calib.observations import DEFAULT_REPEATABILITY  # noqa: E402
+from meas.errors import BenchwalkError  # noqa: E402
+from meas.profile import load_profile  # noqa: E402
 
 HELP = "before a campaign: which model parameters the sequence will calibrate, and what step to add"
 
