@@ -101,9 +101,16 @@ def side_by_side(rounds: int) -> list[Figure]:
             "s",
             reference=theirs,
             ratio=ours / theirs,
-            targets=(Target("ours", "<=", 1.0), Target("ratio", "<=", 1 / 20, "pandapower >= 20x slower")),
+            targets=(
+                Target("ours", "<=", 1.0),
+                Target("ratio", "<=", 1 / 20, "pandapower >= 20x slower"),
+            ),
             note=f"optimum differs by {diff:.1e} (relative)",
-            extra={"nfev_ours": own.fit.nfev, "nfev_pandapower": ref.fit.nfev, "max_rel_diff": diff},
+            extra={
+                "nfev_ours": own.fit.nfev,
+                "nfev_pandapower": ref.fit.nfev,
+                "max_rel_diff": diff,
+            },
         )
     ]
 
@@ -148,7 +155,9 @@ def coverage(seeds: int) -> float:
                 total += 1
                 inside += e.low95 <= truth[e.name] <= e.high95
     share = inside / total
-    print(f"coverage over {seeds} seeds: {inside} of {total} measured parameters inside 95 % ({share:.1%})")
+    print(
+        f"coverage over {seeds} seeds: {inside} of {total} measured parameters inside 95 % ({share:.1%})"
+    )
     return share
 
 

@@ -74,9 +74,7 @@ def line_from_both_ends(
     s_series = s_from + 1j * half_b * vf2
     i2 = abs(s_series) ** 2 / vf2
     total = s_from + s_to
-    return SeriesBranch(
-        total.real / i2, (total.imag + half_b * (vf2 + vt2)) / i2, 3.0 * total.real
-    )
+    return SeriesBranch(total.real / i2, (total.imag + half_b * (vf2 + vt2)) / i2, 3.0 * total.real)
 
 
 @dataclass(frozen=True)

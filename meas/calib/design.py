@@ -56,7 +56,9 @@ class CampaignPlan:
         return [e.name for e in self.parameters if e.verdict == which]
 
 
-def _layout(profile: Profile, configs: Sequence[StepConfig], values: np.ndarray | None) -> Observations:
+def _layout(
+    profile: Profile, configs: Sequence[StepConfig], values: np.ndarray | None
+) -> Observations:
     rows = []
     n = 0
     for k, c in enumerate(configs):
@@ -113,7 +115,9 @@ def plan_campaign(
     configs = planned + extra
     obs = _observations(profile, configs, repeatability)
     chosen = select_parameters(profile, params)
-    problem = Problem(profile, obs, NetworkPredictor(profile, obs), chosen, emf_per_step=emf_per_step)
+    problem = Problem(
+        profile, obs, NetworkPredictor(profile, obs), chosen, emf_per_step=emf_per_step
+    )
     n = len(problem.unknowns)
     z = np.zeros(n)
     jac = problem.jacobian(z)[: len(obs)]
@@ -155,5 +159,7 @@ def _nearest(planned: Sequence[StepConfig], c: StepConfig) -> tuple[str, dict[st
 
 def proposal(c: Candidate) -> str:
     """A step in words: what to switch from the nearest planned step."""
-    moves = ", ".join(f"{'close' if v == 'closed' else 'open'} {k}" for k, v in sorted(c.changes.items()))
+    moves = ", ".join(
+        f"{'close' if v == 'closed' else 'open'} {k}" for k, v in sorted(c.changes.items())
+    )
     return f"after step {c.nearest}: {moves} ({describe(c.config.switches)})"

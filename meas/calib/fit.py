@@ -107,7 +107,9 @@ def run_fit(
     model_u = np.sqrt(np.clip(np.einsum("ij,jk,ik->i", dh, cm, dh), 0.0, None))
     chi2 = float(r @ r)
     dof = m  # every unknown has a prior row: m_data + n_prior - n
-    converged = bool(res.success) and np.all(np.isfinite(r)) and float(np.max(np.abs(r))) < BIG_RESIDUAL
+    converged = (
+        bool(res.success) and np.all(np.isfinite(r)) and float(np.max(np.abs(r))) < BIG_RESIDUAL
+    )
     return FitResult(
         z=z,
         cov=cov,

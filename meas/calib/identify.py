@@ -58,7 +58,18 @@ def estimates(unknowns: tuple[Unknown, ...], z: np.ndarray, cov: np.ndarray) -> 
         else:
             std, prior = abs(val) * sz * u.s, abs(u.nominal) * u.s
         out.append(
-            Estimate(u.name, u.kind, u.nominal, val, std, min(lo, hi), max(lo, hi), prior, sz, verdict(sz))
+            Estimate(
+                u.name,
+                u.kind,
+                u.nominal,
+                val,
+                std,
+                min(lo, hi),
+                max(lo, hi),
+                prior,
+                sz,
+                verdict(sz),
+            )
         )
     return out
 
@@ -86,9 +97,7 @@ def directions(
     for k in np.argsort(s):
         v = vt[k]
         order = np.argsort(-np.abs(v))
-        members = tuple(
-            (unknowns[j].name, float(v[j])) for j in order if abs(v[j]) >= 0.1
-        )
+        members = tuple((unknowns[j].name, float(v[j])) for j in order if abs(v[j]) >= 0.1)
         out.append(Direction(float(s[k]), members))
     return out
 

@@ -60,10 +60,14 @@ class Observations:
         return len(self.value)
 
     def key(self, i: int) -> str:
-        return f"{self.steps[int(self.step[i])].id} {self.meter[i]} {self.quantity[i]}.{self.phase[i]}"
+        return (
+            f"{self.steps[int(self.step[i])].id} {self.meter[i]} {self.quantity[i]}.{self.phase[i]}"
+        )
 
 
-def resolution_sigma(profile: Profile, meter: Meter, quantity: str, phase: str, value: float) -> float:
+def resolution_sigma(
+    profile: Profile, meter: Meter, quantity: str, phase: str, value: float
+) -> float:
     """Standard uncertainty of the register quantization of one reading, primary units."""
     try:
         spec = profile.meter_map(meter.id).spec(f"{quantity}.{phase}")

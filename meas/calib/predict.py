@@ -21,9 +21,8 @@ import numpy as np
 from ..model import Profile
 from ..network.admittance import build_network
 from ..network.elements import SourceModel, element_models
-from ..network.loadflow import solve
+from ..network.loadflow import Solution, solve
 from ..network.parameters import with_values
-from ..network.loadflow import Solution
 from ..network.readings import meter_phasors, phase_values
 from .observations import Observations
 

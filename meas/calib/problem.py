@@ -128,7 +128,9 @@ class Problem:
     def emf(self, z: np.ndarray) -> np.ndarray | None:
         if not self.emf_per_step:
             return None
-        return np.array([u.value(float(z[j])) for j, u in enumerate(self.unknowns) if u.kind == "emf"])
+        return np.array(
+            [u.value(float(z[j])) for j, u in enumerate(self.unknowns) if u.kind == "emf"]
+        )
 
     def row_gains(self, z: np.ndarray) -> np.ndarray:
         g = np.zeros(len(self.obs))

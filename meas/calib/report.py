@@ -66,10 +66,14 @@ def _svg(width: int, height: int, title: str, parts: list[str]) -> str:
 
 def deviation_svg(dev: pd.DataFrame) -> str:
     """Per step and meter: max |dev|/limit before (grey) and after (blue); 1 is the limit."""
-    g = dev.assign(
-        rb=dev["dev_before_pct"].abs() / dev["limit_before_pct"],
-        ra=dev["dev_after_pct"].abs() / dev["limit_after_pct"],
-    ).groupby(["step", "meter"], sort=False)[["rb", "ra"]].max()
+    g = (
+        dev.assign(
+            rb=dev["dev_before_pct"].abs() / dev["limit_before_pct"],
+            ra=dev["dev_after_pct"].abs() / dev["limit_after_pct"],
+        )
+        .groupby(["step", "meter"], sort=False)[["rb", "ra"]]
+        .max()
+    )
     if g.empty:
         return ""
     left, bar, top, width = 220, 7, 20, 720
@@ -79,15 +83,24 @@ def deviation_svg(dev: pd.DataFrame) -> str:
     span = width - left - 20
     parts = []
     x1 = left + span / vmax
-    parts.append(f'<line x1="{x1:.1f}" y1="{top - 10}" x2="{x1:.1f}" y2="{height - 20}" stroke="#b3261e"/>')
+    parts.append(
+        f'<line x1="{x1:.1f}" y1="{top - 10}" x2="{x1:.1f}" y2="{height - 20}" stroke="#b3261e"/>'
+    )
     parts.append(f'<text x="{x1 + 3:.1f}" y="{top - 8}">limit</text>')
-    for n, ((step, meter), r) in enumerate(g.iterrows()):
+    for n, (key, rb, ra) in enumerate(zip(g.index, g["rb"], g["ra"], strict=True)):
+        step, meter = key
         y = top + n * (2 * bar + 4)
-        parts.append(f'<text x="{left - 6}" y="{y + 2 * bar - 2}" text-anchor="end">{_e(step)} {_e(meter)}</text>')
-        for k, (val, colour) in enumerate(((r["rb"], "#999"), (r["ra"], "#2b5fad"))):
+        parts.append(
+            f'<text x="{left - 6}" y="{y + 2 * bar - 2}" text-anchor="end">{_e(step)} {_e(meter)}</text>'
+        )
+        for k, (val, colour) in enumerate(((rb, "#999"), (ra, "#2b5fad"))):
             w = span * min(float(val), vmax) / vmax
-            parts.append(f'<rect x="{left}" y="{y + k * bar}" width="{w:.1f}" height="{bar - 1}" fill="{colour}"/>')
-    parts.append(f'<text x="{left}" y="{height - 6}">|deviation| / limit, grey before, blue after (clipped at {vmax:.3g})</text>')
+            parts.append(
+                f'<rect x="{left}" y="{y + k * bar}" width="{w:.1f}" height="{bar - 1}" fill="{colour}"/>'
+            )
+    parts.append(
+        f'<text x="{left}" y="{height - 6}">|deviation| / limit, grey before, blue after (clipped at {vmax:.3g})</text>'
+    )
     return _svg(width, height, "deviations before and after", parts)
 
 
@@ -101,20 +114,37 @@ def parameter_svg(par: pd.DataFrame) -> str:
     prior = Z95 * 100.0 * p["prior_u"] / p["profile_value"].abs()
     lo = 100.0 * (p["low95"] / p["profile_value"] - 1.0)
     hi = 100.0 * (p["high95"] / p["profile_value"] - 1.0)
-    vmax = float(np.nanmax(np.r_[prior.to_numpy(), lo.abs().to_numpy(), hi.abs().to_numpy()])) * 1.05
+    vmax = (
+        float(np.nanmax(np.r_[prior.to_numpy(), lo.abs().to_numpy(), hi.abs().to_numpy()])) * 1.05
+    )
     vmax = max(vmax, 1.0)
     span = (width - left - 20) / 2
     mid = left + span
     x = lambda v: mid + span * max(-vmax, min(vmax, v)) / vmax  # noqa: E731
     parts = [f'<line x1="{mid}" y1="{top - 8}" x2="{mid}" y2="{height - 22}" stroke="#444"/>']
-    for n, (r, pb, l_, h_) in enumerate(zip(p.itertuples(), prior, lo, hi, strict=True)):
+    rows = zip(
+        p["parameter"],
+        p["calibrated_value"].to_numpy(float),
+        p["profile_value"].to_numpy(float),
+        prior.to_numpy(float),
+        lo.to_numpy(float),
+        hi.to_numpy(float),
+        strict=True,
+    )
+    for n, (name, value, nominal, pb, l_, h_) in enumerate(rows):
         y = top + n * row
-        c = 100.0 * (r.calibrated_value / r.profile_value - 1.0)
-        parts.append(f'<text x="{left - 6}" y="{y + 10}" text-anchor="end">{_e(r.parameter)}</text>')
-        parts.append(f'<rect x="{x(-pb):.1f}" y="{y}" width="{x(pb) - x(-pb):.1f}" height="{row - 4}" fill="#e6e6e6"/>')
-        parts.append(f'<line x1="{x(l_):.1f}" y1="{y + 7}" x2="{x(h_):.1f}" y2="{y + 7}" stroke="#2b5fad" stroke-width="2"/>')
+        c = 100.0 * (value / nominal - 1.0)
+        parts.append(f'<text x="{left - 6}" y="{y + 10}" text-anchor="end">{_e(name)}</text>')
+        parts.append(
+            f'<rect x="{x(-pb):.1f}" y="{y}" width="{x(pb) - x(-pb):.1f}" height="{row - 4}" fill="#e6e6e6"/>'
+        )
+        parts.append(
+            f'<line x1="{x(l_):.1f}" y1="{y + 7}" x2="{x(h_):.1f}" y2="{y + 7}" stroke="#2b5fad" stroke-width="2"/>'
+        )
         parts.append(f'<circle cx="{x(c):.1f}" cy="{y + 7}" r="3" fill="#2b5fad"/>')
-    parts.append(f'<text x="{left}" y="{height - 6}">change from the profile value, % (axis ±{vmax:.3g} %); grey: 95 % prior band; blue: calibrated with its 95 % interval</text>')
+    parts.append(
+        f'<text x="{left}" y="{height - 6}">change from the profile value, % (axis ±{vmax:.3g} %); grey: 95 % prior band; blue: calibrated with its 95 % interval</text>'
+    )
     return _svg(width, height, "parameters against their priors", parts)
 
 
@@ -127,12 +157,16 @@ def residual_svg(dev: pd.DataFrame) -> str:
     vmax = max(4.0, float(np.nanmax(r)) * 1.05)
     xs = lambda i: left + (width - left - 10) * i / max(1, len(r) - 1)  # noqa: E731
     ys = lambda v: top + (height - top - 25) * (1 - min(v, vmax) / vmax)  # noqa: E731
-    parts = [f'<line x1="{left}" y1="{ys(3):.1f}" x2="{width - 10}" y2="{ys(3):.1f}" stroke="#b3261e"/>']
+    parts = [
+        f'<line x1="{left}" y1="{ys(3):.1f}" x2="{width - 10}" y2="{ys(3):.1f}" stroke="#b3261e"/>'
+    ]
     parts += [
         f'<circle cx="{xs(i):.1f}" cy="{ys(v):.1f}" r="1.6" fill="{"#b3261e" if v > 3 else "#2b5fad"}"/>'
         for i, v in enumerate(r)
     ]
-    parts.append(f'<text x="{left}" y="{height - 5}">normalized residual per reading (steps in order); red line at 3</text>')
+    parts.append(
+        f'<text x="{left}" y="{height - 5}">normalized residual per reading (steps in order); red line at 3</text>'
+    )
     return _svg(width, height, "normalized residuals", parts)
 
 

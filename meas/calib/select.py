@@ -53,7 +53,9 @@ def _step_switches(ds: Dataset, step: str, snapshots: Sequence[int]) -> dict[str
     """The switch states seen in the step's captures (the most frequent per switch)."""
     ss = ds["switch_states"]
     seen = ss[ss["snapshot"].isin(list(snapshots)) & ss["state"].isin(["open", "closed"])]
-    out = {sw: str(g["state"].mode().iloc[0]) for sw, g in seen.groupby("switch")}
+    out: dict[str, str] = {
+        str(sw): str(g["state"].mode().iloc[0]) for sw, g in seen.groupby("switch")
+    }
     if not out:
         row = ds["steps"][ds["steps"]["id"] == step]
         out = _switches_of(row["actual_switches"].iloc[0]) if len(row) else {}

@@ -29,7 +29,11 @@ def select_parameters(profile: Profile, patterns: Sequence[str] = ()) -> list[Mo
     for pat in patterns:
         hits = fnmatch.filter(names, pat)
         if not hits:
-            kind = "glob matches no parameter" if any(c in pat for c in "*?[") else "is not a parameter"
+            kind = (
+                "glob matches no parameter"
+                if any(c in pat for c in "*?[")
+                else "is not a parameter"
+            )
             raise BenchwalkError(
                 f"--param {pat!r} {kind} of the model in {profile.path}; "
                 f"its parameters are {', '.join(names)}"

@@ -37,9 +37,15 @@ from .tables import (
 
 _TABLES = {
     "parameters": ("Fitted model parameters with uncertainty and verdict", parameters_table),
-    "identifiability": ("Singular values of the data Jacobian and their combinations", identifiability_table),
+    "identifiability": (
+        "Singular values of the data Jacobian and their combinations",
+        identifiability_table,
+    ),
     "correlations": ("Pairs of unknowns correlated above 0.9", correlations_table),
-    "deviations": ("Model against readings before and after, per step, meter, quantity, phase", deviations_table),
+    "deviations": (
+        "Model against readings before and after, per step, meter, quantity, phase",
+        deviations_table,
+    ),
     "meter_gains": ("Fitted gain per meter and quantity against its class", gains_table),
 }
 _TYPES = {"f": "number", "i": "integer", "b": "boolean"}

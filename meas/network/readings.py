@@ -25,7 +25,9 @@ def _wrap_deg(a: np.ndarray) -> np.ndarray:
     return np.where(w == -180.0, 180.0, w)
 
 
-def phase_values(v: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def phase_values(
+    v: np.ndarray, i: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """|V|, |I|, P and Q per phase (S = V I*): the per-phase core of ``meter_values``."""
     s = v * np.conj(i)
     return np.abs(v), np.abs(i), s.real, s.imag

@@ -68,7 +68,9 @@ def test_source_thevenin_needs_four_steps():
 
 def test_line_from_both_ends_section_6_5():
     """L2 from M2 and M7, B = 40 uS (§6.5 [C])."""
-    br = line_from_both_ends(390.90912, 5888.9752, 4397.7301, 387.41374, -5846.5327, -4350.7349, 40.0)
+    br = line_from_both_ends(
+        390.90912, 5888.9752, 4397.7301, 387.41374, -5846.5327, -4350.7349, 40.0
+    )
     assert br.r_ohm == pytest.approx(0.120000, abs=5e-6)
     assert br.x_ohm == pytest.approx(0.150000, abs=5e-6)
     assert br.loss_w == pytest.approx(42.4425, abs=5e-5)
@@ -89,7 +91,14 @@ def test_model_side_reads_the_demo_bench_like_the_reference_study_section_6_3():
     """Step C2 (CB1 and SW2 closed): M1 V_LL 404.59355 V, I 15.37502 A, P 10133.18583 W,
     Q 3661.61178 var (§6.3 [C]: the study's NR and pandapower agree to 2e-10)."""
     profile = demo_profile()
-    sw = {"CB1": "closed", "SW2": "closed", "SW3": "open", "TIE": "open", "RX": "open", "LB2": "open"}
+    sw = {
+        "CB1": "closed",
+        "SW2": "closed",
+        "SW3": "open",
+        "TIE": "open",
+        "RX": "open",
+        "LB2": "open",
+    }
     rows = [RawRow(0, "M1", q, ph, (1.0,)) for q in ("v_ln", "i", "p", "q") for ph in "ABC"]
     obs = pooled_observations(profile, [StepConfig("C2", sw)], rows)
     h = NetworkPredictor(profile, obs).predict({})

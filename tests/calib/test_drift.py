@@ -46,5 +46,9 @@ def test_per_step_emf_fits_the_drift_and_the_source_impedance_returns_to_its_pri
         per_step = next(e for e in c.parameters if e.name == key)
         one = next(e for e in shared.parameters if e.name == key)
         assert per_step.ratio > one.ratio
-        assert per_step.low95 <= 600000.0 * (key == "SRC.sc_va") + 8.0 * (key == "SRC.x_r") <= per_step.high95
+        assert (
+            per_step.low95
+            <= 600000.0 * (key == "SRC.sc_va") + 8.0 * (key == "SRC.x_r")
+            <= per_step.high95
+        )
     assert any("prior" in n and "EMF" in n for n in c.notes)

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from support.calib_bench import as_built, live_configs, synthesize
+from support.calib_bench import DEMO, as_built, live_configs, synthesize
 from support.calib_pandapower import (
     PandapowerPredictor,
     balanced_demo,
@@ -18,7 +18,6 @@ from support.calib_pandapower import (
 from meas.calib.predict import NetworkPredictor
 from meas.calib.run import Options, calibrate
 from meas.profile import load_profile
-from support.calib_bench import DEMO
 
 
 @pytest.fixture(scope="module")

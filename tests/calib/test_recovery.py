@@ -64,7 +64,11 @@ def test_line_charging_of_l1_stays_prior_only(recovered):
 def test_meter_gains_are_estimated_within_their_uncertainty(recovered):
     _, _, gains, c = recovered
     est = {e.name: e for e in c.gains}
-    z = [(est[f"{m}.{k} gain"].value - g) / est[f"{m}.{k} gain"].u for (m, k), g in gains.items() if f"{m}.{k} gain" in est]
+    z = [
+        (est[f"{m}.{k} gain"].value - g) / est[f"{m}.{k} gain"].u
+        for (m, k), g in gains.items()
+        if f"{m}.{k} gain" in est
+    ]
     assert len(z) > 20
     assert np.mean(np.abs(z) < 1.96) > 0.8
 

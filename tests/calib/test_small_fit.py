@@ -67,14 +67,22 @@ def test_per_phase_values_keep_their_split(small):
 def test_verdict_thresholds():
     """Our thresholds (CALIBRATION_NOTES.md §1.4): < 0.5 measured, 0.5-0.9 partly, else prior."""
     assert [verdict(r) for r in (0.1, 0.49, 0.5, 0.89, 0.9, 1.0)] == [
-        "measured", "measured", "partly", "partly", "prior only", "prior only"
+        "measured",
+        "measured",
+        "partly",
+        "partly",
+        "prior only",
+        "prior only",
     ]
 
 
 @pytest.mark.parametrize(
     ("patterns", "words"),
-    [(("X1.r_ohm",), "is not a parameter"), (("T*.uk_pct",), "glob matches no parameter"),
-     (("SH1.p_w",), "profile value is 0")],
+    [
+        (("X1.r_ohm",), "is not a parameter"),
+        (("T*.uk_pct",), "glob matches no parameter"),
+        (("SH1.p_w",), "profile value is 0"),
+    ],
 )
 def test_parameter_selection_errors_name_the_pattern(patterns, words):
     with pytest.raises(BenchwalkError, match=words):

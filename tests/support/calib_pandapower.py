@@ -70,13 +70,25 @@ class PandapowerPredictor:
             elif isinstance(m, LineParams):
                 assert br.to_bus is not None
                 pp.create_line_from_parameters(
-                    net, bus[br.from_bus], bus[br.to_bus], 1.0, 0.1, 0.1, 0.0, 1.0,
-                    name=br.id, in_service=on[br.id] is not False,
+                    net,
+                    bus[br.from_bus],
+                    bus[br.to_bus],
+                    1.0,
+                    0.1,
+                    0.1,
+                    0.0,
+                    1.0,
+                    name=br.id,
+                    in_service=on[br.id] is not False,
                 )
             elif isinstance(m, LoadParams):
-                pp.create_load(net, bus[br.from_bus], 0.0, 0.0, name=br.id, in_service=on[br.id] is not False)
+                pp.create_load(
+                    net, bus[br.from_bus], 0.0, 0.0, name=br.id, in_service=on[br.id] is not False
+                )
             elif isinstance(m, ShuntParams):
-                pp.create_shunt(net, bus[br.from_bus], 0.0, 0.0, name=br.id, in_service=on[br.id] is not False)
+                pp.create_shunt(
+                    net, bus[br.from_bus], 0.0, 0.0, name=br.id, in_service=on[br.id] is not False
+                )
         return net
 
     def _write(self, net: pp.pandapowerNet, profile: Profile, emf: float) -> None:
@@ -92,18 +104,29 @@ class PandapowerPredictor:
             elif isinstance(m, LineParams):
                 i = net.line.index[net.line.name == br.id]
                 c_nf = m.b_us * 1e-6 / (2 * math.pi * f) * 1e9
-                net.line.loc[i, ["r_ohm_per_km", "x_ohm_per_km", "c_nf_per_km"]] = (m.r_ohm, m.x_ohm, c_nf)
+                net.line.loc[i, ["r_ohm_per_km", "x_ohm_per_km", "c_nf_per_km"]] = (
+                    m.r_ohm,
+                    m.x_ohm,
+                    c_nf,
+                )
             elif isinstance(m, LoadParams):
-                zf, fi, _ = m.zip if m.behaviour == "zip" and m.zip else {
-                    "pq": (0.0, 0.0, 1.0), "z": (1.0, 0.0, 0.0), "i": (0.0, 1.0, 0.0)
-                }[m.behaviour]
+                zf, fi, _ = (
+                    m.zip
+                    if m.behaviour == "zip" and m.zip
+                    else {"pq": (0.0, 0.0, 1.0), "z": (1.0, 0.0, 0.0), "i": (0.0, 1.0, 0.0)}[
+                        m.behaviour
+                    ]
+                )
                 i = net.load.index[net.load.name == br.id]
                 net.load.loc[i, ["p_mw", "q_mvar"]] = (_total(m.p_w) * 1e-6, _total(m.q_var) * 1e-6)
                 net.load.loc[i, ["const_z_p_percent", "const_z_q_percent"]] = (100 * zf, 100 * zf)
                 net.load.loc[i, ["const_i_p_percent", "const_i_q_percent"]] = (100 * fi, 100 * fi)
             elif isinstance(m, ShuntParams):
                 i = net.shunt.index[net.shunt.name == br.id]
-                net.shunt.loc[i, ["q_mvar", "p_mw"]] = (_total(m.q_var) * 1e-6, _total(m.p_w) * 1e-6)
+                net.shunt.loc[i, ["q_mvar", "p_mw"]] = (
+                    _total(m.q_var) * 1e-6,
+                    _total(m.p_w) * 1e-6,
+                )
 
     def predict(
         self,
@@ -121,7 +144,11 @@ class PandapowerPredictor:
             net = self.nets[k]
             self._write(net, profile, 1.0 if emf is None else float(emf[k]))
             pp.runpp(
-                net, tolerance_mva=1e-12, max_iteration=30, calculate_voltage_angles=True, numba=False
+                net,
+                tolerance_mva=1e-12,
+                max_iteration=30,
+                calculate_voltage_angles=True,
+                numba=False,
             )
             self.solves += 1
             for i in np.flatnonzero(self.obs.step == k):

@@ -59,8 +59,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="relative spread of one capture (e.g. 0.0005); default: from the captures",
     )
     p.add_argument("--alpha", type=float, default=0.05, help="significance of the chi-squared test")
-    p.add_argument("--out", type=Path, default=None, help="folder to write (default: DATASET-calibration)")
-    p.add_argument("--overwrite", action="store_true", help="replace an existing calibration folder")
+    p.add_argument(
+        "--out", type=Path, default=None, help="folder to write (default: DATASET-calibration)"
+    )
+    p.add_argument(
+        "--overwrite", action="store_true", help="replace an existing calibration folder"
+    )
 
 
 def _steps(text: str) -> str | tuple[str, ...]:
