@@ -76,7 +76,7 @@ def _guarded(problem: Problem):
 
 
 def run_fit(
-    problem: Problem, *, method: str = "trf", max_nfev: int = 40, tol: float = 1e-10
+    problem: Problem, *, method: str = "trf", max_nfev: int = 40, tol: float = 1e-8
 ) -> FitResult:
     """Fit from the profile values (z = 0) and collect everything the report needs."""
     t0 = time.perf_counter()
@@ -90,7 +90,10 @@ def run_fit(
     )
     z = res.x
     r = problem.residuals(z)
-    J = problem.jacobian(z)
+    # trf evaluates the Jacobian after each accepted step, so the last one is at the optimum
+    # (with the plain squared loss it is returned unmodified); lm's is not, so recompute
+    J = res.jac if method == "trf" and res.jac.shape == (len(r), n) else problem.jacobian(z)
+    J = np.asarray(J, float)
     seconds = time.perf_counter() - t0
     m = len(problem.obs)
     G = J.T @ J

@@ -31,7 +31,7 @@ class Options:
     repeatability: float | None = None  # relative, per capture; None = from the captures
     alpha: float = 0.05  # significance of the χ² test
     method: str = "trf"
-    tol: float = 1e-10  # ftol, xtol and gtol of least_squares
+    tol: float = 1e-8  # ftol, xtol and gtol of least_squares
 
 
 @dataclass(frozen=True)
