@@ -15,7 +15,7 @@ import frictionless
 import pytest
 from support.benches import write_fast_demo
 
-from meas.calib.run import Options, calibrate
+from meas.calib.run import calibrate
 from meas.calib.select import dataset_observations
 from meas.calib.write import write_calibration
 from meas.dataset.read import Dataset, load_dataset
@@ -139,13 +139,13 @@ def test_no_captures_and_no_passing_step_are_one_line_errors(dataset: Path):
 def test_a_failure_while_writing_leaves_nothing(dataset: Path, tmp_path: Path):
     ds = load_dataset(dataset)
     profile = ds.load_profile()
-    c = calibrate(profile, dataset_observations(ds, profile), Options(params=("L2.*",)))
+    c = calibrate(profile, dataset_observations(ds, profile))
     assert c.verdict.accepted
     broken = dataclasses.replace(
         ds, profile_files={"profile/profile.toml": "# no model tables here\n"}
     )
     out = tmp_path / "cal"
-    with pytest.raises(BenchwalkError, match="cannot find L2"):
+    with pytest.raises(BenchwalkError, match="cannot find SRC"):
         write_calibration(broken, c, out)
     assert list(tmp_path.iterdir()) == []  # no folder, no partial one
     write_calibration(ds, c, out)
