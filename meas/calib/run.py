@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import Literal
 
 from ..dataset.read import Dataset, load_dataset
+from ..errors import BenchwalkError
 from ..model import Profile
 from ..network.parameters import ModelParameter, model_parameters
 from .accept import Deviations, Verdict, deviations, judge
@@ -129,6 +130,14 @@ def calibrate_dataset(path: Path, options: Options = Options()) -> tuple[Dataset
     """Read and verify the dataset, take its profile copy and fit it to its captures."""
     ds = load_dataset(Path(path), tables=["measurements", "steps", "switch_states", "meters"])
     profile = ds.load_profile()
+    bare = [b.id for b in profile.branches if b.model is None]
+    if bare:
+        raise BenchwalkError(
+            f"{ds.profile_path}: branch {bare[0]!r}"
+            f"{f' and {len(bare) - 1} more' if len(bare) > 1 else ''} has no model table, so "
+            "there is no network model to calibrate; give the nameplate data in each branch's "
+            "model table"
+        )
     select_parameters(profile, options.params)  # usage errors before any reading is read
     obs = dataset_observations(
         ds, profile, steps=options.steps, repeatability=options.repeatability

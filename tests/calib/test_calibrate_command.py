@@ -14,10 +14,12 @@ from pathlib import Path
 import frictionless
 import pytest
 from support.benches import write_fast_demo
+from support.invented_bench import build_session
 
 from meas.calib.run import calibrate
 from meas.calib.select import dataset_observations
 from meas.calib.write import write_calibration
+from meas.dataset.export import export_session
 from meas.dataset.read import Dataset, load_dataset
 from meas.errors import BenchwalkError
 from meas.profile import load_profile
@@ -151,3 +153,11 @@ def test_a_failure_while_writing_leaves_nothing(dataset: Path, tmp_path: Path):
     write_calibration(ds, c, out)
     with pytest.raises(BenchwalkError, match="already exists"):
         write_calibration(ds, c, out)
+
+
+def test_a_dataset_whose_profile_has_no_model_is_one_line_exit_2(tmp_path: Path):
+    """The invented bench of support/invented_bench.py has no model tables."""
+    ds = export_session(build_session(tmp_path, n_snapshots=6, n_meters=2), tmp_path / "ds")
+    r = benchwalk("calibrate", str(ds))
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert "has no model table" in r.stderr
