@@ -158,6 +158,7 @@ def fit_summary(c: Calibration, dataset: dict[str, Any]) -> dict[str, Any]:
         "jacobian_evaluations": f.njev,
         "load_flows": f.solves,
         "wall_time_s": f.seconds,
+        "cpu_time_s": f.cpu_seconds,
         "readings": len(c.obs),
         "steps": [s.id for s in c.obs.steps],
         "unknowns": len(c.problem.unknowns),
