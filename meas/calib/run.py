@@ -64,7 +64,9 @@ class Calibration:
         return tuple(e for e in self.estimates if e.kind == "emf")
 
 
-def _notes(problem: Problem, params: Sequence[ModelParameter], fixed: Sequence[str]) -> list[str]:
+def _notes(
+    profile: Profile, problem: Problem, params: Sequence[ModelParameter], fixed: Sequence[str]
+) -> list[str]:
     out = []
     if problem.emf_per_step:
         out.append(
@@ -80,6 +82,12 @@ def _notes(problem: Problem, params: Sequence[ModelParameter], fixed: Sequence[s
         )
     for name in fixed:
         out.append(f"{name} stays at its profile value (0 cannot be scaled).")
+    held = len(model_parameters(profile.branches)) - len(params) - len(fixed)
+    if held > 0:
+        out.append(
+            f"{held} parameters not selected are held at their profile values; if one is wrong, "
+            "the fitted ones absorb its error (select it too: it keeps its prior)."
+        )
     return out
 
 
@@ -122,7 +130,7 @@ def calibrate(
         correlations=corr,
         deviations=dev,
         verdict=verdict,
-        notes=tuple(_notes(problem, params, fixed)),
+        notes=tuple(_notes(profile, problem, params, fixed)),
     )
 
 
