@@ -32,9 +32,9 @@ def test_phase_values_are_meter_values_per_phase():
         v, i = meter_phasors(p, m, sol)
         full = meter_values(v, i, apparent_power="vector", frequency_hz=50.0)
         vm, im, pp, qq = phase_values(v, i)
-        for k, ph in enumerate("ABC"):
-            assert vm[k] == full[f"v_ln.{ph}"] and im[k] == full[f"i.{ph}"]
-            assert pp[k] == full[f"p.{ph}"] and qq[k] == full[f"q.{ph}"]
+        got = np.r_[vm, im, pp, qq]
+        want = [full[f"{q}.{ph}"] for q in ("v_ln", "i", "p", "q") for ph in "ABC"]
+        assert np.allclose(got, want, rtol=1e-14, atol=1e-12)  # equal up to rounding
 
 
 def test_warm_start_reaches_the_same_solution_in_fewer_iterations():
