@@ -58,7 +58,7 @@ class CampaignPlan:
 
 def _layout(
     profile: Profile, configs: Sequence[StepConfig], values: np.ndarray | None
-) -> Observations:
+) -> list[RawRow]:
     rows = []
     n = 0
     for k, c in enumerate(configs):
@@ -71,17 +71,17 @@ def _layout(
                     v = 1.0 if values is None else float(values[n])
                     rows.append(RawRow(k, m.id, q, ph, (v,) * max(1, c.captures)))
                     n += 1
-    return rows  # type: ignore[return-value]
+    return rows
 
 
 def _observations(
     profile: Profile, configs: Sequence[StepConfig], repeatability: float
 ) -> Observations:
     rows = _layout(profile, configs, None)
-    first = pooled_observations(profile, configs, rows, repeatability=repeatability)  # type: ignore[arg-type]
+    first = pooled_observations(profile, configs, rows, repeatability=repeatability)
     h = NetworkPredictor(profile, first).predict({})
     rows = _layout(profile, configs, h)
-    return pooled_observations(profile, configs, rows, repeatability=repeatability)  # type: ignore[arg-type]
+    return pooled_observations(profile, configs, rows, repeatability=repeatability)
 
 
 def _ratios(info: np.ndarray, n_model: int) -> np.ndarray:
