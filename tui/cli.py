@@ -27,6 +27,8 @@ COMMANDS: dict[str, str] = {
     "check": "check",
     "report": "report",
     "fault": "fault",
+    "calibrate": "calibrate",
+    "campaign": "campaign",
 }
 
 

@@ -6,7 +6,7 @@ from the ideal readings, applies the wiring faults to the meter's inputs, adds n
 measured magnitudes and to the V-I angle, and only then derives P, Q, S, PF, the neutral
 current, line-to-line voltages and angles. Meter-internal sums (``p.T = p.A + p.B + p.C``)
 therefore stay exact up to register resolution, even with noise and faults. The derivation
-itself is ``meas.sim.readings.meter_values``, shared with the ideal load-flow readings.
+itself is ``meas.network.readings.meter_values``, shared with the ideal load-flow readings.
 
 Noise model (relied on by the checks; see ``docs/faults.md``): per phase, the voltage and
 current magnitudes get Gaussian relative errors with sigma = 0.1 x the class limit of ``v``
