@@ -3,16 +3,20 @@
 Each module in ``tui.commands`` exposes ``HELP`` (one line), ``add_arguments(parser)`` and
 ``main(args) -> int``. Errors a user can cause arrive here as ``BenchwalkError`` and leave as
 one line on stderr with exit code 2 (or the error's own code), never a traceback.
+
+The top-level ``--help`` and ``--version`` import no command module (pandas, pyarrow and
+pymodbus stay unloaded): each command's one-line ``HELP`` is read from its source text.
 """
 
 from __future__ import annotations
 
 import argparse
+import ast
 import importlib
+import importlib.util
 import sys
+from pathlib import Path
 from types import ModuleType
-
-from meas.errors import BenchwalkError
 
 # subcommand -> module in tui.commands (imported lazily so `benchwalk lint` stays quick)
 COMMANDS: dict[str, str] = {
@@ -26,6 +30,10 @@ COMMANDS: dict[str, str] = {
     "export": "export",
     "check": "check",
     "report": "report",
+    "collect": "collect",
+    "sessions": "sessions",
+    "completion": "completion",
+    "scan": "scan",
 }
 
 
@@ -33,15 +41,56 @@ def _load(name: str) -> ModuleType:
     return importlib.import_module(f"tui.commands.{COMMANDS[name]}")
 
 
-def build_parser(only: str | None = None) -> argparse.ArgumentParser:
-    """The parser; with ``only`` set, just that subcommand's module is imported (fast start)."""
+def _source_help(name: str) -> str | None:
+    """A command's ``HELP`` read from its source without importing it; None when not built in."""
+    spec = importlib.util.find_spec(f"tui.commands.{COMMANDS[name]}")
+    if spec is None or spec.origin is None:
+        return None
+    tree = ast.parse(Path(spec.origin).read_text(encoding="utf-8"))
+    for node in tree.body:
+        if (
+            isinstance(node, ast.Assign)
+            and any(isinstance(t, ast.Name) and t.id == "HELP" for t in node.targets)
+            and isinstance(node.value, ast.Constant)
+            and isinstance(node.value.value, str)
+        ):
+            return node.value.value
+    return ""
+
+
+def version() -> str:
+    """The installed distribution's version, or the source tree's when not installed."""
+    from importlib.metadata import PackageNotFoundError
+    from importlib.metadata import version as dist_version
+
+    try:
+        return dist_version("benchwalk")
+    except PackageNotFoundError:
+        from meas import __version__
+
+        return __version__
+
+
+def _top_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="benchwalk",
         description="Walk a metered bench through its switching sequence and record checked readings.",
     )
+    parser.add_argument("--version", action="version", version=f"benchwalk {version()}")
+    return parser
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The parser; only the chosen subcommand's module is imported (``only``), none for help."""
+    parser = _top_parser()
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
-        if only is not None and name != only:
+        if only is None:
+            text = _source_help(name)
+            if text is not None:
+                sub.add_parser(name, help=text, description=text)
+            continue
+        if name != only:
             continue
         try:
             mod = _load(name)
@@ -55,6 +104,22 @@ def build_parser(only: str | None = None) -> argparse.ArgumentParser:
     return parser
 
 
+def build_full_parser() -> argparse.ArgumentParser:
+    """Every subcommand with all its options (imports them all): for shell completion."""
+    parser = _top_parser()
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMANDS:
+        try:
+            mod = _load(name)
+        except ModuleNotFoundError as exc:
+            if exc.name and exc.name.startswith("tui.commands"):
+                continue
+            raise
+        p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+    return parser
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     first = next((a for a in argv if not a.startswith("-")), None)
@@ -63,6 +128,8 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "_module", None):
         parser.print_help()
         return 2
+    from meas.errors import BenchwalkError
+
     try:
         return int(args._module.main(args) or 0)
     except BenchwalkError as exc:

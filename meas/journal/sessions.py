@@ -11,8 +11,14 @@ from ..errors import BenchwalkError
 
 
 def default_sessions_dir() -> Path:
-    """Where session journals live: ``$BENCHWALK_SESSIONS`` or ``./sessions``."""
-    return Path(os.environ.get("BENCHWALK_SESSIONS") or "sessions")
+    """Where session journals live: ``$BENCHWALK_SESSIONS``, else the per-user data folder
+    (``platformdirs``, e.g. ``~/.local/share/benchwalk/sessions``), never the current folder."""
+    env = os.environ.get("BENCHWALK_SESSIONS")
+    if env:
+        return Path(env)
+    from platformdirs import user_data_path
+
+    return user_data_path("benchwalk", appauthor=False) / "sessions"
 
 
 def session_path(session_id: str, sessions_dir: Path | None = None) -> Path:

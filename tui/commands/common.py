@@ -23,7 +23,7 @@ def add_common(p: argparse.ArgumentParser) -> None:
         "--sessions",
         type=Path,
         default=None,
-        help="folder of session journals (default: $BENCHWALK_SESSIONS or ./sessions)",
+        help="folder of session journals (default: $BENCHWALK_SESSIONS or the per-user data folder)",
     )
     p.add_argument(
         "--log-saved", action="store_true", help="print one line per snapshot saved in the journal"

@@ -15,13 +15,12 @@ from pathlib import Path
 from meas.cautions import HEADLESS_CAUTION
 from meas.session import SIM_OPERATOR, Session
 
+from ..demo_profiles import demo_profile
 from .common import add_common, saved_printer, start_console
 from .headless import walk
 from .technicians import SimTechnician
 
 HELP = "run the demo feeder bench on the simulated bench (console, or --headless end to end)"
-
-DEMO_PROFILE = Path(__file__).resolve().parents[2] / "profiles_demo" / "feeder_bench.toml"
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -38,7 +37,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="run the whole demo sequence in this terminal and write the dataset",
     )
     p.add_argument("--seed", type=int, default=None, help="random seed of the simulated noise")
-    p.add_argument("--profile", type=Path, default=DEMO_PROFILE, help=argparse.SUPPRESS)
+    p.add_argument("--profile", type=Path, default=None, help=argparse.SUPPRESS)
     add_common(p)
 
 
@@ -60,6 +59,8 @@ async def _headless(args: argparse.Namespace) -> int:
 
 
 def main(args: argparse.Namespace) -> int:
+    if args.profile is None:
+        args.profile = demo_profile()
     if not args.headless:
         return start_console(
             profile_path=str(args.profile),
