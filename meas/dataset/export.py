@@ -30,7 +30,15 @@ from ..journal.sessions import resolve_session
 from ..journal.store import Journal
 from ..progress import Progress
 from .files import fsync_dir, fsync_file, sha256_of, slug
-from .schema import DATA_DIR, MAIN_PROFILE, PROFILE_DIR, TABLES, arrow_schema, table_schema
+from .schema import (
+    DATA_DIR,
+    FORMAT_VERSION,
+    MAIN_PROFILE,
+    PROFILE_DIR,
+    TABLES,
+    arrow_schema,
+    table_schema,
+)
 from .tables import BATCH_READINGS, measurement_batches, measurement_tables, small_tables, to_tables
 
 DP_SCHEMA = "https://datapackage.org/profiles/2.0/datapackage.json"
@@ -260,7 +268,7 @@ def _datapackage(
         else [],
         "resources": resources,
         "benchwalk": {
-            "format": 1,
+            "format": FORMAT_VERSION,
             "software": f"benchwalk {__version__}",
             "session": journal.session_id,
             "bench": journal.bench,

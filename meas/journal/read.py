@@ -295,6 +295,10 @@ class JournalView:
     def step_history(self) -> list[StepTransition]:
         return step_history(self._conn)
 
+    def profile_files(self) -> list[tuple[str, str]]:
+        """(name, text) of the profile and its companions, the profile first."""
+        return profile_files(self._conn)
+
     def _tuples(self, sql: str) -> sqlite3.Cursor:
         """Rows as plain tuples, in the order the query names its columns."""
         cur = self._conn.cursor()

@@ -145,10 +145,12 @@ def test_network_and_per_unit_values(exported: tuple[Path, Path]) -> None:
     assert (
         math.isnan(f["value_pu"])
         and f["value_network"] == f["value"]
-        and f["mmxu"] == "Hz"
+        and f["iec61850"] == "MMXU.Hz.mag.f"
         and f["unit"] == "Hz"
     )
-    assert one("v_ll", "BC")["mmxu"] == "PPV" and one("q", "T")["unit"] == "var"
+    # IEC 61850-7-4 MMXU: line-to-line voltages in the DEL object PPV, totals in Tot* [from memory]
+    assert one("v_ll", "BC")["iec61850"] == "MMXU.PPV.phsBC.cVal.mag.f"
+    assert one("q", "T")["unit"] == "var" and one("q", "T")["iec61850"] == "MMXU.TotVAr.mag.f"
 
 
 def test_steps_checks_meters_events(exported: tuple[Path, Path]) -> None:
@@ -156,10 +158,9 @@ def test_steps_checks_meters_events(exported: tuple[Path, Path]) -> None:
     d = load_dataset(ds)
     steps = d["steps"].set_index("id")
     assert steps.loc["S1", "state"] == "accepted" and steps.loc["S1", "settle_s"] == 1.25
-    assert (
-        steps.loc["S1", "actual_switches"] == "CB1=closed"
-        and steps.loc["S2", "expected_switches"] == "CB1=open"
-    )
+    sw = d["step_switches"].set_index(["step", "switch"])
+    assert sw.loc[("S1", "CB1"), "actual"] == "closed"
+    assert sw.loc[("S2", "CB1"), "expected"] == "open"
     assert steps.loc["S2", "reason"] == "CT of M1 replaced after the test"
     conn = Journal.open(journal_path)._conn
     n_checks = conn.execute("SELECT count(*) FROM check_result").fetchone()[0]

@@ -35,7 +35,7 @@ def main(args: argparse.Namespace) -> int:
             fresh = recheck(args.dataset, progress=update)
     else:
         fresh = recheck(args.dataset)
-    counts = fresh.groupby(["check", "status"]).size().unstack(fill_value=0)
+    counts = fresh.groupby(["check_id", "status"]).size().unstack(fill_value=0)
     table = Table(title=f"re-check of {args.dataset}")
     table.add_column("check")
     statuses = [s for s in ("pass", "warn", "fail", "n/a") if s in counts.columns]
@@ -44,10 +44,10 @@ def main(args: argparse.Namespace) -> int:
     for check, row in counts.iterrows():
         table.add_row(str(check), *[str(int(row[s])) for s in statuses])
     console.print(table)
-    failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check", "subject", "message"])
+    failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check_id", "subject", "message"])
     for r in failed.itertuples(index=False):
         console.print(
-            f"[red]FAIL[/red] step {r.step} {r.check} {r.subject}: {r.message}", highlight=False
+            f"[red]FAIL[/red] step {r.step} {r.check_id} {r.subject}: {r.message}", highlight=False
         )
     diffs = compare_checks(exported, fresh)
     if diffs:
