@@ -30,6 +30,7 @@ from ..journal.sessions import resolve_session
 from ..journal.store import Journal
 from ..progress import Progress
 from .files import fsync_dir, fsync_file, sha256_of, slug
+from .grid_tables import NETWORK_FILE, write_network
 from .schema import (
     DATA_DIR,
     FORMAT_VERSION,
@@ -211,6 +212,7 @@ def _write_dataset(
                 "hash": "sha256:" + sha256_of(dest),
             }
         )
+    write_network(journal.profile_files(), folder)
     for p in sorted(folder.rglob("*")):
         if p.is_file():
             fsync_file(p)
@@ -276,6 +278,7 @@ def _datapackage(
             "session_started_utc": journal.created_utc,
             "profile_sha256": journal.profile_sha256,
             "profile_files": profile_entries,
+            "network": NETWORK_FILE if (folder / NETWORK_FILE).is_file() else None,
             "meta": journal.meta,
             "sign_convention": "positive P and Q = power flowing from the meter's bus into its branch",
             "values": "primary, bench-side SI units; value_network and value_pu derived from the profile",

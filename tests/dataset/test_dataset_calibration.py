@@ -224,3 +224,46 @@ def test_frictionless_validates_and_check_reproduces(recorded):
 
     exported = load_dataset(ds, tables=["checks"])["checks"]
     assert len(exported) > 0 and compare_checks(exported, recheck(ds)) == []
+
+
+def test_dataset_carries_the_bench_model_for_pandapower(recorded):
+    import json
+
+    _, ds, info = recorded
+    pkg = json.loads((ds / "datapackage.json").read_text())
+    assert (
+        pkg["benchwalk"]["format"] == 2 and pkg["benchwalk"]["network"] == "network/pandapower.json"
+    )
+    tables = json.loads((ds / "network" / "pandapower.json").read_text())
+    names = {r["name"] for rows in tables["elements"].values() for r in rows}
+    # every branch of the profile is one element (tests/dataset/test_pandapower_export.py
+    # loads such tables into pandapower and compares the load flow)
+    assert {b.id for b in info["profile"].branches} <= names
+    assert tables["switches"] == NORMAL
+
+
+def test_text_columns_written_back_as_large_strings_still_read(recorded, tmp_path):
+    """pandas 3 writes text columns back as Arrow large_string; the reader takes them as the
+    schema's string (found by the CI run with the newest pandas in range)."""
+    import json
+    import shutil
+
+    import pyarrow as pa
+
+    from meas.dataset.files import sha256_of
+
+    _, ds, _ = recorded
+    copy = tmp_path / "copy"
+    shutil.copytree(ds, copy)
+    p = copy / "data" / "steps.parquet"
+    t = pq.read_table(p)
+    i = t.schema.get_field_index("title")
+    pq.write_table(t.set_column(i, "title", t["title"].cast(pa.large_string())), p)
+    pkg = json.loads((copy / "datapackage.json").read_text())
+    for r in pkg["resources"]:
+        if r["name"] == "steps":
+            r["benchwalk:parquet"]["hash"] = "sha256:" + sha256_of(p)
+            r["benchwalk:parquet"]["bytes"] = p.stat().st_size
+    (copy / "datapackage.json").write_text(json.dumps(pkg))
+    steps = load_dataset(copy, tables=["steps"])["steps"]
+    assert steps["title"].tolist() == load_dataset(ds, tables=["steps"])["steps"]["title"].tolist()

@@ -27,7 +27,7 @@ def demo_profiles_dir() -> Path:
         found = root.joinpath(FEEDER)
         if isinstance(found, Path) and found.is_file():
             return found.parent
-    checkout = Path(__file__).resolve().parents[1] / "profiles_demo"
+    checkout = Path(__file__).resolve().parents[2] / "profiles_demo"
     if (checkout / FEEDER).is_file():
         return checkout
     raise BenchwalkError(
