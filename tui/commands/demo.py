@@ -15,8 +15,8 @@ from pathlib import Path
 from meas.cautions import HEADLESS_CAUTION
 from meas.session import SIM_OPERATOR, Session
 
-from .demo_profiles import demo_profile
 from .common import add_common, saved_printer, start_console
+from .demo_profiles import demo_profile
 from .headless import walk
 from .technicians import SimTechnician
 
