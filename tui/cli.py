@@ -34,6 +34,7 @@ COMMANDS: dict[str, str] = {
     "sessions": "sessions",
     "completion": "completion",
     "scan": "scan",
+    "summary": "summary",
 }
 
 

@@ -267,3 +267,46 @@ def test_text_columns_written_back_as_large_strings_still_read(recorded, tmp_pat
     (copy / "datapackage.json").write_text(json.dumps(pkg))
     steps = load_dataset(copy, tables=["steps"])["steps"]
     assert steps["title"].tolist() == load_dataset(ds, tables=["steps"])["steps"]["title"].tolist()
+
+
+def test_summary_xlsx_holds_numbers_and_times(recorded, tmp_path):
+    import statistics
+
+    from openpyxl import load_workbook
+
+    from meas.dataset.summary import COLUMNS, write_summary
+
+    _, ds, _ = recorded
+    out = write_summary(ds, tmp_path / "summary.xlsx")
+    ws = load_workbook(out).active
+    rows = list(ws.iter_rows(values_only=True))
+    assert list(rows[0]) == COLUMNS
+    by = {(r[1], r[2], r[3], r[4]): dict(zip(COLUMNS, r, strict=True)) for r in rows[1:]}
+    m = pq.read_table(ds / "data" / "measurements.parquet").to_pandas()
+    cap = m[(m["role"] == "capture") & (m["quality"] == "ok")]
+    assert len(by) == len(cap.groupby(["step", "meter", "quantity", "phase"]))
+    # M5 reads voltage from an int16 register with a scale of 0.01 V (demo profile, wren-i16
+    # map): its median is rounded to 0.01 V
+    vals = cap[(cap["meter"] == "M5") & (cap["quantity"] == "v_ln") & (cap["phase"] == "A")]
+    row = by[(STEP, "M5", "v_ln", "A")]
+    assert row["captures"] == N_CAPTURE
+    assert row["median"] == pytest.approx(round(statistics.median(vals["value"]), 2), abs=1e-12)
+    assert isinstance(row["median"], float) and isinstance(row["u"], float)
+    assert row["expanded_u"] == pytest.approx(2 * row["u"], rel=0.05)  # k = 2, two digits each
+    assert isinstance(row["first_utc"], datetime)  # a date-time cell, not text
+    cell = next(c for c in ws[2] if c.column == COLUMNS.index("median") + 1)
+    assert cell.data_type == "n"
+
+
+def test_summary_csv_for_decimal_comma_locales(recorded, tmp_path):
+    import pandas as pd
+
+    from meas.dataset.summary import write_summary
+
+    _, ds, _ = recorded
+    out = write_summary(ds, tmp_path / "summary.csv")
+    text = out.read_text(encoding="utf-8-sig")
+    assert ";" in text.splitlines()[0] and "." not in text.splitlines()[1].split(";")[7]
+    df = pd.read_csv(out, sep=";", decimal=",", encoding="utf-8-sig", parse_dates=["first_utc"])
+    assert df["median"].dtype == float and df["u"].dtype == float
+    assert pd.api.types.is_datetime64_any_dtype(df["first_utc"])
