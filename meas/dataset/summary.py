@@ -97,14 +97,16 @@ def capture_summary(folder: Path) -> pd.DataFrame:
     order = dict(zip(ds["steps"]["id"], ds["steps"]["step_number"], strict=True))
     out.insert(0, "step_number", out["step"].map(order).astype("Int64"))
     rounded = []
-    for r in out.itertuples(index=False):
-        mi, col = meter_row.get(r.meter), COL.get(f"{r.quantity}.{r.phase}")
+    for meter, quantity, phase, median in zip(
+        out["meter"], out["quantity"], out["phase"], out["median"], strict=True
+    ):
+        mi, col = meter_row.get(str(meter)), COL.get(f"{quantity}.{phase}")
         res = (
             resolution(float(lay.scale[mi, col]), bool(lay.is_float[mi, col]))
             if mi is not None and col is not None
             else Resolution(None, FLOAT_DIGITS)
         )
-        rounded.append(res.round(float(r.median)))
+        rounded.append(res.round(float(median)))
     out["median"] = rounded
     out["expanded_u"] = [round_u(k * u) for u in out["u"]]
     out["u"] = [round_u(u) for u in out["u"]]
@@ -122,7 +124,7 @@ def write_xlsx(table: pd.DataFrame, path: Path) -> None:
     ws.title = "captures"
     ws.append(COLUMNS)
     for r in table.itertuples(index=False):
-        row = []
+        row: list[object] = []
         for name, v in zip(COLUMNS, r, strict=True):
             if name.endswith("_utc"):
                 row.append(None if pd.isna(v) else pd.Timestamp(v).tz_convert(None).to_pydatetime())
