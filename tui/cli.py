@@ -12,8 +12,11 @@ from __future__ import annotations
 
 import argparse
 import ast
+import contextlib
 import importlib
 import importlib.util
+import io
+import os
 import sys
 from pathlib import Path
 from types import ModuleType
@@ -72,13 +75,38 @@ def version() -> str:
         return __version__
 
 
+def _verbosity(parser: argparse.ArgumentParser, default: object) -> None:
+    parser.add_argument(
+        "-q",
+        "--quiet",
+        action="store_true",
+        default=default,
+        help="print nothing on standard output but --json output; errors still on standard error",
+    )
+    parser.add_argument(
+        "-v",
+        "--verbose",
+        action="count",
+        default=default,
+        help="log what the libraries do (-v info, -vv debug) on standard error",
+    )
+
+
 def _top_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="benchwalk",
         description="Walk a metered bench through its switching sequence and record checked readings.",
     )
     parser.add_argument("--version", action="version", version=f"benchwalk {version()}")
+    _verbosity(parser, None)
     return parser
+
+
+def _add_command(sub: argparse._SubParsersAction, name: str, mod: ModuleType) -> None:
+    p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
+    mod.add_arguments(p)
+    _verbosity(p, argparse.SUPPRESS)  # also accepted after the command; the top level's wins
+    p.set_defaults(_module=mod)
 
 
 def build_parser(only: str | None = None) -> argparse.ArgumentParser:
@@ -99,9 +127,7 @@ def build_parser(only: str | None = None) -> argparse.ArgumentParser:
             if exc.name and exc.name.startswith("tui.commands"):
                 continue  # subcommand not built into this version
             raise
-        p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
-        mod.add_arguments(p)
-        p.set_defaults(_module=mod)
+        _add_command(sub, name, mod)
     return parser
 
 
@@ -116,9 +142,12 @@ def build_full_parser() -> argparse.ArgumentParser:
             if exc.name and exc.name.startswith("tui.commands"):
                 continue
             raise
-        p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
-        mod.add_arguments(p)
+        _add_command(sub, name, mod)
     return parser
+
+
+def _devnull() -> io.TextIOWrapper:
+    return open(os.devnull, "w", encoding="utf-8")  # noqa: SIM115 - closed by redirect's owner
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -131,7 +160,21 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     from meas.errors import BenchwalkError
 
+    if args.verbose:
+        import logging
+
+        logging.basicConfig(level=logging.DEBUG if args.verbose > 1 else logging.INFO)
+    as_json = bool(getattr(args, "json", False))
     try:
+        if as_json and hasattr(args, "headless"):
+            if not args.headless:
+                raise BenchwalkError("--json reports a headless run: add --headless")
+            args._stdout = sys.stdout  # the verdict's line; the walk's own lines go to stderr
+            with contextlib.redirect_stdout(sys.stderr if not args.quiet else _devnull()):
+                return int(args._module.main(args) or 0)
+        if args.quiet and not as_json:
+            with contextlib.redirect_stdout(_devnull()):
+                return int(args._module.main(args) or 0)
         return int(args._module.main(args) or 0)
     except BenchwalkError as exc:
         print(f"benchwalk {args.command}: {exc}", file=sys.stderr)

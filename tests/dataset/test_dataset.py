@@ -232,12 +232,21 @@ def test_hive_collection_reads_as_one_table_in_duckdb(tmp_path: Path) -> None:
     a = export_session(build_session(tmp_path / "a", n_snapshots=6, name="20261201-100000-plover"))
     b = export_session(build_session(tmp_path / "b", n_snapshots=9, name="20261202-100000-plover"))
     coll = write_collection([a, b], tmp_path / "coll")
-    files = sorted(p.relative_to(coll).as_posix() for p in coll.rglob("*.parquet"))
+    files = sorted(
+        p.relative_to(coll / "measurements").as_posix()
+        for p in (coll / "measurements").rglob("*.parquet")
+    )
     assert files == [
         "bench=plover-test-bench/session=20261201-100000-plover/part-0.parquet",
         "bench=plover-test-bench/session=20261202-100000-plover/part-0.parquet",
     ]
-    glob = str(coll / "**" / "*.parquet")
+    # every table of the dataset has its own folder (the small tables too)
+    assert {p.name for p in coll.iterdir()} == set(TABLES)
+    steps = duckdb.sql(
+        f"SELECT session, count(*) FROM read_parquet('{coll}/steps/**/*.parquet', hive_partitioning=true) GROUP BY ALL"
+    ).fetchall()
+    assert len(steps) == 2
+    glob = str(coll / "measurements" / "**" / "*.parquet")
     rows = duckdb.sql(
         f"SELECT session, bench, count(*) n, sum(value) s FROM read_parquet('{glob}', hive_partitioning=true)"
         " GROUP BY ALL ORDER BY session"

@@ -55,7 +55,12 @@ async def _headless(args: argparse.Namespace) -> int:
         live_checks=False,
     )
     print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
-    return await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
+    return await walk(
+        session,
+        SimTechnician(session, SIM_OPERATOR),
+        args.out,
+        verdict_to=getattr(args, "_stdout", None),
+    )
 
 
 def main(args: argparse.Namespace) -> int:
