@@ -15,12 +15,23 @@ from collections.abc import Sequence
 
 from ..model import REGISTER_COUNT, RegisterSpec
 
-_FMT = {"int16": "h", "uint16": "H", "int32": "i", "uint32": "I", "float32": "f", "float64": "d"}
+_FMT = {
+    "int16": "h",
+    "uint16": "H",
+    "int32": "i",
+    "uint32": "I",
+    "float32": "f",
+    "float64": "d",
+    "int64": "q",  # 64-bit energy counters; values past 2**53 lose their last digits as floats
+    "uint64": "Q",
+}
 _INT_RANGE = {
     "int16": (-(2**15), 2**15 - 1),
     "uint16": (0, 2**16 - 1),
     "int32": (-(2**31), 2**31 - 1),
     "uint32": (0, 2**32 - 1),
+    "int64": (-(2**63), 2**63 - 1),
+    "uint64": (0, 2**64 - 1),
 }
 
 
