@@ -45,7 +45,10 @@ def profile_from_texts(files: Sequence[tuple[str, str]]) -> Profile | None:
     with tempfile.TemporaryDirectory(prefix="benchwalk-profile-") as tmp:
         main = None
         for i, (name, text) in enumerate(files):
-            dest = Path(tmp) / (Path(name).name or f"file{i}.toml")
+            parts = [x for x in Path(name).parts if x not in ("..", "/", "")]
+            rel = Path(*parts) if parts and i else Path(Path(name).name or f"file{i}.toml")
+            dest = Path(tmp) / rel
+            dest.parent.mkdir(parents=True, exist_ok=True)
             dest.write_text(text, encoding="utf-8")
             main = main or dest
         try:
