@@ -194,3 +194,34 @@ def test_summary_command_writes_xlsx_and_refuses_other_names(dataset, tmp_path):
     assert load_workbook(tmp_path / "s.xlsx").active.max_row > 1
     r = bw("summary", str(dataset), "--out", str(tmp_path / "s.ods"))
     assert r.returncode == 2 and ".xlsx or .csv" in r.stderr and "Traceback" not in r.stderr
+
+
+@pytest.mark.slow
+def test_scan_command_json_and_profile_skeleton(tmp_path):
+    server = subprocess.Popen(
+        [sys.executable, str(ROOT / "tests" / "support" / "sim_bench_server.py"), str(DEMO)],
+        cwd=ROOT,
+        stdin=subprocess.PIPE,
+        stdout=subprocess.PIPE,
+        text=True,
+        env={**os.environ, "PYTHONPATH": f"{ROOT}{os.pathsep}{ROOT / 'tests'}"},
+    )
+    try:
+        gateway = json.loads(server.stdout.readline())["ports"]["127.0.0.1:15030"]
+        skel = tmp_path / "new.toml"
+        r = bw(
+            "scan", f"tcp://127.0.0.1:{gateway}", "--units", "1-6", "--timeout", "0.3",
+            "--json", "--write-profile", str(skel), timeout=60,
+        )  # fmt: skip
+        got = json.loads(r.stdout)
+        # demo profile: M2, M3 and M4 answer as unit ids 2, 3 and 4 behind port 15030
+        assert r.returncode == 0 and [u["unit_id"] for u in got["units"]] == [2, 3, 4]
+        assert all(u["identification"]["product_code"] == "BW-SIM" for u in got["units"])
+        lint = bw("lint", str(skel), "--json")
+        assert "register" in " ".join(json.loads(lint.stdout)["problems"])
+        again = bw("scan", f"tcp://127.0.0.1:{gateway}", "--write-profile", str(skel))
+        assert again.returncode == 2 and "already exists" in again.stderr
+    finally:
+        server.stdin.write("quit\n")
+        server.stdin.flush()
+        server.wait(timeout=30)
