@@ -93,8 +93,9 @@ def pandapower_tables(
                      "max_i_ka": 10.0, "in_service": live}
                 )  # fmt: skip
                 bus = emf
-            grid |= {"s_sc_max_mva": (m.sc_va if math.isfinite(m.sc_va) else 1e9) / 1e6,
-                     "rx_max": 1.0 / m.x_r if m.x_r else 0.0, "x0x_max": 1.0, "r0x0_max": 1.0 / m.x_r if m.x_r else 0.0}  # fmt: skip
+            # the source impedance is the line above: the ext_grid itself is a stiff EMF for
+            # runpp_3ph too (1e6 MVA short-circuit power), as in tests/network's cross-check
+            grid |= {"s_sc_max_mva": 1e6, "rx_max": 0.1, "x0x_max": 1.0, "r0x0_max": 0.1}
             t["ext_grid"].append({"name": br.id, "bus": bus, **grid})
         elif isinstance(m, LineParams):
             length = m.length_km or 1.0
