@@ -77,7 +77,18 @@ def app_env(wheel, tmp_path_factory) -> tuple[Path, dict[str, str]]:
     )
     (site / "zz_host_packages.pth").write_text(sysconfig.get_paths()["purelib"] + "\n")
     r = subprocess.run(
-        [str(py), "-m", "pip", "install", "-q", "--no-deps", "--no-index", str(wheel)],
+        # --ignore-installed: the host packages seen through the .pth may hold a benchwalk too
+        [
+            str(py),
+            "-m",
+            "pip",
+            "install",
+            "-q",
+            "--no-deps",
+            "--no-index",
+            "--ignore-installed",
+            str(wheel),
+        ],
         capture_output=True,
         text=True,
         timeout=300,
