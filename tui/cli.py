@@ -75,6 +75,17 @@ def version() -> str:
         return __version__
 
 
+class _Version(argparse.Action):
+    """``--version``, looked up only when asked for (importlib.metadata is slow to import)."""
+
+    def __init__(self, option_strings: list[str], dest: str, **kwargs: object) -> None:
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS, **kwargs)  # type: ignore[arg-type]
+
+    def __call__(self, parser: argparse.ArgumentParser, *_: object) -> None:
+        print(f"benchwalk {version()}")
+        parser.exit()
+
+
 def _verbosity(parser: argparse.ArgumentParser, default: object) -> None:
     parser.add_argument(
         "-q",
@@ -97,7 +108,7 @@ def _top_parser() -> argparse.ArgumentParser:
         prog="benchwalk",
         description="Walk a metered bench through its switching sequence and record checked readings.",
     )
-    parser.add_argument("--version", action="version", version=f"benchwalk {version()}")
+    parser.add_argument("--version", action=_Version, help="show the version and exit")
     _verbosity(parser, None)
     return parser
 
