@@ -10,7 +10,7 @@ Only reads are sent: a scan never writes to a device.
 from __future__ import annotations
 
 import asyncio
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 
 from pymodbus.client import ModbusBaseClient
@@ -20,6 +20,7 @@ from pymodbus.pdu.mei_message import ReadDeviceInformationResponse
 
 from ..errors import BenchwalkError
 from ..model import Transport
+from .codec import words_to_text
 from .hardening import harden, require_supported_pymodbus, tame_pymodbus_logging
 from .link import make_client
 
@@ -40,6 +41,7 @@ class UnitFound:
     unit_id: int
     answered: str  # to the register read: "registers" or "exception <code>"
     identification: dict[str, str] = field(default_factory=dict)
+    text: dict[str, str] = field(default_factory=dict)  # asked-for text registers, by name
 
 
 def _ident(rr: ReadDeviceInformationResponse) -> dict[str, str]:
@@ -60,7 +62,30 @@ async def _ask(coro: object, timeout_s: float) -> ModbusPDU | None:
         return None
 
 
-async def probe_unit(c: ModbusBaseClient, unit_id: int, timeout_s: float) -> UnitFound | None:
+@dataclass(frozen=True)
+class TextRegister:
+    """A block of holding registers holding text (a serial number, a model name)."""
+
+    name: str
+    address: int
+    count: int
+    byte_order: str = "big"
+
+
+async def read_text(
+    c: ModbusBaseClient, unit_id: int, reg: TextRegister, timeout_s: float
+) -> str | None:
+    rr = await _ask(
+        c.read_holding_registers(reg.address, count=reg.count, device_id=unit_id), timeout_s
+    )
+    if rr is None or rr.isError() or len(rr.registers) != reg.count:
+        return None
+    return words_to_text(rr.registers, reg.byte_order)
+
+
+async def probe_unit(
+    c: ModbusBaseClient, unit_id: int, timeout_s: float, texts: Sequence[TextRegister] = ()
+) -> UnitFound | None:
     """One unit id: a one-register read says whether it is there (any reply, an exception
     included; silence means no), then its identification is asked for.
 
@@ -75,13 +100,20 @@ async def probe_unit(c: ModbusBaseClient, unit_id: int, timeout_s: float) -> Uni
     info = await _ask(
         c.read_device_information(read_code=1, object_id=0, device_id=unit_id), timeout_s
     )
-    if isinstance(info, ReadDeviceInformationResponse):
-        return UnitFound(unit_id, answered, _ident(info))
-    return UnitFound(unit_id, answered)
+    text = {}
+    for reg in texts:
+        value = await read_text(c, unit_id, reg, timeout_s)
+        if value is not None:
+            text[reg.name] = value
+    ident = _ident(info) if isinstance(info, ReadDeviceInformationResponse) else {}
+    return UnitFound(unit_id, answered, ident, text)
 
 
 async def scan(
-    transport: Transport, unit_ids: Iterable[int], timeout_s: float = 0.3
+    transport: Transport,
+    unit_ids: Iterable[int],
+    timeout_s: float = 0.3,
+    texts: Sequence[TextRegister] = (),
 ) -> list[UnitFound]:
     """Every unit id of ``unit_ids`` that answers on ``transport``, in order (one at a time:
     a gateway or an RS-485 line carries one request at a time)."""
@@ -103,7 +135,7 @@ async def scan(
         for unit in unit_ids:
             if not 0 <= unit <= 247:
                 raise BenchwalkError(f"unit id {unit} is outside 0..247 (Modbus serial line)")
-            hit = await probe_unit(client, unit, timeout_s)
+            hit = await probe_unit(client, unit, timeout_s, texts)
             if hit is not None:
                 found.append(hit)
         return found

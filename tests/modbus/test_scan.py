@@ -67,3 +67,50 @@ async def test_scan_of_a_closed_port_is_one_line(tmp_path):
         port = s.getsockname()[1]
         with pytest.raises(BenchwalkError, match="cannot connect"):
             await scan(TcpTransport("127.0.0.1", port), [1], timeout_s=0.2)
+
+
+def test_text_registers_round_trip_both_byte_orders():
+    from meas.modbus.codec import DecodeError, text_to_words, words_to_text
+
+    # "SN" = 0x53 0x4E: the first character in the high byte (common practice for text blocks)
+    assert text_to_words("SN", 1) == [0x534E]
+    assert text_to_words("SN", 1, "little") == [0x4E53]
+    words = text_to_words("KH-0042", 8)
+    assert len(words) == 8 and words[-1] == 0  # NUL padded
+    assert words_to_text(words) == "KH-0042"
+    assert words_to_text(text_to_words("KH-0042", 4, "little"), "little") == "KH-0042"
+    with pytest.raises(DecodeError):
+        text_to_words("seventeen letters", 8)
+
+
+async def test_scan_reads_a_text_register_of_each_unit():
+    from pymodbus.simulator import DataType, SimData, SimDevice
+
+    from meas.modbus.codec import text_to_words
+    from meas.modbus.scan import TextRegister
+
+    server_mod = pytest.importorskip("meas.sim.server")
+
+    def device(unit: int, serial: str) -> SimDevice:
+        holding = [
+            SimData(address=5000, values=text_to_words(serial, 8), datatype=DataType.REGISTERS)
+        ]
+        bits = [SimData(address=0, count=1, values=False, datatype=DataType.BITS)]
+        return SimDevice(id=unit, simdata=(bits, bits, holding, holding))
+
+    server, port = await server_mod.start_tcp(
+        [device(7, "KH-0007"), device(9, "KH-0009")], "127.0.0.1", 0
+    )
+    try:
+        found = await scan(
+            TcpTransport("127.0.0.1", port),
+            range(5, 11),
+            timeout_s=0.3,
+            texts=[TextRegister("serial", 5000, 8)],
+        )
+        assert [(u.unit_id, u.text) for u in found] == [
+            (7, {"serial": "KH-0007"}),
+            (9, {"serial": "KH-0009"}),
+        ]
+    finally:
+        await server.shutdown()

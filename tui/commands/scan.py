@@ -32,6 +32,27 @@ def _units(text: str) -> list[int]:
     return out
 
 
+def _text(spec: str):  # noqa: ANN202 - meas.modbus.scan.TextRegister
+    from meas.modbus.scan import TextRegister
+
+    try:
+        name, address, count, *order = spec.split(":")
+        reg = TextRegister(name, int(address, 0), int(count), *(order or ["big"]))
+    except (ValueError, TypeError):
+        raise argparse.ArgumentTypeError(
+            f"{spec!r}: give NAME:ADDRESS:COUNT[:big|little], e.g. serial:5000:8"
+        ) from None
+    if (
+        not reg.name
+        or not (0 <= reg.address <= 65535 and 1 <= reg.count <= 125)
+        or reg.byte_order not in ("big", "little")
+    ):
+        raise argparse.ArgumentTypeError(
+            f"{spec!r}: address 0..65535, count 1..125, order big or little"
+        )
+    return reg
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("endpoint", help="tcp://HOST:PORT or rtu:///dev/ttyUSB0")
     p.add_argument(
@@ -81,7 +102,7 @@ def main(args: argparse.Namespace) -> int:
     transport = transport_of(args)
     if args.write_profile is not None and args.write_profile.exists():
         raise BenchwalkError(f"{args.write_profile}: already exists; choose another file")
-    found = asyncio.run(scan(transport, args.units, args.timeout))
+    found = asyncio.run(scan(transport, args.units, args.timeout, args.text))
     if args.write_profile is not None:
         from meas.profile.skeleton import skeleton
 
