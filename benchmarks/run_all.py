@@ -242,6 +242,10 @@ def console_section(cfg: Config) -> list[Figure]:
     )
 
 
+def cli_section(cfg: Config) -> list[Figure]:
+    return _module("bench_cli_start").figures(max(3, cfg.checks_repeat // 20))
+
+
 SECTIONS: dict[str, tuple[str, Callable[[Config], list[Figure]]]] = {
     "plan": ("poll plan", plan_section),
     "poller": ("poller", poller_section),
@@ -251,6 +255,7 @@ SECTIONS: dict[str, tuple[str, Callable[[Config], list[Figure]]]] = {
     "journal": ("journal", journal_section),
     "export": ("export", export_section),
     "console": ("console", console_section),
+    "cli": ("command line", cli_section),
 }
 
 

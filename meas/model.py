@@ -14,7 +14,7 @@ from typing import Any, Literal, get_args
 # order) is what the loader offers in its messages and what other modules iterate over.
 RegisterKind = Literal["holding", "input"]
 REGISTER_KINDS: tuple[RegisterKind, ...] = get_args(RegisterKind)
-DataType = Literal["int16", "uint16", "int32", "uint32", "float32", "float64"]
+DataType = Literal["int16", "uint16", "int32", "uint32", "float32", "float64", "int64", "uint64"]
 DATA_TYPES: tuple[DataType, ...] = get_args(DataType)
 Order = Literal["big", "little"]
 ORDERS: tuple[Order, ...] = get_args(Order)
@@ -46,7 +46,7 @@ LoadBehaviour = Literal["pq", "z", "i", "zip"]
 # phases) or the three phase values A, B, C.
 PhaseValues = float | tuple[float, float, float]
 
-REGISTER_COUNT: dict[str, int] = dict(zip(DATA_TYPES, (1, 1, 2, 2, 2, 4), strict=True))
+REGISTER_COUNT: dict[str, int] = dict(zip(DATA_TYPES, (1, 1, 2, 2, 2, 4, 4, 4), strict=True))
 
 
 @dataclass(frozen=True)

@@ -159,11 +159,11 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
                     {
                         "step": step_key,
                         "snapshot": row_id,
-                        "check": r.check,
+                        "check_id": r.check,
                         "subject": r.subject,
                         "status": str(r.status),
                         "value": r.value,
-                        "limit": r.limit,
+                        "limit_value": r.limit,
                         "residual": r.residual,
                         "unit": r.unit,
                         "message": r.message,
@@ -173,7 +173,7 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
         if progress:
             progress(n, len(steps))
     out = pd.DataFrame(rows, columns=CHECK_COLUMNS)
-    for c in ("value", "limit", "residual"):
+    for c in ("value", "limit_value", "residual"):
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(float)
     return out
 
@@ -201,7 +201,9 @@ def compare_checks(
         d = df[CHECK_COLUMNS].copy()
         for c in ("step", "unit", "message", "cause"):
             d[c] = d[c].fillna("")
-        return d.sort_values(["snapshot", "check", "subject"], kind="stable").reset_index(drop=True)
+        return d.sort_values(["snapshot", "check_id", "subject"], kind="stable").reset_index(
+            drop=True
+        )
 
     a, b = norm(exported), norm(rechecked)
     if len(a) != len(b):
@@ -209,14 +211,14 @@ def compare_checks(
     diffs = []
     for col in CHECK_COLUMNS:
         x, y = a[col], b[col]
-        if col in ("value", "limit", "residual"):
+        if col in ("value", "limit_value", "residual"):
             xv, yv = x.to_numpy(float), y.to_numpy(float)
             same = (np.isnan(xv) & np.isnan(yv)) | np.isclose(xv, yv, rtol=rel, atol=0.0)
         else:
             same = (x.astype(str) == y.astype(str)).to_numpy()
         for i in np.flatnonzero(~same)[:5]:
             diffs.append(
-                f"snapshot {a['snapshot'][i]} {a['check'][i]} {a['subject'][i]}: {col} "
+                f"snapshot {a['snapshot'][i]} {a['check_id'][i]} {a['subject'][i]}: {col} "
                 f"{x[i]!r} in the dataset, {y[i]!r} re-checked"
             )
     return diffs

@@ -429,3 +429,23 @@ async def _start_bench(
     bench = SimulatedBench(profile, **kwargs)
     live = await bench.start()
     return bench, live
+
+
+def validate_start(
+    profile_path: str | Path | None,
+    *,
+    faults: Sequence[str] = (),
+    resume: str | None = None,
+    sessions_dir: Path | None = None,
+) -> None:
+    """Check what starting a session needs (the journal to resume, the profile, the simulated
+    faults) before any screen opens: a ``BenchwalkError`` line instead of three screens."""
+    if resume:
+        resolve_session(resume, sessions_dir)
+    profile = load_profile(profile_path) if profile_path else None
+    if faults:
+        from .sim.faults import parse_fault, validate_faults
+
+        parsed = tuple(parse_fault(f) for f in faults)
+        if profile is not None:
+            validate_faults(profile, parsed)

@@ -8,8 +8,15 @@ from __future__ import annotations
 
 import os
 
+import pytest
 from hypothesis import settings
 
 settings.register_profile("ci", derandomize=True, print_blob=True)
 if os.environ.get("CI"):
     settings.load_profile("ci")
+
+
+@pytest.fixture(autouse=True)
+def _private_user_settings(tmp_path, monkeypatch):
+    """The console's per-user settings file is the test's own, never the person's."""
+    monkeypatch.setenv("BENCHWALK_CONFIG", str(tmp_path / "user-settings.toml"))

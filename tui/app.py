@@ -23,6 +23,7 @@ from .keys import KEYS, QUIT
 from .screens.main import MainScreen
 from .screens.safety import SafetyScreen
 from .screens.start import StartChoice, StartScreen
+from .user_settings import load_settings, remember_theme
 
 # (operator, resume session id or None) -> a session (or an awaitable of one)
 SessionFactory = Callable[[str, str | None], Any]
@@ -59,10 +60,18 @@ class BenchwalkApp(App[int]):
 
     # ------------------------------------------------------------------ start-up
     def on_mount(self) -> None:
+        self._restore_theme()
         if self.skip_intro:
             self.run_worker(self._open(StartChoice(self.operator, self.resume)), exclusive=True)
         else:
             self.push_screen(SafetyScreen(), self._after_safety)
+
+    def _restore_theme(self) -> None:
+        """The theme the person chose last time; every later choice is saved (tui.user_settings)."""
+        saved = load_settings().theme
+        if saved in self.available_themes:
+            self.theme = saved
+        self.theme_changed_signal.subscribe(self, lambda theme: remember_theme(theme.name))
 
     def _after_safety(self, ok: bool | None) -> None:
         if not ok:

@@ -30,7 +30,16 @@ from ..journal.sessions import resolve_session
 from ..journal.store import Journal
 from ..progress import Progress
 from .files import fsync_dir, fsync_file, sha256_of, slug
-from .schema import DATA_DIR, MAIN_PROFILE, PROFILE_DIR, TABLES, arrow_schema, table_schema
+from .grid_tables import NETWORK_FILE, write_network
+from .schema import (
+    DATA_DIR,
+    FORMAT_VERSION,
+    MAIN_PROFILE,
+    PROFILE_DIR,
+    TABLES,
+    arrow_schema,
+    table_schema,
+)
 from .tables import BATCH_READINGS, measurement_batches, measurement_tables, small_tables, to_tables
 
 DP_SCHEMA = "https://datapackage.org/profiles/2.0/datapackage.json"
@@ -203,6 +212,7 @@ def _write_dataset(
                 "hash": "sha256:" + sha256_of(dest),
             }
         )
+    write_network(journal.profile_files(), folder)
     for p in sorted(folder.rglob("*")):
         if p.is_file():
             fsync_file(p)
@@ -260,7 +270,7 @@ def _datapackage(
         else [],
         "resources": resources,
         "benchwalk": {
-            "format": 1,
+            "format": FORMAT_VERSION,
             "software": f"benchwalk {__version__}",
             "session": journal.session_id,
             "bench": journal.bench,
@@ -268,6 +278,7 @@ def _datapackage(
             "session_started_utc": journal.created_utc,
             "profile_sha256": journal.profile_sha256,
             "profile_files": profile_entries,
+            "network": NETWORK_FILE if (folder / NETWORK_FILE).is_file() else None,
             "meta": journal.meta,
             "sign_convention": "positive P and Q = power flowing from the meter's bus into its branch",
             "values": "primary, bench-side SI units; value_network and value_pu derived from the profile",

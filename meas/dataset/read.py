@@ -19,7 +19,15 @@ import pyarrow.parquet as pq
 from ..errors import BenchwalkError, ProfileError
 from ..model import Profile
 from .files import sha256_of
-from .schema import DATA_DIR, MAIN_PROFILE, PROFILE_DIR, TABLES, arrow_schema, column_names
+from .schema import (
+    DATA_DIR,
+    FORMAT_VERSION,
+    MAIN_PROFILE,
+    PROFILE_DIR,
+    TABLES,
+    arrow_schema,
+    column_names,
+)
 
 Package = dict[str, Any]  # datapackage.json as read: data from anyone, checked where used
 
@@ -208,10 +216,14 @@ def read_table(
         raise bad_dataset(folder, f"{name} has columns {show_rel(t.column_names)}, expected {want}")
     expected = arrow_schema(name)
     for f in t.schema:
-        if f.name in expected.names and not f.type.equals(expected.field(f.name).type):
-            raise bad_dataset(
-                folder, f"{name}.{f.name} holds {f.type}, expected {expected.field(f.name).type}"
-            )
+        if f.name not in expected.names:
+            continue
+        want_type = expected.field(f.name).type
+        if pa.types.is_large_string(f.type) and pa.types.is_string(want_type):
+            # the same text column as pandas 3 writes it back: read it as the schema's type
+            t = t.set_column(t.schema.get_field_index(f.name), f.name, t[f.name].cast(want_type))
+        elif not f.type.equals(want_type):
+            raise bad_dataset(folder, f"{name}.{f.name} holds {f.type}, expected {want_type}")
     try:
         return t.to_pandas()
     except (pa.ArrowException, ValueError, OverflowError) as exc:
@@ -224,6 +236,11 @@ def load_dataset(
     """The dataset's tables as pandas frames, after checking every file; BenchwalkError if damaged."""
     folder = Path(folder)
     pkg = verify_dataset(folder) if verify else read_package(folder)
+    fmt = pkg["benchwalk"].get("format")
+    if fmt != FORMAT_VERSION:
+        raise bad_dataset(
+            folder, f"it is dataset format {fmt!r}; this benchwalk reads format {FORMAT_VERSION}"
+        )
     frames = {name: read_table(folder, name) for name in (tables or TABLES)}
     files = {}
     for entry in pkg["benchwalk"].get("profile_files", []):

@@ -53,7 +53,7 @@ class TableSpec(TypedDict):
 
 TABLES: dict[str, TableSpec] = {
     "measurements": {
-        "title": "Every recorded value, one row per meter, quantity and phase per snapshot",
+        "title": "Every recorded value, one row per meter, quantity and phase per poll (a poll journalled twice, as a step's last settling and first capture row, appears once, as capture)",
         "columns": [
             _c("session", "string", "session id", required=True),
             _c("step", "string", "step id of the sequence; empty outside a step"),
@@ -88,6 +88,11 @@ TABLES: dict[str, TableSpec] = {
                 "number",
                 "primary, bench-side value in SI units as read; empty when the read failed",
             ),
+            _c(
+                "u",
+                "number",
+                "standard uncertainty of value (k = 1) from the meter's accuracy class and register resolution, the rule the checks use; empty where no rule applies (i.N, energy counters)",
+            ),
             _c("unit", "string", "unit of value and value_network", required=True),
             _c(
                 "quality",
@@ -106,7 +111,11 @@ TABLES: dict[str, TableSpec] = {
                 "per unit on the bench bases (V: zone bench_v_ll, or over sqrt 3 for phase-neutral; power: s_base_va, over 3 per phase; A: base current)",
                 unit="pu",
             ),
-            _c("mmxu", "string", "IEC 61850-7-4 MMXU data object name of the quantity"),
+            _c(
+                "iec61850",
+                "string",
+                "IEC 61850-7-4 logical node class, data object and attribute (quantities table)",
+            ),
         ],
         "primaryKey": ["snapshot", "meter", "quantity", "phase"],
         "foreignKeys": [
@@ -118,7 +127,7 @@ TABLES: dict[str, TableSpec] = {
         ],
     },
     "snapshots": {
-        "title": "One row per recorded poll cycle",
+        "title": "One row per recorded poll cycle (once, even when journalled twice)",
         "columns": [
             _c("snapshot", "integer", "snapshot row id in the journal", required=True),
             _c("seq", "integer", "poll cycle number from the poller", required=True),
@@ -166,19 +175,9 @@ TABLES: dict[str, TableSpec] = {
         "title": "The sequence, one row per step, with its final outcome",
         "columns": [
             _c("id", "string", "step id", required=True),
-            _c("order", "integer", "position in the sequence, from 1", required=True),
+            _c("step_number", "integer", "position in the sequence, from 1", required=True),
             _c("title", "string", "one line"),
             _c("kind", "string", "manual, remote, capture, hold or note", required=True),
-            _c(
-                "expected_switches",
-                "string",
-                "switch states the step expects, SWITCH=state separated by ;",
-            ),
-            _c(
-                "actual_switches",
-                "string",
-                "switch states found at the last transition, SWITCH=state separated by ;",
-            ),
             _c(
                 "settle_s",
                 "number",
@@ -221,11 +220,11 @@ TABLES: dict[str, TableSpec] = {
         "columns": [
             _c("step", "string", "step id"),
             _c("snapshot", "integer", "snapshot row id", required=True),
-            _c("check", "string", "check id", required=True),
+            _c("check_id", "string", "check id", required=True),
             _c("subject", "string", "meter, bus, branch or switch id", required=True),
             _c("status", "string", "pass, warn, fail or n/a", required=True),
             _c("value", "number", "the measured figure, in unit"),
-            _c("limit", "number", "the allowed figure (expanded uncertainty), in unit"),
+            _c("limit_value", "number", "the allowed figure (expanded uncertainty), in unit"),
             _c("residual", "number", "|value| / limit; 1 is the edge of the band", unit="1"),
             _c("unit", "string", "unit of value and limit"),
             _c("message", "string", "one sentence: what is wrong, likely cause, what to look at"),
@@ -249,6 +248,11 @@ TABLES: dict[str, TableSpec] = {
             ),
             _c("zone", "string", "voltage zone of the bus"),
             _c("sign_convention", "string", "what positive P and Q mean for this meter"),
+            _c(
+                "apparent_power",
+                "string",
+                "definition of the meter's total S: vector |S_A+S_B+S_C| or arithmetic |S_A|+|S_B|+|S_C|",
+            ),
             _c("reports", "string", "primary or secondary values"),
             _c("ct_ratio", "number", "primary A per secondary A", unit="A/A"),
             _c("vt_ratio", "number", "primary V per secondary V", unit="V/V"),
@@ -288,6 +292,90 @@ TABLES: dict[str, TableSpec] = {
         ],
         "primaryKey": ["element", "id"],
     },
+    "step_switches": {
+        "title": "Per step and switch: the state expected (the whole configuration by then) and the one found",
+        "columns": [
+            _c("step", "string", "step id", required=True),
+            _c(
+                "step_number",
+                "integer",
+                "position of the step in the sequence, from 1",
+                required=True,
+            ),
+            _c("switch", "string", "switch id", required=True),
+            _c("expected", "string", "open or closed: the configuration the step checks"),
+            _c("actual", "string", "open, closed or unknown at the step's last transition"),
+            _c("operated", "boolean", "the step operates this switch", required=True),
+        ],
+        "primaryKey": ["step", "switch"],
+    },
+    "quantities": {
+        "title": "What each quantity key means: unit, definition, conventions, IEC 61850-7-4 name",
+        "columns": [
+            _c("quantity", "string", "quantity name", required=True),
+            _c("phase", "string", "A, B, C, N, AB, BC, CA or T (total)", required=True),
+            _c("reading_key", "string", "quantity.phase as benchwalk writes it", required=True),
+            _c("unit", "string", "SI unit of the value", required=True),
+            _c("definition", "string", "what the value is", required=True),
+            _c("angle_reference", "string", "angles: what they are referred to"),
+            _c("pf_sign", "string", "power factor: its sign convention"),
+            _c("q_definition", "string", "reactive power: its definition and sign"),
+            _c("s_definition", "string", "apparent power: its definition"),
+            _c("sign_convention", "string", "powers and energies: what positive means"),
+            _c("iec61850_ln", "string", "IEC 61850-7-4 logical node class (MMXU or MMTR)"),
+            _c("iec61850_do", "string", "IEC 61850-7-4 data object"),
+            _c("iec61850_attribute", "string", "attribute path in the data object"),
+        ],
+        "primaryKey": ["quantity", "phase"],
+    },
+    "bench": {
+        "title": "The bench's numeric per-unit bases and network scales, one row per voltage zone",
+        "columns": [
+            _c("bench", "string", "bench name"),
+            _c("zone", "string", "voltage zone id", required=True),
+            _c("frequency_hz", "number", "nominal frequency", unit="Hz"),
+            _c("s_base_va", "number", "three-phase power base", unit="VA"),
+            _c("s_base_phase_va", "number", "per-phase power base (s_base_va / 3)", unit="VA"),
+            _c("bench_v_ll", "number", "zone nominal line-to-line voltage on the bench", unit="V"),
+            _c("network_v_ll", "number", "line-to-line voltage it stands for", unit="V"),
+            _c("v_base_ll", "number", "per-unit base of line-to-line voltage", unit="V"),
+            _c("v_base_ln", "number", "per-unit base of phase-to-neutral voltage", unit="V"),
+            _c("i_base", "number", "per-unit base of current", unit="A"),
+            _c("power_scale", "number", "network W per bench W", unit="1"),
+            _c("voltage_scale", "number", "network V per bench V", unit="1"),
+            _c("current_scale", "number", "network A per bench A", unit="1"),
+            _c(
+                "coverage_k",
+                "number",
+                "coverage factor of the checks' limits (u is k = 1)",
+                unit="1",
+            ),
+            _c("warn_fraction", "number", "fraction of a limit that warns", unit="1"),
+        ],
+        "primaryKey": ["zone"],
+    },
+    "model": {
+        "title": "The profile model's ideal readings for every switch configuration captured (empty without model data)",
+        "columns": [
+            _c("step", "string", "step whose captures had this configuration"),
+            _c(
+                "switches",
+                "string",
+                "the configuration, SWITCH=state separated by ; (sorted)",
+                required=True,
+            ),
+            _c("meter", "string", "meter id", required=True),
+            _c("quantity", "string", "quantity name", required=True),
+            _c("phase", "string", "phase", required=True),
+            _c(
+                "value",
+                "number",
+                "predicted primary, bench-side value in SI units, the meter's sign convention",
+            ),
+            _c("unit", "string", "unit of value", required=True),
+        ],
+        "primaryKey": ["step", "switches", "meter", "quantity", "phase"],
+    },
     "events": {
         "title": "Everything that happened besides readings: operations, notes, timeouts",
         "columns": [
@@ -305,22 +393,41 @@ TABLES: dict[str, TableSpec] = {
 
 ARROW_TYPES = {
     "string": pa.string(),
+    "boolean": pa.bool_(),
     "integer": pa.int64(),
     "number": pa.float64(),
     "datetime": pa.timestamp("us", tz="UTC"),
 }
 
 
+FORMAT_VERSION = 2
+SIGN_CONVENTION = "positive P and Q = power flowing from the meter's bus into its branch"
+
+
 def arrow_schema(table: str, *, for_csv: bool = False) -> pa.Schema:
-    """Parquet keeps real timestamps; CSV gets ISO 8601 text with a Z (what Table Schema parses)."""
-    return pa.schema(
-        [
-            pa.field(
-                c.name, pa.string() if for_csv and c.type == "datetime" else ARROW_TYPES[c.type]
-            )
-            for c in TABLES[table]["columns"]
-        ]
-    )
+    """Parquet keeps real timestamps; CSV gets ISO 8601 text with a Z (what Table Schema parses).
+
+    Every field carries its description (and unit) as Parquet field metadata, and the schema
+    the table's title, key, the format version and the sign convention, for readers without
+    ``datapackage.json``.
+    """
+    spec = TABLES[table]
+    fields = []
+    for c in spec["columns"]:
+        meta = {"description": c.description}
+        if c.unit:
+            meta["unit"] = c.unit
+        typ = pa.string() if for_csv and c.type == "datetime" else ARROW_TYPES[c.type]
+        fields.append(pa.field(c.name, typ, metadata=meta))
+    meta = {
+        "benchwalk:table": table,
+        "benchwalk:title": spec["title"],
+        "benchwalk:format": str(FORMAT_VERSION),
+        "benchwalk:sign_convention": SIGN_CONVENTION,
+    }
+    if "primaryKey" in spec:
+        meta["benchwalk:key"] = ",".join(spec["primaryKey"])
+    return pa.schema(fields, metadata=meta)
 
 
 def column_names(table: str) -> list[str]:

@@ -20,7 +20,15 @@ from ..bases import bases_of_json, network_factor, per_unit_base
 from ..journal.read import JournalView, StepTransition
 from ..journal.schema import QUALITY_CODES
 from ..quantities import QUANTITIES, split_key
+from .derived import (
+    Uncertainty,
+    model_rows,
+    profile_from_texts,
+    repeated_polls,
+    step_switch_rows,
+)
 from .schema import ARROW_TYPES, TABLES, column_names
+from .vocabulary import bench_rows, iec61850, quantity_rows
 
 BATCH_READINGS = 4000  # journal rows (one meter, one snapshot) per streamed batch
 
@@ -60,7 +68,9 @@ class _Template:
 def _template(profile: Json, meters: dict[str, Json], meter: str, keys: Sequence[str]) -> _Template:
     qs, phs = zip(*(split_key(k) for k in keys), strict=True) if keys else ((), ())
     units = [QUANTITIES[q].unit if q in QUANTITIES else "" for q in qs]
-    mmxu = [QUANTITIES[q].mmxu if q in QUANTITIES else "" for q in qs]
+    mmxu = [
+        ".".join(iec61850(q, ph)) if q in QUANTITIES else "" for q, ph in zip(qs, phs, strict=True)
+    ]
     m = meters.get(meter)
     if m is None:
         net, pu = np.full(len(keys), math.nan), np.full(len(keys), math.nan)
@@ -83,14 +93,21 @@ _QUAL_NAMES = np.array([str(q) for q in QUALITY_CODES], dtype=object)
 
 
 def measurement_batches(view: JournalView, session: str, profile: Json) -> Iterator[Columns]:
-    """Column arrays of at most BATCH_READINGS journal rows each, in snapshot order."""
+    """Column arrays of at most BATCH_READINGS journal rows each, in snapshot order; a poll
+    journalled twice (settling, then capture) is written once, as its capture row."""
     keysets = view.keysets()
+    skip = repeated_polls(view.snapshots())
+    model = profile_from_texts(view.profile_files())
+    unc = Uncertainty(model) if model is not None else None
     meters = {m["id"]: m for m in profile["meters"]}
     templates: dict[tuple[str, int], _Template] = {}
     for rows in view.reading_batches(BATCH_READINGS):
         parts: dict[str, list[Any]] = {
             k: [] for k in ("snap", "step", "role", "time", "tpl", "vals", "qual", "n")
         }
+        rows = [r for r in rows if r.snapshot not in skip]
+        if not rows:
+            continue
         for r in rows:
             key = (r.meter, r.keyset)
             tpl = templates.get(key)
@@ -110,6 +127,12 @@ def measurement_batches(view: JournalView, session: str, profile: Json) -> Itera
         tpls = parts["tpl"]
         net = np.concatenate([t.net for t in tpls])
         pu = np.concatenate([t.pu for t in tpls])
+        meter_ids = [t.meter[0] if len(t.meter) else "" for t in tpls]
+        u = (
+            unc.of_rows(meter_ids, [list(keysets[r.keyset]) for r in rows], parts["vals"])
+            if unc is not None
+            else np.full(value.size, np.nan)
+        )
         yield {
             "session": np.full(value.size, session, dtype=object),
             "step": np.repeat(np.array(parts["step"], dtype=object), n),
@@ -120,11 +143,12 @@ def measurement_batches(view: JournalView, session: str, profile: Json) -> Itera
             "quantity": np.concatenate([t.quantity for t in tpls]),
             "phase": np.concatenate([t.phase for t in tpls]),
             "value": value,
+            "u": u,
             "unit": np.concatenate([t.unit for t in tpls]),
             "quality": _QUAL_NAMES[np.concatenate(parts["qual"])],
             "value_network": value * net,
             "value_pu": value / pu,
-            "mmxu": np.concatenate([t.mmxu for t in tpls]),
+            "iec61850": np.concatenate([t.mmxu for t in tpls]),
         }
 
 
@@ -145,11 +169,12 @@ def measurement_tables(cols: Columns) -> tuple[pa.Table, pa.Table]:
         "quantity": pa.array(cols["quantity"], pa.string()),
         "phase": pa.array(cols["phase"], pa.string()),
         "value": _num_array(cols["value"]),
+        "u": _num_array(cols["u"]),
         "unit": pa.array(cols["unit"], pa.string()),
         "quality": pa.array(cols["quality"], pa.string()),
         "value_network": _num_array(cols["value_network"]),
         "value_pu": _num_array(cols["value_pu"]),
-        "mmxu": pa.array(cols["mmxu"], pa.string()),
+        "iec61850": pa.array(cols["iec61850"], pa.string()),
     }
     iso = pa.array(cols["time_iso"], pa.string())
     # the time column is the same per snapshot: parse each distinct value once
@@ -167,7 +192,9 @@ def _switch_text(d: dict[str, str] | None) -> str | None:
 def small_tables(view: JournalView, prof: Json) -> dict[str, list[Row]]:
     """Every table but measurements, as rows, from the journal's view and the profile."""
     out: dict[str, list[Row]] = {}
-    snapshots = view.snapshots()
+    every = view.snapshots()
+    skip = repeated_polls(every)
+    snapshots = [r for r in every if r.id not in skip]
     out["snapshots"] = [
         {
             "snapshot": r.id,
@@ -181,7 +208,7 @@ def small_tables(view: JournalView, prof: Json) -> dict[str, list[Row]]:
         }
         for r in snapshots
     ]
-    out["polls"] = [r._asdict() for r in view.polls()]
+    out["polls"] = [r._asdict() for r in view.polls() if r.snapshot not in skip]
     out["switch_states"] = [
         {"snapshot": r.id, "switch": k, "state": v}
         for r in snapshots
@@ -195,11 +222,11 @@ def small_tables(view: JournalView, prof: Json) -> dict[str, list[Row]]:
             {
                 "step": c.step,
                 "snapshot": c.snapshot,
-                "check": c.check,
+                "check_id": c.check,
                 "subject": c.subject,
                 "status": c.status,
                 "value": v,
-                "limit": lim,
+                "limit_value": lim,
                 "residual": res,
                 "unit": c.unit,
                 "message": c.message,
@@ -224,8 +251,13 @@ def small_tables(view: JournalView, prof: Json) -> dict[str, list[Row]]:
         for h in history
     ]
     out["steps"] = _steps_rows(prof, history)
+    out["step_switches"] = step_switch_rows(prof, history)
     out["meters"] = _meter_rows(prof)
     out["topology"] = _topology_rows(prof)
+    out["quantities"] = quantity_rows()
+    out["bench"] = bench_rows(prof)
+    model = profile_from_texts(view.profile_files())
+    out["model"] = model_rows(model, snapshots, skip) if model is not None else []
     out["events"] = [r._asdict() for r in view.events()]
     return out
 
@@ -236,19 +268,14 @@ def _steps_rows(prof: Json, history: list[StepTransition]) -> list[Row]:
         mine = [h for h in history if h["step"] == s["id"]]
         last = mine[-1] if mine else None
         settle = next((h["settle_s"] for h in mine if h["settle_s"] is not None), None)
-        actual = next(
-            (h["actual_switches"] for h in reversed(mine) if h["actual_switches"] is not None), None
-        )
         outcome = next((h["outcome"] for h in reversed(mine) if h["outcome"]), None)
         reason = next((h["reason"] for h in reversed(mine) if h["reason"]), None)
         rows.append(
             {
                 "id": s["id"],
-                "order": n,
+                "step_number": n,
                 "title": s.get("title"),
                 "kind": s.get("kind"),
-                "expected_switches": _switch_text(s.get("expect") or {}),
-                "actual_switches": _switch_text(actual),
                 "settle_s": settle,
                 "state": last["state"] if last else None,
                 "outcome": outcome,
@@ -286,6 +313,9 @@ def _meter_rows(prof: Json) -> list[Row]:
                 "branch": m.get("branch"),
                 "zone": buses.get(m["bus"], {}).get("zone"),
                 "sign_convention": sign,
+                "apparent_power": (prof.get("maps") or {})
+                .get(m["map_id"], {})
+                .get("apparent_power"),
                 "reports": m.get("reports"),
                 "ct_ratio": m.get("ct_ratio"),
                 "vt_ratio": m.get("vt_ratio"),

@@ -295,8 +295,54 @@ class JournalView:
     def step_history(self) -> list[StepTransition]:
         return step_history(self._conn)
 
+    def profile_files(self) -> list[tuple[str, str]]:
+        """(name, text) of the profile and its companions, the profile first."""
+        return profile_files(self._conn)
+
     def _tuples(self, sql: str) -> sqlite3.Cursor:
         """Rows as plain tuples, in the order the query names its columns."""
         cur = self._conn.cursor()
         cur.row_factory = None
         return cur.execute(sql)
+
+
+@dataclass(frozen=True)
+class SessionState:
+    """A journal at a glance, for listing sessions."""
+
+    session_id: str
+    path: Path
+    bench: str
+    operator: str
+    created_utc: str
+    state: str  # finished, stopped, not started, unreadable
+    step: str | None  # the step it stopped at (resume continues there)
+    steps_done: int
+    steps_total: int
+    snapshots: int
+
+
+def session_state(path: Path) -> SessionState:
+    """What a journal says about its session; ``unreadable`` for a damaged or foreign file."""
+    try:
+        conn = connect_read_only(path)
+        try:
+            info = read_session(conn)
+            if info is None:
+                raise sqlite3.DatabaseError("no session row")
+            ids = [s["id"] for s in info.profile_dict.get("steps", [])]
+            latest: dict[str, str] = {}
+            for r in conn.execute("SELECT step, state FROM step_log ORDER BY id"):
+                latest[r["step"]] = r["state"]
+            at = resume_point(conn, ids)
+            n = snapshot_count(conn)
+        finally:
+            conn.close()
+    except (sqlite3.Error, ValueError, KeyError, TypeError):
+        return SessionState(path.stem, path, "", "", "", "unreadable", None, 0, 0, 0)
+    done = sum(1 for s in ids if latest.get(s) in DONE_STATES)
+    state = "finished" if at is None else ("not started" if not latest else "stopped")
+    return SessionState(
+        info.session_id, path, info.bench, info.operator, info.created_utc, state, at, done,
+        len(ids), n,
+    )  # fmt: skip

@@ -15,12 +15,23 @@ from collections.abc import Sequence
 
 from ..model import REGISTER_COUNT, RegisterSpec
 
-_FMT = {"int16": "h", "uint16": "H", "int32": "i", "uint32": "I", "float32": "f", "float64": "d"}
+_FMT = {
+    "int16": "h",
+    "uint16": "H",
+    "int32": "i",
+    "uint32": "I",
+    "float32": "f",
+    "float64": "d",
+    "int64": "q",  # 64-bit energy counters; values past 2**53 lose their last digits as floats
+    "uint64": "Q",
+}
 _INT_RANGE = {
     "int16": (-(2**15), 2**15 - 1),
     "uint16": (0, 2**16 - 1),
     "int32": (-(2**31), 2**31 - 1),
     "uint32": (0, 2**32 - 1),
+    "int64": (-(2**63), 2**63 - 1),
+    "uint64": (0, 2**64 - 1),
 }
 
 
@@ -70,3 +81,26 @@ def encode(spec: RegisterSpec, value: float) -> list[int]:
     """Registers that a meter of this map would hold for an engineering value."""
     raw = (value - spec.offset) / spec.scale
     return raw_to_words(raw, spec.dtype, spec.word_order, spec.byte_order)
+
+
+def words_to_text(words: Sequence[int], byte_order: str = "big") -> str:
+    """A text register block (two characters per register, the first in the high byte unless
+    ``byte_order`` is little), ASCII/UTF-8, cut at the first NUL and stripped of padding."""
+    buf = bytearray()
+    for w in words:
+        hi, lo = (w >> 8) & 0xFF, w & 0xFF
+        buf += bytes((hi, lo)) if byte_order == "big" else bytes((lo, hi))
+    return bytes(buf).split(b"\x00", 1)[0].decode("utf-8", "replace").strip()
+
+
+def text_to_words(text: str, count: int, byte_order: str = "big") -> list[int]:
+    """``count`` registers holding ``text`` (NUL-padded); DecodeError when it does not fit."""
+    raw = text.encode("utf-8")
+    if len(raw) > 2 * count:
+        raise DecodeError(f"{text!r} needs {(len(raw) + 1) // 2} registers, {count} given")
+    raw = raw.ljust(2 * count, b"\x00")
+    words = []
+    for i in range(0, len(raw), 2):
+        hi_b, lo_b = raw[i], raw[i + 1]
+        words.append((hi_b << 8) | lo_b if byte_order == "big" else (lo_b << 8) | hi_b)
+    return words

@@ -36,6 +36,8 @@ _STRUCT_CHAR = {
     "uint32": "I",
     "float32": "f",
     "float64": "d",
+    "int64": "q",
+    "uint64": "Q",
 }
 
 

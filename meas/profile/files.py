@@ -184,7 +184,28 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
     poll = read_poll(root)
     checks = read_checks(root)
     sim = root.get("sim", "table", {})
-    maps = read_maps(doc, root)
+
+    def map_file(key: Key, name: str) -> tuple[str, str] | None:
+        """A file the profile names (a CSV register map): kept in sources and the digest."""
+        where = companion_path(p, name)
+        if where is None:
+            doc.add(
+                key, f"{printable(name)!r} is not inside the profile's folder; give a relative path"
+            )
+            return None
+        try:
+            raw_csv = where.read_bytes()
+            text_csv = raw_csv.decode("utf-8-sig")
+        except (OSError, UnicodeDecodeError) as exc:
+            doc.add(
+                key, f"{printable(name)}: cannot be read ({getattr(exc, 'strerror', None) or exc})"
+            )
+            return None
+        digest.update(raw_csv)
+        sources.append(SourceFile(Path(name).as_posix(), text_csv))
+        return Path(name).as_posix(), text_csv
+
+    maps = read_maps(doc, root, map_file)
     buses = read_buses(doc, root, bench.zones)
     branches, partial = read_branches(doc, root, buses)
     plcs = read_plcs(doc, root)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from .. import quantities
@@ -14,8 +15,12 @@ from ..model import (
     RegisterMap,
     RegisterSpec,
 )
+from .map_csv import csv_registers
 from .scanner import Key
 from .tables import Doc, Table, show, suggest, typename, within
+
+# reads a companion file named in the profile: (name, text), or None with the problem recorded
+CompanionReader = Callable[[Key, str], tuple[str, str] | None]
 
 __all__ = ["MAX_ADDRESS", "read_maps"]
 
@@ -45,8 +50,11 @@ def _register_fields(t: Table, inherited: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
-def read_maps(doc: Doc, root: Table) -> dict[str, RegisterMap]:
-    """``[maps.ID]`` tables: each map's defaults and registers, overlaps reported."""
+def read_maps(
+    doc: Doc, root: Table, companion: CompanionReader | None = None
+) -> dict[str, RegisterMap]:
+    """``[maps.ID]`` tables: each map's defaults and registers (from ``registers`` and/or a
+    ``csv`` file, meas.profile.map_csv), overlaps reported."""
     m = root.table("maps")
     maps: dict[str, RegisterMap] = {}
     if m is None:
@@ -76,10 +84,20 @@ def read_maps(doc: Doc, root: Table) -> dict[str, RegisterMap]:
         if dt is not None:
             inherited = _register_fields(dt, inherited)
             dt.finish()
-        rt = mt.table("registers", required=True)
+        csv_name = mt.get("csv", "str", None)
+        rt = mt.table("registers", required=csv_name is None)
         specs: list[tuple[RegisterSpec, Key]] = []
+        if csv_name is not None and companion is not None:
+            found = companion(mt.at("csv"), csv_name)
+            if found is not None:
+                cdoc, rows = csv_registers(found[0], found[1], doc.problems)
+                ct = Table(cdoc, rows, ())
+                for qkey in rows:
+                    spec = _register(cdoc, ct, qkey, inherited)
+                    if spec is not None:
+                        specs.append((spec, ct.at(qkey)))
         if rt is not None:
-            if not rt.data:
+            if not rt.data and not specs:
                 doc.add(rt.path, "a map needs at least one register")
             for qkey in rt.data:
                 spec = _register(doc, rt, qkey, inherited)

@@ -117,7 +117,7 @@ def render_html(rd: ReportData) -> str:
     for s in step_rows(steps):
         srows.append(
             [
-                str(s.order),
+                str(s.step_number),
                 _e(s.id),
                 _e(s.title),
                 _e(s.kind),
@@ -176,7 +176,7 @@ def render_html(rd: ReportData) -> str:
         bal = rd.balance[rd.balance["step"] == s.id]
         if sub.empty and bal.empty:
             continue
-        out.append(f"<h3>{s.order}. {_e(s.title)} <small>({_e(s.id)})</small></h3>")
+        out.append(f"<h3>{s.step_number}. {_e(s.title)} <small>({_e(s.id)})</small></h3>")
         if not sub.empty:
             rows = [
                 [_e(r["meter"])] + [_e(fmt(r[t])) for t, _, _ in KEY_READINGS]

@@ -54,7 +54,15 @@ def render_markdown(rd: ReportData) -> str:
         _md_table(
             ["#", "step", "title", "state", "outcome", "operator", "reason"],
             [
-                [s.order, s.id, s.title, s.state or "not reached", s.outcome, s.operator, s.reason]
+                [
+                    s.step_number,
+                    s.id,
+                    s.title,
+                    s.state or "not reached",
+                    s.outcome,
+                    s.operator,
+                    s.reason,
+                ]
                 for s in step_rows(ds["steps"])
             ],
         ),
@@ -94,7 +102,7 @@ def render_markdown(rd: ReportData) -> str:
         bal = rd.balance[rd.balance["step"] == s.id]
         if sub.empty and bal.empty:
             continue
-        out += [f"### {s.order}. {s.title} ({s.id})", ""]
+        out += [f"### {s.step_number}. {s.title} ({s.id})", ""]
         if not sub.empty:
             out.append(
                 _md_table(

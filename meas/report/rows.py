@@ -57,7 +57,7 @@ class MeterRow(Protocol):
 
 class StepRow(Protocol):
     id: str
-    order: int
+    step_number: int
     title: str | None
     kind: str
     state: str | None
@@ -138,7 +138,8 @@ def gather(dataset_dir: Path) -> ReportData:
         frames.append(med)
     readings = pd.concat(frames, axis=1).reset_index() if frames else pd.DataFrame()
 
-    checks = ds["checks"]
+    # the dataset's SQL-safe column names, under the report's short ones
+    checks = ds["checks"].rename(columns={"check_id": "check", "limit_value": "limit"})
     steps = ds["steps"].set_index("id")
     capture_snaps = set(ds["snapshots"].loc[ds["snapshots"]["role"] == "capture", "snapshot"])
     bad = checks[checks["status"] == "fail"]

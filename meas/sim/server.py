@@ -21,6 +21,7 @@ from datetime import UTC, datetime
 from pymodbus.constants import ExcCodes
 from pymodbus.exceptions import NoSuchIdException
 from pymodbus.framer import FramerType
+from pymodbus.pdu.device import ModbusDeviceIdentification
 from pymodbus.server import ModbusSerialServer, ModbusTcpServer
 from pymodbus.simulator import DataType, SimData, SimDevice
 
@@ -36,6 +37,17 @@ COIL_WRITE_FC = frozenset({5, 15})
 FC_HOLDING, FC_INPUT, FC_COIL, FC_DISCRETE = 3, 4, 1, 2
 
 log = logging.getLogger(__name__)
+
+# what every simulated unit answers to read device identification (function 43 / 14); pymodbus
+# keeps one identity per process, so the meters and the PLC all give these invented names
+SIM_IDENTITY = ModbusDeviceIdentification(
+    info_name={
+        "VendorName": "benchwalk simulated bench",
+        "ProductCode": "BW-SIM",
+        "MajorMinorRevision": "1.0",
+        "ProductName": "simulated meter or PLC",
+    }
+)
 
 
 @dataclass
@@ -270,7 +282,11 @@ async def start_tcp(
         else lambda w: on_write(dataclasses.replace(w, port=holder.get("port", port))),
     )
     server = ModbusTcpServer(
-        devices, address=(host, port), ignore_missing_devices=True, trace_pdu=tracer
+        devices,
+        address=(host, port),
+        ignore_missing_devices=True,
+        trace_pdu=tracer,
+        identity=SIM_IDENTITY,
     )
     try:
         await server.serve_forever(background=True)
@@ -296,6 +312,7 @@ async def start_rtu(
     """Serve the devices as RTU slaves on a serial port path (a real port or a pty)."""
     server = ModbusSerialServer(
         devices,
+        identity=SIM_IDENTITY,
         framer=FramerType.RTU,
         port=device,
         baudrate=baudrate,

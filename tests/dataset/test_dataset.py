@@ -145,10 +145,12 @@ def test_network_and_per_unit_values(exported: tuple[Path, Path]) -> None:
     assert (
         math.isnan(f["value_pu"])
         and f["value_network"] == f["value"]
-        and f["mmxu"] == "Hz"
+        and f["iec61850"] == "MMXU.Hz.mag.f"
         and f["unit"] == "Hz"
     )
-    assert one("v_ll", "BC")["mmxu"] == "PPV" and one("q", "T")["unit"] == "var"
+    # IEC 61850-7-4 MMXU: line-to-line voltages in the DEL object PPV, totals in Tot* [from memory]
+    assert one("v_ll", "BC")["iec61850"] == "MMXU.PPV.phsBC.cVal.mag.f"
+    assert one("q", "T")["unit"] == "var" and one("q", "T")["iec61850"] == "MMXU.TotVAr.mag.f"
 
 
 def test_steps_checks_meters_events(exported: tuple[Path, Path]) -> None:
@@ -156,10 +158,9 @@ def test_steps_checks_meters_events(exported: tuple[Path, Path]) -> None:
     d = load_dataset(ds)
     steps = d["steps"].set_index("id")
     assert steps.loc["S1", "state"] == "accepted" and steps.loc["S1", "settle_s"] == 1.25
-    assert (
-        steps.loc["S1", "actual_switches"] == "CB1=closed"
-        and steps.loc["S2", "expected_switches"] == "CB1=open"
-    )
+    sw = d["step_switches"].set_index(["step", "switch"])
+    assert sw.loc[("S1", "CB1"), "actual"] == "closed"
+    assert sw.loc[("S2", "CB1"), "expected"] == "open"
     assert steps.loc["S2", "reason"] == "CT of M1 replaced after the test"
     conn = Journal.open(journal_path)._conn
     n_checks = conn.execute("SELECT count(*) FROM check_result").fetchone()[0]
@@ -231,12 +232,21 @@ def test_hive_collection_reads_as_one_table_in_duckdb(tmp_path: Path) -> None:
     a = export_session(build_session(tmp_path / "a", n_snapshots=6, name="20261201-100000-plover"))
     b = export_session(build_session(tmp_path / "b", n_snapshots=9, name="20261202-100000-plover"))
     coll = write_collection([a, b], tmp_path / "coll")
-    files = sorted(p.relative_to(coll).as_posix() for p in coll.rglob("*.parquet"))
+    files = sorted(
+        p.relative_to(coll / "measurements").as_posix()
+        for p in (coll / "measurements").rglob("*.parquet")
+    )
     assert files == [
         "bench=plover-test-bench/session=20261201-100000-plover/part-0.parquet",
         "bench=plover-test-bench/session=20261202-100000-plover/part-0.parquet",
     ]
-    glob = str(coll / "**" / "*.parquet")
+    # every table of the dataset has its own folder (the small tables too)
+    assert {p.name for p in coll.iterdir()} == set(TABLES)
+    steps = duckdb.sql(
+        f"SELECT session, count(*) FROM read_parquet('{coll}/steps/**/*.parquet', hive_partitioning=true) GROUP BY ALL"
+    ).fetchall()
+    assert len(steps) == 2
+    glob = str(coll / "measurements" / "**" / "*.parquet")
     rows = duckdb.sql(
         f"SELECT session, bench, count(*) n, sum(value) s FROM read_parquet('{glob}', hive_partitioning=true)"
         " GROUP BY ALL ORDER BY session"

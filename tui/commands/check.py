@@ -9,12 +9,12 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from rich.console import Console
 from rich.table import Table
 
 from meas.dataset.read import load_dataset
 from meas.recheck import compare_checks, recheck
 
+from .output import add_json, console, emit_json
 from .progress import terminal_progress
 
 HELP = "re-run the checks offline from a dataset folder and compare with the recorded ones"
@@ -24,10 +24,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "dataset", metavar="DATASET", type=Path, help="dataset folder written by benchwalk export"
     )
+    add_json(parser, "the counts, failures and differences")
 
 
 def main(args: argparse.Namespace) -> int:
-    console = Console()
+    out = console()
     exported = load_dataset(args.dataset, tables=["checks"])["checks"]
     bar, update = terminal_progress("re-checking")
     if bar is not None:
@@ -35,7 +36,32 @@ def main(args: argparse.Namespace) -> int:
             fresh = recheck(args.dataset, progress=update)
     else:
         fresh = recheck(args.dataset)
-    counts = fresh.groupby(["check", "status"]).size().unstack(fill_value=0)
+    counts = fresh.groupby(["check_id", "status"]).size().unstack(fill_value=0)
+    failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check_id", "subject", "message"])
+    diffs = compare_checks(exported, fresh)
+    if getattr(args, "json", False):
+        emit_json(
+            {
+                "dataset": str(args.dataset),
+                "counts": {
+                    str(c): {str(s): int(n) for s, n in row.items() if n}
+                    for c, row in counts.iterrows()
+                },
+                "failed": [
+                    {
+                        "step": r.step,
+                        "check": r.check_id,
+                        "subject": r.subject,
+                        "message": r.message,
+                    }
+                    for r in failed.itertuples(index=False)
+                ],
+                "reproduces": not diffs,
+                "results": len(fresh),
+                "differences": diffs,
+            }
+        )
+        return 1 if len(failed) else 0
     table = Table(title=f"re-check of {args.dataset}")
     table.add_column("check")
     statuses = [s for s in ("pass", "warn", "fail", "n/a") if s in counts.columns]
@@ -43,21 +69,19 @@ def main(args: argparse.Namespace) -> int:
         table.add_column(s, justify="right")
     for check, row in counts.iterrows():
         table.add_row(str(check), *[str(int(row[s])) for s in statuses])
-    console.print(table)
-    failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check", "subject", "message"])
+    out.print(table)
     for r in failed.itertuples(index=False):
-        console.print(
-            f"[red]FAIL[/red] step {r.step} {r.check} {r.subject}: {r.message}", highlight=False
+        out.print(
+            f"[red]FAIL[/red] step {r.step} {r.check_id} {r.subject}: {r.message}", highlight=False
         )
-    diffs = compare_checks(exported, fresh)
     if diffs:
-        console.print(
+        out.print(
             f"[yellow]the re-check does NOT reproduce the exported checks table ({len(diffs)} differences shown):[/yellow]"
         )
         for d in diffs[:20]:
-            console.print(f"  {d}", highlight=False, markup=False)
+            out.print(f"  {d}", highlight=False, markup=False)
     else:
-        console.print(
+        out.print(
             f"the re-check reproduces the exported checks table: {len(fresh)} results identical"
         )
     return 1 if len(failed) else 0

@@ -23,10 +23,16 @@ def add_common(p: argparse.ArgumentParser) -> None:
         "--sessions",
         type=Path,
         default=None,
-        help="folder of session journals (default: $BENCHWALK_SESSIONS or ./sessions)",
+        help="folder of session journals (default: $BENCHWALK_SESSIONS or the per-user data folder)",
     )
     p.add_argument(
         "--log-saved", action="store_true", help="print one line per snapshot saved in the journal"
+    )
+    p.add_argument(
+        "--json",
+        action="store_true",
+        help="with --headless: the session's verdict as one JSON line on standard output "
+        "(everything else goes to standard error)",
     )
 
 
@@ -63,7 +69,23 @@ def saved_printer(
 
 
 def start_console(**kwargs: Any) -> int:
-    """Start the console (``tui.app``), imported only here so headless commands never load textual."""
+    """Start the console (``tui.app``), imported only here so headless commands never load textual.
+
+    Every argument is checked first, and without a terminal the console refuses in one line
+    (it would otherwise wait for keys that never come)."""
+    from meas.session import validate_start
+
+    validate_start(
+        kwargs.get("profile_path"),
+        faults=kwargs.get("faults") or (),
+        resume=kwargs.get("resume"),
+        sessions_dir=kwargs.get("sessions_dir"),
+    )
+    if not (sys.stdin.isatty() and sys.stdout.isatty()):
+        raise BenchwalkError(
+            "the console needs a terminal (standard input or output is not one); "
+            "use --headless, or run it in a terminal"
+        )
     try:
         from tui.app import run_console
     except ImportError as exc:

@@ -16,12 +16,11 @@ from meas.cautions import HEADLESS_CAUTION
 from meas.session import SIM_OPERATOR, Session, as_built_line
 
 from .common import add_as_built, add_common, saved_printer, start_console
+from .demo_profiles import demo_profile
 from .headless import walk
 from .technicians import SimTechnician
 
 HELP = "run the demo feeder bench on the simulated bench (console, or --headless end to end)"
-
-DEMO_PROFILE = Path(__file__).resolve().parents[2] / "profiles_demo" / "feeder_bench.toml"
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -39,7 +38,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--seed", type=int, default=None, help="random seed of the simulated noise")
     add_as_built(p)
-    p.add_argument("--profile", type=Path, default=DEMO_PROFILE, help=argparse.SUPPRESS)
+    p.add_argument("--profile", type=Path, default=None, help=argparse.SUPPRESS)
     add_common(p)
 
 
@@ -60,13 +59,20 @@ async def _headless(args: argparse.Namespace, built: str | None) -> int:
     )
     bench = f"simulated bench, {built}" if built else "simulated bench"
     print(f"Session {session.session_id}: journal {session.path} ({bench})", flush=True)
-    code = await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
+    code = await walk(
+        session,
+        SimTechnician(session, SIM_OPERATOR),
+        args.out,
+        verdict_to=getattr(args, "_stdout", None),
+    )
     if built:
         print(f"Simulated bench on an {built}. The checks used the nameplate model.", flush=True)
     return code
 
 
 def main(args: argparse.Namespace) -> int:
+    if args.profile is None:
+        args.profile = demo_profile()
     built = as_built_line(args.profile, args.as_built, args.model_error)  # before anything starts
     if not args.headless:
         return start_console(

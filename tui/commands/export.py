@@ -16,7 +16,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "session",
         metavar="SESSION",
-        help="session id (in $BENCHWALK_SESSIONS or ./sessions) or path to the journal file",
+        help="session id (in $BENCHWALK_SESSIONS or the per-user data folder) or path to the journal file",
     )
     parser.add_argument(
         "--out",

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
-from typing import TextIO
+from typing import Any, TextIO
 
 from meas.results import Status
 from meas.session import Session
@@ -92,8 +92,11 @@ def summarize(session: Session, out: TextIO) -> int:
     return EXIT_FAIL if failed or skipped else EXIT_PASS
 
 
-async def finish(session: Session, code: int, out_dir: Path | None, out: TextIO) -> int:
+async def finish(
+    session: Session, code: int, out_dir: Path | None, out: TextIO
+) -> tuple[int, Path | None, Path | None]:
     """Export the dataset and report when the sequence completed; close the session."""
+    dataset = report = None
     try:
         if session.runner.finished:
             target = out_dir or Path(f"benchwalk-{session.session_id}")
@@ -101,14 +104,61 @@ async def finish(session: Session, code: int, out_dir: Path | None, out: TextIO)
             print(f"Dataset written to {dataset}, report to {report}", file=out)
     finally:
         await session.close()
-    return code
+    return code, dataset, report
 
 
-async def walk(session: Session, technician: Technician, out_dir: Path | None) -> int:
-    """Drive the session to its end, then export and close it; closed on any error too."""
+def verdict(
+    session: Session, code: int, dataset: Path | None, report: Path | None
+) -> dict[str, Any]:
+    """The session's outcome for scripts (``--json``): the same facts ``summarize`` prints."""
+    runner = session.runner
+    word = {EXIT_PASS: "PASS", EXIT_STOPPED: "STOPPED"}.get(code) or (
+        "FAIL" if runner.verdict() is Status.FAIL else "INCOMPLETE"
+    )
+    return {
+        "session": session.session_id,
+        "verdict": word,
+        "exit_code": code,
+        "journal": str(session.path),
+        "stopped_at": runner.step.id if runner.stopped and runner.step else None,
+        "steps": [
+            {"step": o.step_id, "outcome": o.outcome, "status": o.status.value, "reason": o.reason}
+            for o in runner.outcomes.values()
+        ],
+        "failures": [
+            {
+                "step": o.step_id,
+                "check": r.check,
+                "subject": r.subject,
+                "cause": r.cause,
+                "message": r.message,
+            }
+            for o in runner.outcomes.values()
+            for r in o.failures
+        ],  # fmt: skip
+        "skipped": list(runner.skipped_steps()),
+        "dataset": str(dataset) if dataset else None,
+        "report": str(report) if report else None,
+    }
+
+
+async def walk(
+    session: Session,
+    technician: Technician,
+    out_dir: Path | None,
+    verdict_to: TextIO | None = None,
+) -> int:
+    """Drive the session to its end, then export and close it; closed on any error too.
+
+    With ``verdict_to`` (``--json``) the verdict goes there as one JSON line."""
     try:
-        code = await drive(session, technician)
+        code = await drive(session, technician, sys.stdout)  # the current one (--json moves it)
     except BaseException:
         await session.close()
         raise
-    return await finish(session, code, out_dir, sys.stdout)
+    code, dataset, report = await finish(session, code, out_dir, sys.stdout)
+    if verdict_to is not None:
+        from .output import emit_json
+
+        emit_json(verdict(session, code, dataset, report), stream=verdict_to)
+    return code

@@ -10,15 +10,37 @@ import argparse
 
 from meas.profile import check_profile
 
+from .output import add_json, emit_json
+
 HELP = "check a bench profile and its sequence file; list every problem"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("profile", metavar="PROFILE", help="bench profile (.toml)")
+    add_json(parser, "the problems (or the counts)")
 
 
 def main(args: argparse.Namespace) -> int:
     profile, problems = check_profile(args.profile)
+    if getattr(args, "json", False):
+        emit_json(
+            {
+                "profile": str(args.profile),
+                "ok": profile is not None,
+                "problems": [str(p) for p in problems],
+                "counts": None
+                if profile is None
+                else {
+                    "meters": len(profile.meters),
+                    "maps": len(profile.maps),
+                    "buses": len(profile.buses),
+                    "branches": len(profile.branches),
+                    "switches": len(profile.switches),
+                    "steps": len(profile.steps),
+                },
+            }
+        )
+        return 0 if profile is not None else 2
     if profile is None:
         for p in problems:
             print(p)

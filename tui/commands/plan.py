@@ -8,18 +8,20 @@ from __future__ import annotations
 
 import argparse
 
-from rich.console import Console
 from rich.table import Table
 
 from meas.modbus.plan import naive_request_count, plan_profile, rtu_cycle_time_s
 from meas.model import RtuTransport
 from meas.profile import load_profile
 
+from .output import add_json, console, emit_json
+
 HELP = "show the poll plan: read requests, registers and RTU bus time per meter"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("profile", metavar="PROFILE", help="bench profile (.toml)")
+    add_json(parser, "the plan")
 
 
 def main(args: argparse.Namespace) -> int:
@@ -35,6 +37,7 @@ def main(args: argparse.Namespace) -> int:
     table.add_column("bus ms", justify="right", no_wrap=True)
     n_req = n_read = n_waste = n_naive = 0
     rtu_total = 0.0
+    rows: list[dict[str, object]] = []
     for m in profile.meters:
         plan = plans[m.id]
         reqs = "\n".join(
@@ -56,10 +59,38 @@ def main(args: argparse.Namespace) -> int:
             str(plan.registers_wasted),
             bus,
         )
+        rows.append(
+            {
+                "meter": m.id,
+                "endpoint": m.transport.endpoint,
+                "unit_id": m.unit_id,
+                "requests": [
+                    {"function_code": r.function_code, "address": r.address, "count": r.count}
+                    for r in plan.requests
+                ],
+                "registers_read": plan.registers_read,
+                "registers_wasted": plan.registers_wasted,
+                "bus_ms": None if bus == "-" else float(bus),
+            }
+        )
         n_req += len(plan.requests)
         n_read += plan.registers_read
         n_waste += plan.registers_wasted
         n_naive += naive_request_count(profile.maps[m.map_id])
+    if getattr(args, "json", False):
+        emit_json(
+            {
+                "bench": profile.bench.name,
+                "max_gap": profile.poll.max_gap,
+                "meters": rows,
+                "requests": n_req,
+                "registers_read": n_read,
+                "registers_wasted": n_waste,
+                "one_read_per_quantity": n_naive,
+                "rtu_bus_ms": rtu_total * 1000 if rtu_total else None,
+            }
+        )
+        return 0
     table.add_section()
     table.add_row(
         "total",
@@ -74,5 +105,5 @@ def main(args: argparse.Namespace) -> int:
         f"requests: FC first-last count; regs: registers read per cycle; gaps: of those "
         f"unused; bus ms: RTU wire time of one cycle. One read per quantity: {n_naive} requests."
     )
-    Console().print(table)
+    console().print(table)
     return 0

@@ -10,13 +10,14 @@ import argparse
 import asyncio
 import math
 
-from rich.console import Console
 from rich.live import Live
 from rich.table import Table
 
 from meas.poll.cycle import Poller
 from meas.profile import load_profile
 from meas.snapshot import MeterBlock, Snapshot
+
+from .output import add_json, console, emit_json
 
 HELP = "poll the profile's meters and show V, I, P, Q, PF, f and comm state (read-only)"
 
@@ -42,6 +43,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         metavar="S",
         help="seconds between cycles (default: the profile's poll interval)",
     )
+    add_json(parser, "one JSON object per cycle (JSON Lines)")
 
 
 def _cell(block: MeterBlock, keys: tuple[str, ...], fmt: str) -> str:
@@ -73,14 +75,43 @@ def render(snap: Snapshot, total: int) -> Table:
     return table
 
 
+def as_json(snap: Snapshot) -> dict[str, object]:
+    """One cycle for scripts: every value (NaN -> null), its quality, the meter's state."""
+    return {
+        "seq": snap.seq,
+        "time_utc": snap.time_utc.isoformat(),
+        "cycle_s": snap.cycle_s,
+        "switches": dict(snap.switches),
+        "meters": {
+            mid: {
+                "state": str(b.state),
+                "error": b.error,
+                "values": dict(b.values),
+                "quality": {k: str(q) for k, q in b.quality.items()},
+            }
+            for mid, b in snap.meters.items()
+        },
+    }
+
+
 async def _poll(args: argparse.Namespace) -> Snapshot | None:
     profile = load_profile(args.profile)
     poller = Poller(profile)
-    console = Console()
     last: Snapshot | None = None
+    if getattr(args, "json", False):
+        try:
+            await poller.start()
+            async for snap in poller.run(args.interval):
+                last = snap
+                emit_json(as_json(snap))
+                if snap.seq >= args.cycles:
+                    break
+        finally:
+            await poller.close()
+        return last
     try:
         await poller.start()
-        with Live(console=console, auto_refresh=False, transient=False) as live:
+        with Live(console=console(), auto_refresh=False, transient=False) as live:
             async for snap in poller.run(args.interval):
                 last = snap
                 live.update(render(snap, args.cycles), refresh=True)

@@ -46,7 +46,9 @@ async def _run(args: argparse.Namespace) -> int:
         live_checks=False,
     )
     print(f"Session {session.session_id}: journal {session.path}", flush=True)
-    return await walk(session, PromptTechnician(operator), args.out)
+    return await walk(
+        session, PromptTechnician(operator), args.out, verdict_to=getattr(args, "_stdout", None)
+    )
 
 
 def main(args: argparse.Namespace) -> int:

@@ -32,7 +32,7 @@ class Hands(Protocol):
 class PromptTechnician:
     """A person at the bench answering typed prompts; end of input stops the session."""
 
-    def __init__(self, operator: str, inp: TextIO = sys.stdin, out: TextIO = sys.stdout):
+    def __init__(self, operator: str, inp: TextIO = sys.stdin, out: TextIO | None = None):
         self.operator, self.inp, self.out = operator, inp, out
 
     async def _ask(self, prompt: str) -> str | None:
@@ -107,7 +107,7 @@ class SimTechnician:
         hands: Hands,
         operator: str = SIM_OPERATOR,
         retakes: int = 1,
-        out: TextIO = sys.stdout,
+        out: TextIO | None = None,
         attempts: int = 3,
     ):
         self.hands, self.operator, self.retakes, self.out = hands, operator, retakes, out
