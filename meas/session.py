@@ -29,6 +29,7 @@ from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
 from .snapshot import Snapshot
+from .verdict import records_from_log
 from .walk.runner import Runner
 from .walk.sequence import configuration_before, find_step, validate_sequence
 from .walk.states import StepOutcome
@@ -100,17 +101,14 @@ def settle_factory(profile: Profile) -> Callable[[CapturePolicy], _SettleAdapter
     return lambda policy: _SettleAdapter(profile, policy)
 
 
-def prior_outcomes(journal: Journal) -> dict[str, StepOutcome]:
+def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]:
     """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
     out: dict[str, StepOutcome] = {}
-    for r in journal.step_history():
-        if r["state"] in ("accepted", "skipped"):
-            status = (
-                Status.FAIL
-                if r["outcome"] == "fail"
-                else (Status.WARN if r["outcome"] == "warn" else Status.PASS)
-            )
-            out[r["step"]] = StepOutcome(r["step"], r["state"], status, (), r["reason"] or "")
+    for rec in records_from_log([s.id for s in profile.steps], journal.step_history()):
+        if rec.outcome == "not_captured":
+            continue
+        status = Status.FAIL if rec.failed_checks else Status.PASS
+        out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason)
     return out
 
 
@@ -264,7 +262,7 @@ class Session:
             on_saved,
             live_every_s,
             live_checks,
-            prior_outcomes(journal),
+            prior_outcomes(journal, profile),
         )
 
     @classmethod

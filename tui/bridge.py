@@ -30,6 +30,7 @@ def frame_from_view(
     snapshot: Snapshot | None,
     events: tuple[str, ...] = (),
     hands: Sequence[tuple[str, str]] = (),
+    simulated: bool = False,
 ) -> Frame:
     """A console frame from a RunnerView (duck-typed, so tests can hand-build either).
 
@@ -59,6 +60,8 @@ def frame_from_view(
             overall="done" if state == "finished" else "inconsistent",
             next_action=next_action,
             finished=True,
+            verdict=getattr(view, "verdict", ""),
+            simulated=simulated,
         )
     else:
         policy = step.capture
@@ -87,6 +90,8 @@ def frame_from_view(
             flagged=tuple(view.mismatches) if hasattr(view, "mismatches") else None,
             to_operate=tuple(getattr(view, "to_operate", ())),
             hint=hint,
+            verdict=getattr(view, "verdict", ""),
+            simulated=simulated,
         )
         return Frame(snapshot, tuple(view.results), info, events, window)
     return Frame(snapshot, tuple(view.results), info, events)
@@ -118,6 +123,11 @@ class Bridge:
         self.transitions = 0  # step or state changes seen; tests wait on it
 
     @property
+    def simulated(self) -> bool:
+        """The session runs on the simulated bench (marked on the main screen)."""
+        return getattr(self.session, "bench", None) is not None
+
+    @property
     def runner(self) -> Runner:
         return self.session.runner
 
@@ -145,7 +155,9 @@ class Bridge:
             self.transitions += 1
         events, self._events = tuple(self._events), []
         hands = self.session.would_set_by_hand(view, str(getattr(view, "action", "none")))
-        return frame_from_view(view, self.last_snapshot, events, hands=hands)
+        return frame_from_view(
+            view, self.last_snapshot, events, hands=hands, simulated=self.simulated
+        )
 
     def _simulated_hands(self, command: str) -> None:
         """On the simulated bench, set by hand what ``command`` needs (``Session.set_by_hand``)."""

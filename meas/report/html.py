@@ -9,7 +9,7 @@ import html
 
 from ..cautions import REPORT_CAUTION as CAUTION
 from .charts import balance_svg
-from .rows import KEY_READINGS, ReportData, issue_rows, meter_rows, step_rows
+from .rows import KEY_READINGS, ReportData, issue_rows, meter_rows, outcome_word, step_rows
 from .text import fmt, plain
 
 CSS = """
@@ -28,6 +28,10 @@ td.num{text-align:right;font-variant-numeric:tabular-nums}
 .chart{font:11px Arial,sans-serif}.chart .label{text-anchor:end}.chart .tick{fill:#555}
 .chart .grid{stroke:#ddd}.chart .limit{stroke:#1d1d1b;stroke-width:2;stroke-dasharray:4 3}
 .sign td{height:2.2rem}
+.verdict{font:bold 1.25rem/1.3 "Helvetica Neue",Arial,sans-serif;padding:.5rem .8rem;margin:0 0 1rem;border:3px solid}
+.verdict.pass{border-color:#1e6b34;color:#1e6b34}.verdict.unverified{border-color:#8a6100;color:#8a6100}
+.verdict.bad{border-color:#b3261e;color:#b3261e}
+.sim{display:block;font-size:.9rem;color:#6a1b9a}.note{font-style:italic;margin-top:.2rem}
 @media print{body{margin:0;max-width:none;font-size:11pt}h2{break-after:avoid}table,svg{break-inside:avoid}}
 """
 
@@ -51,6 +55,27 @@ def _e(x: object) -> str:
     return html.escape(plain(x))
 
 
+def verdict_banner(rd: ReportData) -> str:
+    """The report's first line: the session verdict, and SIMULATED when it is."""
+    v = rd.verdict
+    cls = "pass" if v.word == "PASS" else ("unverified" if v.word.startswith("PASS") else "bad")
+    sim = (
+        ' <span class="sim">SIMULATED BENCH: these readings come from the simulator, '
+        "not from plant</span>"
+        if rd.simulated
+        else ""
+    )
+    return f'<p class="verdict {cls}">Verdict: {html.escape(v.line)}{sim}</p>'
+
+
+def notes_html(rd: ReportData, step_id: str) -> str:
+    sub = rd.notes[rd.notes["step"] == step_id]
+    return "".join(
+        f'<div class="note">note ({_e(n.operator)}): {_e(n.message)}</div>'
+        for n in sub.itertuples(index=False)
+    )
+
+
 def render_html(rd: ReportData) -> str:
     ds = rd.ds
     meta = ds.meta
@@ -60,6 +85,7 @@ def render_html(rd: ReportData) -> str:
         '<html lang="en"><head><meta charset="utf-8">',
         f"<title>Commissioning report: {_e(meta['bench'])}, session {_e(meta['session'])}</title>",
         f"<style>{CSS}</style></head><body>",
+        verdict_banner(rd),
         f"<h1>Commissioning report<br><small>{_e(meta['bench'])}</small></h1>",
         f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>',
         '<table class="meta"><tbody>',
@@ -122,10 +148,10 @@ def render_html(rd: ReportData) -> str:
                 _e(s.title),
                 _e(s.kind),
                 _e(s.state or "not reached"),
-                _e(s.outcome),
+                _e(outcome_word(s)),
                 _e(s.operator),
                 _e(fmt(s.settle_s, 3)),
-                _e(s.reason),
+                _e(s.reason) + notes_html(rd, s.id),
             ]
         )
     out.append(

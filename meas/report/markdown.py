@@ -5,7 +5,15 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from ..cautions import REPORT_CAUTION as CAUTION
-from .rows import KEY_READINGS, ReportData, balance_rows, issue_rows, meter_rows, step_rows
+from .rows import (
+    KEY_READINGS,
+    ReportData,
+    balance_rows,
+    issue_rows,
+    meter_rows,
+    outcome_word,
+    step_rows,
+)
 from .text import fmt, plain
 
 
@@ -18,7 +26,14 @@ def _md_table(headers: list[str], rows: Sequence[Sequence[object]]) -> str:
 
 def render_markdown(rd: ReportData) -> str:
     ds, meta = rd.ds, rd.ds.meta
+    sim = (
+        " SIMULATED BENCH: these readings come from the simulator, not from plant."
+        if rd.simulated
+        else ""
+    )
     out = [
+        f"**Verdict: {rd.verdict.line}**{sim}",
+        "",
         f"# Commissioning report: {meta['bench']}",
         "",
         f"> **Caution.** {CAUTION}",
@@ -54,7 +69,21 @@ def render_markdown(rd: ReportData) -> str:
         _md_table(
             ["#", "step", "title", "state", "outcome", "operator", "reason"],
             [
-                [s.order, s.id, s.title, s.state or "not reached", s.outcome, s.operator, s.reason]
+                [
+                    s.order,
+                    s.id,
+                    s.title,
+                    s.state or "not reached",
+                    outcome_word(s),
+                    s.operator,
+                    " ".join(
+                        [plain(s.reason)]
+                        + [
+                            f"note ({plain(n.operator)}): {plain(n.message)}"
+                            for n in rd.notes[rd.notes["step"] == s.id].itertuples(index=False)
+                        ]
+                    ).strip(),
+                ]
                 for s in step_rows(ds["steps"])
             ],
         ),

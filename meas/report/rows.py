@@ -14,6 +14,14 @@ from typing import Protocol, cast
 import pandas as pd
 
 from ..dataset.read import Dataset, load_dataset, read_table
+from ..verdict import (
+    OUTCOME_WORDS,
+    VERDICT_WORDS,
+    StepRecord,
+    Verdict,
+    outcome_from_log,
+    session_verdict,
+)
 from .text import plain
 
 # quantity keys summarized per meter and step: (column title, unit, keys averaged per snapshot)
@@ -27,12 +35,47 @@ KEY_READINGS = [
 
 @dataclass(frozen=True)
 class ReportData:
-    """What both renderings show: the dataset and three summaries computed once from it."""
+    """What both renderings show: the dataset and the summaries computed once from it."""
 
     ds: Dataset
     readings: pd.DataFrame  # step, meter, title -> median
     issues: pd.DataFrame  # failed/waived checks, one row per distinct sentence
     balance: pd.DataFrame  # step, check, subject, value, limit, residual (medians over captures)
+    verdict: Verdict  # the session verdict, as the console and the summary showed it
+    notes: pd.DataFrame  # step, time_utc, operator, message: notes made during the walk
+    simulated: bool  # the readings came from the simulated bench
+
+
+def report_verdict(ds: Dataset) -> Verdict:
+    """The verdict the dataset records; recomputed from the step outcomes for older datasets."""
+    v = ds.meta.get("verdict")
+    if isinstance(v, dict) and v.get("verdict") in VERDICT_WORDS:
+        return Verdict(
+            v["verdict"],
+            str(v.get("detail", "")),
+            int(v.get("exit_code", 0)),
+            tuple(v.get("unverified", ())),
+            bool(v.get("stopped", False)),
+        )
+    steps = ds["steps"]
+    records = [
+        StepRecord(
+            str(r.id),
+            outcome_from_log(plain(r.state) or None, plain(r.outcome) or None),
+            plain(r.reason),
+        )
+        for r in step_rows(steps)
+    ]
+    return session_verdict(records)
+
+
+def outcome_word(s: StepRow) -> str:
+    """A step's outcome in words (``meas.verdict``): never "pass" for a skipped step."""
+    return OUTCOME_WORDS[outcome_from_log(plain(s.state) or None, plain(s.outcome) or None)]
+
+
+def is_simulated(ds: Dataset) -> bool:
+    return bool(ds.meta.get("simulated") or (ds.meta.get("meta") or {}).get("simulated"))
 
 
 # The rows the report reads from the dataset tables (``DataFrame.itertuples``), as the dataset
@@ -187,4 +230,8 @@ def gather(dataset_dir: Path) -> ReportData:
         .reset_index()
     )
     balance["residual"] = balance["value"] / balance["limit"]
-    return ReportData(ds, readings, issues, balance)
+    ev = ds["events"]
+    notes = ev.loc[ev["kind"] == "note", ["step", "time_utc", "operator", "message"]].reset_index(
+        drop=True
+    )
+    return ReportData(ds, readings, issues, balance, report_verdict(ds), notes, is_simulated(ds))

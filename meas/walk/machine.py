@@ -8,17 +8,19 @@ Whoever owns the poll loop feeds it every snapshot (``tick``); the technician's 
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 
 from ..errors import BenchwalkError
 from ..model import Profile, Step, SwitchState
 from ..results import CheckResult, Status, overall
 from ..snapshot import Snapshot
+from ..verdict import OUTCOME_WORDS, StepRecord, Verdict, session_verdict
 from .capture import CaptureBook
 from .live import LiveWatch
 from .ports import CheckFn, JournalSink, Settle, SettleFactory, SwitchOperator
 from .remote import RemoteOps
 from .sequence import configurations
+from .standdown import DOUBT_CHECKS, doubtful_meters, stand_down
 from .states import State, StepOutcome
 from .status import mismatch_text, mismatches, unread
 from .view import RunnerView, view_of
@@ -94,9 +96,42 @@ class StepMachine:
         """Steps left without acceptance: the record is incomplete even when nothing failed."""
         return [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
 
-    def verdict(self) -> Status:
-        """FAIL when any step ended with failing checks (accepted under gate allow, or skipped)."""
-        return overall([CheckResult("step", o.step_id, o.status) for o in self.outcomes.values()])
+    def hold_scope(self) -> tuple[str, ...]:
+        """The steps the current hold point covers: those since the previous hold point."""
+        step = self.step
+        if step is None or step.kind != "hold":
+            return ()
+        start = 0
+        for i in range(self.index - 1, -1, -1):
+            if self.profile.steps[i].kind == "hold":
+                start = i + 1
+                break
+        return tuple(s.id for s in self.profile.steps[start : self.index])
+
+    def hold_issues(self) -> tuple[str, ...]:
+        """Steps in the hold point's scope that did not pass, one line each (to acknowledge)."""
+        out = []
+        for sid in self.hold_scope():
+            o = self.outcomes.get(sid)
+            if o is None:
+                out.append(f"{sid} not captured")
+            elif o.outcome != "passed":
+                word = OUTCOME_WORDS[o.outcome]
+                out.append(f"{sid} {word}: {o.reason}" if o.reason else f"{sid} {word}")
+        return tuple(out)
+
+    def records(self) -> list[StepRecord]:
+        """Every step's record in sequence order; a step without an outcome is not captured."""
+        return [
+            self.outcomes[s.id].record()
+            if s.id in self.outcomes
+            else StepRecord(s.id, "not_captured")
+            for s in self.profile.steps
+        ]
+
+    def verdict(self, unverified: Sequence[str] = ()) -> Verdict:
+        """The session verdict (``meas.verdict.session_verdict``) of the steps so far."""
+        return session_verdict(self.records(), unverified, stopped=self.stopped)
 
     def expected(self) -> dict[str, SwitchState]:
         """The switch states the current step must find (its full configuration)."""
@@ -119,6 +154,7 @@ class StepMachine:
         self._verify_deadline: float | None = None
         self._unread_since: float | None = None  # first snapshot whose switch status was unread
         self._settle_t0: float | None = None
+        self._step_t0 = float("-inf")  # when the step's operation was confirmed
         self.book.reset()
         self.remote = RemoteOps()
 
@@ -277,7 +313,8 @@ class StepMachine:
         if step.capture is None:
             self.book.review = []
             self.state = State.REVIEWING
-            self.journal.record_step(step.id, "reviewing", operator=self.operator, outcome="pass")
+            # no capture, no checks: nothing to call a pass
+            self.journal.record_step(step.id, "reviewing", operator=self.operator)
             return
         self.settle = self._settle_factory(step.capture)
         self._settle_t0 = None
@@ -337,6 +374,7 @@ class StepMachine:
         )
         self.book.take(row, results, snapshot.t_mono)
         if self.book.complete(policy):
+            self._review_quality(snapshot)
             status = overall(self.book.review)
             self.state = State.REVIEWING
             self.journal.record_step(
@@ -347,6 +385,37 @@ class StepMachine:
                 actual_switches=self.actual(),
                 expected_switches=self.expected(),
             )
+
+    def _review_quality(self, snapshot: Snapshot) -> None:
+        """Carry a quality finding into the review even with few captures, and stand down the
+        checks that read a doubtful meter.
+
+        The captures' own frozen check reads only the steady stretch, often shorter than the
+        frozen check needs; a frozen meter does not move through the switching transient
+        either, so the check is run once more on every snapshot of this step. Only its
+        quality findings are taken; the journal keeps the captures' results as they were.
+        """
+        step = self.step
+        assert step is not None
+        mine = [h for h in self.book.history if h.t_mono >= self._step_t0][:-1]
+        found = [
+            r
+            for r in self._checks(snapshot, mine)
+            if r.check in DOUBT_CHECKS and r.status is Status.FAIL
+        ]
+        review = self.book.review
+        if found:
+            keys = {(r.check, r.subject) for r in found}
+            review = [r for r in review if (r.check, r.subject) not in keys] + found
+        doubtful = doubtful_meters(review, snapshot)
+        if doubtful:
+            self._journal(
+                "readings_in_doubt",
+                "; ".join(sorted(doubtful.values()))
+                + ": the checks that read them stand down in the review",
+                meters=doubtful,
+            )
+        self.book.review = stand_down(self.profile, review, doubtful)
 
     def _config_changed(self) -> None:
         step = self.step

@@ -156,14 +156,20 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
                 await tap(pilot, "c")
             elif a == "request_remote":
                 await tap(pilot, "r")
-                await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
+                await until(
+                    pilot,
+                    lambda: isinstance(app.screen, RemoteConfirm),
+                    5,
+                    f"remote modal ({main.frame.step.allowed}, {main.query_one('#notice').content})",
+                )
                 await tap(pilot, "a", "y")
             elif a == "accept":
                 await tap(pilot, "a")
             elif a == "sign":
                 await tap(pilot, "g")
                 await until(pilot, lambda: prompt_ready(app), 5, "sign prompt")
-                await tap(pilot, "enter")  # prefilled with the operator's name
+                assert app.focused.value == ""  # the signer types their own name
+                await answer(pilot, app, fast=True, text="JL")
             elif a == "note":
                 await tap(pilot, "n")
                 await answer(pilot, app, fast=True, text="ok")
@@ -195,12 +201,18 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
             )
         # the sequence is complete: the screen exports the dataset on its own
         await until(pilot, lambda: app.bridge.exported is not None, 20, "dataset export")
-        assert "SEQUENCE DONE" in main.query_one("#summary").content.plain
+        summary = main.query_one("#summary").content.plain
+        assert "SIMULATED BENCH" in summary
+        assert f"VERDICT {runner.verdict().line}" in summary
+        await pilot.press("ctrl+q")
+    # the console's exit code is the verdict's, as headless and the dataset give it
+    assert app.return_code == runner.verdict().exit_code
     dataset = app.bridge.exported
     assert dataset.is_relative_to(tmp_path / "out")
     package = json.loads((dataset / "datapackage.json").read_text())
     steps_res = next(r for r in package["resources"] if r["name"] == "steps")
     steps = pd.read_csv(dataset / steps_res["path"])
+    assert package["benchwalk"]["verdict"]["line"] == runner.verdict().line
     assert list(steps["id"]) == step_ids
     assert set(steps["state"]) <= {"accepted", "skipped"}
     # hold and note steps are always accepted by the keys G and N

@@ -56,7 +56,7 @@ async def _headless(args: argparse.Namespace) -> int:
         live_checks=False,
     )
     print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
-    return await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
+    return await walk(session, SimTechnician(session, SIM_OPERATOR), args.out, args.sessions)
 
 
 def main(args: argparse.Namespace) -> int:

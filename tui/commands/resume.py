@@ -60,7 +60,7 @@ async def _headless(args: argparse.Namespace) -> int:
         tech = SimTechnician(session, SIM_OPERATOR)
     else:
         tech = PromptTechnician(session.runner.operator)
-    return await walk(session, tech, args.out)
+    return await walk(session, tech, args.out, args.sessions)
 
 
 def main(args: argparse.Namespace) -> int:

@@ -46,7 +46,7 @@ async def _run(args: argparse.Namespace) -> int:
         live_checks=False,
     )
     print(f"Session {session.session_id}: journal {session.path}", flush=True)
-    return await walk(session, PromptTechnician(operator), args.out)
+    return await walk(session, PromptTechnician(operator), args.out, args.sessions)
 
 
 def main(args: argparse.Namespace) -> int:

@@ -61,7 +61,13 @@ class PromptTechnician:
             "accept": "  Checks passed: type 'accept' (or 'retake')",
             "accept_with_reason": "  Checks failed: 'accept REASON', 'retake' or 'skip REASON'",
             "retake": "  'retake', 'capture' (anyway, if not settled) or 'skip REASON'",
-            "sign": "  Hold point: type 'sign NAME'",
+            "sign": (
+                "  Hold point: these steps did not pass: "
+                + "; ".join(view.hold_issues)
+                + ". Type 'acknowledge NAME' to sign over them"
+                if view.hold_issues
+                else "  Hold point: type 'sign NAME'"
+            ),
             "note": "  Type 'note TEXT'",
         }
         answer = await self._ask(prompts[a] + " [or 'stop']: ")
@@ -85,6 +91,8 @@ class PromptTechnician:
                 runner.skip(rest)
             elif word == "sign":
                 runner.sign(rest)
+            elif word == "acknowledge":
+                runner.sign(rest, acknowledge=True)
             elif word == "note":
                 runner.note(rest)
             else:
@@ -162,7 +170,12 @@ class SimTechnician:
         elif a == "accept":
             runner.accept()
         elif a == "sign":
-            runner.sign(self.operator)
+            if view.hold_issues:  # said aloud, and journalled by the runner
+                print(
+                    f"  {self.operator} signs acknowledging: {'; '.join(view.hold_issues)}",
+                    file=self.out,
+                )
+            runner.sign(self.operator, acknowledge=bool(view.hold_issues))
         elif a == "note":
             runner.note(f"{self.operator}: nothing unusual on the simulated bench")
         elif a in ("retake", "accept_with_reason"):

@@ -70,7 +70,7 @@ class StepCommandScreen(PaintedScreen):
         return step is not None and command in step.allowed
 
     # ------------------------------------------------------------------ step actions
-    def _run(self, name: str, *args: str) -> None:
+    def _run(self, name: str, *args: object) -> None:
         refusal = self.bridge.command(name, *args)
         self.notice(
             f"\u2718 {refusal}"
@@ -134,12 +134,26 @@ class StepCommandScreen(PaintedScreen):
         self.app.push_screen(TextPrompt("Note", "Note for the journal:"), self._run_with("note"))
 
     def action_sign(self) -> None:
-        self.app.push_screen(
-            TextPrompt(
-                "Sign hold point", "Name of the person signing off:", value=self.bridge.operator
-            ),
-            self._run_with("sign"),
-        )
+        """The signer types their own name (the field starts empty); a hold point over steps
+        that did not pass lists them, and signing acknowledges them (journalled)."""
+        view = self.bridge.runner.view()
+        scope = tuple(getattr(view, "hold_scope", ()))
+        issues = tuple(getattr(view, "hold_issues", ()))
+        question = f"This hold point covers: {', '.join(scope) or 'no earlier step'}.\n"
+        if issues:
+            question += (
+                "These steps did NOT pass:\n"
+                + "\n".join(f"  \u2718 {i}" for i in issues)
+                + "\nSigning acknowledges them. Name of the person signing off:"
+            )
+        else:
+            question += "Name of the person signing off:"
+
+        def sign(answer: str | None) -> None:
+            if answer:
+                self._run("sign", answer, *((True,) if issues else ()))
+
+        self.app.push_screen(TextPrompt("Sign hold point", question), sign)
 
     def action_remote(self) -> None:
         frame = self.frame
