@@ -298,6 +298,7 @@ class Session:
                 live_checks=live_checks,
                 on_saved=on_saved,
                 prior_outcomes=prior,
+                resumed=bool(journal.step_history()),
             )
         except BaseException:
             with contextlib.suppress(Exception):

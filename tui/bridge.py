@@ -22,7 +22,7 @@ from meas.snapshot import Snapshot
 from meas.walk.runner import Runner
 
 from .frame import Frame, StepInfo
-from .keys import action_keys
+from .keys import action_keys, display_key, key_of
 
 
 def frame_from_view(
@@ -177,7 +177,16 @@ class Bridge:
         return ""
 
     def request_remote(self, switch_id: str, state: str) -> str:
-        self._simulated_hands("request_remote")
+        """The question to confirm; on the simulated bench, switches the step expects are set
+        by hand first and the request waits for their status (refused with a sentence)."""
+        set_now = self.session.set_by_hand(self.runner.view(), "request_remote")
+        if set_now:
+            names = ", ".join(f"{sid} {st}" for sid, st in set_now)
+            self.log(f"simulated bench: {names} set by hand")
+            raise BenchwalkError(
+                f"simulated bench: {names} set by hand first; press "
+                f"{display_key(key_of('request_remote'))} again once the status shows it"
+            )
         return self.runner.request_remote(switch_id, state)
 
     async def confirm_remote(self, switch_id: str, state: str) -> str:

@@ -44,6 +44,7 @@ class StepMachine:
         history: int = 64,
         on_saved: Callable[[int, str, str], None] | None = None,
         prior_outcomes: dict[str, StepOutcome] | None = None,
+        resumed: bool = False,
     ) -> None:
         if not profile.steps:
             raise BenchwalkError(
@@ -66,6 +67,8 @@ class StepMachine:
         self.last: Snapshot | None = None
         self._last_live_t = float("-inf")
         self.index = start_index
+        # a resumed session's first step: a remote command may have been sent before the stop
+        self._resumed_step: int | None = start_index if resumed else None
         self.state = State.WAITING
         self.message = ""
         self._reset_step()
@@ -222,6 +225,9 @@ class StepMachine:
         if self.live_checks:
             self.live_results = self._results_for(snapshot)
         st = self.state
+        if st is State.WAITING and self._resumed_step == self.index:
+            self._resume_remote(snapshot)
+            st = self.state
         if st in (State.OPERATING, State.VERIFYING, State.SETTLING):
             self._record(snapshot, "settling")
         if st is State.VERIFYING:
@@ -235,6 +241,34 @@ class StepMachine:
         ):
             self._last_live_t = snapshot.t_mono
             self._record(snapshot, "live")
+
+    def _begin_verify(self) -> None:
+        self._step_t0 = self._now()  # the step's own snapshots start here (see the review)
+        self.message = ""
+        self._verify_deadline = None
+        self.state = State.VERIFYING
+
+    def _resume_remote(self, snapshot: Snapshot) -> None:
+        """On the step a session resumed at: a remote switch already reading its target state
+        (the command went out before the stop) is not commanded again; the step goes on to
+        verify its status instead of being refused or skipped."""
+        step = self.step
+        if step is None or step.kind != "remote" or self.remote.pending is not None:
+            return
+        done = [(s, v) for s, v in self.remote.todo(step) if snapshot.switches.get(s) == v]
+        if not done:
+            return
+        for sid, want in done:
+            self.remote.done.add(sid)
+            self._journal(
+                "remote_already_done",
+                f"{sid} already reads {want} after the resume: no command sent",
+                switch=sid,
+                state=want,
+            )
+        if not self.remote.todo(step):
+            self._resumed_step = None
+            self._begin_verify()
 
     def _results_for(self, snapshot: Snapshot) -> list[CheckResult]:
         capturing = self.state is State.CAPTURING

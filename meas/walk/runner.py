@@ -31,12 +31,6 @@ class Runner(StepMachine):
         )
         self._begin_verify()
 
-    def _begin_verify(self) -> None:
-        self._step_t0 = self._now()  # the step's own snapshots start here (see the review)
-        self.message = ""
-        self._verify_deadline = None
-        self.state = State.VERIFYING
-
     def request_remote(self, switch_id: str, state: str) -> str:
         """First of two deliberate steps; returns the question to put to the technician."""
         step = self._require(State.WAITING, what="request a remote operation")

@@ -8,7 +8,10 @@ the end (the session can be resumed), 4 PASS with unverified readings.
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
 import shlex
+import signal
 import sys
 from pathlib import Path
 from typing import TextIO
@@ -124,16 +127,53 @@ async def finish(session: Session, code: int, out_dir: Path | None, out: TextIO)
     return code
 
 
+STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+
+
 async def walk(
     session: Session,
     technician: Technician,
     out_dir: Path | None,
     sessions_dir: Path | None = None,
 ) -> int:
-    """Drive the session to its end, then export and close it; closed on any error too."""
+    """Drive the session to its end, then export and close it; closed on any error too.
+
+    SIGINT, SIGTERM and SIGHUP stop the walk where it is: the stop is journalled, the session
+    id and the exact resume command are printed and the exit code is 3. A signal during the
+    final export lets the export finish first.
+    """
+    loop = asyncio.get_running_loop()
+    task = asyncio.current_task()
+    got: list[signal.Signals] = []
+    driving = True
+
+    def on_signal(sig: signal.Signals) -> None:
+        got.append(sig)
+        if driving and task is not None and len(got) == 1:
+            task.cancel()
+
+    installed = []
+    for sig in STOP_SIGNALS:
+        with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
+            loop.add_signal_handler(sig, on_signal, sig)
+            installed.append(sig)
     try:
-        code = await drive(session, technician, sys.stdout, sessions_dir)
-    except BaseException:
-        await session.close()
-        raise
-    return await finish(session, code, out_dir, sys.stdout)
+        try:
+            code = await drive(session, technician, sys.stdout, sessions_dir)
+        except asyncio.CancelledError:
+            if not got or task is None:
+                raise
+            task.uncancel()
+            session.runner.stop(f"interrupted by {got[0].name}")
+            code = summarize(session, sys.stdout, sessions_dir)
+        except BaseException:
+            await session.close()
+            raise
+        driving = False
+        if got:
+            await session.close()
+            return EXIT_STOPPED
+        return await finish(session, code, out_dir, sys.stdout)
+    finally:
+        for sig in installed:
+            loop.remove_signal_handler(sig)

@@ -45,7 +45,10 @@ class PaintedScreen(Screen):
         self.latencies: deque[float] = deque(maxlen=2000)  # post -> painted, seconds
         self.frames_shown = 0
         self._alerted_stop = False
-        self._auto_exported = False
+        runner = getattr(bridge, "runner", None)
+        # a finished session opened again: its dataset is re-exported only when asked (E)
+        self.finished_at_open = bool(runner is not None and getattr(runner, "finished", False))
+        self._auto_exported = self.finished_at_open
         self._remote_busy = False  # a remote command is being sent; its worker reports the outcome
         self.exported: Path | None = None
 
