@@ -39,3 +39,9 @@ REMOTE_COMMAND_CAUTION = (
     "switching procedure, not this tool's: make sure the switching programme allows it, the "
     "area is clear and lockout/tagout is respected. This tool is no interlock."
 )
+
+# In the console's remote modal on the simulated bench, above REMOTE_COMMAND_CAUTION.
+SIMULATED_REMOTE_CAUTION = (
+    "SIMULATED BENCH: this command goes to the simulated controller on this computer and "
+    "operates nothing real. On a real bench the same keys send a real command to plant."
+)

@@ -41,7 +41,11 @@ def frame_from_view(
     action = getattr(view, "action", "none")
     # the keys go before the runner's own sentence so that a narrow terminal cuts the
     # sentence, never the key
-    keys = action_keys(action, getattr(view, "settle_timed_out", False))
+    keys = action_keys(
+        action,
+        getattr(view, "settle_timed_out", False),
+        pending=getattr(view, "pending_remote", None) is not None,
+    )
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
     hint = ""
     if hands and action != "request_remote":
@@ -188,6 +192,12 @@ class Bridge:
                 f"{display_key(key_of('request_remote'))} again once the status shows it"
             )
         return self.runner.request_remote(switch_id, state)
+
+    def cancel_remote(self) -> None:
+        """The remote dialog was closed without sending: the request is withdrawn."""
+        cancel = getattr(self.runner, "cancel_remote", None)
+        if cancel is not None:
+            cancel()
 
     async def confirm_remote(self, switch_id: str, state: str) -> str:
         try:

@@ -50,6 +50,14 @@ class Runner(StepMachine):
         )
         return remote.question(sw, state)
 
+    def cancel_remote(self) -> None:
+        """Withdraw a requested remote command (its dialog closed): nothing was sent."""
+        if self.remote.pending is None:
+            return
+        sid, state = self.remote.pending
+        self.remote.pending = None
+        self._journal("remote_cancelled", f"{sid} -> {state} cancelled: nothing sent")
+
     async def confirm_remote(self, switch_id: str, state: str, operator: str) -> None:
         """Second deliberate step: send the command, then verify status on the next snapshots."""
         step = self._require(State.WAITING, what="send a remote command")

@@ -19,7 +19,7 @@ from textual import events
 
 from meas.session import Session
 from tui.app import BenchwalkApp
-from tui.keys import KEYS
+from tui.keys import ARM_KEY, KEYS, SEND_KEY, key_of
 from tui.screens.main import MainScreen
 from tui.screens.prompt import Alert, TextPrompt
 from tui.screens.remote import RemoteConfirm
@@ -162,7 +162,7 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
                     5,
                     f"remote modal ({main.frame.step.allowed}, {main.query_one('#notice').content})",
                 )
-                await tap(pilot, "a", "y")
+                await tap(pilot, ARM_KEY, SEND_KEY)
             elif a == "accept":
                 await tap(pilot, "a")
             elif a == "sign":
@@ -342,16 +342,34 @@ async def test_remote_switching_needs_both_confirmations(tmp_path):
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
         modal = app.screen
         assert modal.switch_id == "RX" and modal.present == "open" and modal.intended == "closed"
-        await pilot.press("y")  # the second key alone does nothing
+        # the simulated bench is named in the dialog's caution
+        assert any("SIMULATED BENCH" in str(w.content) for w in modal.query(".caution"))
+        # the NEXT line follows the dialog: its arm and send keys, not the main screen's
+        nxt = main.query_one("#summary").content.plain
+        assert f"{ARM_KEY.upper()} arm, then {SEND_KEY.upper()} send" in nxt
+        await pilot.press(SEND_KEY)  # the second key alone does nothing
         assert isinstance(app.screen, RemoteConfirm) and not modal.armed
-        await pilot.press("a", "o")  # armed, then any other key disarms
+        await pilot.press(ARM_KEY, "o")  # armed, then any other key disarms
         assert not modal.armed and isinstance(app.screen, RemoteConfirm)
+        modal.arm_timeout_s = 0.3  # the documented 8 s, shortened for the test
+        await pilot.press(ARM_KEY)
+        assert modal.armed
+        await until(pilot, lambda: not modal.armed, 5, "disarmed by the timeout")
+        assert modal.disarmed_by_timeout == 1
+        await pilot.press(SEND_KEY)  # too late: nothing is sent
+        assert isinstance(app.screen, RemoteConfirm) and coil_writes(app) == []
         await pilot.press("escape")  # cancel: nothing is sent
         await until(pilot, lambda: isinstance(app.screen, MainScreen), 5, "back on main screen")
         assert coil_writes(app) == [] and runner.view().state == "waiting"
+        assert runner.view().pending_remote is None  # the request is withdrawn
+        nxt = main.query_one("#summary").content.plain
+        assert "arm" not in nxt and f"press {key_of('request_remote').upper()}" in nxt
+        # a main-screen habit of accept-then-yes sends nothing: neither key is arm or send
+        await pilot.press("a", "y")
+        assert coil_writes(app) == [] and isinstance(app.screen, MainScreen)
         await pilot.press("r")
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal again")
-        await pilot.press("a", "y")
+        await pilot.press(ARM_KEY, SEND_KEY)
         await until(pilot, lambda: coil_writes(app), 5, "the coil write")
         assert [(c[1], c[2]) for c in coil_writes(app)] == [("RX", "closed")]
         # status verified (no capture in this step): the runner reviews, then A accepts
@@ -367,7 +385,7 @@ async def test_remote_status_not_following_is_a_clear_failure(tmp_path):
         main, runner = await _to_remote_step(pilot, app)
         await pilot.press("r")
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
-        await pilot.press("a", "y")
+        await pilot.press(ARM_KEY, SEND_KEY)
         await until(pilot, lambda: isinstance(app.screen, Alert), 10, "failure alert")
         alert = app.screen
         assert runner.stopped and "RX" in alert.title_text and "FAILED" in alert.title_text
@@ -444,7 +462,7 @@ async def test_the_console_enables_exactly_the_step_keys_the_runner_allows(tmp_p
             elif a == "request_remote":
                 await tap(pilot, "r")
                 await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
-                await tap(pilot, "a", "y")
+                await tap(pilot, ARM_KEY, SEND_KEY)
                 await until(pilot, lambda: app.screen is main, 5, "back on the main screen")
             elif a in ("accept", "accept_with_reason"):
                 await tap(pilot, "a")
@@ -458,3 +476,8 @@ async def test_the_console_enables_exactly_the_step_keys_the_runner_allows(tmp_p
         assert {"waiting/capture", "waiting/request_remote", "waiting/confirm_operation"} <= seen
         assert any(s.startswith("settling/") for s in seen), seen
         assert any(s.startswith("reviewing/") for s in seen), seen
+
+
+def test_the_remote_arm_and_send_keys_mean_nothing_on_the_main_screen():
+    main_keys = {k.key for k in KEYS}
+    assert ARM_KEY not in main_keys and SEND_KEY not in main_keys and ARM_KEY != SEND_KEY

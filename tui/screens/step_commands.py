@@ -180,10 +180,17 @@ class StepCommandScreen(PaintedScreen):
                 self._remote_busy = True
                 self._send_remote(switch_id, state)
             else:
+                self.bridge.cancel_remote()
                 self.notice(f"remote operation of {switch_id} cancelled: nothing sent")
                 self.bridge.log(f"remote {switch_id} -> {state} cancelled")
+                self._repaint_now()
 
-        self.app.push_screen(RemoteConfirm(switch_id, sw.label, present, state, question), sent)
+        simulated = bool(getattr(self.bridge, "simulated", False))
+        self.app.push_screen(
+            RemoteConfirm(switch_id, sw.label, present, state, question, simulated=simulated),
+            sent,
+        )
+        self._repaint_now()  # the NEXT line follows the dialog
 
     @work(group="command", exit_on_error=False)
     async def _send_remote(self, switch_id: str, state: str) -> None:
