@@ -31,7 +31,12 @@ from .results import Status
 from .snapshot import Snapshot
 from .verdict import records_from_log
 from .walk.runner import Runner
-from .walk.sequence import configuration_before, find_step, validate_sequence
+from .walk.sequence import (
+    configuration_after,
+    configuration_before,
+    find_step,
+    validate_sequence,
+)
 from .walk.states import StepOutcome
 from .walk.view import RunnerView
 
@@ -167,6 +172,11 @@ class Session:
         bench, live_profile = None, profile
         if simulate:
             bench, live_profile = await _start_bench(profile, faults, seed, noise)
+            # the simulated bench starts as the first step describes it (a capture step
+            # finds its expected states; a step that operates starts from the normal states)
+            if profile.steps and profile.steps[0].kind == "capture":
+                for sw, state in configuration_after(profile, 0).items():
+                    bench.operate_by_hand(sw, state)
         try:
             journal = Journal.create(
                 path,

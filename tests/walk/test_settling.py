@@ -94,3 +94,29 @@ async def test_no_fail_is_shown_while_settling_over_the_whole_demo_sequence(tmp_
         assert s.runner.verdict().word == "PASS", s.runner.verdict().line
     finally:
         await s.close()
+
+
+async def test_the_demo_bench_starts_as_its_first_step_says(tmp_path):
+    # the demo's step 1: every switch open; M1 (source side of CB1) live, M2..M8 near zero
+    s = await _session(tmp_path, name="first")
+    try:
+        step = s.runner.step
+        assert step is not None and step.id == "dead-bench"
+        assert "M1 stays live" in step.instruction and "source side of CB1" in step.instruction
+        deadline = time.monotonic() + 20
+        async with contextlib.aclosing(s.views()) as views:
+            async for v in views:
+                assert time.monotonic() < deadline, (v.mismatches, v.overall)
+                if v.polled and not v.mismatches and v.overall == "consistent":
+                    break
+        assert v.action == "capture" and v.to_operate == ()  # nothing to set by hand first
+        assert not [x for x in v.results if x.status is Status.FAIL]
+        snap = s.runner.last
+        assert snap is not None
+        m1 = snap.meters["M1"].values
+        assert m1["v_ln.A"] > 100.0 and abs(m1["i.A"]) < 0.5  # live, no load (bench volts)
+        for mid in ("M2", "M3", "M4", "M5", "M6", "M7", "M8"):
+            vals = snap.meters[mid].values
+            assert abs(vals.get("v_ln.A", 0.0)) < 5.0 and abs(vals.get("i.A", 0.0)) < 0.5, mid
+    finally:
+        await s.close()
