@@ -29,7 +29,7 @@ from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
 from .snapshot import Snapshot
-from .verdict import records_from_log
+from .verdict import records_from_log, session_verdict
 from .walk.runner import Runner
 from .walk.sequence import (
     configuration_after,
@@ -115,6 +115,35 @@ def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]
         status = Status.FAIL if rec.failed_checks else Status.PASS
         out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason)
     return out
+
+
+def session_state(path: Path) -> str:
+    """One line for a session list: ``finished, VERDICT`` or ``unfinished at step X``.
+
+    Read-only: listing sessions never writes to (or waits on) a journal.
+    """
+    from .journal import read
+
+    try:
+        conn = read.connect_read_only(path)
+    except Exception:  # noqa: BLE001 - a list must show the other sessions anyway
+        return "unreadable journal"
+    try:
+        info = read.read_session(conn)
+        if info is None:
+            return "empty journal"
+        ids = [s["id"] for s in info.profile_dict.get("steps", [])]
+        history = read.step_history(conn)
+        point = read.resume_point(conn, ids)
+    except Exception:  # noqa: BLE001
+        return "unreadable journal"
+    finally:
+        conn.close()
+    records = records_from_log(ids, history)
+    if point is None:
+        return f"finished, {session_verdict(records).word}"
+    done = sum(1 for r in records if r.outcome != "not_captured")
+    return f"unfinished at step {point} ({done} of {len(ids)} steps done)"
 
 
 class Session:

@@ -128,6 +128,8 @@ QUIT = "ctrl+q"  # the App's quit key (kept out of KEYS: it is not a screen acti
 
 # key action -> the runner command it gives (step keys only)
 COMMAND_OF: dict[str, str] = {k.action: k.command for k in KEYS if k.command}
+# key -> its action (to say why a step key that cannot act now does nothing)
+ACTION_OF_KEY: dict[str, str] = {k.key: k.action for k in KEYS}
 
 
 def bindings() -> list[Binding]:

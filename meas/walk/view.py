@@ -93,6 +93,50 @@ def allowed_now(
     return frozenset(out)
 
 
+_WORDS = {
+    "confirm_operation": "confirm an operation",
+    "request_remote": "request a remote command",
+    "confirm_remote": "send a remote command",
+    "capture": "capture",
+    "retake": "retake",
+    "skip": "skip",
+    "accept": "accept",
+    "sign": "sign",
+    "note": "add a note",
+    "stop": "stop",
+}
+
+
+def why_not(view: RunnerView, command: str) -> str:
+    """Why ``command`` is not offered now, in one sentence (a key that cannot act says so)."""
+    step, st = view.step, view.state
+    what = _WORDS.get(command, command.replace("_", " "))
+    if step is None:
+        return f"cannot {what}: the sequence is over"
+    if command == "capture" and st is State.SETTLING:
+        return (
+            f"cannot capture yet: the readings are settling ({int(round(100 * view.settle_progress))} %); "
+            "capture starts by itself once they are steady, or is offered after the settle timeout"
+        )
+    if command == "capture" and st is State.WAITING and step.kind != "capture":
+        return f"cannot capture now: step {step.id} is a {step.kind} step and captures after its operation"
+    if command == "confirm_operation" and step.kind != "manual":
+        how = "by remote command" if step.kind == "remote" else f"as a {step.kind} step"
+        return f"nothing to confirm by hand: step {step.id} is done {how}"
+    if command == "request_remote" and step.kind != "remote":
+        return f"step {step.id} has no remote operation (a {step.kind} step)"
+    if command == "accept" and st is State.REVIEWING and view.action == "retake":
+        return (
+            f"cannot accept: checks failed and step {step.id} does not allow accepting failures "
+            "(gate block); retake, or skip with a reason"
+        )
+    if command == "retake" and step.capture is None:
+        return f"nothing to retake: step {step.id} captures nothing"
+    if command == "sign" and step.kind != "hold":
+        return f"nothing to sign: step {step.id} is not a hold point"
+    return f"cannot {what} now: the step is {st.value}"
+
+
 def view_of(runner: StepMachine) -> RunnerView:
     """The picture of ``runner`` now."""
     step = runner.step

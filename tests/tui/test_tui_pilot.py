@@ -16,6 +16,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 from textual import events
+from textual.widgets import Static
 
 from meas.session import Session
 from tui.app import BenchwalkApp
@@ -25,6 +26,7 @@ from tui.screens.prompt import Alert, TextPrompt
 from tui.screens.remote import RemoteConfirm
 from tui.screens.safety import SafetyScreen
 from tui.screens.start import StartScreen
+from tui.screens.summary import WalkSummary
 from tui.widgets.step import StepDetail
 
 DEMO_DIR = Path(__file__).resolve().parents[2] / "profiles_demo"
@@ -201,6 +203,12 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
             )
         # the sequence is complete: the screen exports the dataset on its own
         await until(pilot, lambda: app.bridge.exported is not None, 20, "dataset export")
+        # the end-of-walk summary: every step's outcome and the verdict
+        await until(pilot, lambda: isinstance(app.screen, WalkSummary), 5, "end-of-walk summary")
+        assert runner.verdict().line in str(app.screen.query_one(Static).content) or any(
+            runner.verdict().line in str(w.content) for w in app.screen.query(Static)
+        )
+        await pilot.press("enter")
         summary = main.query_one("#summary").content.plain
         assert "SIMULATED BENCH" in summary
         assert f"VERDICT {runner.verdict().line}" in summary
@@ -245,6 +253,9 @@ async def test_fault_shows_failure_and_cause_in_checks_panel(tmp_path):
     async with app.run_test(size=(80, 24)) as pilot:
         main = await open_main(pilot, app)
         panel = main.query_one("#checks")
+        # the bench starts dead (the demo's step 1): energize it by hand so M2 carries current
+        for sw in ("CB1", "SW2", "SW3", "LB2"):
+            app.bridge.session.bench.operate_by_hand(sw, "closed")
 
         def shows_fault():
             text = panel.content.plain if hasattr(panel.content, "plain") else ""
@@ -352,10 +363,9 @@ async def test_remote_switching_needs_both_confirmations(tmp_path):
         await pilot.press(ARM_KEY, "o")  # armed, then any other key disarms
         assert not modal.armed and isinstance(app.screen, RemoteConfirm)
         modal.arm_timeout_s = 0.3  # the documented 8 s, shortened for the test
-        await pilot.press(ARM_KEY)
-        assert modal.armed
-        await until(pilot, lambda: not modal.armed, 5, "disarmed by the timeout")
-        assert modal.disarmed_by_timeout == 1
+        await pilot.press(ARM_KEY)  # armed, then the timeout disarms it
+        await until(pilot, lambda: modal.disarmed_by_timeout == 1, 5, "disarmed by the timeout")
+        assert not modal.armed
         await pilot.press(SEND_KEY)  # too late: nothing is sent
         assert isinstance(app.screen, RemoteConfirm) and coil_writes(app) == []
         await pilot.press("escape")  # cancel: nothing is sent
@@ -403,14 +413,10 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         await until(
             pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture"
         )
-        # the demo bench starts in its normal (energized) state and the dead-bench step expects
-        # every switch open: the step panel says the key will set them by hand
-        await until(
-            pilot,
-            lambda: "simulated bench: C also sets CB1" in main.query_one(StepDetail).content.plain,
-            5,
-            "the simulated-hands hint",
-        )
+        # the demo bench starts as the dead-bench step describes it: nothing to set by hand
+        await until(pilot, lambda: not runner.view().mismatches, 10, "the switches opened")
+        assert runner.view().to_operate == ()
+        assert "also sets" not in main.query_one(StepDetail).content.plain
         await tap(pilot, "c")
         await until(
             pilot,
@@ -420,10 +426,14 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         )
         notice = str(main.query_one("#notice").content)
         assert "recorded" not in notice
-        await pilot.press(
-            "a"
-        )  # nothing to accept while settling: the key is inert (press waits for idle)
-        assert str(main.query_one("#notice").content) == notice
+        await pilot.press("a")  # nothing to accept while settling: the key says why
+        await until(
+            pilot,
+            lambda: "A: cannot accept now" in str(main.query_one("#notice").content),
+            5,
+            "why the key cannot act",
+        )
+        assert str(main.query_one("#notice").content) != notice
         assert all(r["state"] != "accepted" for r in runner.journal.step_history())
 
 

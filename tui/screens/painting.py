@@ -22,7 +22,7 @@ from ..units import UnitMode
 from ..widgets.bench import BenchView
 from ..widgets.checks import ChecksPanel
 from ..widgets.phasor import PhasorView
-from ..widgets.readings import ReadingsGrid
+from ..widgets.readings import ReadingsGrid, per_phase_lines
 from ..widgets.step import StepDetail, StepSummary
 from ..widgets.trend import TREND_KEYS, TrendView
 from .layout import apply_layout, compose_panes, is_wide
@@ -82,9 +82,16 @@ class PaintedScreen(Screen):
         self.query_one(StepDetail).show(step)
         self.query_one(ChecksPanel).show(frame.checks, step.overall if step else "waiting")
         snap = frame.snapshot
+        grid = self.query_one(ReadingsGrid)
+        meters = set(grid.meter_ids)
+        grid.set_failing(
+            frozenset(
+                r.subject for r in frame.checks if r.status.value == "fail" and r.subject in meters
+            )
+        )
         if snap is not None:
             self.history.append(snap)
-            self.query_one(ReadingsGrid).update_snapshot(snap)
+            grid.update_snapshot(snap)
             self.query_one(BenchView).show(snap.switches)
         self._show_meter()
         if old is None or (
@@ -103,6 +110,7 @@ class PaintedScreen(Screen):
         snap = self.frame.snapshot if self.frame else None
         block = snap.meters.get(meter_id) if snap is not None else None
         self.query_one(PhasorView).show(meter_id, block, height=9 if self.wide else 11)
+        self.query_one(ReadingsGrid).set_detail(per_phase_lines(self.profile, meter_id, block))
         key = TREND_KEYS[self.trend_idx]
         samples = [
             (s.t_mono, s.meters[meter_id].get(key)) for s in self.history if meter_id in s.meters

@@ -9,15 +9,17 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-from textual import work
+from textual import events, work
 
 from meas.errors import BenchwalkError
+from meas.walk.view import why_not
 
 from ..frame import Frame
-from ..keys import COMMAND_OF
+from ..keys import ACTION_OF_KEY, COMMAND_OF, display_key
 from .painting import PaintedScreen
 from .prompt import Alert, TextPrompt
 from .remote import RemoteConfirm
+from .summary import WalkSummary
 
 # what the technician is told once a step command is taken (journalled by the runner)
 _DONE_WORDS = {
@@ -41,6 +43,15 @@ class StepCommandScreen(PaintedScreen):
         if step is not None and step.state == "finished" and not self._auto_exported:
             self._auto_exported = True  # the sequence is complete: write the dataset at once
             self._export()
+            runner = getattr(self.bridge, "runner", None)
+            if runner is not None and hasattr(runner, "records"):
+                self.app.push_screen(
+                    WalkSummary(
+                        runner.records(),
+                        runner.verdict().line,
+                        bool(getattr(self.bridge, "simulated", False)),
+                    )
+                )
         if (
             step is not None
             and step.state == "stopped"
@@ -68,6 +79,20 @@ class StepCommandScreen(PaintedScreen):
             return True
         step = self.frame.step if self.frame else None
         return step is not None and command in step.allowed
+
+    def on_key(self, event: events.Key) -> None:
+        """A step key that cannot act now says why instead of doing nothing silently."""
+        command = COMMAND_OF.get(ACTION_OF_KEY.get(event.key, ""))
+        frame = self.frame
+        if command is None or frame is None or frame.step is None:
+            return
+        if command in frame.step.allowed:
+            return
+        runner = getattr(self.bridge, "runner", None)
+        if runner is None:
+            return
+        event.stop()
+        self.notice(f"\u2718 {display_key(event.key)}: {why_not(runner.view(), command)}")
 
     # ------------------------------------------------------------------ step actions
     def _run(self, name: str, *args: object) -> None:

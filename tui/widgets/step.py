@@ -23,7 +23,7 @@ def step_summary(step: StepInfo | None) -> Text:
     """Three lines that stay on screen in every view: where we are and what to press."""
     if step is None:
         return Text("no sequence loaded", style="dim")
-    out = Text(no_wrap=True, overflow="ellipsis")
+    out = Text()  # wraps: the NEXT line is never cut off at 80 columns
     if step.simulated:
         out.append(" SIMULATED BENCH ", style="bold black on magenta")
         out.append(" ")
@@ -99,7 +99,7 @@ def step_detail(step: StepInfo | None) -> Text:
 
 
 class StepSummary(Static):
-    DEFAULT_CSS = "StepSummary { height: 3; }"
+    DEFAULT_CSS = "StepSummary { height: auto; max-height: 7; }"
 
     def __init__(self, **kw) -> None:
         super().__init__("", **kw)
