@@ -5,8 +5,11 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from ..cautions import REPORT_CAUTION as CAUTION
+from .html import _time
+from .names import check_name
 from .rows import (
     KEY_READINGS,
+    PHASE_ROWS,
     ReportData,
     balance_rows,
     issue_rows,
@@ -14,7 +17,7 @@ from .rows import (
     outcome_word,
     step_rows,
 )
-from .text import fmt, plain
+from .text import fmt, fmt_res, plain
 
 
 def _md_table(headers: list[str], rows: Sequence[Sequence[object]]) -> str:
@@ -67,15 +70,16 @@ def render_markdown(rd: ReportData) -> str:
         "## Sequence",
         "",
         _md_table(
-            ["#", "step", "title", "state", "outcome", "operator", "reason"],
+            ["#", "step", "title", "outcome", "operator", "started (UTC)", "ended (UTC)", "reason"],
             [
                 [
                     s.order,
                     s.id,
                     s.title,
-                    s.state or "not reached",
                     outcome_word(s),
                     s.operator,
+                    _time(s.started_utc),
+                    _time(s.ended_utc),
                     " ".join(
                         [plain(s.reason)]
                         + [
@@ -88,7 +92,7 @@ def render_markdown(rd: ReportData) -> str:
             ],
         ),
         "",
-        "## Failed and waived checks",
+        "## Findings",
         "",
     ]
     if rd.issues.empty:
@@ -96,15 +100,27 @@ def render_markdown(rd: ReportData) -> str:
     else:
         out.append(
             _md_table(
-                ["step", "check", "subject", "", "finding", "value / limit", "snapshots"],
+                [
+                    "step",
+                    "check",
+                    "subject",
+                    "cause",
+                    "status",
+                    "finding",
+                    "value",
+                    "limit",
+                    "snapshots",
+                ],
                 [
                     [
                         r.step,
-                        r.check,
+                        f"{check_name(r.check)} ({r.check})",
                         r.subject,
+                        plain(r.cause) or "-",
                         ("waived: " + r.reason) if r.waived else "failed",
                         r.message,
-                        f"{fmt(r.value)} / {fmt(r.limit)} {plain(r.unit)}",
+                        f"{fmt_res(r.value, plain(r.unit))} {plain(r.unit)}".strip(),
+                        f"{fmt_res(r.limit, plain(r.unit))} {plain(r.unit)}".strip(),
                         r.count,
                     ]
                     for r in issue_rows(rd.issues)
@@ -129,8 +145,23 @@ def render_markdown(rd: ReportData) -> str:
                 _md_table(
                     ["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS],
                     [
-                        [r["meter"]] + [fmt(r[t]) for t, _, _ in KEY_READINGS]
+                        [r["meter"]] + [fmt_res(r[t], u) for t, u, _ in KEY_READINGS]
                         for _, r in sub.iterrows()
+                    ],
+                )
+            )
+            out.append("")
+        ph = rd.phases[rd.phases["step"] == s.id]
+        if not ph.empty:
+            val = {(r.meter, r.key): r.value for r in ph.itertuples(index=False)}
+            out.append(
+                _md_table(
+                    ["meter", "quantity", "phase A", "phase B", "phase C"],
+                    [
+                        [meter, f"{title} [{unit}]"]
+                        + [fmt_res(val.get((meter, f"{q}.{p}")), unit) for p in "ABC"]
+                        for meter in dict.fromkeys(ph["meter"])
+                        for title, q, unit in PHASE_ROWS
                     ],
                 )
             )

@@ -14,6 +14,10 @@ from typing import Protocol, cast
 import pandas as pd
 
 from ..dataset.read import Dataset, load_dataset, read_table
+from ..dataset.schema import MAIN_PROFILE, PROFILE_DIR
+from ..errors import BenchwalkError
+from ..model import Profile
+from ..profile import load_profile
 from ..verdict import (
     OUTCOME_WORDS,
     VERDICT_WORDS,
@@ -23,6 +27,10 @@ from ..verdict import (
     session_verdict,
 )
 from .text import plain
+
+# per-phase readings shown per meter and step: (row title, quantity, unit)
+PHASE_ROWS = [("V L-N", "v_ln", "V"), ("I", "i", "A"), ("P", "p", "W"), ("Q", "q", "var")]
+PHASE_QUANTITIES = {q for _, q, _ in PHASE_ROWS}
 
 # quantity keys summarized per meter and step: (column title, unit, keys averaged per snapshot)
 KEY_READINGS = [
@@ -44,6 +52,8 @@ class ReportData:
     verdict: Verdict  # the session verdict, as the console and the summary showed it
     notes: pd.DataFrame  # step, time_utc, operator, message: notes made during the walk
     simulated: bool  # the readings came from the simulated bench
+    phases: pd.DataFrame  # step, meter, key ("i.B") -> median over the captures
+    profile: Profile | None  # the profile as the dataset keeps it (cover facts, serials)
 
 
 def report_verdict(ds: Dataset) -> Verdict:
@@ -108,6 +118,8 @@ class StepRow(Protocol):
     operator: str | None
     settle_s: float
     reason: str | None
+    started_utc: object
+    ended_utc: object
 
 
 class IssueRow(Protocol):
@@ -116,6 +128,7 @@ class IssueRow(Protocol):
     step: str | None
     check: str
     subject: str
+    cause: str | None
     message: str | None
     count: int
     value: float
@@ -160,16 +173,11 @@ def gather(dataset_dir: Path) -> ReportData:
         dataset_dir,
         tables=["snapshots", "steps", "checks", "meters", "topology", "events", "step_log"],
     )
-    keys = sorted({k for _, _, ks in KEY_READINGS for k in ks})
-    quantity_phase = [tuple(k.split(".")) for k in keys]
     m = read_table(
         ds.path,
         "measurements",
         columns=["step", "snapshot", "meter", "quantity", "phase", "value", "quality"],
-        filters=[
-            ("role", "=", "capture"),
-            ("quantity", "in", sorted({q for q, _ in quantity_phase})),
-        ],
+        filters=[("role", "=", "capture"), ("quantity", "in", sorted(PHASE_QUANTITIES))],
     )
     m = m[m["quality"] == "ok"]
     m = m.assign(key=m["quantity"] + "." + m["phase"])
@@ -180,14 +188,22 @@ def gather(dataset_dir: Path) -> ReportData:
         med = per_snap.groupby(level=["step", "meter"], sort=False).median().rename(title)
         frames.append(med)
     readings = pd.concat(frames, axis=1).reset_index() if frames else pd.DataFrame()
+    phases = (
+        m.groupby(["step", "meter", "key"], sort=False)["value"].median().reset_index()
+        if not m.empty
+        else pd.DataFrame(columns=["step", "meter", "key", "value"])
+    )
 
     checks = ds["checks"]
     steps = ds["steps"].set_index("id")
     capture_snaps = set(ds["snapshots"].loc[ds["snapshots"]["role"] == "capture", "snapshot"])
-    bad = checks[checks["status"] == "fail"]
+    bad = checks[checks["status"] == "fail"].assign(cause=lambda d: d["cause"].fillna(""))
+    # one finding per step, check, subject and cause (a message carries its numbers, so
+    # grouping by message gave one row per differing number); the commonest sentence stands
     issues = (
-        bad.groupby(["step", "check", "subject", "message"], dropna=False, sort=False)
+        bad.groupby(["step", "check", "subject", "cause"], dropna=False, sort=False)
         .agg(
+            message=("message", lambda m: m.mode().iloc[0] if m.notna().any() else ""),
             count=("snapshot", "size"),
             value=("value", "median"),
             limit=("limit", "median"),
@@ -200,7 +216,12 @@ def gather(dataset_dir: Path) -> ReportData:
         row = steps.loc[st] if st in steps.index else None
         # the runner accepts a failing step only on a gate="allow" step, with a reason: a waiver
         accepted = (
-            row is not None and row["state"] == "accepted" and row["outcome"] in ("fail", "warn")
+            row is not None
+            and row["state"] == "accepted"
+            and (
+                outcome_from_log("accepted", plain(row["outcome"]) or None)
+                == "accepted_with_failures"
+            )
         )
         waived.append(bool(accepted))
         reasons.append(plain(row["reason"]) if row is not None else "")
@@ -234,4 +255,24 @@ def gather(dataset_dir: Path) -> ReportData:
     notes = ev.loc[ev["kind"] == "note", ["step", "time_utc", "operator", "message"]].reset_index(
         drop=True
     )
-    return ReportData(ds, readings, issues, balance, report_verdict(ds), notes, is_simulated(ds))
+    return ReportData(
+        ds,
+        readings,
+        issues,
+        balance,
+        report_verdict(ds),
+        notes,
+        is_simulated(ds),
+        phases,
+        kept_profile(ds),
+    )
+
+
+def kept_profile(ds: Dataset) -> Profile | None:
+    """The profile as the dataset keeps it (its ``profile/`` folder), for the cover facts;
+    None when it no longer loads (an older dataset): the report then shows none of them."""
+    main = ds.path / PROFILE_DIR / MAIN_PROFILE
+    try:
+        return load_profile(main) if main.is_file() else None
+    except BenchwalkError:
+        return None
