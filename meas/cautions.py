@@ -40,8 +40,11 @@ REMOTE_COMMAND_CAUTION = (
     "area is clear and lockout/tagout is respected. This tool is no interlock."
 )
 
-# In the console's remote modal on the simulated bench, above REMOTE_COMMAND_CAUTION.
+# In the console's remote modal on the simulated bench, instead of REMOTE_COMMAND_CAUTION.
 SIMULATED_REMOTE_CAUTION = (
-    "SIMULATED BENCH: this command goes to the simulated controller on this computer and "
-    "operates nothing real. On a real bench the same keys send a real command to plant."
+    "CAUTION, SIMULATED BENCH: this command goes to the simulated controller on this computer "
+    "and operates nothing real. On a real bench the same keys send a real command: there, "
+    "operating plant is your site's switching procedure, not this tool's; the switching "
+    "programme must allow it, the area be clear and lockout/tagout respected. This tool is no "
+    "interlock."
 )

@@ -106,6 +106,15 @@ def settle_factory(profile: Profile) -> Callable[[CapturePolicy], _SettleAdapter
     return lambda policy: _SettleAdapter(profile, policy)
 
 
+def bench_start_state(profile: Profile, index: int) -> dict[str, SwitchState]:
+    """Where the simulated bench starts for step ``index`` (new or resumed): a capture step
+    finds the states it expects; a step that operates starts from the states before it
+    (for the first step, the switches' normal states: nothing to set)."""
+    if index < len(profile.steps) and profile.steps[index].kind == "capture":
+        return dict(configuration_after(profile, index))
+    return dict(configuration_before(profile, index))
+
+
 def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]:
     """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
     out: dict[str, StepOutcome] = {}
@@ -201,11 +210,8 @@ class Session:
         bench, live_profile = None, profile
         if simulate:
             bench, live_profile = await _start_bench(profile, faults, seed, noise)
-            # the simulated bench starts as the first step describes it (a capture step
-            # finds its expected states; a step that operates starts from the normal states)
-            if profile.steps and profile.steps[0].kind == "capture":
-                for sw, state in configuration_after(profile, 0).items():
-                    bench.operate_by_hand(sw, state)
+            for sw, state in bench_start_state(profile, 0).items():
+                bench.operate_by_hand(sw, state)
         try:
             journal = Journal.create(
                 path,
@@ -284,7 +290,7 @@ class Session:
                 bench, live_profile = await _start_bench(
                     profile, meta.get("faults", ()), meta.get("seed"), meta.get("noise", True)
                 )
-                for sid, state in configuration_before(profile, index).items():
+                for sid, state in bench_start_state(profile, index).items():
                     bench.operate_by_hand(sid, state)
             journal.record_event(
                 "session_resumed", f"resumed at step {point}", step_id=point, operator=op

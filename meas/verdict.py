@@ -163,13 +163,14 @@ def records_from_log(
             review[h["step"]] = h["outcome"]
     out = []
     for sid in step_ids:
-        h = last.get(sid)
-        kind = outcome_from_log(h["state"] if h else None, h["outcome"] if h else None)
+        got = last.get(sid)
+        h = got if got is not None else {}
+        kind = outcome_from_log(h.get("state"), h.get("outcome"))
         failed = (
             1 if kind in ("accepted_with_failures", "skipped") and review.get(sid) == "fail" else 0
         )
         if kind == "accepted_with_failures":
             failed = max(failed, 1)
-        reason = (h.get("reason") or "") if h is not None and kind != "not_captured" else ""
+        reason = (h.get("reason") or "") if kind != "not_captured" else ""
         out.append(StepRecord(sid, kind, reason, failed))
     return out

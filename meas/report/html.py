@@ -20,6 +20,7 @@ from .rows import (
     issue_rows,
     meter_rows,
     outcome_word,
+    phase_values,
     step_rows,
 )
 from .text import fmt, fmt_res, plain
@@ -130,7 +131,7 @@ def _time(x: object, day: str = "") -> str:
     if x is None or x is pd.NaT or (isinstance(x, float) and x != x):
         return ""
     try:
-        t = pd.Timestamp(x)
+        t = pd.Timestamp(str(x))
     except (ValueError, TypeError):
         return plain(x)
     return (
@@ -272,7 +273,7 @@ def _phase_table(rd: ReportData, step_id: str) -> str:
     sub = rd.phases[rd.phases["step"] == step_id]
     if sub.empty:
         return ""
-    val = {(r.meter, r.key): r.value for r in sub.itertuples(index=False)}
+    val = phase_values(rd.phases, step_id)
     rows = []
     for meter in dict.fromkeys(sub["meter"]):
         cells = [fmt_res(val.get((meter, f"{q}.{p}")), u) for _, q, u in PHASE_ROWS for p in "ABC"]

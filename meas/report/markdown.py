@@ -15,6 +15,7 @@ from .rows import (
     issue_rows,
     meter_rows,
     outcome_word,
+    phase_values,
     step_rows,
 )
 from .text import fmt, fmt_res, plain
@@ -153,7 +154,7 @@ def render_markdown(rd: ReportData) -> str:
             out.append("")
         ph = rd.phases[rd.phases["step"] == s.id]
         if not ph.empty:
-            val = {(r.meter, r.key): r.value for r in ph.itertuples(index=False)}
+            val = phase_values(rd.phases, s.id)
             out.append(
                 _md_table(
                     ["meter", "quantity", "phase A", "phase B", "phase C"],

@@ -268,6 +268,17 @@ def gather(dataset_dir: Path) -> ReportData:
     )
 
 
+def phase_values(phases: pd.DataFrame, step_id: str) -> dict[tuple[str, str], float]:
+    """(meter, key) -> median of one step's per-phase readings."""
+    sub = phases[phases["step"] == step_id]
+    return {
+        (str(m), str(k)): float(v)
+        for m, k, v in zip(
+            sub["meter"].tolist(), sub["key"].tolist(), sub["value"].tolist(), strict=True
+        )
+    }
+
+
 def kept_profile(ds: Dataset) -> Profile | None:
     """The profile as the dataset keeps it (its ``profile/`` folder), for the cover facts;
     None when it no longer loads (an older dataset): the report then shows none of them."""

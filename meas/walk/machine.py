@@ -12,15 +12,17 @@ from collections.abc import Callable, Sequence
 
 from ..errors import BenchwalkError
 from ..model import Profile, Step, SwitchState
-from ..results import CheckResult, Status, overall
+from ..results import CheckResult, overall
 from ..snapshot import Snapshot
-from ..verdict import OUTCOME_WORDS, StepRecord, Verdict, session_verdict
+from ..verdict import StepRecord, Verdict, session_verdict
+from . import remote
 from .capture import CaptureBook
+from .holds import hold_issues, hold_scope
 from .live import LiveWatch
 from .ports import CheckFn, JournalSink, Settle, SettleFactory, SwitchOperator
 from .remote import RemoteOps
 from .sequence import configurations
-from .standdown import DOUBT_CHECKS, doubtful_meters, stand_down
+from .standdown import review_quality
 from .states import State, StepOutcome
 from .status import mismatch_text, mismatches, unread
 from .view import RunnerView, view_of
@@ -100,28 +102,12 @@ class StepMachine:
         return [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
 
     def hold_scope(self) -> tuple[str, ...]:
-        """The steps the current hold point covers: those since the previous hold point."""
-        step = self.step
-        if step is None or step.kind != "hold":
-            return ()
-        start = 0
-        for i in range(self.index - 1, -1, -1):
-            if self.profile.steps[i].kind == "hold":
-                start = i + 1
-                break
-        return tuple(s.id for s in self.profile.steps[start : self.index])
+        """The steps the current hold point covers (``meas.walk.holds``)."""
+        return hold_scope(self.profile, self.index)
 
     def hold_issues(self) -> tuple[str, ...]:
         """Steps in the hold point's scope that did not pass, one line each (to acknowledge)."""
-        out = []
-        for sid in self.hold_scope():
-            o = self.outcomes.get(sid)
-            if o is None:
-                out.append(f"{sid} not captured")
-            elif o.outcome != "passed":
-                word = OUTCOME_WORDS[o.outcome]
-                out.append(f"{sid} {word}: {o.reason}" if o.reason else f"{sid} {word}")
-        return tuple(out)
+        return hold_issues(self.profile, self.index, self.outcomes)
 
     def records(self) -> list[StepRecord]:
         """Every step's record in sequence order; a step without an outcome is not captured."""
@@ -249,26 +235,18 @@ class StepMachine:
         self.state = State.VERIFYING
 
     def _resume_remote(self, snapshot: Snapshot) -> None:
-        """On the step a session resumed at: a remote switch already reading its target state
-        (the command went out before the stop) is not commanded again; the step goes on to
-        verify its status instead of being refused or skipped."""
+        """On the step a session resumed at, a remote switch already reading its target (the
+        command went out before the stop) is not commanded again: the step verifies."""
         step = self.step
-        if step is None or step.kind != "remote" or self.remote.pending is not None:
+        if step is None or self.remote.pending is not None:
             return
-        done = [(s, v) for s, v in self.remote.todo(step) if snapshot.switches.get(s) == v]
-        if not done:
-            return
-        for sid, want in done:
+        for sid, want in remote.already_done(step, self.remote, snapshot.switches):
             self.remote.done.add(sid)
-            self._journal(
-                "remote_already_done",
-                f"{sid} already reads {want} after the resume: no command sent",
-                switch=sid,
-                state=want,
-            )
-        if not self.remote.todo(step):
-            self._resumed_step = None
-            self._begin_verify()
+            msg = f"{sid} already reads {want} after the resume: no command sent"
+            self._journal("remote_already_done", msg, switch=sid, state=want)
+            if not self.remote.todo(step):
+                self._resumed_step = None
+                self._begin_verify()
 
     def _results_for(self, snapshot: Snapshot) -> list[CheckResult]:
         capturing = self.state is State.CAPTURING
@@ -421,27 +399,12 @@ class StepMachine:
             )
 
     def _review_quality(self, snapshot: Snapshot) -> None:
-        """Carry a quality finding into the review even with few captures, and stand down the
-        checks that read a doubtful meter.
-
-        The captures' own frozen check reads only the steady stretch, often shorter than the
-        frozen check needs; a frozen meter does not move through the switching transient
-        either, so the check is run once more on every snapshot of this step. Only its
-        quality findings are taken; the journal keeps the captures' results as they were.
-        """
-        step = self.step
-        assert step is not None
+        """The quality finding carried into the review, checks on a doubtful meter stood
+        down (``meas.walk.standdown.review_quality``), and the doubt journalled."""
         mine = [h for h in self.book.history if h.t_mono >= self._step_t0][:-1]
-        found = [
-            r
-            for r in self._checks(snapshot, mine)
-            if r.check in DOUBT_CHECKS and r.status is Status.FAIL
-        ]
-        review = self.book.review
-        if found:
-            keys = {(r.check, r.subject) for r in found}
-            review = [r for r in review if (r.check, r.subject) not in keys] + found
-        doubtful = doubtful_meters(review, snapshot)
+        review, doubtful = review_quality(
+            self.profile, self._checks, snapshot, mine, self.book.review
+        )
         if doubtful:
             self._journal(
                 "readings_in_doubt",
@@ -449,7 +412,7 @@ class StepMachine:
                 + ": the checks that read them stand down in the review",
                 meters=doubtful,
             )
-        self.book.review = stand_down(self.profile, review, doubtful)
+        self.book.review = review
 
     def _config_changed(self) -> None:
         step = self.step

@@ -20,6 +20,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from ..model import Profile
 from ..results import CheckResult, Status
 from ..snapshot import CommState, Quality, Snapshot
+from .ports import CheckFn
 
 # a failing result of one of these puts the subject meter's readings in doubt
 DOUBT_CHECKS = {"quality.frozen": "frozen", "quality.comm": "not communicating"}
@@ -103,3 +104,30 @@ def hold_while_settling(results: Sequence[CheckResult], progress: float) -> list
         else r
         for r in results
     ]
+
+
+def review_quality(
+    profile: Profile,
+    checks: CheckFn,
+    snapshot: Snapshot,
+    step_history: list[Snapshot],
+    review: list[CheckResult],
+) -> tuple[list[CheckResult], dict[str, str]]:
+    """The step's review with a quality finding carried in even with few captures, and the
+    checks that read a doubtful meter stood down; also the doubtful meters.
+
+    The captures' own frozen check reads only the steady stretch, often shorter than the
+    frozen check needs; a frozen meter does not move through the switching transient either,
+    so the checks run once more on every snapshot of the step (``step_history``) and only
+    their quality findings are taken. The journal keeps the captures' results as they were.
+    """
+    found = [
+        r
+        for r in checks(snapshot, step_history)
+        if r.check in DOUBT_CHECKS and r.status is Status.FAIL
+    ]
+    if found:
+        keys = {(r.check, r.subject) for r in found}
+        review = [r for r in review if (r.check, r.subject) not in keys] + found
+    doubtful = doubtful_meters(review, snapshot)
+    return stand_down(profile, review, doubtful), doubtful

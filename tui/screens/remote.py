@@ -57,9 +57,8 @@ class RemoteConfirm(ModalScreen[bool]):
             if self.question:
                 t.append(self.question + "\n")
             yield Static(t)
-            if self.simulated:
-                yield Static(SIMULATED_REMOTE_CAUTION, classes="caution sim-caution")
-            yield Static(REMOTE_COMMAND_CAUTION, classes="caution")
+            caution = SIMULATED_REMOTE_CAUTION if self.simulated else REMOTE_COMMAND_CAUTION
+            yield Static(caution, classes="caution")
             yield Static("", id="remote-keys", classes="modal-keys")
 
     def on_mount(self) -> None:
