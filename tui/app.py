@@ -7,7 +7,10 @@ tests hand in their own.
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
 import inspect
+import signal
 from collections.abc import Callable, Iterable
 from pathlib import Path
 from typing import Any
@@ -59,9 +62,16 @@ class BenchwalkApp(App[int]):
         self.bridge: Bridge | None = None
         self.exit_message = ""
         self.verdict_line = ""
+        self.stop_signal = ""
 
     # ------------------------------------------------------------------ start-up
     def on_mount(self) -> None:
+        # SIGTERM and SIGHUP (a closed terminal) end the console as Ctrl+Q does: the stop is
+        # journalled and the resume command printed (Ctrl+C is a key inside the console)
+        with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
+            loop = asyncio.get_running_loop()
+            for sig in (signal.SIGTERM, signal.SIGHUP):
+                loop.add_signal_handler(sig, self._on_stop_signal, sig)
         if self.skip_intro:
             self.run_worker(self._open(StartChoice(self.operator, self.resume)), exclusive=True)
         else:
@@ -111,6 +121,10 @@ class BenchwalkApp(App[int]):
         return None
 
     # ------------------------------------------------------------------ quit keeps the session
+    def _on_stop_signal(self, sig: signal.Signals) -> None:
+        self.stop_signal = sig.name
+        self.run_worker(self.action_quit(), group="stop-signal")
+
     def session_exit(self) -> tuple[int, str]:
         """(exit code, verdict line) of the open session: the verdict's code once the sequence
         is finished, ``EXIT_STOPPED`` (resumable) before that; (0, "") with no session."""
@@ -128,12 +142,17 @@ class BenchwalkApp(App[int]):
         if self.bridge is not None:
             runner = getattr(self.bridge, "runner", None)
             if runner is not None and not runner.done:
-                runner.stop("the console was closed")  # journalled; resume continues here
+                why = (
+                    f"interrupted by {self.stop_signal}"
+                    if self.stop_signal
+                    else "the console was closed"
+                )
+                runner.stop(why)  # journalled; resume continues here
             try:
                 await self.bridge.close()
             except BenchwalkError as exc:
                 self.exit_message = str(exc)
-        self.exit(code)
+        self.exit(code, return_code=code)  # run() returns it; run_console exits with it
 
     # ------------------------------------------------------------------ command palette
     def get_system_commands(self, screen: Screen) -> Iterable[SystemCommand]:

@@ -63,8 +63,17 @@ def _verdict(lines: list[str]) -> str:
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT, signal.SIGHUP])
-def test_a_stop_signal_exits_3_and_the_printed_resume_command_finishes(tmp_path, sig):
+@pytest.mark.parametrize(
+    "sig, marker",
+    [
+        (signal.SIGTERM, "[2/5]"),  # the remote step has begun
+        (signal.SIGINT, "[2/5]"),
+        (signal.SIGHUP, "[2/5]"),
+        (signal.SIGTERM, "[1/5]"),  # the first capture step: settling or capturing
+        (signal.SIGTERM, "[4/5]"),  # the manual step after the hold point
+    ],
+)
+def test_a_stop_signal_exits_3_and_the_printed_resume_command_finishes(tmp_path, sig, marker):
     profile = write_bench(tmp_path / "bench", TEST_SEQUENCE)
     # reference: the same walk uninterrupted
     ref = subprocess.run(
@@ -97,7 +106,7 @@ def test_a_stop_signal_exits_3_and_the_printed_resume_command_finishes(tmp_path,
             str(sessions),
         ]
     )
-    lines = _run_until(proc, "[2/5]")  # the remote step has begun
+    lines = _run_until(proc, marker)
     proc.send_signal(sig)
     assert proc.wait(30) == 3, lines[-20:]
     proc._reader.join(10)  # type: ignore[attr-defined]

@@ -214,7 +214,7 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
         assert f"VERDICT {runner.verdict().line}" in summary
         await pilot.press("ctrl+q")
     # the console's exit code is the verdict's, as headless and the dataset give it
-    assert app.return_code == runner.verdict().exit_code
+    assert app.return_value == app.return_code == runner.verdict().exit_code
     dataset = app.bridge.exported
     assert dataset.is_relative_to(tmp_path / "out")
     package = json.loads((dataset / "datapackage.json").read_text())

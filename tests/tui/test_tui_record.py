@@ -109,3 +109,35 @@ async def test_readings_keep_every_row_in_sight_and_mark_failing_meters(tmp_path
         await pilot.press("r")
         await pilot.pause(0.1)
         assert "R: step radial has no remote operation" in str(main.query_one("#notice").content)
+
+
+async def test_sigterm_ends_the_console_resumably_with_the_stop_journalled(tmp_path):
+    import os
+    import signal
+
+    from meas.journal.read import JournalView
+
+    profile = write_bench(tmp_path / "b", ONE)
+
+    async def factory(operator: str, resume: str | None):
+        return await Session.new(
+            profile, operator, sessions_dir=tmp_path / "s", session_id="sig", simulate=True
+        )
+
+    app = BenchwalkApp(factory, skip_intro=True, operator="AT", out_dir=tmp_path / "out")
+    async with app.run_test(size=(80, 24)) as pilot:
+        deadline = time.monotonic() + 15
+        while not (isinstance(app.screen, MainScreen) and app.screen.frame is not None):
+            assert time.monotonic() < deadline
+            await pilot.pause(0.05)
+        os.kill(os.getpid(), signal.SIGTERM)  # a real signal, caught by the console's loop
+        deadline = time.monotonic() + 10
+        while app.return_code is None:
+            assert time.monotonic() < deadline, "the console did not end on SIGTERM"
+            await pilot.pause(0.05)
+    assert app.stop_signal == "SIGTERM", app.stop_signal
+    assert app.return_value == 3 and app.return_code == 3
+    jv = JournalView(tmp_path / "s" / "sig.sqlite")
+    stops = [e for e in jv.events() if e.kind == "stopped"]
+    jv.close()
+    assert stops and stops[-1].message == "interrupted by SIGTERM"
