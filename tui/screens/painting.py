@@ -98,6 +98,8 @@ class PaintedScreen(Screen):
             old.step and step and (old.step.state, old.step.index) != (step.state, step.index)
         ):
             self.refresh_bindings()
+        if old is not None and old.step and step and old.step.index != step.index:
+            self.notice("")  # a new step: the last step's notice no longer holds
         if (
             step is not None
             and step.message

@@ -97,12 +97,12 @@ class StepCommandScreen(PaintedScreen):
     # ------------------------------------------------------------------ step actions
     def _run(self, name: str, *args: object) -> None:
         refusal = self.bridge.command(name, *args)
+        self._repaint_now()  # first: a new step clears the old notice, not this one
         self.notice(
             f"\u2718 {refusal}"
             if refusal
             else f"\u2714 {_DONE_WORDS.get(name, name.replace('_', ' '))}"
         )
-        self._repaint_now()
 
     def _repaint_now(self) -> None:
         """Show the command's effect at once instead of at the next poll."""
