@@ -52,6 +52,7 @@ async def _until(session: Session, pred, timeout_s: float = 20.0):
     raise AssertionError("session ended")
 
 
+@pytest.mark.slow
 async def test_a_skipped_step_makes_the_report_say_incomplete_first_and_never_pass(tmp_path):
     from tui.commands.headless import summarize
 
@@ -150,6 +151,7 @@ def faulty_report(tmp_path_factory):
     return dataset, html_path
 
 
+@pytest.mark.slow
 def test_the_report_groups_findings_and_names_checks_in_plain_words(faulty_report):
     from meas.dataset.read import load_dataset
 
@@ -168,6 +170,7 @@ def test_the_report_groups_findings_and_names_checks_in_plain_words(faulty_repor
     assert not re.search(r"\d\.\d+e[-+]\d\d", html.split("<body>", 1)[1])
 
 
+@pytest.mark.slow
 def test_the_report_shows_per_phase_readings_a_reversed_ct_shows_on(faulty_report):
     from meas.dataset.read import read_table
 
@@ -186,6 +189,7 @@ def test_the_report_shows_per_phase_readings_a_reversed_ct_shows_on(faulty_repor
     assert fmt_res(float(med["B"]), "W") in row and fmt_res(float(med["A"]), "W") in row
 
 
+@pytest.mark.slow
 def test_the_report_shows_the_cover_facts_and_instrument_calibration(faulty_report):
     _, html_path = faulty_report
     html = html_path.read_text()

@@ -9,6 +9,7 @@ import contextlib
 import re
 import time
 
+import pytest
 from support.benches import FAST_CAPTURE, write_bench
 
 from meas.session import Session
@@ -48,6 +49,7 @@ async def _until(s: Session, pred, timeout_s: float = 20.0):
     raise AssertionError("ended")
 
 
+@pytest.mark.slow
 async def test_the_session_list_shows_each_sessions_state(tmp_path):
     profile = write_bench(tmp_path / "b", ONE)
     sdir = tmp_path / "s"
@@ -79,6 +81,7 @@ def test_no_signed_or_prefixed_zero():
     assert eng(-2.5e-3, "W").strip() == "-2.50 mW"  # a real small value keeps its sign
 
 
+@pytest.mark.slow
 async def test_readings_keep_every_row_in_sight_and_mark_failing_meters(tmp_path):
     profile = write_bench(tmp_path / "b", ONE)
 
@@ -111,6 +114,7 @@ async def test_readings_keep_every_row_in_sight_and_mark_failing_meters(tmp_path
         assert "R: step radial has no remote operation" in str(main.query_one("#notice").content)
 
 
+@pytest.mark.slow
 async def test_sigterm_ends_the_console_resumably_with_the_stop_journalled(tmp_path):
     import os
     import signal
@@ -141,3 +145,62 @@ async def test_sigterm_ends_the_console_resumably_with_the_stop_journalled(tmp_p
     stops = [e for e in jv.events() if e.kind == "stopped"]
     jv.close()
     assert stops and stops[-1].message == "interrupted by SIGTERM"
+
+
+HOLD = (
+    ONE.split("[[step]]")[0]
+    + "[[step]]"
+    + ONE.split("[[step]]")[1]
+    + """
+[[step]]
+id = "review"
+title = "Hold: radial reviewed"
+kind = "hold"
+instruction = "The lead signs off the radial case."
+"""
+)
+
+
+@pytest.mark.slow
+async def test_the_console_hold_point_lists_what_it_covers_and_journals_the_acknowledgement(
+    tmp_path,
+):
+    from textual.widgets import Input, Static
+
+    from meas.journal.read import JournalView
+    from tui.screens.prompt import TextPrompt
+
+    profile = write_bench(tmp_path / "b", HOLD)
+
+    async def factory(operator: str, resume: str | None):
+        return await Session.new(
+            profile, operator, sessions_dir=tmp_path / "s", session_id="hold", simulate=True
+        )
+
+    app = BenchwalkApp(factory, skip_intro=True, operator="AT", out_dir=tmp_path / "out")
+    async with app.run_test(size=(80, 24)) as pilot:
+        deadline = time.monotonic() + 15
+        while not (isinstance(app.screen, MainScreen) and app.screen.frame is not None):
+            assert time.monotonic() < deadline
+            await pilot.pause(0.05)
+        runner = app.bridge.runner
+        runner.skip("radial not available today")
+        await pilot.pause(0.3)
+        await pilot.press("g")
+        deadline = time.monotonic() + 5
+        while not isinstance(app.screen, TextPrompt):
+            assert time.monotonic() < deadline, "no sign prompt"
+            await pilot.pause(0.05)
+        prompt = app.screen
+        question = " ".join(str(w.content) for w in prompt.query(Static))
+        assert "covers: radial" in question and "radial skipped" in question
+        assert prompt.query_one(Input).value == ""  # the signer types their own name
+        await pilot.press(*"JL", "enter")
+        deadline = time.monotonic() + 5
+        while not runner.finished:
+            assert time.monotonic() < deadline, runner.view().message
+            await pilot.pause(0.05)
+    jv = JournalView(tmp_path / "s" / "hold.sqlite")
+    ack = [e for e in jv.events() if e.kind == "hold_acknowledged"]
+    jv.close()
+    assert len(ack) == 1 and ack[0].operator == "JL" and "radial skipped" in ack[0].message

@@ -11,6 +11,7 @@ from __future__ import annotations
 import contextlib
 import time
 
+import pytest
 from support.benches import TEST_SEQUENCE, write_bench
 
 from meas.journal.read import JournalView
@@ -28,6 +29,7 @@ async def _until(s: Session, pred, timeout_s: float = 20.0):
     raise AssertionError("ended")
 
 
+@pytest.mark.slow
 async def test_resume_after_the_remote_command_went_out_does_not_send_it_again(tmp_path):
     profile = write_bench(tmp_path / "b", TEST_SEQUENCE)
     kw = {"sessions_dir": tmp_path / "s"}

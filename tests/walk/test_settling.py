@@ -33,6 +33,7 @@ async def _session(tmp_path, faults=(), name="b") -> Session:
     )
 
 
+@pytest.mark.slow
 async def test_frozen_m1_is_named_on_m1_at_step_1_and_no_switch_is_blamed(tmp_path):
     s = await _session(tmp_path, ["frozen:M1"])
     try:
@@ -96,6 +97,7 @@ async def test_no_fail_is_shown_while_settling_over_the_whole_demo_sequence(tmp_
         await s.close()
 
 
+@pytest.mark.slow
 async def test_the_demo_bench_starts_as_its_first_step_says(tmp_path):
     # the demo's step 1: every switch open; M1 (source side of CB1) live, M2..M8 near zero
     s = await _session(tmp_path, name="first")
