@@ -48,7 +48,7 @@ td.num{text-align:right;font-variant-numeric:tabular-nums}
 .sim{display:block;font-size:.9rem;color:#6a1b9a}.note{font-style:italic;margin-top:.2rem}
 .runhead{display:none}
 @media print{body{margin:0;max-width:none;font-size:10.5pt}h2{break-after:avoid}h3{break-after:avoid}
-tr,svg,.verdict,.meta{break-inside:avoid}thead{display:table-header-group}}
+tr,svg,.verdict,.meta,.fig{break-inside:avoid}thead{display:table-header-group}}
 .findings td:nth-child(6){width:34%}.findings td:nth-child(2){width:16%}
 .phases{font-size:11px}
 """
@@ -282,6 +282,34 @@ def _phase_table(rd: ReportData, step_id: str) -> str:
     return _table(head, rows, set(range(1, len(head))), cls="phases")
 
 
+def _failing_chart(rd: ReportData, step_id: str) -> str:
+    """Every check kind that failed in the step, as bars against its limit (not only the bus
+    balances: a step failing on a meter or branch check shows it here)."""
+    if rd.issues.empty:
+        return ""
+    sub = rd.issues[(rd.issues["step"] == step_id) & (rd.issues["limit"] > 0)]
+    if sub.empty:
+        return ""
+    rows = pd.DataFrame(
+        {
+            "step": sub["step"],
+            "check": sub["check"],
+            "subject": sub["subject"],
+            "value": sub["value"].abs(),
+            "limit": sub["limit"],
+            "unit": sub["unit"],
+            "worst": "fail",
+            "residual": sub["value"].abs() / sub["limit"],
+        }
+    )
+    return (
+        '<div class="fig"><p>Failed checks of this step: median value over the failing captures '
+        "against its limit.</p>"
+        + balance_svg(rows, title="failed checks against their limits")
+        + "</div>"
+    )
+
+
 def _readings(rd: ReportData) -> list[str]:
     out = [
         "<h2>Readings per step</h2><p>Medians over the step's captures, values of quality ok, "
@@ -309,9 +337,12 @@ def _readings(rd: ReportData) -> list[str]:
                 _table(["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS], rows, {1, 2, 3, 4})
             )
         out.append(phases)
+        out.append(_failing_chart(rd, s.id))
         if not bal.empty:
-            out.append("<p>Bus balance: median residual over the captures against its limit.</p>")
-            out.append(balance_svg(bal))
+            out.append(
+                '<div class="fig"><p>Bus balance: median residual over the captures against its '
+                f"limit.</p>{balance_svg(bal)}</div>"
+            )
     return out
 
 

@@ -166,6 +166,10 @@ def test_the_report_groups_findings_and_names_checks_in_plain_words(faulty_repor
     assert ("phase.wiring", "M5") in {(c, s) for _, c, s, _ in groups.index}
     assert "CT and VT wiring (polarity and phase order)" in findings
     assert '<span class="id">phase.wiring</span>' in findings
+    # the step that failed on a meter check has a chart of that check against its limit
+    radial = html.split("(radial;", 1)[1].split("<h3>", 1)[0]
+    assert "<title>failed checks against their limits</title>" in radial
+    assert "M5 phase.wiring" in radial
     # numbers rounded to a resolution: no e-notation anywhere in the report body
     assert not re.search(r"\d\.\d+e[-+]\d\d", html.split("<body>", 1)[1])
 
