@@ -47,3 +47,12 @@ STAGED_FAULT_CAUTION = (
     "prevail. benchwalk only analyses recordings of a fault: it never stages, triggers or "
     "controls one, and it is no interlock."
 )
+
+# In the console's remote modal on the simulated bench, instead of REMOTE_COMMAND_CAUTION.
+SIMULATED_REMOTE_CAUTION = (
+    "CAUTION, SIMULATED BENCH: this command goes to the simulated controller on this computer "
+    "and operates nothing real. On a real bench the same keys send a real command: there, "
+    "operating plant is your site's switching procedure, not this tool's; the switching "
+    "programme must allow it, the area be clear and lockout/tagout respected. This tool is no "
+    "interlock."
+)

@@ -175,6 +175,28 @@ class Meter:
     vt_ratio: float = 1.0  # primary V per secondary V, applied when reports == "secondary"
     ct_primary_a: float | None = None  # rated primary current, for out-of-range checks
     classes: AccuracyClasses = field(default_factory=AccuracyClasses)
+    serial: str = ""  # instrument serial number (report cover, optional)
+    calibration_due: str = ""  # ISO date the calibration falls due (report cover, optional)
+
+
+@dataclass(frozen=True)
+class TestEquipment:
+    """An instrument used besides the meters (tester, clamp meter), for the report's cover."""
+
+    name: str
+    serial: str = ""
+    calibration_due: str = ""  # ISO date
+
+
+@dataclass(frozen=True)
+class ReportCover:
+    """Optional ``[report]`` facts a handover needs; shown on the report when present."""
+
+    project: str = ""
+    site: str = ""
+    document: str = ""  # document number
+    revision: str = ""
+    test_equipment: tuple[TestEquipment, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -382,6 +404,7 @@ class Profile:
     steps: tuple[Step, ...] = ()
     sim: dict[str, Any] = field(default_factory=dict, compare=False, hash=False)
     sources: tuple[SourceFile, ...] = field(default=(), compare=False, hash=False)
+    cover: ReportCover = field(default_factory=ReportCover)
 
     def meter(self, meter_id: str) -> Meter:
         for m in self.meters:

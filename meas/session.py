@@ -31,8 +31,14 @@ from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
 from .snapshot import Snapshot
+from .verdict import records_from_log, session_verdict
 from .walk.runner import Runner
-from .walk.sequence import configuration_before, find_step, validate_sequence
+from .walk.sequence import (
+    configuration_after,
+    configuration_before,
+    find_step,
+    validate_sequence,
+)
 from .walk.states import StepOutcome
 from .walk.view import RunnerView
 
@@ -103,18 +109,53 @@ def settle_factory(profile: Profile) -> Callable[[CapturePolicy], _SettleAdapter
     return lambda policy: _SettleAdapter(profile, policy)
 
 
-def prior_outcomes(journal: Journal) -> dict[str, StepOutcome]:
+def bench_start_state(profile: Profile, index: int) -> dict[str, SwitchState]:
+    """Where the simulated bench starts for step ``index`` (new or resumed): a capture step
+    finds the states it expects; a step that operates starts from the states before it
+    (for the first step, the switches' normal states: nothing to set)."""
+    if index < len(profile.steps) and profile.steps[index].kind == "capture":
+        return dict(configuration_after(profile, index))
+    return dict(configuration_before(profile, index))
+
+
+def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]:
     """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
     out: dict[str, StepOutcome] = {}
-    for r in journal.step_history():
-        if r["state"] in ("accepted", "skipped"):
-            status = (
-                Status.FAIL
-                if r["outcome"] == "fail"
-                else (Status.WARN if r["outcome"] == "warn" else Status.PASS)
-            )
-            out[r["step"]] = StepOutcome(r["step"], r["state"], status, (), r["reason"] or "")
+    for rec in records_from_log([s.id for s in profile.steps], journal.step_history()):
+        if rec.outcome == "not_captured":
+            continue
+        status = Status.FAIL if rec.failed_checks else Status.PASS
+        out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason)
     return out
+
+
+def session_state(path: Path) -> str:
+    """One line for a session list: ``finished, VERDICT`` or ``unfinished at step X``.
+
+    Read-only: listing sessions never writes to (or waits on) a journal.
+    """
+    from .journal import read
+
+    try:
+        conn = read.connect_read_only(path)
+    except Exception:  # noqa: BLE001 - a list must show the other sessions anyway
+        return "unreadable journal"
+    try:
+        info = read.read_session(conn)
+        if info is None:
+            return "empty journal"
+        ids = [s["id"] for s in info.profile_dict.get("steps", [])]
+        history = read.step_history(conn)
+        point = read.resume_point(conn, ids)
+    except Exception:  # noqa: BLE001
+        return "unreadable journal"
+    finally:
+        conn.close()
+    records = records_from_log(ids, history)
+    if point is None:
+        return f"finished, {session_verdict(records).word}"
+    done = sum(1 for r in records if r.outcome != "not_captured")
+    return f"unfinished at step {point} ({done} of {len(ids)} steps done)"
 
 
 class Session:
@@ -182,6 +223,8 @@ class Session:
         bench, live_profile = None, profile
         if simulate:
             bench, live_profile = await _start_bench(profile, faults, seed, noise, built)
+            for sw, state in bench_start_state(profile, 0).items():
+                bench.operate_by_hand(sw, state)
         try:
             journal = Journal.create(
                 path,
@@ -267,7 +310,7 @@ class Session:
                     meta.get("noise", True),
                     built,
                 )
-                for sid, state in configuration_before(profile, index).items():
+                for sid, state in bench_start_state(profile, index).items():
                     bench.operate_by_hand(sid, state)
             journal.record_event(
                 "session_resumed", f"resumed at step {point}", step_id=point, operator=op
@@ -284,7 +327,7 @@ class Session:
             on_saved,
             live_every_s,
             live_checks,
-            prior_outcomes(journal),
+            prior_outcomes(journal, profile),
         )
 
     @classmethod
@@ -320,6 +363,7 @@ class Session:
                 live_checks=live_checks,
                 on_saved=on_saved,
                 prior_outcomes=prior,
+                resumed=bool(journal.step_history()),
             )
         except BaseException:
             with contextlib.suppress(Exception):

@@ -7,7 +7,10 @@ tests hand in their own.
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
 import inspect
+import signal
 from collections.abc import Callable, Iterable
 from pathlib import Path
 from typing import Any
@@ -17,8 +20,10 @@ from textual.binding import Binding
 from textual.screen import Screen
 
 from meas.errors import BenchwalkError
+from meas.verdict import EXIT_STOPPED
 
 from .bridge import Bridge
+from .commands.headless import resume_command
 from .keys import KEYS, QUIT
 from .screens.main import MainScreen
 from .screens.safety import SafetyScreen
@@ -57,10 +62,18 @@ class BenchwalkApp(App[int]):
         self.out_dir = out_dir
         self.bridge: Bridge | None = None
         self.exit_message = ""
+        self.verdict_line = ""
+        self.stop_signal = ""
 
     # ------------------------------------------------------------------ start-up
     def on_mount(self) -> None:
         self._restore_theme()
+        # SIGTERM and SIGHUP (a closed terminal) end the console as Ctrl+Q does: the stop is
+        # journalled and the resume command printed (Ctrl+C is a key inside the console)
+        with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
+            loop = asyncio.get_running_loop()
+            for sig in (signal.SIGTERM, signal.SIGHUP):
+                loop.add_signal_handler(sig, self._on_stop_signal, sig)
         if self.skip_intro:
             self.run_worker(self._open(StartChoice(self.operator, self.resume)), exclusive=True)
         else:
@@ -117,16 +130,38 @@ class BenchwalkApp(App[int]):
         return None
 
     # ------------------------------------------------------------------ quit keeps the session
+    def _on_stop_signal(self, sig: signal.Signals) -> None:
+        self.stop_signal = sig.name
+        self.run_worker(self.action_quit(), group="stop-signal")
+
+    def session_exit(self) -> tuple[int, str]:
+        """(exit code, verdict line) of the open session: the verdict's code once the sequence
+        is finished, ``EXIT_STOPPED`` (resumable) before that; (0, "") with no session."""
+        runner = getattr(self.bridge, "runner", None) if self.bridge is not None else None
+        if runner is None or not hasattr(runner, "verdict"):
+            return 0, ""
+        verdict = runner.verdict()
+        return (verdict.exit_code if runner.finished else EXIT_STOPPED), verdict.line
+
     async def action_quit(self) -> None:
         main = self.main_screen
         if main is not None:
             await main.stop_polling()
+        code, self.verdict_line = self.session_exit()
         if self.bridge is not None:
+            runner = getattr(self.bridge, "runner", None)
+            if runner is not None and not runner.done:
+                why = (
+                    f"interrupted by {self.stop_signal}"
+                    if self.stop_signal
+                    else "the console was closed"
+                )
+                runner.stop(why)  # journalled; resume continues here
             try:
                 await self.bridge.close()
             except BenchwalkError as exc:
                 self.exit_message = str(exc)
-        self.exit(0)
+        self.exit(code, return_code=code)  # run() returns it; run_console exits with it
 
     # ------------------------------------------------------------------ command palette
     def get_system_commands(self, screen: Screen) -> Iterable[SystemCommand]:
@@ -183,7 +218,13 @@ def run_console(
         raise BenchwalkError(app.exit_message)
     if app.bridge is not None:
         sid = app.bridge.session.session_id
-        print(f"Session {sid} saved; continue it with: benchwalk resume {sid}")
+        if app.verdict_line:
+            print(f"Session {sid}: {app.verdict_line}")
+        if code == EXIT_STOPPED:
+            print(
+                f"Session {sid} saved; continue it with: "
+                + resume_command(sid, sdir, headless=False)
+            )
         if app.bridge.exported:
             print(f"Dataset: {app.bridge.exported}")
             if app.bridge.report:

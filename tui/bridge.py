@@ -22,7 +22,7 @@ from meas.snapshot import Snapshot
 from meas.walk.runner import Runner
 
 from .frame import Frame, StepInfo
-from .keys import action_keys
+from .keys import action_keys, display_key, key_of
 
 
 def frame_from_view(
@@ -30,6 +30,7 @@ def frame_from_view(
     snapshot: Snapshot | None,
     events: tuple[str, ...] = (),
     hands: Sequence[tuple[str, str]] = (),
+    simulated: bool = False,
 ) -> Frame:
     """A console frame from a RunnerView (duck-typed, so tests can hand-build either).
 
@@ -40,7 +41,11 @@ def frame_from_view(
     action = getattr(view, "action", "none")
     # the keys go before the runner's own sentence so that a narrow terminal cuts the
     # sentence, never the key
-    keys = action_keys(action, getattr(view, "settle_timed_out", False))
+    keys = action_keys(
+        action,
+        getattr(view, "settle_timed_out", False),
+        pending=getattr(view, "pending_remote", None) is not None,
+    )
     next_action = (f"press {keys} \u2502 " if keys else "") + view.next_action
     hint = ""
     if hands and action != "request_remote":
@@ -59,6 +64,8 @@ def frame_from_view(
             overall="done" if state == "finished" else "inconsistent",
             next_action=next_action,
             finished=True,
+            verdict=getattr(view, "verdict", ""),
+            simulated=simulated,
         )
     else:
         policy = step.capture
@@ -87,6 +94,8 @@ def frame_from_view(
             flagged=tuple(view.mismatches) if hasattr(view, "mismatches") else None,
             to_operate=tuple(getattr(view, "to_operate", ())),
             hint=hint,
+            verdict=getattr(view, "verdict", ""),
+            simulated=simulated,
         )
         return Frame(snapshot, tuple(view.results), info, events, window)
     return Frame(snapshot, tuple(view.results), info, events)
@@ -118,6 +127,11 @@ class Bridge:
         self.transitions = 0  # step or state changes seen; tests wait on it
 
     @property
+    def simulated(self) -> bool:
+        """The session runs on the simulated bench (marked on the main screen)."""
+        return getattr(self.session, "bench", None) is not None
+
+    @property
     def runner(self) -> Runner:
         return self.session.runner
 
@@ -145,7 +159,9 @@ class Bridge:
             self.transitions += 1
         events, self._events = tuple(self._events), []
         hands = self.session.would_set_by_hand(view, str(getattr(view, "action", "none")))
-        return frame_from_view(view, self.last_snapshot, events, hands=hands)
+        return frame_from_view(
+            view, self.last_snapshot, events, hands=hands, simulated=self.simulated
+        )
 
     def _simulated_hands(self, command: str) -> None:
         """On the simulated bench, set by hand what ``command`` needs (``Session.set_by_hand``)."""
@@ -165,8 +181,23 @@ class Bridge:
         return ""
 
     def request_remote(self, switch_id: str, state: str) -> str:
-        self._simulated_hands("request_remote")
+        """The question to confirm; on the simulated bench, switches the step expects are set
+        by hand first and the request waits for their status (refused with a sentence)."""
+        set_now = self.session.set_by_hand(self.runner.view(), "request_remote")
+        if set_now:
+            names = ", ".join(f"{sid} {st}" for sid, st in set_now)
+            self.log(f"simulated bench: {names} set by hand")
+            raise BenchwalkError(
+                f"simulated bench: {names} set by hand first; press "
+                f"{display_key(key_of('request_remote'))} again once the status shows it"
+            )
         return self.runner.request_remote(switch_id, state)
+
+    def cancel_remote(self) -> None:
+        """The remote dialog was closed without sending: the request is withdrawn."""
+        cancel = getattr(self.runner, "cancel_remote", None)
+        if cancel is not None:
+            cancel()
 
     async def confirm_remote(self, switch_id: str, state: str) -> str:
         try:

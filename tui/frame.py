@@ -47,6 +47,8 @@ class StepInfo:
     flagged: tuple[str, ...] | None = None  # the runner's mismatches; None: every difference
     to_operate: tuple[str, ...] = ()  # switches this step operates (by hand or remotely)
     hint: str = ""  # a line for the step panel (e.g. what the simulated bench does for you)
+    verdict: str = ""  # the session verdict so far, one line (``meas.verdict``)
+    simulated: bool = False  # the readings come from the simulated bench
 
     @property
     def mismatches(self) -> list[str]:

@@ -9,8 +9,11 @@ from dataclasses import dataclass
 
 from textual.binding import Binding
 
-# the remote modal's two deliberate keys, in order: arm, then send (anything else disarms)
-ARM_KEY, SEND_KEY = "a", "y"
+# the remote modal's two deliberate keys, in order: arm (Prime), then send (Dispatch); neither
+# means anything on the main screen, so a habit there cannot send a command. Armed, the modal
+# disarms on any other key and after ARM_TIMEOUT_S seconds without the send key.
+ARM_KEY, SEND_KEY = "p", "d"
+ARM_TIMEOUT_S = 8.0
 
 
 @dataclass(frozen=True)
@@ -37,8 +40,8 @@ KEYS: tuple[Key, ...] = (
         "r",
         "remote",
         "Remote",
-        f"Operate this step's remote switch: a caution, then {ARM_KEY.upper()} and "
-        f"{SEND_KEY.upper()} to send.",
+        f"Operate this step's remote switch: a caution, then {ARM_KEY.upper()} to arm and "
+        f"{SEND_KEY.upper()} to send within {ARM_TIMEOUT_S:.0f} s.",
         "step",
         command="request_remote",
     ),
@@ -125,6 +128,8 @@ QUIT = "ctrl+q"  # the App's quit key (kept out of KEYS: it is not a screen acti
 
 # key action -> the runner command it gives (step keys only)
 COMMAND_OF: dict[str, str] = {k.action: k.command for k in KEYS if k.command}
+# key -> its action (to say why a step key that cannot act now does nothing)
+ACTION_OF_KEY: dict[str, str] = {k.key: k.action for k in KEYS}
 
 
 def bindings() -> list[Binding]:
@@ -145,12 +150,15 @@ def key_of(name: str) -> str:
     return next(k.key for k in KEYS if name in (k.command, k.action))
 
 
-def action_keys(action: str, settle_timed_out: bool = False) -> str:
-    """The keys to press for the runner's next action (``RunnerView.action``), as shown."""
+def action_keys(action: str, settle_timed_out: bool = False, pending: bool = False) -> str:
+    """The keys to press for the runner's next action (``RunnerView.action``), as shown;
+    ``pending``: a remote command awaits its dialog's arm and send keys."""
 
     def k(name: str) -> str:
         return display_key(key_of(name))
 
+    if action == "request_remote" and pending:
+        return f"{display_key(ARM_KEY)} arm, then {display_key(SEND_KEY)} send in the remote dialog"
     if action == "retake" and settle_timed_out:
         return f"{k('capture')} capture anyway, {k('retake')} wait again, {k('skip')} skip"
     return {

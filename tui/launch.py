@@ -13,17 +13,23 @@ from pathlib import Path
 from meas.errors import BenchwalkError
 from meas.journal.sessions import default_sessions_dir
 from meas.profile import load_profile
-from meas.session import Session
+from meas.session import Session, session_state
 
 
 def list_sessions(sessions_dir: Path | None = None, limit: int = 12) -> list[tuple[str, str]]:
-    """Journals in the sessions folder, newest first: (session id, last-written time)."""
+    """Journals in the sessions folder, newest first: (session id, its state and
+    last-written time), the state from ``meas.session.session_state`` (finished with its
+    verdict, or the step it stopped at)."""
     folder = sessions_dir or default_sessions_dir()
     if not folder.is_dir():
         return []
     files = sorted(folder.glob("*.sqlite"), key=lambda p: p.stat().st_mtime, reverse=True)[:limit]
     return [
-        (p.stem, f"last written {datetime.fromtimestamp(p.stat().st_mtime):%Y-%m-%d %H:%M}")
+        (
+            p.stem,
+            f"{session_state(p)}, last written "
+            f"{datetime.fromtimestamp(p.stat().st_mtime):%Y-%m-%d %H:%M}",
+        )
         for p in files
     ]
 

@@ -50,12 +50,13 @@ def eng(value: float, unit: str, width: int = 9) -> str:
     if value is None or not math.isfinite(value):
         return "--".rjust(width)
     if unit in ("", "pu", "Hz", "deg"):
-        text = f"{value:.3f}" if unit != "deg" else f"{value:.1f}"
+        digits = 1 if unit == "deg" else 3
+        text = f"{round(value, digits) + 0.0:.{digits}f}"  # + 0.0: never a signed zero
         return (f"{text} {unit}".rstrip()).rjust(width)
     mag = abs(value)
+    if mag < 0.9995e-3:  # below the smallest prefix shown: a plain zero, no sign, no prefix
+        return f"0 {unit}".rjust(width)
     factor, prefix = next(((f, p) for f, p in _PREFIXES if mag >= f * 0.9995), _PREFIXES[-1])
-    if mag == 0:
-        factor, prefix = 1.0, ""
     scaled = value / factor
     digits = 2 if abs(scaled) < 9.995 else 1 if abs(scaled) < 99.95 else 0
     return f"{scaled:.{digits}f} {prefix}{unit}".rjust(width)

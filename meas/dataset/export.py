@@ -29,6 +29,7 @@ from ..journal.read import JournalView
 from ..journal.sessions import resolve_session
 from ..journal.store import Journal
 from ..progress import Progress
+from ..verdict import records_from_log, session_verdict
 from .files import fsync_dir, fsync_file, sha256_of, slug
 from .grid_tables import NETWORK_FILE, write_network
 from .schema import (
@@ -230,6 +231,12 @@ def _safe_rel(name: str) -> str:
     return "/".join(parts) or "companion.toml"
 
 
+def _verdict(journal: Journal) -> dict[str, Any]:
+    """The session verdict (``meas.verdict``), the same as the console and summary showed."""
+    ids = [s["id"] for s in journal.profile_dict.get("steps", [])]
+    return session_verdict(records_from_log(ids, journal.step_history())).as_dict()
+
+
 def _datapackage(
     journal: Journal, folder: Path, counts: dict[str, int], profile_entries: list[dict]
 ) -> dict[str, Any]:
@@ -280,6 +287,8 @@ def _datapackage(
             "profile_files": profile_entries,
             "network": NETWORK_FILE if (folder / NETWORK_FILE).is_file() else None,
             "meta": journal.meta,
+            "simulated": bool(journal.meta.get("simulated")),
+            "verdict": _verdict(journal),
             "sign_convention": "positive P and Q = power flowing from the meter's bus into its branch",
             "values": "primary, bench-side SI units; value_network and value_pu derived from the profile",
         },

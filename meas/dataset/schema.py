@@ -189,7 +189,11 @@ TABLES: dict[str, TableSpec] = {
                 "string",
                 "last state reached: accepted, skipped, reviewing, ...; empty if never started",
             ),
-            _c("outcome", "string", "last outcome: pass, warn, fail, signed, noted, ..."),
+            _c(
+                "outcome",
+                "string",
+                "how the step ended: passed, accepted_with_failures, skipped or not_captured",
+            ),
             _c("operator", "string", "who took the last decision"),
             _c("reason", "string", "reason given (skip, accept with failing checks)"),
             _c("started_utc", "datetime", "first transition"),

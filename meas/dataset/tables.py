@@ -20,6 +20,7 @@ from ..bases import bases_of_json, network_factor, per_unit_base
 from ..journal.read import JournalView, StepTransition
 from ..journal.schema import QUALITY_CODES
 from ..quantities import QUANTITIES, split_key
+from ..verdict import outcome_from_log
 from .derived import (
     Uncertainty,
     model_rows,
@@ -268,7 +269,11 @@ def _steps_rows(prof: Json, history: list[StepTransition]) -> list[Row]:
         mine = [h for h in history if h["step"] == s["id"]]
         last = mine[-1] if mine else None
         settle = next((h["settle_s"] for h in mine if h["settle_s"] is not None), None)
-        outcome = next((h["outcome"] for h in reversed(mine) if h["outcome"]), None)
+        # the step outcome vocabulary of meas.verdict: never "pass" for a skipped step
+        outcome = outcome_from_log(
+            last["state"] if last else None,
+            next((h["outcome"] for h in reversed(mine) if h["outcome"]), None),
+        )
         reason = next((h["reason"] for h in reversed(mine) if h["reason"]), None)
         rows.append(
             {

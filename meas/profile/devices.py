@@ -23,6 +23,7 @@ from ..model import (
     TcpTransport,
     Transport,
 )
+from .cover import due_date
 from .maps import MAX_ADDRESS
 from .tables import (
     Doc,
@@ -255,6 +256,8 @@ def read_meters(
             vt_ratio=vt_ratio,
             ct_primary_a=t.get("ct_primary_a", "number", None, check=positive),
             classes=_classes(t),
+            serial=t.get("serial", "str", ""),
+            calibration_due=due_date(t, "calibration_due"),
         )
         if transport is not None:
             other = endpoints.setdefault((transport.endpoint, unit_id), ident)

@@ -16,6 +16,7 @@ from typing import Any
 
 from ..errors import Problem, ProfileError
 from ..model import Profile, SourceFile
+from .cover import read_cover
 from .devices import read_meters, read_plcs, read_switches
 from .maps import read_maps
 from .network import read_branches, read_buses
@@ -165,6 +166,7 @@ _TOP = (  # the top-level keys the loader reads; any other is reported as unknow
     "switch",
     "meter",
     "step",
+    "report",
 )
 
 
@@ -211,6 +213,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
     plcs = read_plcs(doc, root)
     switches = read_switches(doc, root, branches, plcs)
     meters = read_meters(doc, root, maps, buses, branches, partial)
+    cover = read_cover(root)
     step_tables = array_of_tables(doc, root, "step")
     seq = root.table("sequence")
     if seq is not None:
@@ -264,6 +267,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
         steps=tuple(steps),
         sim=dict(sim),
         sources=tuple(sources),
+        cover=cover,
     )
     return profile, []
 

@@ -12,8 +12,12 @@ from .rows import balance_rows
 from .text import fmt, plain
 
 
-def balance_svg(rows: pd.DataFrame, width: int = 640) -> str:
-    """Horizontal bars of |residual| / limit per bus check; the limit is the line at 1."""
+def balance_svg(
+    rows: pd.DataFrame,
+    width: int = 640,
+    title: str = "bus balance residuals against their limits",
+) -> str:
+    """Horizontal bars of |value| / limit per check and subject; the limit is the line at 1."""
     if rows.empty:
         return ""
     bar_h, gap, left, right, top = 18, 8, 210, 60, 24
@@ -25,7 +29,7 @@ def balance_svg(rows: pd.DataFrame, width: int = 640) -> str:
     parts = [
         f'<svg xmlns="http://www.w3.org/2000/svg" role="img" width="{width}" height="{height}" '
         f'viewBox="0 0 {width} {height}" class="chart">',
-        "<title>bus balance residuals against their limits</title>",
+        f"<title>{html.escape(title)}</title>",
     ]
     for tick in np.linspace(0, vmax, 4):
         parts.append(

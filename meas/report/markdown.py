@@ -5,8 +5,20 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from ..cautions import REPORT_CAUTION as CAUTION
-from .rows import KEY_READINGS, ReportData, balance_rows, issue_rows, meter_rows, step_rows
-from .text import fmt, plain
+from .html import _time
+from .names import check_name
+from .rows import (
+    KEY_READINGS,
+    PHASE_ROWS,
+    ReportData,
+    balance_rows,
+    issue_rows,
+    meter_rows,
+    outcome_word,
+    phase_values,
+    step_rows,
+)
+from .text import fmt, fmt_res, plain
 
 
 def _md_table(headers: list[str], rows: Sequence[Sequence[object]]) -> str:
@@ -18,7 +30,14 @@ def _md_table(headers: list[str], rows: Sequence[Sequence[object]]) -> str:
 
 def render_markdown(rd: ReportData) -> str:
     ds, meta = rd.ds, rd.ds.meta
+    sim = (
+        " SIMULATED BENCH: these readings come from the simulator, not from plant."
+        if rd.simulated
+        else ""
+    )
     out = [
+        f"**Verdict: {rd.verdict.line}**{sim}",
+        "",
         f"# Commissioning report: {meta['bench']}",
         "",
         f"> **Caution.** {CAUTION}",
@@ -52,22 +71,29 @@ def render_markdown(rd: ReportData) -> str:
         "## Sequence",
         "",
         _md_table(
-            ["#", "step", "title", "state", "outcome", "operator", "reason"],
+            ["#", "step", "title", "outcome", "operator", "started (UTC)", "ended (UTC)", "reason"],
             [
                 [
                     s.step_number,
                     s.id,
                     s.title,
-                    s.state or "not reached",
-                    s.outcome,
+                    outcome_word(s),
                     s.operator,
-                    s.reason,
+                    _time(s.started_utc),
+                    _time(s.ended_utc),
+                    " ".join(
+                        [plain(s.reason)]
+                        + [
+                            f"note ({plain(n.operator)}): {plain(n.message)}"
+                            for n in rd.notes[rd.notes["step"] == s.id].itertuples(index=False)
+                        ]
+                    ).strip(),
                 ]
                 for s in step_rows(ds["steps"])
             ],
         ),
         "",
-        "## Failed and waived checks",
+        "## Findings",
         "",
     ]
     if rd.issues.empty:
@@ -75,15 +101,27 @@ def render_markdown(rd: ReportData) -> str:
     else:
         out.append(
             _md_table(
-                ["step", "check", "subject", "", "finding", "value / limit", "snapshots"],
+                [
+                    "step",
+                    "check",
+                    "subject",
+                    "cause",
+                    "status",
+                    "finding",
+                    "value",
+                    "limit",
+                    "snapshots",
+                ],
                 [
                     [
                         r.step,
-                        r.check,
+                        f"{check_name(r.check)} ({r.check})",
                         r.subject,
+                        plain(r.cause) or "-",
                         ("waived: " + r.reason) if r.waived else "failed",
                         r.message,
-                        f"{fmt(r.value)} / {fmt(r.limit)} {plain(r.unit)}",
+                        f"{fmt_res(r.value, plain(r.unit))} {plain(r.unit)}".strip(),
+                        f"{fmt_res(r.limit, plain(r.unit))} {plain(r.unit)}".strip(),
                         r.count,
                     ]
                     for r in issue_rows(rd.issues)
@@ -108,8 +146,23 @@ def render_markdown(rd: ReportData) -> str:
                 _md_table(
                     ["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS],
                     [
-                        [r["meter"]] + [fmt(r[t]) for t, _, _ in KEY_READINGS]
+                        [r["meter"]] + [fmt_res(r[t], u) for t, u, _ in KEY_READINGS]
                         for _, r in sub.iterrows()
+                    ],
+                )
+            )
+            out.append("")
+        ph = rd.phases[rd.phases["step"] == s.id]
+        if not ph.empty:
+            val = phase_values(rd.phases, s.id)
+            out.append(
+                _md_table(
+                    ["meter", "quantity", "phase A", "phase B", "phase C"],
+                    [
+                        [meter, f"{title} [{unit}]"]
+                        + [fmt_res(val.get((meter, f"{q}.{p}")), unit) for p in "ABC"]
+                        for meter in dict.fromkeys(ph["meter"])
+                        for title, q, unit in PHASE_ROWS
                     ],
                 )
             )

@@ -14,7 +14,23 @@ from typing import Protocol, cast
 import pandas as pd
 
 from ..dataset.read import Dataset, load_dataset, read_table
+from ..dataset.schema import MAIN_PROFILE, PROFILE_DIR
+from ..errors import BenchwalkError
+from ..model import Profile
+from ..profile import load_profile
+from ..verdict import (
+    OUTCOME_WORDS,
+    VERDICT_WORDS,
+    StepRecord,
+    Verdict,
+    outcome_from_log,
+    session_verdict,
+)
 from .text import plain
+
+# per-phase readings shown per meter and step: (row title, quantity, unit)
+PHASE_ROWS = [("V L-N", "v_ln", "V"), ("I", "i", "A"), ("P", "p", "W"), ("Q", "q", "var")]
+PHASE_QUANTITIES = {q for _, q, _ in PHASE_ROWS}
 
 # quantity keys summarized per meter and step: (column title, unit, keys averaged per snapshot)
 KEY_READINGS = [
@@ -27,12 +43,49 @@ KEY_READINGS = [
 
 @dataclass(frozen=True)
 class ReportData:
-    """What both renderings show: the dataset and three summaries computed once from it."""
+    """What both renderings show: the dataset and the summaries computed once from it."""
 
     ds: Dataset
     readings: pd.DataFrame  # step, meter, title -> median
     issues: pd.DataFrame  # failed/waived checks, one row per distinct sentence
     balance: pd.DataFrame  # step, check, subject, value, limit, residual (medians over captures)
+    verdict: Verdict  # the session verdict, as the console and the summary showed it
+    notes: pd.DataFrame  # step, time_utc, operator, message: notes made during the walk
+    simulated: bool  # the readings came from the simulated bench
+    phases: pd.DataFrame  # step, meter, key ("i.B") -> median over the captures
+    profile: Profile | None  # the profile as the dataset keeps it (cover facts, serials)
+
+
+def report_verdict(ds: Dataset) -> Verdict:
+    """The verdict the dataset records; recomputed from the step outcomes for older datasets."""
+    v = ds.meta.get("verdict")
+    if isinstance(v, dict) and v.get("verdict") in VERDICT_WORDS:
+        return Verdict(
+            v["verdict"],
+            str(v.get("detail", "")),
+            int(v.get("exit_code", 0)),
+            tuple(v.get("unverified", ())),
+            bool(v.get("stopped", False)),
+        )
+    steps = ds["steps"]
+    records = [
+        StepRecord(
+            str(r.id),
+            outcome_from_log(plain(r.state) or None, plain(r.outcome) or None),
+            plain(r.reason),
+        )
+        for r in step_rows(steps)
+    ]
+    return session_verdict(records)
+
+
+def outcome_word(s: StepRow) -> str:
+    """A step's outcome in words (``meas.verdict``): never "pass" for a skipped step."""
+    return OUTCOME_WORDS[outcome_from_log(plain(s.state) or None, plain(s.outcome) or None)]
+
+
+def is_simulated(ds: Dataset) -> bool:
+    return bool(ds.meta.get("simulated") or (ds.meta.get("meta") or {}).get("simulated"))
 
 
 # The rows the report reads from the dataset tables (``DataFrame.itertuples``), as the dataset
@@ -65,6 +118,8 @@ class StepRow(Protocol):
     operator: str | None
     settle_s: float
     reason: str | None
+    started_utc: object
+    ended_utc: object
 
 
 class IssueRow(Protocol):
@@ -73,6 +128,7 @@ class IssueRow(Protocol):
     step: str | None
     check: str
     subject: str
+    cause: str | None
     message: str | None
     count: int
     value: float
@@ -117,16 +173,11 @@ def gather(dataset_dir: Path) -> ReportData:
         dataset_dir,
         tables=["snapshots", "steps", "checks", "meters", "topology", "events", "step_log"],
     )
-    keys = sorted({k for _, _, ks in KEY_READINGS for k in ks})
-    quantity_phase = [tuple(k.split(".")) for k in keys]
     m = read_table(
         ds.path,
         "measurements",
         columns=["step", "snapshot", "meter", "quantity", "phase", "value", "quality"],
-        filters=[
-            ("role", "=", "capture"),
-            ("quantity", "in", sorted({q for q, _ in quantity_phase})),
-        ],
+        filters=[("role", "=", "capture"), ("quantity", "in", sorted(PHASE_QUANTITIES))],
     )
     m = m[m["quality"] == "ok"]
     m = m.assign(key=m["quantity"] + "." + m["phase"])
@@ -137,15 +188,23 @@ def gather(dataset_dir: Path) -> ReportData:
         med = per_snap.groupby(level=["step", "meter"], sort=False).median().rename(title)
         frames.append(med)
     readings = pd.concat(frames, axis=1).reset_index() if frames else pd.DataFrame()
+    phases = (
+        m.groupby(["step", "meter", "key"], sort=False)["value"].median().reset_index()
+        if not m.empty
+        else pd.DataFrame(columns=["step", "meter", "key", "value"])
+    )
 
     # the dataset's SQL-safe column names, under the report's short ones
     checks = ds["checks"].rename(columns={"check_id": "check", "limit_value": "limit"})
     steps = ds["steps"].set_index("id")
     capture_snaps = set(ds["snapshots"].loc[ds["snapshots"]["role"] == "capture", "snapshot"])
-    bad = checks[checks["status"] == "fail"]
+    bad = checks[checks["status"] == "fail"].assign(cause=lambda d: d["cause"].fillna(""))
+    # one finding per step, check, subject and cause (a message carries its numbers, so
+    # grouping by message gave one row per differing number); the commonest sentence stands
     issues = (
-        bad.groupby(["step", "check", "subject", "message"], dropna=False, sort=False)
+        bad.groupby(["step", "check", "subject", "cause"], dropna=False, sort=False)
         .agg(
+            message=("message", lambda m: m.mode().iloc[0] if m.notna().any() else ""),
             count=("snapshot", "size"),
             value=("value", "median"),
             limit=("limit", "median"),
@@ -158,7 +217,12 @@ def gather(dataset_dir: Path) -> ReportData:
         row = steps.loc[st] if st in steps.index else None
         # the runner accepts a failing step only on a gate="allow" step, with a reason: a waiver
         accepted = (
-            row is not None and row["state"] == "accepted" and row["outcome"] in ("fail", "warn")
+            row is not None
+            and row["state"] == "accepted"
+            and (
+                outcome_from_log("accepted", plain(row["outcome"]) or None)
+                == "accepted_with_failures"
+            )
         )
         waived.append(bool(accepted))
         reasons.append(plain(row["reason"]) if row is not None else "")
@@ -188,4 +252,39 @@ def gather(dataset_dir: Path) -> ReportData:
         .reset_index()
     )
     balance["residual"] = balance["value"] / balance["limit"]
-    return ReportData(ds, readings, issues, balance)
+    ev = ds["events"]
+    notes = ev.loc[ev["kind"] == "note", ["step", "time_utc", "operator", "message"]].reset_index(
+        drop=True
+    )
+    return ReportData(
+        ds,
+        readings,
+        issues,
+        balance,
+        report_verdict(ds),
+        notes,
+        is_simulated(ds),
+        phases,
+        kept_profile(ds),
+    )
+
+
+def phase_values(phases: pd.DataFrame, step_id: str) -> dict[tuple[str, str], float]:
+    """(meter, key) -> median of one step's per-phase readings."""
+    sub = phases[phases["step"] == step_id]
+    return {
+        (str(m), str(k)): float(v)
+        for m, k, v in zip(
+            sub["meter"].tolist(), sub["key"].tolist(), sub["value"].tolist(), strict=True
+        )
+    }
+
+
+def kept_profile(ds: Dataset) -> Profile | None:
+    """The profile as the dataset keeps it (its ``profile/`` folder), for the cover facts;
+    None when it no longer loads (an older dataset): the report then shows none of them."""
+    main = ds.path / PROFILE_DIR / MAIN_PROFILE
+    try:
+        return load_profile(main) if main.is_file() else None
+    except BenchwalkError:
+        return None

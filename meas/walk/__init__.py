@@ -22,17 +22,19 @@ Public API (console and headless mode; ``meas.session.Session`` builds one for y
     runner.confirm_operation()               # manual step: "I have operated it"
     runner.request_remote(switch_id, state) -> str   # 1st deliberate step: returns the question
     await runner.confirm_remote(switch_id, state, operator)  # 2nd step: sends the command
+    runner.cancel_remote()                   # the request withdrawn (dialog closed), nothing sent
     runner.capture()                         # start a capture step / capture after settle timeout
     runner.retake()                          # reviewing (or settle timed out) -> settling again
     runner.skip(reason)                      # skip the current step, reason required
     runner.accept(reason=None)               # reviewing -> accepted (reason if checks failed, gate allow)
-    runner.sign(name)                        # hold step: named sign-off
+    runner.sign(name, acknowledge=False)     # hold step: named sign-off (acknowledge steps in
+                                             # its scope that did not pass: view.hold_issues)
     runner.note(text)                        # note step: completes it; any other time: journal note
     runner.stop(reason)                      # end the session here; resumable at this step
 
     runner.done / runner.finished / runner.stopped   # sequence over / completed / stopped early
     runner.outcomes -> dict[step_id, StepOutcome]     # per step: outcome, worst status, failures
-    runner.verdict() -> Status                        # FAIL if any step ended with failing checks
+    runner.verdict(unverified=()) -> Verdict          # the session verdict (meas.verdict)
 
 Import paths: ``Runner`` from ``meas.walk.runner``, ``RunnerView`` from ``meas.walk.view``,
 ``State``, ``StepOutcome``, ``ACTIONS`` and ``COMMANDS`` from ``meas.walk.states``,

@@ -3,9 +3,9 @@
 Between captures the runner still checks every snapshot for the screen. After any switching
 seen in the switch status the readings move for a while, and a noise or frozen check over
 that history would read the transient as a fault. So a switch seen in a new (known) state
-starts a settle detector with the same criterion as a capture; until it is steady those
-checks say "not judged while the readings settle", and afterwards they read only history
-from the start of the steady stretch.
+starts a settle detector with the same criterion as a capture (so does the first snapshot
+of a session); until it is steady those checks say "not judged while the readings settle",
+and afterwards they read only history from the start of the steady stretch.
 """
 
 from __future__ import annotations
@@ -37,6 +37,7 @@ class LiveWatch:
         self._profile = profile
         self._settle_factory = settle_factory
         self._known: dict[str, str] = {}
+        self._started = False
         self._settle: Settle | None = None
         self.steady_t0 = float("-inf")  # history before this is not read by live checks
 
@@ -47,7 +48,10 @@ class LiveWatch:
 
     def follow(self, snapshot: Snapshot, step: Step | None) -> None:
         """Restart the watch when a switch is seen in a new (known) state, then feed it."""
-        changed = False
+        # the first snapshot: nothing is known of how steady the readings are (the bench
+        # was just connected, or switched just before): settle first, as after switching
+        changed = not self._started
+        self._started = True
         for sid, st in snapshot.switches.items():
             if st == "unknown":
                 continue  # an unread status proves no operation

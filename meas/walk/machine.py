@@ -8,17 +8,21 @@ Whoever owns the poll loop feeds it every snapshot (``tick``); the technician's 
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 
 from ..errors import BenchwalkError
 from ..model import Profile, Step, SwitchState
-from ..results import CheckResult, Status, overall
+from ..results import CheckResult, overall
 from ..snapshot import Snapshot
+from ..verdict import StepRecord, Verdict, session_verdict
+from . import remote
 from .capture import CaptureBook
+from .holds import hold_issues, hold_scope
 from .live import LiveWatch
 from .ports import CheckFn, JournalSink, Settle, SettleFactory, SwitchOperator
 from .remote import RemoteOps
 from .sequence import configurations
+from .standdown import review_quality
 from .states import State, StepOutcome
 from .status import mismatch_text, mismatches, unread
 from .view import RunnerView, view_of
@@ -42,6 +46,7 @@ class StepMachine:
         history: int = 64,
         on_saved: Callable[[int, str, str], None] | None = None,
         prior_outcomes: dict[str, StepOutcome] | None = None,
+        resumed: bool = False,
     ) -> None:
         if not profile.steps:
             raise BenchwalkError(
@@ -64,6 +69,8 @@ class StepMachine:
         self.last: Snapshot | None = None
         self._last_live_t = float("-inf")
         self.index = start_index
+        # a resumed session's first step: a remote command may have been sent before the stop
+        self._resumed_step: int | None = start_index if resumed else None
         self.state = State.WAITING
         self.message = ""
         self._reset_step()
@@ -94,9 +101,26 @@ class StepMachine:
         """Steps left without acceptance: the record is incomplete even when nothing failed."""
         return [o.step_id for o in self.outcomes.values() if o.outcome == "skipped"]
 
-    def verdict(self) -> Status:
-        """FAIL when any step ended with failing checks (accepted under gate allow, or skipped)."""
-        return overall([CheckResult("step", o.step_id, o.status) for o in self.outcomes.values()])
+    def hold_scope(self) -> tuple[str, ...]:
+        """The steps the current hold point covers (``meas.walk.holds``)."""
+        return hold_scope(self.profile, self.index)
+
+    def hold_issues(self) -> tuple[str, ...]:
+        """Steps in the hold point's scope that did not pass, one line each (to acknowledge)."""
+        return hold_issues(self.profile, self.index, self.outcomes)
+
+    def records(self) -> list[StepRecord]:
+        """Every step's record in sequence order; a step without an outcome is not captured."""
+        return [
+            self.outcomes[s.id].record()
+            if s.id in self.outcomes
+            else StepRecord(s.id, "not_captured")
+            for s in self.profile.steps
+        ]
+
+    def verdict(self, unverified: Sequence[str] = ()) -> Verdict:
+        """The session verdict (``meas.verdict.session_verdict``) of the steps so far."""
+        return session_verdict(self.records(), unverified, stopped=self.stopped)
 
     def expected(self) -> dict[str, SwitchState]:
         """The switch states the current step must find (its full configuration)."""
@@ -119,6 +143,7 @@ class StepMachine:
         self._verify_deadline: float | None = None
         self._unread_since: float | None = None  # first snapshot whose switch status was unread
         self._settle_t0: float | None = None
+        self._step_t0 = float("-inf")  # when the step's operation was confirmed
         self.book.reset()
         self.remote = RemoteOps()
 
@@ -186,6 +211,9 @@ class StepMachine:
         if self.live_checks:
             self.live_results = self._results_for(snapshot)
         st = self.state
+        if st is State.WAITING and self._resumed_step == self.index:
+            self._resume_remote(snapshot)
+            st = self.state
         if st in (State.OPERATING, State.VERIFYING, State.SETTLING):
             self._record(snapshot, "settling")
         if st is State.VERIFYING:
@@ -199,6 +227,26 @@ class StepMachine:
         ):
             self._last_live_t = snapshot.t_mono
             self._record(snapshot, "live")
+
+    def _begin_verify(self) -> None:
+        self._step_t0 = self._now()  # the step's own snapshots start here (see the review)
+        self.message = ""
+        self._verify_deadline = None
+        self.state = State.VERIFYING
+
+    def _resume_remote(self, snapshot: Snapshot) -> None:
+        """On the step a session resumed at, a remote switch already reading its target (the
+        command went out before the stop) is not commanded again: the step verifies."""
+        step = self.step
+        if step is None or self.remote.pending is not None:
+            return
+        for sid, want in remote.already_done(step, self.remote, snapshot.switches):
+            self.remote.done.add(sid)
+            msg = f"{sid} already reads {want} after the resume: no command sent"
+            self._journal("remote_already_done", msg, switch=sid, state=want)
+            if not self.remote.todo(step):
+                self._resumed_step = None
+                self._begin_verify()
 
     def _results_for(self, snapshot: Snapshot) -> list[CheckResult]:
         capturing = self.state is State.CAPTURING
@@ -277,7 +325,8 @@ class StepMachine:
         if step.capture is None:
             self.book.review = []
             self.state = State.REVIEWING
-            self.journal.record_step(step.id, "reviewing", operator=self.operator, outcome="pass")
+            # no capture, no checks: nothing to call a pass
+            self.journal.record_step(step.id, "reviewing", operator=self.operator)
             return
         self.settle = self._settle_factory(step.capture)
         self._settle_t0 = None
@@ -337,6 +386,7 @@ class StepMachine:
         )
         self.book.take(row, results, snapshot.t_mono)
         if self.book.complete(policy):
+            self._review_quality(snapshot)
             status = overall(self.book.review)
             self.state = State.REVIEWING
             self.journal.record_step(
@@ -347,6 +397,22 @@ class StepMachine:
                 actual_switches=self.actual(),
                 expected_switches=self.expected(),
             )
+
+    def _review_quality(self, snapshot: Snapshot) -> None:
+        """The quality finding carried into the review, checks on a doubtful meter stood
+        down (``meas.walk.standdown.review_quality``), and the doubt journalled."""
+        mine = [h for h in self.book.history if h.t_mono >= self._step_t0][:-1]
+        review, doubtful = review_quality(
+            self.profile, self._checks, snapshot, mine, self.book.review
+        )
+        if doubtful:
+            self._journal(
+                "readings_in_doubt",
+                "; ".join(sorted(doubtful.values()))
+                + ": the checks that read them stand down in the review",
+                meters=doubtful,
+            )
+        self.book.review = review
 
     def _config_changed(self) -> None:
         step = self.step

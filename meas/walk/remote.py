@@ -32,6 +32,11 @@ class RemoteOps:
         return [(s, v) for s, v in step.operate.items() if s not in self.done]
 
 
+def already_done(step: Step, ops: RemoteOps, switches: Mapping[str, str]) -> list[tuple[str, str]]:
+    """The remote operations of ``step`` still to do whose switch already reads its target."""
+    return [(s, v) for s, v in ops.todo(step) if switches.get(s) == v]
+
+
 def check_request(
     profile: Profile,
     control: SwitchOperator | None,

@@ -10,6 +10,7 @@ from __future__ import annotations
 from ..errors import BenchwalkError
 from ..model import Step
 from ..results import Status, overall
+from ..verdict import OutcomeKind
 from . import remote
 from .machine import StepMachine
 from .states import State, StepOutcome
@@ -30,11 +31,6 @@ class Runner(StepMachine):
         )
         self._begin_verify()
 
-    def _begin_verify(self) -> None:
-        self.message = ""
-        self._verify_deadline = None
-        self.state = State.VERIFYING
-
     def request_remote(self, switch_id: str, state: str) -> str:
         """First of two deliberate steps; returns the question to put to the technician."""
         step = self._require(State.WAITING, what="request a remote operation")
@@ -53,6 +49,14 @@ class Runner(StepMachine):
             "remote_requested", f"{switch_id} -> {state} requested", switch=switch_id, state=state
         )
         return remote.question(sw, state)
+
+    def cancel_remote(self) -> None:
+        """Withdraw a requested remote command (its dialog closed): nothing was sent."""
+        if self.remote.pending is None:
+            return
+        sid, state = self.remote.pending
+        self.remote.pending = None
+        self._journal("remote_cancelled", f"{sid} -> {state} cancelled: nothing sent")
 
     async def confirm_remote(self, switch_id: str, state: str, operator: str) -> None:
         """Second deliberate step: send the command, then verify status on the next snapshots."""
@@ -147,7 +151,7 @@ class Runner(StepMachine):
             raise BenchwalkError("give a reason to skip this step")
         status = overall(self.book.review)
         self.journal.record_step(
-            step.id, "skipped", outcome=status.value, operator=self.operator, reason=reason.strip()
+            step.id, "skipped", outcome="skipped", operator=self.operator, reason=reason.strip()
         )
         self._conclude(step, "skipped", status, reason.strip())
 
@@ -163,38 +167,55 @@ class Runner(StepMachine):
                 )
             if not reason or not reason.strip():
                 raise BenchwalkError("checks failed: give a reason to accept this step anyway")
+        kind: OutcomeKind = "accepted_with_failures" if status is Status.FAIL else "passed"
         self.journal.record_step(
             step.id,
             "accepted",
-            outcome=status.value,
+            outcome=kind,
             operator=self.operator,
             reason=(reason or "").strip() or None,
             actual_switches=self.actual(),
             expected_switches=self.expected(),
         )
-        self._conclude(step, "accepted", status, (reason or "").strip())
+        self._conclude(step, kind, status, (reason or "").strip())
 
-    def _conclude(self, step: Step, outcome: str, status: Status, reason: str) -> None:
+    def _conclude(self, step: Step, outcome: OutcomeKind, status: Status, reason: str) -> None:
         failures = tuple(r for r in self.book.review if r.status is Status.FAIL)
         self.outcomes[step.id] = StepOutcome(step.id, outcome, status, failures, reason)
-        self.state = State.ACCEPTED if outcome == "accepted" else State.SKIPPED
+        self.state = State.SKIPPED if outcome == "skipped" else State.ACCEPTED
         self._advance()
 
-    def sign(self, name: str) -> None:
-        """Named sign-off of a hold point."""
+    def sign(self, name: str, acknowledge: bool = False) -> None:
+        """Named sign-off of a hold point.
+
+        A hold point covers the steps since the previous one (``hold_scope``); when any of
+        them was skipped, accepted with failures or not captured (``hold_issues``) the signer
+        must acknowledge them (``acknowledge=True``), and the acknowledgement is journalled.
+        """
         step = self._require(State.WAITING, what="sign")
         if step.kind != "hold":
             raise BenchwalkError(f"step {step.id} is not a hold point")
         if not name or not name.strip():
             raise BenchwalkError("a hold point needs the name of the person signing it off")
-        self.journal.record_step(
-            step.id,
-            "accepted",
-            outcome="signed",
-            operator=name.strip(),
-            reason=f"signed off by {name.strip()}",
-        )
-        self._conclude(step, "accepted", Status.PASS, f"signed off by {name.strip()}")
+        who = name.strip()
+        issues = self.hold_issues()
+        reason = f"signed off by {who}"
+        if issues:
+            if not acknowledge:
+                raise BenchwalkError(
+                    f"hold point {step.id} covers steps that did not pass ({'; '.join(issues)}): "
+                    "acknowledge them to sign"
+                )
+            self.journal.record_event(
+                "hold_acknowledged",
+                f"{who} signs {step.id} acknowledging: {'; '.join(issues)}",
+                step_id=step.id,
+                operator=who,
+                data={"scope": list(self.hold_scope()), "issues": list(issues)},
+            )
+            reason += f", acknowledging {len(issues)} step(s) that did not pass"
+        self.journal.record_step(step.id, "accepted", outcome="passed", operator=who, reason=reason)
+        self._conclude(step, "passed", Status.PASS, reason)
 
     def note(self, text: str) -> None:
         """Completes a note step; at any other time adds a note to the journal."""
@@ -204,9 +225,9 @@ class Runner(StepMachine):
         self._journal("note", text.strip())
         if step is not None and step.kind == "note" and self.state is State.WAITING:
             self.journal.record_step(
-                step.id, "accepted", outcome="noted", operator=self.operator, reason=text.strip()
+                step.id, "accepted", outcome="passed", operator=self.operator, reason=text.strip()
             )
-            self._conclude(step, "accepted", Status.PASS, text.strip())
+            self._conclude(step, "passed", Status.PASS, text.strip())
 
     def stop(self, reason: str) -> None:
         """End the session at this step; ``Session.resume`` continues here."""

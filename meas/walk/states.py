@@ -6,6 +6,7 @@ from dataclasses import dataclass
 from enum import StrEnum
 
 from ..results import CheckResult, Status
+from ..verdict import OutcomeKind, StepRecord
 
 
 class State(StrEnum):
@@ -53,8 +54,14 @@ COMMANDS = (
 
 @dataclass(frozen=True)
 class StepOutcome:
+    """How a step ended (``meas.verdict`` owns the vocabulary and the session verdict)."""
+
     step_id: str
-    outcome: str  # "accepted" | "skipped"
-    status: Status  # worst check status of the final capture (PASS when none)
+    outcome: OutcomeKind  # passed | accepted_with_failures | skipped (not_captured: no entry)
+    status: Status  # worst check status of the final review (PASS when none)
     failures: tuple[CheckResult, ...] = ()
     reason: str = ""
+
+    def record(self) -> StepRecord:
+        failed = len(self.failures) or (1 if self.status is Status.FAIL else 0)
+        return StepRecord(self.step_id, self.outcome, self.reason, failed)

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 from ..checks import sort_results
 from ..model import Step, SwitchState
 from ..results import CheckResult, Status, overall
+from .standdown import doubtful_meters, hold_while_settling, stand_down
 from .states import State
 
 if TYPE_CHECKING:
@@ -50,17 +51,27 @@ class RunnerView:
         str, ...
     ] = ()  # switches a manual or remote step changes from the step before
     allowed: frozenset[str] = frozenset()  # runner commands offered now (names in COMMANDS)
+    verdict: str = ""  # the session verdict so far, one line (``meas.verdict``)
+    hold_scope: tuple[str, ...] = ()  # a hold point: the steps it covers
+    hold_issues: tuple[str, ...] = ()  # of those, the ones that did not pass (to acknowledge)
 
 
 _OPEN_STEP = (State.WAITING, State.VERIFYING, State.SETTLING, State.CAPTURING, State.REVIEWING)
 
 
-def allowed_now(state: State, action: str, pending: bool) -> frozenset[str]:
+def allowed_now(
+    state: State,
+    action: str,
+    pending: bool,
+    *,
+    settle_timed_out: bool = False,
+    captures: bool = True,
+) -> frozenset[str]:
     """The commands offered in this state for this next action.
 
-    An offered command can still be refused with a sentence when a detail is wrong: a missing
-    reason or name, a remote guard, capture while the readings still settle before the settle
-    timeout, a retake of a step that captures nothing.
+    Capture while settling is offered only once the settle timeout has passed, and a retake
+    only on a step that captures; an offered command can still be refused with a sentence
+    when a detail is wrong (a missing reason or name, a remote guard).
     """
     out = {"note"}  # a note can be added at any time
     if state not in (State.FINISHED, State.STOPPED):
@@ -70,14 +81,60 @@ def allowed_now(state: State, action: str, pending: bool) -> frozenset[str]:
     if state is State.WAITING and pending:
         out.add("confirm_remote")
     if state is State.SETTLING:
-        out.add("capture")  # capture anyway once the settle timeout has passed
-    if state in (State.REVIEWING, State.SETTLING):
+        out.discard("capture")
+        if settle_timed_out:
+            out.add("capture")  # capture anyway once the settle timeout has passed
+    if state in (State.REVIEWING, State.SETTLING) and captures:
         out.add("retake")
     if state is State.REVIEWING and action in ("accept", "accept_with_reason"):
         out.add("accept")
     if state in _OPEN_STEP:
         out.add("skip")
     return frozenset(out)
+
+
+_WORDS = {
+    "confirm_operation": "confirm an operation",
+    "request_remote": "request a remote command",
+    "confirm_remote": "send a remote command",
+    "capture": "capture",
+    "retake": "retake",
+    "skip": "skip",
+    "accept": "accept",
+    "sign": "sign",
+    "note": "add a note",
+    "stop": "stop",
+}
+
+
+def why_not(view: RunnerView, command: str) -> str:
+    """Why ``command`` is not offered now, in one sentence (a key that cannot act says so)."""
+    step, st = view.step, view.state
+    what = _WORDS.get(command, command.replace("_", " "))
+    if step is None:
+        return f"cannot {what}: the sequence is over"
+    if command == "capture" and st is State.SETTLING:
+        return (
+            f"cannot capture yet: the readings are settling ({int(round(100 * view.settle_progress))} %); "
+            "capture starts by itself once they are steady, or is offered after the settle timeout"
+        )
+    if command == "capture" and st is State.WAITING and step.kind != "capture":
+        return f"cannot capture now: step {step.id} is a {step.kind} step and captures after its operation"
+    if command == "confirm_operation" and step.kind != "manual":
+        how = "by remote command" if step.kind == "remote" else f"as a {step.kind} step"
+        return f"nothing to confirm by hand: step {step.id} is done {how}"
+    if command == "request_remote" and step.kind != "remote":
+        return f"step {step.id} has no remote operation (a {step.kind} step)"
+    if command == "accept" and st is State.REVIEWING and view.action == "retake":
+        return (
+            f"cannot accept: checks failed and step {step.id} does not allow accepting failures "
+            "(gate block); retake, or skip with a reason"
+        )
+    if command == "retake" and step.capture is None:
+        return f"nothing to retake: step {step.id} captures nothing"
+    if command == "sign" and step.kind != "hold":
+        return f"nothing to sign: step {step.id} is not a hold point"
+    return f"cannot {what} now: the step is {st.value}"
 
 
 def view_of(runner: StepMachine) -> RunnerView:
@@ -88,10 +145,19 @@ def view_of(runner: StepMachine) -> RunnerView:
     mism = tuple(runner.mismatches()) if step is not None else ()
     settle = runner.settle
     policy = step.capture if step is not None else None
+    progress = (
+        1.0
+        if settle is not None and settle.settled
+        else (settle.progress if settle is not None else 0.0)
+    )
     if runner.state in (State.REVIEWING,):
-        results = tuple(sort_results(runner.book.review))
+        results = tuple(sort_results(runner.book.review))  # stood down when it was judged
     else:
-        results = tuple(sort_results(runner.live_results))
+        live = runner.live_results
+        live = stand_down(runner.profile, live, doubtful_meters(live, runner.last))
+        if _settling(runner):
+            live = hold_while_settling(live, progress)
+        results = tuple(sort_results(live))
     action, words = _next(runner)
     return RunnerView(
         index=runner.index,
@@ -101,11 +167,7 @@ def view_of(runner: StepMachine) -> RunnerView:
         expected=expected,
         actual=actual,
         mismatches=mism,
-        settle_progress=(
-            1.0
-            if settle is not None and settle.settled
-            else (settle.progress if settle is not None else 0.0)
-        ),
+        settle_progress=progress,
         settle_elapsed_s=settle.elapsed_s if settle is not None else 0.0,
         settle_timed_out=bool(settle is not None and settle.timed_out),
         captured=len(runner.book.taken),
@@ -120,7 +182,16 @@ def view_of(runner: StepMachine) -> RunnerView:
         operator=runner.operator,
         polled=runner.last is not None,
         to_operate=_to_operate(runner),
-        allowed=allowed_now(runner.state, action, runner.remote.pending is not None),
+        allowed=allowed_now(
+            runner.state,
+            action,
+            runner.remote.pending is not None,
+            settle_timed_out=bool(settle is not None and settle.timed_out),
+            captures=step is not None and step.capture is not None,
+        ),
+        verdict=runner.verdict().line,
+        hold_scope=runner.hold_scope(),
+        hold_issues=runner.hold_issues(),
     )
 
 
@@ -133,11 +204,17 @@ def _to_operate(runner: StepMachine) -> tuple[str, ...]:
     return tuple(sid for sid, st in now.items() if before.get(sid) != st or sid in step.operate)
 
 
-def _overall(runner: StepMachine, results: Sequence[CheckResult]) -> str:
+def _settling(runner: StepMachine) -> bool:
+    """The readings are still moving: nothing is judged yet, results are held."""
     if runner.state in (State.OPERATING, State.VERIFYING, State.SETTLING):
+        return True
+    # a switch was seen operating: the readings are still moving
+    return runner.state is State.WAITING and runner.live.settling
+
+
+def _overall(runner: StepMachine, results: Sequence[CheckResult]) -> str:
+    if _settling(runner):
         return "settling"
-    if runner.state is State.WAITING and runner.live.settling:
-        return "settling"  # a switch was seen operating: the readings are still moving
     if runner.last is None or runner.done:
         return "waiting"
     return "inconsistent" if overall(list(results)) is Status.FAIL else "consistent"
@@ -147,19 +224,21 @@ def _next(runner: StepMachine) -> tuple[str, str]:
     step = runner.step
     st = runner.state
     if st is State.FINISHED:
-        skipped = runner.skipped_steps()
-        if skipped:
-            return "none", (
-                f"The sequence is complete, but incomplete as a record: {len(skipped)} "
-                f"step(s) skipped ({', '.join(skipped)})."
-            )
-        return "none", "The sequence is complete."
+        return "none", f"The sequence is complete. Verdict {runner.verdict().line}."
     if st is State.STOPPED:
         return "none", f"Stopped: {runner.message}. Resume the session when the cause is cleared."
     assert step is not None
     if st is State.WAITING:
         if step.kind == "hold":
-            return "sign", "Hold point: the responsible person signs off by name."
+            scope = runner.hold_scope()
+            covers = f" covering {', '.join(scope)}" if scope else ""
+            issues = runner.hold_issues()
+            if issues:
+                return "sign", (
+                    f"Hold point{covers}: {len(issues)} step(s) did not pass "
+                    f"({'; '.join(issues)}); the signer acknowledges them by name."
+                )
+            return "sign", f"Hold point{covers}: the responsible person signs off by name."
         if step.kind == "note":
             return "note", "Write the note this step asks for."
         if step.kind == "capture":

@@ -16,15 +16,17 @@ from pathlib import Path
 import pandas as pd
 import pytest
 from textual import events
+from textual.widgets import Static
 
 from meas.session import Session
 from tui.app import BenchwalkApp
-from tui.keys import KEYS
+from tui.keys import ARM_KEY, KEYS, SEND_KEY, key_of
 from tui.screens.main import MainScreen
 from tui.screens.prompt import Alert, TextPrompt
 from tui.screens.remote import RemoteConfirm
 from tui.screens.safety import SafetyScreen
 from tui.screens.start import StartScreen
+from tui.screens.summary import WalkSummary
 from tui.widgets.step import StepDetail
 
 DEMO_DIR = Path(__file__).resolve().parents[2] / "profiles_demo"
@@ -156,14 +158,20 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
                 await tap(pilot, "c")
             elif a == "request_remote":
                 await tap(pilot, "r")
-                await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
-                await tap(pilot, "a", "y")
+                await until(
+                    pilot,
+                    lambda: isinstance(app.screen, RemoteConfirm),
+                    5,
+                    f"remote modal ({main.frame.step.allowed}, {main.query_one('#notice').content})",
+                )
+                await tap(pilot, ARM_KEY, SEND_KEY)
             elif a == "accept":
                 await tap(pilot, "a")
             elif a == "sign":
                 await tap(pilot, "g")
                 await until(pilot, lambda: prompt_ready(app), 5, "sign prompt")
-                await tap(pilot, "enter")  # prefilled with the operator's name
+                assert app.focused.value == ""  # the signer types their own name
+                await answer(pilot, app, fast=True, text="JL")
             elif a == "note":
                 await tap(pilot, "n")
                 await answer(pilot, app, fast=True, text="ok")
@@ -195,12 +203,24 @@ async def test_walk_the_demo_sequence_by_keys_to_the_dataset(tmp_path):
             )
         # the sequence is complete: the screen exports the dataset on its own
         await until(pilot, lambda: app.bridge.exported is not None, 20, "dataset export")
-        assert "SEQUENCE DONE" in main.query_one("#summary").content.plain
+        # the end-of-walk summary: every step's outcome and the verdict
+        await until(pilot, lambda: isinstance(app.screen, WalkSummary), 5, "end-of-walk summary")
+        assert runner.verdict().line in str(app.screen.query_one(Static).content) or any(
+            runner.verdict().line in str(w.content) for w in app.screen.query(Static)
+        )
+        await pilot.press("enter")
+        summary = main.query_one("#summary").content.plain
+        assert "SIMULATED BENCH" in summary
+        assert f"VERDICT {runner.verdict().line}" in summary
+        await pilot.press("ctrl+q")
+    # the console's exit code is the verdict's, as headless and the dataset give it
+    assert app.return_value == app.return_code == runner.verdict().exit_code
     dataset = app.bridge.exported
     assert dataset.is_relative_to(tmp_path / "out")
     package = json.loads((dataset / "datapackage.json").read_text())
     steps_res = next(r for r in package["resources"] if r["name"] == "steps")
     steps = pd.read_csv(dataset / steps_res["path"])
+    assert package["benchwalk"]["verdict"]["line"] == runner.verdict().line
     assert list(steps["id"]) == step_ids
     assert set(steps["state"]) <= {"accepted", "skipped"}
     # hold and note steps are always accepted by the keys G and N
@@ -233,6 +253,9 @@ async def test_fault_shows_failure_and_cause_in_checks_panel(tmp_path):
     async with app.run_test(size=(80, 24)) as pilot:
         main = await open_main(pilot, app)
         panel = main.query_one("#checks")
+        # the bench starts dead (the demo's step 1): energize it by hand so M2 carries current
+        for sw in ("CB1", "SW2", "SW3", "LB2"):
+            app.bridge.session.bench.operate_by_hand(sw, "closed")
 
         def shows_fault():
             text = panel.content.plain if hasattr(panel.content, "plain") else ""
@@ -330,22 +353,46 @@ async def test_remote_switching_needs_both_confirmations(tmp_path):
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
         modal = app.screen
         assert modal.switch_id == "RX" and modal.present == "open" and modal.intended == "closed"
-        await pilot.press("y")  # the second key alone does nothing
+        # the simulated bench is named in the dialog's caution
+        assert any("SIMULATED BENCH" in str(w.content) for w in modal.query(".caution"))
+        # the NEXT line follows the dialog: its arm and send keys, not the main screen's
+        nxt = main.query_one("#summary").content.plain
+        assert f"{ARM_KEY.upper()} arm, then {SEND_KEY.upper()} send" in nxt
+        await pilot.press(SEND_KEY)  # the second key alone does nothing
         assert isinstance(app.screen, RemoteConfirm) and not modal.armed
-        await pilot.press("a", "o")  # armed, then any other key disarms
+        await pilot.press(ARM_KEY, "o")  # armed, then any other key disarms
         assert not modal.armed and isinstance(app.screen, RemoteConfirm)
+        modal.arm_timeout_s = 0.3  # the documented 8 s, shortened for the test
+        await pilot.press(ARM_KEY)  # armed, then the timeout disarms it
+        await until(pilot, lambda: modal.disarmed_by_timeout == 1, 5, "disarmed by the timeout")
+        assert not modal.armed
+        await pilot.press(SEND_KEY)  # too late: nothing is sent
+        assert isinstance(app.screen, RemoteConfirm) and coil_writes(app) == []
         await pilot.press("escape")  # cancel: nothing is sent
         await until(pilot, lambda: isinstance(app.screen, MainScreen), 5, "back on main screen")
         assert coil_writes(app) == [] and runner.view().state == "waiting"
+        assert runner.view().pending_remote is None  # the request is withdrawn
+        nxt = main.query_one("#summary").content.plain
+        assert "arm" not in nxt and f"press {key_of('request_remote').upper()}" in nxt
+        # a main-screen habit of accept-then-yes sends nothing: neither key is arm or send
+        await pilot.press("a", "y")
+        assert coil_writes(app) == [] and isinstance(app.screen, MainScreen)
         await pilot.press("r")
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal again")
-        await pilot.press("a", "y")
+        await pilot.press(ARM_KEY, SEND_KEY)
         await until(pilot, lambda: coil_writes(app), 5, "the coil write")
         assert [(c[1], c[2]) for c in coil_writes(app)] == [("RX", "closed")]
         # status verified (no capture in this step): the runner reviews, then A accepts
         await until(pilot, lambda: runner.view().state == "reviewing", 10, "status verified")
-        assert main.frame.snapshot.switches["RX"] == "closed"
-        assert main.frame.snapshot is not None
+        await until(  # a PLC poll missed under load reads unknown for a cycle: wait for one
+            pilot,
+            lambda: (
+                main.frame.snapshot is not None
+                and main.frame.snapshot.switches.get("RX") == "closed"
+            ),
+            5,
+            "RX closed on screen",
+        )
 
 
 @pytest.mark.slow
@@ -355,7 +402,7 @@ async def test_remote_status_not_following_is_a_clear_failure(tmp_path):
         main, runner = await _to_remote_step(pilot, app)
         await pilot.press("r")
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
-        await pilot.press("a", "y")
+        await pilot.press(ARM_KEY, SEND_KEY)
         await until(pilot, lambda: isinstance(app.screen, Alert), 10, "failure alert")
         alert = app.screen
         assert runner.stopped and "RX" in alert.title_text and "FAILED" in alert.title_text
@@ -373,14 +420,10 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         await until(
             pilot, lambda: runner.view().action == "capture", 10, "first step ready to capture"
         )
-        # the demo bench starts in its normal (energized) state and the dead-bench step expects
-        # every switch open: the step panel says the key will set them by hand
-        await until(
-            pilot,
-            lambda: "simulated bench: C also sets CB1" in main.query_one(StepDetail).content.plain,
-            5,
-            "the simulated-hands hint",
-        )
+        # the demo bench starts as the dead-bench step describes it: nothing to set by hand
+        await until(pilot, lambda: not runner.view().mismatches, 10, "the switches opened")
+        assert runner.view().to_operate == ()
+        assert "also sets" not in main.query_one(StepDetail).content.plain
         await tap(pilot, "c")
         await until(
             pilot,
@@ -390,10 +433,14 @@ async def test_a_step_command_is_confirmed_in_words_that_say_what_happens_next(t
         )
         notice = str(main.query_one("#notice").content)
         assert "recorded" not in notice
-        await pilot.press(
-            "a"
-        )  # nothing to accept while settling: the key is inert (press waits for idle)
-        assert str(main.query_one("#notice").content) == notice
+        await pilot.press("a")  # nothing to accept while settling: the key says why
+        await until(
+            pilot,
+            lambda: "A: cannot accept now" in str(main.query_one("#notice").content),
+            5,
+            "why the key cannot act",
+        )
+        assert str(main.query_one("#notice").content) != notice
         assert all(r["state"] != "accepted" for r in runner.journal.step_history())
 
 
@@ -432,7 +479,7 @@ async def test_the_console_enables_exactly_the_step_keys_the_runner_allows(tmp_p
             elif a == "request_remote":
                 await tap(pilot, "r")
                 await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal")
-                await tap(pilot, "a", "y")
+                await tap(pilot, ARM_KEY, SEND_KEY)
                 await until(pilot, lambda: app.screen is main, 5, "back on the main screen")
             elif a in ("accept", "accept_with_reason"):
                 await tap(pilot, "a")
@@ -446,3 +493,8 @@ async def test_the_console_enables_exactly_the_step_keys_the_runner_allows(tmp_p
         assert {"waiting/capture", "waiting/request_remote", "waiting/confirm_operation"} <= seen
         assert any(s.startswith("settling/") for s in seen), seen
         assert any(s.startswith("reviewing/") for s in seen), seen
+
+
+def test_the_remote_arm_and_send_keys_mean_nothing_on_the_main_screen():
+    main_keys = {k.key for k in KEYS}
+    assert ARM_KEY not in main_keys and SEND_KEY not in main_keys and ARM_KEY != SEND_KEY

@@ -183,7 +183,8 @@ def test_failures_first_with_their_cause():
     assert "INCONSISTENT" in text and "\u2718" in text  # word and symbol, not colour alone
     assert "provisional" not in text
     settling = checks_text(results, "settling").plain.splitlines()
-    assert "provisional until they settle" in settling[1]  # said before the first failure line
+    # said before the first failure line: nothing is judged while the readings settle
+    assert "nothing is judged until they are steady" in settling[1]
 
 
 def test_trend_spread_is_the_settle_figure():

@@ -213,14 +213,27 @@ async def test_gate_block_and_allow_with_a_reversed_ct(make_session):
         "skipped",
     ]
     assert r.outcomes["radial"].status is Status.FAIL
-    assert r.verdict() is Status.FAIL
+    assert r.outcomes["radial"].outcome == "skipped"
+    assert r.verdict().word == "FAIL"
 
     # remote step, then hold, then the gate-allow manual step: accept needs a reason
     r.request_remote("RX", "closed")
     await r.confirm_remote("RX", "closed", "T. Tester")
     await until(s, in_state(State.REVIEWING))
     r.skip("fault under investigation")
-    r.sign("J. Lead")
+    # the hold point covers both skipped steps: no silent signature over them
+    v = r.view()
+    assert v.hold_scope == ("radial", "rx-in")
+    assert [i.split(":")[0] for i in v.hold_issues] == ["radial skipped", "rx-in skipped"]
+    with pytest.raises(BenchwalkError, match="acknowledge"):
+        r.sign("J. Lead")
+    r.sign("J. Lead", acknowledge=True)
+    from meas.journal.read import JournalView
+
+    jv = JournalView(s.journal.path)
+    ack = [e for e in jv.events() if e.kind == "hold_acknowledged"]
+    jv.close()
+    assert len(ack) == 1 and "radial skipped" in ack[0].message
     s.bench.operate_by_hand("TIE", "closed")
     r.confirm_operation()
     v = await until(s, in_state(State.REVIEWING))
@@ -229,7 +242,7 @@ async def test_gate_block_and_allow_with_a_reversed_ct(make_session):
         r.accept()
     r.accept("known CT fault on M2; rest of the bench recorded")
     hist = [h for h in s.journal.step_history() if h["step"] == "tie"]
-    assert hist[-1]["state"] == "accepted" and hist[-1]["outcome"] == "fail"
+    assert hist[-1]["state"] == "accepted" and hist[-1]["outcome"] == "accepted_with_failures"
     assert hist[-1]["reason"].startswith("known CT fault")
 
 
@@ -416,7 +429,10 @@ ONE_STEP = SLOW_CAPTURE_SEQUENCE.replace("snapshots = 20", "snapshots = 2")
 
 @pytest.mark.parametrize(
     "decision, code, word",
-    [("accept", 0, "PASS"), ("skip", 1, "INCOMPLETE (1 of 1 steps skipped: radial)")],
+    [
+        ("accept", 0, "PASS: all 1 steps passed"),
+        ("skip", 1, "INCOMPLETE: 1 of 1 steps skipped (radial)"),
+    ],
 )
 async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(
     make_session, decision, code, word
@@ -435,12 +451,17 @@ async def test_a_skipped_step_makes_the_session_incomplete_not_a_pass(
     else:
         r.skip("bench not available today")
     assert r.finished
-    assert ("incomplete as a record: 1 step(s) skipped (radial)" in r.view().next_action) is (
-        decision == "skip"
-    )
+    assert r.view().next_action == f"The sequence is complete. Verdict {word}."
+    assert r.view().verdict == word
     out = io.StringIO()
     assert summarize(s, out) == code
-    assert out.getvalue().rstrip().endswith(f"Session {s.session_id}: {word}")
+    text = out.getvalue()
+    assert text.rstrip().endswith(f"Session {s.session_id}: {word}")
+    # the step's outcome line never says pass for a skipped step
+    step_line = next(line for line in text.splitlines() if line.strip().startswith("radial"))
+    assert ("skipped" in step_line and "pass" not in step_line) is (decision == "skip")
+    log = [(h["state"], h["outcome"]) for h in s.journal.step_history() if h["step"] == "radial"]
+    assert log[-1] == (("skipped", "skipped") if decision == "skip" else ("accepted", "passed"))
 
 
 @pytest.mark.slow
@@ -470,7 +491,7 @@ async def test_the_demo_technician_gives_up_on_a_silent_plc_and_the_run_ends_inc
     assert [
         c for c in s.bench.plc.commands if c[3] != "hand"
     ] == []  # nothing was switched remotely
-    assert "INCOMPLETE (2 of 2 steps skipped: radial, rx-in)" in text
+    assert "INCOMPLETE: 2 of 2 steps skipped (radial, rx-in)" in text
 
 
 LB2_OUT = """
@@ -565,8 +586,8 @@ ALLOWED_BY_HAND = [
     (State.WAITING, "note", False, {"skip"} | ALWAYS),
     (State.OPERATING, "wait", False, ALWAYS),
     (State.VERIFYING, "wait", False, {"skip"} | ALWAYS),
-    (State.SETTLING, "wait", False, {"capture", "retake", "skip"} | ALWAYS),
-    (State.SETTLING, "retake", False, {"capture", "retake", "skip"} | ALWAYS),  # timed out
+    # capture while settling only once the settle timeout has passed
+    (State.SETTLING, "wait", False, {"retake", "skip"} | ALWAYS),
     (State.CAPTURING, "wait", False, {"skip"} | ALWAYS),
     (State.REVIEWING, "accept", False, {"accept", "retake", "skip"} | ALWAYS),
     (State.REVIEWING, "accept_with_reason", False, {"accept", "retake", "skip"} | ALWAYS),
@@ -584,6 +605,16 @@ def test_the_view_allows_the_commands_of_each_state(state, action, pending, allo
     got = allowed_now(state, action, pending)
     assert got == frozenset(allowed)
     assert got <= set(COMMANDS)
+
+
+def test_capture_while_settling_only_after_the_timeout_and_no_retake_without_a_capture():
+    from meas.walk.view import allowed_now
+
+    timed_out = allowed_now(State.SETTLING, "retake", False, settle_timed_out=True)
+    assert timed_out == frozenset({"capture", "retake", "skip"} | ALWAYS)
+    # a step with no capture policy reviews nothing to retake (a manual step without capture)
+    no_capture = allowed_now(State.REVIEWING, "accept", False, captures=False)
+    assert no_capture == frozenset({"accept", "skip"} | ALWAYS)
 
 
 @pytest.mark.slow

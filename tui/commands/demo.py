@@ -63,6 +63,7 @@ async def _headless(args: argparse.Namespace, built: str | None) -> int:
         session,
         SimTechnician(session, SIM_OPERATOR),
         args.out,
+        args.sessions,
         verdict_to=getattr(args, "_stdout", None),
     )
     if built:

@@ -1,25 +1,29 @@
 """The headless walk shared by ``run``, ``demo`` and ``resume``: the drive loop and the summary.
 
 A technician (``technicians``) answers what the runner's view asks for, until the sequence
-ends or the technician stops (end of input). Exit codes: 0 every check passed, 1 a check
-failed (a step accepted or skipped with failing checks) or a step was skipped, 2 usage or
-profile error, 3 stopped before the end (the session can be resumed).
+ends or the technician stops (end of input). The verdict and the exit code are
+``meas.verdict``'s: 0 PASS, 1 FAIL or INCOMPLETE, 2 usage or profile error, 3 stopped before
+the end (the session can be resumed), 4 PASS with unverified readings.
 """
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
+import shlex
+import signal
 import sys
 from pathlib import Path
 from typing import Any, TextIO
 
-from meas.results import Status
 from meas.session import Session
+from meas.verdict import EXIT_FAIL, EXIT_PASS, EXIT_STOPPED, OUTCOME_WORDS
 from meas.walk.states import State
 from meas.walk.view import RunnerView
 
 from .technicians import Technician
 
-EXIT_PASS, EXIT_FAIL, EXIT_STOPPED = 0, 1, 3
+__all__ = ["EXIT_FAIL", "EXIT_PASS", "EXIT_STOPPED", "drive", "summarize", "walk"]
 
 
 def print_step(view: RunnerView, out: TextIO) -> None:
@@ -32,7 +36,12 @@ def print_step(view: RunnerView, out: TextIO) -> None:
         print("  expect: " + ", ".join(f"{k} {v}" for k, v in view.expected.items()), file=out)
 
 
-async def drive(session: Session, technician: Technician, out: TextIO = sys.stdout) -> int:
+async def drive(
+    session: Session,
+    technician: Technician,
+    out: TextIO = sys.stdout,
+    sessions_dir: Path | None = None,
+) -> int:
     """Run the session's sequence to its end with ``technician`` answering; the exit code."""
     runner = session.runner
     shown = -1
@@ -52,27 +61,29 @@ async def drive(session: Session, technician: Technician, out: TextIO = sys.stdo
         await technician.act(runner, view)
         if runner.done:
             break
-    return summarize(session, out)
+    return summarize(session, out, sessions_dir)
 
 
-def summarize(session: Session, out: TextIO) -> int:
-    """Print the outcome per step and the failing checks; the exit code."""
+def summarize(session: Session, out: TextIO, sessions_dir: Path | None = None) -> int:
+    """Print the outcome per step, the failing checks and the verdict; the exit code.
+
+    The verdict line and the exit code are ``meas.verdict``'s, the same as the console's, the
+    report's first line and the dataset's.
+    """
     runner = session.runner
+    verdict = runner.verdict()
     print("", file=out)
     if runner.stopped:
         print(
             f"Stopped at step {runner.step.id if runner.step else '-'}: {runner.message}", file=out
         )
-        print(
-            f"Session {session.session_id} is saved in {session.path}; continue with: "
-            f"benchwalk resume {session.session_id} --headless",
-            file=out,
-        )
+        print_resume_hint(session.session_id, session.path, sessions_dir, out)
+        print(f"Session {session.session_id} so far: {verdict.line}", file=out)
         return EXIT_STOPPED
     failures = [(o.step_id, r) for o in runner.outcomes.values() for r in o.failures]
-    for o in runner.outcomes.values():
-        extra = f" ({o.reason})" if o.reason else ""
-        print(f"  {o.step_id:<22} {o.outcome:<9} {o.status.value}{extra}", file=out)
+    for rec in runner.records():
+        extra = f" ({rec.reason})" if rec.reason else ""
+        print(f"  {rec.step_id:<22} {OUTCOME_WORDS[rec.outcome]:<23}{extra}", file=out)
     if failures:
         print("\nFailing checks:", file=out)
         print(f"  {'step':<20} {'check':<22} {'subject':<8} {'cause':<16} message", file=out)
@@ -80,16 +91,28 @@ def summarize(session: Session, out: TextIO) -> int:
             print(
                 f"  {step_id:<20} {r.check:<22} {r.subject:<8} {r.cause:<16} {r.message}", file=out
             )
-    failed, skipped = runner.verdict() is Status.FAIL, runner.skipped_steps()
-    if failed:
-        word = "FAIL"
-    elif skipped:
-        # nothing failed, but the measurement set has holes: not a pass to put in a report
-        word = f"INCOMPLETE ({len(skipped)} of {len(runner.profile.steps)} steps skipped: {', '.join(skipped)})"
-    else:
-        word = "PASS"
-    print(f"\nSession {session.session_id}: {word}", file=out)
-    return EXIT_FAIL if failed or skipped else EXIT_PASS
+    print(f"\nSession {session.session_id}: {verdict.line}", file=out)
+    return verdict.exit_code
+
+
+def resume_command(session_id: str, sessions_dir: Path | None, headless: bool = True) -> str:
+    """The exact command that continues ``session_id`` (with ``--sessions`` when one was given)."""
+    parts = ["benchwalk", "resume", session_id]
+    if sessions_dir is not None:
+        parts += ["--sessions", shlex.quote(str(sessions_dir))]
+    if headless:
+        parts.append("--headless")
+    return " ".join(parts)
+
+
+def print_resume_hint(
+    session_id: str, path: Path, sessions_dir: Path | None, out: TextIO, headless: bool = True
+) -> None:
+    print(
+        f"Session {session_id} is saved in {path}; continue with: "
+        f"{resume_command(session_id, sessions_dir, headless)}",
+        file=out,
+    )
 
 
 async def finish(
@@ -112,12 +135,10 @@ def verdict(
 ) -> dict[str, Any]:
     """The session's outcome for scripts (``--json``): the same facts ``summarize`` prints."""
     runner = session.runner
-    word = {EXIT_PASS: "PASS", EXIT_STOPPED: "STOPPED"}.get(code) or (
-        "FAIL" if runner.verdict() is Status.FAIL else "INCOMPLETE"
-    )
+    facts = runner.verdict().as_dict()
     return {
         "session": session.session_id,
-        "verdict": word,
+        **facts,
         "exit_code": code,
         "journal": str(session.path),
         "stopped_at": runner.step.id if runner.stopped and runner.step else None,
@@ -142,23 +163,63 @@ def verdict(
     }
 
 
+STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+
+
 async def walk(
     session: Session,
     technician: Technician,
     out_dir: Path | None,
+    sessions_dir: Path | None = None,
     verdict_to: TextIO | None = None,
 ) -> int:
     """Drive the session to its end, then export and close it; closed on any error too.
 
-    With ``verdict_to`` (``--json``) the verdict goes there as one JSON line."""
-    try:
-        code = await drive(session, technician, sys.stdout)  # the current one (--json moves it)
-    except BaseException:
-        await session.close()
-        raise
-    code, dataset, report = await finish(session, code, out_dir, sys.stdout)
-    if verdict_to is not None:
-        from .output import emit_json
+    With ``verdict_to`` (``--json``) the verdict goes there as one JSON line.
 
-        emit_json(verdict(session, code, dataset, report), stream=verdict_to)
-    return code
+    SIGINT, SIGTERM and SIGHUP stop the walk where it is: the stop is journalled, the session
+    id and the exact resume command are printed and the exit code is 3. A signal during the
+    final export lets the export finish first.
+    """
+    loop = asyncio.get_running_loop()
+    task = asyncio.current_task()
+    got: list[signal.Signals] = []
+    driving = True
+
+    def on_signal(sig: signal.Signals) -> None:
+        got.append(sig)
+        if driving and task is not None and len(got) == 1:
+            task.cancel()
+
+    installed = []
+    for sig in STOP_SIGNALS:
+        with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
+            loop.add_signal_handler(sig, on_signal, sig)
+            installed.append(sig)
+    try:
+        try:
+            code = await drive(session, technician, sys.stdout, sessions_dir)
+        except asyncio.CancelledError:
+            if not got or task is None:
+                raise
+            task.uncancel()
+            session.runner.stop(f"interrupted by {got[0].name}")
+            code = summarize(session, sys.stdout, sessions_dir)
+        except BaseException:
+            await session.close()
+            raise
+        driving = False
+        dataset = report = None
+        if got:
+            await session.close()
+            code = EXIT_STOPPED
+        else:
+            code, dataset, report = await finish(session, code, out_dir, sys.stdout)
+        if verdict_to is not None:
+            from .output import emit_json
+
+            emit_json(verdict(session, code, dataset, report), stream=verdict_to)
+        return code
+    finally:
+        for sig in installed:
+            loop.remove_signal_handler(sig)

@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import sys
 from pathlib import Path
 
 from meas.cautions import HEADLESS_CAUTION
 from meas.session import SIM_OPERATOR, Session
 
 from .common import add_common, saved_printer, start_console
-from .headless import walk
+from .headless import resume_command, walk
 from .technicians import PromptTechnician, SimTechnician, Technician
 
 HELP = "continue a session at the step where it stopped"
@@ -35,6 +36,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         default=None,
         help="the profile file, if it moved since the session started",
     )
+    p.add_argument(
+        "--reexport",
+        action="store_true",
+        help="the session is finished: write its dataset and report again (to --out)",
+    )
     add_common(p)
 
 
@@ -49,6 +55,8 @@ async def _headless(args: argparse.Namespace) -> int:
         on_saved=saved_printer(args.log_saved),
         live_checks=False,
     )
+    if session.runner.finished:
+        return await _finished(session, args)
     step = session.runner.step
     print(
         f"Session {session.session_id}: resuming at "
@@ -60,7 +68,37 @@ async def _headless(args: argparse.Namespace) -> int:
         tech = SimTechnician(session, SIM_OPERATOR)
     else:
         tech = PromptTechnician(session.runner.operator)
-    return await walk(session, tech, args.out, verdict_to=getattr(args, "_stdout", None))
+    return await walk(
+        session, tech, args.out, args.sessions, verdict_to=getattr(args, "_stdout", None)
+    )
+
+
+async def _finished(session: Session, args: argparse.Namespace) -> int:
+    """A finished session has nothing to resume: say so and re-export only when asked
+    (``--reexport``, or yes at the question on a terminal), never silently."""
+    verdict = session.runner.verdict()
+    target = args.out or Path(f"benchwalk-{session.session_id}")
+    print(f"Session {session.session_id} is already finished: {verdict.line}", flush=True)
+    try:
+        again = args.reexport
+        if not again and sys.stdin.isatty():
+            answer = await asyncio.to_thread(
+                input, f"Write its dataset and report again to {target}? [y/N] "
+            )
+            again = answer.strip().lower() in ("y", "yes")
+        if again:
+            dataset, report = session.export(target, overwrite=True)
+            print(f"Dataset written to {dataset}, report to {report}", flush=True)
+        else:
+            print(
+                "Nothing written. To write its dataset and report again: "
+                + resume_command(session.session_id, args.sessions)
+                + " --reexport [--out DIR]",
+                flush=True,
+            )
+    finally:
+        await session.close()
+    return verdict.exit_code
 
 
 def main(args: argparse.Namespace) -> int:

@@ -47,7 +47,11 @@ async def _run(args: argparse.Namespace) -> int:
     )
     print(f"Session {session.session_id}: journal {session.path}", flush=True)
     return await walk(
-        session, PromptTechnician(operator), args.out, verdict_to=getattr(args, "_stdout", None)
+        session,
+        PromptTechnician(operator),
+        args.out,
+        args.sessions,
+        verdict_to=getattr(args, "_stdout", None),
     )
 
 

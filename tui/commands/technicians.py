@@ -7,7 +7,9 @@ Both answer what the runner's view asks for (``act``), one action per call; the 
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import sys
+import threading
 from typing import Protocol, TextIO
 
 from meas.errors import BenchwalkError
@@ -29,6 +31,25 @@ class Hands(Protocol):
     def set_by_hand(self, view: RunnerView, command: str) -> list[tuple[str, SwitchState]]: ...
 
 
+async def _read_line(inp: TextIO) -> str:
+    """One line of ``inp`` read on a daemon thread: a stop signal can end the walk while the
+    prompt waits (a thread of the default executor would hold the process until a line came)."""
+    loop = asyncio.get_running_loop()
+    fut: asyncio.Future[str] = loop.create_future()
+
+    def deliver(line: str) -> None:
+        if not fut.done():
+            fut.set_result(line)
+
+    def read() -> None:
+        line = inp.readline()
+        with contextlib.suppress(RuntimeError):  # the loop is gone: nobody waits any more
+            loop.call_soon_threadsafe(deliver, line)
+
+    threading.Thread(target=read, name="prompt-reader", daemon=True).start()
+    return await fut
+
+
 class PromptTechnician:
     """A person at the bench answering typed prompts; end of input stops the session."""
 
@@ -37,7 +58,7 @@ class PromptTechnician:
 
     async def _ask(self, prompt: str) -> str | None:
         print(prompt, end="", file=self.out, flush=True)
-        line = await asyncio.to_thread(self.inp.readline)
+        line = await _read_line(self.inp)
         return None if line == "" else line.strip()
 
     async def act(self, runner: Runner, view: RunnerView) -> None:
@@ -61,7 +82,13 @@ class PromptTechnician:
             "accept": "  Checks passed: type 'accept' (or 'retake')",
             "accept_with_reason": "  Checks failed: 'accept REASON', 'retake' or 'skip REASON'",
             "retake": "  'retake', 'capture' (anyway, if not settled) or 'skip REASON'",
-            "sign": "  Hold point: type 'sign NAME'",
+            "sign": (
+                "  Hold point: these steps did not pass: "
+                + "; ".join(view.hold_issues)
+                + ". Type 'acknowledge NAME' to sign over them"
+                if view.hold_issues
+                else "  Hold point: type 'sign NAME'"
+            ),
             "note": "  Type 'note TEXT'",
         }
         answer = await self._ask(prompts[a] + " [or 'stop']: ")
@@ -85,6 +112,8 @@ class PromptTechnician:
                 runner.skip(rest)
             elif word == "sign":
                 runner.sign(rest)
+            elif word == "acknowledge":
+                runner.sign(rest, acknowledge=True)
             elif word == "note":
                 runner.note(rest)
             else:
@@ -114,6 +143,7 @@ class SimTechnician:
         self.attempts = attempts
         self._retaken: dict[str, int] = {}
         self._tried: dict[str, int] = {}
+        self._handed: set[str] = set()  # steps whose bench was set by hand before a request
 
     def _give_up(self, runner: Runner, view: RunnerView) -> bool:
         """True (and the step skipped) once this step has been tried ``attempts`` times."""
@@ -149,7 +179,12 @@ class SimTechnician:
             self._set_by_hand(view, "capture")
             runner.capture()
         elif a == "request_remote":
-            self._set_by_hand(view, "request_remote")
+            if step.id not in self._handed and self.hands.set_by_hand(view, "request_remote"):
+                self._handed.add(step.id)
+                # set by hand first; the request waits for the status to show it at the next
+                # poll (asking now would read the old status and be refused)
+                print("  (simulated technician sets the bench as the step expects)", file=self.out)
+                return
             sid, state = view.remote_todo[0]
             try:
                 question = runner.request_remote(sid, state)
@@ -162,7 +197,12 @@ class SimTechnician:
         elif a == "accept":
             runner.accept()
         elif a == "sign":
-            runner.sign(self.operator)
+            if view.hold_issues:  # said aloud, and journalled by the runner
+                print(
+                    f"  {self.operator} signs acknowledging: {'; '.join(view.hold_issues)}",
+                    file=self.out,
+                )
+            runner.sign(self.operator, acknowledge=bool(view.hold_issues))
         elif a == "note":
             runner.note(f"{self.operator}: nothing unusual on the simulated bench")
         elif a in ("retake", "accept_with_reason"):

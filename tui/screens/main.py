@@ -23,7 +23,7 @@ from textual.worker import Worker, WorkerState, get_current_worker
 
 from meas.errors import BenchwalkError
 
-from ..keys import bindings
+from ..keys import bindings, display_key, key_of
 from ..messages import FrameReady, LogLines, PollTrouble
 from ..units import UNIT_MODE_LABEL, UNIT_MODES
 from ..widgets.readings import ReadingsGrid
@@ -39,6 +39,11 @@ class MainScreen(StepCommandScreen):
     def on_mount(self) -> None:
         title_panes(self)
         self._apply_layout()
+        if self.finished_at_open:
+            self.notice(
+                "this session is already finished: nothing to resume; press "
+                f"{display_key(key_of('export'))} to write its dataset and report again"
+            )
         if self.autopoll:
             self.poll()
 

@@ -22,7 +22,7 @@ from ..units import UnitMode
 from ..widgets.bench import BenchView
 from ..widgets.checks import ChecksPanel
 from ..widgets.phasor import PhasorView
-from ..widgets.readings import ReadingsGrid
+from ..widgets.readings import ReadingsGrid, per_phase_lines
 from ..widgets.step import StepDetail, StepSummary
 from ..widgets.trend import TREND_KEYS, TrendView
 from .layout import apply_layout, compose_panes, is_wide
@@ -45,7 +45,10 @@ class PaintedScreen(Screen):
         self.latencies: deque[float] = deque(maxlen=2000)  # post -> painted, seconds
         self.frames_shown = 0
         self._alerted_stop = False
-        self._auto_exported = False
+        runner = getattr(bridge, "runner", None)
+        # a finished session opened again: its dataset is re-exported only when asked (E)
+        self.finished_at_open = bool(runner is not None and getattr(runner, "finished", False))
+        self._auto_exported = self.finished_at_open
         self._remote_busy = False  # a remote command is being sent; its worker reports the outcome
         self.exported: Path | None = None
 
@@ -79,15 +82,24 @@ class PaintedScreen(Screen):
         self.query_one(StepDetail).show(step)
         self.query_one(ChecksPanel).show(frame.checks, step.overall if step else "waiting")
         snap = frame.snapshot
+        grid = self.query_one(ReadingsGrid)
+        meters = set(grid.meter_ids)
+        grid.set_failing(
+            frozenset(
+                r.subject for r in frame.checks if r.status.value == "fail" and r.subject in meters
+            )
+        )
         if snap is not None:
             self.history.append(snap)
-            self.query_one(ReadingsGrid).update_snapshot(snap)
+            grid.update_snapshot(snap)
             self.query_one(BenchView).show(snap.switches)
         self._show_meter()
         if old is None or (
             old.step and step and (old.step.state, old.step.index) != (step.state, step.index)
         ):
             self.refresh_bindings()
+        if old is not None and old.step and step and old.step.index != step.index:
+            self.notice("")  # a new step: the last step's notice no longer holds
         if (
             step is not None
             and step.message
@@ -100,6 +112,7 @@ class PaintedScreen(Screen):
         snap = self.frame.snapshot if self.frame else None
         block = snap.meters.get(meter_id) if snap is not None else None
         self.query_one(PhasorView).show(meter_id, block, height=9 if self.wide else 11)
+        self.query_one(ReadingsGrid).set_detail(per_phase_lines(self.profile, meter_id, block))
         key = TREND_KEYS[self.trend_idx]
         samples = [
             (s.t_mono, s.meters[meter_id].get(key)) for s in self.history if meter_id in s.meters

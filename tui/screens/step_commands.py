@@ -9,15 +9,17 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-from textual import work
+from textual import events, work
 
 from meas.errors import BenchwalkError
+from meas.walk.view import why_not
 
 from ..frame import Frame
-from ..keys import COMMAND_OF
+from ..keys import ACTION_OF_KEY, COMMAND_OF, display_key
 from .painting import PaintedScreen
 from .prompt import Alert, TextPrompt
 from .remote import RemoteConfirm
+from .summary import WalkSummary
 
 # what the technician is told once a step command is taken (journalled by the runner)
 _DONE_WORDS = {
@@ -41,6 +43,15 @@ class StepCommandScreen(PaintedScreen):
         if step is not None and step.state == "finished" and not self._auto_exported:
             self._auto_exported = True  # the sequence is complete: write the dataset at once
             self._export()
+            runner = getattr(self.bridge, "runner", None)
+            if runner is not None and hasattr(runner, "records"):
+                self.app.push_screen(
+                    WalkSummary(
+                        runner.records(),
+                        runner.verdict().line,
+                        bool(getattr(self.bridge, "simulated", False)),
+                    )
+                )
         if (
             step is not None
             and step.state == "stopped"
@@ -69,15 +80,29 @@ class StepCommandScreen(PaintedScreen):
         step = self.frame.step if self.frame else None
         return step is not None and command in step.allowed
 
+    def on_key(self, event: events.Key) -> None:
+        """A step key that cannot act now says why instead of doing nothing silently."""
+        command = COMMAND_OF.get(ACTION_OF_KEY.get(event.key, ""))
+        frame = self.frame
+        if command is None or frame is None or frame.step is None:
+            return
+        if command in frame.step.allowed:
+            return
+        runner = getattr(self.bridge, "runner", None)
+        if runner is None:
+            return
+        event.stop()
+        self.notice(f"\u2718 {display_key(event.key)}: {why_not(runner.view(), command)}")
+
     # ------------------------------------------------------------------ step actions
-    def _run(self, name: str, *args: str) -> None:
+    def _run(self, name: str, *args: object) -> None:
         refusal = self.bridge.command(name, *args)
+        self._repaint_now()  # first: a new step clears the old notice, not this one
         self.notice(
             f"\u2718 {refusal}"
             if refusal
             else f"\u2714 {_DONE_WORDS.get(name, name.replace('_', ' '))}"
         )
-        self._repaint_now()
 
     def _repaint_now(self) -> None:
         """Show the command's effect at once instead of at the next poll."""
@@ -134,12 +159,26 @@ class StepCommandScreen(PaintedScreen):
         self.app.push_screen(TextPrompt("Note", "Note for the journal:"), self._run_with("note"))
 
     def action_sign(self) -> None:
-        self.app.push_screen(
-            TextPrompt(
-                "Sign hold point", "Name of the person signing off:", value=self.bridge.operator
-            ),
-            self._run_with("sign"),
-        )
+        """The signer types their own name (the field starts empty); a hold point over steps
+        that did not pass lists them, and signing acknowledges them (journalled)."""
+        view = self.bridge.runner.view()
+        scope = tuple(getattr(view, "hold_scope", ()))
+        issues = tuple(getattr(view, "hold_issues", ()))
+        question = f"This hold point covers: {', '.join(scope) or 'no earlier step'}.\n"
+        if issues:
+            question += (
+                "These steps did NOT pass:\n"
+                + "\n".join(f"  \u2718 {i}" for i in issues)
+                + "\nSigning acknowledges them. Name of the person signing off:"
+            )
+        else:
+            question += "Name of the person signing off:"
+
+        def sign(answer: str | None) -> None:
+            if answer:
+                self._run("sign", answer, *((True,) if issues else ()))
+
+        self.app.push_screen(TextPrompt("Sign hold point", question), sign)
 
     def action_remote(self) -> None:
         frame = self.frame
@@ -166,10 +205,17 @@ class StepCommandScreen(PaintedScreen):
                 self._remote_busy = True
                 self._send_remote(switch_id, state)
             else:
+                self.bridge.cancel_remote()
                 self.notice(f"remote operation of {switch_id} cancelled: nothing sent")
                 self.bridge.log(f"remote {switch_id} -> {state} cancelled")
+                self._repaint_now()
 
-        self.app.push_screen(RemoteConfirm(switch_id, sw.label, present, state, question), sent)
+        simulated = bool(getattr(self.bridge, "simulated", False))
+        self.app.push_screen(
+            RemoteConfirm(switch_id, sw.label, present, state, question, simulated=simulated),
+            sent,
+        )
+        self._repaint_now()  # the NEXT line follows the dialog
 
     @work(group="command", exit_on_error=False)
     async def _send_remote(self, switch_id: str, state: str) -> None:

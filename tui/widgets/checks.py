@@ -44,10 +44,16 @@ def checks_text(
     out.append(
         f"  {counts[Status.FAIL]} fail  {counts[Status.WARN]} warn  {counts[Status.PASS]} pass  {counts[Status.NA]} n/a"
     )
+    held = sum(1 for r in results if r.cause == "settling")
     if overall == "settling" and results:
         out.append(
-            "\n~ readings still moving after switching: provisional until they settle", style="bold"
+            f"\n~ readings still moving after switching: {held} result(s) held, nothing is "
+            "judged until they are steady",
+            style="bold",
         )
+    stood = [r for r in results if r.cause == "stood_down"]
+    if stood:
+        out.append(f"\n- {len(stood)} check(s) stood down: {stood[0].message}", style="bold")
     shown = 0
     for r in ordered:
         if r.status in (Status.PASS, Status.NA) or shown >= limit:

@@ -18,6 +18,7 @@ from meas.model import Profile
 from meas.snapshot import MeterBlock
 
 from ..units import eng
+from .readings import below_threshold, current_threshold
 
 PHASES = ("A", "B", "C")
 _CELL_ASPECT = 2.0  # a terminal cell is about twice as tall as wide
@@ -78,9 +79,19 @@ def phasor_text(
         return out
     rmap = profile.meter_map(meter_id)
     has_angles = all(rmap.has(f"v_ang.{p}") and rmap.has(f"i_ang.{p}") for p in PHASES)
+    dead = below_threshold(profile, meter_id, block)
+    if dead:
+        out.append(
+            f"current below {eng(current_threshold(profile, meter_id), 'A', 0).strip()}: "
+            "no current phasors or PF (their angles would be noise)\n",
+            style="dim",
+        )
     if has_angles:
         v = {p: (block.get(f"v_ln.{p}"), block.get(f"v_ang.{p}")) for p in PHASES}
-        i = {p: (block.get(f"i.{p}"), block.get(f"i_ang.{p}")) for p in PHASES}
+        i = {
+            p: (math.nan, math.nan) if dead else (block.get(f"i.{p}"), block.get(f"i_ang.{p}"))
+            for p in PHASES
+        }
         out.append("\n".join(phasor_canvas(v, i, width, height)) + "\n")
         out.append("*=V (ABC) o=I (abc), vs V_A, ccw\n", style="dim")
         for p in PHASES:
@@ -96,7 +107,7 @@ def phasor_text(
             pw, qv = block.get(f"p.{p}"), block.get(f"q.{p}")
             phi = (
                 math.degrees(math.atan2(qv, pw))
-                if math.isfinite(pw) and math.isfinite(qv)
+                if math.isfinite(pw) and math.isfinite(qv) and not dead
                 else math.nan
             )
             out.append(f"  phase {p}: {eng(block.get(f'i.{p}'), 'A', 9)}  phi {_deg(phi)}\n")

@@ -23,7 +23,7 @@ from meas.snapshot import CommState, MeterBlock, Snapshot
 from ..units import UnitMode, eng, scale_factor, unit_label
 
 # a cached line: the header ("header", width, mode) or a meter row (id, cells, selected, width)
-_StripKey = tuple[str, int, UnitMode] | tuple[str, tuple[str, ...], bool, int]
+_StripKey = tuple[str, int, UnitMode] | tuple[str, tuple[str, ...], bool, int, bool]
 
 COMM_TEXT = {
     CommState.OK: "ok",
@@ -35,8 +35,8 @@ COMM_TEXT = {
 COLUMNS = (
     ("meter", 6),
     ("comm", 10),
-    ("V LL", 9),
-    ("I", 8),
+    ("V LL avg", 9),
+    ("I avg", 8),
     ("P", 9),
     ("Q", 10),
     ("PF", 6),
@@ -46,12 +46,58 @@ COLUMNS = (
 _HEADER = Style(bold=True, underline=True)
 _NORMAL = Style()
 _SELECTED = Style(reverse=True)
+_FAILING = Style(bold=True, color="red")
 _COMM_STYLE = {
     CommState.OK: Style(color="green"),
     CommState.DEGRADED: Style(color="yellow", bold=True),
     CommState.FAILING: Style(color="red", bold=True),
     CommState.OFFLINE: Style(color="red", bold=True, reverse=True),
 }
+
+
+# Below this share of the meter's rated current its PF and current angles are noise: shown
+# blank, not as a number (common practice; measuring ranges of PF usually start near 1 % of
+# the rated current, from memory of IEC 61557-12).
+PF_MIN_I_FRAC = 0.01
+
+
+def current_threshold(profile: Profile, meter_id: str) -> float:
+    """Primary amps below which a meter's PF and current phasors are not shown."""
+    m = profile.meter(meter_id)
+    # the rated current as the checks take it (meas/checks/layout.py): the CT primary, else
+    # the bench's per-unit current at the zone's voltage
+    v_ll = profile.zone_of_bus(m.bus).bench_v_ll
+    rated = m.ct_primary_a or profile.bench.s_base_va / (math.sqrt(3.0) * v_ll)
+    return PF_MIN_I_FRAC * float(rated)
+
+
+def below_threshold(profile: Profile, meter_id: str, block: MeterBlock) -> bool:
+    """Every phase current under the threshold (or unread): PF and angles mean nothing."""
+    limit = current_threshold(profile, meter_id)
+    vals = [block.get(f"i.{p}") for p in "ABC"]
+    good = [abs(v) for v in vals if math.isfinite(v)]
+    return not good or max(good) < limit
+
+
+def per_phase_lines(profile: Profile, meter_id: str, block: MeterBlock | None) -> list[str]:
+    """The selected meter's values per phase (a reversed CT shows only per phase)."""
+    if block is None:
+        return [f"{meter_id}: no reading yet"]
+    dead = below_threshold(profile, meter_id, block)
+    out = [f"{meter_id} per phase       A          B          C"]
+    for label, key, unit in (
+        ("V LN", "v_ln", "V"),
+        ("I", "i", "A"),
+        ("P", "p", "W"),
+        ("Q", "q", "var"),
+        ("PF", "pf", ""),
+    ):
+        if key == "pf" and dead:
+            cells = ["--".rjust(10)] * 3
+        else:
+            cells = [eng(block.get(f"{key}.{p}"), unit, 10) for p in "ABC"]
+        out.append(f"  {label:<14}" + " ".join(cells))
+    return out
 
 
 def _mean(block: MeterBlock, keys: tuple[str, ...]) -> float:
@@ -85,7 +131,11 @@ def row_cells(
         show("i.A", i, widths[3]),
         show("p.T", block.get("p.T"), widths[4]),
         show("q.T", block.get("q.T"), widths[5]),
-        eng(block.get("pf.T"), "", widths[6]),
+        (
+            "--".rjust(widths[6])
+            if below_threshold(profile, meter_id, block)
+            else eng(block.get("pf.T"), "", widths[6])
+        ),
         eng(block.get("f.T"), "Hz", widths[7]),
     )
 
@@ -116,10 +166,42 @@ class ReadingsGrid(Widget, can_focus=True):
         self._cells: dict[str, tuple[str, ...]] = {}
         self._strips: dict[_StripKey, Strip] = {}
         self._states: dict[str, CommState | None] = {}
+        self.failing: frozenset[str] = frozenset()  # meters with a failing check, marked
+        self._detail: list[str] = []  # the selected meter per phase, below the rows
         self.rebuilt_rows = 0  # rows whose text changed (benchmark and tests read it)
 
     def get_content_height(self, container: Size, viewport: Size, width: int) -> int:
-        return len(self.meter_ids) + 1
+        return len(self.meter_ids) + 1 + (len(self._detail) + 1 if self._detail else 0)
+
+    def _rows_shown(self) -> int:
+        """Meter rows that fit (the header takes one line); every row when they all fit."""
+        h = self.size.height
+        return len(self.meter_ids) if h <= 1 else max(1, h - 1)
+
+    def _clamp_top(self) -> None:
+        self.top = max(0, min(self.top, len(self.meter_ids) - self._rows_shown()))
+
+    def on_resize(self) -> None:
+        self._clamp_top()
+        self.refresh()
+
+    def set_failing(self, meters: frozenset[str]) -> None:
+        """Mark the meters with a failing check (a ``\u2718`` beside the id, in red)."""
+        if meters != self.failing:
+            changed = meters ^ self.failing
+            self.failing = meters
+            for idx, mid in enumerate(self.meter_ids):
+                if mid in changed:
+                    self._refresh_meter_line(idx)
+
+    def set_detail(self, lines: list[str]) -> None:
+        if lines != self._detail:
+            grew = len(lines) != len(self._detail)
+            self._detail = lines
+            if grew:
+                self.refresh(layout=True)
+            else:
+                self.refresh()
 
     def get_content_width(self, container: Size, viewport: Size) -> int:
         return 2 + sum(w for _, w in COLUMNS) + len(COLUMNS) - 1
@@ -158,12 +240,15 @@ class ReadingsGrid(Widget, can_focus=True):
     def _set_selected(self, idx: int) -> None:
         old = self.selected
         self.selected = idx
-        rows = max(1, self.size.height - 1)
+        rows = self._rows_shown()
         if idx < self.top:
             self.top = idx
             self.refresh()
         elif idx >= self.top + rows:
             self.top = idx - rows + 1
+            self.refresh()
+        elif self.top > 0 and len(self.meter_ids) <= rows:
+            self.top = 0  # everything fits: never scroll rows out of sight
             self.refresh()
         else:
             self._refresh_meter_line(old)
@@ -188,22 +273,33 @@ class ReadingsGrid(Widget, can_focus=True):
                 )
             return self._strips[head]
         idx = self.top + y - 1
-        if idx >= len(self.meter_ids):
+        shown = min(len(self.meter_ids) - self.top, self._rows_shown())
+        if idx >= len(self.meter_ids) or y > shown:
+            extra = y - shown - 2  # one blank line, then the selected meter per phase
+            if 0 <= extra < len(self._detail):
+                return Strip([Segment(self._detail[extra][:width], _NORMAL)]).extend_cell_length(
+                    width
+                )
             return Strip.blank(width)
         mid = self.meter_ids[idx]
         cells = self._cells.get(mid) or row_cells(self.profile, mid, None, self.mode)
         selected = idx == self.selected
-        key: _StripKey = (mid, cells, selected, width)
+        failing = mid in self.failing
+        key: _StripKey = (mid, cells, selected, width, failing)
         strip = self._strips.get(key)
         if strip is None:
-            strip = self._build(cells, self._states.get(mid), selected, width)
+            strip = self._build(cells, self._states.get(mid), selected, width, failing)
             self._strips = {k: v for k, v in self._strips.items() if k[0] != mid}
             self._strips[key] = strip
         return strip
 
     @staticmethod
     def _build(
-        cells: tuple[str, ...], state: CommState | None, selected: bool, width: int
+        cells: tuple[str, ...],
+        state: CommState | None,
+        selected: bool,
+        width: int,
+        failing: bool = False,
     ) -> Strip:
         base = _SELECTED if selected else _NORMAL
         dim = state in (CommState.FAILING, CommState.OFFLINE)
@@ -211,10 +307,9 @@ class ReadingsGrid(Widget, can_focus=True):
         comm_style = (
             base + _COMM_STYLE.get(state, Style(dim=True)) if state else base + Style(dim=True)
         )
-        segs = [
-            Segment("\u25b6 " if selected else "  ", base),
-            Segment(cells[0], base + Style(bold=True)),
-        ]
+        mark = ("\u25b6" if selected else " ") + ("\u2718" if failing else " ")
+        id_style = base + (_FAILING if failing else Style(bold=True))
+        segs = [Segment(mark, id_style), Segment(cells[0], id_style)]
         segs.append(Segment(" ", base))
         segs.append(Segment(cells[1], comm_style))
         for c in cells[2:]:

@@ -10,13 +10,30 @@ from ..keys import key_of
 from .checks import overall_text
 
 
+def verdict_style(line: str) -> str:
+    """The verdict's colour; the word carries the meaning, colour only repeats it."""
+    if line.startswith("PASS with"):
+        return "bold black on yellow"
+    if line.startswith("PASS"):
+        return "bold black on green"
+    return "bold white on red"
+
+
 def step_summary(step: StepInfo | None) -> Text:
     """Three lines that stay on screen in every view: where we are and what to press."""
     if step is None:
         return Text("no sequence loaded", style="dim")
-    out = Text(no_wrap=True, overflow="ellipsis")
+    out = Text()  # wraps: the NEXT line is never cut off at 80 columns
+    if step.simulated:
+        out.append(" SIMULATED BENCH ", style="bold black on magenta")
+        out.append(" ")
     out.append(f" Step {step.index} of {step.total} ", style="bold reverse")
     out.append(f" {step.title}\n", style="bold")
+    if step.finished and step.verdict:
+        out.append(f" VERDICT {step.verdict} ", style=verdict_style(step.verdict))
+        out.append("\n\u25b6 NEXT ", style="bold reverse")
+        out.append(" " + (step.next_action or "-"), style="bold")
+        return out
     out.append_text(overall_text(step.overall))
     out.append(f"  state: {step.state}")
     if step.settle is not None and not step.finished:
@@ -82,7 +99,7 @@ def step_detail(step: StepInfo | None) -> Text:
 
 
 class StepSummary(Static):
-    DEFAULT_CSS = "StepSummary { height: 3; }"
+    DEFAULT_CSS = "StepSummary { height: auto; max-height: 7; }"
 
     def __init__(self, **kw) -> None:
         super().__init__("", **kw)

@@ -1,0 +1,67 @@
+"""The end-of-walk summary: every step's outcome and the session verdict, once, at the end."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Label, Static
+
+from meas.verdict import OUTCOME_WORDS, StepRecord
+
+from ..widgets.step import verdict_style
+
+_MARK = {
+    "passed": ("\u2714", "green"),
+    "accepted_with_failures": ("!", "bold yellow"),
+    "skipped": ("\u2718", "bold red"),
+    "not_captured": ("\u2026", "bold red"),
+}
+
+
+def summary_text(records: Sequence[StepRecord], verdict_line: str, simulated: bool) -> Text:
+    """One line per step (mark, id, outcome in words, reason), then the verdict."""
+    out = Text()
+    if simulated:
+        out.append(" SIMULATED BENCH \n", style="bold black on magenta")
+    for r in records:
+        sym, style = _MARK[r.outcome]
+        out.append(f"{sym} ", style=style)
+        out.append(f"{r.step_id:<20} ", style="bold")
+        out.append(OUTCOME_WORDS[r.outcome], style=style)
+        if r.reason:
+            out.append(f"  ({r.reason})")
+        out.append("\n")
+    out.append(f"\n VERDICT {verdict_line} ", style=verdict_style(verdict_line))
+    return out
+
+
+class WalkSummary(ModalScreen[None]):
+    """Shown when the sequence ends; Enter or Escape returns to the bench screen."""
+
+    BINDINGS = [
+        Binding("enter", "close", "OK", id="summary.ok"),
+        Binding("escape", "close", "OK", show=False, id="summary.esc"),
+    ]
+
+    def __init__(self, records: Sequence[StepRecord], verdict_line: str, simulated: bool) -> None:
+        super().__init__()
+        self.records = tuple(records)
+        self.verdict_line = verdict_line
+        self.simulated = simulated
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="modal-box summary-box"):
+            yield Label("END OF THE WALK", classes="modal-title")
+            with VerticalScroll():
+                yield Static(summary_text(self.records, self.verdict_line, self.simulated))
+            yield Static(
+                "Enter = back to the bench (the dataset is being exported)", classes="modal-keys"
+            )
+
+    def action_close(self) -> None:
+        self.dismiss(None)
