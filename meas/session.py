@@ -23,8 +23,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from .errors import BenchwalkError
+from .journal.lock import SessionBusy
 from .journal.sessions import new_session_id, resolve_session, session_path
-from .journal.store import Journal
+from .journal.store import Journal, SessionExists
 from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
@@ -163,20 +164,13 @@ class Session:
         """Start a new session (and, for a demo, the simulated bench) from a profile file."""
         profile = load_profile(profile_path)
         validate_sequence(profile)
-        sid = session_id or new_session_id(profile.bench.name)
-        path = session_path(sid, sessions_dir)
         meta = {"simulated": simulate, "faults": list(faults), "seed": seed, "noise": noise}
         bench, live_profile = None, profile
         if simulate:
             bench, live_profile = await _start_bench(profile, faults, seed, noise)
         try:
-            journal = Journal.create(
-                path,
-                profile,
-                operator=operator,
-                session_id=sid,
-                meta=meta,
-            )
+            journal = _create_journal(profile, operator, session_id, sessions_dir, meta)
+            sid = journal.session_id
         except BaseException:
             if bench is not None:
                 await bench.stop()
@@ -206,7 +200,7 @@ class Session:
         The profile is read again from its file; when its sha256 differs from the one in
         the journal the resume is refused unless ``allow_changed_profile`` (and recorded).
         """
-        journal = Journal.open(resolve_session(session, sessions_dir))
+        journal = Journal.open(resolve_session(session, sessions_dir), for_writing=True)
         try:
             ppath = Path(profile_path or journal.profile_dict.get("path", ""))
             if not ppath.is_file():
@@ -363,6 +357,31 @@ class Session:
                     await self.bench.stop()
         finally:
             self.journal.close()
+
+
+def _create_journal(
+    profile: Profile,
+    operator: str,
+    session_id: str | None,
+    sessions_dir: Path | None,
+    meta: dict[str, Any],
+) -> Journal:
+    """A new journal under a given id, or a fresh id unique in the folder: two sessions
+    started in the same second get ``ID``, ``ID-2``, ... (the session lock settles a race)."""
+    if session_id is not None:
+        path = session_path(session_id, sessions_dir)
+        return Journal.create(path, profile, operator=operator, session_id=session_id, meta=meta)
+    base = new_session_id(profile.bench.name)
+    for n in range(1, 1000):
+        sid = base if n == 1 else f"{base}-{n}"
+        path = session_path(sid, sessions_dir)
+        if path.exists():
+            continue
+        try:
+            return Journal.create(path, profile, operator=operator, session_id=sid, meta=meta)
+        except (SessionExists, SessionBusy):
+            continue
+    raise BenchwalkError(f"{path.parent}: too many sessions started in the same second")
 
 
 async def _start_bench(
