@@ -160,10 +160,19 @@ class Session:
         on_saved: Callable[[int, str, str], None] | None = None,
         live_every_s: float = 1.0,
         live_checks: bool = True,
+        out_dir: Path | None = None,
     ) -> Session:
-        """Start a new session (and, for a demo, the simulated bench) from a profile file."""
+        """Start a new session (and, for a demo, the simulated bench) from a profile file.
+
+        ``out_dir``: where the dataset and report will go; its problems are found now,
+        before anything is measured.
+        """
         profile = load_profile(profile_path)
         validate_sequence(profile)
+        if out_dir is not None:
+            from .dataset.outputs import check_output_folder
+
+            check_output_folder(Path(out_dir))
         meta = {"simulated": simulate, "faults": list(faults), "seed": seed, "noise": noise}
         bench, live_profile = None, profile
         if simulate:
@@ -194,6 +203,7 @@ class Session:
         on_saved: Callable[[int, str, str], None] | None = None,
         live_every_s: float = 1.0,
         live_checks: bool = True,
+        out_dir: Path | None = None,
     ) -> Session:
         """Continue a session at the first step not yet accepted or skipped.
 
@@ -202,6 +212,10 @@ class Session:
         """
         journal = Journal.open(resolve_session(session, sessions_dir), for_writing=True)
         try:
+            if out_dir is not None:
+                from .dataset.outputs import check_output_folder
+
+                check_output_folder(Path(out_dir), journal.path, journal.session_id)
             ppath = Path(profile_path or journal.profile_dict.get("path", ""))
             if not ppath.is_file():
                 raise BenchwalkError(
@@ -337,10 +351,14 @@ class Session:
     def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
         """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
         from .dataset.export import export_session
+        from .dataset.outputs import check_report_target
         from .report import write_report
 
         out = Path(out_dir)
-        dataset = export_session(self.journal.path, out / "dataset", overwrite=overwrite)
+        check_report_target(out / "report.html", out / "dataset")  # before anything is written
+        dataset = export_session(
+            self.journal.path, out / "dataset", overwrite=overwrite, replace_own=True
+        )
         html, _md = write_report(dataset, out / "report.html")
         return dataset, html
 

@@ -30,6 +30,7 @@ from ..journal.sessions import resolve_session
 from ..journal.store import Journal
 from ..progress import Progress
 from .files import fsync_dir, fsync_file, sha256_of, slug
+from .outputs import check_dataset_target
 from .schema import DATA_DIR, MAIN_PROFILE, PROFILE_DIR, TABLES, arrow_schema, table_schema
 from .tables import BATCH_READINGS, measurement_batches, measurement_tables, small_tables, to_tables
 
@@ -71,8 +72,15 @@ def export_session(
     *,
     overwrite: bool = False,
     progress: Progress | None = None,
+    replace_own: bool = False,
 ) -> Path:
-    """Write the session's dataset folder atomically; returns its path."""
+    """Write the session's dataset folder atomically; returns its path.
+
+    Only a benchwalk dataset is ever replaced (``overwrite``; or, with ``replace_own``, one
+    of the same session); every other folder or file is refused before anything is written
+    (``meas.dataset.outputs``). The journal's WAL is folded into it first when no session
+    holds it, so the ``.sqlite`` file alone is a complete copy.
+    """
     path = resolve_session(journal_path_or_session)
     journal = Journal.open(path)
     where = path  # what a failure message names: the journal, then the folder being written
@@ -81,10 +89,14 @@ def export_session(
             Path(out_dir) if out_dir is not None else default_dataset_dir(path, journal.session_id)
         )
         where = target
-        if target.exists() and not overwrite:
-            raise BenchwalkError(
-                f"{target}: a dataset already exists there; pass --overwrite to replace it or choose another --out"
-            )
+        check_dataset_target(
+            target,
+            path,
+            overwrite=overwrite,
+            session_id=journal.session_id,
+            replace_own=replace_own,
+        )
+        checkpoint_if_idle(journal, path)
         target.parent.mkdir(parents=True, exist_ok=True)
         remove_stale_exports(target)
         tmp = target.parent / f".{target.name}.partial-{os.getpid()}"
@@ -96,6 +108,7 @@ def export_session(
         except BaseException:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
+        remove_stale_exports(target)  # an old copy a killed swap left, now that NAME is back
         return target
     except OSError as exc:
         raise BenchwalkError(
@@ -107,6 +120,21 @@ def export_session(
         ) from exc
     finally:
         journal.close()
+
+
+def checkpoint_if_idle(journal: Journal, path: Path) -> None:
+    """Fold the WAL into the journal file when no process holds the session (a running one
+    checkpoints on its own when it stops); a held session is left alone."""
+    from ..journal.lock import SessionBusy, SessionLock
+
+    try:
+        lock = SessionLock(path).acquire()
+    except (SessionBusy, BenchwalkError):
+        return
+    try:
+        journal.checkpoint()
+    finally:
+        lock.release()
 
 
 def _pid_alive(pid: int) -> bool:

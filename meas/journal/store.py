@@ -173,6 +173,7 @@ class Journal:
         path = Path(path)
         if not path.is_file():
             raise BenchwalkError(f"{path}: no session journal here")
+        _require_sqlite(path)
         lock = SessionLock(path).acquire() if for_writing else None
         try:
             return cls._open(path, lock)
@@ -419,6 +420,24 @@ class Journal:
             except sqlite3.Error as exc:
                 self._keysets = known
                 raise JournalWriteError(_write_advice(self.path, what, exc)) from exc
+
+
+SQLITE_MAGIC = b"SQLite format 3\x00"
+
+
+def _require_sqlite(path: Path) -> None:
+    """Refuse a file that is not an SQLite database before SQLite opens it: opening an empty
+    file (a typo, a wrong argument) would turn it into a database."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(len(SQLITE_MAGIC))
+    except OSError as exc:
+        raise BenchwalkError(f"{path}: cannot read the journal ({exc.strerror or exc})") from None
+    if head != SQLITE_MAGIC:
+        what = "an empty file" if not head else "not an SQLite file"
+        raise BenchwalkError(
+            f"{path}: not a readable benchwalk journal ({what}); give the session's .sqlite file"
+        )
 
 
 def _row_id(cur: sqlite3.Cursor) -> int:

@@ -54,6 +54,7 @@ async def _headless(args: argparse.Namespace) -> int:
         seed=args.seed,
         on_saved=saved_printer(args.log_saved),
         live_checks=False,
+        out_dir=args.out,
     )
     print(f"Session {session.session_id}: journal {session.path} (simulated bench)", flush=True)
     return await walk(session, SimTechnician(session, SIM_OPERATOR), args.out)
