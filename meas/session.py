@@ -16,6 +16,7 @@ the configuration the sequence had reached.
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import math
 from collections.abc import AsyncIterator, Callable, Sequence
@@ -134,6 +135,7 @@ class Session:
         self.bench = bench
         self.control = control
         self._closed = False
+        self._feed: asyncio.Task[None] | None = None  # polls and ticks the runner for views()
 
     @property
     def session_id(self) -> str:
@@ -338,15 +340,50 @@ class Session:
         return set_by_hand(view, self.bench, command)
 
     async def views(self) -> AsyncIterator[RunnerView]:
-        """Poll, feed the runner, yield its picture; ends when the sequence is done."""
+        """Poll, feed the runner, yield its picture; ends when the sequence is done.
+
+        Polling, checks and journalling run in a task of their own: a caller that waits
+        for a person (a prompt in headless mode) between two views never pauses them. A
+        slow caller gets the newest picture; the runner itself sees every snapshot.
+        """
         yield self.runner.view()
         if self.runner.done:
             return
-        async for snap in self.poller.run(self.profile.poll.interval_s):
-            await self.runner.tick(snap)
-            yield self.runner.view()
-            if self.runner.done:
-                return
+        await self._stop_feed()  # an earlier views() left unfinished: one feeder at a time
+        ticked = asyncio.Event()  # set after every tick: the caller's cue for a new picture
+
+        async def feed() -> None:
+            async for snap in self.poller.run(self.profile.poll.interval_s):
+                await self.runner.tick(snap)
+                ticked.set()
+                if self.runner.done:
+                    return
+
+        self._feed = feeder = asyncio.create_task(feed(), name="session poll and journal")
+        try:
+            while True:
+                cue = asyncio.ensure_future(ticked.wait())
+                await asyncio.wait({cue, feeder}, return_when=asyncio.FIRST_COMPLETED)
+                if not cue.done():
+                    cue.cancel()
+                    feeder.result()  # the feed failed (a journal write, say): raise it here
+                    if not ticked.is_set():
+                        return
+                ticked.clear()
+                # the picture now, not when the tick ended: the caller's own commands since
+                # then are in it
+                yield self.runner.view()
+                if self.runner.done:
+                    return
+        finally:
+            await self._stop_feed()
+
+    async def _stop_feed(self) -> None:
+        feeder, self._feed = self._feed, None
+        if feeder is not None and not feeder.done():
+            feeder.cancel()
+            with contextlib.suppress(asyncio.CancelledError, Exception):
+                await feeder
 
     def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
         """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
@@ -368,6 +405,7 @@ class Session:
             return
         self._closed = True
         try:
+            await self._stop_feed()  # before the poller closes: it would start polling again
             with contextlib.suppress(Exception):
                 await self.poller.close()
             if self.bench is not None:
