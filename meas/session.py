@@ -443,9 +443,12 @@ def _create_journal(
 async def _start_bench(
     profile: Profile, faults: Sequence[str], seed: int | None, noise: bool
 ) -> tuple[SimulatedBench, Profile]:
+    from .profile.settings import seed_problem
     from .sim.bench import SimulatedBench
     from .sim.faults import parse_fault, validate_faults
 
+    if seed is not None and (why := seed_problem(seed)):
+        raise BenchwalkError(f"seed: {why}")
     parsed = tuple(parse_fault(f) for f in faults)
     validate_faults(profile, parsed)
     kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}

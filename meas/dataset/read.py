@@ -198,12 +198,24 @@ def read_table(
     folder = Path(folder)
     p = folder / DATA_DIR / f"{name}.parquet"
     want = column_names(name)
+    try:  # the file's columns first (cheap): a column missing is one short line, not pyarrow's
+        have = pq.read_schema(p).names
+    except FileNotFoundError:
+        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet is missing") from None
+    except (OSError, pa.ArrowException, ValueError) as exc:
+        raise bad_dataset(
+            folder, f"{DATA_DIR}/{name}.parquet cannot be read ({show_rel(str(exc))})"
+        ) from None
+    if missing := [c for c in want if c not in have]:
+        raise bad_dataset(folder, f"{name} lacks the column(s) {', '.join(missing)}")
     try:
         t = pq.read_table(p, columns=columns, filters=filters)
     except FileNotFoundError:
         raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet is missing") from None
     except (OSError, pa.ArrowException, ValueError) as exc:
-        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
+        raise bad_dataset(
+            folder, f"{DATA_DIR}/{name}.parquet cannot be read ({show_rel(str(exc))})"
+        ) from None
     if columns is None and t.column_names != want:
         raise bad_dataset(folder, f"{name} has columns {show_rel(t.column_names)}, expected {want}")
     expected = arrow_schema(name)
@@ -215,7 +227,9 @@ def read_table(
     try:
         return t.to_pandas()
     except (pa.ArrowException, ValueError, OverflowError) as exc:
-        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
+        raise bad_dataset(
+            folder, f"{DATA_DIR}/{name}.parquet cannot be read ({show_rel(str(exc))})"
+        ) from None
 
 
 def load_dataset(

@@ -20,7 +20,7 @@ from .devices import read_meters, read_plcs, read_switches
 from .maps import read_maps
 from .network import read_branches, read_buses
 from .scanner import Key, locate_keys
-from .settings import read_bench, read_checks, read_control, read_poll
+from .settings import read_bench, read_checks, read_control, read_poll, read_sim
 from .steps import read_steps
 from .tables import Doc, Table, array_of_tables, format_path, printable
 
@@ -183,7 +183,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
     control = read_control(root)
     poll = read_poll(root)
     checks = read_checks(root)
-    sim = root.get("sim", "table", {})
+    sim = read_sim(root)
     maps = read_maps(doc, root)
     buses = read_buses(doc, root, bench.zones)
     branches, partial = read_branches(doc, root, buses)
