@@ -43,6 +43,11 @@ class Dataset:
         """The bench profile from the copied files (``meas.profile.load_profile``)."""
         from ..profile import load_profile  # noqa: PLC0415 - keeps dataset import light
 
+        inside = _member(self.path, f"{PROFILE_DIR}/{MAIN_PROFILE}")
+        if inside is None:  # a symlink (or a folder) leading out of the dataset: never read
+            raise bad_dataset(
+                self.path, f"{PROFILE_DIR}/{MAIN_PROFILE} leads outside the dataset folder"
+            )
         if not self.profile_path.is_file():
             raise BenchwalkError(
                 f"{self.path}: the dataset has no {PROFILE_DIR}/{MAIN_PROFILE} to rebuild the bench from"
@@ -197,6 +202,8 @@ def read_table(
     """One table from its Parquet copy, with its columns checked against the schema."""
     folder = Path(folder)
     p = folder / DATA_DIR / f"{name}.parquet"
+    if _member(folder, f"{DATA_DIR}/{name}.parquet") is None:
+        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet leads outside the dataset folder")
     want = column_names(name)
     try:  # the file's columns first (cheap): a column missing is one short line, not pyarrow's
         have = pq.read_schema(p).names
