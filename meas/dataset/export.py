@@ -10,11 +10,13 @@ memory whole.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
 import shutil
 import sqlite3
+import tempfile
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -26,8 +28,9 @@ import pyarrow.parquet as pq
 from .. import __version__
 from ..errors import BenchwalkError
 from ..journal.read import JournalView
+from ..journal.salvage import salvage_journal
 from ..journal.sessions import resolve_session
-from ..journal.store import Journal
+from ..journal.store import Journal, JournalDamaged
 from ..progress import Progress
 from .files import fsync_dir, fsync_file, sha256_of, slug
 from .outputs import check_dataset_target
@@ -82,7 +85,27 @@ def export_session(
     holds it, so the ``.sqlite`` file alone is a complete copy.
     """
     path = resolve_session(journal_path_or_session)
-    journal = Journal.open(path)
+    with contextlib.ExitStack() as stack:
+        try:
+            journal = Journal.open(path)
+            damage: list[str] = []
+        except JournalDamaged as exc:  # export what is readable, with the damage listed
+            tmp = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="benchwalk-")))
+            saved = salvage_journal(path, tmp / path.name)
+            damage = [f"{exc}"] + saved.damage
+            journal = Journal.open(saved.path)
+        return _export(journal, path, out_dir, overwrite, progress, replace_own, damage)
+
+
+def _export(
+    journal: Journal,
+    path: Path,
+    out_dir: Path | None,
+    overwrite: bool,
+    progress: Progress | None,
+    replace_own: bool,
+    damage: list[str],
+) -> Path:
     where = path  # what a failure message names: the journal, then the folder being written
     try:
         target = (
@@ -96,14 +119,15 @@ def export_session(
             session_id=journal.session_id,
             replace_own=replace_own,
         )
-        checkpoint_if_idle(journal, path)
+        if not damage:
+            checkpoint_if_idle(journal, path)
         target.parent.mkdir(parents=True, exist_ok=True)
         remove_stale_exports(target)
         tmp = target.parent / f".{target.name}.partial-{os.getpid()}"
         if tmp.exists():
             shutil.rmtree(tmp)
         try:
-            _write_dataset(journal, path, tmp, progress)
+            _write_dataset(journal, journal.path, tmp, progress, damage)
             _swap_in(tmp, target)
         except BaseException:
             shutil.rmtree(tmp, ignore_errors=True)
@@ -189,7 +213,11 @@ def _swap_in(tmp: Path, target: Path) -> None:
 
 
 def _write_dataset(
-    journal: Journal, journal_path: Path, folder: Path, progress: Progress | None
+    journal: Journal,
+    journal_path: Path,
+    folder: Path,
+    progress: Progress | None,
+    damage: list[str] | None = None,
 ) -> None:
     data = folder / DATA_DIR
     data.mkdir(parents=True)
@@ -235,6 +263,8 @@ def _write_dataset(
         if p.is_file():
             fsync_file(p)
     pkg = _datapackage(journal, folder, counts, profile_entries)
+    if damage:  # only a salvaged journal's dataset has the key
+        pkg["benchwalk"]["journal_damage"] = damage
     (folder / "datapackage.json").write_text(
         json.dumps(pkg, indent=2, ensure_ascii=False) + "\n", encoding="utf-8"
     )

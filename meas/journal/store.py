@@ -49,6 +49,10 @@ class JournalWriteError(BenchwalkError):
     """A record could not be saved (disk full, read-only, I/O error); earlier records are intact."""
 
 
+class JournalDamaged(BenchwalkError):
+    """SQLite's own check found damage: resume is refused; export salvages what is readable."""
+
+
 class SessionExists(BenchwalkError):
     """A journal of that name is already there: captured data is never overwritten."""
 
@@ -184,17 +188,31 @@ class Journal:
 
     @classmethod
     def _open(cls, path: Path, lock: SessionLock | None) -> Journal:
+        conn: sqlite3.Connection | None = None
         try:
             conn = connect(path)
             ok = conn.execute("PRAGMA quick_check").fetchone()[0]
             if ok != "ok":
-                raise BenchwalkError(
-                    f"{path}: the journal is damaged ({ok}); keep a copy and export what is readable"
+                raise JournalDamaged(
+                    f"{path}: the journal is damaged ({ok}); keep a copy, and `benchwalk export` "
+                    "it to get what is readable"
                 )
             row = read.read_session(conn)
-        except sqlite3.Error as exc:
+        except sqlite3.DatabaseError as exc:
+            if conn is not None:
+                conn.close()
+            if "malformed" in str(exc) or "corrupt" in str(exc):
+                raise JournalDamaged(
+                    f"{path}: the journal is damaged ({exc}); keep a copy, and `benchwalk export` "
+                    "it to get what is readable"
+                ) from exc
             raise BenchwalkError(f"{path}: not a readable benchwalk journal ({exc})") from exc
+        except BaseException:
+            if conn is not None:
+                conn.close()
+            raise
         if row is None:
+            conn.close()
             raise BenchwalkError(f"{path}: the journal holds no session")
         return cls(path, conn, row, lock)
 
