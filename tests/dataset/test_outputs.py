@@ -172,3 +172,39 @@ def test_check_dataset_target_refuses_a_symlink(journal, tmp_path):
     with pytest.raises(BenchwalkError, match="symbolic link"):
         export_session(journal, link, overwrite=True)
     verify_dataset(real)
+
+
+@pytest.mark.slow
+def test_resume_after_an_interrupted_export_writes_the_dataset_again(tmp_path):
+    """A demo whose export was cut short (no report, a killed export's partial folder left):
+    resuming the finished session exports again over its own dataset and cleans up."""
+    from support.benches import write_fast_demo
+
+    profile = write_fast_demo(tmp_path / "bench")
+    out, sessions = tmp_path / "o", tmp_path / "s"
+    r = subprocess.run(
+        [sys.executable, "-m", "tui.cli", "demo", "--headless", "--profile", str(profile)]
+        + ["--sessions", str(sessions), "--out", str(out), "--seed", "3"],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert r.returncode in (0, 1), r.stderr
+    (out / "report.html").unlink()
+    (out / "report.md").unlink()
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    (out / f".dataset.partial-{dead.pid}" / "data").mkdir(parents=True)
+    journal = next(sessions.glob("*.sqlite"))
+    r = subprocess.run(
+        [sys.executable, "-m", "tui.cli", "resume", str(journal), "--headless", "--out", str(out)],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert r.returncode in (0, 1), r.stderr
+    assert "Dataset written to" in r.stdout
+    assert sorted(p.name for p in out.iterdir()) == ["dataset", "report.html", "report.md"]
+    verify_dataset(out / "dataset")
