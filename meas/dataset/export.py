@@ -209,7 +209,10 @@ def _swap_in(tmp: Path, target: Path) -> None:
     os.rename(tmp, target)
     fsync_dir(target.parent)
     if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+        if old.is_dir() and not old.is_symlink():
+            shutil.rmtree(old, ignore_errors=True)
+        else:  # never reached (a file target is refused first); never left behind either
+            old.unlink(missing_ok=True)
 
 
 def _write_dataset(
