@@ -187,7 +187,7 @@ def _recorded_histories(events: pd.DataFrame) -> dict[int, list[int]]:
         try:
             d = json.loads(data)
             out[int(d["snapshot"])] = [int(r) for r in d["history"] if r is not None]
-        except (TypeError, ValueError, KeyError):
+        except (TypeError, ValueError, KeyError, OverflowError):  # 1e400 reads as inf
             continue  # a damaged entry falls back to the same-step rule; differences still show
     return out
 

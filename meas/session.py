@@ -18,6 +18,7 @@ seed and every applied value under ``as_built``; the profile keeps the nameplate
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import math
 from collections.abc import AsyncIterator, Callable, Sequence
@@ -25,8 +26,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from .errors import BenchwalkError
+from .journal.lock import SessionBusy
 from .journal.sessions import new_session_id, resolve_session, session_path
-from .journal.store import Journal
+from .journal.store import Journal, SessionExists
 from .model import CapturePolicy, Profile, SwitchState
 from .profile import load_profile
 from .results import Status
@@ -177,6 +179,7 @@ class Session:
         self.bench = bench
         self.control = control
         self._closed = False
+        self._feed: asyncio.Task[None] | None = None  # polls and ticks the runner for views()
 
     @property
     def session_id(self) -> str:
@@ -205,17 +208,21 @@ class Session:
         live_checks: bool = True,
         as_built_seed: int | str | None = None,
         model_errors: Sequence[str] = (),
+        out_dir: Path | None = None,
     ) -> Session:
         """Start a new session (and, for a demo, the simulated bench) from a profile file.
 
         ``as_built_seed`` and ``model_errors`` run the simulated bench on a true network off
-        the nameplate (``meas.sim.as_built``); they are checked before anything starts.
+        the nameplate (``meas.sim.as_built``); ``out_dir`` is where the dataset and report
+        will go. Both are checked now, before anything is measured.
         """
         profile = load_profile(profile_path)
         validate_sequence(profile)
         built = _as_built(profile, simulate, as_built_seed, model_errors)
-        sid = session_id or new_session_id(profile.bench.name)
-        path = session_path(sid, sessions_dir)
+        if out_dir is not None:
+            from .dataset.outputs import check_output_folder
+
+            check_output_folder(Path(out_dir))
         meta: dict[str, Any] = {"simulated": simulate, "faults": list(faults), "seed": seed}
         meta["noise"] = noise
         if built is not None:  # the true network the simulated bench runs
@@ -226,13 +233,8 @@ class Session:
             for sw, state in bench_start_state(profile, 0).items():
                 bench.operate_by_hand(sw, state)
         try:
-            journal = Journal.create(
-                path,
-                profile,
-                operator=operator,
-                session_id=sid,
-                meta=meta,
-            )
+            journal = _create_journal(profile, operator, session_id, sessions_dir, meta)
+            sid = journal.session_id
         except BaseException:
             if bench is not None:
                 await bench.stop()
@@ -256,14 +258,19 @@ class Session:
         on_saved: Callable[[int, str, str], None] | None = None,
         live_every_s: float = 1.0,
         live_checks: bool = True,
+        out_dir: Path | None = None,
     ) -> Session:
         """Continue a session at the first step not yet accepted or skipped.
 
         The profile is read again from its file; when its sha256 differs from the one in
         the journal the resume is refused unless ``allow_changed_profile`` (and recorded).
         """
-        journal = Journal.open(resolve_session(session, sessions_dir))
+        journal = Journal.open(resolve_session(session, sessions_dir), for_writing=True)
         try:
+            if out_dir is not None:
+                from .dataset.outputs import check_output_folder
+
+                check_output_folder(Path(out_dir), journal.path, journal.session_id)
             ppath = Path(profile_path or journal.profile_dict.get("path", ""))
             if not ppath.is_file():
                 raise BenchwalkError(
@@ -394,23 +401,62 @@ class Session:
         return set_by_hand(view, self.bench, command)
 
     async def views(self) -> AsyncIterator[RunnerView]:
-        """Poll, feed the runner, yield its picture; ends when the sequence is done."""
+        """Poll, feed the runner, yield its picture; ends when the sequence is done.
+
+        Polling, checks and journalling run in a task of their own: a caller that waits
+        for a person (a prompt in headless mode) between two views never pauses them. A
+        slow caller gets the newest picture; the runner itself sees every snapshot.
+        """
         yield self.runner.view()
         if self.runner.done:
             return
-        async for snap in self.poller.run(self.profile.poll.interval_s):
-            await self.runner.tick(snap)
-            yield self.runner.view()
-            if self.runner.done:
-                return
+        await self._stop_feed()  # an earlier views() left unfinished: one feeder at a time
+        ticked = asyncio.Event()  # set after every tick: the caller's cue for a new picture
+
+        async def feed() -> None:
+            async for snap in self.poller.run(self.profile.poll.interval_s):
+                await self.runner.tick(snap)
+                ticked.set()
+                if self.runner.done:
+                    return
+
+        self._feed = feeder = asyncio.create_task(feed(), name="session poll and journal")
+        try:
+            while True:
+                cue = asyncio.ensure_future(ticked.wait())
+                await asyncio.wait({cue, feeder}, return_when=asyncio.FIRST_COMPLETED)
+                if not cue.done():
+                    cue.cancel()
+                    feeder.result()  # the feed failed (a journal write, say): raise it here
+                    if not ticked.is_set():
+                        return
+                ticked.clear()
+                # the picture now, not when the tick ended: the caller's own commands since
+                # then are in it
+                yield self.runner.view()
+                if self.runner.done:
+                    return
+        finally:
+            await self._stop_feed()
+
+    async def _stop_feed(self) -> None:
+        feeder, self._feed = self._feed, None
+        if feeder is not None and not feeder.done():
+            feeder.cancel()
+            with contextlib.suppress(asyncio.CancelledError, Exception):
+                await feeder
 
     def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
         """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
         from .dataset.export import export_session
+        from .dataset.outputs import check_report_target
         from .report import write_report
 
         out = Path(out_dir)
-        dataset = export_session(self.journal.path, out / "dataset", overwrite=overwrite)
+        check_report_target(out / "report.html", out / "dataset")  # before anything is written
+        dataset = export_session(
+            self.journal.path, out / "dataset", overwrite=overwrite, replace_own=True
+        )
         html, _md = write_report(dataset, out / "report.html")
         return dataset, html
 
@@ -420,6 +466,7 @@ class Session:
             return
         self._closed = True
         try:
+            await self._stop_feed()  # before the poller closes: it would start polling again
             with contextlib.suppress(Exception):
                 await self.poller.close()
             if self.bench is not None:
@@ -451,6 +498,31 @@ def _as_built(
     return from_options(profile, seed, model_errors)
 
 
+def _create_journal(
+    profile: Profile,
+    operator: str,
+    session_id: str | None,
+    sessions_dir: Path | None,
+    meta: dict[str, Any],
+) -> Journal:
+    """A new journal under a given id, or a fresh id unique in the folder: two sessions
+    started in the same second get ``ID``, ``ID-2``, ... (the session lock settles a race)."""
+    if session_id is not None:
+        path = session_path(session_id, sessions_dir)
+        return Journal.create(path, profile, operator=operator, session_id=session_id, meta=meta)
+    base = new_session_id(profile.bench.name)
+    for n in range(1, 1000):
+        sid = base if n == 1 else f"{base}-{n}"
+        path = session_path(sid, sessions_dir)
+        if path.exists():
+            continue
+        try:
+            return Journal.create(path, profile, operator=operator, session_id=sid, meta=meta)
+        except (SessionExists, SessionBusy):
+            continue
+    raise BenchwalkError(f"{path.parent}: too many sessions started in the same second")
+
+
 async def _start_bench(
     profile: Profile,
     faults: Sequence[str],
@@ -458,9 +530,12 @@ async def _start_bench(
     noise: bool,
     built: AsBuilt | None = None,
 ) -> tuple[SimulatedBench, Profile]:
+    from .profile.settings import seed_problem
     from .sim.bench import SimulatedBench
     from .sim.faults import parse_fault, validate_faults
 
+    if seed is not None and (why := seed_problem(seed)):
+        raise BenchwalkError(f"seed: {why}")
     parsed = tuple(parse_fault(f) for f in faults)
     validate_faults(profile, parsed)
     kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}

@@ -10,11 +10,13 @@ memory whole.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
 import shutil
 import sqlite3
+import tempfile
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -26,12 +28,14 @@ import pyarrow.parquet as pq
 from .. import __version__
 from ..errors import BenchwalkError
 from ..journal.read import JournalView
+from ..journal.salvage import salvage_journal
 from ..journal.sessions import resolve_session
-from ..journal.store import Journal
+from ..journal.store import Journal, JournalDamaged
 from ..progress import Progress
 from ..verdict import records_from_log, session_verdict
 from .files import fsync_dir, fsync_file, sha256_of, slug
 from .grid_tables import NETWORK_FILE, write_network
+from .outputs import check_dataset_target
 from .schema import (
     DATA_DIR,
     FORMAT_VERSION,
@@ -81,31 +85,64 @@ def export_session(
     *,
     overwrite: bool = False,
     progress: Progress | None = None,
+    replace_own: bool = False,
 ) -> Path:
-    """Write the session's dataset folder atomically; returns its path."""
+    """Write the session's dataset folder atomically; returns its path.
+
+    Only a benchwalk dataset is ever replaced (``overwrite``; or, with ``replace_own``, one
+    of the same session); every other folder or file is refused before anything is written
+    (``meas.dataset.outputs``). The journal's WAL is folded into it first when no session
+    holds it, so the ``.sqlite`` file alone is a complete copy.
+    """
     path = resolve_session(journal_path_or_session)
-    journal = Journal.open(path)
+    with contextlib.ExitStack() as stack:
+        try:
+            journal = Journal.open(path)
+            damage: list[str] = []
+        except JournalDamaged as exc:  # export what is readable, with the damage listed
+            tmp = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="benchwalk-")))
+            saved = salvage_journal(path, tmp / path.name)
+            damage = [f"{exc}"] + saved.damage
+            journal = Journal.open(saved.path)
+        return _export(journal, path, out_dir, overwrite, progress, replace_own, damage)
+
+
+def _export(
+    journal: Journal,
+    path: Path,
+    out_dir: Path | None,
+    overwrite: bool,
+    progress: Progress | None,
+    replace_own: bool,
+    damage: list[str],
+) -> Path:
     where = path  # what a failure message names: the journal, then the folder being written
     try:
         target = (
             Path(out_dir) if out_dir is not None else default_dataset_dir(path, journal.session_id)
         )
         where = target
-        if target.exists() and not overwrite:
-            raise BenchwalkError(
-                f"{target}: a dataset already exists there; pass --overwrite to replace it or choose another --out"
-            )
+        check_dataset_target(
+            target,
+            path,
+            overwrite=overwrite,
+            session_id=journal.session_id,
+            replace_own=replace_own,
+        )
+        if not damage:
+            checkpoint_if_idle(journal, path)
         target.parent.mkdir(parents=True, exist_ok=True)
         remove_stale_exports(target)
         tmp = target.parent / f".{target.name}.partial-{os.getpid()}"
         if tmp.exists():
             shutil.rmtree(tmp)
         try:
-            _write_dataset(journal, path, tmp, progress)
+            _write_dataset(journal, journal.path, tmp, progress, damage)
             _swap_in(tmp, target)
         except BaseException:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
+        remove_stale_exports(target)  # an old copy a killed swap left, now that NAME is back
         return target
     except OSError as exc:
         raise BenchwalkError(
@@ -117,6 +154,21 @@ def export_session(
         ) from exc
     finally:
         journal.close()
+
+
+def checkpoint_if_idle(journal: Journal, path: Path) -> None:
+    """Fold the WAL into the journal file when no process holds the session (a running one
+    checkpoints on its own when it stops); a held session is left alone."""
+    from ..journal.lock import SessionBusy, SessionLock
+
+    try:
+        lock = SessionLock(path).acquire()
+    except (SessionBusy, BenchwalkError):
+        return
+    try:
+        journal.checkpoint()
+    finally:
+        lock.release()
 
 
 def _pid_alive(pid: int) -> bool:
@@ -167,11 +219,18 @@ def _swap_in(tmp: Path, target: Path) -> None:
     os.rename(tmp, target)
     fsync_dir(target.parent)
     if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+        if old.is_dir() and not old.is_symlink():
+            shutil.rmtree(old, ignore_errors=True)
+        else:  # never reached (a file target is refused first); never left behind either
+            old.unlink(missing_ok=True)
 
 
 def _write_dataset(
-    journal: Journal, journal_path: Path, folder: Path, progress: Progress | None
+    journal: Journal,
+    journal_path: Path,
+    folder: Path,
+    progress: Progress | None,
+    damage: list[str] | None = None,
 ) -> None:
     data = folder / DATA_DIR
     data.mkdir(parents=True)
@@ -218,6 +277,8 @@ def _write_dataset(
         if p.is_file():
             fsync_file(p)
     pkg = _datapackage(journal, folder, counts, profile_entries)
+    if damage:  # only a salvaged journal's dataset has the key
+        pkg["benchwalk"]["journal_damage"] = damage
     (folder / "datapackage.json").write_text(
         json.dumps(pkg, indent=2, ensure_ascii=False) + "\n", encoding="utf-8"
     )

@@ -51,6 +51,11 @@ class Dataset:
         """The bench profile from the copied files (``meas.profile.load_profile``)."""
         from ..profile import load_profile  # noqa: PLC0415 - keeps dataset import light
 
+        inside = _member(self.path, f"{PROFILE_DIR}/{MAIN_PROFILE}")
+        if inside is None:  # a symlink (or a folder) leading out of the dataset: never read
+            raise bad_dataset(
+                self.path, f"{PROFILE_DIR}/{MAIN_PROFILE} leads outside the dataset folder"
+            )
         if not self.profile_path.is_file():
             raise BenchwalkError(
                 f"{self.path}: the dataset has no {PROFILE_DIR}/{MAIN_PROFILE} to rebuild the bench from"
@@ -205,13 +210,27 @@ def read_table(
     """One table from its Parquet copy, with its columns checked against the schema."""
     folder = Path(folder)
     p = folder / DATA_DIR / f"{name}.parquet"
+    if _member(folder, f"{DATA_DIR}/{name}.parquet") is None:
+        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet leads outside the dataset folder")
     want = column_names(name)
+    try:  # the file's columns first (cheap): a column missing is one short line, not pyarrow's
+        have = pq.read_schema(p).names
+    except FileNotFoundError:
+        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet is missing") from None
+    except (OSError, pa.ArrowException, ValueError) as exc:
+        raise bad_dataset(
+            folder, f"{DATA_DIR}/{name}.parquet cannot be read ({show_rel(str(exc))})"
+        ) from None
+    if missing := [c for c in want if c not in have]:
+        raise bad_dataset(folder, f"{name} lacks the column(s) {', '.join(missing)}")
     try:
         t = pq.read_table(p, columns=columns, filters=filters)
     except FileNotFoundError:
         raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet is missing") from None
     except (OSError, pa.ArrowException, ValueError) as exc:
-        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
+        raise bad_dataset(
+            folder, f"{DATA_DIR}/{name}.parquet cannot be read ({show_rel(str(exc))})"
+        ) from None
     if columns is None and t.column_names != want:
         raise bad_dataset(folder, f"{name} has columns {show_rel(t.column_names)}, expected {want}")
     expected = arrow_schema(name)
@@ -227,7 +246,9 @@ def read_table(
     try:
         return t.to_pandas()
     except (pa.ArrowException, ValueError, OverflowError) as exc:
-        raise bad_dataset(folder, f"{DATA_DIR}/{name}.parquet cannot be read ({exc})") from None
+        raise bad_dataset(
+            folder, f"{DATA_DIR}/{name}.parquet cannot be read ({show_rel(str(exc))})"
+        ) from None
 
 
 def load_dataset(

@@ -27,6 +27,7 @@ from ..model import Profile
 from ..results import CheckResult
 from ..snapshot import MeterBlock, Quality, Snapshot
 from . import read
+from .lock import SessionLock
 from .read import Json, SessionInfo, StepTransition
 from .schema import (
     FORMAT_VERSION,
@@ -48,15 +49,30 @@ class JournalWriteError(BenchwalkError):
     """A record could not be saved (disk full, read-only, I/O error); earlier records are intact."""
 
 
+class JournalDamaged(BenchwalkError):
+    """SQLite's own check found damage: resume is refused; export salvages what is readable."""
+
+
+class SessionExists(BenchwalkError):
+    """A journal of that name is already there: captured data is never overwritten."""
+
+
 # ---------------------------------------------------------------- the journal
 
 
 class Journal:
     """One session's append-only record. Safe to call from one thread at a time (locked)."""
 
-    def __init__(self, path: Path, conn: sqlite3.Connection, session: SessionInfo):
+    def __init__(
+        self,
+        path: Path,
+        conn: sqlite3.Connection,
+        session: SessionInfo,
+        lock: SessionLock | None = None,
+    ):
         self.path = Path(path)
         self._conn = conn
+        self._session_lock = lock  # held by a writer (new or resumed session) for its life
         self._lock = threading.Lock()
         self._keysets: dict[tuple[str, ...], int] = {
             keys: ks for ks, keys in read.keysets(conn).items()
@@ -89,12 +105,38 @@ class Journal:
         """
         path = Path(path)
         if path.exists():
-            raise BenchwalkError(
+            raise SessionExists(
                 f"{path}: a session journal already exists here; resume it or choose another name"
             )
         sid = session_id or path.stem
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise JournalWriteError(
+                f"{path}: cannot create the session journal ({exc}); choose a writable folder with free space"
+            ) from exc
+        lock = SessionLock(path, sid).acquire()
+        try:
+            if path.exists():  # made by another process between our look and our lock
+                raise SessionExists(
+                    f"{path}: a session journal already exists here; resume it or choose another name"
+                )
+            return cls._create_locked(path, profile, operator, sid, meta, lock)
+        except BaseException:
+            lock.release()
+            raise
+
+    @classmethod
+    def _create_locked(
+        cls,
+        path: Path,
+        profile: Profile,
+        operator: str,
+        sid: str,
+        meta: Json | None,
+        lock: SessionLock,
+    ) -> Journal:
+        try:
             conn = connect(path)
             with conn:
                 install_schema(conn)
@@ -126,27 +168,53 @@ class Journal:
             ) from exc
         session = read.read_session(conn)
         assert session is not None  # inserted just above
-        return cls(path, conn, session)
+        return cls(path, conn, session, lock)
 
     @classmethod
-    def open(cls, path: Path) -> Journal:
-        """An existing session, for resume or export; BenchwalkError if missing or damaged."""
+    def open(cls, path: Path, *, for_writing: bool = False) -> Journal:
+        """An existing session, for resume (``for_writing``: lock it first) or export;
+        BenchwalkError if missing, damaged, or (for writing) held by another process."""
         path = Path(path)
         if not path.is_file():
             raise BenchwalkError(f"{path}: no session journal here")
+        _require_sqlite(path)
+        lock = SessionLock(path).acquire() if for_writing else None
+        try:
+            return cls._open(path, lock)
+        except BaseException:
+            if lock is not None:
+                lock.release()
+            raise
+
+    @classmethod
+    def _open(cls, path: Path, lock: SessionLock | None) -> Journal:
+        conn: sqlite3.Connection | None = None
         try:
             conn = connect(path)
             ok = conn.execute("PRAGMA quick_check").fetchone()[0]
             if ok != "ok":
-                raise BenchwalkError(
-                    f"{path}: the journal is damaged ({ok}); keep a copy and export what is readable"
+                raise JournalDamaged(
+                    f"{path}: the journal is damaged ({ok}); keep a copy, and `benchwalk export` "
+                    "it to get what is readable"
                 )
             row = read.read_session(conn)
-        except sqlite3.Error as exc:
+        except sqlite3.DatabaseError as exc:
+            if conn is not None:
+                conn.close()
+            if "malformed" in str(exc) or "corrupt" in str(exc):
+                raise JournalDamaged(
+                    f"{path}: the journal is damaged ({exc}); keep a copy, and `benchwalk export` "
+                    "it to get what is readable"
+                ) from exc
             raise BenchwalkError(f"{path}: not a readable benchwalk journal ({exc})") from exc
+        except BaseException:
+            if conn is not None:
+                conn.close()
+            raise
         if row is None:
+            conn.close()
             raise BenchwalkError(f"{path}: the journal holds no session")
-        return cls(path, conn, row)
+        return cls(path, conn, row, lock)
 
     # ------------------------------------------------------------ reading back
 
@@ -313,9 +381,27 @@ class Journal:
 
         self._write(f"step {step_id} -> {state}", write)
 
+    def checkpoint(self) -> bool:
+        """Fold the WAL into the main file, so the ``.sqlite`` alone holds every saved row.
+
+        True when the whole WAL was folded in (False: a reader kept part of it; nothing lost,
+        the ``-wal`` file still holds the rest).
+        """
+        with self._lock:
+            try:
+                busy, _log, _done = self._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchone()
+            except sqlite3.Error:
+                return False
+        return not busy
+
     def close(self) -> None:
+        """Checkpoint (a writer), close, and let the session go to the next process."""
+        if self._session_lock is not None and self._session_lock.held:
+            self.checkpoint()
         with self._lock, contextlib.suppress(sqlite3.Error):
             self._conn.close()
+        if self._session_lock is not None:
+            self._session_lock.release()
 
     def __enter__(self) -> Journal:
         return self
@@ -352,6 +438,24 @@ class Journal:
             except sqlite3.Error as exc:
                 self._keysets = known
                 raise JournalWriteError(_write_advice(self.path, what, exc)) from exc
+
+
+SQLITE_MAGIC = b"SQLite format 3\x00"
+
+
+def _require_sqlite(path: Path) -> None:
+    """Refuse a file that is not an SQLite database before SQLite opens it: opening an empty
+    file (a typo, a wrong argument) would turn it into a database."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(len(SQLITE_MAGIC))
+    except OSError as exc:
+        raise BenchwalkError(f"{path}: cannot read the journal ({exc.strerror or exc})") from None
+    if head != SQLITE_MAGIC:
+        what = "an empty file" if not head else "not an SQLite file"
+        raise BenchwalkError(
+            f"{path}: not a readable benchwalk journal ({what}); give the session's .sqlite file"
+        )
 
 
 def _row_id(cur: sqlite3.Cursor) -> int:

@@ -47,8 +47,12 @@ _READ: dict[ReadKind, _ReadMethod] = {
 
 
 def backoff_delay(failures: int, initial_s: float, max_s: float, rng: random.Random) -> float:
-    """Delay before the next try after ``failures`` (>= 1) failed ones: doubling, capped, +-20 %."""
-    base = min(max_s, initial_s * 2 ** max(0, failures - 1))
+    """Delay before the next try after ``failures`` (>= 1) failed ones: doubling, capped, +-20 %.
+
+    The exponent stops growing once the cap is reached (2**63 x any positive start is past
+    any cap), so a unit that fails for days never overflows a float.
+    """
+    base = min(max_s, initial_s * 2.0 ** min(63, max(0, failures - 1)))
     return min(max_s, base * rng.uniform(0.8, 1.2))
 
 

@@ -33,7 +33,7 @@ from ..modbus.decode import RequestDecoder
 from ..modbus.hardening import require_supported_pymodbus, tame_pymodbus_logging
 from ..modbus.link import Backoff, EndpointLink, NoAnswer, ReadFailed
 from ..modbus.plan import MeterPlan, plan_profile, status_reads
-from ..model import Plc, Profile, Switch, Transport
+from ..model import Plc, Profile, RtuTransport, Switch, Transport
 from ..snapshot import Quality, Snapshot
 from .units import Draft, MeterStatus, Unit, note_silence, poll_meter, poll_plc, unanswered
 
@@ -42,6 +42,11 @@ log = logging.getLogger(__name__)
 DEADLINE_HEADROOM = 1.5  # cycle deadline = headroom x learned healthy endpoint time + margin
 DEADLINE_MARGIN_S = 0.05
 RUN_SLOT_MARGIN_S = 0.005  # run(): a cycle's answers are due this long before the next slot
+# A failing TCP unit or link is tried again at least this often (+-20 % jitter), so a meter
+# that comes back is read within 2 s at the default 0.2 s cycle; these tries are cheap probes
+# (``units.probe_limit``), and ``[poll] backoff_max_s`` spaces the full-timeout ones instead.
+# A serial line keeps the profile's backoff: every try there costs the whole bus a timeout.
+RETURN_PROBE_MAX_S = 1.25
 
 
 @dataclass
@@ -103,7 +108,7 @@ class Poller:
                 m.unit_id,
                 m.timeout_s,
                 m.retries,
-                self._backoff(),
+                self._backoff(m.transport),
                 meter=m,
                 plan=plan,
                 decoders=[RequestDecoder(r, specs, m) for r in plan.requests],
@@ -115,21 +120,31 @@ class Poller:
         for p in profile.plcs:
             sw = [s for s in profile.switches if s.plc == p.id and s.status is not None]
             unit = Unit(
-                p.id, p.unit_id, p.timeout_s, 0, self._backoff(), status_reads=status_reads(sw)
+                p.id,
+                p.unit_id,
+                p.timeout_s,
+                0,
+                self._backoff(p.transport),
+                status_reads=status_reads(sw),
             )
             self._attach(p.transport, unit)
             self._plc_units[p.id] = unit
         tame_pymodbus_logging()
 
-    def _backoff(self) -> Backoff:
-        return Backoff(
-            self.profile.poll.backoff_initial_s, self.profile.poll.backoff_max_s, self._rng
-        )
+    def _backoff(self, transport: Transport) -> Backoff:
+        poll = self.profile.poll
+        cap = poll.backoff_max_s
+        if not isinstance(transport, RtuTransport):
+            cap = min(cap, RETURN_PROBE_MAX_S)
+        return Backoff(min(poll.backoff_initial_s, cap), cap, self._rng)
 
     def _attach(self, transport: Transport, unit: Unit) -> None:
+        unit.full_probe_every_s = self.profile.poll.backoff_max_s
         ep = self._endpoints.get(transport.endpoint)
         if ep is None:
-            link = EndpointLink(transport.endpoint, transport, unit.timeout_s, self._backoff())
+            link = EndpointLink(
+                transport.endpoint, transport, unit.timeout_s, self._backoff(transport)
+            )
             ep = self._endpoints[transport.endpoint] = _Endpoint(link)
         ep.link.timeout_s = max(ep.link.timeout_s, unit.timeout_s)
         ep.units.append(unit)

@@ -4,7 +4,9 @@ A unit has its own backoff, so a dead meter behind a gateway costs its neighbour
 timeout, not one per cycle, and never drops their link. A unit that stops answering skips the
 rest of its reads for the cycle; a unit already in backoff is probed with one attempt (no
 retries), after its healthy neighbours, and waits only a few times the link's slowest learned
-healthy read (floor 50 ms; TCP only, and every 4th probe waits the full timeout).
+healthy read (floor 50 ms; TCP only; one probe per ``full_probe_every_s`` waits the full
+timeout, so a slow unit is never locked out while its neighbours lose at most one cycle in
+that long).
 """
 
 from __future__ import annotations
@@ -33,7 +35,6 @@ RECONNECT_AFTER_SILENT = 3  # consecutive unanswered reads on an open link befor
 ANSWER_DECAY = 0.9  # per cycle: how fast a slow answer stops widening the deadline
 PROBE_RTT_FACTOR = 4  # probe of a unit in backoff: this many x the link's slowest healthy read,
 PROBE_FLOOR_S = 0.05  # but never shorter than this, nor longer than the unit's own timeout
-FULL_PROBE_EVERY = 4  # every 4th probe waits the full timeout: a slow unit is never locked out
 
 StopRetrying = Callable[[], bool]  # asked before a retry: true when no one can use the answer
 
@@ -70,6 +71,8 @@ class Unit:
     exception_code: int | None = None
     latency_s: float = math.nan
     answer_s: float = 0.0  # decaying max of the time a full answered poll takes
+    full_probe_every_s: float = 10.0  # at most one full-timeout probe this often (backoff_max_s)
+    last_full_probe: float = 0.0  # monotonic: when the last attempt waited the full timeout
 
     @property
     def requests(self) -> int:
@@ -143,15 +146,20 @@ def note_silence(link: EndpointLink, unit: Unit, neighbours: Sequence[Unit]) -> 
         link.drop(f"no unit on {link.endpoint} answers; reconnecting")
 
 
-def probe_limit(link: EndpointLink, unit: Unit, neighbours: Sequence[Unit]) -> float | None:
+def probe_limit(
+    link: EndpointLink, unit: Unit, neighbours: Sequence[Unit], now: float
+) -> float | None:
     """Timeout of a probe of a unit in backoff (None: its full timeout).
 
     A probe holds the shared client, so it waits only a few times the slowest learned
     healthy read on the link (the unit's own remembered one included). Not on a serial
-    line, where a reply after a timeout is taken for the next request's; and every
-    ``FULL_PROBE_EVERY``-th probe waits the full timeout so a slow unit can always return.
+    line, where a reply after a timeout is taken for the next request's; and one probe per
+    ``unit.full_probe_every_s`` waits the full timeout so a slow unit can always return.
     """
-    if link.is_serial or unit.backoff.failures % FULL_PROBE_EVERY == 0:
+    if unit.backoff.failures <= 1:
+        unit.last_full_probe = now  # the attempt that failed first waited the full timeout
+    if link.is_serial or now - unit.last_full_probe >= unit.full_probe_every_s:
+        unit.last_full_probe = now
         return None
     slowest = max(
         (u.answer_s / u.requests for u in neighbours if u.answer_s > 0 and u.requests),
@@ -195,7 +203,7 @@ async def poll_meter(
         )
     probing = unit.backoff.failures > 0
     attempts = 1 if probing else unit.retries + 1  # a probe: is it back?
-    limit_s = probe_limit(link, unit, neighbours) if probing else None
+    limit_s = probe_limit(link, unit, neighbours, now) if probing else None
     n_ok = 0
     rest: Quality | None = None  # the quality the unread rest got when we gave up on the unit
     t0 = now
@@ -278,7 +286,7 @@ async def poll_plc(
     no_answer = False
     exception_code: int | None = None
     attempts = 1 if unit.backoff.failures else unit.retries + 1
-    limit_s = probe_limit(link, unit, neighbours) if unit.backoff.failures else None
+    limit_s = probe_limit(link, unit, neighbours, now) if unit.backoff.failures else None
     t0 = time.monotonic()
     for rd in unit.status_reads:
         try:

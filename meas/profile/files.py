@@ -21,7 +21,7 @@ from .devices import read_meters, read_plcs, read_switches
 from .maps import read_maps
 from .network import read_branches, read_buses
 from .scanner import Key, locate_keys
-from .settings import read_bench, read_checks, read_control, read_poll
+from .settings import read_bench, read_checks, read_control, read_poll, read_sim
 from .steps import read_steps
 from .tables import Doc, Table, array_of_tables, format_path, printable
 
@@ -185,7 +185,7 @@ def check_profile(path: str | Path) -> tuple[Profile | None, list[Problem]]:
     control = read_control(root)
     poll = read_poll(root)
     checks = read_checks(root)
-    sim = root.get("sim", "table", {})
+    sim = read_sim(root)
 
     def map_file(key: Key, name: str) -> tuple[str, str] | None:
         """A file the profile names (a CSV register map): kept in sources and the digest."""

@@ -6,9 +6,20 @@ from __future__ import annotations
 from typing import Any
 
 from ..model import Bench, CheckSettings, Control, PollSettings, Zone
-from .tables import Doc, Table, array_of_tables, at_least, fraction, ids, positive
+from .tables import Doc, Table, array_of_tables, at_least, fraction, ids, positive, within
 
-__all__ = ["read_bench", "read_checks", "read_control", "read_poll"]
+__all__ = [
+    "SEED_MAX",
+    "read_bench",
+    "read_checks",
+    "read_control",
+    "read_poll",
+    "read_sim",
+    "seed_problem",
+]
+
+SEED_MAX = 2**63 - 1  # a noise seed: a whole number 0..2**63-1 (numpy takes any such integer)
+SIM_TRANSIENTS = ("first_order", "damped")
 
 
 def read_bench(doc: Doc, root: Table) -> Bench:
@@ -106,3 +117,36 @@ def read_checks(root: Table) -> CheckSettings:
     )
     t.finish()
     return c
+
+
+def seed_problem(v: object) -> str | None:
+    """Why ``v`` is not a noise seed (None when it is one): the profile's and ``--seed``'s rule."""
+    if isinstance(v, bool) or not isinstance(v, int):
+        return f"a seed is a whole number 0..{SEED_MAX}, not {v!r}"
+    if not 0 <= v <= SEED_MAX:
+        return f"a seed is a whole number 0..{SEED_MAX}, got {v}"
+    return None
+
+
+def read_sim(root: Table) -> dict[str, Any]:
+    """``[sim]``: the simulated bench's seed, transient and update rate, each checked here so
+    ``lint`` reports what ``sim`` and ``demo`` would refuse. Other keys are kept as data."""
+    t = root.table("sim")
+    if t is None:
+        return {}
+    out = dict(t.data)
+    checks: dict[str, tuple[str, Any]] = {
+        "seed": ("int", seed_problem),
+        "settle_s": ("number", within(0.0, 3600.0)),
+        "update_hz": ("number", within(10.0, 1000.0)),
+    }
+    for key, (kind, check) in checks.items():
+        if t.has(key):
+            v = t.get(key, kind, None, check=check)
+            if v is None:
+                out.pop(key, None)
+            else:
+                out[key] = v
+    if t.has("transient"):
+        out["transient"] = t.choice("transient", SIM_TRANSIENTS, "first_order", what="transient")
+    return out

@@ -13,6 +13,7 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import dataclasses
+import ipaddress
 import logging
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
@@ -48,6 +49,25 @@ SIM_IDENTITY = ModbusDeviceIdentification(
         "ProductName": "simulated meter or PLC",
     }
 )
+
+
+def exposure_warning(host: str) -> str | None:
+    """The warning for a bind address other than loopback (None for loopback).
+
+    The simulated bench's servers accept writes to their command coils from anyone who
+    reaches them; loopback keeps them on this machine.
+    """
+    try:
+        if ipaddress.ip_address(host).is_loopback:
+            return None
+    except ValueError:
+        if host == "localhost":
+            return None
+    return (
+        f"WARNING: the simulated bench listens on {host}, not loopback only: anyone on the "
+        "network can read it and write its command coils. Use this only on an isolated "
+        "network; omit --host to keep it on 127.0.0.1."
+    )
 
 
 @dataclass

@@ -29,6 +29,7 @@ from support.profile_edits import BASE, MINIMAL, edit, line_of, problems_of, wri
 from meas.errors import ProfileError
 from meas.model import CapturePolicy, LoadParams, RtuTransport, SettleCriterion
 from meas.profile import format_path, load_profile, locate_keys
+from meas.walk.sequence import sequence_problems
 from tui import cli
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -938,8 +939,8 @@ def _run_both(text: str) -> None:
         path = Path(tmp) / "p.toml"
         path.write_text(text, encoding="utf-8", errors="surrogatepass")
         try:
-            load_profile(path)
-            loaded = True
+            # lint also runs the whole-sequence checks run and demo apply before they start
+            loaded = not sequence_problems(load_profile(path))
         except ProfileError as exc:
             loaded = False
             assert exc.problems and all(p.file in (str(path), str(SEQUENCE)) for p in exc.problems)

@@ -594,13 +594,14 @@ def test_export_never_replaces_anything_without_the_flag(small_journal, tmp_path
     (stranger / "mine.txt").write_text("keep me")
     a_file = tmp_path / "a-file"
     a_file.write_text("keep me too")
-    for target in (stranger, a_file):
-        with pytest.raises(BenchwalkError, match="already exists"):
-            export_session(small_journal, target)
-        capsys.readouterr()
-        assert cli.main(["export", str(small_journal), "--out", str(target)]) == 2
-        err = capsys.readouterr().err
-        assert err.count("\n") == 1 and "--overwrite" in err
+    for target, why in ((stranger, "not a benchwalk dataset"), (a_file, "is a file")):
+        for flag in ([], ["--overwrite"]):  # never replaced, not even with the flag
+            with pytest.raises(BenchwalkError, match=why):
+                export_session(small_journal, target, overwrite=bool(flag))
+            capsys.readouterr()
+            assert cli.main(["export", str(small_journal), "--out", str(target), *flag]) == 2
+            err = capsys.readouterr().err
+            assert err.count("\n") == 1 and why in err and "choose another --out" in err
     assert (stranger / "mine.txt").read_text() == "keep me" and a_file.read_text() == "keep me too"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a-file", "notes"]
     ds = export_session(small_journal, tmp_path / "ds")
@@ -658,16 +659,29 @@ def test_a_killed_export_leaves_a_partial_folder_that_the_next_export_clears(
         sleeper.wait()
 
 
-def test_session_export_of_the_demo_refuses_an_existing_out(small_journal, tmp_path):
+def test_session_export_refuses_another_sessions_dataset_and_redoes_its_own(
+    small_journal, tmp_path
+):
+    """A session's end-of-walk export replaces only its own earlier dataset (a resumed
+    session whose export was killed); another session's dataset is refused untouched."""
+    from support.invented_bench import build_session
+
     from meas.session import Session
 
+    other = build_session(tmp_path / "other", n_snapshots=3, n_meters=2, name="other")
+    export_session(other, tmp_path / "theirs" / "dataset")
+    stamp = (tmp_path / "theirs" / "dataset" / "datapackage.json").read_bytes()
     s = Session(None, Journal.open(small_journal), None, None)  # export needs only the journal
     try:
-        s.export(tmp_path / "out")
-        stamp = (tmp_path / "out" / "dataset" / "datapackage.json").read_bytes()
         with pytest.raises(BenchwalkError, match="already exists"):
-            s.export(tmp_path / "out")
-        assert (tmp_path / "out" / "dataset" / "datapackage.json").read_bytes() == stamp
+            s.export(tmp_path / "theirs")
+        assert (tmp_path / "theirs" / "dataset" / "datapackage.json").read_bytes() == stamp
+        assert not (tmp_path / "theirs" / "report.html").exists()
+        s.export(tmp_path / "out")
+        (tmp_path / "out" / "report.html").unlink()  # as a kill before the report would leave it
+        dataset, report = s.export(tmp_path / "out")  # the same session again: redone
+        verify_dataset(dataset)
+        assert report.is_file()
     finally:
         s.journal.close()
 

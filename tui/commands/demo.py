@@ -56,6 +56,7 @@ async def _headless(args: argparse.Namespace, built: str | None) -> int:
         live_checks=False,
         as_built_seed=args.as_built,
         model_errors=args.model_error,
+        out_dir=args.out,
     )
     bench = f"simulated bench, {built}" if built else "simulated bench"
     print(f"Session {session.session_id}: journal {session.path} ({bench})", flush=True)

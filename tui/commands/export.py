@@ -6,6 +6,7 @@ import argparse
 from pathlib import Path
 
 from meas.dataset.export import export_session
+from meas.dataset.read import read_package
 
 from .progress import terminal_progress
 
@@ -38,4 +39,9 @@ def main(args: argparse.Namespace) -> int:
     else:
         out = export_session(args.session, args.out, overwrite=args.overwrite)
     print(f"dataset written: {out}")
+    damage = read_package(out)["benchwalk"].get("journal_damage") or []
+    for line in damage:
+        print(f"  damaged journal: {line}")
+    if damage:
+        print("  the dataset holds what was readable; the journal file was left as it was")
     return 0

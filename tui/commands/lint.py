@@ -7,8 +7,13 @@ itself, one per line, so a profile can be fixed in one pass before a session sta
 from __future__ import annotations
 
 import argparse
+import re
+from pathlib import Path
 
-from meas.profile import check_profile
+from meas.errors import Problem
+from meas.model import Profile
+from meas.profile import check_profile, locate_keys
+from meas.walk.sequence import sequence_problems
 
 from .output import add_json, emit_json
 
@@ -22,6 +27,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def main(args: argparse.Namespace) -> int:
     profile, problems = check_profile(args.profile)
+    if profile is not None:
+        # the walk as a whole, as run, demo and resume check it before they start
+        problems = [_located(profile, p) for p in sequence_problems(profile)]
+        if problems:
+            profile = None
     if getattr(args, "json", False):
         emit_json(
             {
@@ -60,3 +70,27 @@ def main(args: argparse.Namespace) -> int:
 
 def _plural(n: int, word: str) -> str:
     return f"{n} {word}" if n == 1 else f"{n} {word}{'es' if word[-1] in 'sh' else 's'}"
+
+
+_STEP = re.compile(r"step\[(\d+)\] [^:]*(?:: (.*))?")
+
+
+def _located(profile: Profile, problem: Problem) -> Problem:
+    """A sequence problem with the file and line of its step (and key) in the profile's files."""
+    folder = Path(profile.path).parent
+    m = _STEP.fullmatch(problem.path)
+    for i, src in enumerate(profile.sources):
+        lines = locate_keys(src.text)
+        file = str(profile.path) if i == 0 else str(folder / src.name)
+        if m is None:  # about the sequence as a whole: where its steps are (or would be)
+            if i == len(profile.sources) - 1:
+                return Problem(file, lines.get(("sequence",)) or 1, problem.path, problem.message)
+            continue
+        n = int(m.group(1))
+        if ("step", n) not in lines:
+            continue
+        key: tuple[str | int, ...] = ("step", n, *(m.group(2) or "").split(".")[:2])
+        while key not in lines and len(key) > 2:
+            key = key[:-1]
+        return Problem(file, lines[key], problem.path, problem.message)
+    return problem

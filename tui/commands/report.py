@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from meas.report import write_report
+from meas.dataset.outputs import check_report_target
+from meas.report import default_report_path, write_report
 
 from .progress import terminal_progress
 
@@ -26,6 +27,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
+    # only an earlier benchwalk report is replaced, never the other format or anyone's file
+    check_report_target(args.out or default_report_path(args.dataset), args.dataset)
     bar, update = terminal_progress("report")
     if bar is not None:
         with bar:

@@ -54,6 +54,7 @@ async def _headless(args: argparse.Namespace) -> int:
         profile_path=args.profile,
         on_saved=saved_printer(args.log_saved),
         live_checks=False,
+        out_dir=args.out,
     )
     if session.runner.finished:
         return await _finished(session, args)

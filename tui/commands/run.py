@@ -44,6 +44,7 @@ async def _run(args: argparse.Namespace) -> int:
         sessions_dir=args.sessions,
         on_saved=saved_printer(args.log_saved),
         live_checks=False,
+        out_dir=args.out,
     )
     print(f"Session {session.session_id}: journal {session.path}", flush=True)
     return await walk(

@@ -6,6 +6,7 @@ import argparse
 import asyncio
 import contextlib
 import signal
+import sys
 from typing import TYPE_CHECKING
 
 from .common import add_as_built
@@ -27,7 +28,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="inject a fault, e.g. ct-reversed:M3:B, offline:M6, offline:PLC1, slow:M2:1.5 (repeatable; see docs/faults.md)",
     )
     p.add_argument(
-        "--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, loopback only)"
+        "--host",
+        default="127.0.0.1",
+        help="address to bind (default 127.0.0.1: loopback only); any other address exposes "
+        "the bench's Modbus servers, command coils included, to the network, with a warning",
     )
     p.add_argument(
         "--free-ports",
@@ -61,16 +65,23 @@ def _print_endpoints(bench: SimulatedBench, profile_path: str, built: AsBuilt | 
 
 
 async def _serve(args: argparse.Namespace) -> int:
+    from meas.errors import BenchwalkError
     from meas.profile import load_profile
+    from meas.profile.settings import seed_problem
     from meas.sim.as_built import from_options, readings_on
     from meas.sim.bench import SimulatedBench
     from meas.sim.faults import parse_faults
+    from meas.sim.server import exposure_warning
 
+    if args.seed is not None and (why := seed_problem(args.seed)):
+        raise BenchwalkError(f"--seed: {why}")
     profile = load_profile(args.profile)
     faults = parse_faults(args.fault)
     built = None
     if args.as_built is not None or args.model_error:
         built = from_options(profile, args.as_built, args.model_error)
+    if warning := exposure_warning(args.host):
+        print(warning, file=sys.stderr, flush=True)
     bench = SimulatedBench(
         profile,
         faults,
