@@ -1,0 +1,496 @@
+"""The estimator's engine: a node-level measurement model and its weighted-least-squares solve.
+
+Nothing here knows about profiles or meters' register maps: ``meas.estimate.build`` turns a
+profile and its readings into these terms, and a test can build a positive-sequence textbook
+network (one node per bus) with the same terms. Quantities are complex node voltages (the
+state, in units of each node's nominal magnitude), two-port currents ``Y(θ) v``, ZIP element
+currents and meter readings with a voltage gain and a current gain.
+
+Solver: Gauss-Newton with Levenberg-Marquardt damping and an analytic Jacobian, written here
+rather than ``scipy.optimize.least_squares`` because (1) the bad-data tests need the gain
+matrix G = JᵀWJ at the solution anyway, (2) the Jacobian has a block structure (state per
+step, gains and parameters shared) that the normal equations exploit, and (3) per-call
+overhead matters at 20 ms per capture. The two reach the same optimum (tests/estimate).
+Two-port admittance derivatives with respect to their parameters are forward differences of
+the element builders (``meas.network.elements``), the one owner of those formulas.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+from numpy.typing import NDArray
+
+CArray = NDArray[np.complex128]
+FArray = NDArray[np.float64]
+IArray = NDArray[np.int64]
+
+# reading codes (see ``slot_keys``)
+V, VLL, I, P, Q, PT, QT, IANG, VANG = range(9)
+
+
+@dataclass(frozen=True)
+class TwoPortTerm:
+    """A line or transformer: currents into it at both ends = ``y_of(params) @ v[nodes]``."""
+
+    name: str
+    nodes: IArray  # (2p,) step-local node indices, from end then to end
+    y_of: Callable[[FArray], CArray]  # the values of ``params`` -> (2p, 2p) admittance
+    params: tuple[int, ...]  # indices into the shared parameter vector
+
+
+@dataclass(frozen=True)
+class LoadTerm:
+    """A ZIP element (load or shunt): S = kp·(Pz r² + Pi r + Pp) + j kq·(Qz r² + Qi r + Qp)."""
+
+    name: str
+    nodes: IArray  # (p,)
+    vn: FArray  # (p,) nominal magnitude, V
+    zp: FArray  # (3, p) Z, I and P parts of P at nominal voltage
+    zq: FArray  # (3, p) the same for Q
+    kp: int = -1  # parameter index of the P multiplier, -1 = fixed at 1
+    kq: int = -1
+
+
+Current = tuple[tuple[str, int, int, float], ...]  # (kind "t"|"l", term index, end, sign)
+
+
+@dataclass(frozen=True)
+class MeterTerm:
+    """One meter in one step: which node voltages it sees, which current, which readings."""
+
+    name: str
+    v_nodes: IArray  # (p,)
+    current: Current  # empty: the meter's branch carries nothing in this step
+    gv: int  # shared index of the voltage gain, -1 = none (fixed at 1)
+    gi: int
+    slots: IArray  # which reading slots are measured (``slot_keys`` order)
+    z: FArray  # measured values (angles in radians)
+    sigma: FArray
+
+
+@dataclass(frozen=True)
+class KclTerm:
+    """Kirchhoff at a bus without a free injection: the currents sum to zero (2p rows)."""
+
+    name: str
+    current: Current
+    sigma: float
+
+
+@dataclass(frozen=True)
+class StepModel:
+    nodes: int
+    vn: FArray  # nominal magnitude per node (state scaling)
+    v0: CArray  # flat start
+    ref: IArray  # nodes whose imaginary part is held at 0 (one per island)
+    two_ports: tuple[TwoPortTerm, ...]
+    loads: tuple[LoadTerm, ...]
+    meters: tuple[MeterTerm, ...]
+    kcl: tuple[KclTerm, ...]
+    phases: int = 3
+
+
+@dataclass(frozen=True)
+class Prior:
+    """A pseudo-measurement on a shared unknown: value ``mean`` with standard uncertainty ``std``."""
+
+    name: str
+    mean: float
+    std: float
+
+
+def slot_keys(p: int) -> tuple[tuple[str, int], ...]:
+    """(reading key, code) of every slot a meter with ``p`` phases can have, in slot order."""
+    if p == 1:
+        return (("v_ln.A", V), ("i.A", I), ("p.T", P), ("q.T", Q))
+    return (
+        ("v_ln.A", V), ("v_ln.B", V), ("v_ln.C", V),
+        ("v_ll.AB", VLL), ("v_ll.BC", VLL), ("v_ll.CA", VLL),
+        ("i.A", I), ("i.B", I), ("i.C", I),
+        ("p.A", P), ("p.B", P), ("p.C", P),
+        ("q.A", Q), ("q.B", Q), ("q.C", Q),
+        ("p.T", PT), ("q.T", QT),
+        ("i_ang.A", IANG), ("i_ang.B", IANG), ("i_ang.C", IANG),
+        ("v_ang.B", VANG), ("v_ang.C", VANG),
+    )  # fmt: skip
+
+
+ANGLE_SLOTS = frozenset(k for k, c in slot_keys(3) if c in (IANG, VANG))
+
+
+class _Quantity:
+    """A complex vector with its derivative with respect to the real unknowns of one step."""
+
+    __slots__ = ("val", "d")
+
+    def __init__(self, val: CArray, d: CArray):
+        self.val, self.d = val, d
+
+
+def _state_map(step: StepModel) -> tuple[CArray, int]:
+    """Tc with v = Tc @ x_state: real and imaginary part per node (but refs), scaled by vn."""
+    n = step.nodes
+    refs = set(int(r) for r in step.ref)
+    cols = 2 * n - len(refs)
+    tc = np.zeros((n, cols), complex)
+    k = 0
+    for i in range(n):
+        tc[i, k] = step.vn[i]
+        k += 1
+    for i in range(n):
+        if i in refs:
+            continue
+        tc[i, k] = 1j * step.vn[i]
+        k += 1
+    return tc, cols
+
+
+@dataclass
+class _Layout:
+    ns: int  # shared unknowns
+    offsets: list[int]  # first column of each step's state
+    tcs: list[CArray]
+    n: int
+
+
+def layout(shared: int, steps: Sequence[StepModel]) -> _Layout:
+    offs, tcs, at = [], [], shared
+    for st in steps:
+        tc, cols = _state_map(st)
+        offs.append(at)
+        tcs.append(tc)
+        at += cols
+    return _Layout(shared, offs, tcs, at)
+
+
+def initial(lay: _Layout, steps: Sequence[StepModel], shared0: FArray) -> FArray:
+    x = np.zeros(lay.n)
+    x[: lay.ns] = shared0
+    for st, off, tc in zip(steps, lay.offsets, lay.tcs, strict=True):
+        xs, *_ = np.linalg.lstsq(np.vstack([tc.real, tc.imag]), np.r_[st.v0.real, st.v0.imag])
+        x[off : off + tc.shape[1]] = xs
+    return x
+
+
+def _currents(
+    step: StepModel, v: CArray, dv: CArray, shared: FArray, ns: int
+) -> tuple[list[_Quantity], list[_Quantity]]:
+    """Every two-port's and ZIP element's current with its derivative ([shared | state])."""
+    tps: list[_Quantity] = []
+    for t in step.two_ports:
+        pv = shared[list(t.params)] if t.params else np.zeros(0)
+        y = t.y_of(pv)
+        vt = v[t.nodes]
+        cur = y @ vt
+        d = y @ dv[t.nodes]
+        for j, pi in enumerate(t.params):
+            h = 1e-7 * max(1.0, abs(pv[j]))
+            pj = pv.copy()
+            pj[j] += h
+            d[:, pi] = (t.y_of(pj) - y) @ vt / h
+        tps.append(_Quantity(cur, d))
+    lds: list[_Quantity] = []
+    for ld in step.loads:
+        vl, dvl = v[ld.nodes], dv[ld.nodes]
+        m = np.abs(vl)
+        r = m / ld.vn
+        kp = shared[ld.kp] if ld.kp >= 0 else 1.0
+        kq = shared[ld.kq] if ld.kq >= 0 else 1.0
+        pr = ld.zp[0] * r * r + ld.zp[1] * r + ld.zp[2]
+        qr = ld.zq[0] * r * r + ld.zq[1] * r + ld.zq[2]
+        s = kp * pr + 1j * kq * qr
+        ds = (kp * (2 * ld.zp[0] * r + ld.zp[1]) + 1j * kq * (2 * ld.zq[0] * r + ld.zq[1])) / ld.vn
+        cv = np.conj(vl)
+        dm = (cv[:, None] * dvl).real / m[:, None]
+        d = (np.conj(ds) / cv)[:, None] * dm - (np.conj(s) / cv**2)[:, None] * np.conj(dvl)
+        if ld.kp >= 0:
+            d[:, ld.kp] += pr / cv
+        if ld.kq >= 0:
+            d[:, ld.kq] += -1j * qr / cv
+        lds.append(_Quantity(np.conj(s) / cv, d))
+    return tps, lds
+
+
+def _sum(cur: Current, tps: list[_Quantity], lds: list[_Quantity], p: int, nc: int) -> _Quantity:
+    val = np.zeros(p, complex)
+    d = np.zeros((p, nc), complex)
+    for kind, idx, end, sign in cur:
+        q = tps[idx] if kind == "t" else lds[idx]
+        sl = slice(end * p, (end + 1) * p)
+        val += sign * q.val[sl]
+        d += sign * q.d[sl]
+    return _Quantity(val, d)
+
+
+def _mag(val: CArray, d: CArray) -> tuple[FArray, FArray]:
+    m = np.abs(val)
+    safe = np.where(m > 0, m, 1.0)
+    return m, (np.conj(val)[:, None] * d).real / safe[:, None]
+
+
+def _ang(val: CArray, d: CArray) -> tuple[FArray, FArray]:
+    safe = np.where(np.abs(val) > 0, val, 1.0)
+    return np.angle(val), (d / safe[:, None]).imag
+
+
+def _meter_slots(
+    mt: MeterTerm, vq: _Quantity, iq: _Quantity, shared: FArray, p: int
+) -> tuple[FArray, FArray]:
+    """Every slot's model value and derivative (gains applied)."""
+    gv = shared[mt.gv] if mt.gv >= 0 else 1.0
+    gi = shared[mt.gi] if mt.gi >= 0 else 1.0
+    v, dv, i, di = vq.val, vq.d, iq.val, iq.d
+    s = v * np.conj(i)
+    ds = np.conj(i)[:, None] * dv + v[:, None] * np.conj(di)
+    vm, dvm = _mag(v, dv)
+    im, dim = _mag(i, di)
+    if p == 1:
+        f = np.r_[vm, im, s.real, s.imag]
+        df = np.vstack([dvm, dim, ds.real, ds.imag])
+        kinds = np.array([0, 1, 2, 2])  # 0 voltage, 1 current, 2 power, 3 angle
+    else:
+        vll = v - np.roll(v, -1)
+        dvll = dv - np.roll(dv, -1, axis=0)
+        lm, dlm = _mag(vll, dvll)
+        ia, dia = _ang(i, di)
+        va, dva = _ang(v, dv)
+        f = np.r_[vm, lm, im, s.real, s.imag, s.real.sum(), s.imag.sum(), ia - va[0], va[1:] - va[0]]
+        df = np.vstack(
+            [
+                dvm, dlm, dim, ds.real, ds.imag,
+                ds.real.sum(0, keepdims=True), ds.imag.sum(0, keepdims=True),
+                dia - dva[0], dva[1:] - dva[0],
+            ]
+        )  # fmt: skip
+        kinds = np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]
+    f, df, kinds = f[mt.slots], df[mt.slots], kinds[mt.slots]
+    gain = np.where(kinds == 0, gv, np.where(kinds == 1, gi, np.where(kinds == 2, gv * gi, 1.0)))
+    out, dout = f * gain, df * gain[:, None]
+    if mt.gv >= 0:
+        dout[:, mt.gv] += f * np.where(kinds == 0, 1.0, np.where(kinds == 2, gi, 0.0))
+    if mt.gi >= 0:
+        dout[:, mt.gi] += f * np.where(kinds == 1, 1.0, np.where(kinds == 2, gv, 0.0))
+    return out, dout
+
+
+def angle_rows(mt: MeterTerm, p: int) -> FArray:
+    if p == 1:
+        return np.zeros(len(mt.slots), bool)
+    return np.asarray(mt.slots) >= 17
+
+
+@dataclass
+class StepEval:
+    r: FArray  # weighted residual (z - h) / sigma
+    j: FArray  # weighted Jacobian, columns [shared | this step's state]
+    h: FArray  # model values (unweighted)
+    meter_rows: list[slice]  # rows of each meter
+    kcl_rows: slice
+
+
+def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEval:
+    ns, p = len(shared), step.phases
+    nc = ns + tc.shape[1]
+    v = tc @ xs
+    dv = np.zeros((step.nodes, nc), complex)
+    dv[:, ns:] = tc
+    tps, lds = _currents(step, v, dv, shared, ns)
+    rs, js, hs, rows = [], [], [], []
+    at = 0
+    zero = _Quantity(np.zeros(p, complex), np.zeros((p, nc), complex))
+    for mt in step.meters:
+        vq = _Quantity(v[mt.v_nodes], dv[mt.v_nodes])
+        iq = _sum(mt.current, tps, lds, p, nc) if mt.current else zero
+        h, dh = _meter_slots(mt, vq, iq, shared, p)
+        res = mt.z - h
+        ang = angle_rows(mt, p)
+        res[ang] = np.mod(res[ang] + math.pi, 2 * math.pi) - math.pi
+        rs.append(res / mt.sigma)
+        js.append(dh / mt.sigma[:, None])
+        hs.append(h)
+        rows.append(slice(at, at + len(h)))
+        at += len(h)
+    k0 = at
+    for kc in step.kcl:
+        q = _sum(kc.current, tps, lds, p, nc)
+        rs.append(np.r_[-q.val.real, -q.val.imag] / kc.sigma)
+        js.append(np.vstack([q.d.real, q.d.imag]) / kc.sigma)
+        hs.append(np.r_[q.val.real, q.val.imag])
+        at += 2 * p
+    if not rs:
+        return StepEval(np.zeros(0), np.zeros((0, nc)), np.zeros(0), rows, slice(k0, at))
+    return StepEval(np.concatenate(rs), np.vstack(js), np.concatenate(hs), rows, slice(k0, at))
+
+
+@dataclass
+class Fit:
+    x: FArray
+    cost: float  # J = sum of squared weighted residuals, priors included
+    iterations: int
+    converged: bool
+    why: str
+    evals: list[StepEval]
+    prior_r: FArray  # weighted prior residuals
+    g: FArray  # gain matrix JᵀWJ at the solution
+    ginv: FArray
+    lay: _Layout
+    prior_std: FArray
+
+
+def _assemble(
+    lay: _Layout, evals: list[StepEval], priors: Sequence[Prior], x: FArray
+) -> tuple[float, FArray, FArray, FArray]:
+    n, ns = lay.n, lay.ns
+    g = np.zeros((n, n))
+    b = np.zeros(n)
+    cost = 0.0
+    for ev, off in zip(evals, lay.offsets, strict=True):
+        cols = np.r_[np.arange(ns), np.arange(off, off + ev.j.shape[1] - ns)]
+        jj = ev.j
+        g[np.ix_(cols, cols)] += jj.T @ jj
+        b[cols] += jj.T @ ev.r
+        cost += float(ev.r @ ev.r)
+    pr = np.array([(pp.mean - x[k]) / pp.std for k, pp in enumerate(priors)])
+    for k, pp in enumerate(priors):
+        g[k, k] += 1.0 / pp.std**2
+        b[k] += pr[k] / pp.std
+    cost += float(pr @ pr) if len(pr) else 0.0
+    return cost, g, b, pr
+
+
+def _smooth(step: StepModel) -> StepModel:
+    """The step without current magnitudes and angles: both are ill-posed at a flat start
+    (zero currents have no direction), a known trouble of state estimation from flat start."""
+    out = []
+    for mt in step.meters:
+        ok = np.array([_SMOOTH[step.phases][int(s)] for s in mt.slots], bool)
+        out.append(replace(mt, slots=mt.slots[ok], z=mt.z[ok], sigma=mt.sigma[ok]))
+    return replace(step, meters=tuple(out))
+
+
+_SMOOTH = {
+    1: (True, False, True, True),
+    3: tuple(c not in (I, IANG) for _, c in slot_keys(3)),
+}
+
+
+def solve(
+    steps: Sequence[StepModel],
+    priors: Sequence[Prior],
+    *,
+    tol: float = 1e-8,
+    max_iter: int = 40,
+    x0: FArray | None = None,
+) -> Fit:
+    """Minimise the weighted sum of squares; every shared unknown has a prior (index order).
+
+    From a flat start, a first pass leaves out current magnitudes and angles (``_smooth``) and
+    the full problem starts from its solution.
+    """
+    lay = layout(len(priors), steps)
+    if x0 is None:
+        x = initial(lay, steps, np.array([p.mean for p in priors], float))
+        first = solve([_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x)
+        if np.all(np.isfinite(first.x)):
+            x = first.x
+    else:
+        x = x0.copy()
+
+    def run(xx: FArray) -> tuple[list[StepEval], float, FArray, FArray, FArray]:
+        shared = xx[: lay.ns]
+        evals = [
+            evaluate(st, tc, xx[off : off + tc.shape[1]], shared)
+            for st, tc, off in zip(steps, lay.tcs, lay.offsets, strict=True)
+        ]
+        cost, g, b, pr = _assemble(lay, evals, priors, xx)
+        return evals, cost, g, b, pr
+
+    evals, cost, g, b, pr = run(x)
+    lam, it, converged, why = 1e-6, 0, False, ""
+    for it in range(1, max_iter + 1):
+        d = np.diag(g).copy()
+        d[d <= 0] = 1.0
+        try:
+            dx = np.linalg.solve(g + lam * np.diag(d), b)
+        except np.linalg.LinAlgError:
+            why = "the gain matrix is singular: some state has no reading and no prior"
+            break
+        if not np.all(np.isfinite(dx)):
+            why = "the step became infinite: the readings do not determine the state"
+            break
+        trial = run(x + dx)
+        step_small = float(np.max(np.abs(dx))) < tol
+        if trial[1] <= cost:
+            flat = cost - trial[1] <= 1e-9 * max(cost, 1.0)
+            x = x + dx
+            evals, cost, g, b, pr = trial
+            lam = max(lam / 10, 1e-12)
+            if step_small or flat:
+                converged = True
+                break
+        else:
+            if step_small or trial[1] - cost <= 1e-9 * max(cost, 1.0):
+                converged = True  # at the optimum to rounding
+                break
+            lam *= 10
+            if lam > 1e8:
+                why = "no step lowers the misfit (a local minimum)"
+                break
+    else:
+        why = f"no convergence in {max_iter} iterations"
+    try:
+        ginv = np.linalg.inv(g)
+    except np.linalg.LinAlgError:
+        ginv = np.linalg.pinv(g)
+        converged, why = False, why or "the gain matrix is singular"
+    if converged and not np.all(np.isfinite(x)):
+        converged, why = False, "the estimate is not finite"
+    return Fit(x, cost, it, converged, why, evals, pr, g, ginv, lay, np.array([p.std for p in priors], float))
+
+
+def cols_of(fit: Fit, k: int) -> IArray:
+    ns = fit.lay.ns
+    off = fit.lay.offsets[k]
+    return np.r_[np.arange(ns), np.arange(off, off + fit.evals[k].j.shape[1] - ns)]
+
+
+def omega_diag(fit: Fit) -> tuple[list[FArray], FArray]:
+    """Diagonal of the weighted residual covariance Ω̃ = I - J G⁻¹ Jᵀ, per step and for priors.
+
+    Ω̃_ii near 0 marks a critical reading (its error can never show in the residuals);
+    the normalized residual is |r̃_i| / sqrt(Ω̃_ii) (Abur & Expósito 2004, ch. 5).
+    """
+    out = []
+    for k, ev in enumerate(fit.evals):
+        c = cols_of(fit, k)
+        jj = ev.j
+        out.append(1.0 - np.einsum("ij,jk,ik->i", jj, fit.ginv[np.ix_(c, c)], jj))
+    ns = fit.lay.ns
+    return out, 1.0 - np.diag(fit.ginv)[:ns] / fit.prior_std**2
+
+
+def meter_phasors(fit: Fit, steps: Sequence[StepModel], k: int) -> list[tuple[CArray, CArray]]:
+    """Each meter's (V, I) phasors at the solution of step ``k`` (gains not applied)."""
+    st, tc, off = steps[k], fit.lay.tcs[k], fit.lay.offsets[k]
+    shared = fit.x[: fit.lay.ns]
+    ns, p = len(shared), st.phases
+    nc = ns + tc.shape[1]
+    v = tc @ fit.x[off : off + tc.shape[1]]
+    dv = np.zeros((st.nodes, nc), complex)
+    tps, lds = _currents(st, v, dv, shared, ns)
+    out = []
+    for mt in st.meters:
+        i = _sum(mt.current, tps, lds, p, nc).val if mt.current else np.zeros(p, complex)
+        out.append((v[mt.v_nodes], i))
+    return out
+
+
+def slot_values(mt: MeterTerm, v: CArray, i: CArray, shared: FArray, p: int) -> FArray:
+    """The meter's measured slots for phasors ``v`` and ``i`` (gains applied)."""
+    z = np.zeros((p, max(len(shared), 1)), complex)
+    h, _ = _meter_slots(mt, _Quantity(v, z), _Quantity(i, z), shared, p)
+    return h
