@@ -176,22 +176,57 @@ def initial(lay: _Layout, steps: Sequence[StepModel], shared0: FArray) -> FArray
     return x
 
 
+_EMPTY = np.zeros(0)
+_YCACHE: dict[int, tuple[bytes, CArray, FArray | None, list[CArray]]] = {}
+DY_REFRESH = 1e-4  # recompute dY/dθ once a parameter moved this much (relative)
+
+
+def _admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[CArray]]:
+    """Y(θ) and dY/dθ of a two-port; steps share the builder, so one call serves them all.
+
+    dY/dθ is a forward difference, recomputed only when θ moved by ``DY_REFRESH``: Gauss-Newton
+    converges to the same point with a slightly stale Jacobian, and at the solution θ has
+    stopped moving, so G there is exact to the difference quotient.
+    """
+    key = id(t.y_of)
+    hit = _YCACHE.get(key)
+    raw = pv.tobytes()
+    y = hit[1] if hit is not None and hit[0] == raw else t.y_of(pv)
+    dpv, dys = (hit[2], hit[3]) if hit is not None else (None, [])
+    if derivs and not (
+        dpv is not None
+        and len(dys) == len(pv)
+        and np.all(np.abs(dpv - pv) <= DY_REFRESH * np.maximum(1.0, np.abs(pv)))
+    ):
+        dys = []
+        for j in range(len(pv)):
+            h = 1e-7 * max(1.0, abs(pv[j]))
+            pj = pv.copy()
+            pj[j] += h
+            dys.append((t.y_of(pj) - y) / h)
+        dpv = pv.copy()
+    if len(_YCACHE) > 4096:
+        _YCACHE.clear()
+    _YCACHE[key] = (raw, y, dpv, dys)
+    return y, dys
+
+
 def _currents(
-    step: StepModel, v: CArray, dv: CArray, shared: FArray, ns: int
+    step: StepModel, v: CArray, dv: CArray, shared: FArray, ns: int, derivs: bool = True
 ) -> tuple[list[_Quantity], list[_Quantity]]:
     """Every two-port's and ZIP element's current with its derivative ([shared | state])."""
     tps: list[_Quantity] = []
     for t in step.two_ports:
-        pv = shared[list(t.params)] if t.params else np.zeros(0)
-        y = t.y_of(pv)
+        pv = shared[list(t.params)] if t.params else _EMPTY
+        y, dys = _admittance(t, pv, derivs)
         vt = v[t.nodes]
         cur = y @ vt
+        if not derivs:
+            tps.append(_Quantity(cur, dv[t.nodes, :0]))
+            continue
         d = y @ dv[t.nodes]
         for j, pi in enumerate(t.params):
-            h = 1e-7 * max(1.0, abs(pv[j]))
-            pj = pv.copy()
-            pj[j] += h
-            d[:, pi] = (t.y_of(pj) - y) @ vt / h
+            d[:, pi] = dys[j] @ vt
         tps.append(_Quantity(cur, d))
     lds: list[_Quantity] = []
     for ld in step.loads:
@@ -205,6 +240,9 @@ def _currents(
         s = kp * pr + 1j * kq * qr
         ds = (kp * (2 * ld.zp[0] * r + ld.zp[1]) + 1j * kq * (2 * ld.zq[0] * r + ld.zq[1])) / ld.vn
         cv = np.conj(vl)
+        if not derivs:
+            lds.append(_Quantity(np.conj(s) / cv, dvl[:, :0]))
+            continue
         dm = (cv[:, None] * dvl).real / m[:, None]
         d = (np.conj(ds) / cv)[:, None] * dm - (np.conj(s) / cv**2)[:, None] * np.conj(dvl)
         if ld.kp >= 0:
@@ -251,22 +289,24 @@ def _meter_slots(
     if p == 1:
         f = np.r_[vm, im, s.real, s.imag]
         df = np.vstack([dvm, dim, ds.real, ds.imag])
-        kinds = np.array([0, 1, 2, 2])  # 0 voltage, 1 current, 2 power, 3 angle
+        kinds = _KINDS1
     else:
-        vll = v - np.roll(v, -1)
-        dvll = dv - np.roll(dv, -1, axis=0)
-        lm, dlm = _mag(vll, dvll)
-        ia, dia = _ang(i, di)
-        va, dva = _ang(v, dv)
-        f = np.r_[vm, lm, im, s.real, s.imag, s.real.sum(), s.imag.sum(), ia - va[0], va[1:] - va[0]]
-        df = np.vstack(
-            [
-                dvm, dlm, dim, ds.real, ds.imag,
-                ds.real.sum(0, keepdims=True), ds.imag.sum(0, keepdims=True),
-                dia - dva[0], dva[1:] - dva[0],
-            ]
-        )  # fmt: skip
-        kinds = np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]
+        nc = dv.shape[1]
+        f = np.empty(22)
+        df = np.empty((22, nc))
+        f[0:3], df[0:3] = vm, dvm
+        f[3:6], df[3:6] = _mag(v - v[_NEXT], dv - dv[_NEXT])
+        f[6:9], df[6:9] = im, dim
+        f[9:12], df[9:12] = s.real, ds.real
+        f[12:15], df[12:15] = s.imag, ds.imag
+        f[15], df[15] = f[9:12].sum(), df[9:12].sum(0)
+        f[16], df[16] = f[12:15].sum(), df[12:15].sum(0)
+        if mt.slots[-1] >= 17:
+            ia, dia = _ang(i, di)
+            va, dva = _ang(v, dv)
+            f[17:20], df[17:20] = ia - va[0], dia - dva[0]
+            f[20:22], df[20:22] = va[1:] - va[0], dva[1:] - dva[0]
+        kinds = _KINDS3
     f, df, kinds = f[mt.slots], df[mt.slots], kinds[mt.slots]
     gain = np.where(kinds == 0, gv, np.where(kinds == 1, gi, np.where(kinds == 2, gv * gi, 1.0)))
     out, dout = f * gain, df * gain[:, None]
@@ -275,6 +315,11 @@ def _meter_slots(
     if mt.gi >= 0:
         dout[:, mt.gi] += f * np.where(kinds == 1, 1.0, np.where(kinds == 2, gv, 0.0))
     return out, dout
+
+
+_NEXT = np.array([1, 2, 0])
+_KINDS1 = np.array([0, 1, 2, 2])
+_KINDS3 = np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]
 
 
 def angle_rows(mt: MeterTerm, p: int) -> FArray:
@@ -349,10 +394,16 @@ def _assemble(
     b = np.zeros(n)
     cost = 0.0
     for ev, off in zip(evals, lay.offsets, strict=True):
-        cols = np.r_[np.arange(ns), np.arange(off, off + ev.j.shape[1] - ns)]
         jj = ev.j
-        g[np.ix_(cols, cols)] += jj.T @ jj
-        b[cols] += jj.T @ ev.r
+        a = jj.T @ jj
+        c = jj.T @ ev.r
+        e = off + jj.shape[1] - ns
+        g[:ns, :ns] += a[:ns, :ns]
+        g[:ns, off:e] += a[:ns, ns:]
+        g[off:e, :ns] += a[ns:, :ns]
+        g[off:e, off:e] += a[ns:, ns:]
+        b[:ns] += c[:ns]
+        b[off:e] += c[ns:]
         cost += float(ev.r @ ev.r)
     pr = np.array([(pp.mean - x[k]) / pp.std for k, pp in enumerate(priors)])
     for k, pp in enumerate(priors):
@@ -478,13 +529,12 @@ def meter_phasors(fit: Fit, steps: Sequence[StepModel], k: int) -> list[tuple[CA
     st, tc, off = steps[k], fit.lay.tcs[k], fit.lay.offsets[k]
     shared = fit.x[: fit.lay.ns]
     ns, p = len(shared), st.phases
-    nc = ns + tc.shape[1]
     v = tc @ fit.x[off : off + tc.shape[1]]
-    dv = np.zeros((st.nodes, nc), complex)
-    tps, lds = _currents(st, v, dv, shared, ns)
+    dv = np.zeros((st.nodes, 0), complex)
+    tps, lds = _currents(st, v, dv, shared, ns, derivs=False)
     out = []
     for mt in st.meters:
-        i = _sum(mt.current, tps, lds, p, nc).val if mt.current else np.zeros(p, complex)
+        i = _sum(mt.current, tps, lds, p, 0).val if mt.current else np.zeros(p, complex)
         out.append((v[mt.v_nodes], i))
     return out
 

@@ -94,6 +94,7 @@ def tests(
     has_current = {mt.name for st in steps for mt in st.meters if mt.gi >= 0}
     hyps: list[Hypothesis] = []
     cols: list[FArray] = []
+    phasors: dict[int, list[tuple[CArray, CArray]]] = {}
     for mid in present:
         for kind, g in (("vt_ratio", "v"), ("ct_ratio", "i")):
             gi = gains.get((mid, g), -1)
@@ -109,17 +110,15 @@ def tests(
             for arg in args:
                 b = np.zeros(m)
                 for k, st in enumerate(steps):
-                    ph = None
                     for mi, mt in enumerate(st.meters):
                         if mt.name != mid or not mt.current:
                             continue
-                        if ph is None:
-                            ph = meter_phasors(fit, steps, k)
-                        v, i = ph[mi]
+                        if k not in phasors:
+                            phasors[k] = meter_phasors(fit, steps, k)
+                        v, i = phasors[k][mi]
                         d = slot_values(mt, v, _flip(i, kind, arg), shared, st.phases)
                         d = d - slot_values(mt, v, i, shared, st.phases)
-                        rows = slice(starts[k] + _row0(fit, k, mi), 0)
-                        lo = rows.start
+                        lo = int(starts[k]) + _row0(fit, k, mi)
                         rr = r[lo : lo + len(d)]
                         for n_, key in enumerate(keys[k][mi]):
                             if key in ANGLE_SLOTS:
@@ -168,3 +167,15 @@ def gain_from_data(fit: Fit, index: int, omega: float) -> tuple[float, float]:
         return math.nan, math.nan
     var = float(fit.ginv[index, index])
     return 1.0 + (g - 1.0) / omega, math.sqrt(var / omega)
+
+
+def normalized_residuals(fit: Fit) -> list[FArray]:
+    """|r̃_i| / sqrt(Ω̃_ii) of every row of every step (NaN for a critical row, Ω̃_ii ≈ 0)."""
+    from .core import omega_diag
+
+    om, _ = omega_diag(fit)
+    out = []
+    for ev, o in zip(fit.evals, om, strict=True):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out.append(np.where(o > CRITICAL, np.abs(ev.r) / np.sqrt(np.maximum(o, 0.0)), np.nan))
+    return out
