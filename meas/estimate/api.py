@@ -13,7 +13,8 @@ from ..model import Profile
 from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
 from .core import Fit, StepModel, omega_diag, solve
-from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
+from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, tests
+from .identify import Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 
 CHI2_P = 0.99
@@ -48,30 +49,38 @@ class Estimator:
         if not pr.steps:
             return _empty(pr, "no live meter gave readings in these captures")
         fit0 = solve(pr.steps, pr.priors)
-        if not fit0.converged:
-            return _empty(pr, f"the estimate did not converge: {fit0.why}", fit0.iterations)
-        ts0 = tests(fit0, pr.steps, pr.keys, pr.gains)
         findings: list[Finding] = []
-        fit, steps, keys, ts = fit0, list(pr.steps), list(pr.keys), ts0
+        fit, steps, keys = fit0, list(pr.steps), list(pr.keys)
+        cov_fit, cov_steps, cov_keys = fit0, steps, keys
         for _ in range(MAX_FINDINGS):
-            f = _identify(fit, ts, pr)
-            if f is None:
+            if fit.converged:
+                ts = tests(fit, steps, keys, pr.gains)
+                if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
+                    break
+            picked = best_trial(fit, trials(fit, steps, pr.priors, pr, suspects(fit, steps, keys, pr.priors, pr)))
+            if picked is None:
                 break
-            findings.append(f)
-            if f.ambiguous:
+            top, rv, same = picked
+            findings.append(_finding(fit, top, rv, same, pr))
+            if not fit.converged or cov_fit is fit0 and not fit0.converged:
+                cov_fit, cov_steps, cov_keys = top.fit, top.steps, keys
+            if rv:
                 break  # a tie: removing either would be a guess
-            steps, keys = _without(steps, keys, set(f.meters))
+            steps, keys = _without(steps, keys, {top.meter})
             if not any(st.meters for st in steps):
                 break
-            nxt = solve(steps, pr.priors, x0=None)
+            nxt = solve(steps, pr.priors, x0=top.fit.x)
             if not nxt.converged:
-                break
+                nxt = solve(steps, pr.priors)
             fit = nxt
-            ts = tests(fit, steps, keys, pr.gains)
+        if not fit.converged and not findings:
+            return _empty(pr, f"the estimate did not converge: {fit.why}", fit.iterations)
+        if not fit.converged:
+            fit = cov_fit
         dof = _dof(fit)
         limit = float(_chi2.ppf(CHI2_P, dof)) if dof > 0 else math.nan
         named = {m for f in findings for m in f.meters}
-        cov = _coverage(fit0, ts0, pr)
+        cov = _coverage(cov_fit, tests(cov_fit, cov_steps, cov_keys, pr.gains), pr)
         return Estimate(
             converged=True,
             why="",
@@ -80,7 +89,7 @@ class Estimator:
             dof=dof,
             chi2_limit=limit,
             steps=len(pr.steps),
-            gains=_gains(fit0, fit, pr, named),
+            gains=_gains(cov_fit, fit, pr, named),
             parameters=_parameters(fit, pr),
             findings=tuple(findings),
             coverage=cov,
@@ -97,61 +106,48 @@ def estimate(profile: Profile, captures: Sequence[Sequence[Snapshot]]) -> Estima
 # ---------------------------------------------------------------------------- identification
 
 
-def _identify(fit: Fit, ts: Tests, pr: Problem) -> Finding | None:
-    if not len(ts.t):
-        return None
-    order = sorted(range(len(ts.hyps)), key=lambda h: (-ts.t[h], ts.hyps[h].meter, h))
-    h = order[0]
-    if ts.t[h] < THRESHOLD:
-        return None
-    hy = ts.hyps[h]
-    rv = rivals(ts, h)
-    meters = tuple(sorted({hy.meter} | {ts.hyps[g].meter for g in rv}))
-    same = [
-        g
-        for g in order[1:]
-        if ts.hyps[g].meter == hy.meter and ts.t[g] >= 0.97 * ts.t[h] and ts.hyps[g].kind != hy.kind
-    ]
-    figure = float(ts.t[h])
-    if len(meters) > 1:
-        what = ", ".join(f"{ts.hyps[g].meter} ({_NAMES[ts.hyps[g].kind]})" for g in [h, *rv])
+def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Problem) -> Finding:
+    figure = math.sqrt(max(base.cost - top.fit.cost, 0.0))
+    if rv:
+        meters = tuple(sorted({top.meter} | {t.meter for t in rv}))
+        what = ", ".join(
+            f"{t.meter} ({_NAMES[t.kind]}{' ' + t.arg if t.arg else ''})" for t in [top, *rv]
+        )
         sentence = (
             f"{' or '.join(meters)}: cannot be told apart on this bench ({what} explain the "
-            f"readings equally well); another meter on the same flow, or a step that loads it "
+            "readings equally well); another meter on the same flow, or a step that loads it "
             "differently, would tell"
         )
-        return Finding(meters, "ambiguous:" + _label(hy.kind, hy.arg), sentence, figure, THRESHOLD)
-    cause, sentence = _cause(fit, ts, h, pr)
+        return Finding(meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD)
+    m = top.meter
+    if top.kind in ("vt_ratio", "ct_ratio"):
+        gi = pr.gains[(m, "v" if top.kind == "vt_ratio" else "i")]
+        k = float(top.fit.x[gi])
+        sd = math.sqrt(max(float(top.fit.ginv[gi, gi]), 0.0))
+        what = "voltages" if top.kind == "vt_ratio" else "currents and powers"
+        cause = f"{top.kind}:{k:.3f}"
+        sentence = (
+            f"{m}: {what} {k:.3f} ± {sd:.3f} of what the network implies: the "
+            f"{_NAMES[top.kind]} looks set wrong by a factor {k:.2f}"
+        )
+    elif top.kind == "ct_reversed":
+        cause = f"ct_reversed:{top.arg}"
+        sentence = (
+            f"{m}: phase {top.arg} power runs against what the network implies: the CT of "
+            f"phase {top.arg} looks reversed"
+        )
+    else:
+        cause = f"phases_swapped:{top.arg}"
+        sentence = (
+            f"{m}: currents of phases {top.arg[0]} and {top.arg[1]} sit where the other's "
+            "should: the current inputs look swapped"
+        )
     if same:
-        alt = " or ".join(_NAMES[ts.hyps[g].kind] for g in same)
+        alt = " or ".join(
+            sorted({_NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same})
+        )
         sentence += f" (a {alt} fits about as well)"
-    return Finding(meters, cause, sentence, figure, THRESHOLD)
-
-
-def _cause(fit: Fit, ts: Tests, h: int, pr: Problem) -> tuple[str, str]:
-    hy = ts.hyps[h]
-    m = hy.meter
-    if hy.kind in ("vt_ratio", "ct_ratio"):
-        gi = ts.gain_index[(m, "v" if hy.kind == "vt_ratio" else "i")]
-        om = 1.0 - float(fit.ginv[gi, gi]) / float(fit.prior_std[gi]) ** 2
-        k, s = gain_from_data(fit, gi, om)
-        what = "voltages" if hy.kind == "vt_ratio" else "currents and powers"
-        return (
-            f"{hy.kind}:{k:.3f}",
-            f"{m}: {what} {k:.3f} ± {s:.3f} of what the network implies: the "
-            f"{_NAMES[hy.kind]} looks set wrong by a factor {k:.2f}",
-        )
-    if hy.kind == "ct_reversed":
-        return (
-            f"ct_reversed:{hy.arg}",
-            f"{m}: phase {hy.arg} power runs against what the network implies: the CT of "
-            f"phase {hy.arg} looks reversed",
-        )
-    return (
-        f"phases_swapped:{hy.arg}",
-        f"{m}: currents of phases {hy.arg[0]} and {hy.arg[1]} sit where the other's should: "
-        "the current inputs look swapped",
-    )
+    return Finding((m,), cause, sentence, figure, THRESHOLD)
 
 
 def _without(
@@ -273,4 +269,3 @@ def _empty(pr: Problem, why: str, iterations: int = 0) -> Estimate:
 
 
 __all__ = ["Estimator", "estimate"]
-_ = np

@@ -70,6 +70,7 @@ class MeterTerm:
     slots: IArray  # which reading slots are measured (``slot_keys`` order)
     z: FArray  # measured values (angles in radians)
     sigma: FArray
+    wiring: FArray | None = None  # (p, p) what the current inputs see: a hypothesis under test
 
 
 @dataclass(frozen=True)
@@ -350,6 +351,8 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
     for mt in step.meters:
         vq = _Quantity(v[mt.v_nodes], dv[mt.v_nodes])
         iq = _sum(mt.current, tps, lds, p, nc) if mt.current else zero
+        if mt.wiring is not None:
+            iq = _Quantity(mt.wiring @ iq.val, mt.wiring @ iq.d)
         h, dh = _meter_slots(mt, vq, iq, shared, p)
         res = mt.z - h
         ang = angle_rows(mt, p)

@@ -1,0 +1,143 @@
+"""Naming the fault: refit under each hypothesis and keep the one that explains the readings.
+
+The linearized statistics of ``meas.estimate.diagnose`` say *that* something is wrong and which
+meters to suspect, but a reversed CT or a swapped pair is far from linear: the fit bends the
+state and the gains towards it, and the residual pattern then resembles a ratio error. So the
+suspects are tested exactly: for each, the fit is repeated with the hypothesis built into the
+model (the meter's current inputs permuted or reversed, or its gain freed from the class prior),
+and the drop of the misfit J is the evidence (a likelihood-ratio test: ΔJ = T²).
+Suspects are the meters with the largest statistics when the fit converged, or otherwise the
+meters whose removal lowers J most. A rival on another meter whose refit explains the readings
+as well (within ``MARGIN``) is a tie: both are named and neither is blamed.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from .build import Problem
+from .core import FArray, Fit, Prior, StepModel, solve
+from .diagnose import THRESHOLD, tests
+
+SUSPECTS = 3
+RELEASED = 1e3  # a freed gain's prior is this many times wider
+_PAIRS = ("AB", "BC", "CA")
+
+
+def margin(j: float) -> float:
+    """Two refits this close in J explain the readings equally well (our rule)."""
+    return max(1.0, 0.02 * j)
+
+
+@dataclass
+class Trial:
+    meter: str
+    kind: str  # "vt_ratio", "ct_ratio", "ct_reversed", "phases_swapped"
+    arg: str
+    fit: Fit
+    steps: list[StepModel]
+    priors: list[Prior]
+
+
+def _wiring(kind: str, arg: str) -> FArray:
+    w = np.eye(3)
+    if kind == "ct_reversed":
+        w["ABC".index(arg), "ABC".index(arg)] = -1.0
+    else:
+        a, b = ("ABC".index(c) for c in arg)
+        w[[a, b]] = w[[b, a]]
+    return w
+
+
+def _hypotheses(meter: str, has_current: bool) -> list[tuple[str, str]]:
+    out = [("vt_ratio", "")]
+    if has_current:
+        out.append(("ct_ratio", ""))
+        out += [("ct_reversed", p) for p in "ABC"]
+        out += [("phases_swapped", p) for p in _PAIRS]
+    return out
+
+
+def _apply(
+    steps: Sequence[StepModel], priors: Sequence[Prior], pr: Problem, meter: str, kind: str, arg: str
+) -> tuple[list[StepModel], list[Prior]]:
+    pri = list(priors)
+    if kind in ("vt_ratio", "ct_ratio"):
+        gi = pr.gains[(meter, "v" if kind == "vt_ratio" else "i")]
+        pri[gi] = replace(pri[gi], std=pri[gi].std * RELEASED)
+        return list(steps), pri
+    w = _wiring(kind, arg)
+    out = []
+    for st in steps:
+        ms = tuple(replace(mt, wiring=w) if mt.name == meter else mt for mt in st.meters)
+        out.append(replace(st, meters=ms))
+    return out, pri
+
+
+def _drop(steps: Sequence[StepModel], meter: str) -> list[StepModel]:
+    return [replace(st, meters=tuple(m for m in st.meters if m.name != meter)) for st in steps]
+
+
+def suspects(
+    base: Fit,
+    steps: Sequence[StepModel],
+    keys: Sequence[Sequence[Sequence[str]]],
+    priors: Sequence[Prior],
+    pr: Problem,
+) -> list[str]:
+    """The meters to test, most suspect first."""
+    present = sorted({mt.name for st in steps for mt in st.meters})
+    if base.converged:
+        ts = tests(base, steps, keys, pr.gains)
+        best: dict[str, float] = {}
+        for h, hy in enumerate(ts.hyps):
+            best[hy.meter] = max(best.get(hy.meter, 0.0), float(ts.t[h]))
+        ranked = sorted(present, key=lambda m: (-best.get(m, 0.0), m))
+        return [m for m in ranked if best.get(m, 0.0) >= THRESHOLD / 2][:SUSPECTS]
+    scores = []
+    for m in present:
+        f = solve(_drop(steps, m), priors)
+        scores.append((f.cost if f.converged else math.inf, m))
+    scores.sort()
+    return [m for j, m in scores if math.isfinite(j)][:SUSPECTS]
+
+
+def trials(
+    base: Fit, steps: Sequence[StepModel], priors: Sequence[Prior], pr: Problem, meters: list[str]
+) -> list[Trial]:
+    """Every hypothesis on every suspect, refitted (only the converged ones are kept)."""
+    has_current = {mt.name for st in steps for mt in st.meters if mt.current}
+    out = []
+    x0 = base.x if base.converged else None
+    for m in meters:
+        for kind, arg in _hypotheses(m, m in has_current):
+            st_h, pri_h = _apply(steps, priors, pr, m, kind, arg)
+            f = solve(st_h, pri_h, x0=x0)
+            if not f.converged and x0 is not None:
+                f = solve(st_h, pri_h)
+            if f.converged:
+                out.append(Trial(m, kind, arg, f, st_h, pri_h))
+    return out
+
+
+def best_trial(base: Fit, found: list[Trial]) -> tuple[Trial, list[Trial], list[Trial]] | None:
+    """The best refit, its rivals on other meters, and equally good causes on the same meter."""
+    if not found:
+        return None
+    found = sorted(found, key=lambda t: (t.fit.cost, t.meter, t.kind, t.arg))
+    top = found[0]
+    j0 = base.cost
+    if j0 - top.fit.cost < THRESHOLD**2:
+        return None
+    lim = top.fit.cost + margin(top.fit.cost)
+    rivals = [t for t in found[1:] if t.meter != top.meter and t.fit.cost <= lim]
+    same = [
+        t
+        for t in found[1:]
+        if t.meter == top.meter and t.kind != top.kind and t.fit.cost <= lim
+    ]
+    return top, rivals, same
