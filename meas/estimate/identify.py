@@ -24,6 +24,8 @@ from .core import FArray, Fit, Prior, StepModel, solve
 from .diagnose import THRESHOLD, tests
 
 SUSPECTS = 3
+RIVAL_SHARE = 0.3  # suspects: meters whose statistic reaches this share of the largest
+TRIAL_ITER = 15  # a hypothesis the fit cannot settle in this many iterations does not fit
 RELEASED = 1e3  # a freed gain's prior is this many times wider
 _PAIRS = ("AB", "BC", "CA")
 
@@ -97,10 +99,12 @@ def suspects(
         for h, hy in enumerate(ts.hyps):
             best[hy.meter] = max(best.get(hy.meter, 0.0), float(ts.t[h]))
         ranked = sorted(present, key=lambda m: (-best.get(m, 0.0), m))
-        return [m for m in ranked if best.get(m, 0.0) >= THRESHOLD / 2][:SUSPECTS]
+        top = best.get(ranked[0], 0.0) if ranked else 0.0
+        floor = max(THRESHOLD / 2, RIVAL_SHARE * top)
+        return [m for m in ranked if best.get(m, 0.0) >= floor][:SUSPECTS]
     scores = []
     for m in present:
-        f = solve(_drop(steps, m), priors)
+        f = solve(_drop(steps, m), priors, max_iter=TRIAL_ITER)
         scores.append((f.cost if f.converged else math.inf, m))
     scores.sort()
     return [m for j, m in scores if math.isfinite(j)][:SUSPECTS]
@@ -116,9 +120,7 @@ def trials(
     for m in meters:
         for kind, arg in _hypotheses(m, m in has_current):
             st_h, pri_h = _apply(steps, priors, pr, m, kind, arg)
-            f = solve(st_h, pri_h, x0=x0)
-            if not f.converged and x0 is not None:
-                f = solve(st_h, pri_h)
+            f = solve(st_h, pri_h, x0=x0, max_iter=TRIAL_ITER)
             if f.converged:
                 out.append(Trial(m, kind, arg, f, st_h, pri_h))
     return out
