@@ -14,7 +14,7 @@ from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
 from .core import Fit, StepModel, omega_diag, solve
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, tests
-from .identify import Trial, best_trial, suspects, trials
+from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 
 CHI2_P = 0.99
@@ -39,16 +39,17 @@ def _label(kind: str, arg: str) -> str:
 class Estimator:
     """The estimator for one profile; build once, run on any list of captures."""
 
-    def __init__(self, profile: Profile):
+    def __init__(self, profile: Profile, *, max_iter: int = 40):
         self.profile = profile
         self.builder = Builder(profile)
+        self.max_iter = max_iter
 
     def run(self, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
         """Estimate jointly over ``captures`` (one inner sequence of snapshots per step)."""
         pr = self.builder.problem(captures)
         if not pr.steps:
             return _empty(pr, "no live meter gave readings in these captures")
-        fit0 = solve(pr.steps, pr.priors)
+        fit0 = solve(pr.steps, pr.priors, max_iter=self.max_iter)
         findings: list[Finding] = []
         fit, steps, keys = fit0, list(pr.steps), list(pr.keys)
         cov_fit, cov_steps, cov_keys = fit0, steps, keys
@@ -57,7 +58,9 @@ class Estimator:
                 ts = tests(fit, steps, keys, pr.gains)
                 if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
                     break
-            picked = best_trial(fit, trials(fit, steps, pr.priors, pr, suspects(fit, steps, keys, pr.priors, pr)))
+            budget = min(TRIAL_ITER, self.max_iter)
+            sus = suspects(fit, steps, keys, pr.priors, pr, budget)
+            picked = best_trial(fit, trials(fit, steps, pr.priors, pr, sus, budget, self.max_iter))
             if picked is None:
                 break
             top, rv, same = picked
@@ -69,9 +72,9 @@ class Estimator:
             steps, keys = _without(steps, keys, {top.meter})
             if not any(st.meters for st in steps):
                 break
-            nxt = solve(steps, pr.priors, x0=top.fit.x)
+            nxt = solve(steps, pr.priors, x0=top.fit.x, max_iter=self.max_iter)
             if not nxt.converged:
-                nxt = solve(steps, pr.priors)
+                nxt = solve(steps, pr.priors, max_iter=self.max_iter)
             fit = nxt
         if not fit.converged and not findings:
             return _empty(pr, f"the estimate did not converge: {fit.why}", fit.iterations)

@@ -446,7 +446,21 @@ def solve(
     the full problem starts from its solution.
     """
     lay = layout(len(priors), steps)
-    if x0 is None:
+    if x0 is None and len(steps) > 1:
+        # several steps: start each step's state from its own fit (robust and cheap), the
+        # shared unknowns from the mean of theirs; a joint flat start lets every step's
+        # flat-start misfit push the shared gains and parameters at once
+        x = initial(lay, steps, np.array([p.mean for p in priors], float))
+        shared = []
+        for k, st in enumerate(steps):
+            one = solve([st], priors, tol=1e-6, max_iter=max_iter)
+            if one.converged:
+                off = lay.offsets[k]
+                x[off : off + lay.tcs[k].shape[1]] = one.x[one.lay.ns :]
+                shared.append(one.x[: one.lay.ns])
+        if shared:
+            x[: lay.ns] = np.mean(shared, axis=0)
+    elif x0 is None:
         x = initial(lay, steps, np.array([p.mean for p in priors], float))
         first = solve([_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x)
         if np.all(np.isfinite(first.x)):

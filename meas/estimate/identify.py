@@ -18,10 +18,16 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
+from scipy.stats import chi2
 
 from .build import Problem
 from .core import FArray, Fit, Prior, StepModel, solve
 from .diagnose import THRESHOLD, tests
+
+
+def dof(fit: Fit) -> int:
+    """Degrees of freedom: rows of readings and Kirchhoff minus state unknowns (priors cancel)."""
+    return int(sum(len(ev.r) for ev in fit.evals) - (fit.lay.n - fit.lay.ns))
 
 SUSPECTS = 3
 RIVAL_SHARE = 0.3  # suspects: meters whose statistic reaches this share of the largest
@@ -90,6 +96,7 @@ def suspects(
     keys: Sequence[Sequence[Sequence[str]]],
     priors: Sequence[Prior],
     pr: Problem,
+    max_iter: int = TRIAL_ITER,
 ) -> list[str]:
     """The meters to test, most suspect first."""
     present = sorted({mt.name for st in steps for mt in st.meters})
@@ -104,23 +111,35 @@ def suspects(
         return [m for m in ranked if best.get(m, 0.0) >= floor][:SUSPECTS]
     scores = []
     for m in present:
-        f = solve(_drop(steps, m), priors, max_iter=TRIAL_ITER)
+        f = solve(_drop(steps, m), priors, max_iter=max_iter)  # flat start, as in trials
         scores.append((f.cost if f.converged else math.inf, m))
     scores.sort()
     return [m for j, m in scores if math.isfinite(j)][:SUSPECTS]
 
 
 def trials(
-    base: Fit, steps: Sequence[StepModel], priors: Sequence[Prior], pr: Problem, meters: list[str]
+    base: Fit,
+    steps: Sequence[StepModel],
+    priors: Sequence[Prior],
+    pr: Problem,
+    meters: list[str],
+    max_iter: int = TRIAL_ITER,
+    ratio_iter: int = 40,
 ) -> list[Trial]:
     """Every hypothesis on every suspect, refitted (only the converged ones are kept)."""
     has_current = {mt.name for st in steps for mt in st.meters if mt.current}
     out = []
-    x0 = base.x if base.converged else None
     for m in meters:
         for kind, arg in _hypotheses(m, m in has_current):
             st_h, pri_h = _apply(steps, priors, pr, m, kind, arg)
-            f = solve(st_h, pri_h, x0=x0, max_iter=TRIAL_ITER)
+            # from a flat start: from the state the fault bent, damped Gauss-Newton crawls
+            if kind in ("vt_ratio", "ct_ratio"):
+                # from the converged fit: at a flat start the powers are zero and a freed gain
+                # has nothing to hold it
+                x0 = base.x if base.converged else None
+                f = solve(st_h, pri_h, x0=x0, max_iter=ratio_iter)
+            else:
+                f = solve(st_h, pri_h, max_iter=min(max_iter, TRIAL_ITER))
             if f.converged:
                 out.append(Trial(m, kind, arg, f, st_h, pri_h))
     return out
@@ -135,6 +154,8 @@ def best_trial(base: Fit, found: list[Trial]) -> tuple[Trial, list[Trial], list[
     j0 = base.cost
     if j0 - top.fit.cost < THRESHOLD**2:
         return None
+    if not base.converged and top.fit.cost > chi2.ppf(0.99, max(dof(top.fit), 1)):
+        return None  # without a converged reference, a hypothesis must explain the readings
     lim = top.fit.cost + margin(top.fit.cost)
     rivals = [t for t in found[1:] if t.meter != top.meter and t.fit.cost <= lim]
     same = [
