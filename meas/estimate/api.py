@@ -18,7 +18,7 @@ from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 
 CHI2_P = 0.99
-MAX_FINDINGS = 3
+MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
 _NAMES = {
     "vt_ratio": "VT ratio",
     "ct_ratio": "CT ratio",
@@ -60,7 +60,9 @@ class Estimator:
                     break
             budget = min(TRIAL_ITER, self.max_iter)
             sus = suspects(fit, steps, keys, pr.priors, pr, budget)
-            picked = best_trial(fit, trials(fit, steps, pr.priors, pr, sus, budget, self.max_iter))
+            picked = best_trial(
+                fit, trials(fit, steps, pr.priors, pr, sus, keys, budget, self.max_iter)
+            )
             if picked is None:
                 break
             top, rv, same = picked

@@ -29,7 +29,8 @@ def dof(fit: Fit) -> int:
     """Degrees of freedom: rows of readings and Kirchhoff minus state unknowns (priors cancel)."""
     return int(sum(len(ev.r) for ev in fit.evals) - (fit.lay.n - fit.lay.ns))
 
-SUSPECTS = 3
+SUSPECTS = 2
+WIRING_KEEP = 6  # wiring hypotheses refitted per suspect (all six: the linear ranking misleads)
 RIVAL_SHARE = 0.3  # suspects: meters whose statistic reaches this share of the largest
 TRIAL_ITER = 15  # a hypothesis the fit cannot settle in this many iterations does not fit
 RELEASED = 1e3  # a freed gain's prior is this many times wider
@@ -86,6 +87,16 @@ def _apply(
     return out, pri
 
 
+GAIN_RANGE = (0.2, 5.0)  # a ratio set wrong by more than this is not a ratio error
+
+
+def _plausible(f: Fit, pr: Problem, meter: str, kind: str) -> bool:
+    if kind not in ("vt_ratio", "ct_ratio"):
+        return True
+    g = float(f.x[pr.gains[(meter, "v" if kind == "vt_ratio" else "i")]])
+    return GAIN_RANGE[0] <= g <= GAIN_RANGE[1]
+
+
 def _drop(steps: Sequence[StepModel], meter: str) -> list[StepModel]:
     return [replace(st, meters=tuple(m for m in st.meters if m.name != meter)) for st in steps]
 
@@ -123,14 +134,30 @@ def trials(
     priors: Sequence[Prior],
     pr: Problem,
     meters: list[str],
+    keys: Sequence[Sequence[Sequence[str]]] = (),
     max_iter: int = TRIAL_ITER,
     ratio_iter: int = 40,
 ) -> list[Trial]:
     """Every hypothesis on every suspect, refitted (only the converged ones are kept)."""
     has_current = {mt.name for st in steps for mt in st.meters if mt.current}
     out = []
+    rank: dict[tuple[str, str, str], float] = {}
+    if base.converged:
+        ts = tests(base, steps, keys, pr.gains)
+        rank = {(h.meter, h.kind, h.arg): float(t) for h, t in zip(ts.hyps, ts.t, strict=True)}
     for m in meters:
-        for kind, arg in _hypotheses(m, m in has_current):
+        hyps = _hypotheses(m, m in has_current)
+        if rank:
+            # the linear statistic cannot tell a wiring fault's kind reliably, but it ranks
+            # them well enough to keep the refits to the likeliest few
+            wiring = [h for h in hyps if h[0] not in ("vt_ratio", "ct_ratio")]
+            wiring.sort(key=lambda h: -rank.get((m, *h), 0.0))
+            hyps = [h for h in hyps if h[0] in ("vt_ratio", "ct_ratio")] + wiring[:WIRING_KEEP]
+        clean: FArray | None = None  # the fit without the suspect: a start it has not bent
+        if any(k not in ("vt_ratio", "ct_ratio") for k, _ in hyps):
+            lomo = solve(_drop(steps, m), priors, max_iter=min(max_iter, TRIAL_ITER))
+            clean = lomo.x if lomo.converged else None
+        for kind, arg in hyps:
             st_h, pri_h = _apply(steps, priors, pr, m, kind, arg)
             # from a flat start: from the state the fault bent, damped Gauss-Newton crawls
             if kind in ("vt_ratio", "ct_ratio"):
@@ -139,8 +166,10 @@ def trials(
                 x0 = base.x if base.converged else None
                 f = solve(st_h, pri_h, x0=x0, max_iter=ratio_iter)
             else:
-                f = solve(st_h, pri_h, max_iter=min(max_iter, TRIAL_ITER))
-            if f.converged:
+                f = solve(st_h, pri_h, x0=clean, max_iter=min(max_iter, TRIAL_ITER))
+                if not f.converged and clean is not None:
+                    f = solve(st_h, pri_h, max_iter=min(max_iter, TRIAL_ITER))
+            if f.converged and _plausible(f, pr, m, kind):
                 out.append(Trial(m, kind, arg, f, st_h, pri_h))
     return out
 
