@@ -36,7 +36,14 @@ from support.estimate_bench import as_built, capture, demo, meter_gains, sequenc
 from meas.estimate import Estimator  # noqa: E402
 from meas.model import Profile  # noqa: E402
 
-STATE = {"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open", "RX": "closed", "LB2": "closed"}
+STATE = {
+    "CB1": "closed",
+    "SW2": "closed",
+    "SW3": "closed",
+    "TIE": "open",
+    "RX": "closed",
+    "LB2": "closed",
+}
 
 
 def widened(profile: Profile, times: int) -> Profile:

@@ -123,7 +123,9 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
             "readings equally well); another meter on the same flow, or a step that loads it "
             "differently, would tell"
         )
-        return Finding(meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD)
+        return Finding(
+            meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD
+        )
     m = top.meter
     if top.kind in ("vt_ratio", "ct_ratio"):
         gi = pr.gains[(m, "v" if top.kind == "vt_ratio" else "i")]
@@ -148,9 +150,7 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
             "should: the current inputs look swapped"
         )
     if same:
-        alt = " or ".join(
-            sorted({_NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same})
-        )
+        alt = " or ".join(sorted({_NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same}))
         sentence += f" (a {alt} fits about as well)"
     return Finding((m,), cause, sentence, figure, THRESHOLD)
 
@@ -214,7 +214,9 @@ def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
             om = float(om_prior[gi])
             if om < CRITICAL:
                 out.append(
-                    Coverage(hy.meter, label, False, math.nan, f"{name}: no other reading predicts it")
+                    Coverage(
+                        hy.meter, label, False, math.nan, f"{name}: no other reading predicts it"
+                    )
                 )
                 continue
             delta = (THRESHOLD + POWER_Z) * float(fit.prior_std[gi]) / math.sqrt(om)
@@ -237,7 +239,11 @@ def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
             continue
         strength = math.sqrt(max(float(ts.q[h, h]), 0.0))
         if ts.q[h, h] <= CRITICAL * max(ts.bb[h], 1e-300) or strength < THRESHOLD + POWER_Z:
-            why = "too little current in these steps" if ts.bb[h] < 1.0 else "no other reading predicts it"
+            why = (
+                "too little current in these steps"
+                if ts.bb[h] < 1.0
+                else "no other reading predicts it"
+            )
             out.append(Coverage(hy.meter, label, False, math.nan, f"{name}: {why}"))
         elif tied:
             out.append(
@@ -251,7 +257,9 @@ def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
             )
         else:
             out.append(
-                Coverage(hy.meter, label, True, math.nan, f"{name}: detectable (strength {strength:.0f})")
+                Coverage(
+                    hy.meter, label, True, math.nan, f"{name}: detectable (strength {strength:.0f})"
+                )
             )
     return tuple(out)
 
@@ -269,7 +277,19 @@ def _empty(pr: Problem, why: str, iterations: int = 0) -> Estimate:
     ids = sorted({m for ms in pr.meter_ids for m in ms})
     unv = tuple(pr.unverified) + tuple(Unverified(m, "all", why) for m in ids)
     return Estimate(
-        False, why, iterations, math.nan, 0, math.nan, len(pr.steps), (), (), (), (), unv, tuple(ids)
+        False,
+        why,
+        iterations,
+        math.nan,
+        0,
+        math.nan,
+        len(pr.steps),
+        (),
+        (),
+        (),
+        (),
+        unv,
+        tuple(ids),
     )
 
 

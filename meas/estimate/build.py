@@ -90,7 +90,7 @@ def _two_port_builder(br: Branch, prm: list[tuple[int, ModelParameter]]) -> TwoP
             field_ = _rel_key(mp.key)
             base = getattr(params, field_)
             changes[field_] = float(pv[j]) if mp.scale == "absolute" else base * float(pv[j])
-        return replace(params, **changes)  # type: ignore[type-var]
+        return replace(params, **changes)  # type: ignore[arg-type]
 
     if isinstance(params, LineParams):
 
@@ -180,7 +180,9 @@ class Builder:
         for s, st in states.items():
             if st not in ("open", "closed"):
                 out_unverified.append(
-                    Unverified("*", "*", f"switch {s} reads {st!r}: this step's topology is unknown", k)
+                    Unverified(
+                        "*", "*", f"switch {s} reads {st!r}: this step's topology is unknown", k
+                    )
                 )
                 return None, [], []
         full = {s.id: known.get(s.id, s.normal) for s in prof.switches}
@@ -330,10 +332,10 @@ class Builder:
             )
             keys.append(kk)
             ids.append(m.id)
-        st = StepModel(
+        model = StepModel(
             n, vn, v0, np.array(refs, np.int64), tuple(tps), tuple(loads), tuple(meters), tuple(kcl)
         )
-        return st, keys, ids
+        return model, keys, ids
 
     def problem(self, captures: Sequence[Sequence[Snapshot]]) -> Problem:
         """One step per capture (its snapshots share one switch state, the first one's)."""

@@ -29,7 +29,7 @@ FArray = NDArray[np.float64]
 IArray = NDArray[np.int64]
 
 # reading codes (see ``slot_keys``)
-V, VLL, I, P, Q, PT, QT, IANG, VANG = range(9)
+V, VLL, IMAG, P, Q, PT, QT, IANG, VANG = range(9)
 
 
 @dataclass(frozen=True)
@@ -107,11 +107,11 @@ class Prior:
 def slot_keys(p: int) -> tuple[tuple[str, int], ...]:
     """(reading key, code) of every slot a meter with ``p`` phases can have, in slot order."""
     if p == 1:
-        return (("v_ln.A", V), ("i.A", I), ("p.T", P), ("q.T", Q))
+        return (("v_ln.A", V), ("i.A", IMAG), ("p.T", P), ("q.T", Q))
     return (
         ("v_ln.A", V), ("v_ln.B", V), ("v_ln.C", V),
         ("v_ll.AB", VLL), ("v_ll.BC", VLL), ("v_ll.CA", VLL),
-        ("i.A", I), ("i.B", I), ("i.C", I),
+        ("i.A", IMAG), ("i.B", IMAG), ("i.C", IMAG),
         ("p.A", P), ("p.B", P), ("p.C", P),
         ("q.A", Q), ("q.B", Q), ("q.C", Q),
         ("p.T", PT), ("q.T", QT),
@@ -179,7 +179,7 @@ def initial(lay: _Layout, steps: Sequence[StepModel], shared0: FArray) -> FArray
 
 _EMPTY = np.zeros(0)
 _YCACHE: dict[int, tuple[bytes, CArray, FArray | None, list[CArray]]] = {}
-DY_REFRESH = 0.02  # recompute dY/dθ once a parameter moved this much (relative)
+DY_REFRESH = 1e-3  # recompute dY/dθ once a parameter moved this much (relative)
 
 
 def _admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[CArray]]:
@@ -324,7 +324,7 @@ _KINDS1 = np.array([0, 1, 2, 2])
 _KINDS3 = np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]
 
 
-def angle_rows(mt: MeterTerm, p: int) -> FArray:
+def angle_rows(mt: MeterTerm, p: int) -> NDArray[np.bool_]:
     if p == 1:
         return np.zeros(len(mt.slots), bool)
     return np.asarray(mt.slots) >= 17
@@ -429,7 +429,7 @@ def _smooth(step: StepModel) -> StepModel:
 
 _SMOOTH = {
     1: (True, False, True, True),
-    3: tuple(c not in (I, IANG) for _, c in slot_keys(3)),
+    3: tuple(c not in (IMAG, IANG) for _, c in slot_keys(3)),
 }
 
 
@@ -479,8 +479,13 @@ def solve(
         return evals, cost, g, b, pr
 
     evals, cost, g, b, pr = run(x)
-    lam, it, converged, why = 1e-6, 0, False, ""
-    for it in range(1, max_iter + 1):
+    # Levenberg-Marquardt with Nielsen's damping update (Madsen, Nielsen & Tingleff, Methods
+    # for non-linear least squares problems, 2004, §3.2): the damping follows the ratio of the
+    # actual to the predicted decrease, so a nearly flat direction (a freed gain against a load
+    # multiplier) does not make every other step overshoot
+    lam, nu, it, converged, why = 1e-6, 2.0, 0, False, ""
+    for step_no in range(1, max_iter + 1):
+        it = step_no
         d = np.diag(g).copy()
         d[d <= 0] = 1.0
         try:
@@ -493,19 +498,23 @@ def solve(
             break
         trial = run(x + dx)
         step_small = float(np.max(np.abs(dx))) < tol
+        pred = float(2 * dx @ b - dx @ g @ dx)
         if trial[1] <= cost:
-            flat = cost - trial[1] <= 1e-9 * max(cost, 1.0)
+            flat = cost - trial[1] <= 1e-7 * max(cost, 1.0)
+            rho = (cost - trial[1]) / pred if pred > 0 else 1.0
             x = x + dx
             evals, cost, g, b, pr = trial
-            lam = max(lam / 10, 1e-12)
+            lam = max(lam * max(1 / 3, 1 - (2 * rho - 1) ** 3), 1e-12)
+            nu = 2.0
             if step_small or flat:
                 converged = True
                 break
         else:
-            if step_small or trial[1] - cost <= 1e-9 * max(cost, 1.0):
+            if step_small or trial[1] - cost <= 1e-7 * max(cost, 1.0):
                 converged = True  # at the optimum to rounding
                 break
-            lam *= 10
+            lam *= nu
+            nu *= 2
             if lam > 1e8:
                 why = "no step lowers the misfit (a local minimum)"
                 break
@@ -518,7 +527,19 @@ def solve(
         converged, why = False, why or "the gain matrix is singular"
     if converged and not np.all(np.isfinite(x)):
         converged, why = False, "the estimate is not finite"
-    return Fit(x, cost, it, converged, why, evals, pr, g, ginv, lay, np.array([p.std for p in priors], float))
+    return Fit(
+        x,
+        cost,
+        it,
+        converged,
+        why,
+        evals,
+        pr,
+        g,
+        np.asarray(ginv, dtype=np.float64),
+        lay,
+        np.array([p.std for p in priors], float),
+    )
 
 
 def cols_of(fit: Fit, k: int) -> IArray:

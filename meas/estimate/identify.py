@@ -29,6 +29,7 @@ def dof(fit: Fit) -> int:
     """Degrees of freedom: rows of readings and Kirchhoff minus state unknowns (priors cancel)."""
     return int(sum(len(ev.r) for ev in fit.evals) - (fit.lay.n - fit.lay.ns))
 
+
 SUSPECTS = 2
 WIRING_KEEP = 6  # wiring hypotheses refitted per suspect (all six: the linear ranking misleads)
 RIVAL_SHARE = 0.3  # suspects: meters whose statistic reaches this share of the largest
@@ -72,7 +73,12 @@ def _hypotheses(meter: str, has_current: bool) -> list[tuple[str, str]]:
 
 
 def _apply(
-    steps: Sequence[StepModel], priors: Sequence[Prior], pr: Problem, meter: str, kind: str, arg: str
+    steps: Sequence[StepModel],
+    priors: Sequence[Prior],
+    pr: Problem,
+    meter: str,
+    kind: str,
+    arg: str,
 ) -> tuple[list[StepModel], list[Prior]]:
     pri = list(priors)
     if kind in ("vt_ratio", "ct_ratio"):
@@ -188,8 +194,6 @@ def best_trial(base: Fit, found: list[Trial]) -> tuple[Trial, list[Trial], list[
     lim = top.fit.cost + margin(top.fit.cost)
     rivals = [t for t in found[1:] if t.meter != top.meter and t.fit.cost <= lim]
     same = [
-        t
-        for t in found[1:]
-        if t.meter == top.meter and t.kind != top.kind and t.fit.cost <= lim
+        t for t in found[1:] if t.meter == top.meter and t.kind != top.kind and t.fit.cost <= lim
     ]
     return top, rivals, same

@@ -107,7 +107,7 @@ def reading_std(
         n = 3.0 if ph == "T" else 1.0
         if ph == "T":
             s_abs = math.hypot(vals.get("p.T", 0.0), vals.get("q.T", 0.0))
-            i = np.nanmean([vals.get(f"i.{p}", math.nan) for p in "ABC"])
+            i = float(np.nanmean([vals.get(f"i.{p}", math.nan) for p in "ABC"]))
         else:
             s_abs = math.hypot(vals.get(f"p.{ph}", 0.0), vals.get(f"q.{ph}", 0.0))
             i = vals.get(f"i.{ph}", math.nan)

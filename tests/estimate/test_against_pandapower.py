@@ -114,10 +114,14 @@ def test_positive_sequence_demo_matches_pandapower_estimate() -> None:
             MeterTerm(f"{kind}:{el}:{side}", np.array([node[bus]]), cur, -1, -1,
                       np.array([slot[kind]]), np.array([val]), np.array([sd]))
         )  # fmt: skip
-    step = StepModel(4, np.ones(4), np.ones(4, complex), np.array([0]), tuple(tps), (), tuple(meters), (), 1)
+    step = StepModel(
+        4, np.ones(4), np.ones(4, complex), np.array([0]), tuple(tps), (), tuple(meters), (), 1
+    )
     fit = solve([step], [])
     assert fit.converged
     v = fit.lay.tcs[0] @ fit.x[fit.lay.offsets[0] :]
     # reference: pandapower.estimation.estimate on the same readings
     np.testing.assert_allclose(np.abs(v), ref_v, atol=1e-7)
-    np.testing.assert_allclose(np.degrees(np.angle(v)) - np.degrees(np.angle(v[0])), ref_a - ref_a[0], atol=1e-5)
+    np.testing.assert_allclose(
+        np.degrees(np.angle(v)) - np.degrees(np.angle(v[0])), ref_a - ref_a[0], atol=1e-5
+    )

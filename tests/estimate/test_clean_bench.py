@@ -20,7 +20,10 @@ from meas.estimate import Estimator
 def test_no_false_fails_over_a_thousand_snapshots() -> None:
     prof = demo()
     ids = [s.id for s in prof.switches]
-    combos = [dict(zip(ids, ("closed" if b else "open" for b in bits), strict=True)) for bits in itertools.product((0, 1), repeat=len(ids))]
+    combos = [
+        dict(zip(ids, ("closed" if b else "open" for b in bits), strict=True))
+        for bits in itertools.product((0, 1), repeat=len(ids))
+    ]
     est = Estimator(prof)
     runs = 0
     for seed in range(16):

@@ -39,7 +39,9 @@ def test_vt_ratio_on_the_lone_lateral_meter_is_named_in_the_first_step_that_load
     for sid in order[:first]:
         e = est.run([capture(true, steps[sid], (parse_fault("vt-ratio:M5:1.1"),), rng, gains)])
         assert not e.findings, sid  # M5's bus is dead before: nothing to see, nothing blamed
-    e = est.run([capture(true, steps["pick-up-lateral"], (parse_fault("vt-ratio:M5:1.1"),), rng, gains)])
+    e = est.run(
+        [capture(true, steps["pick-up-lateral"], (parse_fault("vt-ratio:M5:1.1"),), rng, gains)]
+    )
     assert len(e.findings) == 1
     f = e.findings[0]
     assert f.meters == ("M5",)
@@ -50,7 +52,9 @@ def test_vt_ratio_on_the_lone_lateral_meter_is_named_in_the_first_step_that_load
 
 def test_clean_capture_passes_and_says_what_it_cannot_verify(bench) -> None:
     prof, true, gains, steps = bench
-    e = Estimator(prof).run([capture(true, steps["reactor-in"], (), np.random.default_rng(2), gains)])
+    e = Estimator(prof).run(
+        [capture(true, steps["reactor-in"], (), np.random.default_rng(2), gains)]
+    )
     assert e.converged and not e.findings
     assert e.chi2_ok
     # the tie is open: nothing predicts M4's current, so its CT ratio is unverified, not passed
@@ -61,7 +65,9 @@ def test_clean_capture_passes_and_says_what_it_cannot_verify(bench) -> None:
     assert m5 is not None and m5.detectable and 0 < m5.min_factor < 0.05
     assert "detectable beyond ±" in m5.reason
     # with the tie carrying load bank 2, M4's CT ratio becomes detectable
-    e2 = Estimator(prof).run([capture(true, steps["transfer-lb2"], (), np.random.default_rng(3), gains)])
+    e2 = Estimator(prof).run(
+        [capture(true, steps["transfer-lb2"], (), np.random.default_rng(3), gains)]
+    )
     c2 = e2.coverage_of("M4", "ct_ratio")
     assert c2 is not None and c2.detectable
 
@@ -73,14 +79,18 @@ def test_identification_does_not_depend_on_profile_order(bench) -> None:
         caps = capture(true, steps[sid], (parse_fault(fault),), np.random.default_rng(4), gains)
         a = Estimator(prof).run([caps])
         b = Estimator(flipped).run([caps])
-        assert [(f.meters, f.cause) for f in a.findings] == [(f.meters, f.cause) for f in b.findings]
+        assert [(f.meters, f.cause) for f in a.findings] == [
+            (f.meters, f.cause) for f in b.findings
+        ]
         assert a.findings and a.findings[0].meters == (parse_fault(fault).meter,)
 
 
 def test_joint_session_shares_gains_across_steps(bench) -> None:
     prof, true, gains, steps = bench
     rng = np.random.default_rng(6)
-    caps = [capture(true, steps[s], (), rng, gains) for s in ("load-bank-2", "reactor-in", "close-tie")]
+    caps = [
+        capture(true, steps[s], (), rng, gains) for s in ("load-bank-2", "reactor-in", "close-tie")
+    ]
     e = Estimator(prof).run(caps)
     assert e.converged and e.steps == 3 and not e.findings
     # three configurations: M4's CT ratio is covered by the meshed step
@@ -117,8 +127,16 @@ def test_a_fit_that_does_not_converge_says_so(bench) -> None:
 
 def test_check_family_names_the_meter_and_leaves_the_rest_honest(bench) -> None:
     prof, true, gains, steps = bench
-    snaps = capture(true, steps["pick-up-lateral"], (parse_fault("vt-ratio:M5:1.1"),), np.random.default_rng(9), gains)
-    res = [r for r in CheckEngine(prof).run(snaps[-1], snaps[:-1]) if r.check == "network.model_fit"]
+    snaps = capture(
+        true,
+        steps["pick-up-lateral"],
+        (parse_fault("vt-ratio:M5:1.1"),),
+        np.random.default_rng(9),
+        gains,
+    )
+    res = [
+        r for r in CheckEngine(prof).run(snaps[-1], snaps[:-1]) if r.check == "network.model_fit"
+    ]
     by = {r.subject: r for r in res}
     assert by["M5"].status is Status.FAIL and by["M5"].cause.startswith("vt_ratio:1.1")
     assert by["M5"].residual > 1.0
@@ -126,6 +144,10 @@ def test_check_family_names_the_meter_and_leaves_the_rest_honest(bench) -> None:
     # LB2 is open: M5 measures no current, and M4 (tie open) has nothing to predict its current
     assert by["M4"].status is Status.NA and by["M4"].cause == "unverified"
     clean = capture(true, steps["reactor-in"], (), np.random.default_rng(10), gains)
-    res2 = {r.subject: r for r in CheckEngine(prof).run(clean[-1], clean[:-1]) if r.check == "network.model_fit"}
+    res2 = {
+        r.subject: r
+        for r in CheckEngine(prof).run(clean[-1], clean[:-1])
+        if r.check == "network.model_fit"
+    }
     assert res2["bench"].status is Status.PASS
     assert res2["M8"].status is Status.PASS and res2["M8"].residual < 1.0

@@ -19,7 +19,12 @@ from meas.estimate import Estimator
 from meas.sim.faults import parse_fault
 
 STEPS = ("pick-up-lateral", "reactor-in", "transfer-lb2")
-KIND = {"vt-ratio": "vt_ratio", "ct-ratio": "ct_ratio", "ct-reversed": "ct_reversed", "phases-swapped": "phases_swapped"}
+KIND = {
+    "vt-ratio": "vt_ratio",
+    "ct-ratio": "ct_ratio",
+    "ct-reversed": "ct_reversed",
+    "phases-swapped": "phases_swapped",
+}
 
 
 def _faults(meters: list[str]) -> list[str]:
@@ -55,7 +60,9 @@ def test_fault_matrix_on_the_demo_bench(seed: int) -> None:
                 assert f.meter in x.meters, where  # never a wrong meter
             cov = coverage[sid].coverage_of(f.meter, label)
             if cov is None or not cov.detectable:
-                for x in e.findings:  # a tie may name the right meter among others, never alone wrong
+                for (
+                    x
+                ) in e.findings:  # a tie may name the right meter among others, never alone wrong
                     assert x.ambiguous or x.meters == (f.meter,), where
                 continue
             assert e.findings, where  # coverage said it can be seen here

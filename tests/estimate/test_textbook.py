@@ -60,9 +60,7 @@ def test_abur_exposito_3bus_state_objective_and_residuals() -> None:
     v = _state(fit)
     # CALIBRATION_NOTES §6.1 (Abur & Expósito 2004, ch. 2): V and θ
     np.testing.assert_allclose(np.abs(v), [0.999629, 0.974156, 0.943890], atol=1e-5)
-    np.testing.assert_allclose(
-        np.degrees(np.angle(v)), [0.0, -1.247547, -2.745717], atol=1e-5
-    )
+    np.testing.assert_allclose(np.degrees(np.angle(v)), [0.0, -1.247547, -2.745717], atol=1e-5)
     # §6.1: J = 8.638193 with dof 3; χ²_0.95(3) = 7.8147, so the test rejects at 5 %
     assert fit.cost == pytest.approx(8.638193, abs=1e-5)
     dof = len(fit.evals[0].r) - (fit.lay.n - fit.lay.ns)

@@ -94,4 +94,3 @@ def sequence_states(profile: Profile) -> Iterator[tuple[str, dict[str, str]]]:
         states.update(st.expect)
         if st.capture is not None and st.kind != "note" and st.kind != "hold":
             yield st.id, dict(states)
-

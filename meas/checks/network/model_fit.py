@@ -50,13 +50,12 @@ class ModelFit:
             return
         state = dict(snapshot.switches)
         same = [h for h in history if dict(h.switches) == state][-(WINDOW - 1) :]
+        e: Estimate | None = None
         try:
             e = self.est.run([[*same, snapshot]])
-        except (BenchwalkError, ArithmeticError, ValueError, IndexError) as exc:
-            e = None
-            why = f"the estimate failed: {exc}"
-        else:
             why = e.why
+        except (BenchwalkError, ArithmeticError, ValueError, IndexError) as exc:
+            why = f"the estimate failed: {exc}"
         if e is None or not e.converged:
             for mid in self.ids:
                 bk[NA].append(na(CHECK, mid, f"not checked against the model: {why}"))
@@ -68,7 +67,9 @@ class ModelFit:
         ties = [f for f in e.findings if f.ambiguous]
         if ties:
             f = ties[0]
-            bk[FAIL].append(result(CHECK, "bench", FAIL, f.figure, f.limit, "1", f.sentence, f.cause))
+            bk[FAIL].append(
+                result(CHECK, "bench", FAIL, f.figure, f.limit, "1", f.sentence, f.cause)
+            )
             return
         code = PASS if e.chi2_ok or e.findings else WARN
         msg = (
@@ -89,11 +90,22 @@ class ModelFit:
         for mid in self.ids:
             f = named.get(mid)
             if f is not None:
-                bk[FAIL].append(result(CHECK, mid, FAIL, f.figure, f.limit, "1", f.sentence, f.cause))
+                bk[FAIL].append(
+                    result(CHECK, mid, FAIL, f.figure, f.limit, "1", f.sentence, f.cause)
+                )
             elif mid in tied:
                 bk[NA].append(
-                    result(CHECK, mid, NA, math.nan, math.nan, "1", f"unverified: {mid} is in a tie "
-                           "the bench cannot resolve (see the bench row)", "unverified")
+                    result(
+                        CHECK,
+                        mid,
+                        NA,
+                        math.nan,
+                        math.nan,
+                        "1",
+                        f"unverified: {mid} is in a tie "
+                        "the bench cannot resolve (see the bench row)",
+                        "unverified",
+                    )
                 )
             elif mid not in e.meters:
                 bk[NA].append(na(CHECK, mid, "no live readings in this configuration"))
