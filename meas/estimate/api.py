@@ -53,9 +53,12 @@ class Estimator:
         findings: list[Finding] = []
         fit, steps, keys = fit0, list(pr.steps), list(pr.keys)
         cov_fit, cov_steps, cov_keys = fit0, steps, keys
+        ts0: Tests | None = None
         for _ in range(MAX_FINDINGS):
             if fit.converged:
                 ts = tests(fit, steps, keys, pr.gains)
+                if fit is fit0:
+                    ts0 = ts
                 if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
                     break
             budget = min(TRIAL_ITER, self.max_iter)
@@ -85,7 +88,9 @@ class Estimator:
         dof = _dof(fit)
         limit = float(_chi2.ppf(CHI2_P, dof)) if dof > 0 else math.nan
         named = {m for f in findings for m in f.meters}
-        cov = _coverage(cov_fit, tests(cov_fit, cov_steps, cov_keys, pr.gains), pr)
+        if cov_fit is not fit0 or ts0 is None:
+            ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
+        cov = _coverage(cov_fit, ts0, pr)
         return Estimate(
             converged=True,
             why="",

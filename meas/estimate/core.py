@@ -269,7 +269,7 @@ def _sum(cur: Current, tps: list[_Quantity], lds: list[_Quantity], p: int, nc: i
 def _mag(val: CArray, d: CArray) -> tuple[FArray, FArray]:
     m = np.abs(val)
     safe = np.where(m > 0, m, 1.0)
-    return m, (np.conj(val)[:, None] * d).real / safe[:, None]
+    return m, (val.real[:, None] * d.real + val.imag[:, None] * d.imag) / safe[:, None]
 
 
 def _ang(val: CArray, d: CArray) -> tuple[FArray, FArray]:
@@ -297,7 +297,8 @@ def _meter_slots(
         f = np.empty(22)
         df = np.empty((22, nc))
         f[0:3], df[0:3] = vm, dvm
-        f[3:6], df[3:6] = _mag(v - v[_NEXT], dv - dv[_NEXT])
+        if mt.slots.size and np.any((mt.slots >= 3) & (mt.slots < 6)):
+            f[3:6], df[3:6] = _mag(v - v[_NEXT], dv - dv[_NEXT])
         f[6:9], df[6:9] = im, dim
         f[9:12], df[9:12] = s.real, ds.real
         f[12:15], df[12:15] = s.imag, ds.imag
@@ -310,12 +311,12 @@ def _meter_slots(
             f[20:22], df[20:22] = va[1:] - va[0], dva[1:] - dva[0]
         kinds = _KINDS3
     f, df, kinds = f[mt.slots], df[mt.slots], kinds[mt.slots]
-    gain = np.where(kinds == 0, gv, np.where(kinds == 1, gi, np.where(kinds == 2, gv * gi, 1.0)))
+    gain = np.array([gv, gi, gv * gi, 1.0])[kinds]
     out, dout = f * gain, df * gain[:, None]
     if mt.gv >= 0:
-        dout[:, mt.gv] += f * np.where(kinds == 0, 1.0, np.where(kinds == 2, gi, 0.0))
+        dout[:, mt.gv] += f * np.array([1.0, 0.0, gi, 0.0])[kinds]
     if mt.gi >= 0:
-        dout[:, mt.gi] += f * np.where(kinds == 1, 1.0, np.where(kinds == 2, gv, 0.0))
+        dout[:, mt.gi] += f * np.array([0.0, 1.0, gv, 0.0])[kinds]
     return out, dout
 
 

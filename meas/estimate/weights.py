@@ -58,19 +58,18 @@ def mean_readings(
     blocks = [s.meters.get(meter) for s in snaps]
     if not blocks or any(b is None for b in blocks):
         return {}, {}
-    keys = set(blocks[0].values) if blocks[0] is not None else set()
-    means: dict[str, float] = {}
-    reps: dict[str, float] = {}
-    for k in sorted(keys):
-        vals = [b.get(k) for b in blocks if b is not None]
-        if any(math.isnan(v) for v in vals):
-            continue
-        arr = np.array(vals)
-        if split_key(k)[0] in ("i_ang", "v_ang"):
-            ref = arr[0]
-            arr = ref + (np.mod(arr - ref + 180.0, 360.0) - 180.0)
-        means[k] = float(arr.mean())
-        reps[k] = float(arr.std(ddof=1) / math.sqrt(len(arr))) if len(arr) > 1 else 0.0
+    keys = sorted(blocks[0].values) if blocks[0] is not None else []
+    arr = np.array([[b.get(k) for k in keys] for b in blocks if b is not None], float)
+    ok = ~np.isnan(arr).any(axis=0)
+    ang = np.array([split_key(k)[0] in ("i_ang", "v_ang") for k in keys], bool)
+    if ang.any():
+        ref = arr[0, ang]
+        arr[:, ang] = ref + (np.mod(arr[:, ang] - ref + 180.0, 360.0) - 180.0)
+    n = arr.shape[0]
+    mean = arr.mean(axis=0)
+    rep = arr.std(axis=0, ddof=1) / math.sqrt(n) if n > 1 else np.zeros(len(keys))
+    means = {k: float(mean[j]) for j, k in enumerate(keys) if ok[j]}
+    reps = {k: float(rep[j]) for j, k in enumerate(keys) if ok[j]}
     return means, reps
 
 
