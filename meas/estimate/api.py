@@ -12,10 +12,11 @@ from scipy.stats import chi2 as _chi2
 from ..model import Profile
 from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
-from .core import Fit, StepModel, omega_diag, solve
+from .core import StepModel
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
+from .solver import Fit, omega_diag, solve
 
 CHI2_P = 0.99
 MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread

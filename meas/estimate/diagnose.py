@@ -21,8 +21,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .core import ANGLE_SLOTS, CArray, FArray, Fit, StepModel, meter_phasors, slot_values
-from .core import cols_of as _cols
+from .core import ANGLE_SLOTS, CArray, FArray, StepModel
+from .solver import Fit, meter_phasors, omega_diag, slot_values
+from .solver import cols_of as _cols
 
 THRESHOLD = 4.0  # normalized statistic above which a hypothesis is bad data (see docs/estimator.md)
 POWER_Z = 0.84  # one-sided z for 80 % power: the smallest detectable error (Baarda's MDB idea)
@@ -171,8 +172,6 @@ def gain_from_data(fit: Fit, index: int, omega: float) -> tuple[float, float]:
 
 def normalized_residuals(fit: Fit) -> list[FArray]:
     """|r̃_i| / sqrt(Ω̃_ii) of every row of every step (NaN for a critical row, Ω̃_ii ≈ 0)."""
-    from .core import omega_diag
-
     om, _ = omega_diag(fit)
     out = []
     for ev, o in zip(fit.evals, om, strict=True):

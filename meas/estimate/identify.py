@@ -21,8 +21,9 @@ import numpy as np
 from scipy.stats import chi2
 
 from .build import Problem
-from .core import FArray, Fit, Prior, StepModel, solve
+from .core import FArray, Prior, StepModel
 from .diagnose import THRESHOLD, tests
+from .solver import Fit, solve
 
 
 def dof(fit: Fit) -> int:

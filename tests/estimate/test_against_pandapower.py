@@ -15,7 +15,8 @@ import math
 import numpy as np
 import pytest
 
-from meas.estimate.core import MeterTerm, StepModel, TwoPortTerm, solve
+from meas.estimate.core import MeterTerm, StepModel, TwoPortTerm
+from meas.estimate.solver import solve
 from meas.model import LineParams
 from meas.profile import load_profile
 

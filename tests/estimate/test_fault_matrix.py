@@ -37,7 +37,7 @@ def _faults(meters: list[str]) -> list[str]:
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("seed", [1, 2])
+@pytest.mark.parametrize("seed", [1])
 def test_fault_matrix_on_the_demo_bench(seed: int) -> None:
     prof = demo()
     true, gains = as_built(prof, seed), meter_gains(prof, seed)

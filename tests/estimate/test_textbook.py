@@ -11,8 +11,9 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from meas.estimate.core import MeterTerm, StepModel, TwoPortTerm, omega_diag, solve
+from meas.estimate.core import MeterTerm, StepModel, TwoPortTerm
 from meas.estimate.diagnose import normalized_residuals
+from meas.estimate.solver import omega_diag, solve
 
 P_SLOT, Q_SLOT, V_SLOT = 2, 3, 0
 
