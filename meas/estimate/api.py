@@ -49,7 +49,8 @@ class Estimator:
         """Estimate jointly over ``captures`` (one inner sequence of snapshots per step)."""
         pr = self.builder.problem(captures)
         if not pr.steps:
-            return _empty(pr, "no live meter gave readings in these captures")
+            topo = [u.reason for u in pr.unverified if u.meter == "*"]
+            return _empty(pr, topo[0] if topo else "no live meter gave readings in these captures")
         fit0 = solve(pr.steps, pr.priors, max_iter=self.max_iter)
         findings: list[Finding] = []
         fit, steps, keys = fit0, list(pr.steps), list(pr.keys)

@@ -151,3 +151,12 @@ def test_check_family_names_the_meter_and_leaves_the_rest_honest(bench) -> None:
     }
     assert res2["bench"].status is Status.PASS
     assert res2["M8"].status is Status.PASS and res2["M8"].residual < 1.0
+
+
+def test_unknown_switch_state_leaves_the_step_unchecked(bench) -> None:
+    prof, true, gains, steps = bench
+    snaps = capture(true, steps["reactor-in"], (), np.random.default_rng(11), gains)
+    blind = [dataclasses.replace(s, switches={**s.switches, "SW3": "unknown"}) for s in snaps]
+    e = Estimator(prof).run([blind])
+    assert not e.converged and "SW3" in e.why and "unknown" in e.why
+    assert not e.findings
