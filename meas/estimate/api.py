@@ -13,7 +13,7 @@ from ..model import Profile
 from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
 from .core import StepModel
-from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, tests
+from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 from .solver import Fit, omega_diag, solve
@@ -40,10 +40,14 @@ def _label(kind: str, arg: str) -> str:
 class Estimator:
     """The estimator for one profile; build once, run on any list of captures."""
 
-    def __init__(self, profile: Profile, *, max_iter: int = 40):
+    def __init__(self, profile: Profile, *, max_iter: int = 40, exact: bool = True):
+        """``exact=False`` names faults from the linearized statistics alone (one fit, no
+        refits: what the per-snapshot check family can afford); a wiring fault is then named
+        on its meter as "wiring" and its kind left to the per-phase wiring checks."""
         self.profile = profile
         self.builder = Builder(profile)
         self.max_iter = max_iter
+        self.exact = exact
 
     def run(self, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
         """Estimate jointly over ``captures`` (one inner sequence of snapshots per step)."""
@@ -63,6 +67,11 @@ class Estimator:
                     ts0 = ts
                 if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
                     break
+            if not self.exact:
+                lin = _identify_linear(fit, ts, pr) if fit.converged else None
+                if lin is not None:
+                    findings.append(lin)
+                break
             budget = min(TRIAL_ITER, self.max_iter)
             sus = suspects(fit, steps, keys, pr.priors, pr, budget)
             picked = best_trial(
@@ -160,6 +169,60 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
         alt = " or ".join(sorted({_NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same}))
         sentence += f" (a {alt} fits about as well)"
     return Finding((m,), cause, sentence, figure, THRESHOLD)
+
+
+def _identify_linear(fit: Fit, ts: Tests, pr: Problem) -> Finding | None:
+    """The largest statistic names the meter; a ratio cause only when it is a plain one."""
+    if not len(ts.t):
+        return None
+    order = sorted(range(len(ts.hyps)), key=lambda h: (-ts.t[h], ts.hyps[h].meter, h))
+    h = order[0]
+    if ts.t[h] < THRESHOLD:
+        return None
+    hy = ts.hyps[h]
+    figure = float(ts.t[h])
+    rv = rivals(ts, h)
+    if rv:
+        meters = tuple(sorted({hy.meter} | {ts.hyps[g].meter for g in rv}))
+        sentence = (
+            f"{' or '.join(meters)}: cannot be told apart on this bench (each explains the "
+            "readings as well); another meter on the same flow, or a step that loads it "
+            "differently, would tell"
+        )
+        return Finding(meters, "ambiguous:" + _label(hy.kind, hy.arg), sentence, figure, THRESHOLD)
+    wiring = max(
+        (
+            float(ts.t[g])
+            for g in order
+            if ts.hyps[g].meter == hy.meter and ts.hyps[g].kind in _WIRING
+        ),
+        default=0.0,
+    )
+    if hy.kind in ("vt_ratio", "ct_ratio") and wiring < 0.5 * figure:
+        gi = ts.gain_index[(hy.meter, "v" if hy.kind == "vt_ratio" else "i")]
+        om = 1.0 - float(fit.ginv[gi, gi]) / float(fit.prior_std[gi]) ** 2
+        k, sd = gain_from_data(fit, gi, om)
+        if 0.5 <= k <= 2.0:
+            what = "voltages" if hy.kind == "vt_ratio" else "currents and powers"
+            return Finding(
+                (hy.meter,),
+                f"{hy.kind}:{k:.3f}",
+                f"{hy.meter}: {what} {k:.3f} ± {sd:.3f} of what the network implies: the "
+                f"{_NAMES[hy.kind]} looks set wrong by a factor {k:.2f}",
+                figure,
+                THRESHOLD,
+            )
+    return Finding(
+        (hy.meter,),
+        "wiring",
+        f"{hy.meter}: its current readings disagree with what the network implies (a reversed "
+        "CT or swapped current inputs); the per-phase wiring checks say which",
+        figure,
+        THRESHOLD,
+    )
+
+
+_WIRING = ("ct_reversed", "phases_swapped")
 
 
 def _without(
