@@ -178,6 +178,11 @@ _YCACHE: dict[int, tuple[bytes, CArray, FArray | None, list[CArray]]] = {}
 DY_REFRESH = 1e-3  # recompute dY/dθ once a parameter moved this much (relative)
 
 
+def reset_admittances() -> None:
+    """Forget cached admittances and derivatives (each solve starts from the same state)."""
+    _YCACHE.clear()
+
+
 def _admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[CArray]]:
     """Y(θ) and dY/dθ of a two-port; steps share the builder, so one call serves them all.
 

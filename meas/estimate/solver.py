@@ -33,6 +33,7 @@ from .core import (
     evaluate,
     initial,
     layout,
+    reset_admittances,
     slot_keys,
 )
 
@@ -109,6 +110,7 @@ def solve(
     the full problem starts from its solution.
     """
     lay = layout(len(priors), steps)
+    reset_admittances()  # the result must not depend on what was solved before (re-checks)
     if x0 is None and len(steps) > 1:
         # several steps: start each step's state from its own fit (robust and cheap), the
         # shared unknowns from the mean of theirs; a joint flat start lets every step's
