@@ -176,8 +176,9 @@ class Builder:
         out_unverified: list[Unverified],
     ) -> tuple[StepModel | None, list[list[str]], list[str]]:
         prof = self.profile
-        known = {s: st for s, st in states.items() if st in ("open", "closed")}
-        for s, st in states.items():
+        # a switch without a reading is unknown, as for every other check (meas.network.topology)
+        known = {s.id: states.get(s.id, "unknown") for s in prof.switches}
+        for s, st in known.items():
             if st not in ("open", "closed"):
                 out_unverified.append(
                     Unverified(
@@ -185,7 +186,7 @@ class Builder:
                     )
                 )
                 return None, [], []
-        full = {s.id: known.get(s.id, s.normal) for s in prof.switches}
+        full = dict(known)
         conducts = branch_conducts(prof, full)
         fed = energization(prof, conducts, unknown_conducts=False)
         live = list(fed)
