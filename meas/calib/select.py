@@ -20,7 +20,7 @@ from ..network.admittance import build_network
 from ..network.elements import element_models
 from .observations import FIT_QUANTITIES, Observations, RawRow, StepConfig, pooled_observations
 
-PASSING = ("pass", "warn")
+PASSING = ("passed",)  # meas.verdict outcome words: a step whose review had no failing check
 
 
 def observable(profile: Profile, config: StepConfig) -> dict[str, set[str]]:
@@ -38,17 +38,6 @@ def observable(profile: Profile, config: StepConfig) -> dict[str, set[str]]:
     return out
 
 
-def _switches_of(text: object) -> dict[str, str]:
-    if not isinstance(text, str) or not text:
-        return {}
-    out = {}
-    for part in text.split(";"):
-        sw, _, state = part.partition("=")
-        if sw and state in ("open", "closed"):
-            out[sw.strip()] = state
-    return out
-
-
 def _step_switches(ds: Dataset, step: str, snapshots: Sequence[int]) -> dict[str, str]:
     """The switch states seen in the step's captures (the most frequent per switch)."""
     ss = ds["switch_states"]
@@ -56,15 +45,16 @@ def _step_switches(ds: Dataset, step: str, snapshots: Sequence[int]) -> dict[str
     out: dict[str, str] = {
         str(sw): str(g["state"].mode().iloc[0]) for sw, g in seen.groupby("switch")
     }
-    if not out:
-        row = ds["steps"][ds["steps"]["id"] == step]
-        out = _switches_of(row["actual_switches"].iloc[0]) if len(row) else {}
+    if not out:  # no switch status in the captures: the states found at the step's transition
+        found = ds["step_switches"]
+        found = found[(found["step"] == step) & found["actual"].isin(["open", "closed"])]
+        out = {str(sw): str(st) for sw, st in zip(found["switch"], found["actual"], strict=True)}
     return out
 
 
 def choose_steps(ds: Dataset, captured: Sequence[str], which: str | Sequence[str]) -> list[str]:
     """The step ids to fit, in sequence order; ``which`` is "passing", "all" or a list of ids."""
-    steps = ds["steps"].sort_values("order")
+    steps = ds["steps"].sort_values("step_number")
     order = [s for s in steps["id"] if s in set(captured)]
     if isinstance(which, str) and which in ("passing", "all"):
         if which == "all":

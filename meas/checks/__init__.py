@@ -28,6 +28,7 @@ from .frame import Frame
 from .layout import Layout
 from .meter import MeterPlan
 from .network import NetworkChecks
+from .network.model_fit import ModelFit
 from .phase import PhasePlan
 from .quality import QualityPlan
 from .quality import history as stack_history
@@ -74,6 +75,7 @@ CHECK_IDS = (
     "network.open_switch",
     "network.energization",
     "network.bad_data",
+    "network.model_fit",
     "quality.comm",
     "quality.v_range",
     "quality.i_range",
@@ -102,6 +104,7 @@ class CheckEngine:
         self.wiring = WiringPlan(self.layout)
         self.quality = QualityPlan(self.layout)
         self.comm = CommPlan(self.layout)
+        self.model_fit = ModelFit(self.layout)
         self._cache: dict[int, tuple[Snapshot, Frame]] = {}
 
     def frame(self, snap: Snapshot) -> Frame:
@@ -136,6 +139,7 @@ class CheckEngine:
         self.phase.run(fr, bk)
         self.wiring.run(fr, bk)
         self.network.run(fr, dict(snapshot.switches), bk)
+        self.model_fit.run(snapshot, history, bk)
         self.quality.ranges(fr, bk)
         hist = stack_history(frames[-max(self.quality.frozen_need, self.quality.noise_need) :])
         self.quality.frozen(hist, len(frames), fr, bk)

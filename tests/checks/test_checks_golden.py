@@ -350,7 +350,7 @@ def test_fixture_covers_what_it_claims(golden):
         "stale",
         "imbalance",
     } <= causes
-    assert any(n.startswith("synthetic/") and len(r) == 572 for n, r in golden.items())
+    assert any(n.startswith("synthetic/") and len(r) == 605 for n, r in golden.items())
 
 
 def test_engine_reproduces_golden_results_exactly(golden):

@@ -1,0 +1,103 @@
+"""Time of the model-aware estimator (``meas.estimate``): per capture and per session.
+
+Run:  /work/venv/bin/python benchmarks/bench_estimate.py [--repeat N]
+
+Cases (all on the demo bench's network, the true network drawn within tolerance, seeded
+class-consistent readings, no fault):
+- one capture (3 snapshots, radial base case with the reactor in) with the demo's 8 meters;
+- the same with 32 meters: every demo meter four times over (same buses and branches, so the
+  network is the same and only the readings grow: the estimator's cost per meter);
+- a joint session: 15 steps of the demo sequence (its 12 capturing steps, then the first three
+  loaded ones again), 8 meters, every step a 3-snapshot capture.
+Targets (issue 11): <= 20 ms per capture at 32 meters, <= 0.5 s per 15-step session.
+Medians of N runs, with the solver's iterations. Sets OPENBLAS_NUM_THREADS=1 (BLAS threads
+oversubscribe a shared machine and slow small dense algebra many times; see bench_solver).
+"""
+
+from __future__ import annotations
+
+import os
+
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # before numpy: see the docstring
+
+import argparse  # noqa: E402
+import dataclasses  # noqa: E402
+import pathlib  # noqa: E402
+import statistics  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+ROOT = pathlib.Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT / "tests"))
+from support.estimate_bench import as_built, capture, demo, meter_gains, sequence_states  # noqa: E402
+
+from meas.estimate import Estimator  # noqa: E402
+from meas.model import Profile  # noqa: E402
+
+STATE = {
+    "CB1": "closed",
+    "SW2": "closed",
+    "SW3": "closed",
+    "TIE": "open",
+    "RX": "closed",
+    "LB2": "closed",
+}
+
+
+def widened(profile: Profile, times: int) -> Profile:
+    """The profile with every meter repeated ``times`` times (ids M1, M1b, M1c, ...)."""
+    meters = list(profile.meters)
+    for k in range(1, times):
+        meters += [dataclasses.replace(m, id=f"{m.id}{'bcdefgh'[k - 1]}") for m in profile.meters]
+    return dataclasses.replace(profile, meters=tuple(meters))
+
+
+def _time(fn, repeat: int) -> tuple[float, object]:
+    out = None
+    times = []
+    for _ in range(repeat):
+        t = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t)
+    return statistics.median(times), out
+
+
+def figures(repeat: int = 7) -> list[tuple[str, float, float, int]]:
+    """(case, median seconds, target seconds, iterations)."""
+    base = demo()
+    rows = []
+    for times, label in ((1, "8 meters"), (4, "32 meters")):
+        prof = widened(base, times)
+        true = as_built(prof, 11)
+        gains = meter_gains(prof, 11)
+        snaps = capture(true, STATE, (), np.random.default_rng(11), gains)
+        est = Estimator(prof)
+        est.run([snaps])  # warm the per-profile caches
+        t, e = _time(lambda est=est, snaps=snaps: est.run([snaps]), repeat)
+        rows.append((f"one capture, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
+    true = as_built(base, 11)
+    gains = meter_gains(base, 11)
+    rng = np.random.default_rng(12)
+    states = [st for _, st in sequence_states(base)]
+    states = (states + states[3:6])[:15]
+    caps = [capture(true, st, (), rng, gains) for st in states]
+    est = Estimator(base)
+    est.run(caps)
+    t, e = _time(lambda: est.run(caps), max(1, repeat // 2))
+    rows.append(("joint session, 15 steps, 8 meters", t, 0.5, e.iterations))  # type: ignore[union-attr]
+    return rows
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=7)
+    args = ap.parse_args()
+    print(f"{'case':40} {'median':>10} {'target':>10} {'ratio':>7} {'iter':>5}")
+    for case, t, target, it in figures(args.repeat):
+        print(f"{case:40} {t * 1e3:8.1f} ms {target * 1e3:7.0f} ms {t / target:7.2f} {it:5d}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,366 @@
+"""One estimate: build the terms, fit, name the faults one at a time, and say what was covered."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import replace
+
+import numpy as np
+from scipy.stats import chi2 as _chi2
+
+from ..model import Profile
+from ..snapshot import Snapshot
+from .build import Builder, Problem, Unverified
+from .core import StepModel
+from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
+from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
+from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
+from .solver import Fit, omega_diag, solve
+
+CHI2_P = 0.99
+MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
+_NAMES = {
+    "vt_ratio": "VT ratio",
+    "ct_ratio": "CT ratio",
+    "ct_reversed": "reversed CT",
+    "phases_swapped": "swapped current inputs",
+}
+
+
+def _dof(fit: Fit) -> int:
+    rows = sum(len(ev.r) for ev in fit.evals)
+    return int(rows - (fit.lay.n - fit.lay.ns))
+
+
+def _label(kind: str, arg: str) -> str:
+    return f"{kind}:{arg}" if arg else kind
+
+
+class Estimator:
+    """The estimator for one profile; build once, run on any list of captures."""
+
+    def __init__(self, profile: Profile, *, max_iter: int = 40, exact: bool = True):
+        """``exact=False`` names faults from the linearized statistics alone (one fit, no
+        refits: what the per-snapshot check family can afford); a wiring fault is then named
+        on its meter as "wiring" and its kind left to the per-phase wiring checks."""
+        self.profile = profile
+        self.builder = Builder(profile)
+        self.max_iter = max_iter
+        self.exact = exact
+
+    def run(self, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
+        """Estimate jointly over ``captures`` (one inner sequence of snapshots per step)."""
+        pr = self.builder.problem(captures)
+        if not pr.steps:
+            topo = [u.reason for u in pr.unverified if u.meter == "*"]
+            return _empty(pr, topo[0] if topo else "no live meter gave readings in these captures")
+        fit0 = solve(pr.steps, pr.priors, max_iter=self.max_iter)
+        findings: list[Finding] = []
+        fit, steps, keys = fit0, list(pr.steps), list(pr.keys)
+        cov_fit, cov_steps, cov_keys = fit0, steps, keys
+        ts0: Tests | None = None
+        for _ in range(MAX_FINDINGS):
+            if fit.converged:
+                ts = tests(fit, steps, keys, pr.gains)
+                if fit is fit0:
+                    ts0 = ts
+                if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
+                    break
+            if not self.exact:
+                lin = _identify_linear(fit, ts, pr) if fit.converged else None
+                if lin is not None:
+                    findings.append(lin)
+                break
+            budget = min(TRIAL_ITER, self.max_iter)
+            sus = suspects(fit, steps, keys, pr.priors, pr, budget)
+            picked = best_trial(
+                fit, trials(fit, steps, pr.priors, pr, sus, keys, budget, self.max_iter)
+            )
+            if picked is None:
+                break
+            top, rv, same = picked
+            findings.append(_finding(fit, top, rv, same, pr))
+            if not fit.converged or cov_fit is fit0 and not fit0.converged:
+                cov_fit, cov_steps, cov_keys = top.fit, top.steps, keys
+            if rv:
+                break  # a tie: removing either would be a guess
+            steps, keys = _without(steps, keys, {top.meter})
+            if not any(st.meters for st in steps):
+                break
+            nxt = solve(steps, pr.priors, x0=top.fit.x, max_iter=self.max_iter)
+            if not nxt.converged:
+                nxt = solve(steps, pr.priors, max_iter=self.max_iter)
+            fit = nxt
+        if not fit.converged and not findings:
+            return _empty(pr, f"the estimate did not converge: {fit.why}", fit.iterations)
+        if not fit.converged:
+            fit = cov_fit
+        dof = _dof(fit)
+        limit = float(_chi2.ppf(CHI2_P, dof)) if dof > 0 else math.nan
+        named = {m for f in findings for m in f.meters}
+        if cov_fit is not fit0 or ts0 is None:
+            ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
+        cov = _coverage(cov_fit, ts0, pr)
+        return Estimate(
+            converged=True,
+            why="",
+            iterations=fit0.iterations,
+            chi2=float(fit.cost),
+            dof=dof,
+            chi2_limit=limit,
+            steps=len(pr.steps),
+            gains=_gains(cov_fit, fit, pr, named),
+            parameters=_parameters(fit, pr),
+            findings=tuple(findings),
+            coverage=cov,
+            unverified=tuple(pr.unverified) + _unverified_from(cov),
+            meters=tuple(sorted({mt.name for st in pr.steps for mt in st.meters})),
+        )
+
+
+def estimate(profile: Profile, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
+    """One-off estimate; keep an ``Estimator`` for repeated use (it caches per-profile terms)."""
+    return Estimator(profile).run(captures)
+
+
+# ---------------------------------------------------------------------------- identification
+
+
+def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Problem) -> Finding:
+    figure = math.sqrt(max(base.cost - top.fit.cost, 0.0))
+    if rv:
+        meters = tuple(sorted({top.meter} | {t.meter for t in rv}))
+        what = ", ".join(
+            f"{t.meter} ({_NAMES[t.kind]}{' ' + t.arg if t.arg else ''})" for t in [top, *rv]
+        )
+        sentence = (
+            f"{' or '.join(meters)}: cannot be told apart on this bench ({what} explain the "
+            "readings equally well); another meter on the same flow, or a step that loads it "
+            "differently, would tell"
+        )
+        return Finding(
+            meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD
+        )
+    m = top.meter
+    if top.kind in ("vt_ratio", "ct_ratio"):
+        gi = pr.gains[(m, "v" if top.kind == "vt_ratio" else "i")]
+        k = float(top.fit.x[gi])
+        sd = math.sqrt(max(float(top.fit.ginv[gi, gi]), 0.0))
+        what = "voltages" if top.kind == "vt_ratio" else "currents and powers"
+        cause = f"{top.kind}:{k:.3f}"
+        sentence = (
+            f"{m}: {what} {k:.3f} ± {sd:.3f} of what the network implies: the "
+            f"{_NAMES[top.kind]} looks set wrong by a factor {k:.2f}"
+        )
+    elif top.kind == "ct_reversed":
+        cause = f"ct_reversed:{top.arg}"
+        sentence = (
+            f"{m}: phase {top.arg} power runs against what the network implies: the CT of "
+            f"phase {top.arg} looks reversed"
+        )
+    else:
+        cause = f"phases_swapped:{top.arg}"
+        sentence = (
+            f"{m}: currents of phases {top.arg[0]} and {top.arg[1]} sit where the other's "
+            "should: the current inputs look swapped"
+        )
+    if same:
+        alt = " or ".join(sorted({_NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same}))
+        sentence += f" (a {alt} fits about as well)"
+    return Finding((m,), cause, sentence, figure, THRESHOLD)
+
+
+def _identify_linear(fit: Fit, ts: Tests, pr: Problem) -> Finding | None:
+    """The largest statistic names the meter; a ratio cause only when it is a plain one."""
+    if not len(ts.t):
+        return None
+    order = sorted(range(len(ts.hyps)), key=lambda h: (-ts.t[h], ts.hyps[h].meter, h))
+    h = order[0]
+    if ts.t[h] < THRESHOLD:
+        return None
+    hy = ts.hyps[h]
+    figure = float(ts.t[h])
+    rv = rivals(ts, h)
+    if rv:
+        meters = tuple(sorted({hy.meter} | {ts.hyps[g].meter for g in rv}))
+        sentence = (
+            f"{' or '.join(meters)}: cannot be told apart on this bench (each explains the "
+            "readings as well); another meter on the same flow, or a step that loads it "
+            "differently, would tell"
+        )
+        return Finding(meters, "ambiguous:" + _label(hy.kind, hy.arg), sentence, figure, THRESHOLD)
+    wiring = max(
+        (
+            float(ts.t[g])
+            for g in order
+            if ts.hyps[g].meter == hy.meter and ts.hyps[g].kind in _WIRING
+        ),
+        default=0.0,
+    )
+    if hy.kind in ("vt_ratio", "ct_ratio") and wiring < 0.5 * figure:
+        gi = ts.gain_index[(hy.meter, "v" if hy.kind == "vt_ratio" else "i")]
+        om = 1.0 - float(fit.ginv[gi, gi]) / float(fit.prior_std[gi]) ** 2
+        k, sd = gain_from_data(fit, gi, om)
+        if 0.5 <= k <= 2.0:
+            what = "voltages" if hy.kind == "vt_ratio" else "currents and powers"
+            return Finding(
+                (hy.meter,),
+                f"{hy.kind}:{k:.3f}",
+                f"{hy.meter}: {what} {k:.3f} ± {sd:.3f} of what the network implies: the "
+                f"{_NAMES[hy.kind]} looks set wrong by a factor {k:.2f}",
+                figure,
+                THRESHOLD,
+            )
+    return Finding(
+        (hy.meter,),
+        "wiring",
+        f"{hy.meter}: its current readings disagree with what the network implies (a reversed "
+        "CT or swapped current inputs); the per-phase wiring checks say which",
+        figure,
+        THRESHOLD,
+    )
+
+
+_WIRING = ("ct_reversed", "phases_swapped")
+
+
+def _without(
+    steps: Sequence[StepModel], keys: Sequence[Sequence[Sequence[str]]], drop: set[str]
+) -> tuple[list[StepModel], list[list[list[str]]]]:
+    out, kout = [], []
+    for st, ks in zip(steps, keys, strict=True):
+        keep = [i for i, mt in enumerate(st.meters) if mt.name not in drop]
+        out.append(replace(st, meters=tuple(st.meters[i] for i in keep)))
+        kout.append([list(ks[i]) for i in keep])
+    return out, kout
+
+
+# ---------------------------------------------------------------------------- reporting
+
+
+def _gains(fit0: Fit, fit: Fit, pr: Problem, named: set[str]) -> tuple[MeterGain, ...]:
+    out = []
+    for (mid, g), idx in sorted(pr.gains.items()):
+        src = fit0 if mid in named else fit
+        out.append(
+            MeterGain(
+                mid,
+                "voltage" if g == "v" else "current",
+                float(src.x[idx]),
+                math.sqrt(max(float(src.ginv[idx, idx]), 0.0)),
+                pr.priors[idx].std,
+            )
+        )
+    return tuple(out)
+
+
+def _parameters(fit: Fit, pr: Problem) -> tuple[ParameterEstimate, ...]:
+    out = []
+    for k, mp in enumerate(pr.params):
+        x, s = float(fit.x[k]), math.sqrt(max(float(fit.ginv[k, k]), 0.0))
+        scale = 1.0 if mp.scale == "absolute" else mp.nominal
+        out.append(ParameterEstimate(mp.name, mp.nominal, x * scale, s * abs(scale), mp.std))
+    return tuple(out)
+
+
+def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
+    _, om_prior = omega_diag(fit)
+    out = []
+    for h, hy in enumerate(ts.hyps):
+        label = _label(hy.kind, hy.arg)
+        tied = sorted(
+            {
+                ts.hyps[g].meter
+                for g in range(len(ts.hyps))
+                if ts.hyps[g].meter != hy.meter
+                and abs(ts.q[h, g]) >= TIE_RHO * math.sqrt(max(ts.q[h, h] * ts.q[g, g], 1e-300))
+                and ts.q[g, g] > CRITICAL * ts.bb[g]
+            }
+        )
+        name = f"{hy.meter} {_NAMES[hy.kind]}" + (f" {hy.arg}" if hy.arg else "")
+        if hy.kind in ("vt_ratio", "ct_ratio"):
+            gi = ts.gain_index[(hy.meter, "v" if hy.kind == "vt_ratio" else "i")]
+            om = float(om_prior[gi])
+            if om < CRITICAL:
+                out.append(
+                    Coverage(
+                        hy.meter, label, False, math.nan, f"{name}: no other reading predicts it"
+                    )
+                )
+                continue
+            delta = (THRESHOLD + POWER_Z) * float(fit.prior_std[gi]) / math.sqrt(om)
+            if tied:
+                out.append(
+                    Coverage(
+                        hy.meter,
+                        label,
+                        False,
+                        delta,
+                        f"{name}: cannot be told apart from {' or '.join(tied)} on this bench",
+                    )
+                )
+                continue
+            out.append(
+                Coverage(
+                    hy.meter, label, True, delta, f"{name}: detectable beyond ±{100 * delta:.1f} %"
+                )
+            )
+            continue
+        strength = math.sqrt(max(float(ts.q[h, h]), 0.0))
+        if ts.q[h, h] <= CRITICAL * max(ts.bb[h], 1e-300) or strength < THRESHOLD + POWER_Z:
+            why = (
+                "too little current in these steps"
+                if ts.bb[h] < 1.0
+                else "no other reading predicts it"
+            )
+            out.append(Coverage(hy.meter, label, False, math.nan, f"{name}: {why}"))
+        elif tied:
+            out.append(
+                Coverage(
+                    hy.meter,
+                    label,
+                    False,
+                    math.nan,
+                    f"{name}: cannot be told apart from {' or '.join(tied)} on this bench",
+                )
+            )
+        else:
+            out.append(
+                Coverage(
+                    hy.meter, label, True, math.nan, f"{name}: detectable (strength {strength:.0f})"
+                )
+            )
+    return tuple(out)
+
+
+def _unverified_from(cov: Sequence[Coverage]) -> tuple[Unverified, ...]:
+    out = []
+    for c in cov:
+        if c.error_kind in ("vt_ratio", "ct_ratio") and not c.detectable:
+            qty = "voltage" if c.error_kind == "vt_ratio" else "current and power"
+            out.append(Unverified(c.meter, qty, c.reason))
+    return tuple(out)
+
+
+def _empty(pr: Problem, why: str, iterations: int = 0) -> Estimate:
+    ids = sorted({m for ms in pr.meter_ids for m in ms})
+    unv = tuple(pr.unverified) + tuple(Unverified(m, "all", why) for m in ids)
+    return Estimate(
+        False,
+        why,
+        iterations,
+        math.nan,
+        0,
+        math.nan,
+        len(pr.steps),
+        (),
+        (),
+        (),
+        (),
+        unv,
+        tuple(ids),
+    )
+
+
+__all__ = ["Estimator", "estimate"]

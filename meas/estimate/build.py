@@ -1,0 +1,359 @@
+"""A profile and its captures as the estimator's terms (``meas.estimate.core``).
+
+Per step, the switch states select the live buses (``meas.network.topology``, the one rule);
+dead parts drop out. Three phase nodes per live bus. Lines and transformers with model data
+become two-port terms whose admittance is rebuilt from their parameters
+(``meas.network.elements``); loads and shunts become ZIP terms with P and Q multipliers;
+sources, and any branch without model data, are *free* injections: the bus they sit on has no
+Kirchhoff equation, and a meter on a free element is verified through Kirchhoff only when it is
+the bus's one free element. One angle reference per island per step: meters share no time
+base, so nothing else fixes the angles.
+
+Shared unknowns, in this order: every model parameter with its prior from
+``meas.network.parameters`` (relative ones as multipliers of the nameplate value, ``tap_pct``
+in points), then per meter a voltage gain and a current gain with priors from the class.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from ..model import Branch, LineParams, LoadParams, Profile, ShuntParams, TransformerParams
+from ..network.elements import (
+    bus_nominal_phase_voltage,
+    line_admittance,
+    load_parts,
+    shunt_admittance,
+    transformer_admittance,
+)
+from ..network.parameters import ModelParameter, model_parameters
+from ..network.topology import branch_conducts, energization
+from ..snapshot import Snapshot
+from .core import (
+    ANGLE_SLOTS,
+    Current,
+    KclTerm,
+    LoadTerm,
+    MeterTerm,
+    Prior,
+    StepModel,
+    TwoPortTerm,
+    slot_keys,
+)
+from .weights import ANGLE_MIN_FRAC, gain_std, mean_readings, rated, reading_std
+
+KCL_SHARE = 1e-4  # Kirchhoff rows: sigma = this share of the bench's base current (our rule)
+SLOTS = slot_keys(3)
+SLOT_INDEX = {k: i for i, (k, _) in enumerate(SLOTS)}
+
+
+@dataclass(frozen=True)
+class Unverified:
+    """A reading (or a meter's group of readings) no equation could check, and why."""
+
+    meter: str
+    quantity: str
+    reason: str
+    step: int = -1
+
+
+@dataclass
+class Problem:
+    """Everything the estimator needs, plus the names to report back in."""
+
+    steps: list[StepModel]
+    priors: list[Prior]
+    params: list[ModelParameter]
+    gains: dict[tuple[str, str], int]  # (meter, "v"|"i") -> shared index
+    keys: list[list[list[str]]]  # step -> meter term -> reading keys (row order)
+    meter_ids: list[list[str]]  # step -> meter term -> meter id
+    unverified: list[Unverified] = field(default_factory=list)
+    readings: list[dict[str, dict[str, float]]] = field(default_factory=list)
+    captures: list[int] = field(default_factory=list)  # step -> index of its capture
+
+
+def _rel_key(key: str) -> str:
+    return key.removesuffix("_per_km")
+
+
+def _two_port_builder(br: Branch, prm: list[tuple[int, ModelParameter]]) -> TwoPortTerm:
+    params = br.model
+    assert br.to_bus is not None and params is not None
+
+    def with_values(pv: np.ndarray) -> object:
+        changes: dict[str, float] = {}
+        for j, (_, mp) in enumerate(prm):
+            field_ = _rel_key(mp.key)
+            base = getattr(params, field_)
+            changes[field_] = float(pv[j]) if mp.scale == "absolute" else base * float(pv[j])
+        return replace(params, **changes)  # type: ignore[arg-type]
+
+    if isinstance(params, LineParams):
+
+        def y_of(pv: np.ndarray) -> np.ndarray:
+            return line_admittance(with_values(pv))  # type: ignore[arg-type]
+    else:
+        assert isinstance(params, TransformerParams)
+
+        def y_of(pv: np.ndarray) -> np.ndarray:
+            t: TransformerParams = with_values(pv)  # type: ignore[assignment]
+            return transformer_admittance(
+                t.s_va, t.v1_ll, t.v2_ll, t.uk_pct, t.ur_pct, t.vector_group, t.tap_pct
+            )
+
+    return TwoPortTerm(br.id, np.zeros(0, np.int64), y_of, tuple(i for i, _ in prm))
+
+
+def _zip_parts(br: Branch, v_nom: float) -> tuple[np.ndarray, np.ndarray]:
+    params = br.model
+    if isinstance(params, LoadParams):
+        sz, si, sp = load_parts(params)
+        parts = np.vstack([sz, si, sp])
+    else:
+        assert isinstance(params, ShuntParams)
+        s = np.conj(shunt_admittance(params, v_nom)) * v_nom**2
+        parts = np.vstack([s, np.zeros(3), np.zeros(3)])
+    return parts.real.copy(), parts.imag.copy()
+
+
+def _modelled(br: Branch) -> bool:
+    return br.model is not None and br.kind != "source"
+
+
+class Builder:
+    """Per-profile structures, built once; ``problem`` turns captures into a Problem."""
+
+    def __init__(self, profile: Profile):
+        self.profile = profile
+        self.v_nom = bus_nominal_phase_voltage(profile)
+        self.params: list[ModelParameter] = []
+        self.priors: list[Prior] = []
+        by_branch: dict[str, list[tuple[int, ModelParameter]]] = {}
+        for mp in model_parameters(b for b in profile.branches if _modelled(b)):
+            if mp.scale == "relative" and (mp.nominal == 0 or mp.tolerance <= 0):
+                continue
+            if mp.scale == "absolute" and mp.tolerance <= 0:
+                continue
+            k = len(self.params)
+            self.params.append(mp)
+            mean = mp.nominal if mp.scale == "absolute" else 1.0
+            std = mp.std if mp.scale == "absolute" else mp.tolerance / 100 / math.sqrt(3)
+            self.priors.append(Prior(mp.name, mean, std))
+            by_branch.setdefault(mp.branch, []).append((k, mp))
+        self.two_port: dict[str, TwoPortTerm] = {}
+        self.zip: dict[str, tuple[np.ndarray, np.ndarray, int, int]] = {}
+        for br in profile.branches:
+            if not _modelled(br):
+                continue
+            prm = by_branch.get(br.id, [])
+            if br.kind in ("line", "transformer"):
+                self.two_port[br.id] = _two_port_builder(br, prm)
+            else:
+                zp, zq = _zip_parts(br, self.v_nom[br.from_bus])
+                idx = {mp.key: k for k, mp in prm}
+                self.zip[br.id] = (zp, zq, idx.get("p_w", -1), idx.get("q_var", -1))
+        self.gains: dict[tuple[str, str], int] = {}
+        for m in profile.meters:
+            sv, si = gain_std(m)
+            self.gains[(m.id, "v")] = len(self.priors)
+            self.priors.append(Prior(f"{m.id}.v_gain", 1.0, sv))
+            if m.branch is not None:
+                self.gains[(m.id, "i")] = len(self.priors)
+                self.priors.append(Prior(f"{m.id}.i_gain", 1.0, si))
+
+    # ------------------------------------------------------------------ one step
+
+    def step(
+        self,
+        states: Mapping[str, str],
+        values: Mapping[str, Mapping[str, float]],
+        reps: Mapping[str, Mapping[str, float]],
+        k: int,
+        out_unverified: list[Unverified],
+    ) -> tuple[StepModel | None, list[list[str]], list[str]]:
+        prof = self.profile
+        # a switch without a reading is unknown, as for every other check (meas.network.topology)
+        known = {s.id: states.get(s.id, "unknown") for s in prof.switches}
+        for s, st in known.items():
+            if st not in ("open", "closed"):
+                out_unverified.append(
+                    Unverified(
+                        "*", "*", f"switch {s} reads {st!r}: this step's topology is unknown", k
+                    )
+                )
+                return None, [], []
+        full = dict(known)
+        conducts = branch_conducts(prof, full)
+        fed = energization(prof, conducts, unknown_conducts=False)
+        live = list(fed)
+        if not live:
+            return None, [], []
+        node = {b: 3 * i for i, b in enumerate(live)}
+        n = 3 * len(live)
+        vn = np.repeat([self.v_nom[b] for b in live], 3)
+        on = {br.id: bool(conducts[br.id]) and br.from_bus in node for br in prof.branches}
+        tps: list[TwoPortTerm] = []
+        loads: list[LoadTerm] = []
+        at_bus: dict[str, list[tuple[str, int, int]]] = {b: [] for b in live}
+        free: dict[str, list[str]] = {b: [] for b in live}
+        where: dict[str, tuple[str, int]] = {}
+        for br in prof.branches:
+            if not on[br.id]:
+                continue
+            if br.id in self.two_port:
+                assert br.to_bus is not None
+                t = self.two_port[br.id]
+                nodes = np.r_[node[br.from_bus] + np.arange(3), node[br.to_bus] + np.arange(3)]
+                where[br.id] = ("t", len(tps))
+                at_bus[br.from_bus].append(("t", len(tps), 0))
+                at_bus[br.to_bus].append(("t", len(tps), 1))
+                tps.append(replace(t, nodes=nodes.astype(np.int64)))
+            elif br.id in self.zip:
+                zp, zq, kp, kq = self.zip[br.id]
+                nodes = (node[br.from_bus] + np.arange(3)).astype(np.int64)
+                where[br.id] = ("l", len(loads))
+                at_bus[br.from_bus].append(("l", len(loads), 0))
+                loads.append(
+                    LoadTerm(br.id, nodes, np.full(3, self.v_nom[br.from_bus]), zp, zq, kp, kq)
+                )
+            else:
+                for b in br.buses:
+                    if b in free:
+                        free[b].append(br.id)
+        # islands over modelled two-ports; reference = first bus reached; flat start by no-load transfer
+        v0 = np.zeros(n, complex)
+        refs: list[int] = []
+        seen: set[str] = set()
+        rot = np.exp(-2j * np.pi / 3 * np.arange(3))
+        for b in live:
+            if b in seen:
+                continue
+            refs.append(node[b])
+            v0[node[b] : node[b] + 3] = self.v_nom[b] * rot
+            seen.add(b)
+            stack = [b]
+            while stack:
+                a = stack.pop()
+                for kind, idx, end in at_bus[a]:
+                    if kind != "t":
+                        continue
+                    t = tps[idx]
+                    other = int(t.nodes[3 * (1 - end)])
+                    ob = live[other // 3]
+                    if ob in seen:
+                        continue
+                    y = t.y_of(np.array([self.priors[i].mean for i in t.params]))
+                    s_this = slice(3 * end, 3 * end + 3)
+                    s_oth = slice(3 * (1 - end), 3 * (1 - end) + 3)
+                    va = v0[node[a] : node[a] + 3]
+                    vo = -np.linalg.pinv(y[s_oth, s_oth]) @ y[s_oth, s_this] @ va
+                    if not np.all(np.isfinite(vo)) or np.max(np.abs(vo)) == 0:
+                        vo = self.v_nom[ob] * rot
+                    v0[other : other + 3] = vo
+                    seen.add(ob)
+                    stack.append(ob)
+        kcl: list[KclTerm] = []
+        for b in live:
+            if free[b] or not at_bus[b]:
+                continue
+            i_base = prof.bench.s_base_va / (3 * self.v_nom[b])
+            cur: Current = tuple((kd, idx, end, 1.0) for kd, idx, end in at_bus[b])
+            kcl.append(KclTerm(b, cur, KCL_SHARE * i_base))
+        meters: list[MeterTerm] = []
+        keys: list[list[str]] = []
+        ids: list[str] = []
+        for m in prof.meters:
+            vals = values.get(m.id)
+            if not vals or m.bus not in node:
+                continue
+            current: Current = ()
+            drop_current = ""
+            if m.branch is not None:
+                br = prof.branch(m.branch)
+                if on[br.id] and br.id in where:
+                    kd, idx = where[br.id]
+                    end = 0 if kd == "l" or br.from_bus == m.bus else 1
+                    current = ((kd, idx, end, 1.0),)
+                elif on[br.id]:
+                    others = [f for f in free[m.bus] if f != br.id]
+                    if others:
+                        drop_current = (
+                            f"{m.bus} has another free injection ({', '.join(others)}) besides "
+                            f"{br.id}: no equation checks {m.id}'s current"
+                        )
+                    elif not at_bus[m.bus]:
+                        drop_current = f"nothing else at {m.bus} is modelled: no equation checks {m.id}'s current"
+                    else:
+                        why = "has no model data" if br.model is None else "is a source"
+                        current = tuple((kd, idx, end, -1.0) for kd, idx, end in at_bus[m.bus])
+                        _ = why
+            slots, z, sig, kk = [], [], [], []
+            v_n, i_n = rated(prof, m)
+            for key, si in SLOT_INDEX.items():
+                if key not in vals:
+                    continue
+                q = key.split(".")[0]
+                if m.branch is None and q in ("i", "p", "q", "i_ang"):
+                    continue
+                if drop_current and q in ("i", "p", "q", "i_ang"):
+                    continue
+                if key in ANGLE_SLOTS:
+                    if "v_ang.B" not in vals and "v_ang.C" not in vals and q == "v_ang":
+                        continue
+                    if vals.get("v_ln.A", 0.0) < 0.1 * v_n:
+                        continue
+                    if q == "i_ang" and vals.get(f"i.{key[-1]}", 0.0) < ANGLE_MIN_FRAC * i_n:
+                        continue
+                slots.append(si)
+                x = vals[key]
+                z.append(math.radians(x) if key in ANGLE_SLOTS else x)
+                sig.append(reading_std(prof, m, key, vals, reps.get(m.id, {}).get(key, 0.0)))
+                kk.append(key)
+            if drop_current:
+                out_unverified.append(Unverified(m.id, "i, p, q", drop_current, k))
+            if not slots:
+                continue
+            gv = self.gains.get((m.id, "v"), -1)
+            gi = self.gains.get((m.id, "i"), -1)
+            meters.append(
+                MeterTerm(
+                    m.id,
+                    (node[m.bus] + np.arange(3)).astype(np.int64),
+                    current,
+                    gv,
+                    gi,
+                    np.array(slots, np.int64),
+                    np.array(z),
+                    np.array(sig),
+                )
+            )
+            keys.append(kk)
+            ids.append(m.id)
+        model = StepModel(
+            n, vn, v0, np.array(refs, np.int64), tuple(tps), tuple(loads), tuple(meters), tuple(kcl)
+        )
+        return model, keys, ids
+
+    def problem(self, captures: Sequence[Sequence[Snapshot]]) -> Problem:
+        """One step per capture (its snapshots share one switch state, the first one's)."""
+        pr = Problem([], list(self.priors), list(self.params), dict(self.gains), [], [])
+        for k, snaps in enumerate(captures):
+            if not snaps:
+                continue
+            values: dict[str, dict[str, float]] = {}
+            reps: dict[str, dict[str, float]] = {}
+            for m in self.profile.meters:
+                values[m.id], reps[m.id] = mean_readings(m.id, snaps)
+            st, keys, ids = self.step(dict(snaps[0].switches), values, reps, k, pr.unverified)
+            if st is None or not st.meters:
+                continue
+            pr.steps.append(st)
+            pr.keys.append(keys)
+            pr.meter_ids.append(ids)
+            pr.readings.append(values)
+            pr.captures.append(k)
+        return pr

@@ -1,0 +1,180 @@
+"""Bad data after the fit: which meter, which cause, and what this bench could ever detect.
+
+Every suspicion is a *hypothesis* with a known signature in the weighted residual space:
+- a VT or CT ratio set wrong is a meter's voltage or current gain far from 1, so its signature
+  is the gain's prior row (its normalized residual is the classic one);
+- a reversed CT on one phase or a swapped pair of current inputs changes the meter's readings
+  by a known vector, computed from the estimated phasors.
+With Ω̃ = I - J G⁻¹ Jᵀ (the weighted residual covariance), the test statistic of a signature b̃
+is T = |b̃ᵀ r̃| / sqrt(b̃ᵀ Ω̃ b̃): the largest normalized residual generalised to a structured error
+(Abur & Expósito 2004, ch. 5; for a single reading it is exactly r_N). Two hypotheses whose
+signatures have |ρ| = |b̃₁ᵀΩ̃b̃₂| / sqrt(b̃₁ᵀΩ̃b̃₁ · b̃₂ᵀΩ̃b̃₂) near 1 cannot be told apart by any
+data from this configuration: the estimator says so and names both, sorted by id, never picking
+one by profile order. A hypothesis with b̃ᵀΩ̃b̃ near 0 is undetectable (a critical reading).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .core import ANGLE_SLOTS, CArray, FArray, StepModel
+from .solver import Fit, meter_phasors, omega_diag, slot_values
+from .solver import cols_of as _cols
+
+THRESHOLD = 4.0  # normalized statistic above which a hypothesis is bad data (see docs/estimator.md)
+POWER_Z = 0.84  # one-sided z for 80 % power: the smallest detectable error (Baarda's MDB idea)
+TIE_RHO = 0.95  # |correlation| at or above which two hypotheses cannot be told apart
+TIE_T = 0.9  # a rival within this share of the best statistic is as likely
+CRITICAL = 1e-3  # b̃ᵀΩ̃b̃ / b̃ᵀb̃ below this: the error cannot show in the residuals
+
+KINDS = ("vt_ratio", "ct_ratio", "ct_reversed", "phases_swapped")
+_PAIRS = ("AB", "BC", "CA")
+
+
+@dataclass(frozen=True)
+class Hypothesis:
+    meter: str
+    kind: str
+    arg: str  # phase, pair or ""
+
+
+@dataclass
+class Tests:
+    """Every hypothesis with its statistic, amplitude and signature correlations."""
+
+    hyps: list[Hypothesis]
+    t: FArray  # statistic T
+    alpha: FArray  # fitted amplitude (1 = the whole signature)
+    q: FArray  # b̃ᵀΩ̃b̃ (H x H)
+    bb: FArray  # b̃ᵀb̃ per hypothesis
+    gain_index: dict[tuple[str, str], int]
+
+
+def _residuals(fit: Fit) -> tuple[FArray, FArray]:
+    """All weighted residuals (steps, then priors) and the weighted Jacobian with those rows."""
+    r = np.concatenate([ev.r for ev in fit.evals] + [fit.prior_r])
+    m = len(r)
+    j = np.zeros((m, fit.lay.n))
+    at = 0
+    for k, ev in enumerate(fit.evals):
+        rows = ev.j.shape[0]
+        j[at : at + rows, _cols(fit, k)] = ev.j
+        at += rows
+    ns = fit.lay.ns
+    j[at + np.arange(ns), np.arange(ns)] = 1.0 / fit.prior_std
+    return r, j
+
+
+def _flip(i: CArray, kind: str, arg: str) -> CArray:
+    out = i.copy()
+    if kind == "ct_reversed":
+        out["ABC".index(arg)] *= -1
+    else:
+        a, b = ("ABC".index(c) for c in arg)
+        out[a], out[b] = i[b], i[a]
+    return out
+
+
+def tests(
+    fit: Fit,
+    steps: Sequence[StepModel],
+    keys: Sequence[Sequence[Sequence[str]]],
+    gains: dict[tuple[str, str], int],
+) -> Tests:
+    """Build every hypothesis for every meter present, with T, amplitude and correlations."""
+    r, j = _residuals(fit)
+    m = len(r)
+    shared = fit.x[: fit.lay.ns]
+    starts = np.cumsum([0] + [len(ev.r) for ev in fit.evals])
+    prior0 = int(starts[-1])
+    present = sorted({mt.name for st in steps for mt in st.meters})
+    has_current = {mt.name for st in steps for mt in st.meters if mt.gi >= 0}
+    hyps: list[Hypothesis] = []
+    cols: list[FArray] = []
+    phasors: dict[int, list[tuple[CArray, CArray]]] = {}
+    for mid in present:
+        for kind, g in (("vt_ratio", "v"), ("ct_ratio", "i")):
+            gi = gains.get((mid, g), -1)
+            if gi < 0 or (g == "i" and mid not in has_current):
+                continue
+            b = np.zeros(m)
+            b[prior0 + gi] = 1.0
+            hyps.append(Hypothesis(mid, kind, ""))
+            cols.append(b)
+        if mid not in has_current:
+            continue
+        for kind, args in (("ct_reversed", ("A", "B", "C")), ("phases_swapped", _PAIRS)):
+            for arg in args:
+                b = np.zeros(m)
+                for k, st in enumerate(steps):
+                    for mi, mt in enumerate(st.meters):
+                        if mt.name != mid or not mt.current:
+                            continue
+                        if k not in phasors:
+                            phasors[k] = meter_phasors(fit, steps, k)
+                        v, i = phasors[k][mi]
+                        d = slot_values(mt, v, _flip(i, kind, arg), shared, st.phases)
+                        d = d - slot_values(mt, v, i, shared, st.phases)
+                        lo = int(starts[k]) + _row0(fit, k, mi)
+                        rr = r[lo : lo + len(d)]
+                        for n_, key in enumerate(keys[k][mi]):
+                            if key in ANGLE_SLOTS:
+                                w = math.remainder(d[n_], 2 * math.pi)
+                                if abs(w) > 0.9 * math.pi:  # a half turn: take the residual's side
+                                    w = math.pi * (1.0 if rr[n_] >= 0 else -1.0)
+                                d[n_] = w
+                        b[lo : lo + len(d)] = d / mt.sigma
+                hyps.append(Hypothesis(mid, kind, arg))
+                cols.append(b)
+    bm = np.array(cols).T if cols else np.zeros((m, 0))
+    u = j.T @ bm
+    q = bm.T @ bm - u.T @ fit.ginv @ u
+    br = bm.T @ r
+    dq = np.maximum(np.diag(q).copy(), 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = np.where(dq > 0, np.abs(br) / np.sqrt(dq), 0.0)
+        alpha = np.where(dq > 0, br / dq, 0.0)
+    for h, hy in enumerate(hyps):
+        if hy.kind in ("ct_reversed", "phases_swapped") and not (0.3 < alpha[h] < 2.0):
+            t[h] = 0.0  # the data do not move that way: a sign flip has amplitude one
+    return Tests(hyps, t, alpha, q, np.sum(bm * bm, axis=0), dict(gains))
+
+
+def _row0(fit: Fit, k: int, mi: int) -> int:
+    return fit.evals[k].meter_rows[mi].start
+
+
+def rivals(ts: Tests, h: int) -> list[int]:
+    """Hypotheses that explain the data as well as ``h`` (other meters only)."""
+    out = []
+    qh = ts.q[h, h]
+    for g, hy in enumerate(ts.hyps):
+        if g == h or hy.meter == ts.hyps[h].meter or ts.t[g] <= 0:
+            continue
+        rho = abs(ts.q[h, g]) / math.sqrt(max(qh * ts.q[g, g], 1e-300))
+        if rho >= TIE_RHO or ts.t[g] >= TIE_T * ts.t[h]:
+            out.append(g)
+    return out
+
+
+def gain_from_data(fit: Fit, index: int, omega: float) -> tuple[float, float]:
+    """The gain the data alone imply (the estimate with its prior row removed) and its std."""
+    g = float(fit.x[index])
+    if omega <= CRITICAL:
+        return math.nan, math.nan
+    var = float(fit.ginv[index, index])
+    return 1.0 + (g - 1.0) / omega, math.sqrt(var / omega)
+
+
+def normalized_residuals(fit: Fit) -> list[FArray]:
+    """|r̃_i| / sqrt(Ω̃_ii) of every row of every step (NaN for a critical row, Ω̃_ii ≈ 0)."""
+    om, _ = omega_diag(fit)
+    out = []
+    for ev, o in zip(fit.evals, om, strict=True):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out.append(np.where(o > CRITICAL, np.abs(ev.r) / np.sqrt(np.maximum(o, 0.0)), np.nan))
+    return out

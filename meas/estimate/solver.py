@@ -1,0 +1,249 @@
+"""The estimator's solve: damped Gauss-Newton over the terms of ``meas.estimate.core``.
+
+Gauss-Newton with Levenberg-Marquardt damping and the analytic Jacobian of ``core.evaluate``,
+written here rather than ``scipy.optimize.least_squares`` because (1) the bad-data tests need
+the gain matrix G = JᵀWJ at the solution anyway, (2) the Jacobian has a block structure (state
+per step, gains and parameters shared) that the normal equations exploit, and (3) per-call
+overhead matters at a capture every few hundred milliseconds. Both reach the same optimum on
+the textbook cases (tests/estimate).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from .core import (
+    IANG,
+    IMAG,
+    CArray,
+    FArray,
+    IArray,
+    MeterTerm,
+    Prior,
+    StepEval,
+    StepModel,
+    _currents,
+    _Layout,
+    _meter_slots,
+    _Quantity,
+    _sum,
+    evaluate,
+    initial,
+    layout,
+    reset_admittances,
+    slot_keys,
+)
+
+
+@dataclass
+class Fit:
+    x: FArray
+    cost: float  # J = sum of squared weighted residuals, priors included
+    iterations: int
+    converged: bool
+    why: str
+    evals: list[StepEval]
+    prior_r: FArray  # weighted prior residuals
+    g: FArray  # gain matrix JᵀWJ at the solution
+    ginv: FArray
+    lay: _Layout
+    prior_std: FArray
+
+
+def _assemble(
+    lay: _Layout, evals: list[StepEval], priors: Sequence[Prior], x: FArray
+) -> tuple[float, FArray, FArray, FArray]:
+    n, ns = lay.n, lay.ns
+    g = np.zeros((n, n))
+    b = np.zeros(n)
+    cost = 0.0
+    for ev, off in zip(evals, lay.offsets, strict=True):
+        jj = ev.j
+        a = jj.T @ jj
+        c = jj.T @ ev.r
+        e = off + jj.shape[1] - ns
+        g[:ns, :ns] += a[:ns, :ns]
+        g[:ns, off:e] += a[:ns, ns:]
+        g[off:e, :ns] += a[ns:, :ns]
+        g[off:e, off:e] += a[ns:, ns:]
+        b[:ns] += c[:ns]
+        b[off:e] += c[ns:]
+        cost += float(ev.r @ ev.r)
+    pr = np.array([(pp.mean - x[k]) / pp.std for k, pp in enumerate(priors)])
+    for k, pp in enumerate(priors):
+        g[k, k] += 1.0 / pp.std**2
+        b[k] += pr[k] / pp.std
+    cost += float(pr @ pr) if len(pr) else 0.0
+    return cost, g, b, pr
+
+
+def _smooth(step: StepModel) -> StepModel:
+    """The step without current magnitudes and angles: both are ill-posed at a flat start
+    (zero currents have no direction), a known trouble of state estimation from flat start."""
+    out = []
+    for mt in step.meters:
+        ok = np.array([_SMOOTH[step.phases][int(s)] for s in mt.slots], bool)
+        out.append(replace(mt, slots=mt.slots[ok], z=mt.z[ok], sigma=mt.sigma[ok]))
+    return replace(step, meters=tuple(out))
+
+
+_SMOOTH = {
+    1: (True, False, True, True),
+    3: tuple(c not in (IMAG, IANG) for _, c in slot_keys(3)),
+}
+
+
+def solve(
+    steps: Sequence[StepModel],
+    priors: Sequence[Prior],
+    *,
+    tol: float = 1e-8,
+    max_iter: int = 40,
+    x0: FArray | None = None,
+) -> Fit:
+    """Minimise the weighted sum of squares; every shared unknown has a prior (index order).
+
+    From a flat start, a first pass leaves out current magnitudes and angles (``_smooth``) and
+    the full problem starts from its solution.
+    """
+    lay = layout(len(priors), steps)
+    reset_admittances()  # the result must not depend on what was solved before (re-checks)
+    if x0 is None and len(steps) > 1:
+        # several steps: start each step's state from its own fit (robust and cheap), the
+        # shared unknowns from the mean of theirs; a joint flat start lets every step's
+        # flat-start misfit push the shared gains and parameters at once
+        x = initial(lay, steps, np.array([p.mean for p in priors], float))
+        shared = []
+        for k, st in enumerate(steps):
+            one = solve([st], priors, tol=1e-6, max_iter=max_iter)
+            if one.converged:
+                off = lay.offsets[k]
+                x[off : off + lay.tcs[k].shape[1]] = one.x[one.lay.ns :]
+                shared.append(one.x[: one.lay.ns])
+        if shared:
+            x[: lay.ns] = np.mean(shared, axis=0)
+    elif x0 is None:
+        x = initial(lay, steps, np.array([p.mean for p in priors], float))
+        first = solve([_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x)
+        if np.all(np.isfinite(first.x)):
+            x = first.x
+    else:
+        x = x0.copy()
+
+    def run(xx: FArray) -> tuple[list[StepEval], float, FArray, FArray, FArray]:
+        shared = xx[: lay.ns]
+        evals = [
+            evaluate(st, tc, xx[off : off + tc.shape[1]], shared)
+            for st, tc, off in zip(steps, lay.tcs, lay.offsets, strict=True)
+        ]
+        cost, g, b, pr = _assemble(lay, evals, priors, xx)
+        return evals, cost, g, b, pr
+
+    evals, cost, g, b, pr = run(x)
+    # Levenberg-Marquardt with Nielsen's damping update (Madsen, Nielsen & Tingleff, Methods
+    # for non-linear least squares problems, 2004, §3.2): the damping follows the ratio of the
+    # actual to the predicted decrease, so a nearly flat direction (a freed gain against a load
+    # multiplier) does not make every other step overshoot
+    lam, nu, it, converged, why = 1e-6, 2.0, 0, False, ""
+    for step_no in range(1, max_iter + 1):
+        it = step_no
+        d = np.diag(g).copy()
+        d[d <= 0] = 1.0
+        try:
+            dx = np.linalg.solve(g + lam * np.diag(d), b)
+        except np.linalg.LinAlgError:
+            why = "the gain matrix is singular: some state has no reading and no prior"
+            break
+        if not np.all(np.isfinite(dx)):
+            why = "the step became infinite: the readings do not determine the state"
+            break
+        trial = run(x + dx)
+        step_small = float(np.max(np.abs(dx))) < tol
+        pred = float(2 * dx @ b - dx @ g @ dx)
+        if trial[1] <= cost:
+            flat = cost - trial[1] <= 1e-7 * max(cost, 1.0)
+            rho = (cost - trial[1]) / pred if pred > 0 else 1.0
+            x = x + dx
+            evals, cost, g, b, pr = trial
+            lam = max(lam * max(1 / 3, 1 - (2 * rho - 1) ** 3), 1e-12)
+            nu = 2.0
+            if step_small or flat:
+                converged = True
+                break
+        else:
+            if step_small or trial[1] - cost <= 1e-7 * max(cost, 1.0):
+                converged = True  # at the optimum to rounding
+                break
+            lam *= nu
+            nu *= 2
+            if lam > 1e8:
+                why = "no step lowers the misfit (a local minimum)"
+                break
+    else:
+        why = f"no convergence in {max_iter} iterations"
+    try:
+        ginv = np.linalg.inv(g)
+    except np.linalg.LinAlgError:
+        ginv = np.linalg.pinv(g)
+        converged, why = False, why or "the gain matrix is singular"
+    if converged and not np.all(np.isfinite(x)):
+        converged, why = False, "the estimate is not finite"
+    return Fit(
+        x,
+        cost,
+        it,
+        converged,
+        why,
+        evals,
+        pr,
+        g,
+        np.asarray(ginv, dtype=np.float64),
+        lay,
+        np.array([p.std for p in priors], float),
+    )
+
+
+def cols_of(fit: Fit, k: int) -> IArray:
+    ns = fit.lay.ns
+    off = fit.lay.offsets[k]
+    return np.r_[np.arange(ns), np.arange(off, off + fit.evals[k].j.shape[1] - ns)]
+
+
+def omega_diag(fit: Fit) -> tuple[list[FArray], FArray]:
+    """Diagonal of the weighted residual covariance Ω̃ = I - J G⁻¹ Jᵀ, per step and for priors.
+
+    Ω̃_ii near 0 marks a critical reading (its error can never show in the residuals);
+    the normalized residual is |r̃_i| / sqrt(Ω̃_ii) (Abur & Expósito 2004, ch. 5).
+    """
+    out = []
+    for k, ev in enumerate(fit.evals):
+        c = cols_of(fit, k)
+        jj = ev.j
+        out.append(1.0 - np.einsum("ij,jk,ik->i", jj, fit.ginv[np.ix_(c, c)], jj))
+    ns = fit.lay.ns
+    return out, 1.0 - np.diag(fit.ginv)[:ns] / fit.prior_std**2
+
+
+def meter_phasors(fit: Fit, steps: Sequence[StepModel], k: int) -> list[tuple[CArray, CArray]]:
+    """Each meter's (V, I) phasors at the solution of step ``k`` (gains not applied)."""
+    st, tc, off = steps[k], fit.lay.tcs[k], fit.lay.offsets[k]
+    shared = fit.x[: fit.lay.ns]
+    ns, p = len(shared), st.phases
+    v = tc @ fit.x[off : off + tc.shape[1]]
+    dv = np.zeros((st.nodes, 0), complex)
+    tps, lds = _currents(st, v, dv, shared, ns, derivs=False)
+    out = []
+    for mt in st.meters:
+        i = _sum(mt.current, tps, lds, p, 0).val if mt.current else np.zeros(p, complex)
+        out.append((v[mt.v_nodes], i))
+    return out
+
+
+def slot_values(mt: MeterTerm, v: CArray, i: CArray, shared: FArray, p: int) -> FArray:
+    """The meter's measured slots for phasors ``v`` and ``i`` (gains applied)."""
+    z = np.zeros((p, max(len(shared), 1)), complex)
+    h, _ = _meter_slots(mt, _Quantity(v, z), _Quantity(i, z), shared, p)
+    return h

@@ -1,0 +1,96 @@
+"""Synthetic captures for the estimator's tests: a true bench that is not the nameplate model.
+
+The true network is the demo profile with every model parameter moved within its tolerance by
+a seeded draw (``meas.network.parameters.with_values``); readings come from the simulated
+bench's load flow and meter emulation (``meas.sim``: per-phase noise and wiring faults), and
+each meter then gets a voltage gain and a current gain drawn uniformly within its class limits
+(the systematic part of a class error, which the simulator leaves out).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Iterator, Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+from meas.model import Profile
+from meas.network.parameters import model_parameters, with_values
+from meas.profile import load_profile
+from meas.sim.faults import Fault
+from meas.sim.meters import snapshot_from_sim
+from meas.sim.readings import ideal_readings
+from meas.snapshot import Snapshot
+from meas.tolerance import class_spec
+
+DEMO = Path(__file__).resolve().parents[2] / "profiles_demo" / "feeder_bench.toml"
+_V = {"v_ln", "v_ll"}
+_I = {"i"}
+_PQ = {"p", "q", "s"}
+
+
+def demo() -> Profile:
+    return load_profile(DEMO)
+
+
+def as_built(profile: Profile, seed: int) -> Profile:
+    """The profile with every parameter drawn uniformly within ± its tolerance (seeded)."""
+    rng = np.random.default_rng(seed)
+    values = {}
+    for p in model_parameters(profile.branches):
+        if p.scale == "absolute":
+            values[p.name] = p.nominal + rng.uniform(-1, 1) * p.limit
+        else:
+            values[p.name] = p.nominal * (1 + rng.uniform(-1, 1) * p.tolerance / 100)
+    return dataclasses.replace(profile, branches=with_values(profile.branches, values))
+
+
+def meter_gains(profile: Profile, seed: int) -> dict[str, tuple[float, float]]:
+    """Per meter (voltage gain, current gain), uniform within the class limits (seeded)."""
+    rng = np.random.default_rng(seed + 7919)
+    out = {}
+    for m in profile.meters:
+        av = class_spec("v", m.classes.v).main_pct / 100
+        ai = class_spec("i", m.classes.i).main_pct / 100
+        out[m.id] = (1 + rng.uniform(-av, av), 1 + rng.uniform(-ai, ai))
+    return out
+
+
+def _with_gains(snap: Snapshot, gains: Mapping[str, tuple[float, float]]) -> Snapshot:
+    blocks = {}
+    for mid, b in snap.meters.items():
+        gv, gi = gains.get(mid, (1.0, 1.0))
+        vals = {}
+        for k, x in b.values.items():
+            q = k.split(".")[0]
+            f = gv if q in _V else gi if q in _I else gv * gi if q in _PQ else 1.0
+            vals[k] = x * f
+        blocks[mid] = dataclasses.replace(b, values=vals)
+    return dataclasses.replace(snap, meters=blocks)
+
+
+def capture(
+    true: Profile,
+    states: Mapping[str, str],
+    faults: Sequence[Fault],
+    rng: np.random.Generator,
+    gains: Mapping[str, tuple[float, float]],
+    n: int = 3,
+) -> list[Snapshot]:
+    """``n`` snapshots of one steady switch state, as the poller would decode them."""
+    ideal = ideal_readings(true, dict(states))
+    return [
+        _with_gains(snapshot_from_sim(true, states, faults, rng, i, ideal=ideal), gains)
+        for i in range(n)
+    ]
+
+
+def sequence_states(profile: Profile) -> Iterator[tuple[str, dict[str, str]]]:
+    """(step id, switch states) of every capturing step of the profile's sequence, in order."""
+    states = {s.id: s.normal for s in profile.switches}
+    for st in profile.steps:
+        states.update(st.operate)
+        states.update(st.expect)
+        if st.capture is not None and st.kind != "note" and st.kind != "hold":
+            yield st.id, dict(states)
