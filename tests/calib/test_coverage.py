@@ -1,8 +1,11 @@
-"""Coverage of the 95 % intervals over 50 seeds of the as-built demo bench (invented data):
+"""Coverage of the 95 % intervals over 50 seeds (12 in the default run, 50 with
+BENCHWALK_SOAK=1, about five minutes) of the as-built demo bench (invented data):
 the parameters the fit calls "measured" must contain the truth at least 90 % of the time
 (issue requirement; CALIBRATION_NOTES.md §4.5 [C]: 88-100 % with gains estimated)."""
 
 from __future__ import annotations
+
+import os
 
 import numpy as np
 import pytest
@@ -12,11 +15,11 @@ from meas.calib.run import calibrate
 from meas.calib.selection import select_parameters
 from meas.network.parameters import model_parameters
 
-SEEDS = 50
+SEEDS = 50 if os.environ.get("BENCHWALK_SOAK") == "1" else 12
 
 
 @pytest.mark.slow
-def test_intervals_cover_the_truth_at_least_90_percent_over_50_seeds(capsys):
+def test_intervals_cover_the_truth_at_least_90_percent_over_the_seeds(capsys):
     profile = demo_profile()
     names = [p.name for p in select_parameters(profile)]
     configs = live_configs(profile)

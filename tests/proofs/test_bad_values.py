@@ -355,7 +355,12 @@ def test_events_with_1e400_give_no_traceback(dataset, tmp_path):
 
 @pytest.mark.parametrize(
     ("table", "column"),
-    [("measurements", "value"), ("measurements", "iec61850"), ("checks", "status"), ("events", "data")],
+    [
+        ("measurements", "value"),
+        ("measurements", "iec61850"),
+        ("checks", "status"),
+        ("events", "data"),
+    ],
 )
 def test_a_missing_parquet_column_is_one_short_line(dataset, tmp_path, table, column):
     ds = _copy_and_change(dataset, tmp_path / "ds", table, lambda t: t.drop_columns([column]))
