@@ -42,7 +42,9 @@ EXIT_PASS = 0
 EXIT_FAIL = 1  # FAIL or INCOMPLETE
 EXIT_USAGE = 2
 EXIT_STOPPED = 3  # stopped before the end; the session can be resumed
-EXIT_UNVERIFIED = 4  # PASS with unverified readings
+# PASS with unverified readings: 0, the session passed and says what nothing could verify;
+# with ``strict`` (the commands' --strict) it is EXIT_FAIL.
+EXIT_UNVERIFIED = 0
 
 _EXIT_OF: dict[str, int] = {
     "PASS": EXIT_PASS,
@@ -98,6 +100,7 @@ def session_verdict(
     unverified: Sequence[str] = (),
     *,
     stopped: bool = False,
+    strict: bool = False,
 ) -> Verdict:
     """The verdict of a session whose sequence has the steps of ``outcomes`` (every step, in order).
 
@@ -105,7 +108,8 @@ def session_verdict(
     "M4 q.T: no redundant measurement"), supplied by the model-aware estimator; a session whose
     steps all passed but has any of them is "PASS with unverified readings", never "PASS".
     ``stopped``: the session stopped early and can be resumed; the word says what is known so
-    far and the exit code is ``EXIT_STOPPED``.
+    far and the exit code is ``EXIT_STOPPED``. ``strict``: unverified readings fail the
+    session's exit code (the word stays "PASS with unverified readings").
     """
     total = len(outcomes)
     failed = [r for r in outcomes if r.failed_checks > 0 or r.outcome == "accepted_with_failures"]
@@ -131,6 +135,8 @@ def session_verdict(
         if open_:
             parts.append(f"{len(open_)} of {total} steps not captured ({_names(open_)})")
     code = EXIT_STOPPED if stopped else _EXIT_OF[word]
+    if strict and word == "PASS with unverified readings" and not stopped:
+        code = EXIT_FAIL
     return Verdict(word, "; ".join(parts), code, tuple(unverified), stopped)
 
 

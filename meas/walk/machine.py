@@ -63,6 +63,7 @@ class StepMachine:
         self.live_checks = live_checks  # False: check only captured snapshots (headless)
         self.on_saved = on_saved
         self.outcomes: dict[str, StepOutcome] = dict(prior_outcomes or {})
+        self.strict_unverified = False  # unverified readings fail the exit code (--strict)
         self.book = CaptureBook(history)
         self.live = LiveWatch(profile, settle_factory)  # gates the live noise/frozen checks
         self.live_results: list[CheckResult] = []
@@ -118,9 +119,16 @@ class StepMachine:
             for s in self.profile.steps
         ]
 
-    def verdict(self, unverified: Sequence[str] = ()) -> Verdict:
-        """The session verdict (``meas.verdict.session_verdict``) of the steps so far."""
-        return session_verdict(self.records(), unverified, stopped=self.stopped)
+    def verdict(self, unverified: Sequence[str] | None = None) -> Verdict:
+        """The session verdict (``meas.verdict.session_verdict``) of the steps so far.
+
+        Unverified readings are those the steps' final reviews could not verify against the
+        network model, unless given; ``strict_unverified`` makes them fail the exit code."""
+        if unverified is None:
+            unverified = [u for o in self.outcomes.values() for u in o.unverified]
+        return session_verdict(
+            self.records(), unverified, stopped=self.stopped, strict=self.strict_unverified
+        )
 
     def expected(self) -> dict[str, SwitchState]:
         """The switch states the current step must find (its full configuration)."""

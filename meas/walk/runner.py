@@ -15,6 +15,10 @@ from . import remote
 from .machine import StepMachine
 from .states import State, StepOutcome
 
+# The check family whose n/a rows with cause "unverified" name readings nothing could verify
+# (meas.checks.network.model_fit; the walk does not import the checks).
+UNVERIFIED_CHECK = "network.model_fit"
+
 
 class Runner(StepMachine):
     """One session's walk through ``profile.steps``; see the ``meas.walk`` docstring."""
@@ -181,7 +185,12 @@ class Runner(StepMachine):
 
     def _conclude(self, step: Step, outcome: OutcomeKind, status: Status, reason: str) -> None:
         failures = tuple(r for r in self.book.review if r.status is Status.FAIL)
-        self.outcomes[step.id] = StepOutcome(step.id, outcome, status, failures, reason)
+        unverified = tuple(
+            f"{step.id} {r.subject}: {r.message.removeprefix('unverified: ')}"
+            for r in self.book.review
+            if r.check == UNVERIFIED_CHECK and r.cause == "unverified"
+        )
+        self.outcomes[step.id] = StepOutcome(step.id, outcome, status, failures, reason, unverified)
         self.state = State.SKIPPED if outcome == "skipped" else State.ACCEPTED
         self._advance()
 

@@ -61,6 +61,8 @@ class StepOutcome:
     status: Status  # worst check status of the final review (PASS when none)
     failures: tuple[CheckResult, ...] = ()
     reason: str = ""
+    # one line per meter the model-aware check could not verify in the final review
+    unverified: tuple[str, ...] = ()
 
     def record(self) -> StepRecord:
         failed = len(self.failures) or (1 if self.status is Status.FAIL else 0)

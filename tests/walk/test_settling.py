@@ -92,7 +92,7 @@ async def test_no_fail_is_shown_while_settling_over_the_whole_demo_sequence(tmp_
                     await tech.act(s.runner, v)
         assert s.runner.finished
         assert seen_settling > 20 and len(steps_settled) >= 8  # every switching step settled
-        assert s.runner.verdict().word == "PASS", s.runner.verdict().line
+        assert s.runner.verdict().word.startswith("PASS"), s.runner.verdict().line
     finally:
         await s.close()
 

@@ -49,6 +49,16 @@ def test_the_verdict_takes_the_worst_outcome(records, unverified, word, code):
     assert v.line.startswith(word)
 
 
+def test_unverified_readings_exit_0_unless_strict():
+    """Issue rule: unverified readings exit 0 but say so; --strict makes them fail."""
+    lines = ("s1 M1: M1 VT ratio: no other reading predicts it",)
+    assert session_verdict([P], lines).exit_code == 0
+    strict = session_verdict([P], lines, strict=True)
+    assert (strict.word, strict.exit_code) == ("PASS with unverified readings", EXIT_FAIL)
+    assert "M1 VT ratio" in strict.line
+    assert session_verdict([P], (), strict=True).exit_code == EXIT_PASS
+
+
 def test_the_line_names_the_steps_behind_it():
     v = session_verdict([P, SKIP, OPEN])
     assert v.line == "INCOMPLETE: 1 of 3 steps skipped (b); 1 of 3 steps not captured (c)"

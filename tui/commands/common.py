@@ -29,6 +29,12 @@ def add_common(p: argparse.ArgumentParser) -> None:
         "--log-saved", action="store_true", help="print one line per snapshot saved in the journal"
     )
     p.add_argument(
+        "--strict",
+        action="store_true",
+        help="readings that nothing could verify against the network model fail the exit code "
+        "(by default the session is 'PASS with unverified readings', exit 0)",
+    )
+    p.add_argument(
         "--json",
         action="store_true",
         help="with --headless: the session's verdict as one JSON line on standard output "

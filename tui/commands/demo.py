@@ -58,6 +58,7 @@ async def _headless(args: argparse.Namespace, built: str | None) -> int:
         model_errors=args.model_error,
         out_dir=args.out,
     )
+    session.runner.strict_unverified = bool(getattr(args, "strict", False))
     bench = f"simulated bench, {built}" if built else "simulated bench"
     print(f"Session {session.session_id}: journal {session.path} ({bench})", flush=True)
     code = await walk(

@@ -3,7 +3,8 @@
 A technician (``technicians``) answers what the runner's view asks for, until the sequence
 ends or the technician stops (end of input). The verdict and the exit code are
 ``meas.verdict``'s: 0 PASS, 1 FAIL or INCOMPLETE, 2 usage or profile error, 3 stopped before
-the end (the session can be resumed), 4 PASS with unverified readings.
+the end (the session can be resumed); PASS with unverified readings exits 0 (1 with
+``--strict``).
 """
 
 from __future__ import annotations

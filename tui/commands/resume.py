@@ -56,6 +56,7 @@ async def _headless(args: argparse.Namespace) -> int:
         live_checks=False,
         out_dir=args.out,
     )
+    session.runner.strict_unverified = bool(getattr(args, "strict", False))
     if session.runner.finished:
         return await _finished(session, args)
     step = session.runner.step

@@ -46,6 +46,7 @@ async def _run(args: argparse.Namespace) -> int:
         live_checks=False,
         out_dir=args.out,
     )
+    session.runner.strict_unverified = bool(getattr(args, "strict", False))
     print(f"Session {session.session_id}: journal {session.path}", flush=True)
     return await walk(
         session,
