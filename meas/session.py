@@ -123,11 +123,13 @@ def bench_start_state(profile: Profile, index: int) -> dict[str, SwitchState]:
 def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]:
     """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
     out: dict[str, StepOutcome] = {}
+    unverified = journal.unverified_by_step()
     for rec in records_from_log([s.id for s in profile.steps], journal.step_history()):
         if rec.outcome == "not_captured":
             continue
         status = Status.FAIL if rec.failed_checks else Status.PASS
-        out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason)
+        lines = tuple(unverified.get(rec.step_id, ()))
+        out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason, lines)
     return out
 
 
@@ -149,13 +151,15 @@ def session_state(path: Path) -> str:
         ids = [s["id"] for s in info.profile_dict.get("steps", [])]
         history = read.step_history(conn)
         point = read.resume_point(conn, ids)
+        by_step = read.unverified_by_step(conn)
     except Exception:  # noqa: BLE001
         return "unreadable journal"
     finally:
         conn.close()
     records = records_from_log(ids, history)
     if point is None:
-        return f"finished, {session_verdict(records).word}"
+        unverified = [line for sid in ids for line in by_step.get(sid, [])]
+        return f"finished, {session_verdict(records, unverified).word}"
     done = sum(1 for r in records if r.outcome != "not_captured")
     return f"unfinished at step {point} ({done} of {len(ids)} steps done)"
 

@@ -295,7 +295,9 @@ def _safe_rel(name: str) -> str:
 def _verdict(journal: Journal) -> dict[str, Any]:
     """The session verdict (``meas.verdict``), the same as the console and summary showed."""
     ids = [s["id"] for s in journal.profile_dict.get("steps", [])]
-    return session_verdict(records_from_log(ids, journal.step_history())).as_dict()
+    by_step = journal.unverified_by_step()
+    unverified = [line for sid in ids for line in by_step.get(sid, [])]
+    return session_verdict(records_from_log(ids, journal.step_history()), unverified).as_dict()
 
 
 def _datapackage(

@@ -138,6 +138,22 @@ def keysets(conn: sqlite3.Connection) -> dict[int, tuple[str, ...]]:
     }
 
 
+def unverified_by_step(conn: sqlite3.Connection) -> dict[str, list[str]]:
+    """Step id -> the lines of its latest ``readings_unverified`` event (a retake replaces)."""
+    out: dict[str, list[str]] = {}
+    rows = conn.execute(
+        "SELECT step, data FROM event WHERE kind = 'readings_unverified' ORDER BY id"
+    ).fetchall()
+    for step, data in rows:
+        try:
+            lines = json.loads(data).get("lines", [])
+        except (ValueError, AttributeError):
+            continue
+        if step is not None and isinstance(lines, list):
+            out[str(step)] = [str(x) for x in lines]
+    return out
+
+
 def step_history(conn: sqlite3.Connection) -> list[StepTransition]:
     return [
         StepTransition(

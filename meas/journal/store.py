@@ -229,6 +229,10 @@ class Journal:
     def step_history(self) -> list[StepTransition]:
         return read.step_history(self._conn)
 
+    def unverified_by_step(self) -> dict[str, list[str]]:
+        """Step id -> readings its final review could not verify (``readings_unverified``)."""
+        return read.unverified_by_step(self._conn)
+
     def step_ids(self) -> list[str]:
         return [s["id"] for s in self.profile_dict.get("steps", [])]
 

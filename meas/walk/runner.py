@@ -191,6 +191,13 @@ class Runner(StepMachine):
             if r.check == UNVERIFIED_CHECK and r.cause == "unverified"
         )
         self.outcomes[step.id] = StepOutcome(step.id, outcome, status, failures, reason, unverified)
+        if unverified:  # journalled, so the dataset and a resumed session give the same verdict
+            self.journal.record_event(
+                "readings_unverified",
+                f"{len(unverified)} meter(s) not verifiable against the network model",
+                step_id=step.id,
+                data={"lines": list(unverified)},
+            )
         self.state = State.SKIPPED if outcome == "skipped" else State.ACCEPTED
         self._advance()
 

@@ -11,10 +11,10 @@ import dataclasses
 from pathlib import Path
 
 import pytest
+from support.benches import DEMO
 
 from meas.fault.comtrade_write import write_comtrade
 from meas.fault.synth import as_record, fault_waves, phase_voltages
-from tests.support.benches import DEMO
 from tui.cli import main
 
 Z = complex(0.31441, 0.62530)

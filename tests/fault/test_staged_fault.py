@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from support.benches import DEMO
 
 from meas.cautions import STAGED_FAULT_CAUTION
 from meas.fault.compare import compare
@@ -24,7 +25,6 @@ from meas.fault.staged import as_built, stage_fault
 from meas.fault.waveform import analyse
 from meas.profile import load_profile
 from meas.shortcircuit.uncertainty import nameplate_covariance
-from tests.support.benches import DEMO
 from tui.cli import main
 
 PROFILE = load_profile(DEMO)

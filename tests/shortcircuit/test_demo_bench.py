@@ -13,12 +13,12 @@ import warnings
 
 import pandapower.shortcircuit as pp_sc
 import pytest
+from support.benches import DEMO
+from support.pandapower_sc import demo_bench_net
 
 from meas.errors import BenchwalkError
 from meas.profile import load_profile
 from meas.shortcircuit.iec60909 import every_bus, short_circuit
-from tests.support.benches import DEMO
-from tests.support.pandapower_sc import demo_bench_net
 
 PROFILE = load_profile(DEMO)
 MESHED = {"TIE": "closed"}

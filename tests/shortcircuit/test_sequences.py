@@ -12,6 +12,7 @@ import math
 
 import numpy as np
 import pytest
+from support.benches import DEMO
 
 from meas.model import Bench, Branch, Bus, Profile, SourceParams, TransformerParams, Zone
 from meas.profile import load_profile
@@ -19,7 +20,6 @@ from meas.shortcircuit.factors import kt_network_transformer
 from meas.shortcircuit.iec60909 import short_circuit
 from meas.shortcircuit.thevenin import thevenin
 from meas.shortcircuit.uncertainty import Covariance, nameplate_covariance, propagate
-from tests.support.benches import DEMO
 
 ZQ = 400.0**2 / 5e6 * complex(1, 10) / math.sqrt(101)  # 5 MVA feeder, X/R 10
 ZT = 400.0**2 / 250e3 * complex(1.0, math.sqrt(4.0**2 - 1.0)) / 100  # 250 kVA, uk 4 %, ur 1 %

@@ -7,6 +7,7 @@ with a short test sequence, then drives the runner the way the console does: com
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import time
 
@@ -670,3 +671,29 @@ async def test_every_command_the_view_does_not_allow_is_refused_without_a_trace(
     assert {"capture", "request_remote", "sign", "confirm_operation", "note", "accept"} <= {
         a for _, a in seen
     }
+
+
+async def test_unverified_readings_reach_the_journal_and_the_dataset_verdict(
+    make_session, tmp_path
+):
+    """The console's verdict, the journal (for a resume) and the exported dataset agree on
+    the readings nothing could verify (the invented radial bench: M4's and M6's CT ratios)."""
+    import json
+
+    s = await make_session(ONE_STEP, name="unverified")
+    r = s.runner
+    await until(s, in_state(State.WAITING))
+    r.capture()
+    await until(s, in_state(State.REVIEWING))
+    r.accept()
+    assert r.finished
+    live = r.verdict()
+    assert live.word == "PASS with unverified readings" and live.exit_code == 0
+    deadline = time.monotonic() + 10.0  # the journal writes in the background
+    while not s.journal.unverified_by_step():
+        assert time.monotonic() < deadline, "readings_unverified never journalled"
+        await asyncio.sleep(0.05)
+    assert s.journal.unverified_by_step() == {"radial": list(live.unverified)}
+    dataset, _ = s.export(tmp_path / "out")
+    meta = json.loads((dataset / "datapackage.json").read_text())["benchwalk"]["verdict"]
+    assert meta["verdict"] == live.word and meta["unverified"] == list(live.unverified)
