@@ -12,6 +12,7 @@ import pandas as pd
 
 from ..cautions import REPORT_CAUTION as CAUTION
 from .charts import balance_svg
+from .fault_section import fault_html
 from .names import check_name
 from .rows import (
     KEY_READINGS,
@@ -362,6 +363,7 @@ def render_html(rd: ReportData) -> str:
     out += _instruments(rd)
     out += _sequence(rd)
     out += _findings(rd)
+    out += fault_html(rd.fault)
     out += _readings(rd)
     out.append("<h2>Sign-off</h2>")
     out.append(

@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from ..cautions import REPORT_CAUTION as CAUTION
+from .fault_section import fault_markdown
 from .html import _time
 from .names import check_name
 from .rows import (
@@ -128,6 +129,7 @@ def render_markdown(rd: ReportData) -> str:
                 ],
             )
         )
+    out += ["", *fault_markdown(rd.fault)]
     out += [
         "",
         "## Key readings per step",

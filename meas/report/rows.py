@@ -9,7 +9,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Protocol, cast
+from typing import Any, Protocol, cast
 
 import pandas as pd
 
@@ -26,6 +26,7 @@ from ..verdict import (
     outcome_from_log,
     session_verdict,
 )
+from .fault_section import read_fault_summary
 from .text import plain
 
 # per-phase readings shown per meter and step: (row title, quantity, unit)
@@ -54,6 +55,7 @@ class ReportData:
     simulated: bool  # the readings came from the simulated bench
     phases: pd.DataFrame  # step, meter, key ("i.B") -> median over the captures
     profile: Profile | None  # the profile as the dataset keeps it (cover facts, serials)
+    fault: dict[str, Any] | None = None  # a staged-fault summary inside the dataset folder
 
 
 def report_verdict(ds: Dataset) -> Verdict:
@@ -266,6 +268,7 @@ def gather(dataset_dir: Path) -> ReportData:
         is_simulated(ds),
         phases,
         kept_profile(ds),
+        read_fault_summary(Path(dataset_dir)),
     )
 
 

@@ -263,3 +263,44 @@ def test_the_report_prints_to_a4_with_page_numbers_and_running_header(faulty_rep
     lines = [ln.strip() for ln in text.splitlines() if ln.strip()]
     assert lines[0].startswith("Commissioning report, session rec-2")  # the running header
     assert lines[1].startswith("Verdict: FAIL"), lines[:3]  # then the verdict, first
+
+
+@pytest.mark.slow
+def test_the_report_includes_a_staged_fault_validation_found_in_the_dataset(
+    faulty_report, tmp_path
+):
+    """``fault check --out DATASET/fault`` leaves summary.json where the session report finds
+    it: the report shows its verdict, the measured-against-predicted table and the caution."""
+    from support.benches import DEMO
+
+    from meas.cautions import STAGED_FAULT_CAUTION
+    from tui.cli import main
+
+    dataset = tmp_path / "dataset"
+    shutil.copytree(faulty_report[0], dataset)
+    stem = tmp_path / "staged"
+    assert main(["fault", "simulate", str(DEMO), "--bus", "B2", "--out", str(stem)]) == 0
+    cfg = stem.with_suffix(".cfg")
+    rc = main(
+        ["fault", "check", str(cfg), "--profile", str(DEMO), "--bus", "B2"]
+        + ["--out", str(dataset / "fault")]
+    )
+    assert rc == 0
+    assert main(["report", str(dataset), "--out", str(tmp_path / "r.html")]) == 0
+    page = (tmp_path / "r.html").read_text(encoding="utf-8")
+    md = (tmp_path / "r.md").read_text(encoding="utf-8")
+    for text in (page, md):
+        assert "Staged fault validation" in text
+        assert "Staged fault at B2 (3ph)" in text and ": pass" in text
+    assert html_text(STAGED_FAULT_CAUTION) in page and STAGED_FAULT_CAUTION in md
+    assert page.count("<tr>") > 6  # the comparison table has a row per figure
+    # a summary that cannot be read is named in the report, which is still written
+    (dataset / "fault" / "summary.json").write_text("{not json", encoding="utf-8")
+    assert main(["report", str(dataset), "--out", str(tmp_path / "r2.html")]) == 0
+    assert "summary.json cannot be read" in (tmp_path / "r2.html").read_text(encoding="utf-8")
+
+
+def html_text(s: str) -> str:
+    import html
+
+    return html.escape(s)
