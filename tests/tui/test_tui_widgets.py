@@ -187,6 +187,35 @@ def test_failures_first_with_their_cause():
     assert "nothing is judged until they are steady" in settling[1]
 
 
+def test_meters_the_model_could_not_verify_are_listed_even_when_every_check_passes():
+    """Unverified is never a pass: the checks view names each such meter and why."""
+    results = [
+        CheckResult("meter.p_sum", "M1", Status.PASS),
+        CheckResult(
+            "network.model_fit",
+            "bench",
+            Status.PASS,
+            message="readings fit the network model: chi-square 12.5 for 30 degrees of freedom",
+        ),
+        CheckResult(
+            "network.model_fit",
+            "M1",
+            Status.NA,
+            message="unverified: M1 VT ratio: no other reading predicts it",
+            cause="unverified",
+        ),
+        CheckResult("network.model_fit", "M2", Status.PASS, message="M2 agrees"),
+    ]
+    text = checks_text(results, "consistent").plain
+    assert "all 3 applicable checks pass" in text
+    assert "model: readings fit the network model: chi-square 12.5" in text
+    assert "? 1 meter(s) unverified against the network model:" in text
+    assert "? M1: M1 VT ratio: no other reading predicts it" in text
+    assert "M2:" not in text.split("unverified against")[1]
+    plain = checks_text(results[:1], "consistent").plain
+    assert "unverified" not in plain and "model:" not in plain
+
+
 def test_trend_spread_is_the_settle_figure():
     # SettleCriterion (meas/model.py): rel_spread = (max - min) / |mean| over the window.
     assert window_spread([99.0, 100.0, 101.0]) == pytest.approx(0.02)

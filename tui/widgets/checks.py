@@ -69,6 +69,31 @@ def checks_text(
         out.append("\nno checks yet")
     elif shown == 0:
         out.append(f"\n\u2714 all {counts[Status.PASS]} applicable checks pass", style="green")
+    out.append_text(_model_lines(results))
+    return out
+
+
+MODEL_FIT = "network.model_fit"  # the model-aware check (meas.checks.network.model_fit)
+
+
+def _model_lines(results: tuple[CheckResult, ...] | list[CheckResult]) -> Text:
+    """What the network model says: its fit of the bench, and each meter it could not verify
+    (unverified is never a pass, so it is shown even when every check passes)."""
+    out = Text()
+    fit = [r for r in results if r.check == MODEL_FIT]
+    bench = next((r for r in fit if r.subject == "bench"), None)
+    if bench is not None and bench.status in (Status.PASS, Status.NA):
+        out.append(f"\nmodel: {bench.message}", style="dim")
+    unverified = sorted(
+        (r for r in fit if r.cause == "unverified" and r.subject != "bench"),
+        key=lambda r: r.subject,
+    )
+    if unverified:
+        out.append(
+            f"\n? {len(unverified)} meter(s) unverified against the network model:", style="bold"
+        )
+        for r in unverified:
+            out.append(f"\n  ? {r.subject}: {r.message.removeprefix('unverified: ')}")
     return out
 
 
