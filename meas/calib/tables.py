@@ -180,3 +180,24 @@ def fit_summary(c: Calibration, dataset: dict[str, Any]) -> dict[str, Any]:
             "pandas": pd.__version__,
         },
     }
+
+
+def parameter_covariance(c: Calibration) -> dict[str, object]:
+    """The fitted parameters' covariance in their own units, in the form ``benchwalk fault
+    check --covariance`` reads (``meas/fault/inputs.py``): a calibration's uncertainty carried
+    into the predicted short-circuit currents. First order: a log-multiplier z gives
+    value = nominal·exp(s·z), so d value/dz = s·value (s·1 for an additive parameter)."""
+    idx = [j for j, u in enumerate(c.problem.unknowns) if u.kind == "parameter"]
+    est = {e.name: e for e in c.parameters}
+    names = [c.problem.unknowns[j].name for j in idx]
+    scale = []
+    for j in idx:
+        u = c.problem.unknowns[j]
+        scale.append(u.s if u.additive else u.s * abs(est[u.name].value))
+    d = np.asarray(scale)
+    cov = c.fit.cov[np.ix_(idx, idx)] * np.outer(d, d)
+    return {
+        "parameters": names,
+        "values": [est[n].value for n in names],
+        "covariance": cov.tolist(),
+    }

@@ -32,6 +32,7 @@ from .tables import (
     fit_summary,
     gains_table,
     identifiability_table,
+    parameter_covariance,
     parameters_table,
 )
 
@@ -116,10 +117,15 @@ def _write(folder: Path, ds: Dataset, c: Calibration, date: str) -> dict[str, An
     else:
         summary["calibrated_profile"] = None
     (folder / "fit.json").write_text(json.dumps(summary, indent=2, default=str) + "\n", "utf-8")
+    # the fitted parameters' covariance, as ``benchwalk fault check --covariance`` reads it
+    (folder / "covariance.json").write_text(
+        json.dumps(parameter_covariance(c), indent=1) + "\n", "utf-8"
+    )
     title = f"Calibration of {c.profile.bench.name} from session {ds.session}"
     (folder / "report.html").write_text(render(c, summary, title), encoding="utf-8")
     for extra, fmt, media in (
         ("fit.json", "json", "application/json"),
+        ("covariance.json", "json", "application/json"),
         ("report.html", "html", "text/html"),
     ):
         resources.append(_file(folder, extra, fmt, media))

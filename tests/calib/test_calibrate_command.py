@@ -12,6 +12,8 @@ import sys
 from pathlib import Path
 
 import frictionless
+import numpy as np
+import pandas as pd
 import pytest
 from support.benches import write_fast_demo
 from support.invented_bench import build_session
@@ -87,6 +89,14 @@ def test_calibrate_a_real_demo_dataset_accepts_and_writes_everything(dataset: Pa
     report = frictionless.validate(out / "datapackage.json")
     assert report.valid, report.flatten(["resourceName", "type", "note"])[:5]
     assert "<svg" in (out / "report.html").read_text()
+    # the covariance a staged-fault validation takes (benchwalk fault check --covariance)
+    from meas.fault.inputs import read_covariance
+
+    cov = read_covariance(out / "covariance.json")
+    table = pd.read_csv(out / "parameters.csv").set_index("parameter")
+    for name, value, var in zip(cov.names, cov.values, np.diag(cov.matrix), strict=True):
+        assert value == pytest.approx(table.loc[name, "calibrated_value"], rel=1e-12)
+        assert np.sqrt(var) == pytest.approx(table.loc[name, "u"], rel=1e-9)
 
 
 def test_rejected_fit_exits_1_names_the_worst_reading_and_writes_no_profile(
