@@ -35,7 +35,7 @@ def balance_svg(
         parts.append(
             f'<line x1="{x(tick):.1f}" y1="{top - 6}" x2="{x(tick):.1f}" y2="{height - 18}" class="grid"/>'
         )
-        parts.append(f'<text x="{x(tick):.1f}" y="{height - 4}" class="tick">{tick:.2g}</text>')
+        parts.append(f'<text x="{x(tick):.1f}" y="{height - 4}" class="tick">{_tick(tick)}</text>')
     for n, r in enumerate(balance_rows(rows)):
         y = top + n * (bar_h + gap)
         res = float(r.residual)
@@ -55,3 +55,12 @@ def balance_svg(
     parts.append(f'<text x="{x(1.0) + 3:.1f}" y="{top - 12}" class="tick">limit</text>')
     parts.append("</svg>")
     return "\n".join(parts)
+
+
+def _tick(v: float) -> str:
+    """A tick label with two significant digits and no e-notation (a client reads 120, not
+    1.2e+02)."""
+    if v == 0 or not math.isfinite(v):
+        return "0" if v == 0 else ""
+    digits = max(0, 1 - math.floor(math.log10(abs(v))))
+    return f"{round(v, digits):.{digits}f}"

@@ -14,6 +14,7 @@ from ..cautions import REPORT_CAUTION as CAUTION
 from .charts import balance_svg
 from .fault_section import fault_html
 from .names import check_name
+from .phasor_svg import phasor_figures
 from .rows import (
     KEY_READINGS,
     PHASE_ROWS,
@@ -27,6 +28,7 @@ from .rows import (
 from .text import fmt, fmt_res, plain
 
 CSS = """
+.phasors{display:flex;flex-wrap:wrap;gap:6px}.phasor{margin:0;text-align:center;font-size:80%}
 body{font:14px/1.45 Georgia,"Times New Roman",serif;color:#1d1d1b;margin:2rem auto;max-width:60rem;padding:0 1rem}
 h1{font-size:1.6rem;border-bottom:3px double #1d1d1b;padding-bottom:.3rem}
 h2{font-size:1.2rem;margin-top:2rem;border-bottom:1px solid #999}
@@ -338,6 +340,7 @@ def _readings(rd: ReportData) -> list[str]:
                 _table(["meter"] + [f"{t} [{u}]" for t, u, _ in KEY_READINGS], rows, {1, 2, 3, 4})
             )
         out.append(phases)
+        out.append(phasor_figures(rd.phases, s.id))
         out.append(_failing_chart(rd, s.id))
         if not bal.empty:
             out.append(

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Protocol, cast
 
+import numpy as np
 import pandas as pd
 
 from ..dataset.read import Dataset, load_dataset, read_table
@@ -32,6 +33,8 @@ from .text import plain
 # per-phase readings shown per meter and step: (row title, quantity, unit)
 PHASE_ROWS = [("V L-N", "v_ln", "V"), ("I", "i", "A"), ("P", "p", "W"), ("Q", "q", "var")]
 PHASE_QUANTITIES = {q for _, q, _ in PHASE_ROWS}
+# angles for the phasor diagrams, each referred to the meter's own V_A
+ANGLE_QUANTITIES = {"v_ang", "i_ang"}
 
 # quantity keys summarized per meter and step: (column title, unit, keys averaged per snapshot)
 KEY_READINGS = [
@@ -179,7 +182,10 @@ def gather(dataset_dir: Path) -> ReportData:
         ds.path,
         "measurements",
         columns=["step", "snapshot", "meter", "quantity", "phase", "value", "quality"],
-        filters=[("role", "=", "capture"), ("quantity", "in", sorted(PHASE_QUANTITIES))],
+        filters=[
+            ("role", "=", "capture"),
+            ("quantity", "in", sorted(PHASE_QUANTITIES | ANGLE_QUANTITIES)),
+        ],
     )
     m = m[m["quality"] == "ok"]
     m = m.assign(key=m["quantity"] + "." + m["phase"])
@@ -191,7 +197,7 @@ def gather(dataset_dir: Path) -> ReportData:
         frames.append(med)
     readings = pd.concat(frames, axis=1).reset_index() if frames else pd.DataFrame()
     phases = (
-        m.groupby(["step", "meter", "key"], sort=False)["value"].median().reset_index()
+        _phase_medians(m)
         if not m.empty
         else pd.DataFrame(columns=["step", "meter", "key", "value"])
     )
@@ -270,6 +276,19 @@ def gather(dataset_dir: Path) -> ReportData:
         kept_profile(ds),
         read_fault_summary(Path(dataset_dir)),
     )
+
+
+def _phase_medians(m: pd.DataFrame) -> pd.DataFrame:
+    """Median per step, meter and key; angles by their circular mean (a median of 179.9 and
+    -179.9 degrees would point the wrong way)."""
+    is_angle = m["quantity"].isin(ANGLE_QUANTITIES)
+    keys = ["step", "meter", "key"]
+    plain_part = m[~is_angle].groupby(keys, sort=False)["value"].median()
+    ang = m[is_angle]
+    rad = np.deg2rad(ang["value"].to_numpy(dtype=float))
+    ang = ang.assign(c=np.cos(rad), s=np.sin(rad)).groupby(keys, sort=False)[["c", "s"]].mean()
+    angle_part = pd.Series(np.rad2deg(np.arctan2(ang["s"], ang["c"])), index=ang.index)
+    return pd.concat([plain_part, angle_part.rename("value")]).reset_index()
 
 
 def phase_values(phases: pd.DataFrame, step_id: str) -> dict[tuple[str, str], float]:

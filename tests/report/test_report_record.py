@@ -158,6 +158,7 @@ def test_the_report_groups_findings_and_names_checks_in_plain_words(faulty_repor
     dataset, html_path = faulty_report
     html = html_path.read_text()
     checks = load_dataset(dataset, tables=["checks"])["checks"]
+    checks = checks.rename(columns={"check_id": "check"})  # the dataset's SQL-safe name
     bad = checks[checks["status"] == "fail"].fillna({"cause": ""})
     groups = bad.groupby(["step", "check", "subject", "cause"]).size()
     findings = html.split("<h2>Findings</h2>", 1)[1].split("<h2>", 1)[0]
@@ -304,3 +305,19 @@ def html_text(s: str) -> str:
     import html
 
     return html.escape(s)
+
+
+@pytest.mark.slow
+def test_the_report_draws_a_phasor_diagram_per_meter_and_step(faulty_report):
+    """A diagram per meter with angle registers and step: its voltages and currents drawn
+    from the per-phase medians (angles by their circular mean)."""
+    import xml.etree.ElementTree as ET
+
+    page = faulty_report[1].read_text(encoding="utf-8")
+    assert '<div class="phasors">' in page and "Phasors referred to each meter" in page
+    figures = re.findall(r'<figure class="phasor">(<svg.*?</svg>)<figcaption>(\w+)', page)
+    assert len(figures) >= 3  # the meters whose maps have angle registers
+    svg = figures[0][0]
+    root = ET.fromstring(svg)
+    labels = {t.text for t in root.iter("{http://www.w3.org/2000/svg}text")}
+    assert {"VA", "VB", "VC"} <= labels
