@@ -12,7 +12,10 @@ from meas.calib.run import Options, calibrate
 # the study's drift over its five steps (percent), repeated over the demo's ten live steps
 DRIFT_PCT = [0.075, 0.238, 0.165, -0.165, -0.120] * 2
 
-pytestmark = pytest.mark.slow  # each fit of the full demo problem takes a second or more
+pytestmark = [
+    pytest.mark.slow,
+    pytest.mark.long,
+]  # each fit of the full demo problem takes a second or more
 
 
 @pytest.fixture(scope="module")

@@ -19,6 +19,8 @@ from meas.calib.predict import NetworkPredictor
 from meas.calib.run import Options, calibrate
 from meas.profile import load_profile
 
+pytestmark = pytest.mark.long  # minutes: pytest -m long (DEVELOPERS.md)
+
 
 @pytest.fixture(scope="module")
 def case():

@@ -14,7 +14,10 @@ from meas.calib.run import Options, calibrate
 from meas.calib.selection import select_parameters
 from meas.network.parameters import model_parameters
 
-pytestmark = pytest.mark.slow  # each fit of the full demo problem takes a second or more
+pytestmark = [
+    pytest.mark.slow,
+    pytest.mark.long,
+]  # each fit of the full demo problem takes a second or more
 
 
 @pytest.fixture(scope="module")

@@ -368,6 +368,7 @@ def test_engine_reproduces_golden_results_exactly(golden):
     assert problems == [], f"{len(problems)} snapshots differ; first: {problems[0]}"
 
 
+@pytest.mark.long
 def test_fresh_engine_and_run_checks_agree_with_golden(golden):
     """No state carried between snapshots changes a result: an engine per scenario, and
     run_checks (an engine per call) on a sample, give the golden rows too. Every third

@@ -24,6 +24,8 @@ from support.benches import write_bench
 
 from meas.profile import load_profile
 
+pytestmark = pytest.mark.long  # minutes: pytest -m long (DEVELOPERS.md)
+
 ROOT = Path(__file__).resolve().parents[2]
 HOLD_S = float(os.environ.get("BENCHWALK_HOLD_S", "60"))
 HOLD_SEQUENCE = """

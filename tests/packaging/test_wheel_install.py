@@ -120,6 +120,7 @@ def test_wheel_holds_the_demo_profiles_license_and_metadata(wheel):
     assert any(r.startswith("pandas") and ">=" in r and "==" not in r for r in requires)
 
 
+@pytest.mark.long
 def test_installed_app_runs_the_demo_headless_to_a_dataset(app_env, tmp_path):
     env_dir, env = app_env
     exe = env_dir / "bin" / "benchwalk"

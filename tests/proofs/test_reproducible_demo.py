@@ -20,6 +20,8 @@ import pandas as pd
 import pytest
 from support.benches import write_fast_demo
 
+pytestmark = pytest.mark.long  # minutes: pytest -m long (DEVELOPERS.md)
+
 ROOT = Path(__file__).resolve().parents[2]
 TIME_COLUMNS = {
     "steps": ["settle_s", "started_utc", "ended_utc"],
