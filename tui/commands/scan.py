@@ -79,6 +79,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="FILE",
         help="write a profile skeleton of what answered",
     )
+    p.add_argument(
+        "--text",
+        type=_text,
+        action="append",
+        default=[],
+        metavar="NAME:ADDRESS:COUNT",
+        help="also read a text register (COUNT holding registers from ADDRESS) from every unit found",
+    )
     add_json(p, "the units found")
 
 
