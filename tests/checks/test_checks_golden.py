@@ -361,6 +361,7 @@ def test_fixture_covers_what_it_claims(golden):
     assert any(n.startswith("synthetic/") and len(r) == 605 for n, r in golden.items())
 
 
+@pytest.mark.long
 def test_engine_reproduces_golden_results_exactly(golden):
     got = compute(shared_engines=True)
     assert got.keys() == golden.keys()
