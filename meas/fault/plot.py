@@ -75,17 +75,19 @@ def waveform_svg(analysis: Analysis, comparison: Comparison, title: str) -> str:
         parts.append(
             f'<text x="{_W - _PAD + 4}" y="{40 + 16 * k}" fill="{c}">{escape(ph.name)}</text>'
         )
-    for val, label, colour, dy in (
-        (pk_pred, "predicted peak (exact RL at the measured angle)", "#000", -4.0),
-        (ip, "IEC ip at c = U_pre/Un", "#777", 14.0),
+    # both labels sit just above their positive line, one at each end, so close values never overlap
+    for val, label, colour, anchor in (
+        (pk_pred, "predicted peak (exact RL at the measured angle)", "#000", "start"),
+        (ip, "IEC ip at c = U_pre/Un", "#555", "end"),
     ):
         if math.isfinite(val):
             for sign in (1.0, -1.0):
                 parts.append(
                     f'<line x1="{_PAD}" y1="{float(y(sign * val)):.1f}" x2="{_W - _PAD}" y2="{float(y(sign * val)):.1f}" stroke="{colour}" stroke-width="0.8"/>'
                 )
+            tx = _PAD + 4 if anchor == "start" else _W - _PAD - 4
             parts.append(
-                f'<text x="{_PAD + 4}" y="{float(y(-val if dy > 0 else val)) + dy:.1f}" fill="{colour}">{escape(label)}: {val:.4g} A</text>'
+                f'<text x="{tx}" y="{float(y(val)) - 4:.1f}" fill="{colour}" text-anchor="{anchor}">{escape(label)}: {val:.4g} A</text>'
             )
     parts.append(
         f'<text x="{_PAD}" y="{_H - 8}" fill="#555">time {lo * 1e3:.1f} to {hi * 1e3:.1f} ms; solid: recorded fault current; dashed: fitted envelope; current axis \u00b1{ymax:.4g} A</text>'
