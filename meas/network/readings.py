@@ -80,16 +80,17 @@ def meter_values(
     """
     v = np.asarray(v, dtype=complex)
     i = np.asarray(i, dtype=complex)
-    s = v * np.conj(i)
-    p, q, sa = s.real, s.imag, np.abs(s)
+    v_mag, i_mag, p, q = phase_values(v, i)
+    s = p + 1j * q
+    sa = np.abs(s)
     out: dict[str, float] = {}
     for k, ph in enumerate(PHASES):
-        out[f"v_ln.{ph}"] = float(abs(v[k]))
+        out[f"v_ln.{ph}"] = float(v_mag[k])
     for pair in LL_PAIRS:
         a, b = PHASES.index(pair[0]), PHASES.index(pair[1])
         out[f"v_ll.{pair}"] = float(abs(v[a] - v[b]))
     for k, ph in enumerate(PHASES):
-        out[f"i.{ph}"] = float(abs(i[k]))
+        out[f"i.{ph}"] = float(i_mag[k])
     out["i.N"] = float(abs(i.sum()))
     s_total = float(abs(s.sum())) if apparent_power == "vector" else float(sa.sum())
     p_total = float(p.sum())
