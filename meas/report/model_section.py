@@ -24,7 +24,12 @@ PER_STEP = (
     "Step by step, as the verdict lists them: each step's captures are checked against the "
     "model on their own, with less redundancy than the whole session above."
 )
-_KIND_WORDS = {"vt_ratio": "VT ratio", "ct_ratio": "CT ratio"}
+_KIND_WORDS = {
+    "vt_ratio": "VT ratio",
+    "ct_ratio": "CT ratio",
+    "ct_reversed": "reversed CT",
+    "phases_swapped": "swapped inputs",
+}
 
 
 @dataclass(frozen=True)
