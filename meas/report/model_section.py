@@ -24,6 +24,10 @@ PER_STEP = (
     "Step by step, as the verdict lists them: each step's captures are checked against the "
     "model on their own, with less redundancy than the whole session above."
 )
+LEGEND = (
+    "Gains ± u (k = 1). Ratio columns: the smallest ratio error this session could detect; "
+    "reversed CT and swapped inputs: the phases and pairs it could detect."
+)
 _KIND_WORDS = {
     "vt_ratio": "VT ratio",
     "ct_ratio": "CT ratio",
@@ -259,7 +263,7 @@ def model_markdown(rd: ReportData) -> list[str]:
             out.append(
                 f"| {m.meter} | {v} | {i} | {m.vt} | {m.ct} | {m.reversed_ct} | {m.swapped} |"
             )
-        out.append("")
+        out += ["", LEGEND, ""]
     found = causes(rd)
     out += [f"- {s}" for s in found] or (["No meter gain lies beyond its class."] if lines else [])
     nd = not_detectable(rd)

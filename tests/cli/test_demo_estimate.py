@@ -1,4 +1,4 @@
-"""The whole headless demo, with and without a VT ratio set 10 % high on the lone lateral meter
+"""(Long: about four minutes on a loaded 2-core machine.) The whole headless demo, with and without a VT ratio set 10 % high on the lone lateral meter
 M5 (``--fault vt-ratio:M5:1.1``): the dataset's meter_gains table and the report's first page.
 
 The demo bench and its fast copy are invented (tests/support/benches.py). Expected: the
@@ -50,7 +50,7 @@ def _gains(out: Path) -> pd.DataFrame:
     return pd.read_parquet(out / "dataset" / "data" / "meter_gains.parquet")
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_demo_with_a_vt_ratio_fault_has_m5_voltage_beyond_class(demos: dict[str, Path]) -> None:
     g = _gains(demos["vt"])
     m5 = g[(g["meter"] == "M5") & (g["quantity"] == "voltage")].iloc[0]
@@ -62,7 +62,7 @@ def test_demo_with_a_vt_ratio_fault_has_m5_voltage_beyond_class(demos: dict[str,
     assert "beyond class ±0.5 %" in first and "M5: voltages 1.1" in first
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_clean_demo_has_no_gain_beyond_class(demos: dict[str, Path]) -> None:
     g = _gains(demos["clean"])
     assert len(g) == 16 and not g["beyond_class"].any()
