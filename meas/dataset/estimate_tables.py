@@ -76,7 +76,7 @@ def session_estimate_of(folder: Path) -> SessionEstimate:
         return _none(f"the dataset's profile does not load ({exc})")
     try:
         steps = captured_steps(Path(folder))
-    except BenchwalkError as exc:
+    except (BenchwalkError, ValueError, KeyError, TypeError, AttributeError, OverflowError) as exc:
         return _none(f"the captures cannot be rebuilt from the tables ({exc})")
     return estimate_session(profile, steps)
 
@@ -89,6 +89,8 @@ def estimate_session(
         return _none("the dataset's profile no longer loads")
     if not any(b.model is not None for b in profile.branches):
         return _none(NO_MODEL)
+    if not any(snaps for _, snaps in steps):
+        return _none("no step was captured in this session")
     known = [
         (sid, list(snaps))
         for sid, snaps in steps

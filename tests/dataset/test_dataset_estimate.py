@@ -183,6 +183,7 @@ def test_captures_with_a_switch_unknown_give_a_reason_not_an_exception() -> None
     assert est.reason == "no step was captured with every switch state known"
     assert est.description("coverage") == f"Empty: {est.reason}."
     assert estimate_session(None, []).reason == "the dataset's profile no longer loads"
+    assert estimate_session(prof, []).reason == "no step was captured in this session"
 
 
 @pytest.mark.slow
