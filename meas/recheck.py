@@ -16,8 +16,8 @@ import numpy as np
 import pandas as pd
 
 from .dataset.estimate_tables import SessionEstimate, compare_rows, session_estimate_of
-from .dataset.read import bad_dataset, load_dataset, show_rel
-from .dataset.schema import column_names
+from .dataset.read import bad_dataset, format_minor, load_dataset, read_package, show_rel
+from .dataset.schema import ADDED_IN_MINOR, column_names
 from .dataset.snapshots import snapshots_of_step
 from .progress import Progress
 
@@ -153,3 +153,8 @@ def compare_estimate(dataset_dir: Path, fresh: SessionEstimate) -> list[str]:
         exported = cast(list[dict[str, object]], frame.to_dict("records"))
         diffs += compare_rows(name, exported, rows)
     return diffs
+
+
+def estimate_recorded(dataset_dir: Path) -> bool:
+    """The dataset holds the meter_gains and coverage tables (format 2.1 and later)."""
+    return format_minor(read_package(Path(dataset_dir))) >= ADDED_IN_MINOR["meter_gains"]

@@ -34,9 +34,10 @@ from meas.dataset.files import sha256_of
 from meas.dataset.read import load_dataset
 from meas.dataset.schema import FORMAT_MINOR, TABLES
 from meas.journal.store import Journal
-from meas.recheck import compare_estimate, recheck_estimate
+from meas.recheck import compare_estimate, estimate_recorded, recheck_estimate
 from meas.report import write_report
 from meas.sim.faults import parse_fault
+from tui import cli
 
 SEED = 5
 # the first two steps that load the lateral (SW3 closed); the exact identification of a fault
@@ -188,7 +189,7 @@ def test_captures_with_a_switch_unknown_give_a_reason_not_an_exception() -> None
 
 @pytest.mark.slow
 def test_an_older_dataset_without_the_tables_still_loads_and_reports(
-    clean: Path, tmp_path: Path
+    clean: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     """A format 2.0 dataset (written before the tables existed) reads with them empty."""
     copy = tmp_path / "old"
@@ -204,6 +205,16 @@ def test_an_older_dataset_without_the_tables_still_loads_and_reports(
     assert got["meter_gains"].empty and list(got["coverage"].columns)[:2] == ["meter", "error_kind"]
     html_path, _ = write_report(copy, tmp_path / "old-report.html")
     assert "predates the session estimate" in html_path.read_text()
+    assert estimate_recorded(clean) and not estimate_recorded(copy)
+    assert cli.main(["check", str(copy)]) == 0
+    assert "predates the meter_gains and coverage tables" in capsys.readouterr().out
+
+
+@pytest.mark.slow
+def test_the_check_command_says_the_tables_reproduce(clean: Path, capsys) -> None:
+    assert cli.main(["check", str(clean), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out.strip().splitlines()[-1])
+    assert out["estimate_reproduces"] is True and out["estimate_differences"] == []
 
 
 @pytest.mark.slow
