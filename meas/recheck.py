@@ -9,109 +9,20 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Iterable
 from pathlib import Path
-from typing import Protocol, cast
+from typing import cast
 
 import numpy as np
 import pandas as pd
 
-from .dataset.read import bad_dataset, load_dataset, read_table, show_rel
-from .dataset.schema import column_names
+from .dataset.estimate_tables import SessionEstimate, compare_rows, session_estimate_of
+from .dataset.read import bad_dataset, format_minor, load_dataset, read_package, show_rel
+from .dataset.schema import ADDED_IN_MINOR, column_names
+from .dataset.snapshots import snapshots_of_step
 from .progress import Progress
-from .snapshot import CommState, MeterBlock, Quality, Snapshot
-
-
-class _SnapshotsRow(Protocol):
-    """A row of the snapshots table as pandas reads it (NaN for a missing number)."""
-
-    snapshot: int
-    seq: int
-    time_utc: pd.Timestamp
-    t_mono: float
-    cycle_s: float
-
-
-class _PollsRow(Protocol):
-    """A row of the polls table as pandas reads it (NaN or NaT for a missing value)."""
-
-    meter: str
-    state: str
-    exception_code: float
-    error: str | None
-    error_count: int
-    latency_s: float
-    last_good_utc: pd.Timestamp
-
 
 HISTORY = 64  # snapshots the runner keeps for history-dependent checks (meas.runner default)
 CHECK_COLUMNS = column_names("checks")
-
-
-def _snapshots_of_step(
-    folder: Path, step: str | None, snaps: pd.DataFrame, polls: pd.DataFrame, switches: pd.DataFrame
-) -> list[tuple[int, Snapshot]]:
-    """The step's snapshots rebuilt from the tables, in journal order."""
-    filt = [("step", "=", step)] if step is not None else None
-    m = read_table(
-        folder,
-        "measurements",
-        columns=["snapshot", "step", "meter", "quantity", "phase", "value", "quality"],
-        filters=filt,
-    )
-    if step is None:
-        m = m[m["step"].isna()]
-    mine = snaps[snaps["step"].isna()] if step is None else snaps[snaps["step"] == step]
-    out = []
-    by_snap = {k: g for k, g in m.groupby("snapshot", sort=False)}
-    poll_by = {
-        k: g
-        for k, g in polls[polls["snapshot"].isin(mine["snapshot"])].groupby("snapshot", sort=False)
-    }
-    sw_by = {
-        k: g
-        for k, g in switches[switches["snapshot"].isin(mine["snapshot"])].groupby(
-            "snapshot", sort=False
-        )
-    }
-    for s in cast(Iterable[_SnapshotsRow], mine.itertuples(index=False)):
-        g = by_snap.get(s.snapshot)
-        blocks = {}
-        vals_by_meter = {k: mg for k, mg in g.groupby("meter", sort=False)} if g is not None else {}
-        step_polls = poll_by.get(s.snapshot, polls.iloc[0:0])
-        for p in cast(Iterable[_PollsRow], step_polls.itertuples(index=False)):
-            mg = vals_by_meter.get(p.meter)
-            keys = (mg["quantity"] + "." + mg["phase"]).tolist() if mg is not None else []
-            values = mg["value"].to_numpy(dtype=float).tolist() if mg is not None else []
-            quals = mg["quality"].tolist() if mg is not None else []
-            blocks[p.meter] = MeterBlock(
-                meter=p.meter,
-                values=dict(zip(keys, values, strict=True)),
-                quality={k: Quality(q) for k, q in zip(keys, quals, strict=True)},
-                state=CommState(p.state),
-                exception_code=None if pd.isna(p.exception_code) else int(p.exception_code),
-                error=p.error or "",
-                last_good_utc=None if pd.isna(p.last_good_utc) else p.last_good_utc.to_pydatetime(),
-                error_count=int(p.error_count),
-                latency_s=math.nan if pd.isna(p.latency_s) else float(p.latency_s),
-            )
-        sw = sw_by.get(s.snapshot)
-        out.append(
-            (
-                int(s.snapshot),
-                Snapshot(
-                    seq=int(s.seq),
-                    time_utc=s.time_utc.to_pydatetime(),
-                    t_mono=math.nan if pd.isna(s.t_mono) else float(s.t_mono),
-                    meters=blocks,
-                    switches=dict(zip(sw["switch"], sw["state"], strict=True))
-                    if sw is not None
-                    else {},
-                    cycle_s=math.nan if pd.isna(s.cycle_s) else float(s.cycle_s),
-                ),
-            )
-        )
-    return out
 
 
 def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFrame:
@@ -138,7 +49,7 @@ def recheck(dataset_dir: Path, *, progress: Progress | None = None) -> pd.DataFr
     for n, step in enumerate(steps, start=1):
         step_key = None if step is None or (isinstance(step, float) and math.isnan(step)) else step
         try:
-            rebuilt = _snapshots_of_step(folder, step_key, snaps, ds["polls"], ds["switch_states"])
+            rebuilt = snapshots_of_step(folder, step_key, snaps, ds["polls"], ds["switch_states"])
         except (ValueError, KeyError, TypeError, AttributeError, OverflowError) as exc:
             raise bad_dataset(
                 folder,
@@ -222,3 +133,28 @@ def compare_checks(
                 f"{x[i]!r} in the dataset, {y[i]!r} re-checked"
             )
     return diffs
+
+
+ESTIMATE_TABLES = ("meter_gains", "coverage")
+
+
+def recheck_estimate(dataset_dir: Path) -> SessionEstimate:
+    """The session's joint estimate made again from the dataset folder alone (its tables and
+    profile files), as the export made it."""
+    return session_estimate_of(Path(dataset_dir))
+
+
+def compare_estimate(dataset_dir: Path, fresh: SessionEstimate) -> list[str]:
+    """Differences between the exported ``meter_gains`` and ``coverage`` tables and ``fresh``."""
+    ds = load_dataset(Path(dataset_dir), tables=list(ESTIMATE_TABLES))
+    diffs = []
+    for name, rows in (("meter_gains", fresh.gains), ("coverage", fresh.coverage)):
+        frame = ds[name].astype(object).where(ds[name].notna(), None)
+        exported = cast(list[dict[str, object]], frame.to_dict("records"))
+        diffs += compare_rows(name, exported, rows)
+    return diffs
+
+
+def estimate_recorded(dataset_dir: Path) -> bool:
+    """The dataset holds the meter_gains and coverage tables (format 2.1 and later)."""
+    return format_minor(read_package(Path(dataset_dir))) >= ADDED_IN_MINOR["meter_gains"]

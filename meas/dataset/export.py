@@ -33,11 +33,13 @@ from ..journal.sessions import resolve_session
 from ..journal.store import Journal, JournalDamaged
 from ..progress import Progress
 from ..verdict import records_from_log, session_verdict
+from .estimate_tables import session_estimate_of
 from .files import fsync_dir, fsync_file, sha256_of, slug
 from .grid_tables import NETWORK_FILE, write_network
 from .outputs import check_dataset_target
 from .schema import (
     DATA_DIR,
+    FORMAT_MINOR,
     FORMAT_VERSION,
     MAIN_PROFILE,
     PROFILE_DIR,
@@ -249,12 +251,7 @@ def _write_dataset(
             w.close()
         counts = {"measurements": w.rows}
         for name, rows in small_tables(view, journal.profile_dict).items():
-            tw = _TableWriter(data, name)
-            try:
-                tw.write(*to_tables(name, rows))
-            finally:
-                tw.close()
-            counts[name] = tw.rows
+            _write_small(data, name, rows, counts)
     prof_dir = folder / PROFILE_DIR
     prof_dir.mkdir()
     profile_entries = []
@@ -273,10 +270,18 @@ def _write_dataset(
             }
         )
     write_network(journal.profile_files(), folder)
+    # the session estimate reads the tables and profile just written, as `benchwalk check` does
+    est = session_estimate_of(folder)
+    _write_small(data, "meter_gains", est.gains, counts)
+    _write_small(data, "coverage", est.coverage, counts)
     for p in sorted(folder.rglob("*")):
         if p.is_file():
             fsync_file(p)
     pkg = _datapackage(journal, folder, counts, profile_entries)
+    for r in pkg["resources"]:
+        if r["name"] in ("meter_gains", "coverage"):
+            r["description"] = est.description(r["name"])
+    pkg["benchwalk"]["estimate"] = est.summary
     if damage:  # only a salvaged journal's dataset has the key
         pkg["benchwalk"]["journal_damage"] = damage
     (folder / "datapackage.json").write_text(
@@ -285,6 +290,15 @@ def _write_dataset(
     fsync_file(folder / "datapackage.json")
     for d in (data, prof_dir, folder):
         fsync_dir(d)
+
+
+def _write_small(data: Path, name: str, rows: list[dict[str, Any]], counts: dict[str, int]) -> None:
+    tw = _TableWriter(data, name)
+    try:
+        tw.write(*to_tables(name, rows))
+    finally:
+        tw.close()
+    counts[name] = tw.rows
 
 
 def _safe_rel(name: str) -> str:
@@ -341,6 +355,7 @@ def _datapackage(
         "resources": resources,
         "benchwalk": {
             "format": FORMAT_VERSION,
+            "format_minor": FORMAT_MINOR,
             "software": f"benchwalk {__version__}",
             "session": journal.session_id,
             "bench": journal.bench,

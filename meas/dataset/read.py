@@ -27,6 +27,7 @@ from .schema import (
     TABLES,
     arrow_schema,
     column_names,
+    tables_in,
 )
 
 Package = dict[str, Any]  # datapackage.json as read: data from anyone, checked where used
@@ -184,7 +185,7 @@ def verify_dataset(folder: Path) -> Package:
     folder = Path(folder)
     pkg = read_package(folder)
     res = _resources(folder, pkg)
-    for name in TABLES:
+    for name in tables_in(format_minor(pkg)):
         r = res.get(name)
         if r is None:
             raise bad_dataset(folder, f"table {name} is not listed in datapackage.json")
@@ -198,6 +199,17 @@ def verify_dataset(folder: Path) -> Package:
             raise bad_dataset(folder, "profile_files in datapackage.json is malformed")
         _verify_file(folder, entry.get("path"), entry.get("hash"))
     return pkg
+
+
+def format_minor(pkg: Package) -> int:
+    """The package's minor format number (0 for datasets written before minors existed)."""
+    minor = pkg["benchwalk"].get("format_minor", 0)
+    return minor if isinstance(minor, int) and not isinstance(minor, bool) and minor >= 0 else 0
+
+
+def empty_table(name: str) -> pd.DataFrame:
+    """A table an older dataset does not hold: no rows, the schema's columns and types."""
+    return arrow_schema(name).empty_table().to_pandas()
 
 
 def read_table(
@@ -262,7 +274,11 @@ def load_dataset(
         raise bad_dataset(
             folder, f"it is dataset format {fmt!r}; this benchwalk reads format {FORMAT_VERSION}"
         )
-    frames = {name: read_table(folder, name) for name in (tables or TABLES)}
+    held = set(tables_in(format_minor(pkg)))
+    frames = {
+        name: read_table(folder, name) if name in held else empty_table(name)
+        for name in (tables or TABLES)
+    }
     files = {}
     for entry in pkg["benchwalk"].get("profile_files", []):
         p = _member(folder, entry.get("path")) if isinstance(entry, dict) else None

@@ -380,6 +380,91 @@ TABLES: dict[str, TableSpec] = {
         ],
         "primaryKey": ["step", "switches", "meter", "quantity", "phase"],
     },
+    "meter_gains": {
+        "title": "Each meter's voltage and current gain from the session's joint estimate against the network model (empty, with the reason in the resource description, when no estimate could be made)",
+        "columns": [
+            _c("meter", "string", "meter id (joins meters.id)", required=True),
+            _c(
+                "quantity",
+                "string",
+                "voltage or current (a power's gain is their product)",
+                required=True,
+            ),
+            _c(
+                "gain",
+                "number",
+                "estimated gain: what the meter reads over what the network implies; 1 reads true",
+                unit="1",
+            ),
+            _c("u", "number", "standard uncertainty of gain (k = 1)", unit="1"),
+            _c(
+                "class_limit",
+                "number",
+                "the meter's class limit for the quantity as a fraction (0.005 = class 0.5); the estimate's prior is 1 +- class_limit / sqrt 3",
+                unit="1",
+            ),
+            _c(
+                "beyond_class",
+                "boolean",
+                "abs(gain - 1) exceeds class_limit by more than the expanded uncertainty (bench.coverage_k x u)",
+                required=True,
+            ),
+            _c(
+                "basis",
+                "string",
+                "joint fit (every meter's readings, the class prior on every gain) or refit (the meter named with a ratio error, its gain left free)",
+                required=True,
+            ),
+            _c(
+                "cause",
+                "string",
+                "machine-readable cause tag of the finding on this meter and quantity (vt_ratio:1.100, ct_reversed:B, wiring, ambiguous:..., gain); empty when none",
+            ),
+            _c(
+                "message",
+                "string",
+                "one sentence: what the estimate found and what to look at; empty when nothing",
+            ),
+        ],
+        "primaryKey": ["meter", "quantity"],
+        "foreignKeys": [
+            {"fields": ["meter"], "reference": {"resource": "meters", "fields": ["id"]}}
+        ],
+    },
+    "coverage": {
+        "title": "Per meter and error kind: whether the session's captured configurations let the network model detect it, and from what size (empty, with the reason in the resource description, when no estimate could be made)",
+        "columns": [
+            _c("meter", "string", "meter id (joins meters.id)", required=True),
+            _c(
+                "error_kind",
+                "string",
+                "vt_ratio, ct_ratio, ct_reversed:<phase> or phases_swapped:<pair>",
+                required=True,
+            ),
+            _c(
+                "detectable",
+                "boolean",
+                "the session's captures can reveal this error on this meter",
+                required=True,
+            ),
+            _c(
+                "min_factor",
+                "number",
+                "ratio errors: the smallest detectable abs(factor - 1) (0.015 = a ratio off by 1.5 %); empty for the other kinds",
+                unit="1",
+            ),
+            _c(
+                "why_not",
+                "string",
+                "why it cannot be detected (no other reading predicts it, too little current, cannot be told apart from another meter); empty when detectable",
+            ),
+            _c("message", "string", "the estimator's sentence for this meter and error kind"),
+        ],
+        "primaryKey": ["meter", "error_kind"],
+        "foreignKeys": [
+            {"fields": ["meter"], "reference": {"resource": "meters", "fields": ["id"]}}
+        ],
+    },
     "events": {
         "title": "Everything that happened besides readings: operations, notes, timeouts",
         "columns": [
@@ -405,6 +490,17 @@ ARROW_TYPES = {
 
 
 FORMAT_VERSION = 2
+# Additions within a format version raise the minor number (docs/dataset-format.md): a reader
+# of format 2 reads every 2.x dataset; a table added in a minor is absent from older ones.
+FORMAT_MINOR = 1
+ADDED_IN_MINOR = {"meter_gains": 1, "coverage": 1}
+
+
+def tables_in(minor: int) -> list[str]:
+    """The tables a dataset of format 2.``minor`` holds (older datasets lack later additions)."""
+    return [t for t in TABLES if ADDED_IN_MINOR.get(t, 0) <= minor]
+
+
 SIGN_CONVENTION = "positive P and Q = power flowing from the meter's bus into its branch"
 
 
@@ -427,6 +523,7 @@ def arrow_schema(table: str, *, for_csv: bool = False) -> pa.Schema:
         "benchwalk:table": table,
         "benchwalk:title": spec["title"],
         "benchwalk:format": str(FORMAT_VERSION),
+        "benchwalk:format_minor": str(FORMAT_MINOR),
         "benchwalk:sign_convention": SIGN_CONVENTION,
     }
     if "primaryKey" in spec:

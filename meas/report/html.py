@@ -13,6 +13,7 @@ import pandas as pd
 from ..cautions import REPORT_CAUTION as CAUTION
 from .charts import balance_svg
 from .fault_section import fault_html
+from .model_section import model_html
 from .names import check_name
 from .phasor_svg import phasor_figures
 from .rows import (
@@ -54,6 +55,12 @@ td.num{text-align:right;font-variant-numeric:tabular-nums}
 tr,svg,.verdict,.meta,.fig{break-inside:avoid}thead{display:table-header-group}}
 .findings td:nth-child(6){width:34%}.findings td:nth-child(2){width:16%}
 .phases{font-size:11px}
+.model{margin-bottom:1.2rem}.model h2{margin-top:1rem}.model .lead{margin:.2rem 0 .4rem}
+table.coverage{font-size:11px}table.coverage td{white-space:nowrap}table.coverage td:nth-child(2),table.coverage td:nth-child(3){white-space:nowrap;font-variant-numeric:tabular-nums}
+table.coverage tr.sub th{font-weight:normal;font-style:italic;background:#f6f5f1}
+.causes{margin:.2rem 0 .5rem;padding-left:1.2rem}.causes li{color:#b3261e;font-weight:bold}
+.small{font-size:12px;color:#333}.unverified{font-size:12px;margin:.2rem 0;padding-left:1.2rem}
+@media print{.model h2{margin-top:.4rem}table.coverage{font-size:8.5pt}.unverified,.small{font-size:8.5pt}}
 """
 
 # A4 pages, page numbers and a running header; the header text is set per report
@@ -362,6 +369,7 @@ def render_html(rd: ReportData) -> str:
         f"<h1>Commissioning report<br><small>{_e(meta['bench'])}</small></h1>",
         f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>',
     ]
+    out += model_html(rd)
     out += _cover(rd)
     out += _instruments(rd)
     out += _sequence(rd)

@@ -7,6 +7,7 @@ from collections.abc import Sequence
 from ..cautions import REPORT_CAUTION as CAUTION
 from .fault_section import fault_markdown
 from .html import _time
+from .model_section import model_markdown
 from .names import check_name
 from .rows import (
     KEY_READINGS,
@@ -43,6 +44,7 @@ def render_markdown(rd: ReportData) -> str:
         "",
         f"> **Caution.** {CAUTION}",
         "",
+        *model_markdown(rd),
         f"- Session: {meta.get('session')}",
         f"- Operator: {meta.get('operator')}",
         f"- Session started (UTC): {meta.get('session_started_utc')}",

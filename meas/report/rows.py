@@ -7,7 +7,7 @@ renderers walk, as the dataset schema defines their columns.
 from __future__ import annotations
 
 from collections.abc import Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Protocol, cast
 
@@ -59,6 +59,9 @@ class ReportData:
     phases: pd.DataFrame  # step, meter, key ("i.B") -> median over the captures
     profile: Profile | None  # the profile as the dataset keeps it (cover facts, serials)
     fault: dict[str, Any] | None = None  # a staged-fault summary inside the dataset folder
+    # the session's joint estimate against the network model (empty in older datasets)
+    gains: pd.DataFrame = field(default_factory=pd.DataFrame)  # the meter_gains table
+    coverage: pd.DataFrame = field(default_factory=pd.DataFrame)  # the coverage table
 
 
 def report_verdict(ds: Dataset) -> Verdict:
@@ -176,7 +179,17 @@ def gather(dataset_dir: Path) -> ReportData:
     """The figures the report shows, computed from the dataset tables."""
     ds = load_dataset(
         dataset_dir,
-        tables=["snapshots", "steps", "checks", "meters", "topology", "events", "step_log"],
+        tables=[
+            "snapshots",
+            "steps",
+            "checks",
+            "meters",
+            "topology",
+            "events",
+            "step_log",
+            "meter_gains",
+            "coverage",
+        ],
     )
     m = read_table(
         ds.path,
@@ -275,6 +288,8 @@ def gather(dataset_dir: Path) -> ReportData:
         phases,
         kept_profile(ds),
         read_fault_summary(Path(dataset_dir)),
+        ds["meter_gains"],
+        ds["coverage"],
     )
 
 

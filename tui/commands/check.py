@@ -12,7 +12,13 @@ from pathlib import Path
 from rich.table import Table
 
 from meas.dataset.read import load_dataset
-from meas.recheck import compare_checks, recheck
+from meas.recheck import (
+    compare_checks,
+    compare_estimate,
+    estimate_recorded,
+    recheck,
+    recheck_estimate,
+)
 
 from .output import add_json, console, emit_json
 from .progress import terminal_progress
@@ -39,6 +45,9 @@ def main(args: argparse.Namespace) -> int:
     counts = fresh.groupby(["check_id", "status"]).size().unstack(fill_value=0)
     failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check_id", "subject", "message"])
     diffs = compare_checks(exported, fresh)
+    recorded = estimate_recorded(args.dataset)
+    est = recheck_estimate(args.dataset) if recorded else None
+    est_diffs = compare_estimate(args.dataset, est) if est is not None else []
     if getattr(args, "json", False):
         emit_json(
             {
@@ -59,6 +68,8 @@ def main(args: argparse.Namespace) -> int:
                 "reproduces": not diffs,
                 "results": len(fresh),
                 "differences": diffs,
+                "estimate_reproduces": (not est_diffs) if recorded else None,
+                "estimate_differences": est_diffs,
             }
         )
         return 1 if len(failed) else 0
@@ -83,5 +94,24 @@ def main(args: argparse.Namespace) -> int:
     else:
         out.print(
             f"the re-check reproduces the exported checks table: {len(fresh)} results identical"
+        )
+    if est_diffs:
+        out.print(
+            f"[yellow]the re-check does NOT reproduce the meter_gains and coverage tables ({len(est_diffs)} differences):[/yellow]"
+        )
+        for d in est_diffs[:20]:
+            out.print(f"  {d}", highlight=False, markup=False)
+    elif est is None:
+        out.print(
+            "the dataset predates the meter_gains and coverage tables (format 2.0): not compared",
+            highlight=False,
+            markup=False,
+        )
+    else:
+        why = f" (both empty: {est.reason})" if est.reason else ""
+        out.print(
+            f"the re-check reproduces the meter_gains and coverage tables{why}",
+            highlight=False,
+            markup=False,
         )
     return 1 if len(failed) else 0
