@@ -14,6 +14,7 @@ from meas.errors import Problem
 from meas.model import Profile
 from meas.profile import check_profile, locate_keys
 from meas.walk.sequence import sequence_problems
+from meas.walk.solvable import load_flow_problems
 
 from .output import add_json, emit_json
 
@@ -29,7 +30,9 @@ def main(args: argparse.Namespace) -> int:
     profile, problems = check_profile(args.profile)
     if profile is not None:
         # the walk as a whole, as run, demo and resume check it before they start
-        problems = [_located(profile, p) for p in sequence_problems(profile)]
+        # and the network model's load flow, as sim and demo solve it at every step
+        found = sequence_problems(profile) or load_flow_problems(profile)
+        problems = [p if p.path == "model" else _located(profile, p) for p in found]
         if problems:
             profile = None
     if getattr(args, "json", False):
