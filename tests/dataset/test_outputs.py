@@ -177,7 +177,8 @@ def test_check_dataset_target_refuses_a_symlink(journal, tmp_path):
 @pytest.mark.slow
 def test_resume_after_an_interrupted_export_writes_the_dataset_again(tmp_path):
     """A demo whose export was cut short (no report, a killed export's partial folder left):
-    resuming the finished session exports again over its own dataset and cleans up."""
+    resuming the finished session with --reexport (a finished session is never exported again
+    silently) exports again over its own dataset and cleans up."""
     from support.benches import write_fast_demo
 
     profile = write_fast_demo(tmp_path / "bench")
@@ -198,7 +199,8 @@ def test_resume_after_an_interrupted_export_writes_the_dataset_again(tmp_path):
     (out / f".dataset.partial-{dead.pid}" / "data").mkdir(parents=True)
     journal = next(sessions.glob("*.sqlite"))
     r = subprocess.run(
-        [sys.executable, "-m", "tui.cli", "resume", str(journal), "--headless", "--out", str(out)],
+        [sys.executable, "-m", "tui.cli", "resume", str(journal), "--headless", "--reexport"]
+        + ["--out", str(out)],
         cwd=ROOT,
         capture_output=True,
         text=True,
