@@ -96,13 +96,17 @@ def _two_port_builder(br: Branch, prm: list[tuple[int, ModelParameter]]) -> TwoP
     params = br.model
     assert br.to_bus is not None and params is not None
 
+    fields = [(_rel_key(mp.key), mp.scale == "absolute") for _, mp in prm]
+    bases = [getattr(params, f) for f, _ in fields]
+
     def with_values(pv: np.ndarray) -> object:
-        changes: dict[str, float] = {}
-        for j, (_, mp) in enumerate(prm):
-            field_ = _rel_key(mp.key)
-            base = getattr(params, field_)
-            changes[field_] = float(pv[j]) if mp.scale == "absolute" else base * float(pv[j])
-        return replace(params, **changes)  # type: ignore[arg-type]
+        # a copy with the fields set (the values ``dataclasses.replace`` would give; this runs
+        # at every iteration of every fit, and replace's checks cost as much as the builder)
+        out = object.__new__(type(params))
+        out.__dict__.update(params.__dict__)
+        for j, ((field_, absolute), base) in enumerate(zip(fields, bases, strict=True)):
+            object.__setattr__(out, field_, float(pv[j]) if absolute else base * float(pv[j]))
+        return out
 
     if isinstance(params, LineParams):
 

@@ -71,6 +71,9 @@ class StepPlan:
     need_angles: bool
     par_cols: IArray  # shared columns the elements depend on (model parameters), sorted
     par_pos: dict[int, int]  # shared column -> its place among ``par_cols``
+    tp_dterm: IArray  # per two-port parameter: the term, its place in the term, its column
+    tp_dparam: IArray
+    tp_dcol: IArray
 
 
 def _current_matrix(terms: list[tuple[Current, FArray | None]], p: int, base: list[int]) -> FArray:
@@ -142,10 +145,14 @@ def build_plan(step: StepModel) -> StepPlan:
         need_angles=bool(p == 3 and np.any(np.isin(codes, (IANG, VANG)))),
         par_cols=np.array(par, np.int64),
         par_pos={c: k for k, c in enumerate(par)},
+        tp_dterm=np.array([k for k, t in enumerate(step.two_ports) for _ in t.params], np.int64),
+        tp_dparam=np.array([j for t in step.two_ports for j in range(len(t.params))], np.int64),
+        tp_dcol=np.array([par.index(c) for t in step.two_ports for c in t.params], np.int64),
     )
 
 
 _PLANS: dict[int, tuple[StepModel, StepPlan]] = {}
+_NONE = np.zeros(0)
 
 
 def plan_of(step: StepModel) -> StepPlan:
@@ -179,19 +186,19 @@ def currents(
     if step.two_ports:
         ys, dys = [], []
         for t in step.two_ports:
-            pv = shared[list(t.params)] if t.params else np.zeros(0)
+            pv = shared[list(t.params)] if t.params else _NONE
             y, dy = admittance(t, pv, derivs)
             ys.append(y)
             dys.append(dy)
         yst = np.array(ys)
         vt = v[pl.tp_nodes]
-        parts.append(np.einsum("tab,tb->ta", yst, vt).reshape(-1))
+        parts.append((yst @ vt[..., None]).reshape(-1))
         if derivs:
             d = np.zeros((len(ys), 2 * p, nc), complex)
             d[:, :, ns:] = yst @ tc[pl.tp_nodes]
-            for k, t in enumerate(step.two_ports):
-                for j, col in enumerate(t.params):
-                    d[k, :, pl.par_pos[col]] = dys[k][j] @ vt[k]
+            if len(pl.tp_dterm):
+                dy = np.array([dys[k][j] for k, j in zip(pl.tp_dterm, pl.tp_dparam, strict=True)])
+                d[pl.tp_dterm, :, pl.tp_dcol] = (dy @ vt[pl.tp_dterm][..., None])[..., 0]
             dparts.append(d.reshape(-1, nc))
     if step.loads:
         vl = v[pl.ld_nodes]

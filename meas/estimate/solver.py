@@ -84,7 +84,7 @@ def _smooth(step: StepModel) -> StepModel:
     return replace(step, meters=tuple(out))
 
 
-START_REL = 1e-4  # a start needs no more: the final pass converges to 1e-7 from it
+START_REL = 1e-4  # per-step starts of a joint fit need no more: the joint pass converges to 1e-7
 
 
 def solve(
@@ -120,8 +120,10 @@ def solve(
             x[: lay.ns] = np.mean(shared, axis=0)
     elif x0 is None:
         x = initial(lay, steps, np.array([p.mean for p in priors], float))
+        # to the caller's tolerance: the final pass lands where it lands from this start, and
+        # the check engine's golden results hold to 1e-4 (a looser start moved some by 5e-4)
         first = solve(
-            [_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x, rel=START_REL
+            [_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x, rel=rel
         )
         if np.all(np.isfinite(first.x)):
             x = first.x
