@@ -276,7 +276,10 @@ def _ties(ts: Tests) -> list[list[str]]:
     onehot = np.zeros((len(mi), len(meters)))
     onehot[np.arange(len(mi)), mi] = 1.0
     hit = (mask.astype(float) @ onehot) > 0
-    return [[meters[k] for k in np.nonzero(row)[0]] for row in hit]
+    out: list[list[str]] = [[] for _ in ts.hyps]
+    for h, k in zip(*np.nonzero(hit), strict=True):
+        out[h].append(meters[k])  # row-major: each row's meters in sorted order
+    return out
 
 
 def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:

@@ -99,8 +99,8 @@ def tests(
     """
     memo_key = ("tests", tuple(id(st) for st in steps), id(gains))
     hit = fit.memo.get(memo_key)
-    if hit is not None:
-        return hit  # type: ignore[no-any-return]
+    if isinstance(hit, Tests):
+        return hit
     out = _tests(fit, steps, gains)
     fit.memo[memo_key] = out
     return out
@@ -147,8 +147,8 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         keep = np.isin(pl.meter_of_row, with_current)
         lo = int(starts[k])
         rr = r[lo : lo + len(base)]
-        names = [mt.name for mt in st.meters]
-        for kind, arg in _FLIPS:
+        first = np.array([col_of.get((mt.name, *_FLIPS[0]), -1) for mt in st.meters])
+        for fk, (kind, arg) in enumerate(_FLIPS):
             d = measured(pl, v, _flip(i, kind, arg), shared) - base
             a = pl.angle
             w = d[a] - 2 * math.pi * np.round(d[a] / (2 * math.pi))
@@ -156,7 +156,7 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
             w[half] = math.pi * np.where(rr[a][half] >= 0, 1.0, -1.0)
             d[a] = w
             idx = np.nonzero(keep)[0]
-            hcol = np.array([col_of[(names[mi], kind, arg)] for mi in pl.meter_of_row[idx]])
+            hcol = first[pl.meter_of_row[idx]] + fk  # a meter's six flips are adjacent
             rows.append(lo + idx)
             cols.append(hcol)
             vals.append(d[idx] / pl.sigma[idx])

@@ -71,6 +71,8 @@ class StepPlan:
     need_angles: bool
     par_cols: IArray  # shared columns the elements depend on (model parameters), sorted
     par_pos: dict[int, int]  # shared column -> its place among ``par_cols``
+    ld_kp_col: IArray  # (L,) compact column of the P multiplier (any value where none)
+    ld_kq_col: IArray
     tp_dterm: IArray  # per two-port parameter: the term, its place in the term, its column
     tp_dparam: IArray
     tp_dcol: IArray
@@ -145,6 +147,8 @@ def build_plan(step: StepModel) -> StepPlan:
         need_angles=bool(p == 3 and np.any(np.isin(codes, (IANG, VANG)))),
         par_cols=np.array(par, np.int64),
         par_pos={c: k for k, c in enumerate(par)},
+        ld_kp_col=np.array([par.index(x.kp) if x.kp >= 0 else 0 for x in ld], np.int64),
+        ld_kq_col=np.array([par.index(x.kq) if x.kq >= 0 else 0 for x in ld], np.int64),
         tp_dterm=np.array([k for k, t in enumerate(step.two_ports) for _ in t.params], np.int64),
         tp_dparam=np.array([j for t in step.two_ports for j in range(len(t.params))], np.int64),
         tp_dcol=np.array([par.index(c) for t in step.two_ports for c in t.params], np.int64),
@@ -197,14 +201,14 @@ def currents(
             d = np.zeros((len(ys), 2 * p, nc), complex)
             d[:, :, ns:] = yst @ tc[pl.tp_nodes]
             if len(pl.tp_dterm):
-                dy = np.array([dys[k][j] for k, j in zip(pl.tp_dterm, pl.tp_dparam, strict=True)])
-                d[pl.tp_dterm, :, pl.tp_dcol] = (dy @ vt[pl.tp_dterm][..., None])[..., 0]
+                dyt = np.array([dys[k][j] for k, j in zip(pl.tp_dterm, pl.tp_dparam, strict=True)])
+                d[pl.tp_dterm, :, pl.tp_dcol] = (dyt @ vt[pl.tp_dterm][..., None])[..., 0]
             dparts.append(d.reshape(-1, nc))
     if step.loads:
         vl = v[pl.ld_nodes]
         m = np.abs(vl)
         r = m / pl.ld_vn
-        sh1 = np.r_[shared, 1.0]
+        sh1 = np.append(shared, 1.0)
         kp = sh1[pl.ld_kp][:, None]
         kq = sh1[pl.ld_kq][:, None]
         zp, zq = pl.ld_zp, pl.ld_zq
@@ -212,7 +216,7 @@ def currents(
         qr = zq[:, 0] * r * r + zq[:, 1] * r + zq[:, 2]
         s = kp * pr + 1j * kq * qr
         cv = np.conj(vl)
-        parts.append((np.conj(s) / cv).reshape(-1))
+        parts.append(np.asarray(np.conj(s) / cv, complex).reshape(-1))
         if derivs:
             ds = (kp * (2 * zp[:, 0] * r + zp[:, 1]) + 1j * kq * (2 * zq[:, 0] * r + zq[:, 1])) / (
                 pl.ld_vn
@@ -221,11 +225,12 @@ def currents(
             dvl[..., ns:] = tc[pl.ld_nodes]
             dm = (cv[..., None] * dvl).real / m[..., None]
             d = (np.conj(ds) / cv)[..., None] * dm - (np.conj(s) / cv**2)[..., None] * np.conj(dvl)
-            for k in range(len(step.loads)):
-                if pl.ld_kp[k] >= 0:
-                    d[k, :, pl.par_pos[int(pl.ld_kp[k])]] += pr[k] / cv[k]
-                if pl.ld_kq[k] >= 0:
-                    d[k, :, pl.par_pos[int(pl.ld_kq[k])]] += -1j * qr[k] / cv[k]
+            rk = pl.ld_kp >= 0
+            if rk.any():
+                d[rk, :, pl.ld_kp_col[rk]] += pr[rk] / cv[rk]
+            rk = pl.ld_kq >= 0
+            if rk.any():
+                d[rk, :, pl.ld_kq_col[rk]] += -1j * qr[rk] / cv[rk]
             dparts.append(d.reshape(-1, nc))
     cur = np.concatenate(parts) if parts else np.zeros(0, complex)
     if not derivs:
@@ -268,10 +273,10 @@ def all_slots(
         if ds is None:
             return f, None
         assert dvm is not None and dim is not None
-        df = np.stack([dvm[:, 0], dim[:, 0], ds.real[:, 0], ds.imag[:, 0]], axis=1)
-        return f, df
+        df1 = np.stack([dvm[:, 0], dim[:, 0], ds.real[:, 0], ds.imag[:, 0]], axis=1)
+        return f, df1
     f = np.zeros((mm, 22))
-    df = None if ds is None else np.zeros((mm, 22, ds.shape[-1]))
+    df: FArray | None = None if ds is None else np.zeros((mm, 22, ds.shape[-1]))
     f[:, 0:3] = vm
     f[:, 6:9] = im
     f[:, 9:12] = s.real
@@ -302,7 +307,7 @@ def all_slots(
 
 
 def _gains(pl: StepPlan, shared: FArray) -> tuple[FArray, FArray, FArray]:
-    sh1 = np.r_[shared, 1.0]
+    sh1 = np.append(shared, 1.0)
     gv, gi = sh1[pl.gv], sh1[pl.gi]
     table = np.stack([gv, gi, gv * gi, np.ones_like(gv)])
     return table[pl.kind, np.arange(len(pl.kind))], gv, gi

@@ -60,31 +60,6 @@ def gain_std(meter: Meter) -> tuple[float, float]:
     return v, i
 
 
-def mean_readings(
-    meter: str, snaps: Sequence[Snapshot]
-) -> tuple[dict[str, float], dict[str, float]]:
-    """Mean of every ok reading over the capture and its repeatability (std of the mean).
-
-    A reading counts only if it is ok in every snapshot of the capture.
-    """
-    blocks = [s.meters.get(meter) for s in snaps]
-    if not blocks or any(b is None for b in blocks):
-        return {}, {}
-    keys = sorted(blocks[0].values) if blocks[0] is not None else []
-    arr = np.array([[b.get(k) for k in keys] for b in blocks if b is not None], float)
-    ok = ~np.isnan(arr).any(axis=0)
-    ang = np.array([split_key(k)[0] in ("i_ang", "v_ang") for k in keys], bool)
-    if ang.any():
-        ref = arr[0, ang]
-        arr[:, ang] = ref + (np.mod(arr[:, ang] - ref + 180.0, 360.0) - 180.0)
-    n = arr.shape[0]
-    mean = arr.mean(axis=0)
-    rep = arr.std(axis=0, ddof=1) / math.sqrt(n) if n > 1 else np.zeros(len(keys))
-    means = {k: float(mean[j]) for j, k in enumerate(keys) if ok[j]}
-    reps = {k: float(rep[j]) for j, k in enumerate(keys) if ok[j]}
-    return means, reps
-
-
 _SLOT_KEYS = (
     "v_ln.A", "v_ln.B", "v_ln.C", "v_ll.AB", "v_ll.BC", "v_ll.CA", "i.A", "i.B", "i.C",
     "p.A", "p.B", "p.C", "q.A", "q.B", "q.C", "p.T", "q.T",
@@ -110,9 +85,10 @@ class _Recipe:
 
 
 class ReadingStd:
-    """``reading_std`` for all readings of a step at once: class specs, rated values, register
+    """Standard uncertainty of each reading beyond the meter's gains (the module docstring's
+    rules), for all readings of a step at once: class specs, rated values, register
     resolutions and who-depends-on-what are looked up once per meter and key list; each
-    capture is then arithmetic on arrays (same rules, same numbers)."""
+    capture is then arithmetic on arrays."""
 
     def __init__(self, profile: Profile):
         self.profile = profile
@@ -156,7 +132,7 @@ class ReadingStd:
     def __call__(
         self, meter: Meter, keys: Sequence[str], vals: Mapping[str, float], reps: FArray
     ) -> FArray:
-        """The standard uncertainty of each of ``keys`` (same rules as ``reading_std``)."""
+        """The standard uncertainty of each of ``keys`` of one meter."""
         return self.many([(meter, keys, vals, reps)])[0]
 
     def many(
@@ -241,7 +217,12 @@ class ReadingStd:
 def capture_means(
     meters: Sequence[str], snaps: Sequence[Snapshot], keys: Sequence[str] = _SLOT_KEYS
 ) -> tuple[dict[str, dict[str, float]], dict[str, dict[str, float]]]:
-    """``mean_readings`` of every meter at once, for ``keys`` only (what the estimator reads)."""
+    """Per meter, the mean of every ok reading of ``keys`` over the capture and its
+    repeatability (the standard deviation of the mean); all meters at once.
+
+    A reading counts only if it is ok in every snapshot of the capture; angles are averaged
+    about the first snapshot's value (no jump at ±180°).
+    """
     nan, ok_q = math.nan, Quality.OK
     ang = np.array([split_key(k)[0] in ("i_ang", "v_ang") for k in keys], bool)
     present = [m for m in meters if all(s.meters.get(m) is not None for s in snaps)]
@@ -266,49 +247,8 @@ def capture_means(
     mean = arr.mean(axis=0)
     rep = arr.std(axis=0, ddof=1) / math.sqrt(n) if n > 1 else np.zeros(mean.shape)
     for j, m in enumerate(present):
-        idx = np.nonzero(ok[j])[0]
+        idx: list[int] = np.nonzero(ok[j])[0].tolist()
         mj, rj = mean[j].tolist(), rep[j].tolist()
         values[m] = {keys[t]: mj[t] for t in idx}
         reps[m] = {keys[t]: rj[t] for t in idx}
     return values, reps
-
-
-def reading_std(
-    profile: Profile, meter: Meter, key: str, vals: Mapping[str, float], rep: float
-) -> float:
-    """Standard uncertainty of one reading beyond the meter's gains (see the module docstring)."""
-    q, ph = split_key(key)
-    v_n, i_n = rated(profile, meter)
-    try:
-        spec_reg = profile.meter_map(meter.id).spec(key)
-        res = float(
-            resolution_limit(
-                spec_reg.scale * ratio(meter, key), vals[key], spec_reg.dtype.startswith("float")
-            )
-        )
-    except KeyError:
-        res = 0.0
-    if q in ("i_ang", "v_ang"):
-        u_deg = ANGLE_U_DEG
-        if q == "i_ang":
-            i = abs(vals.get(f"i.{ph}", math.nan))
-            u_i = float(magnitude_limit(class_spec("i", meter.classes.i), i, i_n)) / SQRT3
-            u_deg = max(u_deg, math.degrees(u_i / i) if i > 0 else 180.0)
-        return math.radians(math.hypot(u_deg, rep))
-    kind = _CLASS_OF[q]
-    spec = class_spec(kind, getattr(meter.classes, kind))
-    x = vals[key]
-    if kind == "v":
-        a = float(magnitude_limit(spec, x, v_n * (SQRT3 if q == "v_ll" else 1.0)))
-    elif kind == "i":
-        a = float(magnitude_limit(spec, x, i_n))
-    else:
-        n = 3.0 if ph == "T" else 1.0
-        if ph == "T":
-            s_abs = math.hypot(vals.get("p.T", 0.0), vals.get("q.T", 0.0))
-            i = float(np.nanmean([vals.get(f"i.{p}", math.nan) for p in "ABC"]))
-        else:
-            s_abs = math.hypot(vals.get(f"p.{ph}", 0.0), vals.get(f"q.{ph}", 0.0))
-            i = vals.get(f"i.{ph}", math.nan)
-        a = float(power_limit(spec, x, s_abs, i / i_n, n * v_n * i_n, reactive=kind == "q"))
-    return math.sqrt((PER_READING_SHARE * a / SQRT3) ** 2 + (res / SQRT3) ** 2 + rep**2)
