@@ -7,8 +7,9 @@ state, in units of each node's nominal magnitude), two-port currents ``Y(θ) v``
 currents and meter readings with a voltage gain and a current gain.
 
 Two-port admittance derivatives with respect to their parameters are forward differences of
-the element builders (``meas.network.elements``), the one owner of those formulas. The solve
-is ``meas.estimate.solver``.
+the element builders (``meas.network.elements``), the one owner of those formulas. A step's
+readings and Jacobian are evaluated as arrays by ``meas.estimate.plan``; the solve is
+``meas.estimate.solver``.
 """
 
 from __future__ import annotations
