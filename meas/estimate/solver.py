@@ -65,10 +65,12 @@ def _assemble(
         b[:ns] += c[:ns]
         b[off:e] += c[ns:]
         cost += float(ev.r @ ev.r)
-    pr = np.array([(pp.mean - x[k]) / pp.std for k, pp in enumerate(priors)])
-    for k, pp in enumerate(priors):
-        g[k, k] += 1.0 / pp.std**2
-        b[k] += pr[k] / pp.std
+    k = len(priors)
+    mean = np.fromiter((pp.mean for pp in priors), float, k)
+    std = np.fromiter((pp.std for pp in priors), float, k)
+    pr = (mean - x[:k]) / std
+    g[np.arange(k), np.arange(k)] += 1.0 / std**2
+    b[:k] += pr / std
     cost += float(pr @ pr) if len(pr) else 0.0
     return cost, g, b, pr
 
