@@ -10,7 +10,8 @@ class-consistent readings, no fault):
 - a joint session: 15 steps of the demo sequence (its 12 capturing steps, then the first three
   loaded ones again), 8 meters, every step a 3-snapshot capture.
 Targets (issue 11): <= 20 ms per capture at 32 meters, <= 0.5 s per 15-step session.
-Medians of N runs, with the solver's iterations. Sets OPENBLAS_NUM_THREADS=1 (BLAS threads
+Medians of N runs, each on a fresh capture, with the solver's iterations (``--cpu``: CPU time
+of this process instead of wall time). Sets OPENBLAS_NUM_THREADS=1 (BLAS threads
 oversubscribe a shared machine and slow small dense algebra many times; see bench_solver).
 """
 
@@ -54,38 +55,48 @@ def widened(profile: Profile, times: int) -> Profile:
     return dataclasses.replace(profile, meters=tuple(meters))
 
 
-def _time(fn, repeat: int) -> tuple[float, object]:
+def _time(fns: list, clock=time.perf_counter) -> tuple[float, object]:
     out = None
     times = []
-    for _ in range(repeat):
-        t = time.perf_counter()
+    for fn in fns:
+        t = clock()
         out = fn()
-        times.append(time.perf_counter() - t)
+        times.append(clock() - t)
     return statistics.median(times), out
 
 
-def figures(repeat: int = 7) -> list[tuple[str, float, float, int]]:
-    """(case, median seconds, target seconds, iterations)."""
+def figures(repeat: int = 7, clock=time.perf_counter) -> list[tuple[str, float, float, int]]:
+    """(case, median seconds, target seconds, iterations).
+
+    Every repetition estimates a fresh capture (its own noise seed): the estimator memoizes
+    element admittances by parameter value, so the same capture twice would time a warm path
+    no real capture takes.
+    """
     base = demo()
     rows = []
     for times, label in ((1, "8 meters"), (4, "32 meters")):
         prof = widened(base, times)
         true = as_built(prof, 11)
         gains = meter_gains(prof, 11)
-        snaps = capture(true, STATE, (), np.random.default_rng(11), gains)
+        caps = [
+            capture(true, STATE, (), np.random.default_rng(11 + k), gains)
+            for k in range(repeat + 1)
+        ]
         est = Estimator(prof)
-        est.run([snaps])  # warm the per-profile caches
-        t, e = _time(lambda est=est, snaps=snaps: est.run([snaps]), repeat)
+        est.run([caps[-1]])  # warm the per-profile caches (topology, weights)
+        t, e = _time([lambda est=est, c=c: est.run([c]) for c in caps[:-1]], clock)
         rows.append((f"one capture, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
     true = as_built(base, 11)
     gains = meter_gains(base, 11)
-    rng = np.random.default_rng(12)
     states = [st for _, st in sequence_states(base)]
     states = (states + states[3:6])[:15]
-    caps = [capture(true, st, (), rng, gains) for st in states]
+    sessions = []
+    for k in range(max(1, repeat // 2) + 1):
+        rng = np.random.default_rng(12 + k)
+        sessions.append([capture(true, st, (), rng, gains) for st in states])
     est = Estimator(base)
-    est.run(caps)
-    t, e = _time(lambda: est.run(caps), max(1, repeat // 2))
+    est.run(sessions[-1])
+    t, e = _time([lambda c=c: est.run(c) for c in sessions[:-1]], clock)
     rows.append(("joint session, 15 steps, 8 meters", t, 0.5, e.iterations))  # type: ignore[union-attr]
     return rows
 
@@ -93,9 +104,15 @@ def figures(repeat: int = 7) -> list[tuple[str, float, float, int]]:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=7)
+    ap.add_argument(
+        "--cpu",
+        action="store_true",
+        help="time with the process's CPU clock (a shared machine's load inflates wall time)",
+    )
     args = ap.parse_args()
+    clock = time.process_time if args.cpu else time.perf_counter
     print(f"{'case':40} {'median':>10} {'target':>10} {'ratio':>7} {'iter':>5}")
-    for case, t, target, it in figures(args.repeat):
+    for case, t, target, it in figures(args.repeat, clock):
         print(f"{case:40} {t * 1e3:8.1f} ms {target * 1e3:7.0f} ms {t / target:7.2f} {it:5d}")
 
 

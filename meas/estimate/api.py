@@ -16,7 +16,7 @@ from .core import StepModel
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
-from .solver import Fit, omega_diag, solve
+from .solver import Fit, omega_prior, solve
 
 CHI2_P = 0.99
 MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
@@ -264,20 +264,31 @@ def _parameters(fit: Fit, pr: Problem) -> tuple[ParameterEstimate, ...]:
     return tuple(out)
 
 
+def _ties(ts: Tests) -> list[list[str]]:
+    """Per hypothesis, the other meters with a hypothesis it cannot be told apart from."""
+    if not ts.hyps:
+        return []
+    meters = sorted({hy.meter for hy in ts.hyps})
+    mi = np.array([meters.index(hy.meter) for hy in ts.hyps])
+    dq = np.diag(ts.q)
+    close = np.abs(ts.q) >= TIE_RHO * np.sqrt(np.maximum(np.outer(dq, dq), 1e-300))
+    mask = close & (dq > CRITICAL * ts.bb)[None, :] & (mi[:, None] != mi[None, :])
+    onehot = np.zeros((len(mi), len(meters)))
+    onehot[np.arange(len(mi)), mi] = 1.0
+    hit = (mask.astype(float) @ onehot) > 0
+    out: list[list[str]] = [[] for _ in ts.hyps]
+    for h, k in zip(*np.nonzero(hit), strict=True):
+        out[h].append(meters[k])  # row-major: each row's meters in sorted order
+    return out
+
+
 def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
-    _, om_prior = omega_diag(fit)
+    om_prior = omega_prior(fit)
+    ties = _ties(ts)
     out = []
     for h, hy in enumerate(ts.hyps):
         label = _label(hy.kind, hy.arg)
-        tied = sorted(
-            {
-                ts.hyps[g].meter
-                for g in range(len(ts.hyps))
-                if ts.hyps[g].meter != hy.meter
-                and abs(ts.q[h, g]) >= TIE_RHO * math.sqrt(max(ts.q[h, h] * ts.q[g, g], 1e-300))
-                and ts.q[g, g] > CRITICAL * ts.bb[g]
-            }
-        )
+        tied = ties[h]
         name = f"{hy.meter} {_NAMES[hy.kind]}" + (f" {hy.arg}" if hy.arg else "")
         if hy.kind in ("vt_ratio", "ct_ratio"):
             gi = ts.gain_index[(hy.meter, "v" if hy.kind == "vt_ratio" else "i")]

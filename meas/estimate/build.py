@@ -22,7 +22,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ..model import Branch, LineParams, LoadParams, Profile, ShuntParams, TransformerParams
+from ..model import Branch, LineParams, LoadParams, Meter, Profile, ShuntParams, TransformerParams
 from ..network.elements import (
     bus_nominal_phase_voltage,
     line_admittance,
@@ -44,7 +44,7 @@ from .core import (
     TwoPortTerm,
     slot_keys,
 )
-from .weights import ANGLE_MIN_FRAC, gain_std, mean_readings, rated, reading_std
+from .weights import ANGLE_MIN_FRAC, ReadingStd, capture_means, gain_std, rated
 
 KCL_SHARE = 1e-4  # Kirchhoff rows: sigma = this share of the bench's base current (our rule)
 SLOTS = slot_keys(3)
@@ -76,6 +76,18 @@ class Problem:
     captures: list[int] = field(default_factory=list)  # step -> index of its capture
 
 
+@dataclass(frozen=True)
+class _Topology:
+    """What a switch state decides: live nodes, element terms, Kirchhoff buses, flat start."""
+
+    model: StepModel  # without meters
+    node: dict[str, int]  # live bus -> first node
+    on: dict[str, bool]  # branch conducts and is live
+    where: dict[str, tuple[str, int]]  # modelled branch -> ("t"|"l", term index)
+    free: dict[str, list[str]]  # bus -> free injections on it
+    at_bus: dict[str, list[tuple[str, int, int]]]
+
+
 def _rel_key(key: str) -> str:
     return key.removesuffix("_per_km")
 
@@ -84,13 +96,17 @@ def _two_port_builder(br: Branch, prm: list[tuple[int, ModelParameter]]) -> TwoP
     params = br.model
     assert br.to_bus is not None and params is not None
 
+    fields = [(_rel_key(mp.key), mp.scale == "absolute") for _, mp in prm]
+    bases = [getattr(params, f) for f, _ in fields]
+
     def with_values(pv: np.ndarray) -> object:
-        changes: dict[str, float] = {}
-        for j, (_, mp) in enumerate(prm):
-            field_ = _rel_key(mp.key)
-            base = getattr(params, field_)
-            changes[field_] = float(pv[j]) if mp.scale == "absolute" else base * float(pv[j])
-        return replace(params, **changes)  # type: ignore[arg-type]
+        # a copy with the fields set (the values ``dataclasses.replace`` would give; this runs
+        # at every iteration of every fit, and replace's checks cost as much as the builder)
+        out = object.__new__(type(params))
+        out.__dict__.update(params.__dict__)
+        for j, ((field_, absolute), base) in enumerate(zip(fields, bases, strict=True)):
+            object.__setattr__(out, field_, float(pv[j]) if absolute else base * float(pv[j]))
+        return out
 
     if isinstance(params, LineParams):
 
@@ -156,6 +172,8 @@ class Builder:
                 zp, zq = _zip_parts(br, self.v_nom[br.from_bus])
                 idx = {mp.key: k for k, mp in prm}
                 self.zip[br.id] = (zp, zq, idx.get("p_w", -1), idx.get("q_var", -1))
+        self.stds = ReadingStd(profile)
+        self._topo: dict[tuple[tuple[str, str], ...], _Topology | None] = {}
         self.gains: dict[tuple[str, str], int] = {}
         for m in profile.meters:
             sv, si = gain_std(m)
@@ -167,31 +185,22 @@ class Builder:
 
     # ------------------------------------------------------------------ one step
 
-    def step(
-        self,
-        states: Mapping[str, str],
-        values: Mapping[str, Mapping[str, float]],
-        reps: Mapping[str, Mapping[str, float]],
-        k: int,
-        out_unverified: list[Unverified],
-    ) -> tuple[StepModel | None, list[list[str]], list[str]]:
+    def _topology(self, known: Mapping[str, str]) -> _Topology | None:
+        """The switch-state part of a step (cached: a session repeats a few states)."""
+        ck = tuple(sorted(known.items()))
+        if ck in self._topo:
+            return self._topo[ck]
+        out = self._build_topology(dict(known))
+        self._topo[ck] = out
+        return out
+
+    def _build_topology(self, full: dict[str, str]) -> _Topology | None:
         prof = self.profile
-        # a switch without a reading is unknown, as for every other check (meas.network.topology)
-        known = {s.id: states.get(s.id, "unknown") for s in prof.switches}
-        for s, st in known.items():
-            if st not in ("open", "closed"):
-                out_unverified.append(
-                    Unverified(
-                        "*", "*", f"switch {s} reads {st!r}: this step's topology is unknown", k
-                    )
-                )
-                return None, [], []
-        full = dict(known)
         conducts = branch_conducts(prof, full)
         fed = energization(prof, conducts, unknown_conducts=False)
         live = list(fed)
         if not live:
-            return None, [], []
+            return None
         node = {b: 3 * i for i, b in enumerate(live)}
         n = 3 * len(live)
         vn = np.repeat([self.v_nom[b] for b in live], 3)
@@ -263,7 +272,36 @@ class Builder:
             i_base = prof.bench.s_base_va / (3 * self.v_nom[b])
             cur: Current = tuple((kd, idx, end, 1.0) for kd, idx, end in at_bus[b])
             kcl.append(KclTerm(b, cur, KCL_SHARE * i_base))
+        model = StepModel(
+            n, vn, v0, np.array(refs, np.int64), tuple(tps), tuple(loads), (), tuple(kcl)
+        )
+        return _Topology(model, node, on, where, free, at_bus)
+
+    def step(
+        self,
+        states: Mapping[str, str],
+        values: Mapping[str, Mapping[str, float]],
+        reps: Mapping[str, Mapping[str, float]],
+        k: int,
+        out_unverified: list[Unverified],
+    ) -> tuple[StepModel | None, list[list[str]], list[str]]:
+        prof = self.profile
+        # a switch without a reading is unknown, as for every other check (meas.network.topology)
+        known = {s.id: states.get(s.id, "unknown") for s in prof.switches}
+        for s, st in known.items():
+            if st not in ("open", "closed"):
+                out_unverified.append(
+                    Unverified(
+                        "*", "*", f"switch {s} reads {st!r}: this step's topology is unknown", k
+                    )
+                )
+                return None, [], []
+        topo = self._topology(known)
+        if topo is None:
+            return None, [], []
+        node, on, where, free, at_bus = topo.node, topo.on, topo.where, topo.free, topo.at_bus
         meters: list[MeterTerm] = []
+        pending: list[tuple[Meter, Current, list[int], list[float], np.ndarray]] = []
         keys: list[list[str]] = []
         ids: list[str] = []
         for m in prof.meters:
@@ -291,7 +329,7 @@ class Builder:
                         why = "has no model data" if br.model is None else "is a source"
                         current = tuple((kd, idx, end, -1.0) for kd, idx, end in at_bus[m.bus])
                         _ = why
-            slots, z, sig, kk = [], [], [], []
+            slots, z, kk = [], [], []
             v_n, i_n = rated(prof, m)
             for key, si in SLOT_INDEX.items():
                 if key not in vals:
@@ -311,31 +349,32 @@ class Builder:
                 slots.append(si)
                 x = vals[key]
                 z.append(math.radians(x) if key in ANGLE_SLOTS else x)
-                sig.append(reading_std(prof, m, key, vals, reps.get(m.id, {}).get(key, 0.0)))
                 kk.append(key)
             if drop_current:
                 out_unverified.append(Unverified(m.id, "i, p, q", drop_current, k))
             if not slots:
                 continue
-            gv = self.gains.get((m.id, "v"), -1)
-            gi = self.gains.get((m.id, "i"), -1)
+            rep = reps.get(m.id, {})
+            pending.append((m, current, slots, z, np.array([rep.get(key, 0.0) for key in kk])))
+            keys.append(kk)
+            ids.append(m.id)
+        sigs = self.stds.many(
+            [(m, kk, values[m.id], r) for (m, *_, r), kk in zip(pending, keys, strict=True)]
+        )
+        for (m, current, slots, z, _), sig in zip(pending, sigs, strict=True):
             meters.append(
                 MeterTerm(
                     m.id,
                     (node[m.bus] + np.arange(3)).astype(np.int64),
                     current,
-                    gv,
-                    gi,
+                    self.gains.get((m.id, "v"), -1),
+                    self.gains.get((m.id, "i"), -1),
                     np.array(slots, np.int64),
                     np.array(z),
-                    np.array(sig),
+                    sig,
                 )
             )
-            keys.append(kk)
-            ids.append(m.id)
-        model = StepModel(
-            n, vn, v0, np.array(refs, np.int64), tuple(tps), tuple(loads), tuple(meters), tuple(kcl)
-        )
+        model = replace(topo.model, meters=tuple(meters))
         return model, keys, ids
 
     def problem(self, captures: Sequence[Sequence[Snapshot]]) -> Problem:
@@ -344,10 +383,7 @@ class Builder:
         for k, snaps in enumerate(captures):
             if not snaps:
                 continue
-            values: dict[str, dict[str, float]] = {}
-            reps: dict[str, dict[str, float]] = {}
-            for m in self.profile.meters:
-                values[m.id], reps[m.id] = mean_readings(m.id, snaps)
+            values, reps = capture_means([m.id for m in self.profile.meters], snaps)
             st, keys, ids = self.step(dict(snaps[0].switches), values, reps, k, pr.unverified)
             if st is None or not st.meters:
                 continue

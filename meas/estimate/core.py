@@ -7,13 +7,13 @@ state, in units of each node's nominal magnitude), two-port currents ``Y(θ) v``
 currents and meter readings with a voltage gain and a current gain.
 
 Two-port admittance derivatives with respect to their parameters are forward differences of
-the element builders (``meas.network.elements``), the one owner of those formulas. The solve
-is ``meas.estimate.solver``.
+the element builders (``meas.network.elements``), the one owner of those formulas. A step's
+readings and Jacobian are evaluated as arrays by ``meas.estimate.plan``; the solve is
+``meas.estimate.solver``.
 """
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
@@ -119,15 +119,6 @@ def slot_keys(p: int) -> tuple[tuple[str, int], ...]:
 ANGLE_SLOTS = frozenset(k for k, c in slot_keys(3) if c in (IANG, VANG))
 
 
-class _Quantity:
-    """A complex vector with its derivative with respect to the real unknowns of one step."""
-
-    __slots__ = ("val", "d")
-
-    def __init__(self, val: CArray, d: CArray):
-        self.val, self.d = val, d
-
-
 def _state_map(step: StepModel) -> tuple[CArray, int]:
     """Tc with v = Tc @ x_state: real and imaginary part per node (but refs), scaled by vn."""
     n = step.nodes
@@ -173,17 +164,24 @@ def initial(lay: _Layout, steps: Sequence[StepModel], shared0: FArray) -> FArray
     return x
 
 
-_EMPTY = np.zeros(0)
-_YCACHE: dict[int, tuple[bytes, CArray, FArray | None, list[CArray]]] = {}
+_Y_MEMO: dict[tuple[Callable[[FArray], CArray], bytes], CArray] = {}
+_DY_MEMO: dict[tuple[Callable[[FArray], CArray], bytes], list[CArray]] = {}
+_DY_AT: dict[Callable[[FArray], CArray], tuple[FArray, list[CArray]]] = {}
 DY_REFRESH = 1e-3  # recompute dY/dθ once a parameter moved this much (relative)
+_MEMO_MAX = 4096
 
 
 def reset_admittances() -> None:
-    """Forget cached admittances and derivatives (each solve starts from the same state)."""
-    _YCACHE.clear()
+    """Forget where dY/dθ was last taken (each solve starts from the same state).
+
+    Y(θ) and dY/dθ at given θ are pure functions of θ and stay memoized across solves (every
+    solve starts at the same prior means); which θ the derivative was last taken at is what a
+    solve must not inherit.
+    """
+    _DY_AT.clear()
 
 
-def _admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[CArray]]:
+def admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[CArray]]:
     """Y(θ) and dY/dθ of a two-port; steps share the builder, so one call serves them all.
 
     dY/dθ is a forward difference, recomputed only when θ moved by ``DY_REFRESH``: Gauss-Newton
@@ -191,145 +189,32 @@ def _admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[
     the gain matrix at the solution is then off by at most that share in the parameter columns,
     which moves posterior parameter uncertainties by about as much (our trade for speed).
     """
-    key = id(t.y_of)
-    hit = _YCACHE.get(key)
-    raw = pv.tobytes()
-    y = hit[1] if hit is not None and hit[0] == raw else t.y_of(pv)
-    dpv, dys = (hit[2], hit[3]) if hit is not None else (None, [])
+    if len(_Y_MEMO) > _MEMO_MAX or len(_DY_MEMO) > _MEMO_MAX:
+        _Y_MEMO.clear()
+        _DY_MEMO.clear()
+    key = (t.y_of, pv.tobytes())
+    y = _Y_MEMO.get(key)
+    if y is None:
+        y = _Y_MEMO[key] = t.y_of(pv)
+    hit = _DY_AT.get(t.y_of)
+    dys: list[CArray] = hit[1] if hit is not None else []
     if derivs and not (
-        dpv is not None
+        hit is not None
         and len(dys) == len(pv)
-        and np.all(np.abs(dpv - pv) <= DY_REFRESH * np.maximum(1.0, np.abs(pv)))
+        and np.all(np.abs(hit[0] - pv) <= DY_REFRESH * np.maximum(1.0, np.abs(pv)))
     ):
-        dys = []
-        for j in range(len(pv)):
-            h = 1e-7 * max(1.0, abs(pv[j]))
-            pj = pv.copy()
-            pj[j] += h
-            dys.append((t.y_of(pj) - y) / h)
-        dpv = pv.copy()
-    if len(_YCACHE) > 4096:
-        _YCACHE.clear()
-    _YCACHE[key] = (raw, y, dpv, dys)
+        memo = _DY_MEMO.get(key)
+        if memo is None:
+            memo = []
+            for j in range(len(pv)):
+                h = 1e-7 * max(1.0, abs(pv[j]))
+                pj = pv.copy()
+                pj[j] += h
+                memo.append((t.y_of(pj) - y) / h)
+            _DY_MEMO[key] = memo
+        dys = memo
+        _DY_AT[t.y_of] = (pv.copy(), dys)
     return y, dys
-
-
-def _currents(
-    step: StepModel, v: CArray, dv: CArray, shared: FArray, ns: int, derivs: bool = True
-) -> tuple[list[_Quantity], list[_Quantity]]:
-    """Every two-port's and ZIP element's current with its derivative ([shared | state])."""
-    tps: list[_Quantity] = []
-    for t in step.two_ports:
-        pv = shared[list(t.params)] if t.params else _EMPTY
-        y, dys = _admittance(t, pv, derivs)
-        vt = v[t.nodes]
-        cur = y @ vt
-        if not derivs:
-            tps.append(_Quantity(cur, dv[t.nodes, :0]))
-            continue
-        d = y @ dv[t.nodes]
-        for j, pi in enumerate(t.params):
-            d[:, pi] = dys[j] @ vt
-        tps.append(_Quantity(cur, d))
-    lds: list[_Quantity] = []
-    for ld in step.loads:
-        vl, dvl = v[ld.nodes], dv[ld.nodes]
-        m = np.abs(vl)
-        r = m / ld.vn
-        kp = shared[ld.kp] if ld.kp >= 0 else 1.0
-        kq = shared[ld.kq] if ld.kq >= 0 else 1.0
-        pr = ld.zp[0] * r * r + ld.zp[1] * r + ld.zp[2]
-        qr = ld.zq[0] * r * r + ld.zq[1] * r + ld.zq[2]
-        s = kp * pr + 1j * kq * qr
-        ds = (kp * (2 * ld.zp[0] * r + ld.zp[1]) + 1j * kq * (2 * ld.zq[0] * r + ld.zq[1])) / ld.vn
-        cv = np.conj(vl)
-        if not derivs:
-            lds.append(_Quantity(np.conj(s) / cv, dvl[:, :0]))
-            continue
-        dm = (cv[:, None] * dvl).real / m[:, None]
-        d = (np.conj(ds) / cv)[:, None] * dm - (np.conj(s) / cv**2)[:, None] * np.conj(dvl)
-        if ld.kp >= 0:
-            d[:, ld.kp] += pr / cv
-        if ld.kq >= 0:
-            d[:, ld.kq] += -1j * qr / cv
-        lds.append(_Quantity(np.conj(s) / cv, d))
-    return tps, lds
-
-
-def _sum(cur: Current, tps: list[_Quantity], lds: list[_Quantity], p: int, nc: int) -> _Quantity:
-    val = np.zeros(p, complex)
-    d = np.zeros((p, nc), complex)
-    for kind, idx, end, sign in cur:
-        q = tps[idx] if kind == "t" else lds[idx]
-        sl = slice(end * p, (end + 1) * p)
-        val += sign * q.val[sl]
-        d += sign * q.d[sl]
-    return _Quantity(val, d)
-
-
-def _mag(val: CArray, d: CArray) -> tuple[FArray, FArray]:
-    m = np.abs(val)
-    safe = np.where(m > 0, m, 1.0)
-    return m, (val.real[:, None] * d.real + val.imag[:, None] * d.imag) / safe[:, None]
-
-
-def _ang(val: CArray, d: CArray) -> tuple[FArray, FArray]:
-    safe = np.where(np.abs(val) > 0, val, 1.0)
-    return np.angle(val), (d / safe[:, None]).imag
-
-
-def _meter_slots(
-    mt: MeterTerm, vq: _Quantity, iq: _Quantity, shared: FArray, p: int
-) -> tuple[FArray, FArray]:
-    """Every slot's model value and derivative (gains applied)."""
-    gv = shared[mt.gv] if mt.gv >= 0 else 1.0
-    gi = shared[mt.gi] if mt.gi >= 0 else 1.0
-    v, dv, i, di = vq.val, vq.d, iq.val, iq.d
-    s = v * np.conj(i)
-    ds = np.conj(i)[:, None] * dv + v[:, None] * np.conj(di)
-    vm, dvm = _mag(v, dv)
-    im, dim = _mag(i, di)
-    if p == 1:
-        f = np.r_[vm, im, s.real, s.imag]
-        df = np.vstack([dvm, dim, ds.real, ds.imag])
-        kinds = _KINDS1
-    else:
-        nc = dv.shape[1]
-        f = np.empty(22)
-        df = np.empty((22, nc))
-        f[0:3], df[0:3] = vm, dvm
-        if mt.slots.size and np.any((mt.slots >= 3) & (mt.slots < 6)):
-            f[3:6], df[3:6] = _mag(v - v[_NEXT], dv - dv[_NEXT])
-        f[6:9], df[6:9] = im, dim
-        f[9:12], df[9:12] = s.real, ds.real
-        f[12:15], df[12:15] = s.imag, ds.imag
-        f[15], df[15] = f[9:12].sum(), df[9:12].sum(0)
-        f[16], df[16] = f[12:15].sum(), df[12:15].sum(0)
-        if mt.slots[-1] >= 17:
-            ia, dia = _ang(i, di)
-            va, dva = _ang(v, dv)
-            f[17:20], df[17:20] = ia - va[0], dia - dva[0]
-            f[20:22], df[20:22] = va[1:] - va[0], dva[1:] - dva[0]
-        kinds = _KINDS3
-    f, df, kinds = f[mt.slots], df[mt.slots], kinds[mt.slots]
-    gain = np.array([gv, gi, gv * gi, 1.0])[kinds]
-    out, dout = f * gain, df * gain[:, None]
-    if mt.gv >= 0:
-        dout[:, mt.gv] += f * np.array([1.0, 0.0, gi, 0.0])[kinds]
-    if mt.gi >= 0:
-        dout[:, mt.gi] += f * np.array([0.0, 1.0, gv, 0.0])[kinds]
-    return out, dout
-
-
-_NEXT = np.array([1, 2, 0])
-_KINDS1 = np.array([0, 1, 2, 2])
-_KINDS3 = np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]
-
-
-def angle_rows(mt: MeterTerm, p: int) -> NDArray[np.bool_]:
-    if p == 1:
-        return np.zeros(len(mt.slots), bool)
-    return np.asarray(mt.slots) >= 17
 
 
 @dataclass
@@ -339,39 +224,3 @@ class StepEval:
     h: FArray  # model values (unweighted)
     meter_rows: list[slice]  # rows of each meter
     kcl_rows: slice
-
-
-def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEval:
-    ns, p = len(shared), step.phases
-    nc = ns + tc.shape[1]
-    v = tc @ xs
-    dv = np.zeros((step.nodes, nc), complex)
-    dv[:, ns:] = tc
-    tps, lds = _currents(step, v, dv, shared, ns)
-    rs, js, hs, rows = [], [], [], []
-    at = 0
-    zero = _Quantity(np.zeros(p, complex), np.zeros((p, nc), complex))
-    for mt in step.meters:
-        vq = _Quantity(v[mt.v_nodes], dv[mt.v_nodes])
-        iq = _sum(mt.current, tps, lds, p, nc) if mt.current else zero
-        if mt.wiring is not None:
-            iq = _Quantity(mt.wiring @ iq.val, mt.wiring @ iq.d)
-        h, dh = _meter_slots(mt, vq, iq, shared, p)
-        res = mt.z - h
-        ang = angle_rows(mt, p)
-        res[ang] = np.mod(res[ang] + math.pi, 2 * math.pi) - math.pi
-        rs.append(res / mt.sigma)
-        js.append(dh / mt.sigma[:, None])
-        hs.append(h)
-        rows.append(slice(at, at + len(h)))
-        at += len(h)
-    k0 = at
-    for kc in step.kcl:
-        q = _sum(kc.current, tps, lds, p, nc)
-        rs.append(np.r_[-q.val.real, -q.val.imag] / kc.sigma)
-        js.append(np.vstack([q.d.real, q.d.imag]) / kc.sigma)
-        hs.append(np.r_[q.val.real, q.val.imag])
-        at += 2 * p
-    if not rs:
-        return StepEval(np.zeros(0), np.zeros((0, nc)), np.zeros(0), rows, slice(k0, at))
-    return StepEval(np.concatenate(rs), np.vstack(js), np.concatenate(hs), rows, slice(k0, at))

@@ -20,9 +20,11 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import sparse
 
-from .core import ANGLE_SLOTS, CArray, FArray, StepModel
-from .solver import Fit, meter_phasors, omega_diag, slot_values
+from .core import CArray, FArray, IArray, StepModel
+from .plan import measured, plan_of
+from .solver import Fit, meter_phasors, omega_diag
 from .solver import cols_of as _cols
 
 THRESHOLD = 4.0  # normalized statistic above which a hypothesis is bad data (see docs/estimator.md)
@@ -69,13 +71,19 @@ def _residuals(fit: Fit) -> tuple[FArray, FArray]:
     return r, j
 
 
+_FLIPS: tuple[tuple[str, str], ...] = tuple(
+    [("ct_reversed", a) for a in "ABC"] + [("phases_swapped", a) for a in _PAIRS]
+)
+
+
 def _flip(i: CArray, kind: str, arg: str) -> CArray:
+    """Every meter's currents (M, p) as the wiring fault would show them."""
     out = i.copy()
     if kind == "ct_reversed":
-        out["ABC".index(arg)] *= -1
+        out[:, "ABC".index(arg)] *= -1
     else:
         a, b = ("ABC".index(c) for c in arg)
-        out[a], out[b] = i[b], i[a]
+        out[:, a], out[:, b] = i[:, b], i[:, a]
     return out
 
 
@@ -85,7 +93,20 @@ def tests(
     keys: Sequence[Sequence[Sequence[str]]],
     gains: dict[tuple[str, str], int],
 ) -> Tests:
-    """Build every hypothesis for every meter present, with T, amplitude and correlations."""
+    """Build every hypothesis for every meter present, with T, amplitude and correlations.
+
+    Memoized on the fit (the identification asks for the same tests more than once).
+    """
+    memo_key = ("tests", tuple(id(st) for st in steps), id(gains))
+    hit = fit.memo.get(memo_key)
+    if isinstance(hit, Tests):
+        return hit
+    out = _tests(fit, steps, gains)
+    fit.memo[memo_key] = out
+    return out
+
+
+def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], int]) -> Tests:
     r, j = _residuals(fit)
     m = len(r)
     shared = fit.x[: fit.lay.ns]
@@ -94,58 +115,76 @@ def tests(
     present = sorted({mt.name for st in steps for mt in st.meters})
     has_current = {mt.name for st in steps for mt in st.meters if mt.gi >= 0}
     hyps: list[Hypothesis] = []
-    cols: list[FArray] = []
-    phasors: dict[int, list[tuple[CArray, CArray]]] = {}
+    col_of: dict[tuple[str, str, str], int] = {}
+    rows: list[IArray] = []
+    cols: list[IArray] = []
+    vals: list[FArray] = []
     for mid in present:
         for kind, g in (("vt_ratio", "v"), ("ct_ratio", "i")):
             gi = gains.get((mid, g), -1)
             if gi < 0 or (g == "i" and mid not in has_current):
                 continue
-            b = np.zeros(m)
-            b[prior0 + gi] = 1.0
+            rows.append(np.array([prior0 + gi]))
+            cols.append(np.array([len(hyps)]))
+            vals.append(np.ones(1))
             hyps.append(Hypothesis(mid, kind, ""))
-            cols.append(b)
         if mid not in has_current:
             continue
-        for kind, args in (("ct_reversed", ("A", "B", "C")), ("phases_swapped", _PAIRS)):
-            for arg in args:
-                b = np.zeros(m)
-                for k, st in enumerate(steps):
-                    for mi, mt in enumerate(st.meters):
-                        if mt.name != mid or not mt.current:
-                            continue
-                        if k not in phasors:
-                            phasors[k] = meter_phasors(fit, steps, k)
-                        v, i = phasors[k][mi]
-                        d = slot_values(mt, v, _flip(i, kind, arg), shared, st.phases)
-                        d = d - slot_values(mt, v, i, shared, st.phases)
-                        lo = int(starts[k]) + _row0(fit, k, mi)
-                        rr = r[lo : lo + len(d)]
-                        for n_, key in enumerate(keys[k][mi]):
-                            if key in ANGLE_SLOTS:
-                                w = math.remainder(d[n_], 2 * math.pi)
-                                if abs(w) > 0.9 * math.pi:  # a half turn: take the residual's side
-                                    w = math.pi * (1.0 if rr[n_] >= 0 else -1.0)
-                                d[n_] = w
-                        b[lo : lo + len(d)] = d / mt.sigma
-                hyps.append(Hypothesis(mid, kind, arg))
-                cols.append(b)
-    bm = np.array(cols).T if cols else np.zeros((m, 0))
-    u = j.T @ bm
-    q = bm.T @ bm - u.T @ fit.ginv @ u
-    br = bm.T @ r
+        for kind, arg in _FLIPS:
+            col_of[(mid, kind, arg)] = len(hyps)
+            hyps.append(Hypothesis(mid, kind, arg))
+    for k, st in enumerate(steps):
+        pl = plan_of(st)
+        with_current = [
+            mi
+            for mi, mt in enumerate(st.meters)
+            if mt.current and (mt.name, "ct_reversed", "A") in col_of
+        ]
+        if not with_current:
+            continue
+        v, i = meter_phasors(fit, steps, k)
+        base = measured(pl, v, i, shared)
+        keep = np.isin(pl.meter_of_row, with_current)
+        lo = int(starts[k])
+        rr = r[lo : lo + len(base)]
+        first = np.array([col_of.get((mt.name, *_FLIPS[0]), -1) for mt in st.meters])
+        for fk, (kind, arg) in enumerate(_FLIPS):
+            d = measured(pl, v, _flip(i, kind, arg), shared) - base
+            a = pl.angle
+            w = d[a] - 2 * math.pi * np.round(d[a] / (2 * math.pi))
+            half = np.abs(w) > 0.9 * math.pi  # a half turn: take the residual's side
+            w[half] = math.pi * np.where(rr[a][half] >= 0, 1.0, -1.0)
+            d[a] = w
+            idx = np.nonzero(keep)[0]
+            hcol = first[pl.meter_of_row[idx]] + fk  # a meter's six flips are adjacent
+            rows.append(lo + idx)
+            cols.append(hcol)
+            vals.append(d[idx] / pl.sigma[idx])
+    h_n = len(hyps)
+    bm = sparse.csc_matrix(
+        (
+            np.concatenate(vals) if vals else np.zeros(0),
+            (
+                np.concatenate(rows) if rows else np.zeros(0, np.int64),
+                np.concatenate(cols) if cols else np.zeros(0, np.int64),
+            ),
+        ),
+        shape=(m, h_n),
+    )
+    bt = bm.T.tocsr()
+    ut = np.asarray(bt @ j)  # (H, n) = (Jᵀ B)ᵀ
+    q = np.asarray((bt @ bm).todense()) - ut @ fit.ginv @ ut.T
+    br = np.asarray(bt @ r).reshape(-1)
     dq = np.maximum(np.diag(q).copy(), 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         t = np.where(dq > 0, np.abs(br) / np.sqrt(dq), 0.0)
         alpha = np.where(dq > 0, br / dq, 0.0)
-    for h, hy in enumerate(hyps):
-        if hy.kind in ("ct_reversed", "phases_swapped") and not (0.3 < alpha[h] < 2.0):
-            t[h] = 0.0  # the data do not move that way: a sign flip has amplitude one
-    return Tests(hyps, t, alpha, q, np.sum(bm * bm, axis=0), dict(gains))
-
-
-def _row0(fit: Fit, k: int, mi: int) -> int:
-    return fit.evals[k].meter_rows[mi].start
+    wiring = np.array([hy.kind in ("ct_reversed", "phases_swapped") for hy in hyps], bool)
+    if h_n:
+        # the data do not move that way: a sign flip has amplitude one
+        t[wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
+    bb = np.asarray(bm.multiply(bm).sum(axis=0)).reshape(-1)
+    return Tests(hyps, t, alpha, q, bb, dict(gains))
 
 
 def rivals(ts: Tests, h: int) -> list[int]:

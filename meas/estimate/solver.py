@@ -11,31 +11,23 @@ the textbook cases (tests/estimate).
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .core import (
-    IANG,
-    IMAG,
     CArray,
     FArray,
     IArray,
-    MeterTerm,
     Prior,
     StepEval,
     StepModel,
-    _currents,
     _Layout,
-    _meter_slots,
-    _Quantity,
-    _sum,
-    evaluate,
     initial,
     layout,
     reset_admittances,
-    slot_keys,
 )
+from .plan import SMOOTH_OK, evaluate, phasors, plan_of
 
 
 @dataclass
@@ -51,6 +43,7 @@ class Fit:
     ginv: FArray
     lay: _Layout
     prior_std: FArray
+    memo: dict[object, object] = field(default_factory=dict)  # derived statistics of this fit
 
 
 def _assemble(
@@ -72,10 +65,12 @@ def _assemble(
         b[:ns] += c[:ns]
         b[off:e] += c[ns:]
         cost += float(ev.r @ ev.r)
-    pr = np.array([(pp.mean - x[k]) / pp.std for k, pp in enumerate(priors)])
-    for k, pp in enumerate(priors):
-        g[k, k] += 1.0 / pp.std**2
-        b[k] += pr[k] / pp.std
+    k = len(priors)
+    mean = np.fromiter((pp.mean for pp in priors), float, k)
+    std = np.fromiter((pp.std for pp in priors), float, k)
+    pr = (mean - x[:k]) / std
+    g[np.arange(k), np.arange(k)] += 1.0 / std**2
+    b[:k] += pr / std
     cost += float(pr @ pr) if len(pr) else 0.0
     return cost, g, b, pr
 
@@ -84,16 +79,14 @@ def _smooth(step: StepModel) -> StepModel:
     """The step without current magnitudes and angles: both are ill-posed at a flat start
     (zero currents have no direction), a known trouble of state estimation from flat start."""
     out = []
+    table = SMOOTH_OK[step.phases]
     for mt in step.meters:
-        ok = np.array([_SMOOTH[step.phases][int(s)] for s in mt.slots], bool)
+        ok = table[np.asarray(mt.slots, np.int64)]
         out.append(replace(mt, slots=mt.slots[ok], z=mt.z[ok], sigma=mt.sigma[ok]))
     return replace(step, meters=tuple(out))
 
 
-_SMOOTH = {
-    1: (True, False, True, True),
-    3: tuple(c not in (IMAG, IANG) for _, c in slot_keys(3)),
-}
+START_REL = 1e-4  # per-step starts of a joint fit need no more: the joint pass converges to 1e-7
 
 
 def solve(
@@ -103,11 +96,13 @@ def solve(
     tol: float = 1e-8,
     max_iter: int = 40,
     x0: FArray | None = None,
+    rel: float = 1e-7,
 ) -> Fit:
     """Minimise the weighted sum of squares; every shared unknown has a prior (index order).
 
     From a flat start, a first pass leaves out current magnitudes and angles (``_smooth``) and
-    the full problem starts from its solution.
+    the full problem starts from its solution. ``rel``: converged once a step lowers the misfit
+    by less than this share; the passes that only find a start use ``START_REL``.
     """
     lay = layout(len(priors), steps)
     reset_admittances()  # the result must not depend on what was solved before (re-checks)
@@ -118,7 +113,7 @@ def solve(
         x = initial(lay, steps, np.array([p.mean for p in priors], float))
         shared = []
         for k, st in enumerate(steps):
-            one = solve([st], priors, tol=1e-6, max_iter=max_iter)
+            one = solve([st], priors, tol=1e-6, max_iter=max_iter, rel=START_REL)
             if one.converged:
                 off = lay.offsets[k]
                 x[off : off + lay.tcs[k].shape[1]] = one.x[one.lay.ns :]
@@ -127,7 +122,11 @@ def solve(
             x[: lay.ns] = np.mean(shared, axis=0)
     elif x0 is None:
         x = initial(lay, steps, np.array([p.mean for p in priors], float))
-        first = solve([_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x)
+        # to the caller's tolerance: the final pass lands where it lands from this start, and
+        # the check engine's golden results hold to 1e-4 (a looser start moved some by 5e-4)
+        first = solve(
+            [_smooth(s) for s in steps], priors, tol=1e-6, max_iter=max_iter, x0=x, rel=rel
+        )
         if np.all(np.isfinite(first.x)):
             x = first.x
     else:
@@ -164,7 +163,7 @@ def solve(
         step_small = float(np.max(np.abs(dx))) < tol
         pred = float(2 * dx @ b - dx @ g @ dx)
         if trial[1] <= cost:
-            flat = cost - trial[1] <= 1e-7 * max(cost, 1.0)
+            flat = cost - trial[1] <= rel * max(cost, 1.0)
             rho = (cost - trial[1]) / pred if pred > 0 else 1.0
             x = x + dx
             evals, cost, g, b, pr = trial
@@ -174,7 +173,7 @@ def solve(
                 converged = True
                 break
         else:
-            if step_small or trial[1] - cost <= 1e-7 * max(cost, 1.0):
+            if step_small or trial[1] - cost <= rel * max(cost, 1.0):
                 converged = True  # at the optimum to rounding
                 break
             lam *= nu
@@ -222,28 +221,19 @@ def omega_diag(fit: Fit) -> tuple[list[FArray], FArray]:
     for k, ev in enumerate(fit.evals):
         c = cols_of(fit, k)
         jj = ev.j
-        out.append(1.0 - np.einsum("ij,jk,ik->i", jj, fit.ginv[np.ix_(c, c)], jj))
+        out.append(1.0 - np.sum((jj @ fit.ginv[np.ix_(c, c)]) * jj, axis=1))
+    return out, omega_prior(fit)
+
+
+def omega_prior(fit: Fit) -> FArray:
+    """Ω̃ of the prior rows alone (the shared unknowns): 1 - G⁻¹_kk / σ_k²."""
     ns = fit.lay.ns
-    return out, 1.0 - np.diag(fit.ginv)[:ns] / fit.prior_std**2
+    return 1.0 - np.diag(fit.ginv)[:ns] / fit.prior_std**2
 
 
-def meter_phasors(fit: Fit, steps: Sequence[StepModel], k: int) -> list[tuple[CArray, CArray]]:
-    """Each meter's (V, I) phasors at the solution of step ``k`` (gains not applied)."""
+def meter_phasors(fit: Fit, steps: Sequence[StepModel], k: int) -> tuple[CArray, CArray]:
+    """Each meter's (V, I) phasors at the solution of step ``k``, (M, p) each (gains, wiring
+    not applied)."""
     st, tc, off = steps[k], fit.lay.tcs[k], fit.lay.offsets[k]
     shared = fit.x[: fit.lay.ns]
-    ns, p = len(shared), st.phases
-    v = tc @ fit.x[off : off + tc.shape[1]]
-    dv = np.zeros((st.nodes, 0), complex)
-    tps, lds = _currents(st, v, dv, shared, ns, derivs=False)
-    out = []
-    for mt in st.meters:
-        i = _sum(mt.current, tps, lds, p, 0).val if mt.current else np.zeros(p, complex)
-        out.append((v[mt.v_nodes], i))
-    return out
-
-
-def slot_values(mt: MeterTerm, v: CArray, i: CArray, shared: FArray, p: int) -> FArray:
-    """The meter's measured slots for phasors ``v`` and ``i`` (gains applied)."""
-    z = np.zeros((p, max(len(shared), 1)), complex)
-    h, _ = _meter_slots(mt, _Quantity(v, z), _Quantity(i, z), shared, p)
-    return h
+    return phasors(st, plan_of(st), tc, fit.x[off : off + tc.shape[1]], shared)

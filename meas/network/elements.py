@@ -106,7 +106,9 @@ Element = SourceModel | TwoPort | LoadModel | ShuntModel
 def seq_to_phase(z0: complex, z1: complex) -> np.ndarray:
     """Phase-frame 3x3 matrix of a transposed element with sequence values z0 and z1 = z2."""
     zs, zm = (z0 + 2 * z1) / 3, (z0 - z1) / 3
-    return zm * np.ones((3, 3), dtype=complex) + (zs - zm) * np.eye(3)
+    out = np.full((3, 3), zm, dtype=complex)  # zm·ones + (zs - zm)·eye, bit for bit, faster
+    out.flat[::4] = zm + (zs - zm)
+    return out
 
 
 def _pi_seq(z: complex, y: complex, long_line: bool) -> tuple[complex, complex]:
@@ -141,7 +143,10 @@ def line_admittance(p: LineParams) -> np.ndarray:
     z0l, y0l = _pi_seq(z0 * length, y0 * length, p.long_line)
     ys = np.linalg.inv(seq_to_phase(z0l, z1l))
     ysh = seq_to_phase(y0l, y1l) / 2
-    return np.block([[ys + ysh, -ys], [-ys, ys + ysh]])
+    out = np.empty((6, 6), dtype=complex)  # [[ys + ysh, -ys], [-ys, ys + ysh]]
+    out[:3, :3] = out[3:, 3:] = ys + ysh
+    out[:3, 3:] = out[3:, :3] = -ys
+    return out
 
 
 def _winding_ends(
