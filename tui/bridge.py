@@ -12,6 +12,7 @@ import asyncio
 import contextlib
 import inspect
 import time
+from collections import deque
 from collections.abc import AsyncGenerator, Callable, Sequence
 from pathlib import Path
 from typing import Any
@@ -23,6 +24,8 @@ from meas.walk.runner import Runner
 
 from .frame import Frame, StepInfo
 from .keys import action_keys, display_key, key_of
+
+LIVE_WINDOW = 4  # snapshots of the live configuration the coverage view adds (as the check does)
 
 
 def frame_from_view(
@@ -125,6 +128,10 @@ class Bridge:
         self._snapshots: AsyncGenerator[Snapshot, None] | None = None
         self.last_snapshot: Snapshot | None = None
         self.transitions = 0  # step or state changes seen; tests wait on it
+        # the captured snapshots of each step in this console run (for the coverage view),
+        # and the last few snapshots whatever their role (the live configuration)
+        self._captured: dict[str, list[Snapshot]] = {}
+        self._recent: deque[Snapshot] = deque(maxlen=LIVE_WINDOW)
 
     @property
     def simulated(self) -> bool:
@@ -144,7 +151,40 @@ class Bridge:
         snapshot = await anext(self._snapshots)
         await self.runner.tick(snapshot)
         self.last_snapshot = snapshot
+        self._note_capture(snapshot)
         return self.frame()
+
+    def _note_capture(self, snapshot: Snapshot) -> None:
+        """Keep the snapshot if this tick took it as a capture (the step's capture count grew;
+        a retake drops the step's earlier picks)."""
+        self._recent.append(snapshot)
+        view = self.runner.view()
+        step = getattr(view, "step", None)
+        if step is None or getattr(step, "capture", None) is None:
+            return
+        n = int(getattr(view, "captured", 0))
+        got = self._captured.setdefault(step.id, [])
+        if n < len(got):
+            del got[n:]
+        if n > len(got):
+            got.append(snapshot)
+
+    def captures_so_far(self) -> tuple[list[list[Snapshot]], str]:
+        """The estimator's input for the coverage view: one list of snapshots per captured
+        step of this run, plus the live configuration when no captured step had it; and a
+        sentence saying what that is."""
+        steps = [list(v) for v in self._captured.values() if v]
+        seen = {tuple(sorted(v[0].switches.items())) for v in steps}
+        live = (
+            [s for s in self._recent if s.switches == self._recent[-1].switches]
+            if self._recent
+            else []
+        )
+        words = f"{len(steps)} captured step(s) of this console run"
+        if live and tuple(sorted(live[-1].switches.items())) not in seen:
+            steps.append(live)
+            words += f" + the live configuration ({len(live)} snapshot(s))"
+        return steps, words
 
     def frame(self) -> Frame:
         view = self.runner.view()

@@ -72,11 +72,12 @@ class PaintedScreen(Screen):
         for line in lines:
             log.write_line(line)
 
-    def show_frame(self, frame: Frame) -> None:
-        """Paint one frame; every widget repaints only what changed."""
+    def show_frame(self, frame: Frame, count: bool = True) -> None:
+        """Paint one frame; every widget repaints only what changed (``count``: a new frame,
+        not the last one painted again)."""
         old = self.frame
         self.frame = frame
-        self.frames_shown += 1
+        self.frames_shown += count
         step = frame.step
         self.query_one(StepSummary).show(step)
         self.query_one(StepDetail).show(step)
@@ -89,7 +90,7 @@ class PaintedScreen(Screen):
                 r.subject for r in frame.checks if r.status.value == "fail" and r.subject in meters
             )
         )
-        if snap is not None:
+        if snap is not None and count:
             self.history.append(snap)
             grid.update_snapshot(snap)
             self.query_one(BenchView).show(snap.switches)
