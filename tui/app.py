@@ -58,6 +58,8 @@ class BenchwalkApp(App[int]):
     ) -> None:
         super().__init__()
         self.profile_path = profile_path  # the start screen's campaign analysis reads it
+        # where Ctrl+S saves screenshots (None: textual's default, the downloads folder)
+        self.screenshot_dir: Path | None = None
         self.session_factory = session_factory
         self.bench_name = bench_name
         self.list_sessions = list_sessions or (lambda: [])
@@ -76,6 +78,11 @@ class BenchwalkApp(App[int]):
         background (``tui.widgets.palette``); recomputed on every theme change."""
         variables = super().get_css_variables()
         return {**variables, **css_variables(palette_for(self.current_theme))}
+
+    def action_screenshot(self, filename: str | None = None, path: str | None = None) -> None:
+        """textual's screenshot (an SVG of the screen), into ``screenshot_dir`` when set."""
+        folder = path or (str(self.screenshot_dir) if self.screenshot_dir else None)
+        self.deliver_screenshot(filename, folder)
 
     # ------------------------------------------------------------------ start-up
     def on_mount(self) -> None:

@@ -52,6 +52,7 @@ class CoverageScreen(ModalScreen[None]):
         self.source = ""
         self.error = ""
         self.runs = 0  # estimates finished (tests wait on it)
+        self.used: list[list[Snapshot]] = []  # the captures of the last estimate
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="modal-box coverage-box"):
@@ -77,6 +78,7 @@ class CoverageScreen(ModalScreen[None]):
             self.error = "nothing captured yet and no live readings: nothing to estimate from"
             self._paint()
             return
+        self.used = captures
         self._run(captures)
 
     @work(thread=True, exclusive=True, group="coverage", exit_on_error=False)

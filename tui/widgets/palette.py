@@ -8,7 +8,7 @@ dark text and a dark theme light text. A theme colour that would fall under the 
 §1.4.3 contrast minimum for normal text (4.5:1) against the theme background is moved toward
 black or white until it meets it: the words carry every state, and colour must not hide them.
 The same colours are offered to ``console.tcss`` as ``$bw-ok``, ``$bw-warn``, ``$bw-error``,
-``$bw-muted`` (``css_variables``).
+``$bw-muted``, ``$bw-accent`` (``css_variables``).
 """
 
 from __future__ import annotations
@@ -19,8 +19,10 @@ from rich.style import Style
 from textual.color import Color, ColorParseError
 from textual.theme import BUILTIN_THEMES, Theme
 
-# WCAG 2.1 §1.4.3 (contrast, minimum): 4.5:1 for normal text
+# WCAG 2.1 §1.4.3 (contrast, minimum): 4.5:1 for normal text; §1.4.11 (non-text contrast):
+# 3:1 for graphical objects such as the panes' border lines
 MIN_CONTRAST = 4.5
+MIN_GRAPHIC_CONTRAST = 3.0
 _BLACK, _WHITE = Color(0, 0, 0), Color(255, 255, 255)
 
 
@@ -179,6 +181,7 @@ def css_variables(pal: Palette) -> dict[str, str]:
         "bw-warn": pal.warn.hex6,
         "bw-error": pal.error.hex6,
         "bw-muted": pal.muted.hex6,
+        "bw-accent": pal.accent.hex6,
         "bw-warn-bg": pal.badge_bg["warn"].hex6,
         "bw-warn-on": badge_text(pal.badge_bg["warn"]).hex6,
         "bw-error-bg": pal.badge_bg["error"].hex6,
