@@ -26,6 +26,7 @@ from .frame import Frame, StepInfo
 from .keys import action_keys, display_key, key_of
 
 LIVE_WINDOW = 4  # snapshots of the live configuration the coverage view adds (as the check does)
+SWITCHING_STATES = ("operating", "verifying", "settling")  # runner states of a changing bench
 
 
 def frame_from_view(
@@ -156,9 +157,14 @@ class Bridge:
 
     def _note_capture(self, snapshot: Snapshot) -> None:
         """Keep the snapshot if this tick took it as a capture (the step's capture count grew;
-        a retake drops the step's earlier picks)."""
-        self._recent.append(snapshot)
+        a retake drops the step's earlier picks). Live snapshots are kept only once the
+        readings are steady: a switching transient is no configuration to judge."""
         view = self.runner.view()
+        state = str(getattr(view.state, "value", view.state))
+        if getattr(view, "overall", "") == "settling" or state in SWITCHING_STATES:
+            self._recent.clear()
+        else:
+            self._recent.append(snapshot)
         step = getattr(view, "step", None)
         if step is None or getattr(step, "capture", None) is None:
             return
@@ -180,10 +186,12 @@ class Bridge:
             if self._recent
             else []
         )
-        words = f"{len(steps)} captured step(s) of this console run"
+        words = f"from {len(steps)} captured step(s) of this console run"
         if live and tuple(sorted(live[-1].switches.items())) not in seen:
             steps.append(live)
-            words += f" + the live configuration ({len(live)} snapshot(s))"
+            words += f" + {len(live)} steady live snapshot(s)"
+        elif not live:
+            words += " (live readings still settling: left out)"
         return steps, words
 
     def frame(self) -> Frame:

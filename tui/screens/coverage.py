@@ -3,6 +3,9 @@
 The estimate (``meas.estimate.Estimator(profile).run(captures)``, the public API) runs in a
 thread worker when the view opens or on R, so the poll loop and the keys never wait for it;
 the captures are the bridge's (``Bridge.captures_so_far``), taken on the UI thread first.
+First the linearized estimate (one fit, about a second); when it names a fault, the exact one
+(refits without the named meter, seconds more) follows, since the other meters' gains of the
+first fit are disturbed by the fault.
 """
 
 from __future__ import annotations
@@ -16,7 +19,7 @@ from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Label, Static
-from textual.worker import Worker, WorkerState
+from textual.worker import Worker, WorkerState, get_current_worker
 
 from meas.errors import BenchwalkError
 from meas.estimate import Estimate, Estimator
@@ -26,14 +29,18 @@ from meas.snapshot import Snapshot
 from ..widgets.coverage import coverage_text
 from ..widgets.palette import palette_of
 
-_ESTIMATORS: dict[int, Estimator] = {}  # one per profile object (building it is the cheap part)
+# one per profile object and mode (building one is the cheap part)
+_ESTIMATORS: dict[tuple[int, bool], Estimator] = {}
 
 
-def estimate_coverage(profile: Profile, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
-    """The joint estimate of the captures (linearized identification: one fit, no refits)."""
-    est = _ESTIMATORS.get(id(profile))
+def estimate_coverage(
+    profile: Profile, captures: Sequence[Sequence[Snapshot]], exact: bool = False
+) -> Estimate:
+    """The joint estimate of the captures (``exact=False``: linearized identification, one
+    fit, no refits)."""
+    est = _ESTIMATORS.get((id(profile), exact))
     if est is None or est.profile is not profile:
-        est = _ESTIMATORS[id(profile)] = Estimator(profile, exact=False)
+        est = _ESTIMATORS[(id(profile), exact)] = Estimator(profile, exact=exact)
     return est.run(captures)
 
 
@@ -53,6 +60,7 @@ class CoverageScreen(ModalScreen[None]):
         self.error = ""
         self.runs = 0  # estimates finished (tests wait on it)
         self.used: list[list[Snapshot]] = []  # the captures of the last estimate
+        self.final = False  # the estimate shown is the last one this request gives
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="modal-box coverage-box"):
@@ -73,6 +81,7 @@ class CoverageScreen(ModalScreen[None]):
         get = getattr(self.bridge, "captures_so_far", None)
         captures, self.source = get() if get is not None else ([], "no captures in this console")
         self.error = ""
+        self.final = False
         self._paint(busy=True)
         if not captures:
             self.error = "nothing captured yet and no live readings: nothing to estimate from"
@@ -82,28 +91,43 @@ class CoverageScreen(ModalScreen[None]):
         self._run(captures)
 
     @work(thread=True, exclusive=True, group="coverage", exit_on_error=False)
-    def _run(self, captures: list[list[Snapshot]]) -> Estimate:
-        return estimate_coverage(self.profile, captures)
+    def _run(self, captures: list[list[Snapshot]]) -> None:
+        fast = estimate_coverage(self.profile, captures)
+        refine = bool(fast.converged and fast.findings)
+        self.app.call_from_thread(self._done, fast, not refine)
+        if refine and not get_current_worker().is_cancelled:
+            self.app.call_from_thread(
+                self._done, estimate_coverage(self.profile, captures, True), True
+            )
+
+    def _done(self, e: Estimate, final: bool) -> None:
+        self.estimate = e
+        self.final = final
+        self.runs += 1
+        self._paint(busy=not final)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         if event.worker.group != "coverage":
             return
-        if event.state is WorkerState.SUCCESS:
-            self.estimate = event.worker.result
-            self.runs += 1
-            self._paint()
-        elif event.state is WorkerState.ERROR:
+        if event.state is WorkerState.ERROR:
             err = event.worker.error
             why = str(err) if isinstance(err, BenchwalkError) else f"{type(err).__name__}: {err}"
             self.error = f"the estimate failed: {why}"
+            self.final = True
             self.runs += 1
             self._paint()
 
     def _paint(self, busy: bool = False) -> None:
         meters = [m.id for m in self.profile.meters]
         pal = palette_of(self.app)
-        source = self.source + (" (estimating again\u2026)" if busy and self.estimate else "")
-        text = coverage_text(self.estimate, meters, source, pal, busy=busy)
+        note = ""
+        if busy and self.estimate is not None:
+            note = (
+                " (a fault is named: refitting without it\u2026)"
+                if self.estimate.findings
+                else " (estimating again\u2026)"
+            )
+        text = coverage_text(self.estimate, meters, self.source + note, pal, busy=busy)
         if self.error:
             text.append(f"\n\u2718 {self.error}", style=pal.style("error", bold=True))
         self.query_one("#coverage-body", Static).update(text)

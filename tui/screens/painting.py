@@ -51,6 +51,7 @@ class PaintedScreen(Screen):
         self._auto_exported = self.finished_at_open
         self._remote_busy = False  # a remote command is being sent; its worker reports the outcome
         self.exported: Path | None = None
+        self._notice = ""  # the notice line's text
 
     # ------------------------------------------------------------------ layout
     def compose(self) -> ComposeResult:
@@ -65,6 +66,7 @@ class PaintedScreen(Screen):
 
     # ------------------------------------------------------------------ painting
     def notice(self, text: str) -> None:
+        self._notice = text
         self.query_one("#notice", Static).update(text)
 
     def log_lines(self, lines: Iterable[str]) -> None:
@@ -101,12 +103,13 @@ class PaintedScreen(Screen):
             self.refresh_bindings()
         if old is not None and old.step and step and old.step.index != step.index:
             self.notice("")  # a new step: the last step's notice no longer holds
-        if (
-            step is not None
-            and step.message
-            and (old is None or old.step is None or old.step.message != step.message)
-        ):
+        before = old.step.message if old is not None and old.step is not None else ""
+        if step is not None and step.message and step.message != before:
             self.notice(f"\u2718 {step.message}")
+        elif (
+            step is not None and before and not step.message and self._notice == f"\u2718 {before}"
+        ):
+            self.notice("")  # the runner's complaint no longer holds: do not leave it up
 
     def _show_meter(self) -> None:
         meter_id = self.profile.meters[self.meter_idx].id

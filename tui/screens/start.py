@@ -12,7 +12,7 @@ from pathlib import Path
 from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Vertical
+from textual.containers import VerticalScroll
 from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Footer, Input, Label, OptionList, Static
@@ -67,7 +67,7 @@ class StartScreen(Screen[StartChoice]):
         self.operator = operator
 
     def compose(self) -> ComposeResult:
-        with Vertical(id="start-box"):
+        with VerticalScroll(id="start-box"):  # a short terminal scrolls, nothing is cut
             yield Label(f"benchwalk  \u2014  {self.bench}", id="start-title")
             yield Static("Operator name (recorded with every decision):")
             yield Input(value=self.operator, placeholder="your name", id="operator")
@@ -93,6 +93,7 @@ class StartScreen(Screen[StartChoice]):
         if self.profile_path is not None:
             box = self.query_one("#campaign", Static)
             box.border_title = "what this sequence will calibrate"
+            box.border_subtitle = f"full table: benchwalk campaign {self.profile_path.name}"
             box.update("\u2026 working out which model parameters the sequence measures")
             self._plan(self.profile_path)
 
@@ -107,10 +108,7 @@ class StartScreen(Screen[StartChoice]):
         if event.state is WorkerState.SUCCESS:
             self.plan = event.worker.result
             assert self.plan is not None
-            pal = palette_of(self.app)
-            text = campaign_text(self.plan, pal)
-            text.append(f"full table: benchwalk campaign {self.profile_path}", pal.style("muted"))
-            box.update(text)
+            box.update(campaign_text(self.plan, palette_of(self.app)))
         elif event.state is WorkerState.ERROR:
             err = event.worker.error
             self.plan_error = str(err) if isinstance(err, BenchwalkError) else repr(err)

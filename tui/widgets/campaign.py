@@ -45,5 +45,5 @@ def campaign_text(plan: CampaignPlan, pal: Palette = DEFAULT) -> Text:
         out.append(f"to measure {name}, add a step {_step(c)}\n")
     if plan.candidates:
         out.append("+ ", style=pal.style("ok", bold=True))
-        out.append(f"most informative added step: {_step(plan.candidates[0])}\n")
+        out.append(f"most informative added step: {_step(plan.candidates[0])}")
     return out

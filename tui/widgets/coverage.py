@@ -70,8 +70,8 @@ def coverage_text(
     pal: Palette = DEFAULT,
     busy: bool = False,
 ) -> Text:
-    """The table (one row per meter), then each undetectable error with its reason, then the
-    estimate's findings. ``source`` says which captures the estimate used."""
+    """The estimate's findings, the fit, the table (one row per meter), then each undetectable
+    error with its reason. ``source`` says which captures the estimate used."""
     out = Text()
     out.append(source + "\n", style=pal.style("muted"))
     if e is None:
@@ -81,6 +81,8 @@ def coverage_text(
         out.append(f"\u2718 the estimate did not converge: {e.why}\n", style=pal.style("error"))
         out.append("coverage and gains need a converged estimate; the local checks still stand")
         return out
+    for f in e.findings:
+        out.append(f"\u2718 {f.sentence}\n", style=pal.style("error", bold=True))
     fit = "\u2714 fits" if e.chi2_ok else "\u2718 does not fit"
     out.append(
         f"model {fit}: chi2 {e.chi2:.1f} (99 % limit {e.chi2_limit:.1f}, {e.dof} dof), "
@@ -91,6 +93,9 @@ def coverage_text(
     out.append(head + f"{'V gain':<14}{'I gain':<14}\n", style="bold underline")
     for mid in meters:
         out.append(f"{mid:<6}", style="bold")
+        if mid not in e.meters:
+            out.append("no readings in these steps (not live)\n", style=pal.style("muted"))
+            continue
         cells = (
             _ratio_cell(e, mid, "vt_ratio"),
             _ratio_cell(e, mid, "ct_ratio"),
@@ -104,11 +109,10 @@ def coverage_text(
             out.append(f"{text:<14}", style=pal.style(role))
         out.append("\n")
     out.append(
-        "\u00b1x % = smallest ratio error detected; . = not detectable; ! = gain beyond class\n"
+        "\u00b1x % smallest ratio error detected  . not detectable  ! gain beyond class\n",
+        style=pal.style("muted"),
     )
     out.append_text(_reasons(e, meters, pal))
-    for f in e.findings:
-        out.append(f"\n\u2718 {f.sentence}", style=pal.style("error", bold=True))
     return out
 
 
