@@ -31,7 +31,6 @@ from ..widgets.trend import TREND_KEYS
 from .coverage import CoverageScreen
 from .help import HelpScreen
 from .layout import VIEWS, title_panes
-from .painting import PaintedScreen
 from .step_commands import StepCommandScreen
 
 
@@ -54,7 +53,7 @@ class MainScreen(StepCommandScreen):
         """Paint the last frame again (a new theme: every widget takes its new colours)."""
         self.query_one(ReadingsGrid).refresh()
         if self.frame is not None:
-            PaintedScreen.show_frame(self, self.frame, count=False)  # paint only
+            self.paint(self.frame, count=False)  # paint only: no export, no alert
 
     def on_resize(self) -> None:
         self._apply_layout()

@@ -74,9 +74,13 @@ class PaintedScreen(Screen):
         for line in lines:
             log.write_line(line)
 
-    def show_frame(self, frame: Frame, count: bool = True) -> None:
-        """Paint one frame; every widget repaints only what changed (``count``: a new frame,
-        not the last one painted again)."""
+    def show_frame(self, frame: Frame) -> None:
+        """Paint one frame; every widget repaints only what changed."""
+        self.paint(frame)
+
+    def paint(self, frame: Frame, count: bool = True) -> None:
+        """Paint ``frame`` (``count``: a new frame, not the last one painted again, as after
+        a change of theme)."""
         old = self.frame
         self.frame = frame
         self.frames_shown += count
