@@ -3,7 +3,7 @@ readable on its background.
 
 Readability is the WCAG 2.1 success criterion 1.4.3 (contrast, minimum): a contrast ratio of
 at least 4.5:1 for normal text, with relative luminance and contrast ratio as WCAG 2.1 defines
-them. The console is driven with the pilot on one fixed frame (``test_tui_snapshots.StillFeed``)
+them. The console is driven with the pilot on one fixed frame (``support.console.StillFeed``)
 with M2 failing a check, M4 offline and M6 failing its link, and the styles asserted are those
 of the rendered strips (segments), not of the code that builds them.
 """
@@ -15,7 +15,8 @@ from dataclasses import replace
 import pytest
 from rich.segment import Segment
 from rich.style import Style
-from test_tui_snapshots import StillFeed, _show
+from support.console import StillFeed
+from support.console import show_still as _show
 from textual.color import Color
 from textual.geometry import Region
 from textual.theme import BUILTIN_THEMES

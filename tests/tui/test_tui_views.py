@@ -1,6 +1,6 @@
 """The help, screenshot, coverage and start-screen campaign views, driven with the pilot.
 
-The coverage view runs on the compressed demo (``test_tui_pilot.fast_demo``: the demo's own
+The coverage view runs on the compressed demo (``support.console.fast_demo``: the demo's own
 steps, switches, maps and meters on the simulated bench, real Modbus on loopback) and is
 compared with ``meas.estimate`` run on the very captures the view used; the campaign summary
 is the demo's, with and without the steps that load the tie (CALIBRATION_NOTES.md §4.8 [C]).
@@ -12,14 +12,15 @@ import re
 from dataclasses import replace
 from pathlib import Path
 
-from test_tui_pilot import ARM_KEY, SEND_KEY, fast_demo, make_app, start, tap, until
-from test_tui_snapshots import _app, _show
+from support.console import fast_demo, make_app, start, tap, until
+from support.console import show_still as _show
+from support.console import still_app as _app
 from textual.widgets import Static
 
 from meas.estimate import Estimator
 from meas.profile import load_profile
 from tui.app import BenchwalkApp
-from tui.keys import KEYS, display_keys
+from tui.keys import ARM_KEY, KEYS, SEND_KEY, display_keys
 from tui.screens.coverage import CoverageScreen
 from tui.screens.help import HelpScreen
 from tui.screens.main import MainScreen
