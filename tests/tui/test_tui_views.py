@@ -12,6 +12,7 @@ import re
 from dataclasses import replace
 from pathlib import Path
 
+import pytest
 from support.console import fast_demo, make_app, start, tap, until
 from support.console import show_still as _show
 from support.console import still_app as _app
@@ -102,6 +103,7 @@ def _captured(app, step: str) -> bool:
     return bool(app.bridge._captured.get(step))
 
 
+@pytest.mark.slow  # walks steps on the simulated bench, or a second campaign analysis
 async def test_coverage_view_shows_the_estimators_coverage_and_gains_without_stopping_polling(
     tmp_path,
 ):
@@ -149,6 +151,7 @@ async def test_coverage_view_shows_the_estimators_coverage_and_gains_without_sto
         await until(pilot, lambda: isinstance(app.screen, MainScreen), 5, "back to the bench")
 
 
+@pytest.mark.slow  # walks steps on the simulated bench, or a second campaign analysis
 async def test_coverage_view_names_a_wrong_vt_ratio_on_its_meter(tmp_path):
     # vt-ratio:M2:1.1 is the test's own injected fault: M2's voltages read 10 % high. Once the
     # trunk is energized M1, M2 and M3 all see bus voltages the model ties together.
@@ -219,6 +222,7 @@ async def test_start_screen_shows_the_tie_prior_only_and_proposes_a_step_that_lo
     assert re.search(r"to measure L4\.\w+, add a step after step [\w-]+: .*close TIE", text), text
 
 
+@pytest.mark.slow  # walks steps on the simulated bench, or a second campaign analysis
 async def test_start_screen_of_the_demo_as_written_measures_the_tie(tmp_path):
     text, _ = await _campaign_text(tmp_path, fast_demo(tmp_path))
     assert "L4.r_ohm" not in text
