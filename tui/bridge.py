@@ -152,14 +152,14 @@ class Bridge:
         snapshot = await anext(self._snapshots)
         await self.runner.tick(snapshot)
         self.last_snapshot = snapshot
-        self._note_capture(snapshot)
-        return self.frame()
+        view = self.runner.view()
+        self._note_capture(snapshot, view)
+        return self.frame(view)
 
-    def _note_capture(self, snapshot: Snapshot) -> None:
+    def _note_capture(self, snapshot: Snapshot, view: Any) -> None:
         """Keep the snapshot if this tick took it as a capture (the step's capture count grew;
         a retake drops the step's earlier picks). Live snapshots are kept only once the
         readings are steady: a switching transient is no configuration to judge."""
-        view = self.runner.view()
         state = str(getattr(view.state, "value", view.state))
         if getattr(view, "overall", "") == "settling" or state in SWITCHING_STATES:
             self._recent.clear()
@@ -194,8 +194,10 @@ class Bridge:
             words += " (live readings still settling: left out)"
         return steps, words
 
-    def frame(self) -> Frame:
-        view = self.runner.view()
+    def frame(self, view: Any = None) -> Frame:
+        """The console's frame of the runner's view (``view``: one just taken this cycle)."""
+        if view is None:
+            view = self.runner.view()
         mark = (view.index, str(view.state))
         if mark != self._last_state:
             step = view.step
