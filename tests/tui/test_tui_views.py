@@ -197,18 +197,23 @@ def _without_tie(tmp: Path) -> Path:
 async def _campaign_text(tmp: Path, profile: Path) -> tuple[str, bool]:
     app = BenchwalkApp(lambda op, r: None, bench_name="demo", profile_path=profile)
     async with app.run_test(size=(100, 30)) as pilot:
-        await until(pilot, lambda: isinstance(app.screen, SafetyScreen), 5, "safety screen")
+        await until(pilot, lambda: isinstance(app.screen, SafetyScreen), 15, "safety screen")
         await tap(pilot, "y")
-        await until(pilot, lambda: isinstance(app.screen, StartScreen), 5, "start screen")
+        await until(pilot, lambda: isinstance(app.screen, StartScreen), 15, "start screen")
         screen = app.screen
         await until(
             pilot,
             lambda: screen.plan is not None or "working out" in _plain(screen, "#campaign"),
-            5,
+            15,
             "the campaign box",
         )
         at_once = screen.plan is None  # the screen is up and usable while the analysis runs
-        assert app.focused is not None and app.focused.id == "operator"
+        await until(
+            pilot,
+            lambda: app.focused is not None and app.focused.id == "operator",
+            15,
+            "the name field focused",
+        )
         await until(pilot, lambda: screen.plan is not None or screen.plan_error, 90, "campaign")
         assert not screen.plan_error, screen.plan_error
         return _plain(screen, "#campaign"), at_once
