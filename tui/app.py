@@ -24,11 +24,12 @@ from meas.verdict import EXIT_STOPPED
 
 from .bridge import Bridge
 from .commands.headless import resume_command
-from .keys import KEYS, QUIT
+from .keys import KEYS, QUIT, SCREENSHOT
 from .screens.main import MainScreen
 from .screens.safety import SafetyScreen
 from .screens.start import StartChoice, StartScreen
 from .user_settings import load_settings, remember_theme
+from .widgets.palette import css_variables, palette_for
 
 # (operator, resume session id or None) -> a session (or an awaitable of one)
 SessionFactory = Callable[[str, str | None], Any]
@@ -37,7 +38,10 @@ SessionFactory = Callable[[str, str | None], Any]
 class BenchwalkApp(App[int]):
     CSS_PATH = "console.tcss"
     TITLE = "benchwalk"
-    BINDINGS = [Binding(QUIT, "quit", "Quit", priority=True, id="app.quit")]
+    BINDINGS = [
+        Binding(QUIT, "quit", "Quit", priority=True, id="app.quit"),
+        Binding(SCREENSHOT, "screenshot", "Screenshot", show=False, id="app.screenshot"),
+    ]
 
     def __init__(
         self,
@@ -50,8 +54,12 @@ class BenchwalkApp(App[int]):
         skip_intro: bool = False,
         autopoll: bool = True,
         out_dir: Path | None = None,
+        profile_path: Path | None = None,
     ) -> None:
         super().__init__()
+        self.profile_path = profile_path  # the start screen's campaign analysis reads it
+        # where Ctrl+S saves screenshots (None: textual's default, the downloads folder)
+        self.screenshot_dir: Path | None = None
         self.session_factory = session_factory
         self.bench_name = bench_name
         self.list_sessions = list_sessions or (lambda: [])
@@ -64,6 +72,17 @@ class BenchwalkApp(App[int]):
         self.exit_message = ""
         self.verdict_line = ""
         self.stop_signal = ""
+
+    def get_css_variables(self) -> dict[str, str]:
+        """The theme's variables plus ``$bw-*``: its state colours made readable on its
+        background (``tui.widgets.palette``); recomputed on every theme change."""
+        variables = super().get_css_variables()
+        return {**variables, **css_variables(palette_for(self.current_theme))}
+
+    def action_screenshot(self, filename: str | None = None, path: str | None = None) -> None:
+        """textual's screenshot (an SVG of the screen), into ``screenshot_dir`` when set."""
+        folder = path or (str(self.screenshot_dir) if self.screenshot_dir else None)
+        self.deliver_screenshot(filename, folder)
 
     # ------------------------------------------------------------------ start-up
     def on_mount(self) -> None:
@@ -99,7 +118,15 @@ class BenchwalkApp(App[int]):
         if self.resume:  # asked for on the command line: listed first after "new", highlighted
             sessions = [(self.resume, "(asked for)")] + [x for x in sessions if x[0] != self.resume]
             highlight = 1
-        self.push_screen(StartScreen(self.bench_name, sessions, self.operator, highlight=highlight))
+        self.push_screen(
+            StartScreen(
+                self.bench_name,
+                sessions,
+                self.operator,
+                highlight=highlight,
+                profile_path=self.profile_path,
+            )
+        )
 
     def on_start_screen_chosen(self, message: StartScreen.Chosen) -> None:
         self.run_worker(self._open(message.choice), exclusive=True, group="open")
@@ -212,6 +239,7 @@ def run_console(
         operator=operator,
         resume=resume,
         out_dir=Path(out) if out else None,
+        profile_path=Path(profile_path) if profile_path else None,
     )
     code = app.run()
     if app.exit_message:

@@ -12,6 +12,7 @@ import asyncio
 import contextlib
 import inspect
 import time
+from collections import deque
 from collections.abc import AsyncGenerator, Callable, Sequence
 from pathlib import Path
 from typing import Any
@@ -23,6 +24,9 @@ from meas.walk.runner import Runner
 
 from .frame import Frame, StepInfo
 from .keys import action_keys, display_key, key_of
+
+LIVE_WINDOW = 4  # snapshots of the live configuration the coverage view adds (as the check does)
+SWITCHING_STATES = ("operating", "verifying", "settling")  # runner states of a changing bench
 
 
 def frame_from_view(
@@ -125,6 +129,10 @@ class Bridge:
         self._snapshots: AsyncGenerator[Snapshot, None] | None = None
         self.last_snapshot: Snapshot | None = None
         self.transitions = 0  # step or state changes seen; tests wait on it
+        # the captured snapshots of each step in this console run (for the coverage view),
+        # and the last few snapshots whatever their role (the live configuration)
+        self._captured: dict[str, list[Snapshot]] = {}
+        self._recent: deque[Snapshot] = deque(maxlen=LIVE_WINDOW)
 
     @property
     def simulated(self) -> bool:
@@ -144,10 +152,52 @@ class Bridge:
         snapshot = await anext(self._snapshots)
         await self.runner.tick(snapshot)
         self.last_snapshot = snapshot
-        return self.frame()
-
-    def frame(self) -> Frame:
         view = self.runner.view()
+        self._note_capture(snapshot, view)
+        return self.frame(view)
+
+    def _note_capture(self, snapshot: Snapshot, view: Any) -> None:
+        """Keep the snapshot if this tick took it as a capture (the step's capture count grew;
+        a retake drops the step's earlier picks). Live snapshots are kept only once the
+        readings are steady: a switching transient is no configuration to judge."""
+        state = str(getattr(view.state, "value", view.state))
+        if getattr(view, "overall", "") == "settling" or state in SWITCHING_STATES:
+            self._recent.clear()
+        else:
+            self._recent.append(snapshot)
+        step = getattr(view, "step", None)
+        if step is None or getattr(step, "capture", None) is None:
+            return
+        n = int(getattr(view, "captured", 0))
+        got = self._captured.setdefault(step.id, [])
+        if n < len(got):
+            del got[n:]
+        if n > len(got):
+            got.append(snapshot)
+
+    def captures_so_far(self) -> tuple[list[list[Snapshot]], str]:
+        """The estimator's input for the coverage view: one list of snapshots per captured
+        step of this run, plus the live configuration when no captured step had it; and a
+        sentence saying what that is."""
+        steps = [list(v) for v in self._captured.values() if v]
+        seen = {tuple(sorted(v[0].switches.items())) for v in steps}
+        live = (
+            [s for s in self._recent if s.switches == self._recent[-1].switches]
+            if self._recent
+            else []
+        )
+        words = f"from {len(steps)} captured step(s) of this console run"
+        if live and tuple(sorted(live[-1].switches.items())) not in seen:
+            steps.append(live)
+            words += f" + {len(live)} steady live snapshot(s)"
+        elif not live:
+            words += " (live readings still settling: left out)"
+        return steps, words
+
+    def frame(self, view: Any = None) -> Frame:
+        """The console's frame of the runner's view (``view``: one just taken this cycle)."""
+        if view is None:
+            view = self.runner.view()
         mark = (view.index, str(view.state))
         if mark != self._last_state:
             step = view.step

@@ -25,6 +25,7 @@ class Key:
     group: str
     footer: bool = True
     command: str = ""  # the runner command this key gives (meas.walk.states.COMMANDS), if any
+    also: tuple[str, ...] = ()  # other keys bound to the same action (shown beside it)
 
 
 KEYS: tuple[Key, ...] = (
@@ -120,11 +121,20 @@ KEYS: tuple[Key, ...] = (
     Key(
         "e", "export", "Export", "Export the dataset of this session now.", "session", footer=False
     ),
-    Key("f1", "help", "Help", "Show every key.", "session"),
+    Key(
+        "k",
+        "coverage",
+        "Coverage",
+        "Show, per meter, which errors the session so far can detect and the estimated gains.",
+        "view",
+    ),
+    Key("question_mark", "help", "Help", "Show every key.", "session", also=("f1",)),
 )
 
 
 QUIT = "ctrl+q"  # the App's quit key (kept out of KEYS: it is not a screen action)
+SCREENSHOT = "ctrl+s"  # the App's screenshot key (textual's screenshot action, every screen)
+PALETTE = "ctrl+p"  # textual's command palette: every action by name, and the theme picker
 
 # key action -> the runner command it gives (step keys only)
 COMMAND_OF: dict[str, str] = {k.action: k.command for k in KEYS if k.command}
@@ -133,16 +143,24 @@ ACTION_OF_KEY: dict[str, str] = {k.key: k.action for k in KEYS}
 
 
 def bindings() -> list[Binding]:
-    return [
-        Binding(k.key, k.action, k.label, show=k.footer, id=f"bench.{k.action.split('(')[0]}")
-        for k in KEYS
-    ]
+    out = []
+    for k in KEYS:
+        name = k.action.split("(")[0]
+        out.append(Binding(k.key, k.action, k.label, show=k.footer, id=f"bench.{name}"))
+        out += [Binding(a, k.action, k.label, show=False, id=f"bench.{name}.{a}") for a in k.also]
+    return out
 
 
 def display_key(key: str) -> str:
     if key.startswith("ctrl+"):
         return "Ctrl+" + display_key(key.removeprefix("ctrl+"))
-    return {"shift+m": "Shift+M", "f1": "F1"}.get(key, key.upper() if len(key) == 1 else key)
+    named = {"shift+m": "Shift+M", "f1": "F1", "question_mark": "?", "escape": "Esc"}
+    return named.get(key, key.upper() if len(key) == 1 else key)
+
+
+def display_keys(k: Key) -> str:
+    """A key and its aliases as shown ("? or F1")."""
+    return " or ".join(display_key(x) for x in (k.key, *k.also))
 
 
 def key_of(name: str) -> str:

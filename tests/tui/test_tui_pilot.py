@@ -9,13 +9,12 @@ register maps and meters are the demo's own.
 from __future__ import annotations
 
 import json
-import re
 import time
 from pathlib import Path
 
 import pandas as pd
 import pytest
-from textual import events
+from support.console import fast_demo, make_app, start, tap, until
 from textual.widgets import Static
 
 from meas.session import Session
@@ -24,98 +23,8 @@ from tui.keys import ARM_KEY, KEYS, SEND_KEY, key_of
 from tui.screens.main import MainScreen
 from tui.screens.prompt import Alert, TextPrompt
 from tui.screens.remote import RemoteConfirm
-from tui.screens.safety import SafetyScreen
-from tui.screens.start import StartScreen
 from tui.screens.summary import WalkSummary
 from tui.widgets.step import StepDetail
-
-DEMO_DIR = Path(__file__).resolve().parents[2] / "profiles_demo"
-FAST_CAPTURE = "{ snapshots = 1, interval_s = 0.2, settle = { window_s = 0.6, rel_spread = 0.005, timeout_s = 6.0 } }"
-
-
-def fast_demo(tmp: Path) -> Path:
-    """The demo profile and sequence, copied with compressed timings."""
-    prof = (DEMO_DIR / "feeder_bench.toml").read_text()
-    prof = re.sub(r"settle_s = [0-9.]+", "settle_s = 0.1", prof)
-    # the noise check judges the last N polls; N = 3 keeps that history inside the 0.6 s window
-    prof = prof.replace(
-        "frozen_cycles = 10\n",
-        'frozen_cycles = 10\n\n[checks.overrides]\n"quality.noise.min_snapshots" = 3\n',
-        1,
-    )
-    seq = (DEMO_DIR / "feeder_bench.sequence.toml").read_text()
-    seq = re.sub(r"^capture = \{.*\}$", f"capture = {FAST_CAPTURE}", seq, flags=re.M)
-    (tmp / "feeder_bench.sequence.toml").write_text(seq)
-    out = tmp / "feeder_bench.toml"
-    out.write_text(prof)
-    return out
-
-
-_CHARS = {"enter": "\r", "escape": "\x1b", "space": " "}
-
-
-async def tap(pilot, *keys: str) -> None:
-    """Send key events through the driver in order, as ``pilot.press`` does, but without its
-    wait-for-idle after each key (up to 1 s while the in-process bench keeps the CPU busy);
-    the caller then waits on a condition with a deadline."""
-    for key in keys:
-        event = events.Key(key, _CHARS.get(key, key if len(key) == 1 else None))
-        event.set_sender(pilot.app)
-        pilot.app._driver.send_message(event)
-    await pilot.pause(0)
-
-
-async def until(pilot, cond, timeout: float, what: str):
-    """Wait for a condition with a deadline (never a fixed sleep as synchronization)."""
-    deadline = time.monotonic() + timeout
-    while not cond():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out after {timeout} s waiting for {what}")
-        await pilot.pause(0.02)
-
-
-def make_app(tmp: Path, faults=(), noise: bool = True, **kw) -> BenchwalkApp:
-    """The console on a new session of the fast demo copy (simulated bench, seed 11)."""
-    profile = fast_demo(tmp)
-
-    async def factory(operator: str, resume: str | None):
-        return await Session.new(
-            profile,
-            operator,
-            sessions_dir=tmp / "sessions",
-            simulate=True,
-            faults=list(faults),
-            seed=11,
-            noise=noise,
-        )
-
-    return BenchwalkApp(factory, bench_name="fast demo", out_dir=tmp / "out", **kw)
-
-
-async def start(pilot, app, name="AT"):
-    await until(pilot, lambda: isinstance(app.screen, SafetyScreen), 5, "safety screen")
-    await tap(pilot, "y")
-    await until(
-        pilot,
-        lambda: (
-            isinstance(app.screen, StartScreen)
-            and app.focused is not None
-            and app.focused.id == "operator"
-        ),
-        5,
-        "start screen, name field focused",
-    )
-    await tap(pilot, *name, "enter")  # name, then Enter moves to the session list
-    await until(
-        pilot, lambda: app.focused is not None and app.focused.id == "sessions", 5, "session list"
-    )
-    await tap(pilot, "enter")  # "start a new session" is highlighted
-    await until(pilot, lambda: isinstance(app.screen, MainScreen), 15, "main screen")
-    main = app.screen
-    await until(
-        pilot, lambda: main.frame is not None and main.frame.snapshot is not None, 10, "first frame"
-    )
-    return main
 
 
 def prompt_ready(app) -> bool:

@@ -9,9 +9,24 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Label, Static
 
-from ..keys import KEYS, QUIT, display_key
+from ..keys import KEYS, PALETTE, QUIT, SCREENSHOT, display_key, display_keys
 
 GROUP_TITLE = {"step": "The step", "view": "Views", "session": "Session"}
+
+# keys that are not bench-screen actions: (key as shown, what it does)
+APP_KEYS = (
+    ("up/down", "Move the meter selection in the readings view."),
+    (
+        display_key(PALETTE),
+        "Command palette: every action by name, and Theme to pick a light or dark theme "
+        "(kept for the next run).",
+    ),
+    (
+        display_key(SCREENSHOT),
+        "Save a screenshot of the screen (SVG, in your downloads folder; on every screen).",
+    ),
+    (display_key(QUIT), "Quit. The session stays in its journal and can be resumed."),
+)
 
 
 def help_table() -> Table:
@@ -22,10 +37,9 @@ def help_table() -> Table:
         table.add_row(f"[reverse] {title} [/reverse]", "")
         for k in KEYS:
             if k.group == group:
-                table.add_row(display_key(k.key), k.help)
-    table.add_row("up/down", "Move the meter selection in the readings view.")
-    table.add_row("Ctrl+P", "Command palette: every action by name.")
-    table.add_row(display_key(QUIT), "Quit. The session stays in its journal and can be resumed.")
+                table.add_row(display_keys(k), k.help)
+    for key, what in APP_KEYS:
+        table.add_row(key, what)
     return table
 
 
@@ -33,13 +47,14 @@ class HelpScreen(ModalScreen[None]):
     BINDINGS = [
         Binding("escape", "close", "Close", id="help.close"),
         Binding("f1", "close", "Close", show=False, id="help.f1"),
+        Binding("question_mark", "close", "Close", show=False, id="help.question_mark"),
     ]
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(classes="modal-box help-box"):
             yield Label("Keys", classes="modal-title")
-            yield Static(help_table())
-            yield Static("Esc = close", classes="modal-keys")
+            yield Static(help_table(), id="help-keys")
+            yield Static("Esc or ? = close", classes="modal-keys")
 
     def action_close(self) -> None:
         self.dismiss(None)

@@ -28,6 +28,7 @@ from ..messages import FrameReady, LogLines, PollTrouble
 from ..units import UNIT_MODE_LABEL, UNIT_MODES
 from ..widgets.readings import ReadingsGrid
 from ..widgets.trend import TREND_KEYS
+from .coverage import CoverageScreen
 from .help import HelpScreen
 from .layout import VIEWS, title_panes
 from .step_commands import StepCommandScreen
@@ -46,6 +47,13 @@ class MainScreen(StepCommandScreen):
             )
         if self.autopoll:
             self.poll()
+        self.app.theme_changed_signal.subscribe(self, lambda _theme: self.repaint())
+
+    def repaint(self) -> None:
+        """Paint the last frame again (a new theme: every widget takes its new colours)."""
+        self.query_one(ReadingsGrid).refresh()
+        if self.frame is not None:
+            self.paint(self.frame, count=False)  # paint only: no export, no alert
 
     def on_resize(self) -> None:
         self._apply_layout()
@@ -134,3 +142,6 @@ class MainScreen(StepCommandScreen):
 
     def action_help(self) -> None:
         self.app.push_screen(HelpScreen())
+
+    def action_coverage(self) -> None:
+        self.app.push_screen(CoverageScreen(self.bridge))

@@ -51,6 +51,7 @@ class PaintedScreen(Screen):
         self._auto_exported = self.finished_at_open
         self._remote_busy = False  # a remote command is being sent; its worker reports the outcome
         self.exported: Path | None = None
+        self._notice = ""  # the notice line's text
 
     # ------------------------------------------------------------------ layout
     def compose(self) -> ComposeResult:
@@ -65,6 +66,7 @@ class PaintedScreen(Screen):
 
     # ------------------------------------------------------------------ painting
     def notice(self, text: str) -> None:
+        self._notice = text
         self.query_one("#notice", Static).update(text)
 
     def log_lines(self, lines: Iterable[str]) -> None:
@@ -74,9 +76,14 @@ class PaintedScreen(Screen):
 
     def show_frame(self, frame: Frame) -> None:
         """Paint one frame; every widget repaints only what changed."""
+        self.paint(frame)
+
+    def paint(self, frame: Frame, count: bool = True) -> None:
+        """Paint ``frame`` (``count``: a new frame, not the last one painted again, as after
+        a change of theme)."""
         old = self.frame
         self.frame = frame
-        self.frames_shown += 1
+        self.frames_shown += count
         step = frame.step
         self.query_one(StepSummary).show(step)
         self.query_one(StepDetail).show(step)
@@ -89,7 +96,7 @@ class PaintedScreen(Screen):
                 r.subject for r in frame.checks if r.status.value == "fail" and r.subject in meters
             )
         )
-        if snap is not None:
+        if snap is not None and count:
             self.history.append(snap)
             grid.update_snapshot(snap)
             self.query_one(BenchView).show(snap.switches)
@@ -100,12 +107,13 @@ class PaintedScreen(Screen):
             self.refresh_bindings()
         if old is not None and old.step and step and old.step.index != step.index:
             self.notice("")  # a new step: the last step's notice no longer holds
-        if (
-            step is not None
-            and step.message
-            and (old is None or old.step is None or old.step.message != step.message)
-        ):
+        before = old.step.message if old is not None and old.step is not None else ""
+        if step is not None and step.message and step.message != before:
             self.notice(f"\u2718 {step.message}")
+        elif (
+            step is not None and before and not step.message and self._notice == f"\u2718 {before}"
+        ):
+            self.notice("")  # the runner's complaint no longer holds: do not leave it up
 
     def _show_meter(self) -> None:
         meter_id = self.profile.meters[self.meter_idx].id

@@ -13,30 +13,36 @@ from textual.widgets import Label, Static
 
 from meas.verdict import OUTCOME_WORDS, StepRecord
 
+from ..widgets.palette import DEFAULT, Palette, palette_of
 from ..widgets.step import verdict_style
 
+# outcome -> symbol and the palette role that repeats it in colour
 _MARK = {
-    "passed": ("\u2714", "green"),
-    "accepted_with_failures": ("!", "bold yellow"),
-    "skipped": ("\u2718", "bold red"),
-    "not_captured": ("\u2026", "bold red"),
+    "passed": ("\u2714", "ok"),
+    "accepted_with_failures": ("!", "warn"),
+    "skipped": ("\u2718", "error"),
+    "not_captured": ("\u2026", "error"),
 }
 
 
-def summary_text(records: Sequence[StepRecord], verdict_line: str, simulated: bool) -> Text:
+def summary_text(
+    records: Sequence[StepRecord], verdict_line: str, simulated: bool, pal: Palette = DEFAULT
+) -> Text:
     """One line per step (mark, id, outcome in words, reason), then the verdict."""
     out = Text()
     if simulated:
-        out.append(" SIMULATED BENCH \n", style="bold black on magenta")
+        out.append(" SIMULATED BENCH ", style=pal.badge("sim"))
+        out.append("\n")
     for r in records:
-        sym, style = _MARK[r.outcome]
+        sym, role = _MARK[r.outcome]
+        style = pal.style(role, bold=role != "ok")
         out.append(f"{sym} ", style=style)
         out.append(f"{r.step_id:<20} ", style="bold")
         out.append(OUTCOME_WORDS[r.outcome], style=style)
         if r.reason:
             out.append(f"  ({r.reason})")
         out.append("\n")
-    out.append(f"\n VERDICT {verdict_line} ", style=verdict_style(verdict_line))
+    out.append(f"\n VERDICT {verdict_line} ", style=verdict_style(verdict_line, pal))
     return out
 
 
@@ -58,7 +64,11 @@ class WalkSummary(ModalScreen[None]):
         with Vertical(classes="modal-box summary-box"):
             yield Label("END OF THE WALK", classes="modal-title")
             with VerticalScroll():
-                yield Static(summary_text(self.records, self.verdict_line, self.simulated))
+                yield Static(
+                    summary_text(
+                        self.records, self.verdict_line, self.simulated, palette_of(self.app)
+                    )
+                )
             yield Static(
                 "Enter = back to the bench (the dataset is being exported)", classes="modal-keys"
             )

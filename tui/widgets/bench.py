@@ -15,11 +15,13 @@ from textual.widgets import Static
 from meas.model import Profile
 from meas.network.topology import branch_conducts, live_buses
 
+from .palette import DEFAULT, Palette, palette_of
+
 LIVE_DOT, DEAD_DOT = "\u25cf", "\u25cb"
 KIND_GLYPH = {"source": "\u25c9 source", "load": "\u25bc load", "shunt": "\u2307 shunt"}
 
 
-def bench_text(profile: Profile, switch_states: Mapping[str, str]) -> Text:
+def bench_text(profile: Profile, switch_states: Mapping[str, str], pal: Palette = DEFAULT) -> Text:
     live = live_buses(profile, switch_states)
     conducts = branch_conducts(profile, switch_states)
     out = Text()
@@ -27,8 +29,10 @@ def bench_text(profile: Profile, switch_states: Mapping[str, str]) -> Text:
     for bus in profile.buses:
         on = bus.id in live
         dot = LIVE_DOT if on else DEAD_DOT
-        out.append(f"{bus.id}{dot} ", style="bold green" if on else "dim")
-    out.append("(\u25cf live \u25cb dead)\n", style="dim")
+        out.append(
+            f"{bus.id}{dot} ", style=pal.style("ok", bold=True) if on else pal.style("muted")
+        )
+    out.append("(\u25cf live \u25cb dead)\n", style=pal.style("muted"))
     switch_of = {sw.branch: sw for sw in profile.switches}
     meters_of: dict[str, list[str]] = {}
     for m in profile.meters:
@@ -40,7 +44,7 @@ def bench_text(profile: Profile, switch_states: Mapping[str, str]) -> Text:
         ends_live = all(b in live for b in br.buses) if br.to_bus else br.from_bus in live
         live_br = cond and ends_live
         wire = "\u2501\u2501" if live_br else "\u2504\u2504"
-        style = "green" if live_br else "dim"
+        style = pal.style("ok") if live_br else pal.style("muted")
         if sw is not None:
             state = switch_states.get(sw.id, "unknown")
             glyph = {"closed": "\u25a0 closed", "open": "\u25a1 open  "}.get(state, "? unknown")
@@ -56,7 +60,7 @@ def bench_text(profile: Profile, switch_states: Mapping[str, str]) -> Text:
         out.append(f" {far}", style=style if br.to_bus is None else "")
         tags = meters_of.get(br.id)
         if tags:
-            out.append("  " + ",".join(tags), style="dim")
+            out.append("  " + ",".join(tags), style=pal.style("muted"))
         out.append("\n")
     return out
 
@@ -70,7 +74,8 @@ class BenchView(Static):
         self._last: tuple | None = None
 
     def show(self, switch_states: Mapping[str, str]) -> None:
-        key = tuple(sorted(switch_states.items()))
+        pal = palette_of(self.app)
+        key = (tuple(sorted(switch_states.items())), pal.name)
         if key != self._last:
             self._last = key
-            self.update(bench_text(self.profile, switch_states))
+            self.update(bench_text(self.profile, switch_states, pal))

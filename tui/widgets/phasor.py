@@ -18,6 +18,7 @@ from meas.model import Profile
 from meas.snapshot import MeterBlock
 
 from ..units import eng
+from .palette import DEFAULT, Palette, palette_of
 from .readings import below_threshold, current_threshold
 
 PHASES = ("A", "B", "C")
@@ -69,13 +70,18 @@ def phasor_canvas(
 
 
 def phasor_text(
-    profile: Profile, meter_id: str, block: MeterBlock | None, width: int = 31, height: int = 11
+    profile: Profile,
+    meter_id: str,
+    block: MeterBlock | None,
+    width: int = 31,
+    height: int = 11,
+    pal: Palette = DEFAULT,
 ) -> Text:
     out = Text()
     meter = profile.meter(meter_id)
     out.append(f"{meter_id} {meter.label}\n", style="bold")
     if block is None:
-        out.append("no reading from this meter yet\n", style="dim")
+        out.append("no reading from this meter yet\n", style=pal.style("muted"))
         return out
     rmap = profile.meter_map(meter_id)
     has_angles = all(rmap.has(f"v_ang.{p}") and rmap.has(f"i_ang.{p}") for p in PHASES)
@@ -84,7 +90,7 @@ def phasor_text(
         out.append(
             f"current below {eng(current_threshold(profile, meter_id), 'A', 0).strip()}: "
             "no current phasors or PF (their angles would be noise)\n",
-            style="dim",
+            style=pal.style("muted"),
         )
     if has_angles:
         v = {p: (block.get(f"v_ln.{p}"), block.get(f"v_ang.{p}")) for p in PHASES}
@@ -93,14 +99,15 @@ def phasor_text(
             for p in PHASES
         }
         out.append("\n".join(phasor_canvas(v, i, width, height)) + "\n")
-        out.append("*=V (ABC) o=I (abc), vs V_A, ccw\n", style="dim")
+        out.append("*=V (ABC) o=I (abc), vs V_A, ccw\n", style=pal.style("muted"))
         for p in PHASES:
             mv, av = v[p]
             mi, ai = i[p]
             out.append(f"V{p}{eng(mv, 'V', 7)}{_deg(av)} I{p.lower()}{eng(mi, 'A', 8)}{_deg(ai)}\n")
     else:
         out.append(
-            f"map {rmap.id} has no angle registers: no phasor diagram.\n", style="bold yellow"
+            f"map {rmap.id} has no angle registers: no phasor diagram.\n",
+            style=pal.style("warn", bold=True),
         )
         out.append("current-to-voltage angle per phase from P and Q (reversed CT ~ 180 deg):\n")
         for p in PHASES:
@@ -120,10 +127,11 @@ class PhasorView(Static):
     def __init__(self, profile: Profile, **kw) -> None:
         super().__init__("", **kw)
         self.profile = profile
-        self._last: str | None = None
+        self._last: tuple[str, str] | None = None
 
     def show(self, meter_id: str, block: MeterBlock | None, height: int = 11) -> None:
-        text = phasor_text(self.profile, meter_id, block, height=height)
-        if text.plain != self._last:
-            self._last = text.plain
+        pal = palette_of(self.app)
+        text = phasor_text(self.profile, meter_id, block, height=height, pal=pal)
+        if (text.plain, pal.name) != self._last:
+            self._last = (text.plain, pal.name)
             self.update(text)

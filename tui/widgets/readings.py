@@ -8,6 +8,7 @@ only changed lines are refreshed, so 32 meters at 5 updates per second stay chea
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 from rich.segment import Segment
 from rich.style import Style
@@ -21,9 +22,11 @@ from meas.model import Profile
 from meas.snapshot import CommState, MeterBlock, Snapshot
 
 from ..units import UnitMode, eng, scale_factor, unit_label
+from .palette import Palette, palette_of
 
-# a cached line: the header ("header", width, mode) or a meter row (id, cells, selected, width)
-_StripKey = tuple[str, int, UnitMode] | tuple[str, tuple[str, ...], bool, int, bool]
+# a cached line: the header ("header", width, mode) or a meter row (id, cells, selected, width,
+# failing), each with the styles it was drawn in (the theme and the widget's colours)
+_StripKey = tuple[object, ...]
 
 COMM_TEXT = {
     CommState.OK: "ok",
@@ -43,16 +46,41 @@ COLUMNS = (
     ("f", 9),
 )
 
-_HEADER = Style(bold=True, underline=True)
-_NORMAL = Style()
-_SELECTED = Style(reverse=True)
-_FAILING = Style(bold=True, color="red")
-_COMM_STYLE = {
-    CommState.OK: Style(color="green"),
-    CommState.DEGRADED: Style(color="yellow", bold=True),
-    CommState.FAILING: Style(color="red", bold=True),
-    CommState.OFFLINE: Style(color="red", bold=True, reverse=True),
-}
+
+@dataclass(frozen=True)
+class GridStyles:
+    """The grid's styles for one theme and widget background (``palette``'s colours)."""
+
+    header: Style
+    normal: Style
+    selected: Style
+    ident: Style
+    failing: Style  # the id of a meter with a failing check
+    dim: Style  # values of a meter whose link is failing or offline
+    comm: dict[CommState | None, Style]
+
+
+def grid_styles(pal: Palette, base: Style) -> GridStyles:
+    """Styles from the theme palette over the widget's own colours (``base``): every segment
+    carries the theme's foreground and background, so a light theme gives a light grid."""
+    normal = base + Style(color=pal.foreground.rich_color)
+    return GridStyles(
+        header=normal + Style(bold=True, underline=True),
+        normal=normal,
+        selected=Style(
+            color=pal.background.rich_color, bgcolor=pal.foreground.rich_color, bold=True
+        ),
+        ident=normal + Style(bold=True),
+        failing=normal + pal.style("error", bold=True),
+        dim=normal + pal.style("muted"),
+        comm={
+            CommState.OK: normal + pal.style("ok"),
+            CommState.DEGRADED: normal + pal.style("warn", bold=True),
+            CommState.FAILING: normal + pal.style("error", bold=True),
+            CommState.OFFLINE: pal.badge("error"),
+            None: normal + pal.style("muted"),
+        },
+    )
 
 
 # Below this share of the meter's rated current its PF and current angles are noise: shown
@@ -165,6 +193,7 @@ class ReadingsGrid(Widget, can_focus=True):
         self.top = 0  # first meter row shown
         self._cells: dict[str, tuple[str, ...]] = {}
         self._strips: dict[_StripKey, Strip] = {}
+        self._styles: tuple[tuple[str, Style], GridStyles] | None = None
         self._states: dict[str, CommState | None] = {}
         self.failing: frozenset[str] = frozenset()  # meters with a failing check, marked
         self._detail: list[str] = []  # the selected meter per phase, below the rows
@@ -186,7 +215,7 @@ class ReadingsGrid(Widget, can_focus=True):
         self.refresh()
 
     def set_failing(self, meters: frozenset[str]) -> None:
-        """Mark the meters with a failing check (a ``\u2718`` beside the id, in red)."""
+        """Mark the meters with a failing check (a ``\u2718`` beside the id, in the theme's error colour)."""
         if meters != self.failing:
             changed = meters ^ self.failing
             self.failing = meters
@@ -260,16 +289,27 @@ class ReadingsGrid(Widget, can_focus=True):
             self.refresh(Region(0, y, self.size.width, 1))
 
     # -- Line API ------------------------------------------------------------------------
+    def styles_now(self) -> GridStyles:
+        """The grid's styles for the current theme and this widget's colours (cached)."""
+        pal = palette_of(self.app)
+        base = self.rich_style
+        key = (pal.name, base)
+        if self._styles is None or self._styles[0] != key:
+            self._styles = (key, grid_styles(pal, base))
+            self._strips.clear()
+        return self._styles[1]
+
     def render_line(self, y: int) -> Strip:
         width = self.size.width
+        st = self.styles_now()
         if y == 0:
             head: _StripKey = ("header", width, self.mode)
             if head not in self._strips:
                 text = "  " + " ".join(
                     h.rjust(w) if i > 1 else h.ljust(w) for i, (h, w) in enumerate(COLUMNS)
                 )
-                self._strips[head] = Strip([Segment(text[:width], _HEADER)]).extend_cell_length(
-                    width
+                self._strips[head] = Strip([Segment(text[:width], st.header)]).extend_cell_length(
+                    width, st.normal
                 )
             return self._strips[head]
         idx = self.top + y - 1
@@ -277,10 +317,10 @@ class ReadingsGrid(Widget, can_focus=True):
         if idx >= len(self.meter_ids) or y > shown:
             extra = y - shown - 2  # one blank line, then the selected meter per phase
             if 0 <= extra < len(self._detail):
-                return Strip([Segment(self._detail[extra][:width], _NORMAL)]).extend_cell_length(
-                    width
+                return Strip([Segment(self._detail[extra][:width], st.normal)]).extend_cell_length(
+                    width, st.normal
                 )
-            return Strip.blank(width)
+            return Strip.blank(width, st.normal)
         mid = self.meter_ids[idx]
         cells = self._cells.get(mid) or row_cells(self.profile, mid, None, self.mode)
         selected = idx == self.selected
@@ -288,31 +328,34 @@ class ReadingsGrid(Widget, can_focus=True):
         key: _StripKey = (mid, cells, selected, width, failing)
         strip = self._strips.get(key)
         if strip is None:
-            strip = self._build(cells, self._states.get(mid), selected, width, failing)
+            strip = self._build(st, cells, self._states.get(mid), selected, width, failing)
             self._strips = {k: v for k, v in self._strips.items() if k[0] != mid}
             self._strips[key] = strip
         return strip
 
     @staticmethod
     def _build(
+        st: GridStyles,
         cells: tuple[str, ...],
         state: CommState | None,
         selected: bool,
         width: int,
         failing: bool = False,
     ) -> Strip:
-        base = _SELECTED if selected else _NORMAL
+        """One meter row. The selected row is drawn inverted, but a failing or offline link
+        and a failing meter keep their own colours (their symbols say it as well)."""
+        base = st.selected if selected else st.normal
         dim = state in (CommState.FAILING, CommState.OFFLINE)
-        value_style = base + Style(dim=True) if dim else base
-        comm_style = (
-            base + _COMM_STYLE.get(state, Style(dim=True)) if state else base + Style(dim=True)
-        )
+        value_style = base if selected or not dim else st.dim
+        comm_style = st.comm.get(state, st.comm[None])
+        if selected and state in (CommState.OK, CommState.DEGRADED, None):
+            comm_style = base
         mark = ("\u25b6" if selected else " ") + ("\u2718" if failing else " ")
-        id_style = base + (_FAILING if failing else Style(bold=True))
+        id_style = st.failing if failing else (base if selected else st.ident)
         segs = [Segment(mark, id_style), Segment(cells[0], id_style)]
         segs.append(Segment(" ", base))
         segs.append(Segment(cells[1], comm_style))
         for c in cells[2:]:
             segs.append(Segment(" ", base))
             segs.append(Segment(c, value_style))
-        return Strip(segs).crop(0, width).extend_cell_length(width, base if selected else None)
+        return Strip(segs).crop(0, width).extend_cell_length(width, base)

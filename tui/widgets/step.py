@@ -2,51 +2,53 @@
 
 from __future__ import annotations
 
+from rich.style import Style
 from rich.text import Text
 from textual.widgets import Static
 
 from ..frame import StepInfo
 from ..keys import key_of
 from .checks import overall_text
+from .palette import DEFAULT, Palette, palette_of
 
 
-def verdict_style(line: str) -> str:
+def verdict_style(line: str, pal: Palette = DEFAULT) -> Style:
     """The verdict's colour; the word carries the meaning, colour only repeats it."""
     if line.startswith("PASS with"):
-        return "bold black on yellow"
+        return pal.badge("warn")
     if line.startswith("PASS"):
-        return "bold black on green"
-    return "bold white on red"
+        return pal.badge("ok")
+    return pal.badge("error")
 
 
-def step_summary(step: StepInfo | None) -> Text:
+def step_summary(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
     """Three lines that stay on screen in every view: where we are and what to press."""
     if step is None:
-        return Text("no sequence loaded", style="dim")
+        return Text("no sequence loaded", style=pal.style("muted"))
     out = Text()  # wraps: the NEXT line is never cut off at 80 columns
     if step.simulated:
-        out.append(" SIMULATED BENCH ", style="bold black on magenta")
+        out.append(" SIMULATED BENCH ", style=pal.badge("sim"))
         out.append(" ")
-    out.append(f" Step {step.index} of {step.total} ", style="bold reverse")
+    out.append(f" Step {step.index} of {step.total} ", style=pal.badge("plain"))
     out.append(f" {step.title}\n", style="bold")
     if step.finished and step.verdict:
-        out.append(f" VERDICT {step.verdict} ", style=verdict_style(step.verdict))
-        out.append("\n\u25b6 NEXT ", style="bold reverse")
+        out.append(f" VERDICT {step.verdict} ", style=verdict_style(step.verdict, pal))
+        out.append("\n\u25b6 NEXT ", style=pal.badge("plain"))
         out.append(" " + (step.next_action or "-"), style="bold")
         return out
-    out.append_text(overall_text(step.overall))
+    out.append_text(overall_text(step.overall, pal))
     out.append(f"  state: {step.state}")
     if step.settle is not None and not step.finished:
         filled = int(round(10 * min(max(step.settle, 0.0), 1.0)))
         out.append(f"  settle [{'#' * filled}{'.' * (10 - filled)}]")
     if step.to_capture:
         out.append(f"  captured {step.captured}/{step.to_capture}")
-    out.append("\n\u25b6 NEXT ", style="bold reverse")
+    out.append("\n\u25b6 NEXT ", style=pal.badge("plain"))
     out.append(" " + (step.next_action or "-"), style="bold")
     return out
 
 
-def step_detail(step: StepInfo | None) -> Text:
+def step_detail(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
     """Instruction and the switch table with every mismatch marked in words."""
     if step is None:
         return Text("")
@@ -65,26 +67,26 @@ def step_detail(step: StepInfo | None) -> Text:
         ]
         wrong = [sw for sw in step.expected if sw in flagged and sw not in unread]
         if good:
-            out.append("\u2714 as expected: ", style="green")
+            out.append("\u2714 as expected: ", style=pal.style("ok"))
             out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in good) + "\n")
         for sw in wrong:
             if step.state == "waiting" and sw in step.to_operate:  # not done yet, not wrong
-                out.append("\u2192 TO OPERATE", style="bold reverse")
+                out.append("\u2192 TO OPERATE", style=pal.badge("plain"))
                 out.append(
                     f" {sw}: reads {step.actual[sw]}, this step sets it {step.expected[sw]}\n"
                 )
                 continue
-            out.append("\u2718 MISMATCH", style="bold white on red")
+            out.append("\u2718 MISMATCH", style=pal.badge("error"))
             out.append(f" {sw}: expected {step.expected[sw]}, reads {step.actual[sw]}\n")
         if unread:
-            out.append("? STATUS NOT READ", style="bold black on yellow")
+            out.append("? STATUS NOT READ", style=pal.badge("warn"))
             out.append(
                 " "
                 + ", ".join(f"{sw} (expected {step.expected[sw]})" for sw in unread)
                 + ": no answer from the PLC; check the PLC and its link\n"
             )
         if on_word:
-            out.append("\u2022 no status point, on your word: ", style="dim")
+            out.append("\u2022 no status point, on your word: ", style=pal.style("muted"))
             out.append(", ".join(f"{sw} {step.expected[sw]}" for sw in on_word) + "\n")
     if step.hint:
         out.append(step.hint + "\n", style="italic")
@@ -103,12 +105,13 @@ class StepSummary(Static):
 
     def __init__(self, **kw) -> None:
         super().__init__("", **kw)
-        self._last: str | None = None
+        self._last: tuple[str, str] | None = None
 
     def show(self, step: StepInfo | None) -> None:
-        text = step_summary(step)
-        if text.plain != self._last:
-            self._last = text.plain
+        pal = palette_of(self.app)
+        text = step_summary(step, pal)
+        if (text.plain, pal.name) != self._last:
+            self._last = (text.plain, pal.name)
             self.update(text)
 
 
@@ -117,10 +120,11 @@ class StepDetail(Static):
 
     def __init__(self, **kw) -> None:
         super().__init__("", **kw)
-        self._last: str | None = None
+        self._last: tuple[str, str] | None = None
 
     def show(self, step: StepInfo | None) -> None:
-        text = step_detail(step)
-        if text.plain != self._last:
-            self._last = text.plain
+        pal = palette_of(self.app)
+        text = step_detail(step, pal)
+        if (text.plain, pal.name) != self._last:
+            self._last = (text.plain, pal.name)
             self.update(text)

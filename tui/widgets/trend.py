@@ -16,6 +16,7 @@ from textual.widgets import Static
 from meas.model import Profile
 
 from ..units import UnitMode, eng, scale_factor, unit_label
+from .palette import DEFAULT, Palette, palette_of
 
 TREND_KEYS = ("p.T", "q.T", "v_ll.AB", "i.A", "pf.T", "f.T")
 _BLOCKS = " \u2581\u2582\u2583\u2584\u2585\u2586\u2587\u2588"
@@ -57,6 +58,7 @@ def trend_text(
     mode: UnitMode,
     width: int = 48,
     height: int = 4,
+    pal: Palette = DEFAULT,
 ) -> Text:
     """``samples`` are (t_mono, primary value), oldest first."""
     out = Text()
@@ -66,9 +68,9 @@ def trend_text(
     shown = list(samples)[-width:]
     values = [v * k for _, v in shown]
     out.append(f"trend {meter_id} {key}", style="bold")
-    out.append(" (T = other quantity)", style="dim")
+    out.append(" (T = other quantity)", style=pal.style("muted"))
     if not shown:
-        out.append("  (no samples yet)\n", style="dim")
+        out.append("  (no samples yet)\n", style=pal.style("muted"))
         return out
     t_end = shown[-1][0]
     in_window = [t >= t_end - window_s for t, _ in shown]
@@ -83,13 +85,13 @@ def trend_text(
         )
     out.append("\n")
     for row in trend_rows(values, height):
-        out.append(row + "\n", style="cyan")
+        out.append(row + "\n", style=pal.style("accent"))
     first_win = in_window.index(True) if any(in_window) else len(shown)
     n_win = len(shown) - first_win
     axis = "\u2500" * first_win + (
         "\u2514" + "\u2500" * max(n_win - 2, 0) + "\u2518" if n_win >= 2 else "\u2502" * n_win
     )
-    out.append(axis, style="dim")
+    out.append(axis, style=pal.style("muted"))
     pct = "--" if not math.isfinite(spread) else f"{spread * 100:.2f} %"
     out.append(f"\n\u2514\u2518 settle window {window_s:g} s: spread {pct}\n", style="bold")
     return out
@@ -101,12 +103,15 @@ class TrendView(Static):
     def __init__(self, profile: Profile, **kw) -> None:
         super().__init__("", **kw)
         self.profile = profile
-        self._last: str | None = None
+        self._last: tuple[str, str] | None = None
 
     def show(
         self, meter_id: str, key: str, samples, window_s: float, mode: UnitMode, width: int = 48
     ) -> None:
-        text = trend_text(self.profile, meter_id, key, samples, window_s, mode, width=max(width, 8))
-        if text.plain != self._last:
-            self._last = text.plain
+        pal = palette_of(self.app)
+        text = trend_text(
+            self.profile, meter_id, key, samples, window_s, mode, width=max(width, 8), pal=pal
+        )
+        if (text.plain, pal.name) != self._last:
+            self._last = (text.plain, pal.name)
             self.update(text)
