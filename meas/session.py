@@ -14,6 +14,13 @@ seed and faults, so ``resume`` can start the same bench again and bring its swit
 the configuration the sequence had reached. A bench run as built (``as_built_seed``,
 ``model_errors``: its true network off the nameplate, ``meas.sim.as_built``) also records the
 seed and every applied value under ``as_built``; the profile keeps the nameplate model.
+
+The simulated bench runs on simulated time (``meas.sim.clock.CycleClock``): every poll cycle
+first advances it by one poll interval and writes the bench's registers for that instant, and
+the snapshot carries that time as ``t_mono``, so the runner settles and captures by cycles.
+``views()`` on the simulated bench runs the cycles in lockstep with its caller (the simulated
+technician acts between two cycles, a remote command's verification runs whole cycles), so
+two headless demos with the same seed journal the same values (docs/dataset-format.md).
 """
 
 from __future__ import annotations
@@ -21,6 +28,7 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import math
+import time
 from collections.abc import AsyncIterator, Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -50,6 +58,7 @@ if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
     from .poll.cycle import Poller
     from .sim.as_built import AsBuilt
     from .sim.bench import SimulatedBench
+    from .sim.clock import CycleClock
 
 SIM_OPERATOR = "simulated technician"
 
@@ -175,6 +184,7 @@ class Session:
         runner: Runner,
         bench: SimulatedBench | None = None,
         control: SwitchControl | None = None,
+        driver: BenchDriver | None = None,
     ) -> None:
         self.profile = profile
         self.journal = journal
@@ -182,6 +192,7 @@ class Session:
         self.runner = runner
         self.bench = bench
         self.control = control
+        self.driver = driver  # the simulated bench's clock, advanced by the poll cycles
         self._closed = False
         self._feed: asyncio.Task[None] | None = None  # polls and ticks the runner for views()
 
@@ -237,7 +248,7 @@ class Session:
             for sw, state in bench_start_state(profile, 0).items():
                 bench.operate_by_hand(sw, state)
         try:
-            journal = _create_journal(profile, operator, session_id, sessions_dir, meta)
+            journal = create_journal(profile, operator, session_id, sessions_dir, meta)
             sid = journal.session_id
         except BaseException:
             if bench is not None:
@@ -358,10 +369,15 @@ class Session:
         from .poll.control import SwitchControl
         from .poll.cycle import Poller
 
-        poller = Poller(profile)
+        driver = bench_driver(bench, profile.poll.interval_s)
+        poller = Poller(profile, before_cycle=driver.before_cycle if driver else None)
         try:
             await poller.start()
-            control = SwitchControl(profile, poller) if profile.control.enabled else None
+            control = None
+            if profile.control.enabled:
+                control = SwitchControl(profile, poller)
+                if driver is not None:
+                    control.clock, control.wait = driver.clock, driver.wait
             runner = Runner(
                 profile,
                 journal,
@@ -383,7 +399,7 @@ class Session:
                 await bench.stop()
             journal.close()
             raise
-        return cls(profile, journal, poller, runner, bench, control)
+        return cls(profile, journal, poller, runner, bench, control, driver)
 
     # ------------------------------------------------------------------ running
 
@@ -415,6 +431,10 @@ class Session:
         if self.runner.done:
             return
         await self._stop_feed()  # an earlier views() left unfinished: one feeder at a time
+        if self.driver is not None:
+            async for view in self._lockstep_views(self.driver):
+                yield view
+            return
         ticked = asyncio.Event()  # set after every tick: the caller's cue for a new picture
 
         async def feed() -> None:
@@ -442,6 +462,45 @@ class Session:
                     return
         finally:
             await self._stop_feed()
+
+    async def _lockstep_views(self, driver: BenchDriver) -> AsyncIterator[RunnerView]:
+        """``views()`` on the simulated bench: one cycle (poll, tick) between two pictures,
+        none while the caller acts, and whole cycles while a remote command is verified.
+
+        The technician there is simulated and never waits for a person, so the lockstep never
+        holds polling for a prompt. Cycles keep the poll interval on the wall clock (the
+        simulated time then stays beside the real one; an overrun delays, never bursts).
+        """
+        interval = self.profile.poll.interval_s
+        lock = asyncio.Lock()
+        fresh = False  # a cycle ran since the last picture
+        slot = time.monotonic()
+
+        async def one_cycle() -> None:
+            nonlocal fresh, slot
+            async with lock:
+                await asyncio.sleep(max(0.0, slot - time.monotonic()))
+                slot = max(slot + interval, time.monotonic())
+                snap = await self.poller.poll_once()
+                await self.runner.tick(snap)
+                fresh = True
+
+        control = self.control
+        if control is not None:
+            pause, control.wait = control.wait, one_cycle
+        driver.lockstep = True
+        try:
+            while True:
+                if not fresh:
+                    await one_cycle()
+                fresh = False
+                yield self.runner.view()
+                if self.runner.done:
+                    return
+        finally:
+            driver.lockstep = False
+            if control is not None:
+                control.wait = pause
 
     async def _stop_feed(self) -> None:
         feeder, self._feed = self._feed, None
@@ -502,19 +561,22 @@ def _as_built(
     return from_options(profile, seed, model_errors)
 
 
-def _create_journal(
+def create_journal(
     profile: Profile,
     operator: str,
     session_id: str | None,
     sessions_dir: Path | None,
     meta: dict[str, Any],
+    *,
+    base_id: str | None = None,
 ) -> Journal:
     """A new journal under a given id, or a fresh id unique in the folder: two sessions
-    started in the same second get ``ID``, ``ID-2``, ... (the session lock settles a race)."""
+    started in the same second get ``ID``, ``ID-2``, ... (the session lock settles a race).
+    ``base_id`` is the fresh id to start from (default: the time now and the bench's name)."""
     if session_id is not None:
         path = session_path(session_id, sessions_dir)
         return Journal.create(path, profile, operator=operator, session_id=session_id, meta=meta)
-    base = new_session_id(profile.bench.name)
+    base = base_id or new_session_id(profile.bench.name)
     for n in range(1, 1000):
         sid = base if n == 1 else f"{base}-{n}"
         path = session_path(sid, sessions_dir)
@@ -525,6 +587,49 @@ def _create_journal(
         except (SessionExists, SessionBusy):
             continue
     raise BenchwalkError(f"{path.parent}: too many sessions started in the same second")
+
+
+class BenchDriver:
+    """Advances the simulated bench with the poll cycles (``meas.sim.clock.CycleClock``).
+
+    ``before_cycle`` runs before each poll: the bench moves on and writes its registers for the
+    new instant, which becomes the snapshot's ``t_mono``. In ``lockstep`` (``Session.views``)
+    every cycle is one poll interval of simulated time, whatever the wall clock did, which
+    makes a headless walk reproducible; otherwise (the console) the bench moves on by the
+    poll slots that passed on the wall clock, so it keeps real time on a slow machine.
+    ``wait`` is the switch control's pause between two status reads when nobody polls.
+    """
+
+    def __init__(self, bench: SimulatedBench, clock: CycleClock, interval_s: float) -> None:
+        self.bench, self.clock, self.interval_s = bench, clock, interval_s
+        self.lockstep = False
+        self._lock = asyncio.Lock()  # one update at a time: the poller's and the control's
+        self._wall: float | None = None
+
+    async def before_cycle(self) -> float:
+        async with self._lock:
+            now = time.monotonic()
+            slots = 1
+            if not self.lockstep and self._wall is not None:
+                slots = max(1, round((now - self._wall) / self.interval_s))
+            self._wall = now
+            t = self.clock.advance(slots)
+            await self.bench.update(t)
+            return t
+
+    async def wait(self) -> None:
+        await asyncio.sleep(self.interval_s)
+        await self.before_cycle()
+
+
+def bench_driver(bench: SimulatedBench | None, interval_s: float) -> BenchDriver | None:
+    """The driver of a simulated bench on a cycle clock; None for a real bench."""
+    if bench is None:
+        return None
+    from .sim.clock import CycleClock
+
+    clock = bench.clock
+    return BenchDriver(bench, clock, interval_s) if isinstance(clock, CycleClock) else None
 
 
 async def _start_bench(
@@ -542,7 +647,11 @@ async def _start_bench(
         raise BenchwalkError(f"seed: {why}")
     parsed = tuple(parse_fault(f) for f in faults)
     validate_faults(profile, parsed)
+    from .sim.clock import CycleClock
+
     kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}
+    kwargs["clock"] = CycleClock(profile.poll.interval_s)  # simulated time, by poll cycles
+    kwargs["self_updating"] = False  # the poller advances it before each cycle
     if seed is not None:
         kwargs["seed"] = seed
     if built is not None:
