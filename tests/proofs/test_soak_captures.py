@@ -49,8 +49,9 @@ async def test_heap_does_not_grow_with_the_captures_of_a_step(tmp_path):
     try:
         snap = await s.poller.poll_once()
         r = s.runner
-        tracemalloc.start()
+        tracemalloc.start(5)
         marks: dict[int, int] = {}
+        shots: dict[int, tracemalloc.Snapshot] = {}
         tick = 0
         while r.view().state is not State.REVIEWING:
             tick += 1
@@ -69,9 +70,13 @@ async def test_heap_does_not_grow_with_the_captures_of_a_step(tmp_path):
             if v.captured in (WARM_UP, CAPTURES - 1) and v.captured not in marks:
                 gc.collect()
                 marks[v.captured] = tracemalloc.get_traced_memory()[0]
+                shots[v.captured] = tracemalloc.take_snapshot()
         tracemalloc.stop()
         assert r.view().captured == CAPTURES
     finally:
         await s.close()
     per_capture = (marks[CAPTURES - 1] - marks[WARM_UP]) / (CAPTURES - 1 - WARM_UP)
-    assert per_capture < BOUND_PER_CAPTURE, f"{per_capture:.0f} bytes per capture"
+    growth = shots[CAPTURES - 1].compare_to(shots[WARM_UP], "lineno")[:4]
+    assert per_capture < BOUND_PER_CAPTURE, (
+        f"{per_capture:.0f} bytes per capture; largest growth: {[str(g) for g in growth]}"
+    )

@@ -21,7 +21,6 @@ from meas.session import Session
 from meas.walk.runner import Runner
 from meas.walk.states import State
 
-
 # The simulated bench's time advances one poll interval per cycle in ``Session.views`` (its
 # lockstep), and a loaded machine runs fewer cycles per second than the poll rate: the wall
 # clock deadlines below are this many times the simulated seconds a test expects to need.

@@ -1,176 +1,35 @@
-"""One session's wiring: poller, checks, journal and runner (and a simulated bench for demos).
+"""``Session``: one session's parts, built by ``new`` or ``resume``, run by ``views()``.
 
-Headless mode and the console both use it: ``async for view in session.views(): ...`` runs
-the poll loop, feeds every snapshot to the runner (which journals it with its role) and
-yields the runner's picture after each one; the caller reacts by calling runner commands.
-
-What is journalled: every snapshot polled while a step operates, verifies, settles or
-captures (roles ``settling`` / ``capture``, and ``live`` for the polls between two capture
-picks); while waiting for the technician or reviewing, one ``live`` snapshot per
-``live_every_s`` (default 1 s), so a long wait does not bloat the journal.
-
-A demo session records in the journal meta that it ran on the simulated bench, with its
-seed and faults, so ``resume`` can start the same bench again and bring its switches to
-the configuration the sequence had reached. A bench run as built (``as_built_seed``,
-``model_errors``: its true network off the nameplate, ``meas.sim.as_built``) also records the
-seed and every applied value under ``as_built``; the profile keeps the nameplate model.
-
-The simulated bench runs on simulated time (``meas.sim.clock.CycleClock``): every poll cycle
-first advances it by one poll interval and writes the bench's registers for that instant, and
-the snapshot carries that time as ``t_mono``, so the runner settles and captures by cycles.
-``views()`` on the simulated bench runs the cycles in lockstep with its caller (the simulated
-technician acts between two cycles, a remote command's verification runs whole cycles), so
-two headless demos with the same seed journal the same values (docs/dataset-format.md).
+The package docstring (``meas.session``) says what is journalled and how the simulated bench
+keeps time.
 """
 
 from __future__ import annotations
 
 import asyncio
 import contextlib
-import math
 import time
 from collections.abc import AsyncIterator, Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from .errors import BenchwalkError
-from .journal.lock import SessionBusy
-from .journal.sessions import new_session_id, resolve_session, session_path
-from .journal.store import Journal, SessionExists
-from .model import CapturePolicy, Profile, SwitchState
-from .profile import load_profile
-from .results import Status
-from .snapshot import Snapshot
-from .verdict import records_from_log, session_verdict
-from .walk.runner import Runner
-from .walk.sequence import (
-    configuration_after,
-    configuration_before,
-    find_step,
-    validate_sequence,
-)
-from .walk.states import StepOutcome
-from .walk.view import RunnerView
+from ..errors import BenchwalkError
+from ..journal.sessions import resolve_session
+from ..journal.store import Journal
+from ..model import Profile, SwitchState
+from ..profile import load_profile
+from ..walk.runner import Runner
+from ..walk.sequence import find_step, validate_sequence
+from ..walk.states import StepOutcome
+from ..walk.view import RunnerView
+from .bench_clock import BenchDriver, bench_driver
+from .settle import settle_factory
+from .start import as_built, bench_start_state, create_journal, prior_outcomes, start_bench
 
 if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
-    from .checks.settle import SettleState
-    from .poll.control import SwitchControl
-    from .poll.cycle import Poller
-    from .sim.as_built import AsBuilt
-    from .sim.bench import SimulatedBench
-    from .sim.clock import CycleClock
-
-SIM_OPERATOR = "simulated technician"
-
-
-class _SettleAdapter:
-    """Presents ``meas.checks.SettleDetector`` with the small interface the runner uses."""
-
-    def __init__(self, profile: Profile, policy: CapturePolicy):
-        from .checks.settle import SettleDetector
-
-        self._det = SettleDetector(profile, policy.settle)
-        self._window_s = policy.settle.window_s
-        self._limit = policy.settle.rel_spread
-        self._state: SettleState | None = None
-
-    def update(self, snapshot: Snapshot) -> None:
-        self._state = self._det.feed(snapshot)
-
-    @property
-    def settled(self) -> bool:
-        return bool(self._state is not None and self._state.settled)
-
-    @property
-    def timed_out(self) -> bool:
-        return bool(self._state is not None and self._state.timed_out)
-
-    @property
-    def elapsed_s(self) -> float:
-        return float(self._state.elapsed_s) if self._state is not None else 0.0
-
-    @property
-    def settle_s(self) -> float:
-        """When the readings became steady, seconds after settling began (elapsed until then)."""
-        st = self._state
-        if st is None:
-            return 0.0
-        return float(st.settle_time_s) if math.isfinite(st.settle_time_s) else float(st.elapsed_s)
-
-    @property
-    def worst(self) -> str:
-        return str(self._state.worst) if self._state is not None else ""
-
-    @property
-    def progress(self) -> float:
-        """0..1: the window filling, then how close the worst spread is to the limit."""
-        st = self._state
-        if st is None:
-            return 0.0
-        if st.settled:
-            return 1.0
-        fill = min(1.0, st.elapsed_s / self._window_s) if self._window_s > 0 else 1.0
-        if not st.window_full:
-            return 0.5 * fill
-        closeness = self._limit / st.spread if st.spread > 0 else 1.0
-        return 0.5 + 0.5 * min(1.0, closeness) * 0.99
-
-
-def settle_factory(profile: Profile) -> Callable[[CapturePolicy], _SettleAdapter]:
-    return lambda policy: _SettleAdapter(profile, policy)
-
-
-def bench_start_state(profile: Profile, index: int) -> dict[str, SwitchState]:
-    """Where the simulated bench starts for step ``index`` (new or resumed): a capture step
-    finds the states it expects; a step that operates starts from the states before it
-    (for the first step, the switches' normal states: nothing to set)."""
-    if index < len(profile.steps) and profile.steps[index].kind == "capture":
-        return dict(configuration_after(profile, index))
-    return dict(configuration_before(profile, index))
-
-
-def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]:
-    """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
-    out: dict[str, StepOutcome] = {}
-    unverified = journal.unverified_by_step()
-    for rec in records_from_log([s.id for s in profile.steps], journal.step_history()):
-        if rec.outcome == "not_captured":
-            continue
-        status = Status.FAIL if rec.failed_checks else Status.PASS
-        lines = tuple(unverified.get(rec.step_id, ()))
-        out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason, lines)
-    return out
-
-
-def session_state(path: Path) -> str:
-    """One line for a session list: ``finished, VERDICT`` or ``unfinished at step X``.
-
-    Read-only: listing sessions never writes to (or waits on) a journal.
-    """
-    from .journal import read
-
-    try:
-        conn = read.connect_read_only(path)
-    except Exception:  # noqa: BLE001 - a list must show the other sessions anyway
-        return "unreadable journal"
-    try:
-        info = read.read_session(conn)
-        if info is None:
-            return "empty journal"
-        ids = [s["id"] for s in info.profile_dict.get("steps", [])]
-        history = read.step_history(conn)
-        point = read.resume_point(conn, ids)
-        by_step = read.unverified_by_step(conn)
-    except Exception:  # noqa: BLE001
-        return "unreadable journal"
-    finally:
-        conn.close()
-    records = records_from_log(ids, history)
-    if point is None:
-        unverified = [line for sid in ids for line in by_step.get(sid, [])]
-        return f"finished, {session_verdict(records, unverified).word}"
-    done = sum(1 for r in records if r.outcome != "not_captured")
-    return f"unfinished at step {point} ({done} of {len(ids)} steps done)"
+    from ..poll.control import SwitchControl
+    from ..poll.cycle import Poller
+    from ..sim.bench import SimulatedBench
 
 
 class Session:
@@ -233,9 +92,9 @@ class Session:
         """
         profile = load_profile(profile_path)
         validate_sequence(profile)
-        built = _as_built(profile, simulate, as_built_seed, model_errors)
+        built = as_built(profile, simulate, as_built_seed, model_errors)
         if out_dir is not None:
-            from .dataset.outputs import check_output_folder
+            from ..dataset.outputs import check_output_folder
 
             check_output_folder(Path(out_dir))
         meta: dict[str, Any] = {"simulated": simulate, "faults": list(faults), "seed": seed}
@@ -244,7 +103,7 @@ class Session:
             meta["as_built"] = built.meta(model_errors)
         bench, live_profile = None, profile
         if simulate:
-            bench, live_profile = await _start_bench(profile, faults, seed, noise, built)
+            bench, live_profile = await start_bench(profile, faults, seed, noise, built)
             for sw, state in bench_start_state(profile, 0).items():
                 bench.operate_by_hand(sw, state)
         try:
@@ -283,7 +142,7 @@ class Session:
         journal = Journal.open(resolve_session(session, sessions_dir), for_writing=True)
         try:
             if out_dir is not None:
-                from .dataset.outputs import check_output_folder
+                from ..dataset.outputs import check_output_folder
 
                 check_output_folder(Path(out_dir), journal.path, journal.session_id)
             ppath = Path(profile_path or journal.profile_dict.get("path", ""))
@@ -322,10 +181,10 @@ class Session:
             meta = journal.meta
             bench, live_profile = None, profile
             if meta.get("simulated"):
-                from .sim.as_built import from_meta
+                from ..sim.as_built import from_meta
 
                 built = from_meta(profile, meta)  # the recorded true network, if any
-                bench, live_profile = await _start_bench(
+                bench, live_profile = await start_bench(
                     profile,
                     meta.get("faults", ()),
                     meta.get("seed"),
@@ -365,9 +224,9 @@ class Session:
         live_checks: bool,
         prior: dict[str, StepOutcome],
     ) -> Session:
-        from .checks import CheckEngine
-        from .poll.control import SwitchControl
-        from .poll.cycle import Poller
+        from ..checks import CheckEngine
+        from ..poll.control import SwitchControl
+        from ..poll.cycle import Poller
 
         driver = bench_driver(bench, profile.poll.interval_s)
         poller = Poller(profile, before_cycle=driver.before_cycle if driver else None)
@@ -407,7 +266,7 @@ class Session:
         """What a hand at the simulated bench sets before ``command`` (none on a real bench)."""
         if self.bench is None:
             return []
-        from .sim.hands import to_set_by_hand
+        from ..sim.hands import to_set_by_hand
 
         return to_set_by_hand(view, command)
 
@@ -416,7 +275,7 @@ class Session:
         ``meas.sim.hands``, for the console and the headless demo alike); returns what was set."""
         if self.bench is None:
             return []
-        from .sim.hands import set_by_hand
+        from ..sim.hands import set_by_hand
 
         return set_by_hand(view, self.bench, command)
 
@@ -511,9 +370,9 @@ class Session:
 
     def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
         """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
-        from .dataset.export import export_session
-        from .dataset.outputs import check_report_target
-        from .report import write_report
+        from ..dataset.export import export_session
+        from ..dataset.outputs import check_report_target
+        from ..report import write_report
 
         out = Path(out_dir)
         check_report_target(out / "report.html", out / "dataset")  # before anything is written
@@ -537,147 +396,3 @@ class Session:
                     await self.bench.stop()
         finally:
             self.journal.close()
-
-
-def as_built_line(
-    profile_path: str | Path, as_built_seed: int | str | None, model_errors: Sequence[str]
-) -> str | None:
-    """Check the as-built options before anything starts; the line a command shows for them.
-
-    None without them; ``BenchwalkError`` names a bad option."""
-    built = _as_built(load_profile(profile_path), True, as_built_seed, model_errors)
-    return None if built is None else built.summary()
-
-
-def _as_built(
-    profile: Profile, simulate: bool, seed: int | str | None, model_errors: Sequence[str]
-) -> AsBuilt | None:
-    if seed is None and not model_errors:
-        return None
-    if not simulate:
-        raise BenchwalkError("--as-built and --model-error apply to the simulated bench only")
-    from .sim.as_built import from_options
-
-    return from_options(profile, seed, model_errors)
-
-
-def create_journal(
-    profile: Profile,
-    operator: str,
-    session_id: str | None,
-    sessions_dir: Path | None,
-    meta: dict[str, Any],
-    *,
-    base_id: str | None = None,
-) -> Journal:
-    """A new journal under a given id, or a fresh id unique in the folder: two sessions
-    started in the same second get ``ID``, ``ID-2``, ... (the session lock settles a race).
-    ``base_id`` is the fresh id to start from (default: the time now and the bench's name)."""
-    if session_id is not None:
-        path = session_path(session_id, sessions_dir)
-        return Journal.create(path, profile, operator=operator, session_id=session_id, meta=meta)
-    base = base_id or new_session_id(profile.bench.name)
-    for n in range(1, 1000):
-        sid = base if n == 1 else f"{base}-{n}"
-        path = session_path(sid, sessions_dir)
-        if path.exists():
-            continue
-        try:
-            return Journal.create(path, profile, operator=operator, session_id=sid, meta=meta)
-        except (SessionExists, SessionBusy):
-            continue
-    raise BenchwalkError(f"{path.parent}: too many sessions started in the same second")
-
-
-class BenchDriver:
-    """Advances the simulated bench with the poll cycles (``meas.sim.clock.CycleClock``).
-
-    ``before_cycle`` runs before each poll: the bench moves on and writes its registers for the
-    new instant, which becomes the snapshot's ``t_mono``. In ``lockstep`` (``Session.views``)
-    every cycle is one poll interval of simulated time, whatever the wall clock did, which
-    makes a headless walk reproducible; otherwise (the console) the bench moves on by the
-    poll slots that passed on the wall clock, so it keeps real time on a slow machine.
-    ``wait`` is the switch control's pause between two status reads when nobody polls.
-    """
-
-    def __init__(self, bench: SimulatedBench, clock: CycleClock, interval_s: float) -> None:
-        self.bench, self.clock, self.interval_s = bench, clock, interval_s
-        self.lockstep = False
-        self._lock = asyncio.Lock()  # one update at a time: the poller's and the control's
-        self._wall: float | None = None
-
-    async def before_cycle(self) -> float:
-        async with self._lock:
-            now = time.monotonic()
-            slots = 1
-            if not self.lockstep and self._wall is not None:
-                slots = max(1, round((now - self._wall) / self.interval_s))
-            self._wall = now
-            t = self.clock.advance(slots)
-            await self.bench.update(t)
-            return t
-
-    async def wait(self) -> None:
-        await asyncio.sleep(self.interval_s)
-        await self.before_cycle()
-
-
-def bench_driver(bench: SimulatedBench | None, interval_s: float) -> BenchDriver | None:
-    """The driver of a simulated bench on a cycle clock; None for a real bench."""
-    if bench is None:
-        return None
-    from .sim.clock import CycleClock
-
-    clock = bench.clock
-    return BenchDriver(bench, clock, interval_s) if isinstance(clock, CycleClock) else None
-
-
-async def _start_bench(
-    profile: Profile,
-    faults: Sequence[str],
-    seed: int | None,
-    noise: bool,
-    built: AsBuilt | None = None,
-) -> tuple[SimulatedBench, Profile]:
-    from .profile.settings import seed_problem
-    from .sim.bench import SimulatedBench
-    from .sim.faults import parse_fault, validate_faults
-
-    if seed is not None and (why := seed_problem(seed)):
-        raise BenchwalkError(f"seed: {why}")
-    parsed = tuple(parse_fault(f) for f in faults)
-    validate_faults(profile, parsed)
-    from .sim.clock import CycleClock
-
-    kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}
-    kwargs["clock"] = CycleClock(profile.poll.interval_s)  # simulated time, by poll cycles
-    kwargs["self_updating"] = False  # the poller advances it before each cycle
-    if seed is not None:
-        kwargs["seed"] = seed
-    if built is not None:
-        from .sim.as_built import readings_on
-
-        kwargs["readings"] = readings_on(built.profile(profile))
-    bench = SimulatedBench(profile, **kwargs)
-    live = await bench.start()
-    return bench, live
-
-
-def validate_start(
-    profile_path: str | Path | None,
-    *,
-    faults: Sequence[str] = (),
-    resume: str | None = None,
-    sessions_dir: Path | None = None,
-) -> None:
-    """Check what starting a session needs (the journal to resume, the profile, the simulated
-    faults) before any screen opens: a ``BenchwalkError`` line instead of three screens."""
-    if resume:
-        resolve_session(resume, sessions_dir)
-    profile = load_profile(profile_path) if profile_path else None
-    if faults:
-        from .sim.faults import parse_fault, validate_faults
-
-        parsed = tuple(parse_fault(f) for f in faults)
-        if profile is not None:
-            validate_faults(profile, parsed)
