@@ -19,7 +19,8 @@ class BenchDriver:
     every cycle is one poll interval of simulated time, whatever the wall clock did, which
     makes a headless walk reproducible; otherwise (the console) the bench moves on by the
     poll slots that passed on the wall clock, so it keeps real time on a slow machine.
-    ``wait`` is the switch control's pause between two status reads when nobody polls.
+    ``wait`` is the switch control's pause between two status reads when nobody polls: one
+    poll interval, exactly, so a command is verified against its timeout in simulated time.
     """
 
     def __init__(self, bench: SimulatedBench, clock: CycleClock, interval_s: float) -> None:
@@ -28,11 +29,11 @@ class BenchDriver:
         self._lock = asyncio.Lock()  # one update at a time: the poller's and the control's
         self._wall: float | None = None
 
-    async def before_cycle(self) -> float:
+    async def before_cycle(self, *, one_slot: bool = False) -> float:
         async with self._lock:
             now = time.monotonic()
             slots = 1
-            if not self.lockstep and self._wall is not None:
+            if not (self.lockstep or one_slot) and self._wall is not None:
                 slots = max(1, round((now - self._wall) / self.interval_s))
             self._wall = now
             t = self.clock.advance(slots)
@@ -41,7 +42,7 @@ class BenchDriver:
 
     async def wait(self) -> None:
         await asyncio.sleep(self.interval_s)
-        await self.before_cycle()
+        await self.before_cycle(one_slot=True)
 
 
 def bench_driver(bench: SimulatedBench | None, interval_s: float) -> BenchDriver | None:

@@ -92,6 +92,7 @@ def as_built_line(
 def as_built(
     profile: Profile, simulate: bool, seed: int | str | None, model_errors: Sequence[str]
 ) -> AsBuilt | None:
+    """The true network these options give the simulated bench (None without them)."""
     if seed is None and not model_errors:
         return None
     if not simulate:

@@ -23,8 +23,8 @@ from support.benches import write_bench
 from meas.session import Session
 from meas.walk.states import State
 
-CAPTURES = 60  # one step; the heap is compared between capture WARM_UP and the last
-WARM_UP = 15
+CAPTURES = 130  # one step; the heap is compared between capture WARM_UP and the last
+WARM_UP = 70  # past the runner's history (64 snapshots), full by then
 # bytes per capture: well under the ~40 KiB a kept batch of results costs, well over the
 # noise of the allocator and the bounded histories (common practice for a leak check)
 BOUND_PER_CAPTURE = 2048
@@ -40,7 +40,7 @@ capture = {{ snapshots = {CAPTURES}, interval_s = 0.1, settle = {{ window_s = 0.
 """
 
 
-@pytest.mark.slow  # 60 captures through every check
+@pytest.mark.slow  # 130 captures through every check: a minute or more
 async def test_heap_does_not_grow_with_the_captures_of_a_step(tmp_path):
     profile = write_bench(tmp_path / "bench", ONE_LONG_STEP)
     s = await Session.new(
