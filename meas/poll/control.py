@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import asyncio
 import time
+from collections.abc import Awaitable, Callable
 from dataclasses import dataclass
 
 from pymodbus.exceptions import ModbusException
@@ -38,10 +39,27 @@ class OperateResult:
     confirmed_by: str = ""
 
 
+async def _pause() -> None:
+    await asyncio.sleep(VERIFY_POLL_S)
+
+
 class SwitchControl:
-    def __init__(self, profile: Profile, poller: Poller):
+    """Guarded commands through ``poller``'s links. ``clock`` times the verification (a session
+    on the simulated bench gives its simulated clock); ``wait`` runs between two status reads
+    (a short sleep; a session driving the simulated bench cycle by cycle runs one cycle)."""
+
+    def __init__(
+        self,
+        profile: Profile,
+        poller: Poller,
+        *,
+        clock: Callable[[], float] = time.monotonic,
+        wait: Callable[[], Awaitable[None]] = _pause,
+    ):
         self.profile = profile
         self.poller = poller
+        self.clock = clock
+        self.wait = wait
 
     def check(self, switch_id: str, state: str, confirmed_by: str) -> Switch:
         """The switch if every guard holds; else ``ControlRefused`` saying which one failed."""
@@ -91,7 +109,7 @@ class SwitchControl:
                 f"switch {switch_id}: PLC {plc.id} at {plc.transport.endpoint} is not reachable; "
                 "check its cable and address, then try again"
             )
-        t0 = time.monotonic()
+        t0 = self.clock()
         sent_error = ""
         unit = plc.unit_id
         rr: ModbusPDU | None = None
@@ -111,7 +129,7 @@ class SwitchControl:
                 state,
                 status,
                 False,
-                time.monotonic() - t0,
+                self.clock() - t0,
                 f"PLC {plc.id} rejected the command to coil {sw.command_coil} with exception "
                 f"{code:#04x}; {switch_id} reads {status}",
                 confirmed_by,
@@ -122,11 +140,14 @@ class SwitchControl:
         self, sw: Switch, state: str, t0: float, prefix: str, confirmed_by: str
     ) -> OperateResult:
         deadline = t0 + self.profile.control.verify_timeout_s
+        # a guard on the wall clock too, should nothing advance ``clock`` (never reached when
+        # the clock is the wall clock or advances with the cycles ``wait`` runs)
+        wall_guard = time.monotonic() + 10 * self.profile.control.verify_timeout_s + 5.0
         status = "unknown"
         while True:
             status = await self.poller.read_switch(sw.id)
             if status == state:
-                elapsed = time.monotonic() - t0
+                elapsed = self.clock() - t0
                 return OperateResult(
                     sw.id,
                     state,
@@ -136,10 +157,10 @@ class SwitchControl:
                     f"{prefix}{sw.id} is {status} after {elapsed:.2f} s",
                     confirmed_by,
                 )
-            if time.monotonic() >= deadline:
+            if self.clock() >= deadline or time.monotonic() >= wall_guard:
                 break
-            await asyncio.sleep(VERIFY_POLL_S)
-        elapsed = time.monotonic() - t0
+            await self.wait()
+        elapsed = self.clock() - t0
         return OperateResult(
             sw.id,
             state,

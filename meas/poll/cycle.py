@@ -12,6 +12,11 @@ on its endpoint's worker task (one task and one outstanding request per client).
 belongs only to the cycle it was requested for and is dropped if that cycle has closed, so a
 late reply is never shown under a later cycle. The first pass over an endpoint has no
 learned time and waits for every unit's full budget.
+
+Simulated time: with ``before_cycle`` (a session on the simulated bench) each cycle first
+awaits it, takes the time it returns as the snapshot's ``t_mono`` and waits for every unit's
+full budget, so a loaded machine cannot turn a healthy answer into a timeout and the
+snapshot is a function of the cycle number (``meas.sim.clock``).
 """
 
 from __future__ import annotations
@@ -23,7 +28,7 @@ import math
 import random
 import struct
 import time
-from collections.abc import AsyncGenerator
+from collections.abc import AsyncGenerator, Awaitable, Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 
@@ -88,9 +93,16 @@ class _Endpoint:
 class Poller:
     """Concurrent cycles over every endpoint; see the module docstring for the strategy."""
 
-    def __init__(self, profile: Profile, *, plans: dict[str, MeterPlan] | None = None):
+    def __init__(
+        self,
+        profile: Profile,
+        *,
+        plans: dict[str, MeterPlan] | None = None,
+        before_cycle: Callable[[], Awaitable[float]] | None = None,
+    ):
         require_supported_pymodbus()
         self.profile = profile
+        self.before_cycle = before_cycle  # simulated time: see the module docstring
         self.plans = plans if plans is not None else plan_profile(profile)
         self._rng = random.Random()
         self._endpoints: dict[str, _Endpoint] = {}
@@ -198,12 +210,14 @@ class Poller:
     def cycle_budget(self, interval_s: float | None = None) -> float:
         """Seconds the next cycle may wait for answers (see the module docstring)."""
         interval = self.profile.poll.interval_s if interval_s is None else interval_s
-        return max([interval, *(self._need(ep) for ep in self._endpoints.values())])
+        patient = self.before_cycle is not None
+        return max([interval, *(self._need(ep, patient) for ep in self._endpoints.values())])
 
     async def poll_once(self, *, deadline_s: float | None = None) -> Snapshot:
         """One cycle; returns by ``cycle_budget(deadline_s)`` whatever any meter does."""
         if not self._started:
             await self.start()
+        t_sim = await self.before_cycle() if self.before_cycle is not None else None
         t_mono = time.monotonic()
         time_utc = datetime.now(UTC)
         self._seq += 1
@@ -237,7 +251,7 @@ class Poller:
         return Snapshot(
             seq=cyc.seq,
             time_utc=time_utc,
-            t_mono=t_mono,
+            t_mono=t_mono if t_sim is None else t_sim,
             meters=blocks,
             switches=switches,
             cycle_s=time.monotonic() - t_mono,
@@ -283,9 +297,10 @@ class Poller:
     # ------------------------------------------------------------ one cycle
 
     @staticmethod
-    def _need(ep: _Endpoint) -> float:
-        """How long a cycle should wait for this endpoint: learned healthy time, or the full budget."""
-        if not ep.learned:
+    def _need(ep: _Endpoint, patient: bool = False) -> float:
+        """How long a cycle should wait for this endpoint: learned healthy time, or the full budget
+        (always when ``patient``)."""
+        if patient or not ep.learned:
             return ep.link.connect_timeout_s + sum(
                 u.timeout_s * (u.retries + 1) * max(1, u.requests) for u in ep.units
             )

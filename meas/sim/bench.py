@@ -92,7 +92,8 @@ class SimulatedBench(BenchEmulator):
 
     ``port_map``: None = the profile's ports; ``"free"`` = ports from the OS; or a mapping
     profile port -> port to use. ``seed``, ``noise``, ``readings`` and ``clock`` are
-    ``BenchEmulator``'s.
+    ``BenchEmulator``'s. ``self_updating=False`` starts no update loop: the caller calls
+    ``update(t)`` before each poll (a session's ``CycleClock``, ``meas.sim.clock``).
 
     Every write request any simulated server receives is kept in ``writes_seen`` and, when
     ``write_log`` (default ``$BENCHWALK_SIM_WRITE_LOG``) names a file, appended to it as one
@@ -111,12 +112,14 @@ class SimulatedBench(BenchEmulator):
         readings: Callable[[Profile, dict[str, str]], IdealReadings] | None = None,
         clock: Callable[[], float] = time.monotonic,
         write_log: str | os.PathLike | None = None,
+        self_updating: bool = True,
     ):
         super().__init__(profile, faults, seed=seed, noise=noise, readings=readings, clock=clock)
         log_to = write_log if write_log is not None else os.environ.get(WRITE_LOG_ENV) or None
         self.write_log: Path | None = Path(log_to) if log_to else None
         self.writes_seen: list[SeenWrite] = []
         self.host = host
+        self.self_updating = self_updating
         self.port_map = port_map
         self._gates: dict[str, UnitGate] = {m.id: UnitGate() for m in profile.meters}
         self._gates.update({p.id: UnitGate() for p in profile.plcs})
@@ -290,7 +293,8 @@ class SimulatedBench(BenchEmulator):
         except BaseException:
             await self.stop()
             raise
-        self._task = asyncio.create_task(self._run(), name="benchwalk-sim-update")
+        if self.self_updating:
+            self._task = asyncio.create_task(self._run(), name="benchwalk-sim-update")
         self.bound = self.bound_profile(bound)
         return self.bound
 

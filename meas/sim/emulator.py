@@ -18,6 +18,7 @@ from ..errors import BenchwalkError
 from ..model import Profile, SwitchState
 from ..scaling import to_primary
 from ..snapshot import Snapshot
+from .clock import CycleClock
 from .faults import Fault, find, validate_faults
 from .meters import Phasors, phasors_from_ideal, snapshot_of, values_from_phasors
 from .plc import PlcSim, Transient, settle_settings
@@ -37,7 +38,11 @@ def _phasors(state: IdealReadings, meter_id: str, ideal: Mapping[str, float], f0
 
 class BenchEmulator:
     """The bench's state through time, pure of I/O. ``readings`` replaces the load flow (tests
-    with hand-made ideal readings); ``clock`` is the time source (seconds, monotonic)."""
+    with hand-made ideal readings); ``clock`` is the time source (seconds, monotonic).
+
+    On a ``CycleClock`` each meter's noise comes from a generator seeded with (seed, meter,
+    cycle), so the values of a cycle do not depend on how often ``compute`` ran before it;
+    on any other clock one generator seeded once serves every draw."""
 
     def __init__(
         self,
@@ -54,6 +59,9 @@ class BenchEmulator:
         self.noise = noise
         seed = profile.sim.get("seed") if seed is None else seed
         self.rng = np.random.default_rng(seed)
+        # the per-cycle noise streams' root: the seed, or fresh entropy when none is given
+        entropy = np.random.SeedSequence().entropy if seed is None else seed
+        self._entropy = int(entropy)  # type: ignore[arg-type]
         self._readings = readings
         self.clock = clock
         self.update_hz = float(profile.sim.get("update_hz", 10))
@@ -133,7 +141,7 @@ class BenchEmulator:
         dt_h = 0.0 if self._last_t is None else max(t - self._last_t, 0.0) / 3600.0
         self._last_t = t
         out = {}
-        for meter in self.profile.meters:
+        for index, meter in enumerate(self.profile.meters):
             if find(meter.id, self._faults, "frozen") and meter.id in self.values:
                 out[meter.id] = self.values[meter.id]
                 continue
@@ -148,7 +156,7 @@ class BenchEmulator:
                 meter.id,
                 now[meter.id],
                 self._faults,
-                self.rng,
+                self._noise_rng(index),
                 self.noise,
                 (e[0], e[1]),
             )
@@ -157,6 +165,12 @@ class BenchEmulator:
             )
             out[meter.id] = vals
         return out
+
+    def _noise_rng(self, meter_index: int) -> np.random.Generator:
+        """The generator of one meter's noise now: per (seed, meter, cycle) on a cycle clock."""
+        if isinstance(self.clock, CycleClock):
+            return np.random.default_rng([self._entropy, meter_index, self.clock.cycle])
+        return self.rng
 
     def snapshot(self, t: float, seq: int = 0, previous: Snapshot | None = None) -> Snapshot:
         """Advance to ``t`` and return what a poller would decode then, without sockets.

@@ -3,7 +3,9 @@
 A step picks N snapshots at the policy interval once the readings are steady; each is checked
 against the steady stretch of history only (a switching transient would read as noise or
 disagreement), and the exact history rows are kept so an offline re-check can replay them.
-The review judges each (check, subject) by its median status over the N captures.
+The review judges each (check, subject) by its median status over the N captures, from a
+running tally: memory stays flat however many captures a step takes (every capture's results
+are in the journal; the step keeps only counts and one result per status).
 """
 
 from __future__ import annotations
@@ -12,10 +14,44 @@ from collections import deque
 from collections.abc import Sequence
 
 from ..model import CapturePolicy
-from ..results import STATUS_RANK, CheckResult
+from ..results import STATUS_RANK, CheckResult, Status
 from ..snapshot import Snapshot
 from .live import LiveWatch
 from .ports import CheckFn
+
+
+class MedianTally:
+    """Per (check, subject): how many captures gave each status, and the latest result of each.
+
+    ``median()`` is the median by severity (worst first, the element at index n // 2), shown
+    by the latest result with that status. Bounded by the subjects and the statuses, never by
+    the number of captures.
+    """
+
+    def __init__(self) -> None:
+        self.batches = 0
+        self._counts: dict[tuple[str, str], dict[Status, int]] = {}
+        self._latest: dict[tuple[str, str], dict[Status, CheckResult]] = {}
+
+    def add(self, batch: Sequence[CheckResult]) -> None:
+        self.batches += 1
+        for r in batch:
+            key = (r.check, r.subject)
+            counts = self._counts.setdefault(key, {})
+            counts[r.status] = counts.get(r.status, 0) + 1
+            self._latest.setdefault(key, {})[r.status] = r
+
+    def median(self) -> list[CheckResult]:
+        out = []
+        for key, counts in self._counts.items():
+            middle = sum(counts.values()) // 2
+            seen = 0
+            for status in sorted(counts, key=STATUS_RANK.__getitem__):  # worst first
+                seen += counts[status]
+                if seen > middle:
+                    out.append(self._latest[key][status])
+                    break
+        return out
 
 
 def median_per_subject(batches: Sequence[Sequence[CheckResult]]) -> list[CheckResult]:
@@ -26,15 +62,10 @@ def median_per_subject(batches: Sequence[Sequence[CheckResult]]) -> list[CheckRe
     and a step runs well over a hundred checks per snapshot. Every per-snapshot result
     stays in the journal and the dataset.
     """
-    groups: dict[tuple[str, str], list[CheckResult]] = {}
+    tally = MedianTally()
     for batch in batches:
-        for r in batch:
-            groups.setdefault((r.check, r.subject), []).append(r)
-    out = []
-    for rs in groups.values():
-        ranked = sorted(rs, key=lambda r: STATUS_RANK[r.status])  # worst first
-        out.append(ranked[len(ranked) // 2])
-    return out
+        tally.add(batch)
+    return tally.median()
 
 
 class CaptureBook:
@@ -55,7 +86,7 @@ class CaptureBook:
 
     def restart(self) -> None:
         """Drop the picks (settling again, or the configuration changed)."""
-        self.taken: list[tuple[int, list[CheckResult]]] = []
+        self.tally = MedianTally()  # the picks' results, as counts (see MedianTally)
         self.last_t = float("-inf")
 
     # ------------------------------------------------------------------ per tick
@@ -100,13 +131,18 @@ class CaptureBook:
         slack = 0.5 * poll_interval_s
         return snapshot.t_mono - self.last_t >= policy.interval_s - slack
 
+    @property
+    def captured(self) -> int:
+        """Snapshots picked so far in this step (since the last restart)."""
+        return self.tally.batches
+
     def take(self, row: int, results: list[CheckResult], t_mono: float) -> None:
-        self.taken.append((row, results))
+        self.tally.add(results)
         self.last_t = t_mono
 
     def complete(self, policy: CapturePolicy) -> bool:
         """All N picked: the review is judged (median per subject) and True returned."""
-        if len(self.taken) < policy.snapshots:
+        if self.tally.batches < policy.snapshots:
             return False
-        self.review = median_per_subject([r for _, r in self.taken])
+        self.review = self.tally.median()
         return True

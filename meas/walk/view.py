@@ -170,7 +170,7 @@ def view_of(runner: StepMachine) -> RunnerView:
         settle_progress=progress,
         settle_elapsed_s=settle.elapsed_s if settle is not None else 0.0,
         settle_timed_out=bool(settle is not None and settle.timed_out),
-        captured=len(runner.book.taken),
+        captured=runner.book.captured,
         capture_target=policy.snapshots if policy is not None else 0,
         results=results,
         overall=_overall(runner, results),

@@ -21,10 +21,15 @@ from meas.session import Session
 from meas.walk.runner import Runner
 from meas.walk.states import State
 
+# The simulated bench's time advances one poll interval per cycle in ``Session.views`` (its
+# lockstep), and a loaded machine runs fewer cycles per second than the poll rate: the wall
+# clock deadlines below are this many times the simulated seconds a test expects to need.
+WALL_PER_SIM_S = 8.0
+
 
 async def until(session: Session, pred, timeout_s: float = 15.0):
-    """Poll and tick until ``pred(view)`` holds; fail after the deadline."""
-    deadline = time.monotonic() + timeout_s
+    """Poll and tick until ``pred(view)`` holds; fail after the deadline (see WALL_PER_SIM_S)."""
+    deadline = time.monotonic() + timeout_s * WALL_PER_SIM_S
     last = None
     async with contextlib.aclosing(session.views()) as views:
         async for view in views:
@@ -647,7 +652,7 @@ async def test_every_command_the_view_does_not_allow_is_refused_without_a_trace(
         "sign": lambda: r.sign("probe"),
     }
     seen: set[tuple[State, str]] = set()
-    deadline = time.monotonic() + 60
+    deadline = time.monotonic() + 60 * WALL_PER_SIM_S
     async with contextlib.aclosing(s.views()) as views:
         async for v in views:
             assert time.monotonic() < deadline, (v.state, v.step)

@@ -1,167 +1,35 @@
-"""One session's wiring: poller, checks, journal and runner (and a simulated bench for demos).
+"""``Session``: one session's parts, built by ``new`` or ``resume``, run by ``views()``.
 
-Headless mode and the console both use it: ``async for view in session.views(): ...`` runs
-the poll loop, feeds every snapshot to the runner (which journals it with its role) and
-yields the runner's picture after each one; the caller reacts by calling runner commands.
-
-What is journalled: every snapshot polled while a step operates, verifies, settles or
-captures (roles ``settling`` / ``capture``, and ``live`` for the polls between two capture
-picks); while waiting for the technician or reviewing, one ``live`` snapshot per
-``live_every_s`` (default 1 s), so a long wait does not bloat the journal.
-
-A demo session records in the journal meta that it ran on the simulated bench, with its
-seed and faults, so ``resume`` can start the same bench again and bring its switches to
-the configuration the sequence had reached. A bench run as built (``as_built_seed``,
-``model_errors``: its true network off the nameplate, ``meas.sim.as_built``) also records the
-seed and every applied value under ``as_built``; the profile keeps the nameplate model.
+The package docstring (``meas.session``) says what is journalled and how the simulated bench
+keeps time.
 """
 
 from __future__ import annotations
 
 import asyncio
 import contextlib
-import math
+import time
 from collections.abc import AsyncIterator, Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from .errors import BenchwalkError
-from .journal.lock import SessionBusy
-from .journal.sessions import new_session_id, resolve_session, session_path
-from .journal.store import Journal, SessionExists
-from .model import CapturePolicy, Profile, SwitchState
-from .profile import load_profile
-from .results import Status
-from .snapshot import Snapshot
-from .verdict import records_from_log, session_verdict
-from .walk.runner import Runner
-from .walk.sequence import (
-    configuration_after,
-    configuration_before,
-    find_step,
-    validate_sequence,
-)
-from .walk.states import StepOutcome
-from .walk.view import RunnerView
+from ..errors import BenchwalkError
+from ..journal.sessions import resolve_session
+from ..journal.store import Journal
+from ..model import Profile, SwitchState
+from ..profile import load_profile
+from ..walk.runner import Runner
+from ..walk.sequence import find_step, validate_sequence
+from ..walk.states import StepOutcome
+from ..walk.view import RunnerView
+from .bench_clock import BenchDriver, bench_driver
+from .settle import settle_factory
+from .start import as_built, bench_start_state, create_journal, prior_outcomes, start_bench
 
 if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
-    from .checks.settle import SettleState
-    from .poll.control import SwitchControl
-    from .poll.cycle import Poller
-    from .sim.as_built import AsBuilt
-    from .sim.bench import SimulatedBench
-
-SIM_OPERATOR = "simulated technician"
-
-
-class _SettleAdapter:
-    """Presents ``meas.checks.SettleDetector`` with the small interface the runner uses."""
-
-    def __init__(self, profile: Profile, policy: CapturePolicy):
-        from .checks.settle import SettleDetector
-
-        self._det = SettleDetector(profile, policy.settle)
-        self._window_s = policy.settle.window_s
-        self._limit = policy.settle.rel_spread
-        self._state: SettleState | None = None
-
-    def update(self, snapshot: Snapshot) -> None:
-        self._state = self._det.feed(snapshot)
-
-    @property
-    def settled(self) -> bool:
-        return bool(self._state is not None and self._state.settled)
-
-    @property
-    def timed_out(self) -> bool:
-        return bool(self._state is not None and self._state.timed_out)
-
-    @property
-    def elapsed_s(self) -> float:
-        return float(self._state.elapsed_s) if self._state is not None else 0.0
-
-    @property
-    def settle_s(self) -> float:
-        """When the readings became steady, seconds after settling began (elapsed until then)."""
-        st = self._state
-        if st is None:
-            return 0.0
-        return float(st.settle_time_s) if math.isfinite(st.settle_time_s) else float(st.elapsed_s)
-
-    @property
-    def worst(self) -> str:
-        return str(self._state.worst) if self._state is not None else ""
-
-    @property
-    def progress(self) -> float:
-        """0..1: the window filling, then how close the worst spread is to the limit."""
-        st = self._state
-        if st is None:
-            return 0.0
-        if st.settled:
-            return 1.0
-        fill = min(1.0, st.elapsed_s / self._window_s) if self._window_s > 0 else 1.0
-        if not st.window_full:
-            return 0.5 * fill
-        closeness = self._limit / st.spread if st.spread > 0 else 1.0
-        return 0.5 + 0.5 * min(1.0, closeness) * 0.99
-
-
-def settle_factory(profile: Profile) -> Callable[[CapturePolicy], _SettleAdapter]:
-    return lambda policy: _SettleAdapter(profile, policy)
-
-
-def bench_start_state(profile: Profile, index: int) -> dict[str, SwitchState]:
-    """Where the simulated bench starts for step ``index`` (new or resumed): a capture step
-    finds the states it expects; a step that operates starts from the states before it
-    (for the first step, the switches' normal states: nothing to set)."""
-    if index < len(profile.steps) and profile.steps[index].kind == "capture":
-        return dict(configuration_after(profile, index))
-    return dict(configuration_before(profile, index))
-
-
-def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]:
-    """Outcomes of steps finished before a resume, from the step log (latest entry wins)."""
-    out: dict[str, StepOutcome] = {}
-    unverified = journal.unverified_by_step()
-    for rec in records_from_log([s.id for s in profile.steps], journal.step_history()):
-        if rec.outcome == "not_captured":
-            continue
-        status = Status.FAIL if rec.failed_checks else Status.PASS
-        lines = tuple(unverified.get(rec.step_id, ()))
-        out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason, lines)
-    return out
-
-
-def session_state(path: Path) -> str:
-    """One line for a session list: ``finished, VERDICT`` or ``unfinished at step X``.
-
-    Read-only: listing sessions never writes to (or waits on) a journal.
-    """
-    from .journal import read
-
-    try:
-        conn = read.connect_read_only(path)
-    except Exception:  # noqa: BLE001 - a list must show the other sessions anyway
-        return "unreadable journal"
-    try:
-        info = read.read_session(conn)
-        if info is None:
-            return "empty journal"
-        ids = [s["id"] for s in info.profile_dict.get("steps", [])]
-        history = read.step_history(conn)
-        point = read.resume_point(conn, ids)
-        by_step = read.unverified_by_step(conn)
-    except Exception:  # noqa: BLE001
-        return "unreadable journal"
-    finally:
-        conn.close()
-    records = records_from_log(ids, history)
-    if point is None:
-        unverified = [line for sid in ids for line in by_step.get(sid, [])]
-        return f"finished, {session_verdict(records, unverified).word}"
-    done = sum(1 for r in records if r.outcome != "not_captured")
-    return f"unfinished at step {point} ({done} of {len(ids)} steps done)"
+    from ..poll.control import SwitchControl
+    from ..poll.cycle import Poller
+    from ..sim.bench import SimulatedBench
 
 
 class Session:
@@ -175,6 +43,7 @@ class Session:
         runner: Runner,
         bench: SimulatedBench | None = None,
         control: SwitchControl | None = None,
+        driver: BenchDriver | None = None,
     ) -> None:
         self.profile = profile
         self.journal = journal
@@ -182,6 +51,7 @@ class Session:
         self.runner = runner
         self.bench = bench
         self.control = control
+        self.driver = driver  # the simulated bench's clock, advanced by the poll cycles
         self._closed = False
         self._feed: asyncio.Task[None] | None = None  # polls and ticks the runner for views()
 
@@ -222,9 +92,9 @@ class Session:
         """
         profile = load_profile(profile_path)
         validate_sequence(profile)
-        built = _as_built(profile, simulate, as_built_seed, model_errors)
+        built = as_built(profile, simulate, as_built_seed, model_errors)
         if out_dir is not None:
-            from .dataset.outputs import check_output_folder
+            from ..dataset.outputs import check_output_folder
 
             check_output_folder(Path(out_dir))
         meta: dict[str, Any] = {"simulated": simulate, "faults": list(faults), "seed": seed}
@@ -233,11 +103,11 @@ class Session:
             meta["as_built"] = built.meta(model_errors)
         bench, live_profile = None, profile
         if simulate:
-            bench, live_profile = await _start_bench(profile, faults, seed, noise, built)
+            bench, live_profile = await start_bench(profile, faults, seed, noise, built)
             for sw, state in bench_start_state(profile, 0).items():
                 bench.operate_by_hand(sw, state)
         try:
-            journal = _create_journal(profile, operator, session_id, sessions_dir, meta)
+            journal = create_journal(profile, operator, session_id, sessions_dir, meta)
             sid = journal.session_id
         except BaseException:
             if bench is not None:
@@ -272,7 +142,7 @@ class Session:
         journal = Journal.open(resolve_session(session, sessions_dir), for_writing=True)
         try:
             if out_dir is not None:
-                from .dataset.outputs import check_output_folder
+                from ..dataset.outputs import check_output_folder
 
                 check_output_folder(Path(out_dir), journal.path, journal.session_id)
             ppath = Path(profile_path or journal.profile_dict.get("path", ""))
@@ -311,10 +181,10 @@ class Session:
             meta = journal.meta
             bench, live_profile = None, profile
             if meta.get("simulated"):
-                from .sim.as_built import from_meta
+                from ..sim.as_built import from_meta
 
                 built = from_meta(profile, meta)  # the recorded true network, if any
-                bench, live_profile = await _start_bench(
+                bench, live_profile = await start_bench(
                     profile,
                     meta.get("faults", ()),
                     meta.get("seed"),
@@ -354,14 +224,19 @@ class Session:
         live_checks: bool,
         prior: dict[str, StepOutcome],
     ) -> Session:
-        from .checks import CheckEngine
-        from .poll.control import SwitchControl
-        from .poll.cycle import Poller
+        from ..checks import CheckEngine
+        from ..poll.control import SwitchControl
+        from ..poll.cycle import Poller
 
-        poller = Poller(profile)
+        driver = bench_driver(bench, profile.poll.interval_s)
+        poller = Poller(profile, before_cycle=driver.before_cycle if driver else None)
         try:
             await poller.start()
-            control = SwitchControl(profile, poller) if profile.control.enabled else None
+            control = None
+            if profile.control.enabled:
+                control = SwitchControl(profile, poller)
+                if driver is not None:
+                    control.clock, control.wait = driver.clock, driver.wait
             runner = Runner(
                 profile,
                 journal,
@@ -383,7 +258,7 @@ class Session:
                 await bench.stop()
             journal.close()
             raise
-        return cls(profile, journal, poller, runner, bench, control)
+        return cls(profile, journal, poller, runner, bench, control, driver)
 
     # ------------------------------------------------------------------ running
 
@@ -391,7 +266,7 @@ class Session:
         """What a hand at the simulated bench sets before ``command`` (none on a real bench)."""
         if self.bench is None:
             return []
-        from .sim.hands import to_set_by_hand
+        from ..sim.hands import to_set_by_hand
 
         return to_set_by_hand(view, command)
 
@@ -400,7 +275,7 @@ class Session:
         ``meas.sim.hands``, for the console and the headless demo alike); returns what was set."""
         if self.bench is None:
             return []
-        from .sim.hands import set_by_hand
+        from ..sim.hands import set_by_hand
 
         return set_by_hand(view, self.bench, command)
 
@@ -415,6 +290,10 @@ class Session:
         if self.runner.done:
             return
         await self._stop_feed()  # an earlier views() left unfinished: one feeder at a time
+        if self.driver is not None:
+            async for view in self._lockstep_views(self.driver):
+                yield view
+            return
         ticked = asyncio.Event()  # set after every tick: the caller's cue for a new picture
 
         async def feed() -> None:
@@ -443,6 +322,45 @@ class Session:
         finally:
             await self._stop_feed()
 
+    async def _lockstep_views(self, driver: BenchDriver) -> AsyncIterator[RunnerView]:
+        """``views()`` on the simulated bench: one cycle (poll, tick) between two pictures,
+        none while the caller acts, and whole cycles while a remote command is verified.
+
+        The technician there is simulated and never waits for a person, so the lockstep never
+        holds polling for a prompt. Cycles keep the poll interval on the wall clock (the
+        simulated time then stays beside the real one; an overrun delays, never bursts).
+        """
+        interval = self.profile.poll.interval_s
+        lock = asyncio.Lock()
+        fresh = False  # a cycle ran since the last picture
+        slot = time.monotonic()
+
+        async def one_cycle() -> None:
+            nonlocal fresh, slot
+            async with lock:
+                await asyncio.sleep(max(0.0, slot - time.monotonic()))
+                slot = max(slot + interval, time.monotonic())
+                snap = await self.poller.poll_once()
+                await self.runner.tick(snap)
+                fresh = True
+
+        control = self.control
+        if control is not None:
+            pause, control.wait = control.wait, one_cycle
+        driver.lockstep = True
+        try:
+            while True:
+                if not fresh:
+                    await one_cycle()
+                fresh = False
+                yield self.runner.view()
+                if self.runner.done:
+                    return
+        finally:
+            driver.lockstep = False
+            if control is not None:
+                control.wait = pause
+
     async def _stop_feed(self) -> None:
         feeder, self._feed = self._feed, None
         if feeder is not None and not feeder.done():
@@ -452,9 +370,9 @@ class Session:
 
     def export(self, out_dir: str | Path, overwrite: bool = False) -> tuple[Path, Path]:
         """Write ``out_dir/dataset/`` and ``out_dir/report.html`` (+ ``.md``); returns both."""
-        from .dataset.export import export_session
-        from .dataset.outputs import check_report_target
-        from .report import write_report
+        from ..dataset.export import export_session
+        from ..dataset.outputs import check_report_target
+        from ..report import write_report
 
         out = Path(out_dir)
         check_report_target(out / "report.html", out / "dataset")  # before anything is written
@@ -478,97 +396,3 @@ class Session:
                     await self.bench.stop()
         finally:
             self.journal.close()
-
-
-def as_built_line(
-    profile_path: str | Path, as_built_seed: int | str | None, model_errors: Sequence[str]
-) -> str | None:
-    """Check the as-built options before anything starts; the line a command shows for them.
-
-    None without them; ``BenchwalkError`` names a bad option."""
-    built = _as_built(load_profile(profile_path), True, as_built_seed, model_errors)
-    return None if built is None else built.summary()
-
-
-def _as_built(
-    profile: Profile, simulate: bool, seed: int | str | None, model_errors: Sequence[str]
-) -> AsBuilt | None:
-    if seed is None and not model_errors:
-        return None
-    if not simulate:
-        raise BenchwalkError("--as-built and --model-error apply to the simulated bench only")
-    from .sim.as_built import from_options
-
-    return from_options(profile, seed, model_errors)
-
-
-def _create_journal(
-    profile: Profile,
-    operator: str,
-    session_id: str | None,
-    sessions_dir: Path | None,
-    meta: dict[str, Any],
-) -> Journal:
-    """A new journal under a given id, or a fresh id unique in the folder: two sessions
-    started in the same second get ``ID``, ``ID-2``, ... (the session lock settles a race)."""
-    if session_id is not None:
-        path = session_path(session_id, sessions_dir)
-        return Journal.create(path, profile, operator=operator, session_id=session_id, meta=meta)
-    base = new_session_id(profile.bench.name)
-    for n in range(1, 1000):
-        sid = base if n == 1 else f"{base}-{n}"
-        path = session_path(sid, sessions_dir)
-        if path.exists():
-            continue
-        try:
-            return Journal.create(path, profile, operator=operator, session_id=sid, meta=meta)
-        except (SessionExists, SessionBusy):
-            continue
-    raise BenchwalkError(f"{path.parent}: too many sessions started in the same second")
-
-
-async def _start_bench(
-    profile: Profile,
-    faults: Sequence[str],
-    seed: int | None,
-    noise: bool,
-    built: AsBuilt | None = None,
-) -> tuple[SimulatedBench, Profile]:
-    from .profile.settings import seed_problem
-    from .sim.bench import SimulatedBench
-    from .sim.faults import parse_fault, validate_faults
-
-    if seed is not None and (why := seed_problem(seed)):
-        raise BenchwalkError(f"seed: {why}")
-    parsed = tuple(parse_fault(f) for f in faults)
-    validate_faults(profile, parsed)
-    kwargs: dict[str, Any] = {"faults": parsed, "port_map": "free", "noise": noise}
-    if seed is not None:
-        kwargs["seed"] = seed
-    if built is not None:
-        from .sim.as_built import readings_on
-
-        kwargs["readings"] = readings_on(built.profile(profile))
-    bench = SimulatedBench(profile, **kwargs)
-    live = await bench.start()
-    return bench, live
-
-
-def validate_start(
-    profile_path: str | Path | None,
-    *,
-    faults: Sequence[str] = (),
-    resume: str | None = None,
-    sessions_dir: Path | None = None,
-) -> None:
-    """Check what starting a session needs (the journal to resume, the profile, the simulated
-    faults) before any screen opens: a ``BenchwalkError`` line instead of three screens."""
-    if resume:
-        resolve_session(resume, sessions_dir)
-    profile = load_profile(profile_path) if profile_path else None
-    if faults:
-        from .sim.faults import parse_fault, validate_faults
-
-        parsed = tuple(parse_fault(f) for f in faults)
-        if profile is not None:
-            validate_faults(profile, parsed)
