@@ -361,6 +361,14 @@ class Session:
         poller = Poller(profile)
         try:
             await poller.start()
+            ident = await poller.identify()  # text registers: serial numbers, firmware
+            if ident:
+                journal.record_event(
+                    "meters_identified",
+                    "identification read from " + ", ".join(ident),
+                    operator=operator,
+                    data=ident,
+                )
             control = SwitchControl(profile, poller) if profile.control.enabled else None
             runner = Runner(
                 profile,

@@ -7,6 +7,7 @@ The loopback test reads a demo meter's serial number from a real pymodbus server
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import pytest
@@ -90,3 +91,47 @@ async def test_serial_number_read_over_loopback_from_the_simulated_meter():
         assert got["serial"].startswith("SIM-")  # invented by meas/sim/server.py
     finally:
         await bench.stop()
+
+
+async def test_poller_reads_every_meters_identification_once():
+    from meas.poll.cycle import Poller
+
+    demo = load_profile(DEMO)
+    faults = [pytest.importorskip("meas.sim.faults").parse_fault("offline:M6")]
+    bench = sim_bench.SimulatedBench(demo, faults, port_map="free", seed=3)
+    bound = await bench.start()
+    poller = Poller(bound)
+    try:
+        await poller.start()
+        ident = await poller.identify()
+        expected = {
+            m.id: sim_server.simulated_identification(bound.meter_map(m.id), m.unit_id)
+            for m in bound.meters
+            if m.id != "M6"  # offline: no answer, so no identification (and no error)
+        }
+        assert ident == expected
+        assert all(v["serial"].startswith("SIM-") for v in ident.values())
+    finally:
+        await poller.close()
+        await bench.stop()
+
+
+async def test_a_session_journals_the_identification_beside_not_among_the_readings(tmp_path):
+    """The journal keeps text in one ``meters_identified`` event per session start (exported
+    with the dataset's events table); the numeric readings table never holds a serial."""
+    from meas.journal.read import JournalView
+    from meas.session import Session
+
+    s = await Session.new(
+        DEMO, "T. Tester", session_id="ident", simulate=True, seed=2, sessions_dir=tmp_path
+    )
+    path = s.journal.path
+    await s.close()
+    events = [e for e in JournalView(path).events() if e.kind == "meters_identified"]
+    assert len(events) == 1
+    data = json.loads(events[0].data)  # the journal keeps event data as a JSON object
+    demo = load_profile(DEMO)
+    assert data == {
+        m.id: sim_server.simulated_identification(demo.meter_map(m.id), m.unit_id)
+        for m in demo.meters
+    }
