@@ -96,11 +96,6 @@ def local_stamp(e: Element, v_nominal: Mapping[str, float]) -> tuple[np.ndarray,
     return y, np.asarray(e.s_p, complex), np.asarray(e.s_i, complex), zero3
 
 
-def stamp(e: Element, nodal: Nodal, net: Network) -> Stamp:
-    """The element's contribution to the nodal equations of ``net``."""
-    return Stamp(element_nodes(e, nodal), *local_stamp(e, net.v_nominal))
-
-
 class ElementDerivative:
     """One parameter's element below and above its value: its stamp and current derivatives.
 

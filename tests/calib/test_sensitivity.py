@@ -9,6 +9,9 @@ at a single point are the reference (common practice for checking a derivative).
 
 from __future__ import annotations
 
+import math
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from support.calib_bench import demo_profile, live_configs, random_as_built, synthesize
@@ -16,10 +19,26 @@ from support.calib_bench import demo_profile, live_configs, random_as_built, syn
 from meas.calib.predict import NetworkPredictor
 from meas.calib.problem import Problem
 from meas.calib.selection import select_parameters
+from meas.model import Profile, SourceParams
 
 
-def _problem(emf_per_step: bool) -> tuple[Problem, np.ndarray]:
+def _ideal_source_metered(profile: Profile) -> Profile:
+    """The demo with an ideal source (sc_va = inf: its bus held) and M1 reading the source's
+    own current, whose derivative is the rest of its bus's KCL (invented variant)."""
+    src = profile.branch("SRC")
+    assert isinstance(src.model, SourceParams)
+    branches = tuple(
+        replace(b, model=replace(src.model, sc_va=math.inf)) if b.id == "SRC" else b
+        for b in profile.branches
+    )
+    meters = tuple(replace(m, branch="SRC") if m.id == "M1" else m for m in profile.meters)
+    return replace(profile, branches=branches, meters=meters)
+
+
+def _problem(emf_per_step: bool, ideal: bool = False) -> tuple[Problem, np.ndarray]:
     profile = demo_profile()
+    if ideal:
+        profile = _ideal_source_metered(profile)
     params = select_parameters(profile)
     true = random_as_built(profile, np.random.default_rng(3), [p.name for p in params])
     obs, _ = synthesize(profile, true, live_configs(profile), seed=3)
@@ -30,9 +49,14 @@ def _problem(emf_per_step: bool) -> tuple[Problem, np.ndarray]:
     return problem, z
 
 
-@pytest.mark.parametrize("emf_per_step", [False, True])
-def test_analytic_jacobian_matches_load_flow_differences(emf_per_step):
-    problem, z = _problem(emf_per_step)
+@pytest.mark.parametrize(("emf_per_step", "ideal"), [(False, False), (True, False), (True, True)])
+def test_analytic_jacobian_matches_load_flow_differences(emf_per_step, ideal):
+    problem, z = _problem(emf_per_step, ideal)
+    if ideal:  # the source's own current is among the fitted readings
+        assert any(
+            problem.obs.meter[i] == "M1" and problem.obs.quantity[i] == "p"
+            for i in range(len(problem.obs))
+        )
     analytic = problem.analytic_jacobian(z)
     forward = problem.difference_jacobian(z)
     m, nm = len(problem.obs), problem.n_model
