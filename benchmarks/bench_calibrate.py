@@ -41,6 +41,7 @@ import warnings  # noqa: E402
 import numpy as np  # noqa: E402
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))  # this checkout's meas/, not an installed copy elsewhere
 sys.path.insert(0, str(ROOT / "benchmarks"))
 sys.path.insert(0, str(ROOT / "tests"))
 from common import Figure, Target, median  # noqa: E402
