@@ -4,7 +4,9 @@ Both differentiate the same model readings (the demo bench, every parameter, inv
 the forward differences (step 1e-4 prior σ, ``meas.calib.problem.FD_STEP``) carry a truncation
 error of order the step, so the two agree to about 1e-3 of a column's size, and the analytic
 one must also match central differences far tighter. Central differences of the full load flow
-at a single point are the reference (common practice for checking a derivative).
+at a single point are the reference (common practice for checking a derivative). The quick case
+takes one parameter of each element kind; every parameter, per-step EMFs and an ideal source
+whose own current is metered run with the slow tests.
 """
 
 from __future__ import annotations
@@ -35,11 +37,13 @@ def _ideal_source_metered(profile: Profile) -> Profile:
     return replace(profile, branches=branches, meters=meters)
 
 
-def _problem(emf_per_step: bool, ideal: bool = False) -> tuple[Problem, np.ndarray]:
+def _problem(
+    emf_per_step: bool, ideal: bool = False, names: tuple[str, ...] = ()
+) -> tuple[Problem, np.ndarray]:
     profile = demo_profile()
     if ideal:
         profile = _ideal_source_metered(profile)
-    params = select_parameters(profile)
+    params = select_parameters(profile, names)
     true = random_as_built(profile, np.random.default_rng(3), [p.name for p in params])
     obs, _ = synthesize(profile, true, live_configs(profile), seed=3)
     problem = Problem(
@@ -49,9 +53,21 @@ def _problem(emf_per_step: bool, ideal: bool = False) -> tuple[Problem, np.ndarr
     return problem, z
 
 
-@pytest.mark.parametrize(("emf_per_step", "ideal"), [(False, False), (True, False), (True, True)])
-def test_analytic_jacobian_matches_load_flow_differences(emf_per_step, ideal):
-    problem, z = _problem(emf_per_step, ideal)
+# one parameter of each element kind (line series and charging, source, load, shunt): quick
+FEW = ("L2.r_ohm", "L3.b_us", "SRC.sc_va", "SRC.v_ll", "LD1.q_var", "SH1.q_var")
+
+
+@pytest.mark.parametrize(
+    ("emf_per_step", "ideal", "names"),
+    [
+        (False, False, FEW),
+        pytest.param(False, False, (), marks=pytest.mark.slow),  # every parameter
+        pytest.param(True, False, (), marks=pytest.mark.slow),
+        pytest.param(True, True, (), marks=pytest.mark.slow),
+    ],
+)
+def test_analytic_jacobian_matches_load_flow_differences(emf_per_step, ideal, names):
+    problem, z = _problem(emf_per_step, ideal, names)
     if ideal:  # the source's own current is among the fitted readings
         assert any(
             problem.obs.meter[i] == "M1" and problem.obs.quantity[i] == "p"
@@ -78,7 +94,7 @@ def test_analytic_jacobian_matches_load_flow_differences(emf_per_step, ideal):
 
 
 def test_the_fit_uses_one_load_flow_per_step_for_a_jacobian():
-    problem, z = _problem(False)
+    problem, z = _problem(False, names=FEW)
     before = problem.predictor.solves
     problem.jacobian(z)
     live = sum(1 for rows in problem.predictor._rows if rows)  # type: ignore[attr-defined]
