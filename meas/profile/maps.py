@@ -164,6 +164,8 @@ def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> Regi
     t = Table(doc, value, path)
     address = t.get("address", "int", None, required=True, check=within(0, MAX_ADDRESS))
     fields = _register_fields(t, inherited)
+    if fields.get("type") in TEXT_TYPES:
+        t.seen.add("count")  # one line for a string quantity: the type error below
     t.finish()
     unit = fields.get("unit")
     expected_unit = quantities.unit_of(qkey)

@@ -51,6 +51,7 @@ def test_string_type_on_a_measured_quantity_is_an_error_at_its_line(tmp_path):
     assert len(hit) == 1, problems
     assert hit[0].startswith(f"{path}:{line}:") or f"{path.name}:{line}:" in hit[0], hit[0]
     assert "serial" in hit[0]  # says what strings are for
+    assert [p for p in problems if f":{line}:" in p] == hit  # one line for the one mistake
 
 
 def test_identification_key_needs_string_type_and_count(tmp_path):
