@@ -6,6 +6,10 @@ it (``meas.network.readings``). A parameter of a branch that is switched out in 
 change that step's readings, so a finite-difference column only re-solves the steps where the
 branch is in service: on the demo bench that saves about a third of the load flows.
 
+``NetworkPredictor.sensitivities`` gives the readings with their derivatives from one load
+flow per step (``meas.calib.sensitivity``), so the fit needs no finite differences at all; the
+column-by-column re-solve above is the fallback for a predictor without them.
+
 ``Predictor`` is the seam: the fit takes any object with this shape, which is how a test puts
 a reference library's load flow in the loop instead.
 """
