@@ -11,6 +11,12 @@ priors and least-squares settings, only the model readings differ: ``NetworkPred
 and updated in place). Reported: median wall time of the fit, function and Jacobian
 evaluations, load flows, the ratio, and the largest difference of the optimum.
 
+Our fit takes its Jacobian from implicit-function sensitivities of the load flow
+(``meas/calib/sensitivity.py``: one load flow per step and Jacobian); pandapower offers none,
+so with it in the loop the model columns are forward differences of whole load flows. A third
+row times our own load flow with those same forward differences (what ``calibrate`` did
+before the sensitivities), so the gain of each part shows side by side.
+
 ``--dataset DIR`` also times ``calibrate`` (every parameter, default options) on a real demo
 dataset (``benchwalk demo --headless`` then its ``dataset`` folder). ``--coverage N`` runs N
 seeds of the full demo problem and prints how often the 95 % intervals of the parameters
@@ -35,6 +41,7 @@ import warnings  # noqa: E402
 import numpy as np  # noqa: E402
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))  # this checkout's meas/, not an installed copy elsewhere
 sys.path.insert(0, str(ROOT / "benchmarks"))
 sys.path.insert(0, str(ROOT / "tests"))
 from common import Figure, Target, median  # noqa: E402
@@ -47,6 +54,7 @@ from support.calib_bench import (  # noqa: E402
 )
 from support.calib_pandapower import PandapowerPredictor, balanced_demo  # noqa: E402
 
+from meas.calib.predict import NetworkPredictor  # noqa: E402
 from meas.calib.run import Options, calibrate, calibrate_dataset  # noqa: E402
 from meas.calib.selection import select_parameters  # noqa: E402
 from meas.network.parameters import model_parameters  # noqa: E402
@@ -67,10 +75,28 @@ def problem(seed: int = 1):
     return profile, obs
 
 
+class Differences:
+    """Our load flow without its sensitivities: the fit falls back to forward differences."""
+
+    def __init__(self, profile, obs):
+        self.inner = NetworkPredictor(profile, obs)
+
+    @property
+    def solves(self) -> int:
+        return self.inner.solves
+
+    def predict(self, values, emf=None, steps=None, base=None):
+        return self.inner.predict(values, emf, steps, base)
+
+    def affected(self, name):
+        return self.inner.affected(name)
+
+
 def side_by_side(rounds: int) -> list[Figure]:
     profile, obs = problem()
     options = Options(params=PARAMS, method="lm", tol=1e-12)
     own_t, pp_t, own_cpu, own, ref = [], [], [], None, None
+    fd_t, fd_cpu, fd = [], [], None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for _ in range(rounds):
@@ -78,10 +104,14 @@ def side_by_side(rounds: int) -> list[Figure]:
             own = calibrate(profile, obs, options)
             own_t.append(time.perf_counter() - t)
             own_cpu.append(own.fit.cpu_seconds)
+            t = time.perf_counter()
+            fd = calibrate(profile, obs, options, predictor=Differences(profile, obs))
+            fd_t.append(time.perf_counter() - t)
+            fd_cpu.append(fd.fit.cpu_seconds)
         t = time.perf_counter()  # one pandapower run: it takes tens of seconds
         ref = calibrate(profile, obs, options, predictor=PandapowerPredictor(profile, obs))
         pp_t.append(time.perf_counter() - t)
-    assert own is not None and ref is not None
+    assert own is not None and ref is not None and fd is not None
     a = np.array([e.value for e in own.parameters])
     b = np.array([e.value for e in ref.parameters])
     diff = float(np.max(np.abs(a - b) / np.abs(b)))
@@ -90,9 +120,13 @@ def side_by_side(rounds: int) -> list[Figure]:
         f"same problem, {len(obs)} readings, {len(obs.steps)} steps, {len(own.problem.unknowns)} unknowns:\n"
         f"  benchwalk load flow : {ours:7.3f} s (CPU {median(own_cpu):.3f} s)  nfev {own.fit.nfev:3d}  njev {own.fit.njev:3d}  "
         f"load flows {own.fit.solves:5d}  chi2 {own.fit.chi2:.6f}\n"
+        f"  ours, differences   : {median(fd_t):7.3f} s (CPU {median(fd_cpu):.3f} s)  nfev {fd.fit.nfev:3d}  njev {fd.fit.njev:3d}  "
+        f"load flows {fd.fit.solves:5d}  chi2 {fd.fit.chi2:.6f}\n"
         f"  pandapower runpp    : {theirs:7.3f} s (CPU {ref.fit.cpu_seconds:.3f} s)  nfev {ref.fit.nfev:3d}  njev {ref.fit.njev:3d}  "
         f"load flows {ref.fit.solves:5d}  chi2 {ref.fit.chi2:.6f}\n"
-        f"  pandapower / ours = {theirs / ours:.1f}x; optimum max relative difference {diff:.2e}"
+        f"  pandapower / ours = {theirs / ours:.1f}x (CPU {ref.fit.cpu_seconds / median(own_cpu):.1f}x); "
+        f"ours with differences / ours = {median(fd_t) / ours:.1f}x; "
+        f"optimum max relative difference {diff:.2e}"
     )
     return [
         Figure(

@@ -16,6 +16,12 @@ RegisterKind = Literal["holding", "input"]
 REGISTER_KINDS: tuple[RegisterKind, ...] = get_args(RegisterKind)
 DataType = Literal["int16", "uint16", "int32", "uint32", "float32", "float64", "int64", "uint64"]
 DATA_TYPES: tuple[DataType, ...] = get_args(DataType)
+# Text registers (ASCII, two characters per register) identify a device; they are never a
+# measured quantity, so they sit beside the numeric data types, under identification keys.
+TextType = Literal["string"]
+TEXT_TYPES: tuple[TextType, ...] = get_args(TextType)
+IdentKey = Literal["serial", "firmware", "model", "vendor", "hardware"]
+IDENT_KEYS: tuple[IdentKey, ...] = get_args(IdentKey)
 Order = Literal["big", "little"]
 ORDERS: tuple[Order, ...] = get_args(Order)
 ApparentPower = Literal["vector", "arithmetic"]  # IEEE 1459 definitions of S_total
@@ -103,6 +109,27 @@ class RegisterSpec:
 
 
 @dataclass(frozen=True)
+class TextSpec:
+    """A text register block that identifies the device (serial number, firmware version).
+
+    ``count`` registers, two ASCII characters each, the first in the high byte unless
+    ``byte_order`` is little (common practice in Modbus device maps); trailing NULs and spaces
+    are padding. Read once per meter, never polled as a reading.
+    """
+
+    key: IdentKey
+    kind: RegisterKind
+    address: int
+    count: int
+    byte_order: Order = "big"
+
+    @property
+    def end(self) -> int:
+        """One past the last register used."""
+        return self.address + self.count
+
+
+@dataclass(frozen=True)
 class RegisterMap:
     """One meter model's register layout, reusable by many meters."""
 
@@ -111,6 +138,7 @@ class RegisterMap:
     description: str = ""
     apparent_power: ApparentPower = "arithmetic"
     max_read: int = 125  # some meters accept fewer registers per read than the spec allows
+    text: tuple[TextSpec, ...] = ()  # identification strings (``TextSpec``), read once
 
     def has(self, key: str) -> bool:
         return any(r.key == key for r in self.registers)

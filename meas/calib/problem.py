@@ -30,7 +30,7 @@ from ..model import Profile
 from ..network.parameters import ModelParameter
 from ..tolerance import class_spec
 from .observations import GAIN_KIND, Observations
-from .predict import Predictor
+from .predict import Predictor, SensitivityPredictor
 
 UnknownKind = Literal["parameter", "emf", "gain"]
 FD_STEP = 1e-4  # finite-difference step, in prior standard uncertainties
@@ -158,7 +158,44 @@ class Problem:
         return np.concatenate([self.data_residuals(z), z])
 
     def jacobian(self, z: np.ndarray) -> np.ndarray:
-        """d(residuals)/dz: forward differences for model unknowns, exact for gains and priors."""
+        """d(residuals)/dz: model columns from the predictor's sensitivities when it has them
+        (one load flow per step), else by forward differences; exact for gains and priors."""
+        if isinstance(self.predictor, SensitivityPredictor):
+            return self.analytic_jacobian(z)
+        return self.difference_jacobian(z)
+
+    def analytic_jacobian(self, z: np.ndarray) -> np.ndarray:
+        """The Jacobian from implicit-function sensitivities of the load flow."""
+        assert isinstance(self.predictor, SensitivityPredictor)
+        z = np.asarray(z, float)
+        values, emf = self.values(z), self.emf(z)
+        names = [u.name for u in self.unknowns[: self.n_model] if u.kind == "parameter"]
+        h, dh = self.predictor.sensitivities(values, names, emf)
+        self.evaluations += 1
+        self._last = (np.array(z, copy=True), h)
+        # chain rule to prior units: d value / dz = s (additive) or value·s (log, emf)
+        dz = np.array(
+            [
+                u.s if u.additive else u.value(float(z[j])) * u.s
+                for j, u in enumerate(self.unknowns[: self.n_model])
+            ]
+        )
+        g1 = 1.0 + self.row_gains(z)
+        m, n = len(self.obs), len(self.unknowns)
+        jac = np.zeros((m + n, n))
+        jac[:m, : self.n_model] = -(g1 / self.sigma)[:, None] * dh * dz[None, :]
+        return self._exact_columns(jac, z, h)
+
+    def _exact_columns(self, jac: np.ndarray, z: np.ndarray, h: np.ndarray) -> np.ndarray:
+        m, n = len(self.obs), len(self.unknowns)
+        for i in np.flatnonzero(self.gain_of_row >= 0):
+            j = self.gain_of_row[i]
+            jac[i, j] = -h[i] * self.unknowns[j].s / self.sigma[i]
+        jac[m:, :] = np.eye(n)
+        return jac
+
+    def difference_jacobian(self, z: np.ndarray) -> np.ndarray:
+        """Forward differences of whole load flows for the model unknowns."""
         z = np.asarray(z, float)
         h = self.model(z)
         g1 = 1.0 + self.row_gains(z)
@@ -180,8 +217,4 @@ class Problem:
                 ee = self.emf(zz)
                 hh = self.predictor.predict(values, ee, [k], h)
             jac[:m, j] = -g1 * (hh - h) / FD_STEP / self.sigma
-        for i in np.flatnonzero(self.gain_of_row >= 0):
-            j = self.gain_of_row[i]
-            jac[i, j] = -h[i] * self.unknowns[j].s / self.sigma[i]
-        jac[m:, :] = np.eye(n)
-        return jac
+        return self._exact_columns(jac, z, h)

@@ -102,18 +102,25 @@ def dataset_observations(
         )
     chosen = choose_steps(ds, sorted(set(cap["step"].dropna()) - {""}), steps)
     known = {mt.id for mt in profile.meters}
+    sub = cap[cap["step"].isin(chosen)].assign(value=lambda d: pd.to_numeric(d["value"]))
+    # one grouping for every step (a groupby per step cost more than the fit itself)
+    samples = sub.groupby(["step", "meter", "quantity", "phase"], sort=True)["value"].agg(tuple)
+    snapshots = sub.groupby("step")["snapshot"].agg(lambda s: sorted(set(s)))
+    by_step: dict[str, list[tuple[str, str, str, tuple[float, ...]]]] = {}
+    for key, vals in samples.items():
+        st, meter, qty, ph = (str(x) for x in key)  # type: ignore[attr-defined]
+        by_step.setdefault(st, []).append((meter, qty, ph, vals))
     configs: list[StepConfig] = []
     raw: list[RawRow] = []
     for k, step in enumerate(chosen):
-        rows = cap[cap["step"] == step]
-        snaps = sorted(set(rows["snapshot"]))
+        snaps = snapshots[step]
         config = StepConfig(step, _step_switches(ds, step, snaps), captures=len(snaps))
         configs.append(config)
         seen = observable(profile, config)
-        for (meter, qty, ph), g in rows.groupby(["meter", "quantity", "phase"], sort=True):
-            if meter not in known or qty not in seen.get(str(meter), set()):
+        for meter, qty, ph, vals in by_step.get(step, []):
+            if meter not in known or qty not in seen.get(meter, set()):
                 continue
-            raw.append(RawRow(k, str(meter), str(qty), str(ph), tuple(pd.to_numeric(g["value"]))))
+            raw.append(RawRow(k, meter, qty, ph, tuple(float(x) for x in vals)))
     if not raw:
         raise BenchwalkError(
             f"{ds.path}: the chosen steps have no reading of a live meter to fit; choose other --steps"

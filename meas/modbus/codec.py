@@ -13,7 +13,7 @@ import math
 import struct
 from collections.abc import Sequence
 
-from ..model import REGISTER_COUNT, RegisterSpec
+from ..model import REGISTER_COUNT, RegisterSpec, TextSpec
 
 _FMT = {
     "int16": "h",
@@ -91,6 +91,20 @@ def words_to_text(words: Sequence[int], byte_order: str = "big") -> str:
         hi, lo = (w >> 8) & 0xFF, w & 0xFF
         buf += bytes((hi, lo)) if byte_order == "big" else bytes((lo, hi))
     return bytes(buf).split(b"\x00", 1)[0].decode("utf-8", "replace").strip()
+
+
+def decode_text(spec: TextSpec, words: Sequence[int]) -> str:
+    """The text of an identification register block (``TextSpec``): padding stripped."""
+    if len(words) != spec.count:
+        raise DecodeError(f"{spec.key}: string needs {spec.count} registers, got {len(words)}")
+    return words_to_text(words, spec.byte_order)
+
+
+def encode_text(spec: TextSpec, text: str) -> list[int]:
+    """The registers a device of this map holds for ``text`` (NUL-padded, ASCII only)."""
+    if not text.isascii():
+        raise DecodeError(f"{spec.key}: {text!r} is not ASCII")
+    return text_to_words(text, spec.count, spec.byte_order)
 
 
 def text_to_words(text: str, count: int, byte_order: str = "big") -> list[int]:

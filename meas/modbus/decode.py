@@ -14,10 +14,11 @@ import operator
 import struct
 from collections.abc import Callable, Sequence
 
-from ..model import Meter, RegisterSpec
+from ..model import Meter, RegisterMap, RegisterSpec
 from ..quantities import split_key
 from ..scaling import ratio
 from ..snapshot import Quality
+from .codec import decode_text
 from .plan import ReadRequest
 
 _BOUNDS: dict[
@@ -201,3 +202,25 @@ class RequestDecoder:
             raw.append(x)
             vals.append((x * scale + offset) * r)
         return self._judge(raw, vals, values, quality, errors)
+
+
+def identification(
+    rmap: RegisterMap, blocks: dict[str, tuple[int, Sequence[int]]]
+) -> dict[str, str]:
+    """A meter's identification strings from register blocks read once at start-up.
+
+    ``blocks`` maps a register kind to (first address, words read); each of the map's text
+    registers (``RegisterMap.text``) inside a block becomes ``{key: text}``. Text is never a
+    reading: it goes to the meter's identification, not through the numeric decode above.
+    """
+    out: dict[str, str] = {}
+    for spec in rmap.text:
+        got = blocks.get(spec.kind)
+        if got is None:
+            continue
+        start, words = got
+        lo = spec.address - start
+        if lo < 0 or lo + spec.count > len(words):
+            continue
+        out[spec.key] = decode_text(spec, words[lo : lo + spec.count])
+    return out

@@ -34,7 +34,8 @@ from datetime import UTC, datetime
 
 from pymodbus.exceptions import ModbusException
 
-from ..modbus.decode import RequestDecoder
+from ..modbus.codec import DecodeError
+from ..modbus.decode import RequestDecoder, identification
 from ..modbus.hardening import require_supported_pymodbus, tame_pymodbus_logging
 from ..modbus.link import Backoff, EndpointLink, NoAnswer, ReadFailed
 from ..modbus.plan import MeterPlan, plan_profile, status_reads
@@ -200,6 +201,30 @@ class Poller:
         except ReadFailed:
             return "unknown"
         return "closed" if bits[0] else "open"
+
+    async def identify(self) -> dict[str, dict[str, str]]:
+        """Each meter's identification strings (its map's text registers), read once.
+
+        Meter id -> {key: text}; a meter that does not answer, or whose map has no text
+        registers, is left out (identification is information, never a check)."""
+        out: dict[str, dict[str, str]] = {}
+        for m in self.profile.meters:
+            rmap = self.profile.maps[m.map_id]
+            link = self._endpoints[m.transport.endpoint].link
+            if not rmap.text or not link.connected:
+                continue
+            got: dict[str, str] = {}
+            for spec in rmap.text:
+                try:
+                    words, _ = await link.read(
+                        spec.kind, spec.address, spec.count, m.unit_id, m.timeout_s, m.retries + 1
+                    )
+                    got |= identification(rmap, {spec.kind: (spec.address, words)})
+                except (NoAnswer, ReadFailed, DecodeError):
+                    continue
+            if got:
+                out[m.id] = got
+        return out
 
     async def start(self) -> None:
         """Connect every endpoint concurrently; an unreachable one just enters backoff."""

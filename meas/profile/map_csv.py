@@ -6,9 +6,10 @@ the columns a row leaves empty. Columns (docs/profile-format.md):
 
 | column | meaning |
 |---|---|
-| ``quantity`` | required: the quantity key, e.g. ``p.A``, ``v_ll.BC``, ``e_imp.T`` |
+| ``quantity`` | required: the quantity key, e.g. ``p.A``, ``v_ll.BC``, ``e_imp.T``, or an identification key (``serial``, ``firmware``, ``model``, ``vendor``, ``hardware``) for a text register |
 | ``address`` | required: first register, 0-based |
-| ``type`` | ``int16`` ... ``float64``, ``int64``, ``uint64`` |
+| ``type`` | ``int16`` ... ``float64``, ``int64``, ``uint64``, or ``string`` (identification keys only) |
+| ``count`` | ``string`` only: registers, two characters each |
 | ``kind`` | ``holding`` or ``input`` |
 | ``word_order``, ``byte_order`` | ``big`` or ``little`` |
 | ``scale``, ``offset`` | engineering value = raw x scale + offset |
@@ -31,6 +32,7 @@ COLUMNS = (
     "quantity",
     "address",
     "type",
+    "count",
     "kind",
     "word_order",
     "byte_order",
@@ -38,7 +40,7 @@ COLUMNS = (
     "offset",
     "unit",
 )
-_INT = ("address",)
+_INT = ("address", "count")
 _NUM = ("scale", "offset")
 
 

@@ -2,18 +2,21 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any
 
 from .. import quantities
 from ..model import (
     APPARENT_POWER,
     DATA_TYPES,
+    IDENT_KEYS,
     ORDERS,
     REGISTER_COUNT,
     REGISTER_KINDS,
+    TEXT_TYPES,
     RegisterMap,
     RegisterSpec,
+    TextSpec,
 )
 from .map_csv import csv_registers
 from .scanner import Key
@@ -35,7 +38,7 @@ def _register_fields(t: Table, inherited: dict[str, Any]) -> dict[str, Any]:
     if t.has("kind"):
         out["kind"] = t.choice("kind", REGISTER_KINDS, None, what="register kind")
     if t.has("type"):
-        out["type"] = t.choice("type", DATA_TYPES, None, what="data type")
+        out["type"] = t.choice("type", DATA_TYPES + TEXT_TYPES, None, what="data type")
     for key in ("word_order", "byte_order"):
         if t.has(key):
             out[key] = t.choice(key, ORDERS, None, what=key.replace("_", " "))
@@ -87,30 +90,52 @@ def read_maps(
         csv_name = mt.get("csv", "str", None)
         rt = mt.table("registers", required=csv_name is None)
         specs: list[tuple[RegisterSpec, Key]] = []
+        texts: list[tuple[TextSpec, Key]] = []
+
         if csv_name is not None and companion is not None:
             found = companion(mt.at("csv"), csv_name)
             if found is not None:
                 cdoc, rows = csv_registers(found[0], found[1], doc.problems)
                 ct = Table(cdoc, rows, ())
                 for qkey in rows:
-                    spec = _register(cdoc, ct, qkey, inherited)
-                    if spec is not None:
-                        specs.append((spec, ct.at(qkey)))
+                    _take(cdoc, ct, qkey, inherited, specs, texts)
         if rt is not None:
-            if not rt.data and not specs:
+            if not rt.data and not specs and not texts:
                 doc.add(rt.path, "a map needs at least one register")
             for qkey in rt.data:
-                spec = _register(doc, rt, qkey, inherited)
-                if spec is not None:
-                    specs.append((spec, rt.at(qkey)))
+                _take(doc, rt, qkey, inherited, specs, texts)
             rt.finish()
         mt.finish()
-        _overlaps(doc, specs)
+        _overlaps(doc, [*specs, *texts])
         maps[map_id] = RegisterMap(
-            map_id, tuple(s for s, _ in specs), description, apparent, max_read
+            map_id,
+            tuple(s for s, _ in specs),
+            description,
+            apparent,
+            max_read,
+            tuple(s for s, _ in texts),
         )
     m.finish()
     return maps
+
+
+def _take(
+    doc: Doc,
+    table: Table,
+    qkey: str,
+    inherited: dict[str, Any],
+    specs: list[tuple[RegisterSpec, Key]],
+    texts: list[tuple[TextSpec, Key]],
+) -> None:
+    """One row of a map: an identification key is a text register, anything else a quantity."""
+    if qkey in IDENT_KEYS:
+        text = _text_register(doc, table, qkey, inherited)
+        if text is not None:
+            texts.append((text, table.at(qkey)))
+        return
+    spec = _register(doc, table, qkey, inherited)
+    if spec is not None:
+        specs.append((spec, table.at(qkey)))
 
 
 def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> RegisterSpec | None:
@@ -124,7 +149,7 @@ def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> Regi
         else:
             doc.add(
                 path,
-                f"{qkey!r} is not a quantity key{suggest(qkey, quantities.all_keys())} (see meas.quantities: e.g. 'p.A', 'v_ll.BC', 'f.T')",
+                f"{qkey!r} is not a quantity key{suggest(qkey, (*quantities.all_keys(), *IDENT_KEYS))} (see meas.quantities: e.g. 'p.A', 'v_ll.BC', 'f.T'; text registers identify the device: {', '.join(IDENT_KEYS)})",
             )
         return None
     value = rt.data[qkey]
@@ -139,6 +164,8 @@ def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> Regi
     t = Table(doc, value, path)
     address = t.get("address", "int", None, required=True, check=within(0, MAX_ADDRESS))
     fields = _register_fields(t, inherited)
+    if fields.get("type") in TEXT_TYPES:
+        t.seen.add("count")  # one line for a string quantity: the type error below
     t.finish()
     unit = fields.get("unit")
     expected_unit = quantities.unit_of(qkey)
@@ -150,6 +177,13 @@ def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> Regi
         return None
     if "type" not in fields:
         doc.add(path, "no data type: give type here or in the map's defaults")
+        return None
+    if fields["type"] in TEXT_TYPES:
+        doc.add(
+            t.at("type") if t.has("type") else path,
+            f"{qkey} is a measured quantity, and a string register holds text: strings identify "
+            f"the device ({', '.join(IDENT_KEYS)}); give {qkey} a numeric type",
+        )
         return None
     if address is None or any(fields.get(k) is None for k in _REG_FIELDS if k != "unit"):
         return None
@@ -174,13 +208,56 @@ def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> Regi
     )
 
 
-def _overlaps(doc: Doc, specs: list[tuple[RegisterSpec, Key]]) -> None:
+def _text_register(doc: Doc, rt: Table, key: str, inherited: dict[str, Any]) -> TextSpec | None:
+    """An identification key: ``{ address, type = "string", count }`` (count in registers)."""
+    path = rt.at(key)
+    rt.seen.add(key)
+    value = rt.data[key]
+    if not isinstance(value, dict):
+        doc.add(
+            path,
+            f'expected an inline table like {{ address = 0, type = "string", count = 8 }}, got {typename(value)} {show(value)}',
+        )
+        return None
+    t = Table(doc, value, path)
+    address = t.get("address", "int", None, required=True, check=within(0, MAX_ADDRESS))
+    count = t.get("count", "int", None, check=within(1, 125))
+    kind = t.choice("kind", REGISTER_KINDS, inherited["kind"], what="register kind")
+    byte_order = t.choice("byte_order", ORDERS, inherited["byte_order"], what="byte order")
+    dtype = t.choice("type", DATA_TYPES + TEXT_TYPES, None, what="data type")
+    t.finish()
+    if dtype is not None and dtype not in TEXT_TYPES:
+        doc.add(t.at("type"), f'{key} identifies the device and is text: give type = "string"')
+        return None
+    if dtype is None:
+        doc.add(
+            path, f'{key} is text: give type = "string" and count (registers, two characters each)'
+        )
+        return None
+    if count is None:
+        if not t.has("count"):
+            doc.add(
+                path, f"{key}: a string register needs count, in registers (two characters each)"
+            )
+        return None
+    if address is None or kind is None or byte_order is None:
+        return None
+    if address + count - 1 > MAX_ADDRESS:
+        doc.add(
+            t.at("address"),
+            f"string at {address} needs registers {address}..{address + count - 1}, past {MAX_ADDRESS}",
+        )
+        return None
+    return TextSpec(key, kind, address, count, byte_order)  # type: ignore[arg-type]
+
+
+def _overlaps(doc: Doc, specs: Sequence[tuple[RegisterSpec | TextSpec, Key]]) -> None:
     """Two quantities sharing a register of the same kind is a map typo."""
     for kind in REGISTER_KINDS:
         same = sorted(
             (s for s in specs if s[0].kind == kind), key=lambda s: (s[0].address, s[0].end)
         )
-        reach: tuple[RegisterSpec, Key] | None = None
+        reach: tuple[RegisterSpec | TextSpec, Key] | None = None
         for spec, path in same:
             if reach is not None and spec.address < reach[0].end:
                 prev = reach[0]

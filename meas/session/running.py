@@ -232,6 +232,14 @@ class Session:
         poller = Poller(profile, before_cycle=driver.before_cycle if driver else None)
         try:
             await poller.start()
+            ident = await poller.identify()  # text registers: serial numbers, firmware
+            if ident:
+                journal.record_event(
+                    "meters_identified",
+                    "identification read from " + ", ".join(ident),
+                    operator=operator,
+                    data=ident,
+                )
             control = None
             if profile.control.enabled:
                 control = SwitchControl(profile, poller)

@@ -27,6 +27,7 @@ from pymodbus.server import ModbusSerialServer, ModbusTcpServer
 from pymodbus.simulator import DataType, SimData, SimDevice
 
 from ..errors import BenchwalkError
+from ..modbus.codec import encode_text
 from ..model import RegisterMap
 
 READ_FC = frozenset({1, 2, 3, 4})
@@ -109,8 +110,33 @@ def _bit_block(addresses: Iterable[int]) -> list[SimData]:
     return [SimData(address=0, count=addrs[-1] + 1, values=False, datatype=DataType.BITS)]
 
 
+def simulated_identification(rmap: RegisterMap, unit_id: int) -> dict[str, str]:
+    """The invented identification strings a simulated meter holds (serial from map and unit)."""
+    out: dict[str, str] = {}
+    for spec in rmap.text:
+        text = (
+            f"SIM-{rmap.id.split('-')[0].upper()}-{unit_id:03d}" if spec.key == "serial" else "1.0"
+        )
+        out[spec.key] = text[: 2 * spec.count]
+    return out
+
+
+def _with_text(block: list[SimData], rmap: RegisterMap, kind: str, unit_id: int) -> list[SimData]:
+    """The register block with the map's text registers of ``kind`` filled in."""
+    texts = [t for t in rmap.text if t.kind == kind]
+    if not texts:
+        return block
+    lo, n = block[0].address, block[0].count
+    words = [0] * n
+    ident = simulated_identification(rmap, unit_id)
+    for t in texts:
+        words[t.address - lo : t.end - lo] = encode_text(t, ident[t.key])
+    return [SimData(address=lo, values=words, datatype=DataType.REGISTERS)]
+
+
 def meter_device(unit_id: int, rmap: RegisterMap, gate: UnitGate) -> SimDevice:
-    """A read-only meter: the map's holding and input registers, no coils."""
+    """A read-only meter: the map's holding and input registers (with its identification
+    strings), no coils."""
 
     async def action(fc, _start, _address, _count, _regs, set_values):
         if set_values is not None and fc in READ_FC:
@@ -121,11 +147,18 @@ def meter_device(unit_id: int, rmap: RegisterMap, gate: UnitGate) -> SimDevice:
             return ExcCodes.ILLEGAL_ADDRESS  # measurement registers are read-only
         return None
 
-    holding = [(r.address, r.end) for r in rmap.registers if r.kind == "holding"]
-    inputs = [(r.address, r.end) for r in rmap.registers if r.kind == "input"]
+    spans = [(r.address, r.end, r.kind) for r in rmap.registers]
+    spans += [(t.address, t.end, t.kind) for t in rmap.text]
+    holding = _reg_block((a, e) for a, e, k in spans if k == "holding")
+    inputs = _reg_block((a, e) for a, e, k in spans if k == "input")
     return SimDevice(
         id=unit_id,
-        simdata=(_bit_block([]), _bit_block([]), _reg_block(holding), _reg_block(inputs)),
+        simdata=(
+            _bit_block([]),
+            _bit_block([]),
+            _with_text(holding, rmap, "holding", unit_id),
+            _with_text(inputs, rmap, "input", unit_id),
+        ),
         action=action,
     )
 

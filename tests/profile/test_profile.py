@@ -229,7 +229,7 @@ MISTAKES = [
         'type = "float64" }',
         'type = "float46" }',
         "float46",
-        "unknown data type 'float46'; expected one of 'int16', 'uint16', 'int32', 'uint32', 'float32', 'float64', 'int64', 'uint64'; did you mean 'float64'?",
+        "unknown data type 'float46'; expected one of 'int16', 'uint16', 'int32', 'uint32', 'float32', 'float64', 'int64', 'uint64', 'string'; did you mean 'float64'?",
     ),
     (
         "word-order",

@@ -19,6 +19,8 @@ from meas.calib.run import Calibration, Options, calibrate_dataset  # noqa: E402
 from meas.calib.write import write_calibration  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
 
+from .common import comma_list  # noqa: E402
+
 HELP = "fit the profile's network model (lines, source, loads) to a dataset's captured readings"
 
 
@@ -70,7 +72,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def _steps(text: str) -> str | tuple[str, ...]:
     if text in ("passing", "all"):
         return text
-    ids = tuple(s.strip() for s in text.split(",") if s.strip())
+    ids = comma_list(text)
     if not ids:
         raise BenchwalkError("--steps needs passing, all or a comma-separated list of step ids")
     return ids

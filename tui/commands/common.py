@@ -99,3 +99,21 @@ def start_console(**kwargs: Any) -> int:
             f"the console is not available in this build ({exc}); use --headless"
         ) from None
     return int(run_console(**kwargs) or 0)
+
+
+def comma_list(text: str | None) -> tuple[str, ...]:
+    """The items of a comma-separated option value, blanks dropped (``--steps a,b``,
+    ``--currents IA,IB,IC``); empty for no value."""
+    return tuple(s.strip() for s in (text or "").split(",") if s.strip())
+
+
+def name_value_pairs(items: list[str], option: str) -> dict[str, str]:
+    """``NAME=VALUE`` option values (repeatable ``--switch ID=open``) as a mapping; one line
+    naming the option when one is written otherwise."""
+    out = {}
+    for it in items:
+        key, sep, value = it.partition("=")
+        if not sep:
+            raise BenchwalkError(f"{option} {it!r}: write NAME=VALUE")
+        out[key.strip()] = value.strip()
+    return out

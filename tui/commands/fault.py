@@ -20,6 +20,8 @@ from typing import TYPE_CHECKING
 from meas.cautions import STAGED_FAULT_CAUTION
 from meas.errors import BenchwalkError
 
+from .common import comma_list, name_value_pairs
+
 if TYPE_CHECKING:
     from meas.fault.comtrade_write import DataFormat, Revision
     from meas.model import Profile
@@ -35,17 +37,7 @@ _FORMATS: dict[str, tuple[Revision, DataFormat]] = {
 
 
 def _names(text: str | None) -> list[str] | None:
-    return [n.strip() for n in text.split(",") if n.strip()] if text else None
-
-
-def _pairs(items: list[str], what: str) -> dict[str, str]:
-    out = {}
-    for it in items:
-        key, sep, value = it.partition("=")
-        if not sep:
-            raise BenchwalkError(f"{what} {it!r}: write NAME=VALUE")
-        out[key.strip()] = value.strip()
-    return out
+    return list(comma_list(text)) if text else None
 
 
 def _ratio(text: str | None) -> tuple[float, float] | None:
@@ -189,7 +181,7 @@ def _predict(args: argparse.Namespace) -> int:
 
     profile = load_profile(args.profile)
     buses = [args.bus] if args.bus else [b.id for b in profile.buses]
-    states = _pairs(args.switch, "--switch")
+    states = name_value_pairs(args.switch, "--switch")
     print(
         f"IEC 60909-0 {args.fault} {args.case}, {args.scale} scale, kappa method {args.kappa}; {profile.path}"
     )
@@ -274,7 +266,7 @@ def _check(args: argparse.Namespace) -> int:
         args.bus,
         fault=args.fault,
         scale=args.scale,
-        switch_states=_pairs(args.switch, "--switch"),
+        switch_states=name_value_pairs(args.switch, "--switch"),
         covariance=cov,
         rec_class_pct=args.rec_class,
         kappa_method=args.kappa,
@@ -313,7 +305,7 @@ def _simulate(args: argparse.Namespace) -> int:
 
     profile = load_profile(args.profile)
     values = {}
-    for k, v in _pairs(args.set, "--set").items():
+    for k, v in name_value_pairs(args.set, "--set").items():
         try:
             values[k] = float(v)
         except ValueError:
@@ -324,7 +316,7 @@ def _simulate(args: argparse.Namespace) -> int:
         built,
         args.bus,
         args.out,
-        switch_states=_pairs(args.switch, "--switch"),
+        switch_states=name_value_pairs(args.switch, "--switch"),
         alpha_deg=args.angle,
         fs_hz=args.fs,
         duration_s=args.duration,
