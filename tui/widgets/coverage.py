@@ -109,7 +109,7 @@ def coverage_text(
             out.append(f"{text:<14}", style=pal.style(role))
         out.append("\n")
     out.append(
-        "\u00b1x % smallest ratio error detected  . not detectable  ! gain beyond class\n",
+        "\u00b1x % smallest ratio error detected  no / . not detectable  ! gain beyond class\n",
         style=pal.style("muted"),
     )
     out.append_text(_reasons(e, meters, pal))
