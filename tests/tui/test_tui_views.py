@@ -194,6 +194,16 @@ def _without_tie(tmp: Path) -> Path:
     return out
 
 
+def _plain_if_mounted(screen) -> str:
+    """The campaign box's text, or "" while the screen is still mounting its children."""
+    from textual.css.query import NoMatches
+
+    try:
+        return _plain(screen, "#campaign")
+    except NoMatches:
+        return ""
+
+
 async def _campaign_text(tmp: Path, profile: Path) -> tuple[str, bool]:
     app = BenchwalkApp(lambda op, r: None, bench_name="demo", profile_path=profile)
     async with app.run_test(size=(100, 30)) as pilot:
@@ -203,7 +213,7 @@ async def _campaign_text(tmp: Path, profile: Path) -> tuple[str, bool]:
         screen = app.screen
         await until(
             pilot,
-            lambda: screen.plan is not None or "working out" in _plain(screen, "#campaign"),
+            lambda: screen.plan is not None or "working out" in _plain_if_mounted(screen),
             15,
             "the campaign box",
         )
