@@ -529,7 +529,7 @@ capture = { snapshots = 2, interval_s = 0.2 }
 
 @pytest.mark.slow
 async def test_live_noise_is_not_judged_on_a_switching_transient(make_session):
-    # The demo's own poll (0.2 s) and transient (1.5 s, first order): the curvature of M5's
+    # The demo's poll (0.2 s) and a slow transient (1.5 s, first order): the curvature of M5's
     # falling current reads as several times its class scatter, so judging noise on it would
     # blame a loose connection. Live noise waits for the readings to settle, as captures do.
     def demo_timing(text: str) -> str:
