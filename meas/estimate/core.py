@@ -168,7 +168,7 @@ _Y_MEMO: dict[tuple[Callable[[FArray], CArray], bytes], CArray] = {}
 _DY_MEMO: dict[tuple[Callable[[FArray], CArray], bytes], list[CArray]] = {}
 _DY_AT: dict[Callable[[FArray], CArray], tuple[FArray, list[CArray]]] = {}
 DY_REFRESH = 1e-3  # recompute dY/dθ once a parameter moved this much (relative)
-_MEMO_MAX = 4096
+_MEMO_MAX = 1024
 
 
 def reset_admittances() -> None:
@@ -189,9 +189,9 @@ def admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[C
     the gain matrix at the solution is then off by at most that share in the parameter columns,
     which moves posterior parameter uncertainties by about as much (our trade for speed).
     """
-    if len(_Y_MEMO) > _MEMO_MAX or len(_DY_MEMO) > _MEMO_MAX:
-        _Y_MEMO.clear()
-        _DY_MEMO.clear()
+    for memo_table in (_Y_MEMO, _DY_MEMO):  # oldest first: memory stays flat over a long day
+        while len(memo_table) >= _MEMO_MAX:
+            memo_table.pop(next(iter(memo_table)))
     key = (t.y_of, pv.tobytes())
     y = _Y_MEMO.get(key)
     if y is None:

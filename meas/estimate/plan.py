@@ -156,6 +156,7 @@ def build_plan(step: StepModel) -> StepPlan:
 
 
 _PLANS: dict[int, tuple[StepModel, StepPlan]] = {}
+_PLANS_MAX = 64  # a joint session has a few dozen steps; a capture window builds its own
 _NONE = np.zeros(0)
 
 
@@ -164,8 +165,8 @@ def plan_of(step: StepModel) -> StepPlan:
     hit = _PLANS.get(id(step))
     if hit is not None and hit[0] is step:
         return hit[1]
-    if len(_PLANS) > 512:
-        _PLANS.clear()
+    while len(_PLANS) >= _PLANS_MAX:  # oldest first: memory stays flat over a long day
+        _PLANS.pop(next(iter(_PLANS)))
     pl = build_plan(step)
     _PLANS[id(step)] = (step, pl)
     return pl

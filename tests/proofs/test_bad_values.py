@@ -95,7 +95,7 @@ def test_bad_seed_option_is_one_line(tmp_path, flag):
 @pytest.mark.parametrize(
     ("edit", "says"),
     [
-        (lambda t: t.replace("settle_s = 0.15 ", "settle_s = -2.0 ", 1), "sim.settle_s"),
+        (lambda t: t.replace("settle_s = 0.1 ", "settle_s = -2.0 ", 1), "sim.settle_s"),
         (lambda t: t.replace("update_hz = 10", "update_hz = 2", 1), "sim.update_hz"),
         (lambda t: t.replace('transient = "damped"', 'transient = "wobbly"', 1), "sim.transient"),
     ],

@@ -533,7 +533,7 @@ async def test_live_noise_is_not_judged_on_a_switching_transient(make_session):
     # falling current reads as several times its class scatter, so judging noise on it would
     # blame a loose connection. Live noise waits for the readings to settle, as captures do.
     def demo_timing(text: str) -> str:
-        text = text.replace("settle_s = 0.15 ", "settle_s = 1.5 ", 1)
+        text = text.replace("settle_s = 0.1 ", "settle_s = 1.5 ", 1)
         return text.replace("[poll]\ninterval_s = 0.1", "[poll]\ninterval_s = 0.2", 1)
 
     s = await make_session(LB2_OUT, edit=demo_timing)
