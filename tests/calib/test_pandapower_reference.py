@@ -47,6 +47,13 @@ def test_optimum_equals_pandapower_in_the_loop_to_1e_6(case):
     assert own.fit.converged and ref.fit.converged
     a = np.array([e.value for e in own.estimates])
     b = np.array([e.value for e in ref.estimates])
-    scale = np.array([max(abs(e.value), e.prior_u) for e in ref.estimates])
+    # relative to each value: a model parameter to its own size (or its prior width near 0);
+    # a meter gain g is a reading (1 + g)·model (meas.calib.problem), so relative to 1 + g
+    scale = np.array(
+        [
+            max(abs(e.value), e.prior_u) if e.kind == "parameter" else abs(1.0 + e.value)
+            for e in ref.estimates
+        ]
+    )
     assert np.max(np.abs(a - b) / scale) < 1e-6
     assert own.fit.chi2 == pytest.approx(ref.fit.chi2, rel=1e-8)
