@@ -34,7 +34,7 @@ from ..network.elements import (
     TwoPort,
     bus_nominal_phase_voltage,
 )
-from ..network.loadflow import Solution
+from ..network.loadflow import Solution, newton_jacobian
 
 ELEMENT_STEP = 1e-6  # relative step of the element-level central differences
 # A line's charging shares the diagonal blocks with its series admittance, some 1e7 times
@@ -152,19 +152,8 @@ class StepSensitivity:
 
     def __init__(self, nodal: Nodal, v: np.ndarray):
         self.nodal, self.v = nodal, v
-        y, vn, si = nodal.y, nodal.vn, nodal.si
-        n = len(v)
         self.pq = pq = np.flatnonzero(~nodal.slack)
-        vm = np.abs(v)
-        cur = y @ v
-        vu = v / vm
-        ds_dvm = v[:, None] * np.conj(y * vu[None, :])
-        ds_dvm[np.diag_indices(n)] += np.conj(cur) * vu + si / vn
-        ds_dva = -1j * v[:, None] * np.conj(y * v[None, :])
-        ds_dva[np.diag_indices(n)] += 1j * v * np.conj(cur)
-        a = ds_dva[np.ix_(pq, pq)]
-        m = ds_dvm[np.ix_(pq, pq)]
-        jac = np.block([[a.real, m.real], [a.imag, m.imag]])
+        jac = newton_jacobian(nodal.y, v, nodal.si, nodal.vn, pq)
         self.lu = scipy.linalg.lu_factor(jac, check_finite=False)
 
     def dv(self, stamps: Sequence[Stamp]) -> np.ndarray:

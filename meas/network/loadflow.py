@@ -75,6 +75,27 @@ def _load_power(ld: LoadModel, vm: np.ndarray, vn: float) -> np.ndarray:
     return ld.s_z * r**2 + ld.s_i * r + ld.s_p
 
 
+def newton_jacobian(
+    y: np.ndarray, v: np.ndarray, si: np.ndarray, vn: np.ndarray, pq: np.ndarray
+) -> np.ndarray:
+    """d(injection mismatch)/d(angle, magnitude) at the PQ nodes: the Newton step's matrix.
+
+    Rows: real then imaginary mismatch; columns: angles then magnitudes. ``si`` is the constant-
+    current part of the load, scaled by |V| / ``vn``. The calibration's sensitivities factorise
+    the same matrix at the converged point (implicit function theorem).
+    """
+    n = len(v)
+    vu = v / np.abs(v)
+    cur = y @ v
+    ds_dvm = v[:, None] * np.conj(y * vu[None, :])
+    ds_dvm[np.diag_indices(n)] += np.conj(cur) * vu + si / vn
+    ds_dva = -1j * v[:, None] * np.conj(y * v[None, :])
+    ds_dva[np.diag_indices(n)] += 1j * v * np.conj(cur)
+    a = ds_dva[np.ix_(pq, pq)]
+    m = ds_dvm[np.ix_(pq, pq)]
+    return np.block([[a.real, m.real], [a.imag, m.imag]])
+
+
 def solve(
     net: Network,
     *,
@@ -92,7 +113,6 @@ def solve(
     tol_va = tol_pu * net.s_base_va
     nodal = assemble(net)
     y, slack, sp, si, vn = nodal.y, nodal.slack, nodal.sp, nodal.si, nodal.vn
-    n = len(vn)
     pq = np.flatnonzero(~slack)
     npq = len(pq)
     v = nodal.v0.copy()
@@ -117,14 +137,7 @@ def solve(
                 break
             if it == max_iter:
                 break
-            vu = v / vm
-            ds_dvm = v[:, None] * np.conj(y * vu[None, :])
-            ds_dvm[np.diag_indices(n)] += np.conj(cur) * vu + si / vn
-            ds_dva = -1j * v[:, None] * np.conj(y * v[None, :])
-            ds_dva[np.diag_indices(n)] += 1j * v * np.conj(cur)
-            a = ds_dva[np.ix_(pq, pq)]
-            m = ds_dvm[np.ix_(pq, pq)]
-            jac = np.block([[a.real, m.real], [a.imag, m.imag]])
+            jac = newton_jacobian(y, v, si, vn, pq)
             try:
                 dx = np.linalg.solve(jac, -np.r_[mis[pq].real, mis[pq].imag])
             except np.linalg.LinAlgError:
