@@ -15,7 +15,15 @@ import os
 
 import numpy as np
 import pytest
-from support.estimate_bench import as_built, capture, demo, meter_gains, sequence_states
+from support.estimate_bench import (
+    FAULT_CAUSE,
+    as_built,
+    capture,
+    demo,
+    fault_matrix,
+    meter_gains,
+    sequence_states,
+)
 
 from meas.estimate import Estimator
 from meas.sim.faults import parse_fault
@@ -26,21 +34,6 @@ STEPS = ("pick-up-lateral", "reactor-in", "transfer-lb2")
 # the whole matrix (72 faults) with BENCHWALK_SOAK=1; by default every fourth, which rotates
 # the nine fault kinds over the eight meters
 EVERY = 1 if os.environ.get("BENCHWALK_SOAK") == "1" else 4
-KIND = {
-    "vt-ratio": "vt_ratio",
-    "ct-ratio": "ct_ratio",
-    "ct-reversed": "ct_reversed",
-    "phases-swapped": "phases_swapped",
-}
-
-
-def _faults(meters: list[str]) -> list[str]:
-    out = []
-    for m in meters:
-        out += [f"vt-ratio:{m}:0.9", f"vt-ratio:{m}:1.1", f"ct-ratio:{m}:0.8"]
-        out += [f"ct-reversed:{m}:{p}" for p in "ABC"]
-        out += [f"phases-swapped:{m}:{p}" for p in ("A-B", "B-C", "C-A")]
-    return out
 
 
 @pytest.mark.slow
@@ -55,10 +48,10 @@ def test_fault_matrix_on_the_demo_bench(seed: int) -> None:
     for sid, e in coverage.items():
         assert e.converged and not e.findings, (seed, sid)
     named = 0
-    for text in _faults([m.id for m in prof.meters])[::EVERY]:
+    for text in fault_matrix([m.id for m in prof.meters])[::EVERY]:
         f = parse_fault(text)
         arg = "" if f.kind in ("vt-ratio", "ct-ratio") else str(f.arg).replace("-", "")
-        label = KIND[f.kind] + (f":{arg}" if arg else "")
+        label = FAULT_CAUSE[f.kind] + (f":{arg}" if arg else "")
         for sid in STEPS:
             e = est.run([capture(true, states[sid], (f,), rng, gains)])
             where = (seed, text, sid, [x.sentence for x in e.findings])
@@ -75,7 +68,7 @@ def test_fault_matrix_on_the_demo_bench(seed: int) -> None:
             assert e.findings, where  # coverage said it can be seen here
             x = e.findings[0]
             assert x.meters == (f.meter,), where
-            assert x.cause.startswith(KIND[f.kind]), where
+            assert x.cause.startswith(FAULT_CAUSE[f.kind]), where
             if arg:
                 assert x.cause.endswith(arg), where
             else:

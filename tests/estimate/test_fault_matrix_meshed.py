@@ -17,7 +17,14 @@ import os
 
 import numpy as np
 import pytest
-from support.estimate_bench import as_built, capture, meter_gains, sequence_states
+from support.estimate_bench import (
+    FAULT_CAUSE,
+    as_built,
+    capture,
+    fault_matrix,
+    meter_gains,
+    sequence_states,
+)
 from support.meshed_bench import HV_METER, LV_METER, meshed_bench
 
 from meas.estimate import Estimator
@@ -31,21 +38,6 @@ SOAK = os.environ.get("BENCHWALK_SOAK") == "1"
 # starting point rotated by the seed so that two seeds cover two thirds of it
 EVERY = 1 if SOAK else 3
 SEEDS = (1, 2, 3) if SOAK else (1, 2)
-KIND = {
-    "vt-ratio": "vt_ratio",
-    "ct-ratio": "ct_ratio",
-    "ct-reversed": "ct_reversed",
-    "phases-swapped": "phases_swapped",
-}
-
-
-def _faults(meters: list[str]) -> list[str]:
-    out = []
-    for m in meters:
-        out += [f"vt-ratio:{m}:0.9", f"vt-ratio:{m}:1.1", f"ct-ratio:{m}:0.8"]
-        out += [f"ct-reversed:{m}:{p}" for p in "ABC"]
-        out += [f"phases-swapped:{m}:{p}" for p in ("A-B", "B-C", "C-A")]
-    return out
 
 
 @pytest.mark.slow
@@ -64,11 +56,11 @@ def test_fault_matrix_on_the_meshed_bench(seed: int) -> None:
         cov = coverage["lv-load"].coverage_of(m, "vt_ratio")
         assert cov is not None and cov.detectable, (seed, m)
     named = 0
-    matrix = _faults([m.id for m in prof.meters])
+    matrix = fault_matrix([m.id for m in prof.meters])
     for text in matrix[(seed - 1) % EVERY :: EVERY]:
         f = parse_fault(text)
         arg = "" if f.kind in ("vt-ratio", "ct-ratio") else str(f.arg).replace("-", "")
-        label = KIND[f.kind] + (f":{arg}" if arg else "")
+        label = FAULT_CAUSE[f.kind] + (f":{arg}" if arg else "")
         for sid in STEPS:
             e = est.run([capture(true, states[sid], (f,), rng, gains)])
             where = (seed, text, sid, [x.sentence for x in e.findings])
@@ -83,7 +75,7 @@ def test_fault_matrix_on_the_meshed_bench(seed: int) -> None:
             assert e.findings, where  # coverage said it can be seen here
             x = e.findings[0]
             assert x.meters == (f.meter,), where
-            assert x.cause.startswith(KIND[f.kind]), where
+            assert x.cause.startswith(FAULT_CAUSE[f.kind]), where
             if arg:
                 assert x.cause.endswith(arg), where
             else:

@@ -94,3 +94,23 @@ def sequence_states(profile: Profile) -> Iterator[tuple[str, dict[str, str]]]:
         states.update(st.expect)
         if st.capture is not None and st.kind != "note" and st.kind != "hold":
             yield st.id, dict(states)
+
+
+# the simulator's fault kinds (meas.sim.faults) and the cause words the estimator gives them
+FAULT_CAUSE = {
+    "vt-ratio": "vt_ratio",
+    "ct-ratio": "ct_ratio",
+    "ct-reversed": "ct_reversed",
+    "phases-swapped": "phases_swapped",
+}
+
+
+def fault_matrix(meters: list[str]) -> list[str]:
+    """Issue 11's matrix per meter: VT ratio 0.9 and 1.1, CT ratio 0.8, a reversed CT per phase,
+    a swapped pair per pair (as ``--fault`` texts)."""
+    out = []
+    for m in meters:
+        out += [f"vt-ratio:{m}:0.9", f"vt-ratio:{m}:1.1", f"ct-ratio:{m}:0.8"]
+        out += [f"ct-reversed:{m}:{p}" for p in "ABC"]
+        out += [f"phases-swapped:{m}:{p}" for p in ("A-B", "B-C", "C-A")]
+    return out
