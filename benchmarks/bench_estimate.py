@@ -9,7 +9,12 @@ class-consistent readings, no fault):
   network is the same and only the readings grow: the estimator's cost per meter);
 - a joint session: 15 steps of the demo sequence (its 12 capturing steps, then the first three
   loaded ones again), 8 meters, every step a 3-snapshot capture.
-Targets (issue 11): <= 20 ms per capture at 32 meters, <= 0.5 s per 15-step session.
+Targets (issue 11): <= 20 ms per capture at 32 meters, <= 0.5 s per 15-step session. Each
+capture case is timed twice: the whole estimate (``Estimator.run``: the fit, the bad-data
+statistics of every hypothesis, the identification and the coverage table) and the fit alone.
+The estimator starts each capture where the last one of the same switch state ended
+(``meas.estimate.solver.Starts``), as it does in a session; the first capture of a state
+costs about twice as much.
 Medians of N runs, each on a fresh capture, with the solver's iterations (``--cpu``: CPU time
 of this process instead of wall time). Sets OPENBLAS_NUM_THREADS=1 (BLAS threads
 oversubscribe a shared machine and slow small dense algebra many times; see bench_solver).
@@ -35,6 +40,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 from support.estimate_bench import as_built, capture, demo, meter_gains, sequence_states  # noqa: E402
 
 from meas.estimate import Estimator  # noqa: E402
+from meas.estimate.solver import Starts, solve  # noqa: E402
 from meas.model import Profile  # noqa: E402
 
 STATE = {
@@ -65,6 +71,20 @@ def _time(fns: list, clock=time.perf_counter) -> tuple[float, object]:
     return statistics.median(times), out
 
 
+def _fit(est: Estimator, captures: list) -> object:
+    """The estimate's fit alone: terms from the readings, then the weighted least squares
+    (state, gains and parameters with their covariance), without the bad-data statistics,
+    the identification and the coverage that ``Estimator.run`` adds."""
+    pr = est.builder.problem(captures)
+    return solve(pr.steps, pr.priors, max_iter=est.max_iter, starts=est.starts)
+
+
+def _cold(est: Estimator, captures: list) -> object:
+    """The whole estimate with no earlier optimum to start from."""
+    est.starts = Starts()
+    return est.run(captures)
+
+
 def figures(repeat: int = 7, clock=time.perf_counter) -> list[tuple[str, float, float, int]]:
     """(case, median seconds, target seconds, iterations).
 
@@ -83,9 +103,13 @@ def figures(repeat: int = 7, clock=time.perf_counter) -> list[tuple[str, float, 
             for k in range(repeat + 1)
         ]
         est = Estimator(prof)
-        est.run([caps[-1]])  # warm the per-profile caches (topology, weights)
+        est.run([caps[-1]])  # warm the per-profile caches (topology, weights, last optimum)
         t, e = _time([lambda est=est, c=c: est.run([c]) for c in caps[:-1]], clock)
         rows.append((f"one capture, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
+        t, f = _time([lambda est=est, c=c: _fit(est, [c]) for c in caps[:-1]], clock)
+        rows.append((f"  the fit alone, {label}", t, 0.020, f.iterations))  # type: ignore[union-attr]
+        t, e = _time([lambda est=est, c=c: _cold(est, [c]) for c in caps[:-1]], clock)
+        rows.append((f"  first capture of a state, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
     true = as_built(base, 11)
     gains = meter_gains(base, 11)
     states = [st for _, st in sequence_states(base)]

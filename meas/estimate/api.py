@@ -16,7 +16,7 @@ from .core import StepModel
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
-from .solver import Fit, omega_prior, solve
+from .solver import Fit, Starts, omega_prior, solve
 
 CHI2_P = 0.99
 MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
@@ -48,6 +48,7 @@ class Estimator:
         self.builder = Builder(profile)
         self.max_iter = max_iter
         self.exact = exact
+        self.starts = Starts()  # where earlier solves ended, per step structure
 
     def run(self, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
         """Estimate jointly over ``captures`` (one inner sequence of snapshots per step)."""
@@ -55,7 +56,7 @@ class Estimator:
         if not pr.steps:
             topo = [u.reason for u in pr.unverified if u.meter == "*"]
             return _empty(pr, topo[0] if topo else "no live meter gave readings in these captures")
-        fit0 = solve(pr.steps, pr.priors, max_iter=self.max_iter)
+        fit0 = solve(pr.steps, pr.priors, max_iter=self.max_iter, starts=self.starts)
         findings: list[Finding] = []
         fit, steps, keys = fit0, list(pr.steps), list(pr.keys)
         cov_fit, cov_steps, cov_keys = fit0, steps, keys

@@ -100,6 +100,28 @@ class Prior:
     std: float
 
 
+def structure_key(step: StepModel) -> tuple[object, ...]:
+    """What two steps must share for one's index arrays and solution to serve the other: the
+    topology (the builder caches one per switch state, so its two-ports tuple is one object;
+    a holder of this key keeps that tuple so its id stays unique) and the meters with their
+    measured slots, currents and wiring. Readings and their uncertainties may differ."""
+    return (
+        id(step.two_ports),
+        step.nodes,
+        tuple(
+            (
+                mt.name,
+                mt.slots.tobytes(),
+                mt.current,
+                mt.gv,
+                mt.gi,
+                None if mt.wiring is None else mt.wiring.tobytes(),
+            )
+            for mt in step.meters
+        ),
+    )
+
+
 def slot_keys(p: int) -> tuple[tuple[str, int], ...]:
     """(reading key, code) of every slot a meter with ``p`` phases can have, in slot order."""
     if p == 1:
@@ -167,7 +189,7 @@ def initial(lay: _Layout, steps: Sequence[StepModel], shared0: FArray) -> FArray
 _Y_MEMO: dict[tuple[Callable[[FArray], CArray], bytes], CArray] = {}
 _DY_MEMO: dict[tuple[Callable[[FArray], CArray], bytes], list[CArray]] = {}
 _DY_AT: dict[Callable[[FArray], CArray], tuple[FArray, list[CArray]]] = {}
-DY_REFRESH = 1e-3  # recompute dY/dθ once a parameter moved this much (relative)
+DY_REFRESH = 1e-5  # recompute dY/dθ once a parameter moved this much (relative)
 _MEMO_MAX = 1024
 
 
@@ -184,10 +206,11 @@ def reset_admittances() -> None:
 def admittance(t: TwoPortTerm, pv: FArray, derivs: bool) -> tuple[CArray, list[CArray]]:
     """Y(θ) and dY/dθ of a two-port; steps share the builder, so one call serves them all.
 
-    dY/dθ is a forward difference, recomputed only when θ moved by ``DY_REFRESH``: Gauss-Newton
-    converges to the same point with a slightly stale Jacobian (the residual is always exact);
-    the gain matrix at the solution is then off by at most that share in the parameter columns,
-    which moves posterior parameter uncertainties by about as much (our trade for speed).
+    dY/dθ is a forward difference, recomputed only when θ moved by ``DY_REFRESH``: the residual
+    is always exact, and a Jacobian that stale moves the Gauss-Newton fixed point and the gain
+    matrix by about that share in the parameter columns. At 1e-3 that made results depend on
+    where the solve started (a few 1e-4 of a figure); at 1e-5 they agree with an exact-Jacobian
+    solve to about 1e-6 (tests/estimate/test_solver_starts.py), for one refresh or two a solve.
     """
     for memo_table in (_Y_MEMO, _DY_MEMO):  # oldest first: memory stays flat over a long day
         while len(memo_table) >= _MEMO_MAX:

@@ -13,7 +13,7 @@ magnitudes, powers and angles of its voltages and currents times its gains.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import NDArray
@@ -31,6 +31,7 @@ from .core import (
     StepModel,
     admittance,
     slot_keys,
+    structure_key,
 )
 
 _KINDS = {1: np.array([0, 1, 2, 2]), 3: np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]}
@@ -160,14 +161,34 @@ _PLANS_MAX = 64  # a joint session has a few dozen steps; a capture window build
 _NONE = np.zeros(0)
 
 
+_SHAPES: dict[tuple[object, ...], tuple[tuple[object, ...], StepPlan]] = {}
+
+
 def plan_of(step: StepModel) -> StepPlan:
-    """The step's plan, cached by identity (steps are immutable; the cache holds a reference)."""
+    """The step's plan, cached by identity (steps are immutable; the cache holds a reference).
+
+    A new step with the structure of an earlier one (the next capture of the same switch
+    state: ``core.structure_key``) reuses that plan's index arrays with its own readings.
+    """
     hit = _PLANS.get(id(step))
     if hit is not None and hit[0] is step:
         return hit[1]
     while len(_PLANS) >= _PLANS_MAX:  # oldest first: memory stays flat over a long day
         _PLANS.pop(next(iter(_PLANS)))
-    pl = build_plan(step)
+    while len(_SHAPES) >= _PLANS_MAX:
+        _SHAPES.pop(next(iter(_SHAPES)))
+    key = structure_key(step)
+    shape = _SHAPES.get(key)
+    if shape is not None and shape[0][0] is step.two_ports:
+        ms = step.meters
+        pl = replace(
+            shape[1],
+            z=np.concatenate([mt.z for mt in ms]).astype(float) if ms else np.zeros(0),
+            sigma=np.concatenate([mt.sigma for mt in ms]).astype(float) if ms else np.zeros(0),
+        )
+    else:
+        pl = build_plan(step)
+        _SHAPES[key] = ((step.two_ports,), pl)
     _PLANS[id(step)] = (step, pl)
     return pl
 

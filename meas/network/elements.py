@@ -141,7 +141,10 @@ def line_admittance(p: LineParams) -> np.ndarray:
     y0 = 1j * (p.b_us if p.b0_us is None else p.b0_us) * 1e-6
     z1l, y1l = _pi_seq(z1 * length, y1 * length, p.long_line)
     z0l, y0l = _pi_seq(z0 * length, y0 * length, p.long_line)
-    ys = np.linalg.inv(seq_to_phase(z0l, z1l))
+    if z0l != 0 and z1l != 0:  # the inverse of seq_to_phase(z0, z1), in closed form
+        ys = seq_to_phase(1 / z0l, 1 / z1l)
+    else:
+        ys = np.linalg.inv(seq_to_phase(z0l, z1l))  # singular: raises as it always did
     ysh = seq_to_phase(y0l, y1l) / 2
     out = np.empty((6, 6), dtype=complex)  # [[ys + ysh, -ys], [-ys, ys + ysh]]
     out[:3, :3] = out[3:, 3:] = ys + ysh
