@@ -5,6 +5,7 @@ main screen enables it exactly when the runner's view allows that command."""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 from textual.binding import Binding
@@ -140,6 +141,34 @@ PALETTE = "ctrl+p"  # textual's command palette: every action by name, and the t
 COMMAND_OF: dict[str, str] = {k.action: k.command for k in KEYS if k.command}
 # key -> its action (to say why a step key that cannot act now does nothing)
 ACTION_OF_KEY: dict[str, str] = {k.key: k.action for k in KEYS}
+
+
+# Which footer items stay when the footer is too narrow for all (80 columns in review). Lower
+# rank stays first: help and quit always (help lists every key), then the step's keys, then
+# the views in this order; a dropped item's key still works and help still lists it.
+_FOOTER_RANK = {"help": 0, "quit": 0, "coverage": 2, "next_meter": 3, "units": 4}
+
+
+def footer_rank(action: str) -> int:
+    """The footer rank of a binding's action (step keys 1, unranked views last)."""
+    name = action.removeprefix("app.").split("(")[0]
+    if name in COMMAND_OF:
+        return 1
+    return _FOOTER_RANK.get(name, 5)
+
+
+def footer_fit(items: Sequence[tuple[str, int]], width: int) -> set[int]:
+    """Which footer items fit in ``width`` cells: the positions of (action, cells) items kept,
+    by rank (``footer_rank``) and then from the left; shown in their own order, so the footer
+    never ends in a cut word."""
+    order = sorted(range(len(items)), key=lambda i: (footer_rank(items[i][0]), i))
+    kept: set[int] = set()
+    used = 0
+    for i in order:
+        if used + items[i][1] <= width:
+            kept.add(i)
+            used += items[i][1]
+    return kept
 
 
 def bindings() -> list[Binding]:

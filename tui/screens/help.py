@@ -5,7 +5,7 @@ from __future__ import annotations
 from rich.table import Table
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import VerticalScroll
+from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Label, Static
 
@@ -51,10 +51,12 @@ class HelpScreen(ModalScreen[None]):
     ]
 
     def compose(self) -> ComposeResult:
-        with VerticalScroll(classes="modal-box help-box"):
+        # the title and the close keys stay put; only the table scrolls (24 rows hold half of it)
+        with Vertical(classes="modal-box help-box"):
             yield Label("Keys", classes="modal-title")
-            yield Static(help_table(), id="help-keys")
-            yield Static("Esc or ? = close", classes="modal-keys")
+            with VerticalScroll():
+                yield Static(help_table(), id="help-keys")
+            yield Static("Esc or ? = close   \u2191\u2193 PgUp PgDn = scroll", classes="modal-keys")
 
     def action_close(self) -> None:
         self.dismiss(None)

@@ -19,7 +19,7 @@ from ..widgets.bench import BenchView
 from ..widgets.checks import ChecksPanel
 from ..widgets.phasor import PhasorView
 from ..widgets.readings import ReadingsGrid
-from ..widgets.step import StepDetail, StepSummary
+from ..widgets.step import StepDetail, StepHeadline, StepSummary
 from ..widgets.trend import TrendView
 
 VIEWS = ("step", "readings", "bench", "meter", "log")
@@ -35,8 +35,9 @@ _LEFT = {"step", "readings", "log"}  # the views of the left column
 
 
 def compose_panes(profile: Profile) -> ComposeResult:
-    """Step summary, notice and tabs on top; two columns of panes; the footer."""
+    """Step headline and summary, notice and tabs on top; two columns of panes; the footer."""
     with Vertical(id="top"):
+        yield StepHeadline(id="headline")
         yield StepSummary(id="summary")
         yield Static("", id="notice")
         yield Static("", id="tabs")

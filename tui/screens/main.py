@@ -14,16 +14,18 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import time
+from dataclasses import replace
 from typing import ClassVar
 
+from rich.cells import cell_len
 from textual import work
-from textual.binding import BindingType
+from textual.binding import ActiveBinding, BindingType
 from textual.widgets import Log
 from textual.worker import Worker, WorkerState, get_current_worker
 
 from meas.errors import BenchwalkError
 
-from ..keys import bindings, display_key, key_of
+from ..keys import bindings, display_key, footer_fit, key_of
 from ..messages import FrameReady, LogLines, PollTrouble
 from ..units import UNIT_MODE_LABEL, UNIT_MODES
 from ..widgets.readings import ReadingsGrid
@@ -57,6 +59,30 @@ class MainScreen(StepCommandScreen):
 
     def on_resize(self) -> None:
         self._apply_layout()
+        self.refresh_bindings()  # the footer keeps what fits the new width
+        if self.frame is not None:
+            self.paint(self.frame, count=False)  # the step title: whole or cut, by the width
+
+    @property
+    def active_bindings(self) -> dict[str, ActiveBinding]:
+        """textual's active bindings, with the footer items that do not fit the width hidden
+        (``keys.footer_fit``: help and quit always stay). Only what the footer shows changes;
+        every key still works, since key dispatch does not read this."""
+        active = super().active_bindings
+        shown = [(key, ab) for key, ab in active.items() if ab.binding.show]
+        # a footer item is " key description " (FooterKey: key padding 0 1, description 0 1 0 0)
+        cells = [
+            cell_len(self.app.get_key_display(ab.binding)) + cell_len(ab.binding.description) + 3
+            for _, ab in shown
+        ]
+        kept = footer_fit(
+            [(ab.binding.action, n) for (_, ab), n in zip(shown, cells, strict=True)],
+            self.app.size.width,
+        )
+        for i, (key, ab) in enumerate(shown):
+            if i not in kept:
+                active[key] = ab._replace(binding=replace(ab.binding, show=False))
+        return active
 
     # ------------------------------------------------------------------ polling
     @work(exclusive=True, group="poller", exit_on_error=False)

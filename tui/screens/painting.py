@@ -23,7 +23,7 @@ from ..widgets.bench import BenchView
 from ..widgets.checks import ChecksPanel
 from ..widgets.phasor import PhasorView
 from ..widgets.readings import ReadingsGrid, per_phase_lines
-from ..widgets.step import StepDetail, StepSummary
+from ..widgets.step import StepDetail, StepHeadline, StepSummary, headline_fits
 from ..widgets.trend import TREND_KEYS, TrendView
 from .layout import apply_layout, compose_panes, is_wide
 
@@ -85,8 +85,10 @@ class PaintedScreen(Screen):
         self.frame = frame
         self.frames_shown += count
         step = frame.step
+        self.query_one(StepHeadline).show(step)
         self.query_one(StepSummary).show(step)
-        self.query_one(StepDetail).show(step)
+        # a title the headline had to cut is shown whole in the step view
+        self.query_one(StepDetail).show(step, not headline_fits(step, self.app.size.width))
         self.query_one(ChecksPanel).show(frame.checks, step.overall if step else "waiting")
         snap = frame.snapshot
         grid = self.query_one(ReadingsGrid)

@@ -25,10 +25,8 @@ _MARK = {
 }
 
 
-def summary_text(
-    records: Sequence[StepRecord], verdict_line: str, simulated: bool, pal: Palette = DEFAULT
-) -> Text:
-    """One line per step (mark, id, outcome in words, reason), then the verdict."""
+def summary_text(records: Sequence[StepRecord], simulated: bool, pal: Palette = DEFAULT) -> Text:
+    """One line per step: mark, id, outcome in words, reason."""
     out = Text()
     if simulated:
         out.append(" SIMULATED BENCH ", style=pal.badge("sim"))
@@ -42,8 +40,13 @@ def summary_text(
         if r.reason:
             out.append(f"  ({r.reason})")
         out.append("\n")
-    out.append(f"\n VERDICT {verdict_line} ", style=verdict_style(verdict_line, pal))
+    out.rstrip()
     return out
+
+
+def verdict_text(verdict_line: str, pal: Palette = DEFAULT) -> Text:
+    """The session verdict, below the step list so a long walk never scrolls it away."""
+    return Text(f" VERDICT {verdict_line} ", style=verdict_style(verdict_line, pal))
 
 
 class WalkSummary(ModalScreen[None]):
@@ -61,16 +64,16 @@ class WalkSummary(ModalScreen[None]):
         self.simulated = simulated
 
     def compose(self) -> ComposeResult:
+        pal = palette_of(self.app)
+        # the title, the verdict and the keys stay put; only the step list scrolls
         with Vertical(classes="modal-box summary-box"):
             yield Label("END OF THE WALK", classes="modal-title")
             with VerticalScroll():
-                yield Static(
-                    summary_text(
-                        self.records, self.verdict_line, self.simulated, palette_of(self.app)
-                    )
-                )
+                yield Static(summary_text(self.records, self.simulated, pal))
+            yield Static(verdict_text(self.verdict_line, pal), classes="verdict")
             yield Static(
-                "Enter = back to the bench (the dataset is being exported)", classes="modal-keys"
+                "Enter = back to the bench (the dataset is being exported)   \u2191\u2193 = scroll",
+                classes="modal-keys",
             )
 
     def action_close(self) -> None:

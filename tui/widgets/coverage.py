@@ -108,8 +108,9 @@ def coverage_text(
             text, role = _gain_cell(e, mid, kind)
             out.append(f"{text:<14}", style=pal.style(role))
         out.append("\n")
+    # two short lines: one would wrap mid-phrase in the 80-column view
     out.append(
-        "\u00b1x % smallest ratio error detected  no / . not detectable  ! gain beyond class\n",
+        "\u00b1x % smallest ratio error detected  no / . not detectable\n! gain beyond class\n",
         style=pal.style("muted"),
     )
     out.append_text(_reasons(e, meters, pal))

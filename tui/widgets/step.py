@@ -7,7 +7,7 @@ from rich.text import Text
 from textual.widgets import Static
 
 from ..frame import StepInfo
-from ..keys import key_of
+from ..keys import display_key, key_of
 from .checks import overall_text
 from .palette import DEFAULT, Palette, palette_of
 
@@ -21,20 +21,31 @@ def verdict_style(line: str, pal: Palette = DEFAULT) -> Style:
     return pal.badge("error")
 
 
-def step_summary(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
-    """Three lines that stay on screen in every view: where we are and what to press."""
+def step_headline(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
+    """Where we are: the bench badge, step number and title, on one line (``StepHeadline``
+    cuts a long title with an ellipsis; the step view then shows it whole)."""
     if step is None:
         return Text("no sequence loaded", style=pal.style("muted"))
-    out = Text()  # wraps: the NEXT line is never cut off at 80 columns
+    out = Text()
     if step.simulated:
         out.append(" SIMULATED BENCH ", style=pal.badge("sim"))
         out.append(" ")
     out.append(f" Step {step.index} of {step.total} ", style=pal.badge("plain"))
-    out.append(f" {step.title}\n", style="bold")
+    out.append(f" {step.title}", style="bold")
+    return out
+
+
+def step_summary(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
+    """Below the headline, in every view: the step's state (or the verdict) and what to press."""
+    if step is None:
+        return Text("")
+    out = Text()  # wraps: the NEXT line is never cut off at 80 columns
     if step.finished and step.verdict:
         out.append(f" VERDICT {step.verdict} ", style=verdict_style(step.verdict, pal))
+        # only the keys (tui.bridge puts them before the bar): the words repeat the verdict
+        keys = (step.next_action or "-").split(" \u2502 ")[0]
         out.append("\n\u25b6 NEXT ", style=pal.badge("plain"))
-        out.append(" " + (step.next_action or "-"), style="bold")
+        out.append(" " + keys, style="bold")
         return out
     out.append_text(overall_text(step.overall, pal))
     out.append(f"  state: {step.state}")
@@ -48,11 +59,14 @@ def step_summary(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
     return out
 
 
-def step_detail(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
-    """Instruction and the switch table with every mismatch marked in words."""
+def step_detail(step: StepInfo | None, pal: Palette = DEFAULT, title: bool = False) -> Text:
+    """Instruction and the switch table with every mismatch marked in words; ``title``: the
+    step's title first (the headline had to cut it)."""
     if step is None:
         return Text("")
     out = Text()
+    if title:
+        out.append(step.title + "\n", style="bold")
     out.append(step.instruction.strip() + "\n")
     if step.expected:
         # matches share one line; a status read in the wrong state gets its own line; statuses
@@ -94,14 +108,38 @@ def step_detail(step: StepInfo | None, pal: Palette = DEFAULT) -> Text:
         out.append(
             "remote operation available: "
             + ", ".join(step.remote_switches)
-            + f" (press {key_of('request_remote')})\n",
+            + f" (press {display_key(key_of('request_remote'))})\n",
             style="bold",
         )
     return out
 
 
+def headline_fits(step: StepInfo | None, width: int) -> bool:
+    """Whether the headline shows the whole title in ``width`` cells."""
+    return step_headline(step).cell_len <= width
+
+
+class StepHeadline(Static):
+    """One line; a title too long for the width ends in an ellipsis instead of wrapping."""
+
+    DEFAULT_CSS = (
+        "StepHeadline { height: 1; width: 1fr; text-wrap: nowrap; text-overflow: ellipsis; }"
+    )
+
+    def __init__(self, **kw) -> None:
+        super().__init__("", **kw)
+        self._last: tuple[str, str] | None = None
+
+    def show(self, step: StepInfo | None) -> None:
+        pal = palette_of(self.app)
+        text = step_headline(step, pal)
+        if (text.plain, pal.name) != self._last:
+            self._last = (text.plain, pal.name)
+            self.update(text)
+
+
 class StepSummary(Static):
-    DEFAULT_CSS = "StepSummary { height: auto; max-height: 7; }"
+    DEFAULT_CSS = "StepSummary { height: auto; max-height: 6; }"
 
     def __init__(self, **kw) -> None:
         super().__init__("", **kw)
@@ -122,9 +160,9 @@ class StepDetail(Static):
         super().__init__("", **kw)
         self._last: tuple[str, str] | None = None
 
-    def show(self, step: StepInfo | None) -> None:
+    def show(self, step: StepInfo | None, title: bool = False) -> None:
         pal = palette_of(self.app)
-        text = step_detail(step, pal)
+        text = step_detail(step, pal, title)
         if (text.plain, pal.name) != self._last:
             self._last = (text.plain, pal.name)
             self.update(text)

@@ -15,10 +15,21 @@ from textual.widgets import Static
 
 from meas.model import Profile
 
+from ..keys import display_key, key_of
 from ..units import UnitMode, eng, scale_factor, unit_label
 from .palette import DEFAULT, Palette, palette_of
 
 TREND_KEYS = ("p.T", "q.T", "v_ll.AB", "i.A", "pf.T", "f.T")
+TREND_KEY = key_of("trend_key")
+# as the trend's title names them: ".T" is the three-phase total, not the T key
+TREND_LABEL = {
+    "p.T": "P total",
+    "q.T": "Q total",
+    "v_ll.AB": "V AB",
+    "i.A": "I A",
+    "pf.T": "PF total",
+    "f.T": "f",
+}
 _BLOCKS = " \u2581\u2582\u2583\u2584\u2585\u2586\u2587\u2588"
 
 
@@ -67,8 +78,8 @@ def trend_text(
     unit = unit_label(key, mode)
     shown = list(samples)[-width:]
     values = [v * k for _, v in shown]
-    out.append(f"trend {meter_id} {key}", style="bold")
-    out.append(" (T = other quantity)", style=pal.style("muted"))
+    out.append(f"trend {meter_id} {TREND_LABEL.get(key, key)}", style="bold")
+    out.append(f"  ({display_key(TREND_KEY)} = next)", style=pal.style("muted"))
     if not shown:
         out.append("  (no samples yet)\n", style=pal.style("muted"))
         return out
