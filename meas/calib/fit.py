@@ -17,7 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import least_squares
-from scipy.stats import chi2 as chi2_dist
+
+# chi2.sf(x, k) = chdtrc(k, x): scipy.stats costs a second to import
+from scipy.special import chdtrc
 
 from ..errors import BenchwalkError
 from ..network.loadflow import SolverError
@@ -128,7 +130,7 @@ def run_fit(
         model_u=model_u,
         chi2=chi2,
         dof=dof,
-        p_value=float(chi2_dist.sf(chi2, dof)) if dof > 0 else math.nan,
+        p_value=float(chdtrc(dof, chi2)) if dof > 0 else math.nan,
         converged=bool(converged),
         message=str(res.message),
         nfev=int(res.nfev),

@@ -7,7 +7,8 @@ from collections.abc import Sequence
 from dataclasses import replace
 
 import numpy as np
-from scipy.stats import chi2 as _chi2
+# chi2.ppf(p, k) = chdtri(k, 1 - p): scipy.stats costs a second to import
+from scipy.special import chdtri
 
 from ..model import Profile
 from ..snapshot import Snapshot
@@ -98,7 +99,7 @@ class Estimator:
         if not fit.converged:
             fit = cov_fit
         dof = _dof(fit)
-        limit = float(_chi2.ppf(CHI2_P, dof)) if dof > 0 else math.nan
+        limit = float(chdtri(dof, 1.0 - CHI2_P)) if dof > 0 else math.nan
         named = {m for f in findings for m in f.meters}
         if cov_fit is not fit0 or ts0 is None:
             ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
