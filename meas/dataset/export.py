@@ -27,10 +27,11 @@ import pyarrow.parquet as pq
 
 from .. import __version__
 from ..errors import BenchwalkError
+from ..journal.errors import JournalDamaged
 from ..journal.read import JournalView
 from ..journal.salvage import salvage_journal
 from ..journal.sessions import resolve_session
-from ..journal.store import Journal, JournalDamaged
+from ..journal.store import Journal
 from ..progress import Progress
 from ..verdict import records_from_log, session_verdict
 from .estimate_tables import session_estimate_of

@@ -9,9 +9,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ..errors import BenchwalkError
+from ..journal.errors import SessionExists
 from ..journal.lock import SessionBusy
 from ..journal.sessions import new_session_id, resolve_session, session_path
-from ..journal.store import Journal, SessionExists
+from ..journal.store import Journal
 from ..model import Profile, SwitchState
 from ..profile import load_profile
 from ..results import Status
