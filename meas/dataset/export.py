@@ -37,6 +37,7 @@ from ..verdict import records_from_log, session_verdict
 from .estimate_tables import session_estimate_of
 from .files import fsync_dir, fsync_file, sha256_of, slug
 from .grid_tables import NETWORK_FILE, write_network
+from .measurements import BATCH_READINGS, measurement_batches, measurement_tables
 from .outputs import check_dataset_target
 from .schema import (
     DATA_DIR,
@@ -48,7 +49,7 @@ from .schema import (
     arrow_schema,
     table_schema,
 )
-from .tables import BATCH_READINGS, measurement_batches, measurement_tables, small_tables, to_tables
+from .tables import small_tables, to_tables
 
 DP_SCHEMA = "https://datapackage.org/profiles/2.0/datapackage.json"
 
