@@ -30,19 +30,10 @@ from rich.table import Table  # noqa: E402
 
 from meas.modbus.codec import encode  # noqa: E402
 from meas.modbus.plan import naive_request_count, plan_map  # noqa: E402
-from meas.model import (  # noqa: E402
-    REGISTER_KINDS,
-    Bench,
-    Meter,
-    PollSettings,
-    Profile,
-    RegisterMap,
-    RegisterSpec,
-    TcpTransport,
-    Zone,
-)
+from meas.model import Bench, Meter, PollSettings, Profile, TcpTransport, Zone  # noqa: E402
 from meas.poll.cycle import Poller  # noqa: E402
 from meas.profile import load_profile  # noqa: E402
+from meas.register_map import REGISTER_KINDS, RegisterMap, RegisterSpec  # noqa: E402
 
 DEMO = Path(__file__).resolve().parents[1] / "profiles_demo" / "feeder_bench.toml"
 

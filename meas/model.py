@@ -2,7 +2,8 @@
 
 ``meas.profile`` reads and validates the TOML into these; everything downstream (poll plan,
 poller, simulator, checks, runner, dataset) consumes only these types, never raw TOML.
-Electrical values are on the bench side, in SI units (V, A, W, var, VA, ohm, S).
+Electrical values are on the bench side, in SI units (V, A, W, var, VA, ohm, S). A meter
+model's register map is ``meas.register_map``'s.
 """
 
 from __future__ import annotations
@@ -10,22 +11,13 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, Literal, get_args
 
+# The register map (its types and register vocabularies) is ``meas.register_map``'s. A map is
+# part of the profile, so ``RegisterMap`` and ``REGISTER_KINDS`` are importable from here too.
+from .register_map import REGISTER_KINDS as REGISTER_KINDS
+from .register_map import RegisterMap as RegisterMap
+
 # Each vocabulary is written once, as a Literal for the type checker; the tuple beside it (same
 # order) is what the loader offers in its messages and what other modules iterate over.
-RegisterKind = Literal["holding", "input"]
-REGISTER_KINDS: tuple[RegisterKind, ...] = get_args(RegisterKind)
-DataType = Literal["int16", "uint16", "int32", "uint32", "float32", "float64", "int64", "uint64"]
-DATA_TYPES: tuple[DataType, ...] = get_args(DataType)
-# Text registers (ASCII, two characters per register) identify a device; they are never a
-# measured quantity, so they sit beside the numeric data types, under identification keys.
-TextType = Literal["string"]
-TEXT_TYPES: tuple[TextType, ...] = get_args(TextType)
-IdentKey = Literal["serial", "firmware", "model", "vendor", "hardware"]
-IDENT_KEYS: tuple[IdentKey, ...] = get_args(IdentKey)
-Order = Literal["big", "little"]
-ORDERS: tuple[Order, ...] = get_args(Order)
-ApparentPower = Literal["vector", "arithmetic"]  # IEEE 1459 definitions of S_total
-APPARENT_POWER: tuple[ApparentPower, ...] = get_args(ApparentPower)
 Parity = Literal["N", "E", "O"]
 PARITIES: tuple[Parity, ...] = get_args(Parity)
 Reporting = Literal["primary", "secondary"]  # which side of the CT/VT a meter reports
@@ -51,8 +43,6 @@ LoadBehaviour = Literal["pq", "z", "i", "zip"]
 # A per-phase quantity as the profile gives it: a three-phase total (split equally over the
 # phases) or the three phase values A, B, C.
 PhaseValues = float | tuple[float, float, float]
-
-REGISTER_COUNT: dict[str, int] = dict(zip(DATA_TYPES, (1, 1, 2, 2, 2, 4, 4, 4), strict=True))
 
 
 @dataclass(frozen=True)
@@ -82,72 +72,6 @@ class Bench:
             if z.id == zone_id:
                 return z
         raise KeyError(zone_id)
-
-
-@dataclass(frozen=True)
-class RegisterSpec:
-    """Where one quantity lives in a meter's register space and how to turn words into units."""
-
-    key: str  # "<quantity>.<phase>", see meas.quantities
-    kind: RegisterKind
-    address: int
-    dtype: DataType
-    word_order: Order = "big"
-    byte_order: Order = "big"
-    scale: float = 1.0  # engineering value = raw * scale + offset
-    offset: float = 0.0
-    unit: str = ""
-
-    @property
-    def count(self) -> int:
-        return REGISTER_COUNT[self.dtype]
-
-    @property
-    def end(self) -> int:
-        """One past the last register used."""
-        return self.address + self.count
-
-
-@dataclass(frozen=True)
-class TextSpec:
-    """A text register block that identifies the device (serial number, firmware version).
-
-    ``count`` registers, two ASCII characters each, the first in the high byte unless
-    ``byte_order`` is little (common practice in Modbus device maps); trailing NULs and spaces
-    are padding. Read once per meter, never polled as a reading.
-    """
-
-    key: IdentKey
-    kind: RegisterKind
-    address: int
-    count: int
-    byte_order: Order = "big"
-
-    @property
-    def end(self) -> int:
-        """One past the last register used."""
-        return self.address + self.count
-
-
-@dataclass(frozen=True)
-class RegisterMap:
-    """One meter model's register layout, reusable by many meters."""
-
-    id: str
-    registers: tuple[RegisterSpec, ...]
-    description: str = ""
-    apparent_power: ApparentPower = "arithmetic"
-    max_read: int = 125  # some meters accept fewer registers per read than the spec allows
-    text: tuple[TextSpec, ...] = ()  # identification strings (``TextSpec``), read once
-
-    def has(self, key: str) -> bool:
-        return any(r.key == key for r in self.registers)
-
-    def spec(self, key: str) -> RegisterSpec:
-        for r in self.registers:
-            if r.key == key:
-                return r
-        raise KeyError(key)
 
 
 @dataclass(frozen=True)

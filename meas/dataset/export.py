@@ -27,15 +27,17 @@ import pyarrow.parquet as pq
 
 from .. import __version__
 from ..errors import BenchwalkError
+from ..journal.errors import JournalDamaged
 from ..journal.read import JournalView
 from ..journal.salvage import salvage_journal
 from ..journal.sessions import resolve_session
-from ..journal.store import Journal, JournalDamaged
+from ..journal.store import Journal
 from ..progress import Progress
 from ..verdict import records_from_log, session_verdict
 from .estimate_tables import session_estimate_of
 from .files import fsync_dir, fsync_file, sha256_of, slug
 from .grid_tables import NETWORK_FILE, write_network
+from .measurements import BATCH_READINGS, measurement_batches, measurement_tables
 from .outputs import check_dataset_target
 from .schema import (
     DATA_DIR,
@@ -47,7 +49,7 @@ from .schema import (
     arrow_schema,
     table_schema,
 )
-from .tables import BATCH_READINGS, measurement_batches, measurement_tables, small_tables, to_tables
+from .tables import small_tables, to_tables
 
 DP_SCHEMA = "https://datapackage.org/profiles/2.0/datapackage.json"
 

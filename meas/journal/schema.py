@@ -2,7 +2,8 @@
 
 Storage is compact: one ``reading`` row per snapshot per meter holding the values as a packed
 float64 blob and the qualities as one byte each, in the key order of a ``keyset`` row. Every
-other module reads and writes through ``meas.journal.store`` and ``meas.journal.read``.
+other module reads and writes through ``meas.journal.store`` (with ``opening``, which makes
+the file) and ``meas.journal.read``.
 """
 
 from __future__ import annotations

@@ -4,14 +4,13 @@ Every ``record_*`` call commits before it returns, in WAL mode with ``synchronou
 "saved" on the console means on disk. Nothing captured is ever changed: triggers abort any
 UPDATE or DELETE on the data tables. The session row keeps the profile's sha256 and the full
 text of the profile and its companion files, so a dataset can describe the bench later
-without the original files.
+without the original files. Making and opening the file is ``opening``'s; the errors are
+``errors``'.
 """
 
 from __future__ import annotations
 
 import contextlib
-import dataclasses
-import hashlib
 import json
 import sqlite3
 import threading
@@ -21,40 +20,19 @@ from datetime import datetime
 from pathlib import Path
 from typing import TypeVar
 
-from .. import __version__
 from ..errors import BenchwalkError
 from ..model import Profile
 from ..results import CheckResult
 from ..snapshot import MeterBlock, Quality, Snapshot
 from . import read
+from .errors import JournalWriteError, SessionExists, write_advice
 from .lock import SessionLock
+from .opening import create_file, open_file, require_sqlite
 from .read import Json, SessionInfo, StepTransition
-from .schema import (
-    FORMAT_VERSION,
-    QUALITY_CODES,
-    ROLES,
-    connect,
-    install_schema,
-    iso,
-    now_iso,
-    num,
-    to_json,
-)
+from .schema import QUALITY_CODES, ROLES, iso, now_iso, num, to_json
 
 _T = TypeVar("_T")
 _QCODE = {q: i for i, q in enumerate(QUALITY_CODES)}
-
-
-class JournalWriteError(BenchwalkError):
-    """A record could not be saved (disk full, read-only, I/O error); earlier records are intact."""
-
-
-class JournalDamaged(BenchwalkError):
-    """SQLite's own check found damage: resume is refused; export salvages what is readable."""
-
-
-class SessionExists(BenchwalkError):
-    """A journal of that name is already there: captured data is never overwritten."""
 
 
 # ---------------------------------------------------------------- the journal
@@ -121,54 +99,11 @@ class Journal:
                 raise SessionExists(
                     f"{path}: a session journal already exists here; resume it or choose another name"
                 )
-            return cls._create_locked(path, profile, operator, sid, meta, lock)
+            conn, session = create_file(path, profile, operator, sid, meta)
+            return cls(path, conn, session, lock)
         except BaseException:
             lock.release()
             raise
-
-    @classmethod
-    def _create_locked(
-        cls,
-        path: Path,
-        profile: Profile,
-        operator: str,
-        sid: str,
-        meta: Json | None,
-        lock: SessionLock,
-    ) -> Journal:
-        try:
-            conn = connect(path)
-            with conn:
-                install_schema(conn)
-                conn.execute(
-                    "INSERT INTO session VALUES(?,?,?,?,?,?,?,?,?,?)",
-                    (
-                        sid,
-                        now_iso(),
-                        operator,
-                        profile.bench.name,
-                        str(profile.path),
-                        profile.sha256,
-                        to_json(_profile_dict(profile)),
-                        to_json(meta or {}),
-                        f"benchwalk {__version__}",
-                        FORMAT_VERSION,
-                    ),
-                )
-                conn.executemany(
-                    "INSERT INTO profile_file VALUES(?,?,?,?)",
-                    [
-                        (i, name, hashlib.sha256(text.encode()).hexdigest(), text)
-                        for i, (name, text) in enumerate(_profile_texts(profile))
-                    ],
-                )
-        except (OSError, sqlite3.Error) as exc:
-            raise JournalWriteError(
-                f"{path}: cannot create the session journal ({exc}); choose a writable folder with free space"
-            ) from exc
-        session = read.read_session(conn)
-        assert session is not None  # inserted just above
-        return cls(path, conn, session, lock)
 
     @classmethod
     def open(cls, path: Path, *, for_writing: bool = False) -> Journal:
@@ -177,44 +112,15 @@ class Journal:
         path = Path(path)
         if not path.is_file():
             raise BenchwalkError(f"{path}: no session journal here")
-        _require_sqlite(path)
+        require_sqlite(path)
         lock = SessionLock(path).acquire() if for_writing else None
         try:
-            return cls._open(path, lock)
+            conn, session = open_file(path)
+            return cls(path, conn, session, lock)
         except BaseException:
             if lock is not None:
                 lock.release()
             raise
-
-    @classmethod
-    def _open(cls, path: Path, lock: SessionLock | None) -> Journal:
-        conn: sqlite3.Connection | None = None
-        try:
-            conn = connect(path)
-            ok = conn.execute("PRAGMA quick_check").fetchone()[0]
-            if ok != "ok":
-                raise JournalDamaged(
-                    f"{path}: the journal is damaged ({ok}); keep a copy, and `benchwalk export` "
-                    "it to get what is readable"
-                )
-            row = read.read_session(conn)
-        except sqlite3.DatabaseError as exc:
-            if conn is not None:
-                conn.close()
-            if "malformed" in str(exc) or "corrupt" in str(exc):
-                raise JournalDamaged(
-                    f"{path}: the journal is damaged ({exc}); keep a copy, and `benchwalk export` "
-                    "it to get what is readable"
-                ) from exc
-            raise BenchwalkError(f"{path}: not a readable benchwalk journal ({exc})") from exc
-        except BaseException:
-            if conn is not None:
-                conn.close()
-            raise
-        if row is None:
-            conn.close()
-            raise BenchwalkError(f"{path}: the journal holds no session")
-        return cls(path, conn, row, lock)
 
     # ------------------------------------------------------------ reading back
 
@@ -441,25 +347,7 @@ class Journal:
                     return fn(self._conn)
             except sqlite3.Error as exc:
                 self._keysets = known
-                raise JournalWriteError(_write_advice(self.path, what, exc)) from exc
-
-
-SQLITE_MAGIC = b"SQLite format 3\x00"
-
-
-def _require_sqlite(path: Path) -> None:
-    """Refuse a file that is not an SQLite database before SQLite opens it: opening an empty
-    file (a typo, a wrong argument) would turn it into a database."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(len(SQLITE_MAGIC))
-    except OSError as exc:
-        raise BenchwalkError(f"{path}: cannot read the journal ({exc.strerror or exc})") from None
-    if head != SQLITE_MAGIC:
-        what = "an empty file" if not head else "not an SQLite file"
-        raise BenchwalkError(
-            f"{path}: not a readable benchwalk journal ({what}); give the session's .sqlite file"
-        )
+                raise JournalWriteError(write_advice(self.path, what, exc)) from exc
 
 
 def _row_id(cur: sqlite3.Cursor) -> int:
@@ -490,32 +378,3 @@ def _quality_bytes(block: MeterBlock, keys: Sequence[str]) -> bytes:
         except ValueError:
             out.append(_QCODE[Quality.DECODE])
     return bytes(out)
-
-
-def _write_advice(path: Path, what: str, exc: sqlite3.Error) -> str:
-    text = str(exc)
-    low = text.lower()
-    if "full" in low:
-        advice = "the disk is full: free space on that drive, then resume the session"
-    elif "readonly" in low or "read-only" in low:
-        advice = "the file or folder is read-only: make it writable, then resume the session"
-    elif "append-only" in low:
-        advice = "captured records are never changed"
-    else:
-        advice = "check the drive, then resume the session; everything saved before this is intact"
-    return f"{path}: could not save {what} ({text}); {advice}"
-
-
-def _profile_dict(profile: Profile) -> dict[str, object]:
-    """The validated profile as data; its file texts are kept once, in ``profile_file``."""
-    data = dataclasses.asdict(profile)
-    data.pop("sources", None)
-    return data
-
-
-def _profile_texts(profile: Profile) -> list[tuple[str, str]]:
-    """(name, text) of the profile's files, the main file first. A profile built in memory
-    (no files) is kept as its JSON form, so a journal is never without its description."""
-    if profile.sources:
-        return [(f.name, f.text) for f in profile.sources]
-    return [("profile.json", json.dumps(_profile_dict(profile), sort_keys=True, default=str))]

@@ -13,7 +13,7 @@ import math
 import struct
 from collections.abc import Sequence
 
-from ..model import REGISTER_COUNT, RegisterSpec, TextSpec
+from ..register_map import REGISTER_COUNT, RegisterSpec, TextSpec
 
 _FMT = {
     "int16": "h",

@@ -14,8 +14,9 @@ import operator
 import struct
 from collections.abc import Callable, Sequence
 
-from ..model import Meter, RegisterMap, RegisterSpec
+from ..model import Meter
 from ..quantities import split_key
+from ..register_map import RegisterMap, RegisterSpec
 from ..scaling import ratio
 from ..snapshot import Quality
 from .codec import decode_text

@@ -21,7 +21,8 @@ from dataclasses import dataclass
 from typing import Literal
 
 from ..errors import BenchwalkError
-from ..model import Meter, Profile, RegisterKind, RegisterMap, RegisterSpec, Switch
+from ..model import Meter, Profile, Switch
+from ..register_map import RegisterKind, RegisterMap, RegisterSpec
 
 MAX_READ_REGISTERS = 125  # Modbus Application Protocol Specification V1.1b3, FC3/FC4 quantity
 MAX_BIT_READ = 2000  # coils / discrete inputs per read, Modbus Application Protocol V1.1b3

@@ -1,7 +1,8 @@
 """Poll every meter and PLC status point once per cycle over Modbus TCP/RTU -> ``Snapshot``.
 
-Endpoints (one client each, ``meas.modbus.link``) run concurrently; units behind one endpoint
-are polled in turn (``units.py``), healthy ones first. A read whose cycle has closed while a
+Endpoints (one client each, ``meas.modbus.link``) run concurrently, each served by its own
+worker (``endpoints.py``); units behind one endpoint are polled in turn (``units.py``),
+healthy ones first. A read whose cycle has closed while a
 newer cycle waits is not retried: its answer could reach no snapshot and would only hold back
 the neighbours.
 
@@ -23,16 +24,11 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-import logging
 import math
 import random
-import struct
 import time
 from collections.abc import AsyncGenerator, Awaitable, Callable
-from dataclasses import dataclass, field
 from datetime import UTC, datetime
-
-from pymodbus.exceptions import ModbusException
 
 from ..modbus.codec import DecodeError
 from ..modbus.decode import RequestDecoder, identification
@@ -40,55 +36,16 @@ from ..modbus.hardening import require_supported_pymodbus, tame_pymodbus_logging
 from ..modbus.link import Backoff, EndpointLink, NoAnswer, ReadFailed
 from ..modbus.plan import MeterPlan, plan_profile, status_reads
 from ..model import Plc, Profile, RtuTransport, Switch, Transport
-from ..snapshot import Quality, Snapshot
-from .units import Draft, MeterStatus, Unit, note_silence, poll_meter, poll_plc, unanswered
+from ..snapshot import Snapshot
+from .endpoints import Cycle, Endpoint
+from .units import Draft, MeterStatus, Unit, note_silence
 
-log = logging.getLogger(__name__)
-
-DEADLINE_HEADROOM = 1.5  # cycle deadline = headroom x learned healthy endpoint time + margin
-DEADLINE_MARGIN_S = 0.05
 RUN_SLOT_MARGIN_S = 0.005  # run(): a cycle's answers are due this long before the next slot
 # A failing TCP unit or link is tried again at least this often (+-20 % jitter), so a meter
 # that comes back is read within 2 s at the default 0.2 s cycle; these tries are cheap probes
 # (``units.probe_limit``), and ``[poll] backoff_max_s`` spaces the full-timeout ones instead.
 # A serial line keeps the profile's backoff: every try there costs the whole bus a timeout.
 RETURN_PROBE_MAX_S = 1.25
-
-
-@dataclass
-class _Cycle:
-    """One poll cycle being assembled; workers publish drafts into it until it closes."""
-
-    seq: int
-    time_utc: datetime
-    deadline: float  # monotonic
-    remaining: set[str]  # endpoints that have not finished their pass for this cycle
-    drafts: dict[str, Draft] = field(default_factory=dict)
-    done: asyncio.Event = field(default_factory=asyncio.Event)
-    closed: bool = False
-
-    def publish(self, unit_id: str, draft: Draft) -> bool:
-        if self.closed:
-            return False  # a late answer: its cycle is gone, never show it under another one
-        self.drafts[unit_id] = draft
-        return True
-
-    def link_done(self, endpoint: str) -> None:
-        self.remaining.discard(endpoint)
-        if not self.remaining:
-            self.done.set()
-
-
-@dataclass
-class _Endpoint:
-    """One endpoint's link, the units behind it and the worker that serves its cycles."""
-
-    link: EndpointLink
-    units: list[Unit] = field(default_factory=list)
-    task: asyncio.Task[None] | None = None  # the worker serving this endpoint's cycles
-    wanted: _Cycle | None = None  # newest cycle this endpoint has not served yet
-    learned: bool = False  # one full pass done: the cycle deadline applies from now on
-    busy_with: str = ""  # unit id whose request is outstanding, for the pending message
 
 
 class Poller:
@@ -106,12 +63,11 @@ class Poller:
         self.before_cycle = before_cycle  # simulated time: see the module docstring
         self.plans = plans if plans is not None else plan_profile(profile)
         self._rng = random.Random()
-        self._endpoints: dict[str, _Endpoint] = {}
+        self._endpoints: dict[str, Endpoint] = {}
         self._units: dict[str, Unit] = {}
         self._plc_units: dict[str, Unit] = {}
         self._seq = 0
         self._started = False
-        self.late_answers = 0  # drafts that arrived after their cycle closed (dropped)
         for m in profile.meters:
             plan = self.plans[m.id]
             specs = {s.key: s for s in profile.maps[m.map_id].registers}
@@ -158,12 +114,17 @@ class Poller:
             link = EndpointLink(
                 transport.endpoint, transport, unit.timeout_s, self._backoff(transport)
             )
-            ep = self._endpoints[transport.endpoint] = _Endpoint(link)
+            ep = self._endpoints[transport.endpoint] = Endpoint(link)
         ep.link.timeout_s = max(ep.link.timeout_s, unit.timeout_s)
         ep.units.append(unit)
         ep.link.uniform_timeout = len({u.timeout_s for u in ep.units}) == 1
 
     # ------------------------------------------------------------ public API
+
+    @property
+    def late_answers(self) -> int:
+        """Drafts that arrived after their cycle closed (dropped), over every endpoint."""
+        return sum(ep.late_answers for ep in self._endpoints.values())
 
     @property
     def endpoint_clients(self) -> dict[str, EndpointLink]:
@@ -236,7 +197,7 @@ class Poller:
         """Seconds the next cycle may wait for answers (see the module docstring)."""
         interval = self.profile.poll.interval_s if interval_s is None else interval_s
         patient = self.before_cycle is not None
-        return max([interval, *(self._need(ep, patient) for ep in self._endpoints.values())])
+        return max([interval, *(ep.need(patient) for ep in self._endpoints.values())])
 
     async def poll_once(self, *, deadline_s: float | None = None) -> Snapshot:
         """One cycle; returns by ``cycle_budget(deadline_s)`` whatever any meter does."""
@@ -246,13 +207,13 @@ class Poller:
         t_mono = time.monotonic()
         time_utc = datetime.now(UTC)
         self._seq += 1
-        cyc = _Cycle(
+        cyc = Cycle(
             self._seq, time_utc, t_mono + self.cycle_budget(deadline_s), set(self._endpoints)
         )
         for ep in self._endpoints.values():
             ep.wanted = cyc
             if ep.task is None or ep.task.done():
-                ep.task = asyncio.create_task(self._serve(ep), name=f"poll {ep.link.endpoint}")
+                ep.task = asyncio.create_task(ep.serve(), name=f"poll {ep.link.endpoint}")
         if cyc.remaining:
             with contextlib.suppress(TimeoutError):
                 async with asyncio.timeout_at(cyc.deadline):
@@ -319,72 +280,10 @@ class Poller:
             ep.link.close()
         self._started = False
 
-    # ------------------------------------------------------------ one cycle
-
-    @staticmethod
-    def _need(ep: _Endpoint, patient: bool = False) -> float:
-        """How long a cycle should wait for this endpoint: learned healthy time, or the full budget
-        (always when ``patient``)."""
-        if patient or not ep.learned:
-            return ep.link.connect_timeout_s + sum(
-                u.timeout_s * (u.retries + 1) * max(1, u.requests) for u in ep.units
-            )
-        healthy = sum(u.answer_s for u in ep.units if u.backoff.failures == 0)
-        return DEADLINE_HEADROOM * healthy + DEADLINE_MARGIN_S
-
-    async def _serve(self, ep: _Endpoint) -> None:
-        """The endpoint's worker: serve the newest wanted cycle until none is open any more."""
-        while True:
-            cyc, ep.wanted = ep.wanted, None
-            if cyc is None or cyc.closed:
-                return
-            try:
-                await self._poll_endpoint(ep, cyc)
-            finally:
-                ep.busy_with = ""
-                cyc.link_done(ep.link.endpoint)
-
-    async def _poll_endpoint(self, ep: _Endpoint, cyc: _Cycle) -> None:
-        link = ep.link
-        now = time.monotonic()
-        if not link.connected and link.backoff.ready(now):
-            await link.connect(now)  # first redial after a drop is immediate
-
-        def superseded() -> bool:  # no retry for a closed cycle while a newer one waits
-            return cyc.closed and ep.wanted is not None
-
-        # healthy units first: a dead one's probe must not hold back its neighbours
-        for unit in sorted(ep.units, key=lambda u: u.backoff.failures > 0):
-            if unit.backoff.failures and superseded():
-                break  # no probe for a cycle that can take no answer while a newer one waits
-            if unit.meter is None and not unit.status_reads:
-                continue  # a PLC with no status points: nothing to read
-            ep.busy_with = unit.id
-            try:
-                if unit.meter is not None:
-                    draft = await poll_meter(link, unit, ep.units, superseded)
-                else:
-                    draft = await poll_plc(link, unit, ep.units, superseded)
-            except (
-                ModbusException,
-                OSError,
-                ValueError,
-                struct.error,
-            ) as exc:  # never kill the worker
-                log.warning("%s unit %s: %s", link.endpoint, unit.unit_id, exc)
-                draft = unanswered(unit, Quality.DECODE, f"{type(exc).__name__}: {exc}")
-            if not cyc.publish(unit.id, draft):
-                self.late_answers += 1
-        ep.learned = True
-
-    def _pending(self, unit: Unit, cyc: _Cycle, t_mono: float) -> Draft:
-        """A unit with no answer by the cycle deadline: timeout for this cycle, request kept."""
+    def _pending(self, unit: Unit, cyc: Cycle, t_mono: float) -> Draft:
+        """A unit with no answer by the cycle deadline (its endpoint says why)."""
         ep = next(e for e in self._endpoints.values() if unit in e.units)
-        waiting = ep.busy_with
-        why = f"no answer by the cycle deadline ({(cyc.deadline - t_mono) * 1000:.0f} ms)" + (
-            f"; {ep.link.endpoint} busy with {waiting}" if waiting and waiting != unit.id else ""
-        )
-        return unanswered(unit, Quality.TIMEOUT, why)
+        return ep.pending(unit, cyc, t_mono)
 
 
 def _switch_state(sw: Switch, bits: dict[tuple[str, str], bool]) -> str:

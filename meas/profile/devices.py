@@ -16,13 +16,13 @@ from ..model import (
     Bus,
     Meter,
     Plc,
-    RegisterMap,
     RtuTransport,
     StatusPoint,
     Switch,
     TcpTransport,
     Transport,
 )
+from ..register_map import RegisterMap
 from .cover import due_date
 from .maps import MAX_ADDRESS
 from .tables import (

@@ -6,7 +6,7 @@ from collections.abc import Callable, Sequence
 from typing import Any
 
 from .. import quantities
-from ..model import (
+from ..register_map import (
     APPARENT_POWER,
     DATA_TYPES,
     IDENT_KEYS,

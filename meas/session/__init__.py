@@ -1,7 +1,8 @@
 """One session's wiring: poller, checks, journal and runner (and a simulated bench for demos).
 
 Modules: ``running`` (``Session``: new, resume, views, export, close), ``start`` (what a
-session needs before it runs: the journal, the simulated bench, the checks on the options),
+session needs before it runs: the journal, the simulated bench, the checks on the options,
+where a resume starts),
 ``settle`` (the settle detector as the runner sees it), ``bench_clock`` (the simulated
 bench advanced by the poll cycles).
 

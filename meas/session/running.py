@@ -13,18 +13,24 @@ from collections.abc import AsyncIterator, Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from ..errors import BenchwalkError
 from ..journal.sessions import resolve_session
 from ..journal.store import Journal
 from ..model import Profile, SwitchState
 from ..profile import load_profile
 from ..walk.runner import Runner
-from ..walk.sequence import find_step, validate_sequence
+from ..walk.sequence import validate_sequence
 from ..walk.states import StepOutcome
 from ..walk.view import RunnerView
 from .bench_clock import BenchDriver, bench_driver
 from .settle import settle_factory
-from .start import as_built, bench_start_state, create_journal, prior_outcomes, start_bench
+from .start import (
+    as_built,
+    bench_start_state,
+    create_journal,
+    prior_outcomes,
+    resume_start,
+    start_bench,
+)
 
 if TYPE_CHECKING:  # imported where used: a session loads only the parts it runs
     from ..poll.control import SwitchControl
@@ -145,38 +151,9 @@ class Session:
                 from ..dataset.outputs import check_output_folder
 
                 check_output_folder(Path(out_dir), journal.path, journal.session_id)
-            ppath = Path(profile_path or journal.profile_dict.get("path", ""))
-            if not ppath.is_file():
-                raise BenchwalkError(
-                    f"{journal.path}: the profile {ppath} is not there any more; "
-                    "give its new location with --profile"
-                )
-            profile = load_profile(ppath)
-            if profile.sha256 != journal.profile_sha256:
-                if not allow_changed_profile:
-                    raise BenchwalkError(
-                        f"{ppath} changed since session {journal.session_id} started "
-                        f"(sha256 {journal.profile_sha256[:12]} -> {profile.sha256[:12]}); "
-                        "check the change, then resume with --allow-changed-profile"
-                    )
-                journal.record_event(
-                    "profile_changed",
-                    f"resumed with a changed profile {ppath}",
-                    operator=operator or journal.operator,
-                    data={"old_sha256": journal.profile_sha256, "new_sha256": profile.sha256},
-                )
-            validate_sequence(profile)
-            point = journal.resume_point()
-            if point is None:
-                index = len(profile.steps)
-            else:
-                try:
-                    index = find_step(profile, point)
-                except KeyError:
-                    raise BenchwalkError(
-                        f"step {point!r}, where session {journal.session_id} stopped, is not in "
-                        f"{ppath} any more"
-                    ) from None
+            profile, index, point = resume_start(
+                journal, profile_path, allow_changed_profile, operator
+            )
             op = operator or journal.operator
             meta = journal.meta
             bench, live_profile = None, profile

@@ -1,6 +1,6 @@
 """What a session needs before it runs: the journal, the simulated bench, the checks on the
-options, where a new or resumed bench starts, the outcomes a resume inherits, a session's
-one-line state for a list."""
+options, where a resume starts (its profile read again, its step), where a new or resumed
+bench starts, the outcomes a resume inherits, a session's one-line state for a list."""
 
 from __future__ import annotations
 
@@ -9,14 +9,20 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ..errors import BenchwalkError
+from ..journal.errors import SessionExists
 from ..journal.lock import SessionBusy
 from ..journal.sessions import new_session_id, resolve_session, session_path
-from ..journal.store import Journal, SessionExists
+from ..journal.store import Journal
 from ..model import Profile, SwitchState
 from ..profile import load_profile
 from ..results import Status
 from ..verdict import records_from_log, session_verdict
-from ..walk.sequence import configuration_after, configuration_before
+from ..walk.sequence import (
+    configuration_after,
+    configuration_before,
+    find_step,
+    validate_sequence,
+)
 from ..walk.states import StepOutcome
 
 if TYPE_CHECKING:
@@ -46,6 +52,49 @@ def prior_outcomes(journal: Journal, profile: Profile) -> dict[str, StepOutcome]
         lines = tuple(unverified.get(rec.step_id, ()))
         out[rec.step_id] = StepOutcome(rec.step_id, rec.outcome, status, (), rec.reason, lines)
     return out
+
+
+def resume_start(
+    journal: Journal,
+    profile_path: str | Path | None,
+    allow_changed_profile: bool,
+    operator: str | None,
+) -> tuple[Profile, int, str | None]:
+    """Where a resume starts: the profile read again from its file (a changed one only when
+    allowed, and journalled), the index of the first step not yet accepted or skipped, and
+    that step's id (None when the sequence is over)."""
+    ppath = Path(profile_path or journal.profile_dict.get("path", ""))
+    if not ppath.is_file():
+        raise BenchwalkError(
+            f"{journal.path}: the profile {ppath} is not there any more; "
+            "give its new location with --profile"
+        )
+    profile = load_profile(ppath)
+    if profile.sha256 != journal.profile_sha256:
+        if not allow_changed_profile:
+            raise BenchwalkError(
+                f"{ppath} changed since session {journal.session_id} started "
+                f"(sha256 {journal.profile_sha256[:12]} -> {profile.sha256[:12]}); "
+                "check the change, then resume with --allow-changed-profile"
+            )
+        journal.record_event(
+            "profile_changed",
+            f"resumed with a changed profile {ppath}",
+            operator=operator or journal.operator,
+            data={"old_sha256": journal.profile_sha256, "new_sha256": profile.sha256},
+        )
+    validate_sequence(profile)
+    point = journal.resume_point()
+    if point is None:
+        return profile, len(profile.steps), None
+    try:
+        index = find_step(profile, point)
+    except KeyError:
+        raise BenchwalkError(
+            f"step {point!r}, where session {journal.session_id} stopped, is not in "
+            f"{ppath} any more"
+        ) from None
+    return profile, index, point
 
 
 def session_state(path: Path) -> str:

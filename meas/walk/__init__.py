@@ -1,8 +1,9 @@
 """The switching-sequence walk that the console and headless mode both drive.
 
 Modules: ``sequence`` (sequence validation, per-step configurations), ``states`` (State,
-ACTIONS, COMMANDS, StepOutcome), ``machine`` (state and transitions on each snapshot),
-``runner`` (the technician's commands), ``capture`` (picking N captures, review by median),
+ACTIONS, COMMANDS, StepOutcome), ``walk_state`` (where the walk is, its records and
+verdict, a step's bookkeeping), ``machine`` (the transitions on each snapshot), ``runner``
+(the technician's commands), ``capture`` (picking N captures, review by median),
 ``live`` (the live settle watch), ``remote`` (remote guards), ``status`` (the switch-status
 rule), ``view`` (``RunnerView``: the picture and the commands allowed now), ``ports`` (what
 the runner is given, as Protocols).

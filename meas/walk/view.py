@@ -19,7 +19,7 @@ from .standdown import doubtful_meters, hold_while_settling, stand_down
 from .states import State
 
 if TYPE_CHECKING:
-    from .machine import StepMachine
+    from .walk_state import WalkState
 
 
 @dataclass(frozen=True)
@@ -137,7 +137,7 @@ def why_not(view: RunnerView, command: str) -> str:
     return f"cannot {what} now: the step is {st.value}"
 
 
-def view_of(runner: StepMachine) -> RunnerView:
+def view_of(runner: WalkState) -> RunnerView:
     """The picture of ``runner`` now."""
     step = runner.step
     expected = runner.expected()
@@ -195,7 +195,7 @@ def view_of(runner: StepMachine) -> RunnerView:
     )
 
 
-def _to_operate(runner: StepMachine) -> tuple[str, ...]:
+def _to_operate(runner: WalkState) -> tuple[str, ...]:
     step = runner.step
     if step is None or step.kind not in ("manual", "remote"):
         return ()
@@ -204,7 +204,7 @@ def _to_operate(runner: StepMachine) -> tuple[str, ...]:
     return tuple(sid for sid, st in now.items() if before.get(sid) != st or sid in step.operate)
 
 
-def _settling(runner: StepMachine) -> bool:
+def _settling(runner: WalkState) -> bool:
     """The readings are still moving: nothing is judged yet, results are held."""
     if runner.state in (State.OPERATING, State.VERIFYING, State.SETTLING):
         return True
@@ -212,7 +212,7 @@ def _settling(runner: StepMachine) -> bool:
     return runner.state is State.WAITING and runner.live.settling
 
 
-def _overall(runner: StepMachine, results: Sequence[CheckResult]) -> str:
+def _overall(runner: WalkState, results: Sequence[CheckResult]) -> str:
     if _settling(runner):
         return "settling"
     if runner.last is None or runner.done:
@@ -220,7 +220,7 @@ def _overall(runner: StepMachine, results: Sequence[CheckResult]) -> str:
     return "inconsistent" if overall(list(results)) is Status.FAIL else "consistent"
 
 
-def _next(runner: StepMachine) -> tuple[str, str]:
+def _next(runner: WalkState) -> tuple[str, str]:
     step = runner.step
     st = runner.state
     if st is State.FINISHED:

@@ -24,8 +24,9 @@ import pytest
 from support.invented_bench import SEQUENCE_TOML, T0, make_bench, make_snapshot
 
 from meas.errors import BenchwalkError
+from meas.journal.errors import JournalWriteError
 from meas.journal.sessions import new_session_id, resolve_session, session_path
-from meas.journal.store import Journal, JournalWriteError
+from meas.journal.store import Journal
 from meas.model import Profile
 from meas.results import CheckResult, Status
 

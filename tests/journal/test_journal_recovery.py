@@ -22,7 +22,8 @@ from support.invented_bench import build_session
 from meas.dataset.export import export_session
 from meas.dataset.read import load_dataset, read_package, verify_dataset
 from meas.errors import BenchwalkError
-from meas.journal.store import Journal, JournalDamaged
+from meas.journal.errors import JournalDamaged
+from meas.journal.store import Journal
 
 ROOT = Path(__file__).resolve().parents[2]
 

@@ -27,8 +27,8 @@ from meas.modbus.plan import (
     rtu_request_time_s,
     t35_s,
 )
-from meas.model import DATA_TYPES, REGISTER_COUNT, REGISTER_KINDS, RegisterMap
 from meas.profile import load_profile
+from meas.register_map import DATA_TYPES, REGISTER_COUNT, REGISTER_KINDS, RegisterMap
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 DTYPES = list(DATA_TYPES)

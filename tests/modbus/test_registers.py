@@ -20,7 +20,7 @@ from pymodbus.client import AsyncModbusTcpClient
 from pymodbus.pdu.register_message import ReadHoldingRegistersResponse
 
 from meas.modbus.codec import DecodeError, decode, encode, raw_to_words, words_to_raw
-from meas.model import RegisterSpec
+from meas.register_map import RegisterSpec
 
 DT = AsyncModbusTcpClient.DATATYPE
 PM_TYPE = {

@@ -16,8 +16,9 @@ from pymodbus.client import AsyncModbusTcpClient
 from meas.modbus.codec import DecodeError, decode_text, encode_text
 from meas.modbus.decode import identification
 from meas.modbus.plan import plan_profile
-from meas.model import TcpTransport, TextSpec
+from meas.model import TcpTransport
 from meas.profile import load_profile
+from meas.register_map import TextSpec
 
 sim_bench = pytest.importorskip("meas.sim.bench")
 sim_server = pytest.importorskip("meas.sim.server")

@@ -9,8 +9,8 @@ import re
 import shutil
 from pathlib import Path
 
-from meas.model import TextSpec
 from meas.profile import check_profile, load_profile
+from meas.register_map import TextSpec
 
 DEMO = Path(__file__).resolve().parents[2] / "profiles_demo" / "feeder_bench.toml"
 

@@ -27,7 +27,8 @@ from support.invented_bench import make_bench, make_snapshot  # noqa: E402
 from meas.dataset.export import export_session  # noqa: E402
 from meas.dataset.read import verify_dataset  # noqa: E402
 from meas.errors import BenchwalkError  # noqa: E402
-from meas.journal.store import Journal, JournalWriteError  # noqa: E402
+from meas.journal.errors import JournalWriteError  # noqa: E402
+from meas.journal.store import Journal  # noqa: E402
 from tui import cli  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]

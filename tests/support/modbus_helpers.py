@@ -30,8 +30,6 @@ from meas.model import (
     Plc,
     PollSettings,
     Profile,
-    RegisterMap,
-    RegisterSpec,
     RtuTransport,
     StatusPoint,
     Switch,
@@ -39,6 +37,7 @@ from meas.model import (
     Transport,
     Zone,
 )
+from meas.register_map import RegisterMap, RegisterSpec
 
 LOOPBACK = "127.0.0.1"
 WRITE_FUNCTION_CODES = {5, 6, 15, 16}
