@@ -7,6 +7,7 @@ from collections.abc import Sequence
 from dataclasses import replace
 
 import numpy as np
+
 # chi2.ppf(p, k) = chdtri(k, 1 - p): scipy.stats costs a second to import
 from scipy.special import chdtri
 
