@@ -42,13 +42,38 @@ class _PollsRow(Protocol):
     last_good_utc: pd.Timestamp
 
 
+def _readings_by_block(
+    m: pd.DataFrame,
+) -> dict[tuple[int, str], tuple[list[str], list[float], list[Quality]]]:
+    """(snapshot, meter) -> its reading keys, values and qualities, in table order.
+
+    Columns become Python lists once and rows are grouped in one pass: grouping the frame per
+    snapshot and meter cost pandas overhead per block, most of a re-check's time.
+    """
+    keys = (m["quantity"] + "." + m["phase"]).tolist()
+    values = m["value"].to_numpy(dtype=float).tolist()
+    quality = {q: Quality(q) for q in m["quality"].unique()}
+    quals = [quality[q] for q in m["quality"].tolist()]
+    out: dict[tuple[int, str], tuple[list[str], list[float], list[Quality]]] = {}
+    for i, (snap, meter) in enumerate(
+        zip(m["snapshot"].tolist(), m["meter"].tolist(), strict=True)
+    ):
+        got = out.get((snap, meter))
+        if got is None:
+            got = out[(snap, meter)] = ([], [], [])
+        got[0].append(keys[i])
+        got[1].append(values[i])
+        got[2].append(quals[i])
+    return out
+
+
 def rebuild(
     m: pd.DataFrame, mine: pd.DataFrame, polls: pd.DataFrame, switches: pd.DataFrame
 ) -> list[tuple[int, Snapshot]]:
     """The snapshots of ``mine`` (rows of the snapshots table) with their readings ``m``, in
     table order, as (snapshot row id, Snapshot)."""
     out = []
-    by_snap = {k: g for k, g in m.groupby("snapshot", sort=False)}
+    readings = _readings_by_block(m)
     poll_by = {
         k: g
         for k, g in polls[polls["snapshot"].isin(mine["snapshot"])].groupby("snapshot", sort=False)
@@ -59,20 +84,16 @@ def rebuild(
             "snapshot", sort=False
         )
     }
+    none: tuple[list[str], list[float], list[Quality]] = ([], [], [])
     for s in cast(Iterable[_SnapshotsRow], mine.itertuples(index=False)):
-        g = by_snap.get(s.snapshot)
         blocks = {}
-        vals_by_meter = {k: mg for k, mg in g.groupby("meter", sort=False)} if g is not None else {}
         step_polls = poll_by.get(s.snapshot, polls.iloc[0:0])
         for p in cast(Iterable[_PollsRow], step_polls.itertuples(index=False)):
-            mg = vals_by_meter.get(p.meter)
-            keys = (mg["quantity"] + "." + mg["phase"]).tolist() if mg is not None else []
-            values = mg["value"].to_numpy(dtype=float).tolist() if mg is not None else []
-            quals = mg["quality"].tolist() if mg is not None else []
+            keys, values, quals = readings.get((s.snapshot, p.meter), none)
             blocks[p.meter] = MeterBlock(
                 meter=p.meter,
                 values=dict(zip(keys, values, strict=True)),
-                quality={k: Quality(q) for k, q in zip(keys, quals, strict=True)},
+                quality=dict(zip(keys, quals, strict=True)),
                 state=CommState(p.state),
                 exception_code=None if pd.isna(p.exception_code) else int(p.exception_code),
                 error=p.error or "",
