@@ -6,6 +6,10 @@ from typing import Protocol
 
 
 class Progress(Protocol):
-    """Called with (done, total) as work advances, in whatever units the work counts."""
+    """Called with (done, total) as work advances, in whatever units the work counts.
 
-    def __call__(self, done: int, total: int, /) -> None: ...
+    ``stage``, when given, says what the work does from this call on (a phase that counts
+    nothing, such as one long estimate, comes with total 0): a long silence is then explained.
+    """
+
+    def __call__(self, done: int, total: int, /, stage: str = "") -> None: ...

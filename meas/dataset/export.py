@@ -229,6 +229,9 @@ def _swap_in(tmp: Path, target: Path) -> None:
             old.unlink(missing_ok=True)
 
 
+ESTIMATE_STAGE = "estimating the session: every capture against the network model"
+
+
 def _write_dataset(
     journal: Journal,
     journal_path: Path,
@@ -273,6 +276,8 @@ def _write_dataset(
         )
     write_network(journal.profile_files(), folder)
     # the session estimate reads the tables and profile just written, as `benchwalk check` does
+    if progress:
+        progress(0, 0, stage=ESTIMATE_STAGE)
     est = session_estimate_of(folder)
     _write_small(data, "meter_gains", est.gains, counts)
     _write_small(data, "coverage", est.coverage, counts)

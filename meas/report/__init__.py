@@ -48,7 +48,7 @@ def write_report(
             f"{html_path}: the report would be written inside the dataset folder {dataset_dir} and "
             "change it; give an --out outside it"
         )
-    update = progress or (lambda done, total: None)
+    update = progress or (lambda done, total, stage="": None)
     update(0, 3)
     rd = gather(dataset_dir)
     update(1, 3)

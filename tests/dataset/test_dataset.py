@@ -24,7 +24,7 @@ from hypothesis import strategies as st
 from support.invented_bench import KEYS, build_session
 
 from meas.dataset.collection import write_collection
-from meas.dataset.export import export_session
+from meas.dataset.export import ESTIMATE_STAGE, export_session
 from meas.dataset.read import load_dataset
 from meas.dataset.schema import TABLES
 from meas.errors import BenchwalkError
@@ -196,10 +196,27 @@ def test_export_refuses_to_overwrite_and_replaces_with_flag(
     assert [p.name for p in tmp_path.iterdir()] == ["out"]  # no temporary folder left beside it
 
 
+def test_export_says_when_it_moves_on_to_the_session_estimate(
+    exported: tuple[Path, Path], tmp_path: Path
+) -> None:
+    """The estimate counts nothing and can take a while: the bar is told what it is doing."""
+    journal_path, _ = exported
+    calls: list[tuple[int, int, str]] = []
+
+    def record(done: int, total: int, /, stage: str = "") -> None:
+        calls.append((done, total, stage))
+
+    export_session(journal_path, tmp_path / "out", progress=record)
+    stages = [i for i, c in enumerate(calls) if c[2]]
+    assert [calls[i] for i in stages] == [(0, 0, ESTIMATE_STAGE)]
+    counted = [c for c in calls[: stages[0]] if not c[2]]
+    assert counted and counted[-1][0] == counted[-1][1] > 0  # the readings were all counted first
+
+
 CHILD = """
 import resource, signal, sys
 from pathlib import Path
-from meas.dataset.export import export_session
+from meas.dataset.export import ESTIMATE_STAGE, export_session
 from meas.errors import BenchwalkError
 signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
 resource.setrlimit(resource.RLIMIT_FSIZE, (150_000, resource.RLIM_INFINITY))

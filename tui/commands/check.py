@@ -11,6 +11,7 @@ from pathlib import Path
 
 from rich.table import Table
 
+from meas.dataset.export import ESTIMATE_STAGE
 from meas.dataset.read import load_dataset
 from meas.recheck import (
     compare_checks,
@@ -46,7 +47,15 @@ def main(args: argparse.Namespace) -> int:
     failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check_id", "subject", "message"])
     diffs = compare_checks(exported, fresh)
     recorded = estimate_recorded(args.dataset)
-    est = recheck_estimate(args.dataset) if recorded else None
+    est = None
+    if recorded:
+        bar, update = terminal_progress(ESTIMATE_STAGE)
+        if bar is not None and update is not None:
+            with bar:
+                update(0, 0)
+                est = recheck_estimate(args.dataset)
+        else:
+            est = recheck_estimate(args.dataset)
     est_diffs = compare_estimate(args.dataset, est) if est is not None else []
     if getattr(args, "json", False):
         emit_json(

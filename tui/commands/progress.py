@@ -29,7 +29,10 @@ def terminal_progress(description: str) -> tuple[Bar, Progress] | tuple[None, No
     )
     task = bar.add_task(description, total=None)
 
-    def update(done: int, total: int) -> None:
-        bar.update(task, completed=done, total=total)
+    def update(done: int, total: int, /, stage: str = "") -> None:
+        # total 0: a stage that counts nothing; the bar pulses instead of standing at 100 %
+        if stage:
+            bar.update(task, description=stage)
+        bar.update(task, completed=done, total=total or None)
 
     return bar, update
