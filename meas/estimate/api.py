@@ -15,6 +15,10 @@ from .build import Builder, Problem, Unverified
 from .core import StepModel
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
+from .offset_frozen import NAMES as _MORE
+from .offset_frozen import peak
+from .offset_frozen_words import coverage as _more_coverage
+from .offset_frozen_words import sentence as _more_sentence
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 from .solver import Fit, omega_prior, solve
 
@@ -25,6 +29,7 @@ _NAMES = {
     "ct_ratio": "CT ratio",
     "ct_reversed": "reversed CT",
     "phases_swapped": "swapped current inputs",
+    **_MORE,
 }
 
 
@@ -65,7 +70,7 @@ class Estimator:
                 ts = tests(fit, steps, keys, pr.gains)
                 if fit is fit0:
                     ts0 = ts
-                if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
+                if peak(fit, steps, keys, ts, self.exact) < THRESHOLD:
                     break
             if not self.exact:
                 lin = _identify_linear(fit, ts, pr) if fit.converged else None
@@ -101,7 +106,7 @@ class Estimator:
         named = {m for f in findings for m in f.meters}
         if cov_fit is not fit0 or ts0 is None:
             ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
-        cov = _coverage(cov_fit, ts0, pr)
+        cov = _coverage(cov_fit, ts0, pr) + _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
         return Estimate(
             converged=True,
             why="",
@@ -128,7 +133,7 @@ def estimate(profile: Profile, captures: Sequence[Sequence[Snapshot]]) -> Estima
 
 
 def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Problem) -> Finding:
-    figure = math.sqrt(max(base.cost - top.fit.cost, 0.0))
+    figure = math.sqrt(max(base.cost - top.score, 0.0))
     if rv:
         meters = tuple(sorted({top.meter} | {t.meter for t in rv}))
         what = ", ".join(
@@ -143,7 +148,9 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
             meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD
         )
     m = top.meter
-    if top.kind in ("vt_ratio", "ct_ratio"):
+    if top.kind in _MORE:
+        cause, sentence = _more_sentence(top, pr)
+    elif top.kind in ("vt_ratio", "ct_ratio"):
         gi = pr.gains[(m, "v" if top.kind == "vt_ratio" else "i")]
         k = float(top.fit.x[gi])
         sd = math.sqrt(max(float(top.fit.ginv[gi, gi]), 0.0))
