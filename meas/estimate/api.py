@@ -106,7 +106,9 @@ class Estimator:
         named = {m for f in findings for m in f.meters}
         if cov_fit is not fit0 or ts0 is None:
             ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
-        cov = _coverage(cov_fit, ts0, pr) + _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
+        cov = _coverage(cov_fit, ts0, pr)
+        if self.exact:  # the linearized identification names no offset or frozen meter
+            cov += _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
         return Estimate(
             converged=True,
             why="",
