@@ -17,6 +17,10 @@ from .build import Builder, Problem, Unverified
 from .core import StepModel
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
+from .offset_frozen import NAMES as _MORE
+from .offset_frozen import peak
+from .offset_frozen_words import coverage as _more_coverage
+from .offset_frozen_words import sentence as _more_sentence
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 from .solver import Fit, Starts, omega_prior, solve
 
@@ -27,6 +31,7 @@ _NAMES = {
     "ct_ratio": "CT ratio",
     "ct_reversed": "reversed CT",
     "phases_swapped": "swapped current inputs",
+    **_MORE,
 }
 
 
@@ -68,7 +73,7 @@ class Estimator:
                 ts = tests(fit, steps, keys, pr.gains)
                 if fit is fit0:
                     ts0 = ts
-                if not len(ts.t) or float(np.max(ts.t)) < THRESHOLD:
+                if peak(fit, steps, keys, ts, self.exact) < THRESHOLD:
                     break
             if not self.exact:
                 lin = _identify_linear(fit, ts, pr) if fit.converged else None
@@ -105,6 +110,8 @@ class Estimator:
         if cov_fit is not fit0 or ts0 is None:
             ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
         cov = _coverage(cov_fit, ts0, pr)
+        if self.exact:  # the linearized identification names no offset or frozen meter
+            cov += _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
         return Estimate(
             converged=True,
             why="",
@@ -131,7 +138,7 @@ def estimate(profile: Profile, captures: Sequence[Sequence[Snapshot]]) -> Estima
 
 
 def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Problem) -> Finding:
-    figure = math.sqrt(max(base.cost - top.fit.cost, 0.0))
+    figure = math.sqrt(max(base.cost - top.score, 0.0))
     if rv:
         meters = tuple(sorted({top.meter} | {t.meter for t in rv}))
         what = ", ".join(
@@ -146,7 +153,9 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
             meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD
         )
     m = top.meter
-    if top.kind in ("vt_ratio", "ct_ratio"):
+    if top.kind in _MORE:
+        cause, sentence = _more_sentence(top, pr)
+    elif top.kind in ("vt_ratio", "ct_ratio"):
         gi = pr.gains[(m, "v" if top.kind == "vt_ratio" else "i")]
         k = float(top.fit.x[gi])
         sd = math.sqrt(max(float(top.fit.ginv[gi, gi]), 0.0))

@@ -54,9 +54,11 @@ class Tests:
     q: FArray  # b̃ᵀΩ̃b̃ (H x H)
     bb: FArray  # b̃ᵀb̃ per hypothesis
     gain_index: dict[tuple[str, str], int]
+    b: sparse.csc_matrix | None = None  # the signatures b̃ (rows x H), for other causes' ρ
+    u: FArray | None = None  # (Jᵀ b̃)ᵀ, (H x n)
 
 
-def _residuals(fit: Fit) -> tuple[FArray, FArray]:
+def weighted_residuals(fit: Fit) -> tuple[FArray, FArray]:
     """All weighted residuals (steps, then priors) and the weighted Jacobian with those rows."""
     r = np.concatenate([ev.r for ev in fit.evals] + [fit.prior_r])
     m = len(r)
@@ -107,7 +109,7 @@ def tests(
 
 
 def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], int]) -> Tests:
-    r, j = _residuals(fit)
+    r, j = weighted_residuals(fit)
     m = len(r)
     shared = fit.x[: fit.lay.ns]
     starts = np.cumsum([0] + [len(ev.r) for ev in fit.evals])
@@ -184,7 +186,7 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         # the data do not move that way: a sign flip has amplitude one
         t[wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
     bb = np.asarray(bm.multiply(bm).sum(axis=0)).reshape(-1)
-    return Tests(hyps, t, alpha, q, bb, dict(gains))
+    return Tests(hyps, t, alpha, q, bb, dict(gains), bm, ut)
 
 
 def rivals(ts: Tests, h: int) -> list[int]:

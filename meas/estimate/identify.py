@@ -23,6 +23,14 @@ from scipy.stats import chi2
 from .build import Problem
 from .core import FArray, Prior, StepModel
 from .diagnose import THRESHOLD, tests
+from .offset_frozen import (
+    Detail,
+    candidates,
+    frozen_change,
+    frozen_from_data,
+    offset_update,
+    shift,
+)
 from .solver import Fit, solve
 
 
@@ -47,11 +55,18 @@ def margin(j: float) -> float:
 @dataclass
 class Trial:
     meter: str
-    kind: str  # "vt_ratio", "ct_ratio", "ct_reversed", "phases_swapped"
+    kind: str  # "vt_ratio", "ct_ratio", "ct_reversed", "phases_swapped", "offset", "frozen"
     arg: str
     fit: Fit
     steps: list[StepModel]
     priors: list[Prior]
+    penalty: float = 0.0  # expected χ² of the rows the hypothesis leaves out (a frozen meter)
+    detail: object = None  # what the sentence needs (``offset_frozen.Detail``)
+
+    @property
+    def score(self) -> float:
+        """The misfit under the hypothesis, charged for the rows it leaves unexplained."""
+        return self.fit.cost + self.penalty
 
 
 def _wiring(kind: str, arg: str) -> FArray:
@@ -178,23 +193,101 @@ def trials(
                     f = solve(st_h, pri_h, max_iter=min(max_iter, TRIAL_ITER))
             if f.converged and _plausible(f, pr, m, kind):
                 out.append(Trial(m, kind, arg, f, st_h, pri_h))
+    out += _more_trials(base, steps, keys, priors, pr, ratio_iter)
     return out
+
+
+def _more_trials(
+    base: Fit,
+    steps: Sequence[StepModel],
+    keys: Sequence[Sequence[Sequence[str]]],
+    priors: Sequence[Prior],
+    pr: Problem,
+    max_iter: int,
+) -> list[Trial]:
+    """An offset reading or a frozen meter whose statistic passed: refitted from the base fit
+    (the offset taken off the reading, or the repeated readings left out)."""
+    if not keys:
+        return []
+    out = []
+    if base.converged:
+        found = candidates(base, steps, keys, tests(base, steps, keys, pr.gains))
+    else:
+        found = frozen_from_data(steps, keys)
+    for c in found:
+        f = solve(c.steps, priors, x0=base.x if base.converged else None, max_iter=max_iter)
+        if not f.converged:
+            continue
+        d = c.detail
+        if c.kind == "offset":
+            f, d, st_o = _settle_offset(f, steps, c.steps, keys, priors, c.meter, d, max_iter)
+            if not f.converged:
+                continue
+            out.append(Trial(c.meter, c.kind, c.arg, f, st_o, list(priors), 0.0, d))
+            continue
+        if c.kind == "frozen":
+            d = frozen_change(f, steps, keys, c.meter, c.detail, c.later)
+        out.append(Trial(c.meter, c.kind, c.arg, f, c.steps, list(priors), c.penalty, d))
+    return out
+
+
+OFFSET_ITER = 6  # refits of an offset hypothesis at most (it settles in three or four)
+
+
+def _settle_offset(
+    f: Fit,
+    steps: Sequence[StepModel],
+    st: list[StepModel],
+    keys: Sequence[Sequence[Sequence[str]]],
+    priors: Sequence[Prior],
+    meter: str,
+    d: Detail,
+    max_iter: int,
+) -> tuple[Fit, Detail, list[StepModel]]:
+    """Refit with the offset taken off until what is left of it is under a tenth of its std
+    (``st``: the steps of the refit ``f``)."""
+    amount, u = d.amount, d.u
+    for _ in range(OFFSET_ITER):
+        inc, u_now = offset_update(f, st, keys, meter, d.key)
+        if not math.isfinite(u_now):
+            break
+        u = u_now
+        if abs(inc) <= 0.1 * u:
+            break
+        amount += inc
+        st = shift(steps, keys, meter, d.key, amount)[0]
+        f = solve(st, priors, x0=f.x, max_iter=max_iter)
+        if not f.converged:
+            break
+    return f, replace(d, amount=amount, u=u), st
 
 
 def best_trial(base: Fit, found: list[Trial]) -> tuple[Trial, list[Trial], list[Trial]] | None:
     """The best refit, its rivals on other meters, and equally good causes on the same meter."""
     if not found:
         return None
-    found = sorted(found, key=lambda t: (t.fit.cost, t.meter, t.kind, t.arg))
+    found = sorted(found, key=lambda t: (t.score, t.meter, t.kind, t.arg))
     top = found[0]
     j0 = base.cost
-    if j0 - top.fit.cost < THRESHOLD**2:
+    if j0 - top.score < THRESHOLD**2:
         return None
     if not base.converged and top.fit.cost > chi2.ppf(0.99, max(dof(top.fit), 1)):
         return None  # without a converged reference, a hypothesis must explain the readings
-    lim = top.fit.cost + margin(top.fit.cost)
-    rivals = [t for t in found[1:] if t.meter != top.meter and t.fit.cost <= lim]
+    lim = top.score + margin(top.score)
+    if top.kind == "offset":
+        # one reading explains any one residual: a ratio or wiring cause of the same meter
+        # that fits about as well stays the cause, the offset is said beside it
+        alike = [t for t in found[1:] if t.meter == top.meter and t.kind in _GAIN_OR_WIRING]
+        if alike and alike[0].score <= lim:
+            top = alike[0]
+            lim = max(lim, top.score + margin(top.score))
+    rivals = [t for t in found if t is not top and t.meter != top.meter and t.score <= lim]
     same = [
-        t for t in found[1:] if t.meter == top.meter and t.kind != top.kind and t.fit.cost <= lim
+        t
+        for t in found
+        if t is not top and t.meter == top.meter and t.kind != top.kind and t.score <= lim
     ]
     return top, rivals, same
+
+
+_GAIN_OR_WIRING = ("vt_ratio", "ct_ratio", "ct_reversed", "phases_swapped")

@@ -1,7 +1,8 @@
 """Faults the simulated bench can inject, written ``KIND:METER[:ARG]`` on the command line.
 
 Wiring faults (``ct-reversed``, ``phases-swapped``, ``vt-ratio``, ``ct-ratio``) change what a
-meter measures; ``noisy`` scales its noise; ``frozen`` stops its values; communication faults
+meter measures; ``noisy`` scales its noise; ``frozen`` stops its values; ``offset`` adds a
+constant to one reading (``offset:M3:i.B:+2.5``, the one kind with two arguments); communication faults
 (``offline``, ``slow``, ``exception``) change how its Modbus server answers. The user-facing
 description of every kind is in ``docs/faults.md``.
 """
@@ -14,6 +15,7 @@ from dataclasses import dataclass
 
 from ..errors import BenchwalkError
 from ..model import Profile
+from ..quantities import is_valid_key
 
 PHASE_INDEX = {"A": 0, "B": 1, "C": 2}
 
@@ -28,6 +30,7 @@ KINDS: dict[str, tuple[str, bool]] = {
     "slow": ("SECONDS (e.g. 1.5)", True),
     "exception": ("CODE (1-11, e.g. 4)", True),
     "noisy": ("FACTOR (e.g. 5)", True),
+    "offset": ("KEY:AMOUNT (e.g. i.B:+2.5, in the reading's primary unit)", True),
 }
 WIRING = frozenset({"ct-reversed", "phases-swapped", "vt-ratio", "ct-ratio"})
 # Modbus Application Protocol V1.1b3, 7: the exception codes a device may answer with
@@ -79,6 +82,8 @@ def parse_fault(text: str) -> Fault:
     if len(parts) < 2 or not parts[1].strip():
         raise BenchwalkError(f"fault {text!r}: name the meter, as {_usage(kind)}")
     meter = parts[1].strip()
+    if kind == "offset":
+        return Fault(kind, meter, _offset_arg(parts[2:], text))
     if len(parts) > 3 or (len(parts) == 3 and not required):
         raise BenchwalkError(f"fault {text!r}: too many parts; write {_usage(kind)}")
     if required and (len(parts) < 3 or not parts[2].strip()):
@@ -105,6 +110,28 @@ def parse_fault(text: str) -> Fault:
         what = "delay in seconds" if kind == "slow" else "factor"
         arg = _number(raw, what, text)
     return Fault(kind, meter, arg)
+
+
+def _offset_arg(rest: Sequence[str], text: str) -> str:
+    """``["i.B", "+2.5"]`` -> ``"i.B:+2.5"`` (the key and the amount, normalised)."""
+    if len(rest) != 2 or not all(x.strip() for x in rest):
+        raise BenchwalkError(f"fault {text!r}: write {_usage('offset')}")
+    key, raw = rest[0].strip(), rest[1].strip()
+    if not is_valid_key(key):
+        raise BenchwalkError(f"fault {text!r}: {key!r} is not a reading key like i.B or p.T")
+    try:
+        amount = float(raw)
+    except ValueError:
+        raise BenchwalkError(f"fault {text!r}: amount {raw!r} is not a number") from None
+    if not math.isfinite(amount):
+        raise BenchwalkError(f"fault {text!r}: amount must be a finite number, got {raw}")
+    return f"{key}:{amount:+g}"
+
+
+def offset_of(f: Fault) -> tuple[str, float]:
+    """An ``offset`` fault's (reading key, amount in the key's primary unit)."""
+    key, _, amount = str(f.arg).partition(":")
+    return key, float(amount)
 
 
 def parse_faults(texts: Iterable[str]) -> tuple[Fault, ...]:
@@ -137,6 +164,14 @@ def validate_faults(profile: Profile, faults: Sequence[Fault]) -> None:
             and profile.meter(f.meter).branch is None
         ):
             raise BenchwalkError(f"fault {f.text!r}: meter {f.meter} measures no current")
+        if f.kind == "offset":
+            key, _ = offset_of(f)
+            keys = [r.key for r in profile.maps[profile.meter(f.meter).map_id].registers]
+            if key not in keys:
+                raise BenchwalkError(
+                    f"fault {f.text!r}: meter {f.meter}'s register map has no {key}; "
+                    f"it has {', '.join(keys)}"
+                )
 
 
 def faults_for(meter_id: str, faults: Iterable[Fault]) -> list[Fault]:

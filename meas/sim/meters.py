@@ -15,7 +15,8 @@ and ``i`` (``Meter.classes``), and the current angle gets a Gaussian error with 
 use up the active-power class limit at PF 0.5 (dP/P = tan(phi) d phi, tan 60 deg = sqrt(3)).
 Every error is clipped at 0.5 x its limit: an assumption that a healthy meter sits well inside
 its class (common practice for in-service meters; from memory). ``noisy:M:k`` multiplies sigma
-and clip by k. Frequency: nominal + Gaussian, sigma 0.002 Hz, clipped at 0.01 Hz (x k with ``noisy``).
+and clip by k. ``offset:M:KEY:AMOUNT`` adds AMOUNT (primary unit) to that one reported value,
+after noise and derivation. Frequency: nominal + Gaussian, sigma 0.002 Hz, clipped at 0.01 Hz (x k with ``noisy``).
 """
 
 from __future__ import annotations
@@ -35,7 +36,7 @@ from ..model import Meter, Profile, RegisterMap
 from ..quantities import PHASES
 from ..scaling import to_primary, to_secondary
 from ..snapshot import CommState, MeterBlock, Quality, Snapshot
-from .faults import PHASE_INDEX, PLC_KINDS, WIRING, Fault, faults_for, find
+from .faults import PHASE_INDEX, PLC_KINDS, WIRING, Fault, faults_for, find, offset_of
 from .readings import IdealReadings, ideal_readings
 from .readings import meter_values as derive_values  # the one derivation from phasors
 
@@ -165,6 +166,13 @@ def values_from_phasors(
         ph = add_noise(ph, meter, rng, float(loud.arg) if loud else 1.0)  # type: ignore[arg-type]
     primary = derive_values(ph.v, ph.i, apparent_power=rmap.apparent_power, frequency_hz=ph.f)
     primary["e_imp.T"], primary["e_exp.T"] = energy_wh
+    for f in mine:
+        if f.kind == "offset":
+            # after the derivation: one register is off (a zero error or a bad transducer
+            # output), the meter's other values and its own sums are not
+            key, amount = offset_of(f)
+            if key in primary:
+                primary[key] += amount
     if meter.reports == "primary":
         return {r.key: primary[r.key] for r in rmap.registers}
     return {r.key: to_secondary(meter, r.key, primary[r.key]) for r in rmap.registers}
