@@ -18,7 +18,9 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.stats import chi2
+
+# chi2.ppf(p, k) = chdtri(k, 1 - p): scipy.stats costs a second to import
+from scipy.special import chdtri
 
 from .build import Problem
 from .core import FArray, Prior, StepModel
@@ -271,7 +273,7 @@ def best_trial(base: Fit, found: list[Trial]) -> tuple[Trial, list[Trial], list[
     j0 = base.cost
     if j0 - top.score < THRESHOLD**2:
         return None
-    if not base.converged and top.fit.cost > chi2.ppf(0.99, max(dof(top.fit), 1)):
+    if not base.converged and top.fit.cost > chdtri(max(dof(top.fit), 1), 0.01):
         return None  # without a converged reference, a hypothesis must explain the readings
     lim = top.score + margin(top.score)
     if top.kind == "offset":
