@@ -49,7 +49,7 @@ ESTIMATE_TABLES: dict[str, TableSpec] = {
             col(
                 "cause",
                 "string",
-                "machine-readable cause tag of the finding on this meter and quantity (vt_ratio:1.100, ct_reversed:B, wiring, ambiguous:..., gain); empty when none",
+                "machine-readable cause tag of the finding on this meter and quantity (vt_ratio:1.100, ct_reversed:B, wiring, offset:i.B:+2.991, frozen:<step>, ambiguous:..., gain); empty when none",
             ),
             col(
                 "message",
@@ -69,7 +69,7 @@ ESTIMATE_TABLES: dict[str, TableSpec] = {
             col(
                 "error_kind",
                 "string",
-                "vt_ratio, ct_ratio, ct_reversed:<phase> or phases_swapped:<pair>",
+                "vt_ratio, ct_ratio, ct_reversed:<phase>, phases_swapped:<pair>, offset:<reading key> (one reading off by a constant) or frozen (readings that stopped changing across steps)",
                 required=True,
             ),
             col(

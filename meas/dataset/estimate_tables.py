@@ -126,17 +126,23 @@ def _summary(e: Estimate, step_ids: list[str]) -> dict[str, Any]:
     }
 
 
-def _kind(cause: str) -> str:
-    """The gain a finding's cause is about: vt_ratio -> voltage, anything else -> current."""
+def _kinds(cause: str) -> tuple[str, ...]:
+    """The gain rows a finding's cause is about: a VT ratio or an offset on a voltage reading
+    the voltage row; a frozen meter both (every reading stopped); anything else the current."""
     tag = cause.removeprefix("ambiguous:")
-    return "voltage" if tag.startswith("vt_ratio") else "current"
+    if tag.startswith("frozen"):
+        return ("voltage", "current")
+    if tag.startswith("vt_ratio") or tag.startswith(("offset:v_ln", "offset:v_ll", "offset:v_ang")):
+        return ("voltage",)
+    return ("current",)
 
 
 def _findings_by_row(findings: Sequence[Finding]) -> dict[tuple[str, str], Finding]:
     out: dict[tuple[str, str], Finding] = {}
     for f in findings:
         for m in f.meters:
-            out.setdefault((m, _kind(f.cause)), f)
+            for kind in _kinds(f.cause):
+                out.setdefault((m, kind), f)
     return out
 
 

@@ -28,11 +28,12 @@ import pytest
 from support.estimate_bench import as_built, capture, demo, meter_gains, sequence_states
 from support.invented_bench import build_session
 
-from meas.dataset.estimate_tables import NO_MODEL, estimate_session
+from meas.dataset.estimate_tables import NO_MODEL, _findings_by_row, estimate_session
 from meas.dataset.export import export_session
 from meas.dataset.files import sha256_of
 from meas.dataset.read import load_dataset
 from meas.dataset.schema import FORMAT_MINOR, TABLES
+from meas.estimate.results import Finding
 from meas.journal.store import Journal
 from meas.recheck import compare_estimate, estimate_recorded, recheck_estimate
 from meas.report import write_report
@@ -226,3 +227,28 @@ def test_the_report_first_page_names_the_meter_beyond_class(faulty: Path, tmp_pa
     assert "beyond class ±0.5 %" in page and "M5: voltages 1.1" in page
     assert "the VT ratio looks set wrong" in page
     assert "M5: voltages 1.1" in md_path.read_text().split("## Bench and instruments")[0]
+
+
+def test_each_finding_lands_on_the_gain_rows_it_is_about() -> None:
+    """An offset on a voltage reading is a voltage-row matter, a frozen meter both rows'."""
+
+    def f(meter: str, cause: str) -> Finding:
+        return Finding((meter,), cause, f"{meter}: {cause}", 9.0, 4.0)
+
+    rows = _findings_by_row(
+        [
+            f("M1", "offset:v_ln.A:+5.000"),
+            f("M2", "offset:i.B:+2.991"),
+            f("M3", "frozen:3"),
+            f("M4", "vt_ratio:1.100"),
+            f("M6", "ct_reversed:B"),
+        ]
+    )
+    assert {k: v.cause for k, v in rows.items()} == {
+        ("M1", "voltage"): "offset:v_ln.A:+5.000",
+        ("M2", "current"): "offset:i.B:+2.991",
+        ("M3", "voltage"): "frozen:3",
+        ("M3", "current"): "frozen:3",
+        ("M4", "voltage"): "vt_ratio:1.100",
+        ("M6", "current"): "ct_reversed:B",
+    }
