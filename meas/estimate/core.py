@@ -8,7 +8,8 @@ currents and meter readings with a voltage gain and a current gain.
 
 Two-port admittance derivatives with respect to their parameters are forward differences of
 the element builders (``meas.network.elements``), the one owner of those formulas. A step's
-readings and Jacobian are evaluated as arrays by ``meas.estimate.plan``; the solve is
+readings and Jacobian are evaluated as arrays by ``meas.estimate.measurement`` on the index
+arrays of ``meas.estimate.plan``; the solve is
 ``meas.estimate.solver``.
 """
 

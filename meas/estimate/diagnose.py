@@ -23,7 +23,8 @@ import numpy as np
 from scipy import sparse
 
 from .core import CArray, FArray, IArray, StepModel
-from .plan import measured, plan_of
+from .measurement import measured
+from .plan import plan_of
 from .solver import Fit, meter_phasors, omega_diag
 from .solver import cols_of as _cols
 

@@ -36,7 +36,7 @@ from scipy import sparse
 
 from .core import FArray, StepModel
 from .diagnose import CRITICAL, THRESHOLD, Hypothesis, Tests, weighted_residuals
-from .plan import evaluate
+from .measurement import evaluate
 from .solver import Fit
 
 if TYPE_CHECKING:

@@ -1,18 +1,15 @@
-"""The measurement model of one step, vectorized over its meters and reading slots.
+"""A step's index arrays: which node voltages each meter sees, which element currents sum
+into its current, which slot each measured row is.
 
 ``meas.estimate.core`` holds the terms (one object per two-port, load, meter and Kirchhoff
 bus); evaluating them one by one in Python cost far more than the algebra (a capture of 32
-meters took most of a second). A ``StepPlan`` turns a step's terms into index arrays once
-(which node voltages each meter sees, which element currents sum into its current, which slot
-each measured row is); ``evaluate`` then computes every meter's readings and their derivatives
-with a few array operations. The formulas are those of the terms' docstrings: a meter's
-current is the signed sum of element currents seen through its wiring, its readings are the
-magnitudes, powers and angles of its voltages and currents times its gains.
+meters took most of a second). A ``StepPlan`` turns a step's terms into index arrays once;
+``meas.estimate.measurement`` evaluates every meter's readings and their derivatives on them
+with a few array operations.
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -23,20 +20,16 @@ from .core import (
     IMAG,
     VANG,
     VLL,
-    CArray,
     Current,
     FArray,
     IArray,
-    StepEval,
     StepModel,
-    admittance,
     slot_keys,
     structure_key,
 )
 
 _KINDS = {1: np.array([0, 1, 2, 2]), 3: np.r_[[0] * 6, [1] * 3, [2] * 8, [3] * 5]}
 _CODES = {p: np.array([c for _, c in slot_keys(p)]) for p in (1, 3)}
-_NEXT = np.array([1, 2, 0])
 # slots of a first pass from a flat start (no current magnitudes, no angles): see solver._smooth
 SMOOTH_OK = {1: np.array([True, False, True, True]), 3: ~np.isin(_CODES[3], (IMAG, IANG))}
 
@@ -158,7 +151,6 @@ def build_plan(step: StepModel) -> StepPlan:
 
 _PLANS: dict[int, tuple[StepModel, StepPlan]] = {}
 _PLANS_MAX = 64  # a joint session has a few dozen steps; a capture window builds its own
-_NONE = np.zeros(0)
 
 
 _SHAPES: dict[tuple[object, ...], tuple[tuple[object, ...], StepPlan]] = {}
@@ -191,230 +183,3 @@ def plan_of(step: StepModel) -> StepPlan:
         _SHAPES[key] = ((step.two_ports,), pl)
     _PLANS[id(step)] = (step, pl)
     return pl
-
-
-# ---------------------------------------------------------------------------- currents
-
-
-def currents(
-    step: StepModel, pl: StepPlan, v: CArray, tc: CArray, shared: FArray, derivs: bool
-) -> tuple[CArray, CArray | None]:
-    """Every element current (two-ports end by end, then loads) and its derivative.
-
-    Derivative columns are compact, [the plan's ``par_cols`` | this step's state] (no element
-    depends on a meter gain); ``tc`` maps the state to voltages.
-    """
-    p = pl.p
-    ns = len(pl.par_cols)
-    nc = ns + tc.shape[1]
-    parts: list[CArray] = []
-    dparts: list[CArray] = []
-    if step.two_ports:
-        ys, dys = [], []
-        for t in step.two_ports:
-            pv = shared[list(t.params)] if t.params else _NONE
-            y, dy = admittance(t, pv, derivs)
-            ys.append(y)
-            dys.append(dy)
-        yst = np.array(ys)
-        vt = v[pl.tp_nodes]
-        parts.append((yst @ vt[..., None]).reshape(-1))
-        if derivs:
-            d = np.zeros((len(ys), 2 * p, nc), complex)
-            d[:, :, ns:] = yst @ tc[pl.tp_nodes]
-            if len(pl.tp_dterm):
-                dyt = np.array([dys[k][j] for k, j in zip(pl.tp_dterm, pl.tp_dparam, strict=True)])
-                d[pl.tp_dterm, :, pl.tp_dcol] = (dyt @ vt[pl.tp_dterm][..., None])[..., 0]
-            dparts.append(d.reshape(-1, nc))
-    if step.loads:
-        vl = v[pl.ld_nodes]
-        m = np.abs(vl)
-        r = m / pl.ld_vn
-        sh1 = np.append(shared, 1.0)
-        kp = sh1[pl.ld_kp][:, None]
-        kq = sh1[pl.ld_kq][:, None]
-        zp, zq = pl.ld_zp, pl.ld_zq
-        pr = zp[:, 0] * r * r + zp[:, 1] * r + zp[:, 2]
-        qr = zq[:, 0] * r * r + zq[:, 1] * r + zq[:, 2]
-        s = kp * pr + 1j * kq * qr
-        cv = np.conj(vl)
-        parts.append(np.asarray(np.conj(s) / cv, complex).reshape(-1))
-        if derivs:
-            ds = (kp * (2 * zp[:, 0] * r + zp[:, 1]) + 1j * kq * (2 * zq[:, 0] * r + zq[:, 1])) / (
-                pl.ld_vn
-            )
-            dvl = np.zeros((*vl.shape, nc), complex)
-            dvl[..., ns:] = tc[pl.ld_nodes]
-            dm = (cv[..., None] * dvl).real / m[..., None]
-            d = (np.conj(ds) / cv)[..., None] * dm - (np.conj(s) / cv**2)[..., None] * np.conj(dvl)
-            rk = pl.ld_kp >= 0
-            if rk.any():
-                d[rk, :, pl.ld_kp_col[rk]] += pr[rk] / cv[rk]
-            rk = pl.ld_kq >= 0
-            if rk.any():
-                d[rk, :, pl.ld_kq_col[rk]] += -1j * qr[rk] / cv[rk]
-            dparts.append(d.reshape(-1, nc))
-    cur = np.concatenate(parts) if parts else np.zeros(0, complex)
-    if not derivs:
-        return cur, None
-    dcur = np.concatenate(dparts) if dparts else np.zeros((0, nc), complex)
-    return cur, dcur
-
-
-# ---------------------------------------------------------------------------- meter slots
-
-
-def _mag(val: CArray, d: CArray | None) -> tuple[FArray, FArray | None]:
-    m = np.abs(val)
-    if d is None:
-        return m, None
-    safe = np.where(m > 0, m, 1.0)
-    return m, (val.real[..., None] * d.real + val.imag[..., None] * d.imag) / safe[..., None]
-
-
-def _ang(val: CArray, d: CArray | None) -> tuple[FArray, FArray | None]:
-    if d is None:
-        return np.angle(val), None
-    safe = np.where(np.abs(val) > 0, val, 1.0)
-    return np.angle(val), (d / safe[..., None]).imag
-
-
-def all_slots(
-    pl: StepPlan, v: CArray, dv: CArray | None, i: CArray, di: CArray | None
-) -> tuple[FArray, FArray | None]:
-    """Every slot of every meter, (M, S) and (M, S, nc), before gains (``slot_keys`` order)."""
-    mm, p = v.shape
-    s = v * np.conj(i)
-    vm, dvm = _mag(v, dv)
-    im, dim = _mag(i, di)
-    ds = None
-    if dv is not None and di is not None:
-        ds = np.conj(i)[..., None] * dv + v[..., None] * np.conj(di)
-    if p == 1:
-        f = np.stack([vm[:, 0], im[:, 0], s.real[:, 0], s.imag[:, 0]], axis=1)
-        if ds is None:
-            return f, None
-        assert dvm is not None and dim is not None
-        df1 = np.stack([dvm[:, 0], dim[:, 0], ds.real[:, 0], ds.imag[:, 0]], axis=1)
-        return f, df1
-    f = np.zeros((mm, 22))
-    df: FArray | None = None if ds is None else np.zeros((mm, 22, ds.shape[-1]))
-    f[:, 0:3] = vm
-    f[:, 6:9] = im
-    f[:, 9:12] = s.real
-    f[:, 12:15] = s.imag
-    f[:, 15] = f[:, 9:12].sum(1)
-    f[:, 16] = f[:, 12:15].sum(1)
-    if pl.need_vll:
-        dd = None if dv is None else dv - dv[:, _NEXT]
-        f[:, 3:6], dll = _mag(v - v[:, _NEXT], dd)
-        if df is not None:
-            df[:, 3:6] = dll
-    if pl.need_angles:
-        ia, dia = _ang(i, di)
-        va, dva = _ang(v, dv)
-        f[:, 17:20] = ia - va[:, :1]
-        f[:, 20:22] = va[:, 1:] - va[:, :1]
-        if df is not None and dia is not None and dva is not None:
-            df[:, 17:20] = dia - dva[:, :1]
-            df[:, 20:22] = dva[:, 1:] - dva[:, :1]
-    if df is not None and ds is not None and dvm is not None and dim is not None:
-        df[:, 0:3] = dvm
-        df[:, 6:9] = dim
-        df[:, 9:12] = ds.real
-        df[:, 12:15] = ds.imag
-        df[:, 15] = df[:, 9:12].sum(1)
-        df[:, 16] = df[:, 12:15].sum(1)
-    return f, df
-
-
-def _gains(pl: StepPlan, shared: FArray) -> tuple[FArray, FArray, FArray]:
-    sh1 = np.append(shared, 1.0)
-    gv, gi = sh1[pl.gv], sh1[pl.gi]
-    table = np.stack([gv, gi, gv * gi, np.ones_like(gv)])
-    return table[pl.kind, np.arange(len(pl.kind))], gv, gi
-
-
-def measured(pl: StepPlan, v: CArray, i: CArray, shared: FArray) -> FArray:
-    """The measured rows' model values for phasors ``v`` and ``i`` (M, p), gains applied."""
-    f, _ = all_slots(pl, v, None, i, None)
-    gain, _, _ = _gains(pl, shared)
-    return f.reshape(-1)[pl.rows] * gain
-
-
-def phasors(
-    step: StepModel, pl: StepPlan, tc: CArray, xs: FArray, shared: FArray
-) -> tuple[CArray, CArray]:
-    """Each meter's (V, I) at the state ``xs`` (M, p), gains and wiring not applied."""
-    v = tc @ xs
-    cur, _ = currents(step, pl, v, tc, shared, derivs=False)
-    i = (pl.c_raw @ cur).reshape(-1, pl.p) if cur.size else np.zeros((len(pl.v_idx), pl.p))
-    return v[pl.v_idx], i.astype(complex)
-
-
-def _widen(pl: StepPlan, d: FArray, ns: int, nc: int) -> FArray:
-    """Compact derivative columns [par_cols | state] into [shared | state]."""
-    out = np.zeros((d.shape[0], nc))
-    npar = len(pl.par_cols)
-    out[:, pl.par_cols] = d[:, :npar]
-    out[:, ns:] = d[:, npar:]
-    return out
-
-
-def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEval:
-    """Weighted residuals and Jacobian of one step (columns [shared | this step's state])."""
-    pl = plan_of(step)
-    ns, p = len(shared), pl.p
-    nc = ns + tc.shape[1]
-    npar = len(pl.par_cols)
-    ncc = npar + tc.shape[1]  # compact columns while the chain rule runs
-    v = tc @ xs
-    cur, dcur = currents(step, pl, v, tc, shared, derivs=True)
-    assert dcur is not None
-    mm = len(step.meters)
-    rs, js, hs = [], [], []
-    if mm:
-        vm = v[pl.v_idx]
-        dvm = np.zeros((mm, p, ncc), complex)
-        dvm[..., npar:] = tc[pl.v_idx]
-        if cur.size:
-            im = (pl.c_wired @ cur).reshape(mm, p)
-            dim = (pl.c_wired @ dcur).reshape(mm, p, ncc)
-        else:
-            im, dim = np.zeros((mm, p), complex), np.zeros((mm, p, ncc), complex)
-        f, df = all_slots(pl, vm, dvm, im, dim)
-        assert df is not None
-        fr = f.reshape(-1)[pl.rows]
-        gain, gv, gi = _gains(pl, shared)
-        h = fr * gain
-        dh = _widen(pl, df.reshape(-1, ncc)[pl.rows] * gain[:, None], ns, nc)
-        rr = np.arange(len(fr))
-        sel = pl.gv >= 0
-        if sel.any():
-            cv = np.where(pl.kind == 0, 1.0, np.where(pl.kind == 2, gi, 0.0))
-            dh[rr[sel], pl.gv[sel]] += (fr * cv)[sel]
-        sel = pl.gi >= 0
-        if sel.any():
-            ci = np.where(pl.kind == 1, 1.0, np.where(pl.kind == 2, gv, 0.0))
-            dh[rr[sel], pl.gi[sel]] += (fr * ci)[sel]
-        res = pl.z - h
-        a = pl.angle
-        res[a] = np.mod(res[a] + math.pi, 2 * math.pi) - math.pi
-        rs.append(res / pl.sigma)
-        js.append(dh / pl.sigma[:, None])
-        hs.append(h)
-    k0 = len(pl.rows)
-    nk = len(step.kcl)
-    if nk:
-        q = (pl.k_mat @ cur).reshape(nk, 1, p)
-        dq = (pl.k_mat @ dcur).reshape(nk, 1, p, ncc)
-        val = np.concatenate([q.real, q.imag], axis=1).reshape(-1)
-        dval = np.concatenate([dq.real, dq.imag], axis=1).reshape(-1, ncc)
-        rs.append(-val / pl.k_sigma)
-        js.append(_widen(pl, dval / pl.k_sigma[:, None], ns, nc))
-        hs.append(val)
-    at = k0 + 2 * p * nk
-    rows = list(pl.meter_rows)
-    if not rs:
-        return StepEval(np.zeros(0), np.zeros((0, nc)), np.zeros(0), rows, slice(k0, at))
-    return StepEval(np.concatenate(rs), np.vstack(js), np.concatenate(hs), rows, slice(k0, at))

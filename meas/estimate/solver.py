@@ -28,7 +28,8 @@ from .core import (
     reset_admittances,
     structure_key,
 )
-from .plan import SMOOTH_OK, evaluate, phasors, plan_of
+from .measurement import evaluate, phasors
+from .plan import SMOOTH_OK, plan_of
 
 
 @dataclass

@@ -19,7 +19,8 @@ from support.estimate_bench import as_built, capture, demo, meter_gains
 import meas.estimate.core as core
 import meas.estimate.solver as solver
 from meas.estimate import Estimator
-from meas.estimate.plan import build_plan, evaluate, plan_of
+from meas.estimate.measurement import evaluate
+from meas.estimate.plan import build_plan, plan_of
 from meas.estimate.solver import DECREMENT, Starts, solve
 
 STATE = {"CB1": "closed", "SW2": "closed", "SW3": "closed", "TIE": "open", "RX": "closed"}
