@@ -14,9 +14,10 @@ from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import NDArray
 
 from ..quantities import unit_of
-from .core import FArray, StepModel
+from .core import FArray, IArray, StepModel
 from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, weighted_residuals
 from .offset_frozen import OFFSET_QUANTITIES, Detail, More, more_tests
 from .results import Coverage
@@ -71,6 +72,7 @@ def coverage(
     for k, st in enumerate(steps):
         for mt in st.meters:
             present.setdefault(mt.name, []).append(k)
+    ties = _tied_all(mo, ts)
     for h, hy in enumerate(mo.hyps):
         if hy.kind != "offset":
             continue
@@ -87,7 +89,7 @@ def coverage(
                 )
             )
             continue
-        tied = _tied(mo, ts, h)
+        tied = ties[h]
         if tied:
             out.append(
                 Coverage(
@@ -133,14 +135,37 @@ def coverage(
     return tuple(out)
 
 
-def _tied(mo: More, ts: Tests, h: int) -> list[str]:
-    own, other = mo.rho(h, ts)
-    meter = mo.hyps[h].meter
-    out = {g.meter for g, r in zip(mo.hyps, own, strict=True) if g.meter != meter and r >= TIE_RHO}
-    out |= {
-        g.meter for g, r in zip(ts.hyps, other, strict=True) if g.meter != meter and r >= TIE_RHO
-    }
-    return sorted(out)
+def _tied_all(mo: More, ts: Tests) -> list[list[str]]:
+    """Per offset/frozen hypothesis, the other meters with a hypothesis (of either family) it
+    cannot be told apart from (|ρ| >= TIE_RHO, as ``More.rho``), sorted: all rows at once."""
+    if not mo.hyps:
+        return []
+    meters = sorted({g.meter for g in mo.hyps} | {g.meter for g in ts.hyps})
+    at = {m: i for i, m in enumerate(meters)}
+    mine = np.array([at[g.meter] for g in mo.hyps])
+    d2 = np.maximum(np.diag(mo.q), 1e-300)
+    with np.errstate(invalid="ignore"):
+        close = np.abs(mo.q) / np.sqrt(np.outer(d2, d2)) >= TIE_RHO
+    hit = np.zeros((len(mine), len(meters)), bool)
+    _mark(hit, close, mine, mine)
+    if ts.hyps:
+        theirs = np.array([at[g.meter] for g in ts.hyps])
+        d1 = np.maximum(np.diag(ts.q), 1e-300)
+        with np.errstate(invalid="ignore"):
+            close = np.abs(mo.cross) / np.sqrt(np.outer(d2, d1)) >= TIE_RHO
+        _mark(hit, close, mine, theirs)
+    hit[np.arange(len(mine)), mine] = False  # another meter's hypotheses only
+    out: list[list[str]] = [[] for _ in mo.hyps]
+    for h, k in zip(*np.nonzero(hit), strict=True):
+        out[h].append(meters[k])  # row-major: each row's meters in sorted order
+    return out
+
+
+def _mark(hit: NDArray[np.bool_], close: NDArray[np.bool_], rows: IArray, cols: IArray) -> None:
+    """hit[h, meter of g] |= close[h, g], for every h and g (columns grouped by meter)."""
+    order = np.argsort(cols, kind="stable")
+    owners, starts = np.unique(cols[order], return_index=True)
+    hit[:, owners] |= np.logical_or.reduceat(close[:, order], starts, axis=1)
 
 
 def _frozen_strength(
