@@ -22,6 +22,7 @@ from meas.snapshot import CommState
 from tui.frame import StepInfo
 from tui.units import eng, scale_factor
 from tui.widgets.checks import checks_text
+from tui.widgets.coverage import _short
 from tui.widgets.phasor import phasor_canvas, phasor_text
 from tui.widgets.readings import row_cells
 from tui.widgets.step import step_detail
@@ -266,3 +267,12 @@ def test_step_detail_shows_the_switch_still_to_operate_as_a_task_not_a_mismatch(
     assert (
         "\u2718 MISMATCH SW2: expected closed, reads open" in after
     )  # once operated, a difference is wrong
+
+
+def test_undetectable_errors_of_one_reason_stay_on_one_line():
+    """A meter's undetectable offsets (one per reading) are named while few, counted when many."""
+    assert _short(["reversed CT A", "reversed CT B", "reversed CT C"]) == "reversed CT A/B/C"
+    assert _short(["VT ratio", "offset of v_ln.A"]) == "VT ratio, offset of v_ln.A"
+    assert _short(["offset of i.A", "offset of i.B"]) == "offsets of i.A/i.B"
+    many = [f"offset of {k}" for k in ("v_ln.A", "v_ln.B", "v_ln.C", "i.A", "i.B", "p.T")]
+    assert _short(["CT ratio", *many]) == "CT ratio, offsets of 6 readings"

@@ -134,13 +134,27 @@ def _reasons(e: Estimate, meters: Sequence[str], pal: Palette) -> Text:
     return out
 
 
+OFFSET_STEM = "offset of"
+OFFSETS_NAMED = 3  # more undetectable offsets than this are counted, not listed
+
+
 def _short(kinds: list[str]) -> str:
-    """ "reversed CT A, reversed CT B, reversed CT C" -> "reversed CT A/B/C"."""
+    """ "reversed CT A, reversed CT B, reversed CT C" -> "reversed CT A/B/C"; offsets of single
+    readings (one per reading of a meter) -> "offsets of v_ln.A/i.B", or "offsets of 14
+    readings" when there are many, so one reason stays one line."""
     groups: dict[str, list[str]] = {}
     for k in kinds:
         stem, _, last = k.rpartition(" ")
-        if stem and last.isupper() and len(last) <= 2:
+        if stem == OFFSET_STEM or (stem and last.isupper() and len(last) <= 2):
             groups.setdefault(stem, []).append(last)
         else:
             groups.setdefault(k, [])
-    return ", ".join(f"{s} {'/'.join(v)}" if v else s for s, v in groups.items())
+    parts = []
+    for stem, v in groups.items():
+        if stem == OFFSET_STEM:
+            many = len(v) > OFFSETS_NAMED
+            word = "offsets" if len(v) > 1 else "offset"
+            parts.append(f"offsets of {len(v)} readings" if many else f"{word} of {'/'.join(v)}")
+        else:
+            parts.append(f"{stem} {'/'.join(v)}" if v else stem)
+    return ", ".join(parts)
