@@ -25,6 +25,11 @@ from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 from .solver import Fit, Starts, omega_prior, solve
 
 CHI2_P = 0.99
+# iterations of one fit: a clean capture takes 3 or 4; a reversed CT's fit from a flat start
+# took up to about 80 on the demo bench (the golden check inputs: at 40, 11 of their
+# snapshots gave no estimate, at 100 one did), and a fit that gets there names its meter
+MAX_ITER = 100
+RATIO_ITER = 40  # a refit with a ratio freed, from the converged fit: as before MAX_ITER grew
 MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
 _NAMES = {
     "vt_ratio": "VT ratio",
@@ -47,8 +52,10 @@ def _label(kind: str, arg: str) -> str:
 class Estimator:
     """The estimator for one profile; build once, run on any list of captures."""
 
-    def __init__(self, profile: Profile, *, max_iter: int = 40, exact: bool = True):
-        """``exact=False`` names faults from the linearized statistics alone (one fit, no
+    def __init__(self, profile: Profile, *, max_iter: int = MAX_ITER, exact: bool = True):
+        """``max_iter``: a fit whose readings hold a gross error (a reversed CT) can need
+        several times the few iterations of a clean one to settle (MAX_ITER).
+        ``exact=False`` names faults from the linearized statistics alone (one fit, no
         refits: what the per-snapshot check family can afford); a wiring fault is then named
         on its meter as "wiring" and its kind left to the per-phase wiring checks."""
         self.profile = profile
@@ -83,7 +90,10 @@ class Estimator:
             budget = min(TRIAL_ITER, self.max_iter)
             sus = suspects(fit, steps, keys, pr.priors, pr, budget)
             picked = best_trial(
-                fit, trials(fit, steps, pr.priors, pr, sus, keys, budget, self.max_iter)
+                fit,
+                trials(
+                    fit, steps, pr.priors, pr, sus, keys, budget, min(self.max_iter, RATIO_ITER)
+                ),
             )
             if picked is None:
                 break

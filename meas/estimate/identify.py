@@ -212,10 +212,13 @@ def _more_trials(
     if not keys:
         return []
     out = []
+    found = frozen_from_data(steps, keys)  # the data single these out, whatever the fit did
     if base.converged:
-        found = candidates(base, steps, keys, tests(base, steps, keys, pr.gains))
-    else:
-        found = frozen_from_data(steps, keys)
+        # a gross error bends the fit, and a frozen meter's linear statistic with it: the
+        # data's candidates are refitted beside the statistic's
+        linear = candidates(base, steps, keys, tests(base, steps, keys, pr.gains))
+        seen = {(c.meter, c.kind) for c in linear}
+        found = linear + [c for c in found if (c.meter, c.kind) not in seen]
     for c in found:
         f = solve(c.steps, priors, x0=base.x if base.converged else None, max_iter=max_iter)
         if not f.converged:

@@ -125,6 +125,12 @@ class Starts:
         self._at[structure_key(step)] = ((step.two_ports,), x.copy())
 
 
+def _gross(fit: Fit, priors: Sequence[Prior]) -> bool:
+    """A misfit above ``GROSS`` per row: the readings hold a gross error."""
+    rows = sum(len(ev.r) for ev in fit.evals) + len(priors)
+    return fit.cost > GROSS * max(rows, 1)
+
+
 def solve(
     steps: Sequence[StepModel],
     priors: Sequence[Prior],
@@ -145,14 +151,17 @@ def solve(
     lay = layout(len(priors), steps)
     reset_admittances()  # the result must not depend on what was solved before (re-checks)
     if x0 is None and len(steps) == 1 and starts is not None:
+        # only where the readings fit: there the optimum is unique and reached from either
+        # start; a gross misfit's fit can depend on its start, so it always starts flat (the
+        # same result as a fresh estimator's, whatever was solved before)
         warm = starts.get(steps[0], lay.n)
         if warm is not None:
             fit = solve(steps, priors, tol=tol, max_iter=max_iter, x0=warm, rel=rel)
-            if fit.converged:
+            if fit.converged and not _gross(fit, priors):
                 starts.put(steps[0], fit.x)
                 return fit
         fit = solve(steps, priors, tol=tol, max_iter=max_iter, rel=rel)
-        if fit.converged:
+        if fit.converged and not _gross(fit, priors):
             starts.put(steps[0], fit.x)
         return fit
     if x0 is None and len(steps) > 1:

@@ -102,8 +102,14 @@ def test_a_clean_bench_has_no_gain_beyond_class_and_says_what_it_covers(clean: P
     assert g["message"].isna().all() and (g["basis"] == "joint fit").all()
     # every gain within its class limit of 1 (the simulated classes, tests/support)
     assert ((g["gain"] - 1).abs() <= g["class_limit"] + 2 * g["u"]).all()
-    # one row per meter and error kind: 2 ratios, 3 reversed CTs, 3 swapped pairs
-    assert len(c) == 8 * 8 and set(c["error_kind"]) >= {"vt_ratio", "ct_ratio", "ct_reversed:B"}
+    # one row per meter and error kind: 2 ratios, 3 reversed CTs, 3 swapped pairs; then an
+    # offset per reading measured and, as both steps measured every meter, frozen per meter
+    kinds = c["error_kind"]
+    offset, frozen = kinds.str.startswith("offset:"), kinds == "frozen"
+    assert len(c[~offset & ~frozen]) == 8 * 8
+    assert set(kinds) >= {"vt_ratio", "ct_ratio", "ct_reversed:B", "offset:v_ln.A", "offset:i.B"}
+    assert sorted(c.loc[frozen, "meter"]) == [f"M{k}" for k in range(1, 9)]
+    assert offset.sum() > 8 * 10 and not c.duplicated(["meter", "error_kind"]).any()
     ratio = c[c["error_kind"].isin(["vt_ratio", "ct_ratio"]) & c["detectable"]]
     assert len(ratio) and ((ratio["min_factor"] > 0) & (ratio["min_factor"] < 0.1)).all()
     assert c.loc[c["detectable"], "why_not"].isna().all()
@@ -155,7 +161,10 @@ def test_the_tables_load_in_pyarrow_duckdb_polars_and_validate(faulty: Path) -> 
     ).fetchall()
     assert n == [(1,)]
     cov = pl.read_parquet(faulty / "data" / "coverage.parquet")
-    assert cov.schema["detectable"] == pl.Boolean and cov.height == 64
+    ratio_and_wiring = cov.filter(
+        ~pl.col("error_kind").str.starts_with("offset:") & (pl.col("error_kind") != "frozen")
+    )
+    assert cov.schema["detectable"] == pl.Boolean and ratio_and_wiring.height == 64
     m5 = pl.read_csv(faulty / "data" / "meter_gains.csv").filter(
         (pl.col("meter") == "M5") & (pl.col("quantity") == "voltage")
     )
