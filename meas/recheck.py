@@ -17,7 +17,12 @@ import pandas as pd
 
 from .dataset.estimate_tables import SessionEstimate, compare_rows, session_estimate_of
 from .dataset.read import bad_dataset, format_minor, load_dataset, read_package, show_rel
-from .dataset.schema import ADDED_IN_MINOR, column_names
+from .dataset.schema import (
+    ADDED_IN_MINOR,
+    COVERAGE_KINDS_ADDED_IN_MINOR,
+    column_names,
+    coverage_kind_in,
+)
 from .dataset.snapshots import snapshots_of_step
 from .progress import Progress
 
@@ -145,14 +150,30 @@ def recheck_estimate(dataset_dir: Path) -> SessionEstimate:
 
 
 def compare_estimate(dataset_dir: Path, fresh: SessionEstimate) -> list[str]:
-    """Differences between the exported ``meter_gains`` and ``coverage`` tables and ``fresh``."""
+    """Differences between the exported ``meter_gains`` and ``coverage`` tables and ``fresh``;
+    coverage rows of error kinds the dataset's format predates are left out of the comparison
+    (``estimate_note`` says so)."""
     ds = load_dataset(Path(dataset_dir), tables=list(ESTIMATE_TABLES))
+    minor = format_minor(read_package(Path(dataset_dir)))
+    coverage = [r for r in fresh.coverage if coverage_kind_in(str(r["error_kind"]), minor)]
     diffs = []
-    for name, rows in (("meter_gains", fresh.gains), ("coverage", fresh.coverage)):
+    for name, rows in (("meter_gains", fresh.gains), ("coverage", coverage)):
         frame = ds[name].astype(object).where(ds[name].notna(), None)
         exported = cast(list[dict[str, object]], frame.to_dict("records"))
         diffs += compare_rows(name, exported, rows)
     return diffs
+
+
+def estimate_note(dataset_dir: Path) -> str:
+    """What the estimate comparison leaves out for this dataset's format, or ""."""
+    minor = format_minor(read_package(Path(dataset_dir)))
+    later = sorted(k for k, m in COVERAGE_KINDS_ADDED_IN_MINOR.items() if m > minor)
+    if not later or minor < ADDED_IN_MINOR["coverage"]:
+        return ""
+    return (
+        f"the dataset (format 2.{minor}) predates the {' and '.join(later)} coverage rows: "
+        "compared without them"
+    )
 
 
 def estimate_recorded(dataset_dir: Path) -> bool:

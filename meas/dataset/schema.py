@@ -58,8 +58,15 @@ ARROW_TYPES = {
 FORMAT_VERSION = 2
 # Additions within a format version raise the minor number (docs/dataset-format.md): a reader
 # of format 2 reads every 2.x dataset; a table added in a minor is absent from older ones.
-FORMAT_MINOR = 1
+FORMAT_MINOR = 2
 ADDED_IN_MINOR = {"meter_gains": 1, "coverage": 1}
+# error kinds of the coverage table added in a minor (their rows are absent from older ones)
+COVERAGE_KINDS_ADDED_IN_MINOR = {"offset": 2, "frozen": 2}
+
+
+def coverage_kind_in(error_kind: str, minor: int) -> bool:
+    """Whether a dataset of format 2.``minor`` has coverage rows of this error kind."""
+    return COVERAGE_KINDS_ADDED_IN_MINOR.get(error_kind.split(":")[0], 0) <= minor
 
 
 def tables_in(minor: int) -> list[str]:

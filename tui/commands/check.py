@@ -16,6 +16,7 @@ from meas.dataset.read import load_dataset
 from meas.recheck import (
     compare_checks,
     compare_estimate,
+    estimate_note,
     estimate_recorded,
     recheck,
     recheck_estimate,
@@ -104,6 +105,9 @@ def main(args: argparse.Namespace) -> int:
         out.print(
             f"the re-check reproduces the exported checks table: {len(fresh)} results identical"
         )
+    note = estimate_note(args.dataset) if est is not None else ""
+    if note:
+        out.print(note, highlight=False, markup=False)
     if est_diffs:
         out.print(
             f"[yellow]the re-check does NOT reproduce the meter_gains and coverage tables ({len(est_diffs)} differences):[/yellow]"
