@@ -25,11 +25,12 @@ from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 from .solver import Fit, Starts, omega_prior, solve
 
 CHI2_P = 0.99
-# iterations of one fit: a clean capture takes 3 or 4; a reversed CT's fit from a flat start
-# took up to about 80 on the demo bench (the golden check inputs: at 40, 11 of their
-# snapshots gave no estimate, at 100 one did), and a fit that gets there names its meter
-MAX_ITER = 100
-RATIO_ITER = 40  # a refit with a ratio freed, from the converged fit: as before MAX_ITER grew
+# iterations of one fit: a clean capture takes 3 or 4. A fit with a gross error (a reversed
+# CT) may need many more, and given 100 it sometimes settles in a wrong local minimum whose
+# linear statistics then point at other meters (the meshed fault matrix caught one); at 40
+# such a fit is reported as not converged, the identification ranks suspects by dropping each
+# meter instead, and the per-snapshot family says "not checked" rather than blame a meter
+MAX_ITER = 40
 MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
 _NAMES = {
     "vt_ratio": "VT ratio",
@@ -53,8 +54,7 @@ class Estimator:
     """The estimator for one profile; build once, run on any list of captures."""
 
     def __init__(self, profile: Profile, *, max_iter: int = MAX_ITER, exact: bool = True):
-        """``max_iter``: a fit whose readings hold a gross error (a reversed CT) can need
-        several times the few iterations of a clean one to settle (MAX_ITER).
+        """``max_iter``: see MAX_ITER.
         ``exact=False`` names faults from the linearized statistics alone (one fit, no
         refits: what the per-snapshot check family can afford); a wiring fault is then named
         on its meter as "wiring" and its kind left to the per-phase wiring checks."""
@@ -91,9 +91,7 @@ class Estimator:
             sus = suspects(fit, steps, keys, pr.priors, pr, budget)
             picked = best_trial(
                 fit,
-                trials(
-                    fit, steps, pr.priors, pr, sus, keys, budget, min(self.max_iter, RATIO_ITER)
-                ),
+                trials(fit, steps, pr.priors, pr, sus, keys, budget, self.max_iter),
             )
             if picked is None:
                 break

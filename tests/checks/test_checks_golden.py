@@ -251,9 +251,8 @@ REL_TOL = 1e-9
 # standard deviations of the optimum from any start (tests/estimate/test_solver_starts.py).
 # The last digits depend on the start and the rounding path, so they are compared to the
 # fit's own precision. The fixture was regenerated when that stop replaced a relative misfit
-# change of 1e-7, which had left figures up to 4e-4 (relative) from a fully converged fit, and
-# the fit's iteration budget grew from 40 to 100: 15 faulted snapshots had no estimate, now
-# one has none and the other 14 name their faulty meter.
+# change of 1e-7, which had left figures up to 4e-4 (relative) from a fully converged fit: 15
+# faulted snapshots had no estimate, now 11 have none and the other 4 name their faulty meter.
 # A figure near zero (a gain's deviation in class standard deviations) is held to the same
 # precision in absolute terms, FIT_ABS_TOL.
 FIT_REL_TOL = 1e-4
