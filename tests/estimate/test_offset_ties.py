@@ -9,12 +9,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from meas.estimate.diagnose import TIE_RHO, Hypothesis, Tests
+from meas.estimate.diagnose import TIE_RHO, Hypothesis
+from meas.estimate.diagnose import Tests as HypothesisTests
 from meas.estimate.offset_frozen import More
 from meas.estimate.offset_frozen_words import _tied_all
 
 
-def _one_by_one(mo: More, ts: Tests, h: int) -> list[str]:
+def _one_by_one(mo: More, ts: HypothesisTests, h: int) -> list[str]:
     own, other = mo.rho(h, ts)
     meter = mo.hyps[h].meter
     out = {g.meter for g, r in zip(mo.hyps, own, strict=True) if g.meter != meter and r >= TIE_RHO}
@@ -46,7 +47,7 @@ def test_ties_of_all_rows_at_once_are_those_of_each_row():
             np.ones(h2),
             {},
         )
-        ts = Tests(
+        ts = HypothesisTests(
             [Hypothesis(meters[rng.integers(5)], "ct_ratio", "") for _ in range(h1)],
             np.zeros(h1),
             np.zeros(h1),
