@@ -89,7 +89,8 @@ KEYS: tuple[Key, ...] = (
         command="note",
     ),
     Key("m", "next_meter", "Meter", "Select the next meter for phasors and trend.", "view"),
-    Key("shift+m", "prev_meter", "Prev meter", "Select the previous meter.", "view", footer=False),
+    # a terminal sends Shift+M as the character "M" (textual's key "M", never "shift+m")
+    Key("M", "prev_meter", "Prev meter", "Select the previous meter.", "view", footer=False),
     Key(
         "v",
         "next_view",
@@ -171,19 +172,36 @@ def footer_fit(items: Sequence[tuple[str, int]], width: int) -> set[int]:
     return kept
 
 
+def _caps(key: str) -> tuple[str, ...]:
+    """The key as Caps Lock sends it, where that is no key of its own (a bench laptop left in
+    capitals must not make every step key silently dead)."""
+    up = key.upper()
+    if len(key) == 1 and key.islower() and up not in ACTION_OF_KEY:
+        return (up,)
+    return ()
+
+
+# key as pressed, Caps Lock included -> its action
+ACTION_OF_PRESSED: dict[str, str] = {
+    **ACTION_OF_KEY,
+    **{c: k.action for k in KEYS for c in _caps(k.key)},
+}
+
+
 def bindings() -> list[Binding]:
     out = []
     for k in KEYS:
         name = k.action.split("(")[0]
         out.append(Binding(k.key, k.action, k.label, show=k.footer, id=f"bench.{name}"))
-        out += [Binding(a, k.action, k.label, show=False, id=f"bench.{name}.{a}") for a in k.also]
+        extra = [*k.also, *(c for a in (k.key, *k.also) for c in _caps(a))]
+        out += [Binding(a, k.action, k.label, show=False, id=f"bench.{name}.{a}") for a in extra]
     return out
 
 
 def display_key(key: str) -> str:
     if key.startswith("ctrl+"):
         return "Ctrl+" + display_key(key.removeprefix("ctrl+"))
-    named = {"shift+m": "Shift+M", "f1": "F1", "question_mark": "?", "escape": "Esc"}
+    named = {"M": "Shift+M", "f1": "F1", "question_mark": "?", "escape": "Esc"}
     return named.get(key, key.upper() if len(key) == 1 else key)
 
 

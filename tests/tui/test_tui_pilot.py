@@ -286,9 +286,9 @@ async def test_remote_switching_needs_both_confirmations(tmp_path):
         # a main-screen habit of accept-then-yes sends nothing: neither key is arm or send
         await pilot.press("a", "y")
         assert coil_writes(app) == [] and isinstance(app.screen, MainScreen)
-        await pilot.press("r")
+        await pilot.press("R")  # Caps Lock on: the same keys, the same two confirmations
         await until(pilot, lambda: isinstance(app.screen, RemoteConfirm), 5, "remote modal again")
-        await pilot.press(ARM_KEY, SEND_KEY)
+        await pilot.press(ARM_KEY.upper(), SEND_KEY.upper())
         await until(pilot, lambda: coil_writes(app), 5, "the coil write")
         assert [(c[1], c[2]) for c in coil_writes(app)] == [("RX", "closed")]
         # status verified (no capture in this step): the runner reviews, then A accepts

@@ -101,6 +101,12 @@ async def test_readings_keep_every_row_in_sight_and_mark_failing_meters(tmp_path
             await pilot.press("m")
         await pilot.pause(0.1)
         assert grid.selected_meter == "M6"
+        await pilot.press("M")  # Shift+M: a terminal sends the capital letter
+        await pilot.pause(0.1)
+        assert grid.selected_meter == "M5"
+        await pilot.press("m")
+        await pilot.pause(0.1)
+        assert grid.selected_meter == "M6"
         assert grid.top == 0  # all eight rows fit: none scrolled out of sight
         lines = [grid.render_line(y).text for y in range(1, 9)]
         assert [re.search(r"M\d", ln).group(0) for ln in lines] == [f"M{i}" for i in range(1, 9)]
@@ -110,6 +116,11 @@ async def test_readings_keep_every_row_in_sight_and_mark_failing_meters(tmp_path
         assert "\u2718M3" in grid.render_line(3).text.replace(" ", "")
         # a step key that cannot act says why (R on a capture step)
         await pilot.press("r")
+        await pilot.pause(0.1)
+        assert "R: step radial has no remote operation" in str(main.query_one("#notice").content)
+        # with Caps Lock on the same key gives the same answer, not silence
+        main.notice("")
+        await pilot.press("R")
         await pilot.pause(0.1)
         assert "R: step radial has no remote operation" in str(main.query_one("#notice").content)
 

@@ -20,6 +20,7 @@ from meas.sim.faults import parse_fault
 from meas.sim.meters import snapshot_from_sim
 from meas.snapshot import CommState
 from tui.frame import StepInfo
+from tui.keys import KEYS, bindings
 from tui.units import eng, scale_factor
 from tui.widgets.checks import checks_text
 from tui.widgets.coverage import _short
@@ -276,3 +277,14 @@ def test_undetectable_errors_of_one_reason_stay_on_one_line():
     assert _short(["offset of i.A", "offset of i.B"]) == "offsets of i.A/i.B"
     many = [f"offset of {k}" for k in ("v_ln.A", "v_ln.B", "v_ln.C", "i.A", "i.B", "p.T")]
     assert _short(["CT ratio", *many]) == "CT ratio, offsets of 6 readings"
+
+
+def test_every_letter_key_works_with_caps_lock_unless_its_capital_is_a_key_of_its_own():
+    """A terminal sends Shift+M or a Caps Lock letter as the capital character (textual's key
+    "M"), so the capitals are bound: to the same action, or for M to the previous meter."""
+    bound = {b.key: b.action for b in bindings()}
+    assert bound["M"] == "prev_meter" and bound["m"] == "next_meter"
+    assert "shift+m" not in bound  # never sent by a terminal for a letter
+    for k in KEYS:
+        if len(k.key) == 1 and k.key.islower() and k.key != "m":
+            assert bound[k.key.upper()] == k.action, k.key

@@ -99,9 +99,10 @@ class RemoteConfirm(ModalScreen[bool]):
             self.dismiss(False)
             return
         event.prevent_default()
-        if not self.armed and event.key == ARM_KEY:
+        key = event.key.lower() if len(event.key) == 1 else event.key  # Caps Lock on
+        if not self.armed and key == ARM_KEY:
             self._arm(True)
-        elif self.armed and event.key == SEND_KEY:
+        elif self.armed and key == SEND_KEY:
             self._arm(False)
             self.dismiss(True)
             return

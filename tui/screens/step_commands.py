@@ -15,7 +15,7 @@ from meas.errors import BenchwalkError
 from meas.walk.view import why_not
 
 from ..frame import Frame
-from ..keys import ACTION_OF_KEY, COMMAND_OF, display_key
+from ..keys import ACTION_OF_PRESSED, COMMAND_OF, display_key
 from .painting import PaintedScreen
 from .prompt import Alert, TextPrompt
 from .remote import RemoteConfirm
@@ -82,7 +82,7 @@ class StepCommandScreen(PaintedScreen):
 
     def on_key(self, event: events.Key) -> None:
         """A step key that cannot act now says why instead of doing nothing silently."""
-        command = COMMAND_OF.get(ACTION_OF_KEY.get(event.key, ""))
+        command = COMMAND_OF.get(ACTION_OF_PRESSED.get(event.key, ""))
         frame = self.frame
         if command is None or frame is None or frame.step is None:
             return
