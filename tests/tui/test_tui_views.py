@@ -208,7 +208,7 @@ async def _campaign_text(tmp: Path, profile: Path) -> tuple[str, bool]:
     app = BenchwalkApp(lambda op, r: None, bench_name="demo", profile_path=profile)
     async with app.run_test(size=(100, 30)) as pilot:
         await until(pilot, lambda: isinstance(app.screen, SafetyScreen), 15, "safety screen")
-        await tap(pilot, "y")
+        await tap(pilot, "Y")  # Caps Lock on: the capital acknowledges too
         await until(pilot, lambda: isinstance(app.screen, StartScreen), 15, "start screen")
         screen = app.screen
         await until(

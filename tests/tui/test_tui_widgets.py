@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from textual.binding import Binding
 
 from meas.network.topology import live_buses
 from meas.profile import load_profile
@@ -21,6 +22,8 @@ from meas.sim.meters import snapshot_from_sim
 from meas.snapshot import CommState
 from tui.frame import StepInfo
 from tui.keys import KEYS, bindings
+from tui.screens.coverage import CoverageScreen
+from tui.screens.safety import SafetyScreen
 from tui.units import eng, scale_factor
 from tui.widgets.checks import checks_text
 from tui.widgets.coverage import _short
@@ -288,3 +291,11 @@ def test_every_letter_key_works_with_caps_lock_unless_its_capital_is_a_key_of_it
     for k in KEYS:
         if len(k.key) == 1 and k.key.islower() and k.key != "m":
             assert bound[k.key.upper()] == k.action, k.key
+
+
+def test_the_safety_and_coverage_screens_take_their_letters_in_capitals_too():
+    for screen in (SafetyScreen, CoverageScreen):
+        keys = {b.key: b.action for b in screen.BINDINGS if isinstance(b, Binding)}
+        for key, action in list(keys.items()):
+            if len(key) == 1 and key.islower():
+                assert keys.get(key.upper()) == action, (screen.__name__, key)

@@ -48,7 +48,9 @@ class CoverageScreen(ModalScreen[None]):
     BINDINGS = [
         Binding("escape", "close", "Close", id="coverage.close"),
         Binding("k", "close", "Close", show=False, id="coverage.k"),
+        Binding("K", "close", "Close", show=False, id="coverage.k.caps"),
         Binding("r", "refresh_estimate", "Estimate again", id="coverage.refresh"),
+        Binding("R", "refresh_estimate", "Estimate again", show=False, id="coverage.refresh.caps"),
     ]
 
     def __init__(self, bridge: Any) -> None:

@@ -14,7 +14,10 @@ from meas.cautions import SAFETY_ACKNOWLEDGEMENT
 class SafetyScreen(Screen[bool]):
     """Press Y to acknowledge (dismisses True); Ctrl+Q leaves without starting."""
 
-    BINDINGS = [Binding("y", "acknowledge", "I acknowledge", id="safety.ack")]
+    BINDINGS = [
+        Binding("y", "acknowledge", "I acknowledge", id="safety.ack"),
+        Binding("Y", "acknowledge", "I acknowledge", show=False, id="safety.ack.caps"),
+    ]
 
     def compose(self) -> ComposeResult:
         with Vertical(id="safety-box"):
