@@ -8,7 +8,10 @@ from __future__ import annotations
 
 import os
 
-import pytest
+# one BLAS thread, as the benchwalk command sets (tui/cli.py): before anything imports numpy
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import pytest  # noqa: E402
 from hypothesis import settings
 
 settings.register_profile("ci", derandomize=True, print_blob=True)

@@ -21,6 +21,12 @@ import sys
 from pathlib import Path
 from types import ModuleType
 
+# One BLAS thread unless the user says otherwise, set before any command imports numpy: the
+# estimator's and the load flow's matrices are a few hundred wide, where a second BLAS thread
+# only spins (a faulted 15-step dataset's re-check: 10.1 s CPU with one, 17.9 s with two, the
+# same wall time) and takes a core from the poller on a loaded machine.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
 # subcommand -> module in tui.commands (imported lazily so `benchwalk lint` stays quick)
 COMMANDS: dict[str, str] = {
     "lint": "lint",
