@@ -16,8 +16,8 @@ import os
 import numpy as np
 import pytest
 from support.estimate_bench import (
-    FAULT_CAUSE,
     as_built,
+    assert_named_or_uncovered,
     capture,
     demo,
     fault_matrix,
@@ -50,29 +50,7 @@ def test_fault_matrix_on_the_demo_bench(seed: int) -> None:
     named = 0
     for text in fault_matrix([m.id for m in prof.meters])[::EVERY]:
         f = parse_fault(text)
-        arg = "" if f.kind in ("vt-ratio", "ct-ratio") else str(f.arg).replace("-", "")
-        label = FAULT_CAUSE[f.kind] + (f":{arg}" if arg else "")
         for sid in STEPS:
             e = est.run([capture(true, states[sid], (f,), rng, gains)])
-            where = (seed, text, sid, [x.sentence for x in e.findings])
-            assert len(e.findings) <= 1, where  # never two meters for one fault
-            for x in e.findings:
-                assert f.meter in x.meters, where  # never a wrong meter
-            cov = coverage[sid].coverage_of(f.meter, label)
-            if cov is None or not cov.detectable:
-                for (
-                    x
-                ) in e.findings:  # a tie may name the right meter among others, never alone wrong
-                    assert x.ambiguous or x.meters == (f.meter,), where
-                continue
-            assert e.findings, where  # coverage said it can be seen here
-            x = e.findings[0]
-            assert x.meters == (f.meter,), where
-            assert x.cause.startswith(FAULT_CAUSE[f.kind]), where
-            if arg:
-                assert x.cause.endswith(arg), where
-            else:
-                factor = float(str(f.arg))
-                assert float(x.cause.split(":")[1]) == pytest.approx(factor, abs=0.02), where
-            named += 1
+            named += assert_named_or_uncovered(e, f, coverage[sid], (seed, text, sid))
     assert named > 100 // EVERY  # most of the matrix is visible on this bench

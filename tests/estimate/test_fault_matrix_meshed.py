@@ -18,8 +18,8 @@ import os
 import numpy as np
 import pytest
 from support.estimate_bench import (
-    FAULT_CAUSE,
     as_built,
+    assert_named_or_uncovered,
     capture,
     fault_matrix,
     meter_gains,
@@ -59,27 +59,7 @@ def test_fault_matrix_on_the_meshed_bench(seed: int) -> None:
     matrix = fault_matrix([m.id for m in prof.meters])
     for text in matrix[(seed - 1) % EVERY :: EVERY]:
         f = parse_fault(text)
-        arg = "" if f.kind in ("vt-ratio", "ct-ratio") else str(f.arg).replace("-", "")
-        label = FAULT_CAUSE[f.kind] + (f":{arg}" if arg else "")
         for sid in STEPS:
             e = est.run([capture(true, states[sid], (f,), rng, gains)])
-            where = (seed, text, sid, [x.sentence for x in e.findings])
-            assert len(e.findings) <= 1, where  # never two meters for one fault
-            for x in e.findings:
-                assert f.meter in x.meters, where  # never a wrong meter
-            cov = coverage[sid].coverage_of(f.meter, label)
-            if cov is None or not cov.detectable:
-                for x in e.findings:  # a tie may name the right meter among others
-                    assert x.ambiguous or x.meters == (f.meter,), where
-                continue
-            assert e.findings, where  # coverage said it can be seen here
-            x = e.findings[0]
-            assert x.meters == (f.meter,), where
-            assert x.cause.startswith(FAULT_CAUSE[f.kind]), where
-            if arg:
-                assert x.cause.endswith(arg), where
-            else:
-                factor = float(str(f.arg))
-                assert float(x.cause.split(":")[1]) == pytest.approx(factor, abs=0.02), where
-            named += 1
+            named += assert_named_or_uncovered(e, f, coverage[sid], (seed, text, sid))
     assert named >= 0.8 * 2 * len(matrix[(seed - 1) % EVERY :: EVERY])  # most are visible

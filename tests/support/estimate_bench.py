@@ -14,7 +14,9 @@ from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 
 import numpy as np
+import pytest
 
+from meas.estimate.results import Estimate
 from meas.model import Profile
 from meas.network.parameters import model_parameters, with_values
 from meas.profile import load_profile
@@ -114,3 +116,32 @@ def fault_matrix(meters: list[str]) -> list[str]:
         out += [f"ct-reversed:{m}:{p}" for p in "ABC"]
         out += [f"phases-swapped:{m}:{p}" for p in ("A-B", "B-C", "C-A")]
     return out
+
+
+def assert_named_or_uncovered(
+    e: Estimate, fault: Fault, clean: Estimate, where: tuple[object, ...]
+) -> bool:
+    """Issue 11's contract for one fault in one capture: never two meters, never a wrong
+    meter; where the clean capture's coverage said the fault is detectable, it is named on its
+    meter with its cause (and a ratio with its factor within 0.02). True when it was named."""
+    arg = "" if fault.kind in ("vt-ratio", "ct-ratio") else str(fault.arg).replace("-", "")
+    label = FAULT_CAUSE[fault.kind] + (f":{arg}" if arg else "")
+    where = (*where, [x.sentence for x in e.findings])
+    assert len(e.findings) <= 1, where  # never two meters for one fault
+    for x in e.findings:
+        assert fault.meter in x.meters, where  # never a wrong meter
+    cov = clean.coverage_of(fault.meter, label)
+    if cov is None or not cov.detectable:
+        for x in e.findings:  # a tie may name the right meter among others, never alone wrong
+            assert x.ambiguous or x.meters == (fault.meter,), where
+        return False
+    assert e.findings, where  # coverage said it can be seen here
+    x = e.findings[0]
+    assert x.meters == (fault.meter,), where
+    assert x.cause.startswith(FAULT_CAUSE[fault.kind]), where
+    if arg:
+        assert x.cause.endswith(arg), where
+    else:
+        factor = float(str(fault.arg))
+        assert float(x.cause.split(":")[1]) == pytest.approx(factor, abs=0.02), where
+    return True
