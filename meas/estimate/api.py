@@ -15,7 +15,17 @@ from ..model import Profile
 from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
 from .core import StepModel
-from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, gain_from_data, rivals, tests
+from .diagnose import (
+    CRITICAL,
+    POWER_Z,
+    THRESHOLD,
+    TIE_RHO,
+    Tests,
+    gain_from_data,
+    meters_tied,
+    rivals,
+    tests,
+)
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .offset_frozen import NAMES as _MORE
 from .offset_frozen import peak
@@ -292,14 +302,7 @@ def _ties(ts: Tests) -> list[list[str]]:
     mi = np.array([meters.index(hy.meter) for hy in ts.hyps])
     dq = np.diag(ts.q)
     close = np.abs(ts.q) >= TIE_RHO * np.sqrt(np.maximum(np.outer(dq, dq), 1e-300))
-    mask = close & (dq > CRITICAL * ts.bb)[None, :] & (mi[:, None] != mi[None, :])
-    onehot = np.zeros((len(mi), len(meters)))
-    onehot[np.arange(len(mi)), mi] = 1.0
-    hit = (mask.astype(float) @ onehot) > 0
-    out: list[list[str]] = [[] for _ in ts.hyps]
-    for h, k in zip(*np.nonzero(hit), strict=True):
-        out[h].append(meters[k])  # row-major: each row's meters in sorted order
-    return out
+    return meters_tied(close & (dq > CRITICAL * ts.bb)[None, :], mi, mi, meters)
 
 
 def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:

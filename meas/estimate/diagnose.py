@@ -20,6 +20,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 from scipy import sparse
 
 from .core import CArray, FArray, IArray, StepModel
@@ -188,6 +189,23 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         t[wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
     bb = np.asarray(bm.multiply(bm).sum(axis=0)).reshape(-1)
     return Tests(hyps, t, alpha, q, bb, dict(gains), bm, ut)
+
+
+def meters_tied(
+    close: NDArray[np.bool_], row_meter: IArray, col_meter: IArray, meters: Sequence[str]
+) -> list[list[str]]:
+    """Per row hypothesis, the meters (sorted, its own left out) owning a column hypothesis it
+    is ``close`` to (cannot be told apart from); ``*_meter`` index into sorted ``meters``."""
+    hit = np.zeros((len(row_meter), len(meters)), bool)
+    if close.shape[1]:
+        order = np.argsort(col_meter, kind="stable")  # columns grouped by meter, one OR each
+        owners, starts = np.unique(col_meter[order], return_index=True)
+        hit[:, owners] = np.logical_or.reduceat(close[:, order], starts, axis=1)
+    hit[np.arange(len(row_meter)), row_meter] = False  # another meter's hypotheses only
+    out: list[list[str]] = [[] for _ in range(len(row_meter))]
+    for h, k in zip(*np.nonzero(hit), strict=True):
+        out[h].append(meters[k])  # row-major: each row's meters in sorted order
+    return out
 
 
 def rivals(ts: Tests, h: int) -> list[int]:

@@ -14,11 +14,18 @@ from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
-from numpy.typing import NDArray
 
 from ..quantities import unit_of
-from .core import FArray, IArray, StepModel
-from .diagnose import CRITICAL, POWER_Z, THRESHOLD, TIE_RHO, Tests, weighted_residuals
+from .core import FArray, StepModel
+from .diagnose import (
+    CRITICAL,
+    POWER_Z,
+    THRESHOLD,
+    TIE_RHO,
+    Tests,
+    meters_tied,
+    weighted_residuals,
+)
 from .offset_frozen import OFFSET_QUANTITIES, Detail, More, more_tests
 from .results import Coverage
 from .solver import Fit
@@ -143,29 +150,13 @@ def _tied_all(mo: More, ts: Tests) -> list[list[str]]:
     meters = sorted({g.meter for g in mo.hyps} | {g.meter for g in ts.hyps})
     at = {m: i for i, m in enumerate(meters)}
     mine = np.array([at[g.meter] for g in mo.hyps])
+    theirs = np.array([at[g.meter] for g in ts.hyps], dtype=np.int64)
     d2 = np.maximum(np.diag(mo.q), 1e-300)
+    d1 = np.maximum(np.diag(ts.q), 1e-300) if ts.hyps else np.zeros(0)
     with np.errstate(invalid="ignore"):
-        close = np.abs(mo.q) / np.sqrt(np.outer(d2, d2)) >= TIE_RHO
-    hit = np.zeros((len(mine), len(meters)), bool)
-    _mark(hit, close, mine, mine)
-    if ts.hyps:
-        theirs = np.array([at[g.meter] for g in ts.hyps])
-        d1 = np.maximum(np.diag(ts.q), 1e-300)
-        with np.errstate(invalid="ignore"):
-            close = np.abs(mo.cross) / np.sqrt(np.outer(d2, d1)) >= TIE_RHO
-        _mark(hit, close, mine, theirs)
-    hit[np.arange(len(mine)), mine] = False  # another meter's hypotheses only
-    out: list[list[str]] = [[] for _ in mo.hyps]
-    for h, k in zip(*np.nonzero(hit), strict=True):
-        out[h].append(meters[k])  # row-major: each row's meters in sorted order
-    return out
-
-
-def _mark(hit: NDArray[np.bool_], close: NDArray[np.bool_], rows: IArray, cols: IArray) -> None:
-    """hit[h, meter of g] |= close[h, g], for every h and g (columns grouped by meter)."""
-    order = np.argsort(cols, kind="stable")
-    owners, starts = np.unique(cols[order], return_index=True)
-    hit[:, owners] |= np.logical_or.reduceat(close[:, order], starts, axis=1)
+        own = np.abs(mo.q) / np.sqrt(np.outer(d2, d2)) >= TIE_RHO
+        other = np.abs(mo.cross) / np.sqrt(np.outer(d2, d1)) >= TIE_RHO
+    return meters_tied(np.hstack([own, other]), mine, np.r_[mine, theirs], meters)
 
 
 def _frozen_strength(
