@@ -188,14 +188,26 @@ ACTION_OF_PRESSED: dict[str, str] = {
 }
 
 
+def with_capitals(screen_bindings: Sequence[Binding]) -> list[Binding]:
+    """A screen's bindings plus, hidden, each lowercase letter's capital bound to the same
+    action (Caps Lock on), where the capital is not bound already."""
+    taken = {b.key for b in screen_bindings}
+    out = list(screen_bindings)
+    for b in screen_bindings:
+        up = b.key.upper()
+        if len(b.key) == 1 and b.key.islower() and up not in taken:
+            taken.add(up)
+            out.append(Binding(up, b.action, b.description, show=False, id=f"{b.id}.caps"))
+    return out
+
+
 def bindings() -> list[Binding]:
     out = []
     for k in KEYS:
         name = k.action.split("(")[0]
         out.append(Binding(k.key, k.action, k.label, show=k.footer, id=f"bench.{name}"))
-        extra = [*k.also, *(c for a in (k.key, *k.also) for c in _caps(a))]
-        out += [Binding(a, k.action, k.label, show=False, id=f"bench.{name}.{a}") for a in extra]
-    return out
+        out += [Binding(a, k.action, k.label, show=False, id=f"bench.{name}.{a}") for a in k.also]
+    return with_capitals(out)
 
 
 def display_key(key: str) -> str:

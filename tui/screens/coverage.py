@@ -11,11 +11,11 @@ first fit are disturbed by the fault.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any
+from typing import Any, ClassVar
 
 from textual import work
 from textual.app import ComposeResult
-from textual.binding import Binding
+from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Label, Static
@@ -26,6 +26,7 @@ from meas.estimate import Estimate, Estimator
 from meas.model import Profile
 from meas.snapshot import Snapshot
 
+from ..keys import with_capitals
 from ..widgets.coverage import coverage_text
 from ..widgets.palette import palette_of
 
@@ -45,12 +46,14 @@ def estimate_coverage(
 
 
 class CoverageScreen(ModalScreen[None]):
-    BINDINGS = [
-        Binding("escape", "close", "Close", id="coverage.close"),
-        Binding("k", "close", "Close", show=False, id="coverage.k"),
-        Binding("K", "close", "Close", show=False, id="coverage.k.caps"),
-        Binding("r", "refresh_estimate", "Estimate again", id="coverage.refresh"),
-        Binding("R", "refresh_estimate", "Estimate again", show=False, id="coverage.refresh.caps"),
+    BINDINGS: ClassVar[list[BindingType]] = [
+        *with_capitals(
+            [
+                Binding("escape", "close", "Close", id="coverage.close"),
+                Binding("k", "close", "Close", show=False, id="coverage.k"),
+                Binding("r", "refresh_estimate", "Estimate again", id="coverage.refresh"),
+            ]
+        )
     ]
 
     def __init__(self, bridge: Any) -> None:

@@ -2,21 +2,24 @@
 
 from __future__ import annotations
 
+from typing import ClassVar
+
 from textual.app import ComposeResult
-from textual.binding import Binding
+from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Label, Static
 
 from meas.cautions import SAFETY_ACKNOWLEDGEMENT
 
+from ..keys import with_capitals
+
 
 class SafetyScreen(Screen[bool]):
     """Press Y to acknowledge (dismisses True); Ctrl+Q leaves without starting."""
 
-    BINDINGS = [
-        Binding("y", "acknowledge", "I acknowledge", id="safety.ack"),
-        Binding("Y", "acknowledge", "I acknowledge", show=False, id="safety.ack.caps"),
+    BINDINGS: ClassVar[list[BindingType]] = [
+        *with_capitals([Binding("y", "acknowledge", "I acknowledge", id="safety.ack")])
     ]
 
     def compose(self) -> ComposeResult:
