@@ -23,7 +23,7 @@ from meas.recheck import (
 )
 
 from .output import add_json, console, emit_json
-from .progress import terminal_progress
+from .progress import with_progress
 
 HELP = "re-run the checks offline from a dataset folder and compare with the recorded ones"
 
@@ -38,25 +38,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def main(args: argparse.Namespace) -> int:
     out = console()
     exported = load_dataset(args.dataset, tables=["checks"])["checks"]
-    bar, update = terminal_progress("re-checking")
-    if bar is not None:
-        with bar:
-            fresh = recheck(args.dataset, progress=update)
-    else:
-        fresh = recheck(args.dataset)
+    fresh = with_progress("re-checking", lambda update: recheck(args.dataset, progress=update))
     counts = fresh.groupby(["check_id", "status"]).size().unstack(fill_value=0)
     failed = fresh[fresh["status"] == "fail"].drop_duplicates(["check_id", "subject", "message"])
     diffs = compare_checks(exported, fresh)
     recorded = estimate_recorded(args.dataset)
     est = None
     if recorded:
-        bar, update = terminal_progress(ESTIMATE_STAGE)
-        if bar is not None and update is not None:
-            with bar:
-                update(0, 0)
-                est = recheck_estimate(args.dataset)
-        else:
-            est = recheck_estimate(args.dataset)
+        est = with_progress(ESTIMATE_STAGE, lambda _: recheck_estimate(args.dataset))
     est_diffs = compare_estimate(args.dataset, est) if est is not None else []
     if getattr(args, "json", False):
         emit_json(

@@ -8,7 +8,7 @@ from pathlib import Path
 from meas.dataset.export import export_session
 from meas.dataset.read import read_package
 
-from .progress import terminal_progress
+from .progress import with_progress
 
 HELP = "export a session journal as a dataset folder (CSV, Parquet, datapackage.json, profile)"
 
@@ -32,12 +32,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
-    bar, update = terminal_progress("exporting")
-    if bar is not None:
-        with bar:
-            out = export_session(args.session, args.out, overwrite=args.overwrite, progress=update)
-    else:
-        out = export_session(args.session, args.out, overwrite=args.overwrite)
+    out = with_progress(
+        "exporting",
+        lambda update: export_session(
+            args.session, args.out, overwrite=args.overwrite, progress=update
+        ),
+    )
     print(f"dataset written: {out}")
     damage = read_package(out)["benchwalk"].get("journal_damage") or []
     for line in damage:

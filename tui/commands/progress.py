@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import sys
-from typing import TYPE_CHECKING
+from collections.abc import Callable
+from typing import TYPE_CHECKING, TypeVar
 
 from meas.progress import Progress
 
@@ -16,13 +17,13 @@ def terminal_progress(description: str) -> tuple[Bar, Progress] | tuple[None, No
     if not sys.stderr.isatty():
         return None, None
     from rich.console import Console  # noqa: PLC0415
-    from rich.progress import BarColumn, TimeRemainingColumn
+    from rich.progress import BarColumn, TaskProgressColumn, TimeRemainingColumn
     from rich.progress import Progress as Bar
 
     bar = Bar(
         "[progress.description]{task.description}",
         BarColumn(),
-        "{task.percentage:>3.0f}%",
+        TaskProgressColumn(),  # no "0 %" while a stage that counts nothing runs
         TimeRemainingColumn(),
         console=Console(stderr=True),
         transient=True,
@@ -36,3 +37,16 @@ def terminal_progress(description: str) -> tuple[Bar, Progress] | tuple[None, No
         bar.update(task, completed=done, total=total or None)
 
     return bar, update
+
+
+T = TypeVar("T")
+
+
+def with_progress(description: str, work: Callable[[Progress | None], T]) -> T:
+    """``work(update)`` under a terminal bar (``update`` None where stderr is no terminal); a
+    stage that counts nothing shows the bar pulsing until it ends."""
+    bar, update = terminal_progress(description)
+    if bar is None:
+        return work(None)
+    with bar:
+        return work(update)

@@ -8,7 +8,7 @@ from pathlib import Path
 from meas.dataset.outputs import check_report_target
 from meas.report import default_report_path, write_report
 
-from .progress import terminal_progress
+from .progress import with_progress
 
 HELP = "write the commissioning report (self-contained HTML and Markdown) of a dataset"
 
@@ -29,11 +29,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def main(args: argparse.Namespace) -> int:
     # only an earlier benchwalk report is replaced, never the other format or anyone's file
     check_report_target(args.out or default_report_path(args.dataset), args.dataset)
-    bar, update = terminal_progress("report")
-    if bar is not None:
-        with bar:
-            html_path, md_path = write_report(args.dataset, args.out, progress=update)
-    else:
-        html_path, md_path = write_report(args.dataset, args.out)
+    html_path, md_path = with_progress(
+        "report", lambda update: write_report(args.dataset, args.out, progress=update)
+    )
     print(f"report written: {html_path}\n                {md_path}")
     return 0
