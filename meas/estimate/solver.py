@@ -125,10 +125,10 @@ class Starts:
         self._at[structure_key(step)] = ((step.two_ports,), x.copy())
 
 
-def _gross(fit: Fit, priors: Sequence[Prior]) -> bool:
+def _gross(cost: float, evals: Sequence[StepEval], priors: Sequence[Prior]) -> bool:
     """A misfit above ``GROSS`` per row: the readings hold a gross error."""
-    rows = sum(len(ev.r) for ev in fit.evals) + len(priors)
-    return fit.cost > GROSS * max(rows, 1)
+    rows = sum(len(ev.r) for ev in evals) + len(priors)
+    return cost > GROSS * max(rows, 1)
 
 
 def solve(
@@ -157,11 +157,11 @@ def solve(
         warm = starts.get(steps[0], lay.n)
         if warm is not None:
             fit = solve(steps, priors, tol=tol, max_iter=max_iter, x0=warm, rel=rel)
-            if fit.converged and not _gross(fit, priors):
+            if fit.converged and not _gross(fit.cost, fit.evals, priors):
                 starts.put(steps[0], fit.x)
                 return fit
         fit = solve(steps, priors, tol=tol, max_iter=max_iter, rel=rel)
-        if fit.converged and not _gross(fit, priors):
+        if fit.converged and not _gross(fit.cost, fit.evals, priors):
             starts.put(steps[0], fit.x)
         return fit
     if x0 is None and len(steps) > 1:
@@ -208,7 +208,6 @@ def solve(
     # undamped steps. A step that fails while the misfit is far above what noise explains (a
     # fault in the readings) is where it overshoots: from then on the solve is damped from
     # GROSS_LAM0 up and stops at the looser GROSS_REL
-    rows = sum(len(ev.r) for ev in evals) + len(priors)
     gross = False
     lam, nu, it, converged, why = LAM0, 2.0, 0, False, ""
     for step_no in range(1, max_iter + 1):
@@ -243,7 +242,7 @@ def solve(
                 converged = True
                 break
         else:
-            if not gross and cost > GROSS * max(rows, 1):
+            if not gross and _gross(cost, evals, priors):
                 gross, rel, lam = True, GROSS_REL, max(lam, GROSS_LAM0)
             if step_small or trial[1] - cost <= rel * max(cost, 1.0):
                 converged = True  # at the optimum to rounding
