@@ -138,6 +138,16 @@ def _take(
         specs.append((spec, table.at(qkey)))
 
 
+def _entry(doc: Doc, value: object, path: Key, example: str) -> Table | None:
+    """A register entry as a table, or one line saying what it should look like."""
+    if not isinstance(value, dict):
+        doc.add(
+            path, f"expected an inline table like {example}, got {typename(value)} {show(value)}"
+        )
+        return None
+    return Table(doc, value, path)
+
+
 def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> RegisterSpec | None:
     path = rt.at(qkey)
     rt.seen.add(qkey)
@@ -155,13 +165,9 @@ def _register(doc: Doc, rt: Table, qkey: str, inherited: dict[str, Any]) -> Regi
     value = rt.data[qkey]
     if isinstance(value, int) and not isinstance(value, bool):
         value = {"address": value}  # "p.A" = 20 is shorthand for { address = 20 }
-    if not isinstance(value, dict):
-        doc.add(
-            path,
-            f"expected an inline table like {{ address = 0 }}, got {typename(value)} {show(value)}",
-        )
+    t = _entry(doc, value, path, "{ address = 0 }")
+    if t is None:
         return None
-    t = Table(doc, value, path)
     address = t.get("address", "int", None, required=True, check=within(0, MAX_ADDRESS))
     fields = _register_fields(t, inherited)
     if fields.get("type") in TEXT_TYPES:
@@ -213,13 +219,9 @@ def _text_register(doc: Doc, rt: Table, key: str, inherited: dict[str, Any]) -> 
     path = rt.at(key)
     rt.seen.add(key)
     value = rt.data[key]
-    if not isinstance(value, dict):
-        doc.add(
-            path,
-            f'expected an inline table like {{ address = 0, type = "string", count = 8 }}, got {typename(value)} {show(value)}',
-        )
+    t = _entry(doc, value, path, '{ address = 0, type = "string", count = 8 }')
+    if t is None:
         return None
-    t = Table(doc, value, path)
     address = t.get("address", "int", None, required=True, check=within(0, MAX_ADDRESS))
     count = t.get("count", "int", None, check=within(1, 125))
     kind = t.choice("kind", REGISTER_KINDS, inherited["kind"], what="register kind")
