@@ -97,3 +97,16 @@ def test_csv_map_row_with_a_count_is_a_text_register(tmp_path):
     problems = _problems(folder / DEMO.name)
     hit = [p for p in problems if "measured quantity" in p]
     assert hit and f"wren.csv:{len(rows) + 1}:" in hit[0], problems
+
+
+def test_a_map_entry_that_is_no_table_says_what_it_should_look_like_at_its_line(tmp_path):
+    old = 'serial = { address = 200, type = "string", count = 8 }'
+    for wrong, like in (
+        ('"v_ln.A" = "zero"', "{ address = 0 }"),
+        ('serial = "200"', '{ address = 0, type = "string", count = 8 }'),
+    ):
+        was = '"v_ln.A" = { address = 0 }' if wrong.startswith('"v_ln') else old
+        path = _edited(tmp_path / wrong[:6].strip('"= '), was, wrong)
+        line = _line_of(path, wrong)
+        hit = [p for p in _problems(path) if f":{line}:" in p]
+        assert len(hit) == 1 and f"expected an inline table like {like}, got" in hit[0], hit
