@@ -306,65 +306,48 @@ def _ties(ts: Tests) -> list[list[str]]:
 
 
 def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
-    om_prior = omega_prior(fit)
+    # the array work once, then plain floats: a capture of 32 meters has 256 hypotheses
+    om_prior = omega_prior(fit).tolist()
+    prior_std = fit.prior_std.tolist()
     ties = _ties(ts)
+    qd = np.diag(ts.q)
+    strengths = np.sqrt(np.maximum(qd, 0.0)).tolist()
+    critical = (qd <= CRITICAL * np.maximum(ts.bb, 1e-300)).tolist()
+    bb = ts.bb.tolist()
+    weak = THRESHOLD + POWER_Z
     out = []
     for h, hy in enumerate(ts.hyps):
         label = _label(hy.kind, hy.arg)
         tied = ties[h]
         name = f"{hy.meter} {_NAMES[hy.kind]}" + (f" {hy.arg}" if hy.arg else "")
+        cannot = f"{name}: cannot be told apart from {' or '.join(tied)} on this bench"
         if hy.kind in ("vt_ratio", "ct_ratio"):
             gi = ts.gain_index[(hy.meter, "v" if hy.kind == "vt_ratio" else "i")]
-            om = float(om_prior[gi])
+            om = om_prior[gi]
             if om < CRITICAL:
-                out.append(
-                    Coverage(
-                        hy.meter, label, False, math.nan, f"{name}: no other reading predicts it"
-                    )
-                )
-                continue
-            delta = (THRESHOLD + POWER_Z) * float(fit.prior_std[gi]) / math.sqrt(om)
-            if tied:
-                out.append(
-                    Coverage(
-                        hy.meter,
-                        label,
-                        False,
-                        delta,
-                        f"{name}: cannot be told apart from {' or '.join(tied)} on this bench",
-                    )
-                )
-                continue
-            out.append(
-                Coverage(
-                    hy.meter, label, True, delta, f"{name}: detectable beyond ±{100 * delta:.1f} %"
-                )
-            )
+                why = f"{name}: no other reading predicts it"
+                out.append(Coverage(hy.meter, label, False, math.nan, why))
+            elif tied:
+                delta = weak * prior_std[gi] / math.sqrt(om)
+                out.append(Coverage(hy.meter, label, False, delta, cannot))
+            else:
+                delta = weak * prior_std[gi] / math.sqrt(om)
+                why = f"{name}: detectable beyond ±{100 * delta:.1f} %"
+                out.append(Coverage(hy.meter, label, True, delta, why))
             continue
-        strength = math.sqrt(max(float(ts.q[h, h]), 0.0))
-        if ts.q[h, h] <= CRITICAL * max(ts.bb[h], 1e-300) or strength < THRESHOLD + POWER_Z:
+        strength = strengths[h]
+        if critical[h] or strength < weak:
             why = (
                 "too little current in these steps"
-                if ts.bb[h] < 1.0
+                if bb[h] < 1.0
                 else "no other reading predicts it"
             )
             out.append(Coverage(hy.meter, label, False, math.nan, f"{name}: {why}"))
         elif tied:
-            out.append(
-                Coverage(
-                    hy.meter,
-                    label,
-                    False,
-                    math.nan,
-                    f"{name}: cannot be told apart from {' or '.join(tied)} on this bench",
-                )
-            )
+            out.append(Coverage(hy.meter, label, False, math.nan, cannot))
         else:
-            out.append(
-                Coverage(
-                    hy.meter, label, True, math.nan, f"{name}: detectable (strength {strength:.0f})"
-                )
-            )
+            why = f"{name}: detectable (strength {strength:.0f})"
+            out.append(Coverage(hy.meter, label, True, math.nan, why))
     return tuple(out)
 
 

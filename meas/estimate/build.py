@@ -49,6 +49,7 @@ from .weights import ANGLE_MIN_FRAC, ReadingStd, capture_means, gain_std, rated
 KCL_SHARE = 1e-4  # Kirchhoff rows: sigma = this share of the bench's base current (our rule)
 SLOTS = slot_keys(3)
 SLOT_INDEX = {k: i for i, (k, _) in enumerate(SLOTS)}
+_ZEROS = [0.0] * len(SLOTS)
 
 
 @dataclass(frozen=True)
@@ -173,6 +174,8 @@ class Builder:
                 idx = {mp.key: k for k, mp in prm}
                 self.zip[br.id] = (zp, zq, idx.get("p_w", -1), idx.get("q_var", -1))
         self.stds = ReadingStd(profile)
+        self._selected: dict[tuple[object, ...], tuple[np.ndarray, list[str], np.ndarray]] = {}
+        self._rated_of: dict[str, tuple[float, float]] = {}
         self._topo: dict[tuple[tuple[str, str], ...], _Topology | None] = {}
         self.gains: dict[tuple[str, str], int] = {}
         for m in profile.meters:
@@ -277,6 +280,59 @@ class Builder:
         )
         return _Topology(model, node, on, where, free, at_bus)
 
+    def _select(
+        self, m: Meter, vals: Mapping[str, float], drop_current: bool
+    ) -> tuple[np.ndarray, list[str], np.ndarray]:
+        """Which of a meter's readings enter the fit: (slots, their keys, which are angles).
+
+        Angles only where the meter has an angle reference and enough voltage, a current's
+        angle only above ``ANGLE_MIN_FRAC`` of rated current. Memoized on what decides it:
+        every capture of a switch state asks the same question of every meter.
+        """
+        v_n, i_n = self._rated(m)
+        gate = (
+            vals.get("v_ln.A", 0.0) >= 0.1 * v_n,
+            *(vals.get(f"i.{ph}", 0.0) >= ANGLE_MIN_FRAC * i_n for ph in "ABC"),
+        )
+        memo_key = (m.id, drop_current, tuple(vals), gate)
+        hit = self._selected.get(memo_key)
+        if hit is not None:
+            return hit
+        has_ang_ref = "v_ang.B" in vals or "v_ang.C" in vals
+        slots, kk = [], []
+        for key, si in SLOT_INDEX.items():
+            if key not in vals:
+                continue
+            q = key.split(".")[0]
+            if (m.branch is None or drop_current) and q in ("i", "p", "q", "i_ang"):
+                continue
+            if key in ANGLE_SLOTS:
+                if q == "v_ang" and not has_ang_ref:
+                    continue
+                if not gate[0]:
+                    continue
+                if q == "i_ang" and not gate[1 + "ABC".index(key[-1])]:
+                    continue
+            slots.append(si)
+            kk.append(key)
+        out = (
+            np.array(slots, np.int64),
+            kk,
+            np.array([k in ANGLE_SLOTS for k in kk], bool),
+        )
+        out[0].flags.writeable = False  # shared by every capture that selects the same
+        out[2].flags.writeable = False
+        if len(self._selected) >= 4096:  # oldest first: memory stays flat over a long day
+            self._selected.pop(next(iter(self._selected)))
+        self._selected[memo_key] = out
+        return out
+
+    def _rated(self, m: Meter) -> tuple[float, float]:
+        hit = self._rated_of.get(m.id)
+        if hit is None:
+            hit = self._rated_of[m.id] = rated(self.profile, m)
+        return hit
+
     def step(
         self,
         states: Mapping[str, str],
@@ -285,6 +341,8 @@ class Builder:
         k: int,
         out_unverified: list[Unverified],
     ) -> tuple[StepModel | None, list[list[str]], list[str]]:
+        """One capture's terms: the topology of its switch state and a term per meter with
+        readings (the slots it measures, their values and uncertainties)."""
         prof = self.profile
         # a switch without a reading is unknown, as for every other check (meas.network.topology)
         known = {s.id: states.get(s.id, "unknown") for s in prof.switches}
@@ -301,7 +359,7 @@ class Builder:
             return None, [], []
         node, on, where, free, at_bus = topo.node, topo.on, topo.where, topo.free, topo.at_bus
         meters: list[MeterTerm] = []
-        pending: list[tuple[Meter, Current, list[int], list[float], np.ndarray]] = []
+        pending: list[tuple[Meter, Current, np.ndarray, np.ndarray, np.ndarray]] = []
         keys: list[list[str]] = []
         ids: list[str] = []
         for m in prof.meters:
@@ -329,34 +387,16 @@ class Builder:
                         why = "has no model data" if br.model is None else "is a source"
                         current = tuple((kd, idx, end, -1.0) for kd, idx, end in at_bus[m.bus])
                         _ = why
-            slots, z, kk = [], [], []
-            v_n, i_n = rated(prof, m)
-            for key, si in SLOT_INDEX.items():
-                if key not in vals:
-                    continue
-                q = key.split(".")[0]
-                if m.branch is None and q in ("i", "p", "q", "i_ang"):
-                    continue
-                if drop_current and q in ("i", "p", "q", "i_ang"):
-                    continue
-                if key in ANGLE_SLOTS:
-                    if "v_ang.B" not in vals and "v_ang.C" not in vals and q == "v_ang":
-                        continue
-                    if vals.get("v_ln.A", 0.0) < 0.1 * v_n:
-                        continue
-                    if q == "i_ang" and vals.get(f"i.{key[-1]}", 0.0) < ANGLE_MIN_FRAC * i_n:
-                        continue
-                slots.append(si)
-                x = vals[key]
-                z.append(math.radians(x) if key in ANGLE_SLOTS else x)
-                kk.append(key)
+            slots, kk, ang = self._select(m, vals, bool(drop_current))
+            z = np.array(list(map(vals.__getitem__, kk)), float)
+            z[ang] = np.radians(z[ang])
             if drop_current:
                 out_unverified.append(Unverified(m.id, "i, p, q", drop_current, k))
-            if not slots:
+            if not kk:
                 continue
             rep = reps.get(m.id, {})
-            pending.append((m, current, slots, z, np.array([rep.get(key, 0.0) for key in kk])))
-            keys.append(kk)
+            pending.append((m, current, slots, z, np.array(list(map(rep.get, kk, _ZEROS)))))
+            keys.append(list(kk))
             ids.append(m.id)
         sigs = self.stds.many(
             [(m, kk, values[m.id], r) for (m, *_, r), kk in zip(pending, keys, strict=True)]
@@ -369,8 +409,8 @@ class Builder:
                     current,
                     self.gains.get((m.id, "v"), -1),
                     self.gains.get((m.id, "i"), -1),
-                    np.array(slots, np.int64),
-                    np.array(z),
+                    slots,
+                    z,
                     sig,
                 )
             )

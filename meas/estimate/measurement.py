@@ -183,17 +183,13 @@ def phasors(
     return v[pl.v_idx], i.astype(complex)
 
 
-def _widen(pl: StepPlan, d: FArray, ns: int, nc: int) -> FArray:
-    """Compact derivative columns [par_cols | state] into [shared | state]."""
-    out = np.zeros((d.shape[0], nc))
-    npar = len(pl.par_cols)
-    out[:, pl.par_cols] = d[:, :npar]
-    out[:, ns:] = d[:, npar:]
-    return out
-
-
 def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEval:
-    """Weighted residuals and Jacobian of one step (columns [shared | this step's state])."""
+    """Weighted residuals and Jacobian of one step (columns [shared | this step's state]).
+
+    The Jacobian is written into one array, row-weighted as it is filled: at 32 meters it is
+    a few hundred kilobytes, and the copies of the chain rule's intermediate arrays cost more
+    than the algebra.
+    """
     pl = plan_of(step)
     ns, p = len(shared), pl.p
     nc = ns + tc.shape[1]
@@ -203,7 +199,12 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
     cur, dcur = currents(step, pl, v, tc, shared, derivs=True)
     assert dcur is not None
     mm = len(step.meters)
-    rs, js, hs = [], [], []
+    k0 = len(pl.rows)
+    nk = len(step.kcl)
+    at = k0 + 2 * p * nk
+    r = np.empty(at)
+    h = np.empty(at)
+    j = np.zeros((at, nc))
     if mm:
         vm = v[pl.v_idx]
         dvm = np.zeros((mm, p, ncc), complex)
@@ -217,35 +218,33 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
         assert df is not None
         fr = f.reshape(-1)[pl.rows]
         gain, gv, gi = _gains(pl, shared)
-        h = fr * gain
-        dh = _widen(pl, df.reshape(-1, ncc)[pl.rows] * gain[:, None], ns, nc)
-        rr = np.arange(len(fr))
+        hm = fr * gain
+        dr = df.reshape(-1, ncc)[pl.rows]
+        dr *= (gain / pl.sigma)[:, None]
+        j[:k0, pl.par_cols] = dr[:, :npar]
+        j[:k0, ns:] = dr[:, npar:]
+        rr = np.arange(k0)
         sel = pl.gv >= 0
         if sel.any():
             cv = np.where(pl.kind == 0, 1.0, np.where(pl.kind == 2, gi, 0.0))
-            dh[rr[sel], pl.gv[sel]] += (fr * cv)[sel]
+            j[rr[sel], pl.gv[sel]] += (fr * cv / pl.sigma)[sel]
         sel = pl.gi >= 0
         if sel.any():
             ci = np.where(pl.kind == 1, 1.0, np.where(pl.kind == 2, gv, 0.0))
-            dh[rr[sel], pl.gi[sel]] += (fr * ci)[sel]
-        res = pl.z - h
+            j[rr[sel], pl.gi[sel]] += (fr * ci / pl.sigma)[sel]
+        res = pl.z - hm
         a = pl.angle
         res[a] = np.mod(res[a] + math.pi, 2 * math.pi) - math.pi
-        rs.append(res / pl.sigma)
-        js.append(dh / pl.sigma[:, None])
-        hs.append(h)
-    k0 = len(pl.rows)
-    nk = len(step.kcl)
+        r[:k0] = res / pl.sigma
+        h[:k0] = hm
     if nk:
         q = (pl.k_mat @ cur).reshape(nk, 1, p)
         dq = (pl.k_mat @ dcur).reshape(nk, 1, p, ncc)
         val = np.concatenate([q.real, q.imag], axis=1).reshape(-1)
         dval = np.concatenate([dq.real, dq.imag], axis=1).reshape(-1, ncc)
-        rs.append(-val / pl.k_sigma)
-        js.append(_widen(pl, dval / pl.k_sigma[:, None], ns, nc))
-        hs.append(val)
-    at = k0 + 2 * p * nk
-    rows = list(pl.meter_rows)
-    if not rs:
-        return StepEval(np.zeros(0), np.zeros((0, nc)), np.zeros(0), rows, slice(k0, at))
-    return StepEval(np.concatenate(rs), np.vstack(js), np.concatenate(hs), rows, slice(k0, at))
+        dval /= pl.k_sigma[:, None]
+        j[k0:, pl.par_cols] = dval[:, :npar]
+        j[k0:, ns:] = dval[:, npar:]
+        r[k0:] = -val / pl.k_sigma
+        h[k0:] = val
+    return StepEval(r, j, h, list(pl.meter_rows), slice(k0, at))

@@ -16,6 +16,7 @@ Angles are used only above ``ANGLE_MIN_FRAC`` of rated current (our rule).
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -72,61 +73,101 @@ _QUANTITIES = ("v_ln", "v_ll", "i", "p", "q", "i_ang", "v_ang")
 
 
 @dataclass(frozen=True)
-class _Recipe:
-    """Where each reading of one meter's key list finds what its uncertainty depends on."""
+class _Layout:
+    """Where each reading of a list of (meter, keys) finds what its uncertainty depends on.
 
-    res_scale: FArray  # register scale x ratio, NaN without a register
+    Indexes are flat positions in the (meters, slots + 1) matrix of readings whose last
+    column is NaN (a reading that depends on nothing there)."""
+
+    split: IArray  # where each meter's readings end
+    at: IArray  # the reading itself
+    i_at: IArray  # its phase current
+    p_at: IArray
+    q_at: IArray
+    total: IArray  # rows of totals, and their meter
+    total_meter: IArray
+    res_rows: IArray  # rows with a register: its scale x ratio, float or integer
+    res_scale: FArray
     res_float: NDArray[np.bool_]
-    quantity: IArray  # index into ``_QUANTITIES``
-    i_src: IArray  # index into the meter's slot vector of the phase current (-1: none)
-    p_src: IArray
-    q_src: IArray
-    total: NDArray[np.bool_]
+    v_n: FArray
+    i_n: FArray
+    angle: NDArray[np.bool_]
+    groups: tuple[tuple[str, ClassSpec, IArray], ...]  # (quantity, its class, rows)
+
+
+_NS = len(_SLOT_KEYS) + 1
+_NO_KEY = "\0"  # never a reading key: the NaN column
 
 
 class ReadingStd:
     """Standard uncertainty of each reading beyond the meter's gains (the module docstring's
     rules), for all readings of a step at once: class specs, rated values, register
-    resolutions and who-depends-on-what are looked up once per meter and key list; each
-    capture is then arithmetic on arrays."""
+    resolutions and who-depends-on-what are laid out once per list of meters and keys (a
+    session repeats a few); each capture is then arithmetic on arrays."""
+
+    MAX = 256
 
     def __init__(self, profile: Profile):
         self.profile = profile
-        self._meter: dict[str, tuple[float, float, tuple[ClassSpec, ...]]] = {}
-        self._recipes: dict[tuple[str, tuple[str, ...]], _Recipe] = {}
+        self._layouts: dict[tuple[tuple[str, tuple[str, ...]], ...], _Layout] = {}
 
-    def _static(self, meter: Meter) -> tuple[float, float, tuple[ClassSpec, ...]]:
-        hit = self._meter.get(meter.id)
-        if hit is None:
-            v_n, i_n = rated(self.profile, meter)
-            specs = tuple(class_spec(k, getattr(meter.classes, k)) for k in ("v", "i", "p", "q"))
-            hit = self._meter[meter.id] = (v_n, i_n, specs)
-        return hit
-
-    def _recipe(self, meter: Meter, keys: tuple[str, ...]) -> _Recipe:
-        hit = self._recipes.get((meter.id, keys))
+    def _layout(self, items: Sequence[tuple[Meter, tuple[str, ...]]]) -> _Layout:
+        memo = tuple((m.id, k) for m, k in items)
+        hit = self._layouts.get(memo)
         if hit is not None:
             return hit
-        scale, flt = [], []
-        for key in keys:
-            try:
-                spec_reg = self.profile.meter_map(meter.id).spec(key)
-                scale.append(spec_reg.scale * ratio(meter, key))
-                flt.append(spec_reg.dtype.startswith("float"))
-            except KeyError:
-                scale.append(math.nan)
-                flt.append(False)
-        split = [split_key(k) for k in keys]
-        hit = _Recipe(
-            np.array(scale, float),
-            np.array(flt, bool),
-            np.array([_QUANTITIES.index(q) for q, _ in split], np.int64),
-            np.array([_AT.get(f"i.{ph}", -1) for _, ph in split], np.int64),
-            np.array([_AT.get(f"p.{ph}", -1) for _, ph in split], np.int64),
-            np.array([_AT.get(f"q.{ph}", -1) for _, ph in split], np.int64),
-            np.array([ph == "T" for _, ph in split], bool),
+        at, i_at, p_at, q_at, tot, tot_m, counts = [], [], [], [], [], [], []
+        res_rows, res_scale, res_float, v_n, i_n, qty, spec_of = [], [], [], [], [], [], []
+        row = 0
+        for mi, (meter, keys) in enumerate(items):
+            vn, inom = rated(self.profile, meter)
+            specs = {c: class_spec(c, getattr(meter.classes, c)) for c in "vipq"}
+            counts.append(len(keys))
+            base = mi * _NS
+            for key in keys:
+                q, ph = split_key(key)
+                at.append(base + _AT[key])
+                i_at.append(base + _AT.get(f"i.{ph}", _NS - 1))
+                p_at.append(base + _AT.get(f"p.{ph}", _NS - 1))
+                q_at.append(base + _AT.get(f"q.{ph}", _NS - 1))
+                if ph == "T":
+                    tot.append(row)
+                    tot_m.append(mi)
+                try:
+                    reg = self.profile.meter_map(meter.id).spec(key)
+                    res_rows.append(row)
+                    res_scale.append(reg.scale * ratio(meter, key))
+                    res_float.append(reg.dtype.startswith("float"))
+                except KeyError:
+                    pass
+                v_n.append(vn * (SQRT3 if q == "v_ll" else 1.0))
+                i_n.append(inom)
+                qty.append(q)
+                spec_of.append(specs[_CLASS_OF.get(q, "i")])
+                row += 1
+        groups: dict[tuple[str, ClassSpec], list[int]] = {}
+        for r, (q, sp) in enumerate(zip(qty, spec_of, strict=True)):
+            if q != "v_ang":
+                groups.setdefault((q, sp), []).append(r)
+        hit = _Layout(
+            np.cumsum(counts)[:-1],
+            np.array(at, np.int64),
+            np.array(i_at, np.int64),
+            np.array(p_at, np.int64),
+            np.array(q_at, np.int64),
+            np.array(tot, np.int64),
+            np.array(tot_m, np.int64),
+            np.array(res_rows, np.int64),
+            np.array(res_scale, float),
+            np.array(res_float, bool),
+            np.array(v_n, float),
+            np.array(i_n, float),
+            np.array([q in ("i_ang", "v_ang") for q in qty], bool),
+            tuple((q, sp, np.array(rows, np.int64)) for (q, sp), rows in groups.items()),
         )
-        self._recipes[(meter.id, keys)] = hit
+        while len(self._layouts) >= self.MAX:  # oldest first: memory stays flat
+            self._layouts.pop(next(iter(self._layouts)))
+        self._layouts[memo] = hit
         return hit
 
     def __call__(
@@ -141,77 +182,56 @@ class ReadingStd:
         """``__call__`` for several meters: (meter, keys, values, repeatabilities) each."""
         if not items:
             return []
-        nan, ns = math.nan, len(_SLOT_KEYS) + 1
-        recipes = [self._recipe(m, tuple(k)) for m, k, _, _ in items]
-        statics = [self._static(m) for m, _, _, _ in items]
-        counts = [len(k) for _, k, _, _ in items]
-        mi = np.repeat(np.arange(len(items)), counts)
-        slot = np.array(
-            [[vals.get(k, nan) for k in _SLOT_KEYS] + [nan] for _, _, vals, _ in items], float
-        )
-        x = np.array([vals[k] for _, keys, vals, _ in items for k in keys], float)
+        lay = self._layout([(m, tuple(k)) for m, k, _, _ in items])
+        nans = [math.nan] * _NS
+        slot = np.array([list(map(v.get, _SLOT_KEYS_NAN, nans)) for _, _, v, _ in items], float)
+        flat = slot.reshape(-1)
+        x = flat[lay.at]
         rep = np.concatenate([np.asarray(r, float) for _, _, _, r in items])
-
-        def cat(field: str) -> NDArray:
-            return np.concatenate([getattr(rc, field) for rc in recipes])
-
-        qty, tot = cat("quantity"), cat("total")
-        scale, flt = cat("res_scale"), cat("res_float")
-        src = mi * ns
-        i_dep = slot.reshape(-1)[src + np.where(cat("i_src") < 0, ns - 1, cat("i_src"))]
-        p_dep = slot.reshape(-1)[src + np.where(cat("p_src") < 0, ns - 1, cat("p_src"))]
-        q_dep = slot.reshape(-1)[src + np.where(cat("q_src") < 0, ns - 1, cat("q_src"))]
-        if tot.any():
+        i_dep = flat[lay.i_at]
+        if len(lay.total):
             abc = slot[:, 6:9]
             ok = ~np.isnan(abc)
             with np.errstate(invalid="ignore", divide="ignore"):
                 i_tot = np.where(ok, abc, 0.0).sum(1) / ok.sum(1)
-            i_dep[tot] = i_tot[mi[tot]]
-        v_n = np.array([st[0] for st in statics])[mi]
-        i_n = np.array([st[1] for st in statics])[mi]
+            i_dep[lay.total] = i_tot[lay.total_meter]
         res = np.zeros(len(x))
-        has_reg = ~np.isnan(scale)
-        if has_reg.any():
-            res[has_reg] = resolution_limit(scale[has_reg], x[has_reg], flt[has_reg])
+        if len(lay.res_rows):
+            rr = lay.res_rows
+            res[rr] = resolution_limit(lay.res_scale, x[rr], lay.res_float)
         a = np.zeros(len(x))
         u_deg = np.full(len(x), ANGLE_U_DEG)
-        spec_of = [st[2] for st in statics]
-        for specs in dict.fromkeys(spec_of):
-            mine = np.array([sp == specs for sp in spec_of], bool)[mi]
-            sv, si, sp, sq = specs
-            for k, q in enumerate(_QUANTITIES):
-                sel = mine & (qty == k)
-                if not sel.any() or q == "v_ang":
-                    continue
-                if q in ("v_ln", "v_ll"):
-                    a[sel] = magnitude_limit(sv, x[sel], v_n[sel] * (SQRT3 if q == "v_ll" else 1.0))
-                elif q == "i":
-                    a[sel] = magnitude_limit(si, x[sel], i_n[sel])
-                elif q == "i_ang":
-                    i = np.abs(i_dep[sel])
-                    u_i = magnitude_limit(si, i, i_n[sel]) / SQRT3
-                    with np.errstate(invalid="ignore", divide="ignore"):
-                        u_deg[sel] = np.maximum(
-                            ANGLE_U_DEG, np.where(i > 0, np.degrees(u_i / i), 180.0)
-                        )
-                else:
-                    pd, qd = p_dep[sel], q_dep[sel]
-                    s_abs = np.hypot(
-                        np.where(np.isnan(pd), 0.0, pd), np.where(np.isnan(qd), 0.0, qd)
+        for q, spec, rows in lay.groups:
+            xs, i_n = x[rows], lay.i_n[rows]
+            if q in ("v_ln", "v_ll", "i"):
+                a[rows] = magnitude_limit(spec, xs, lay.v_n[rows] if q != "i" else i_n)
+            elif q == "i_ang":
+                i = np.abs(i_dep[rows])
+                u_i = magnitude_limit(spec, i, i_n) / SQRT3
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    u_deg[rows] = np.maximum(
+                        ANGLE_U_DEG, np.where(i > 0, np.degrees(u_i / i), 180.0)
                     )
-                    n = np.where(tot[sel], 3.0, 1.0)
-                    a[sel] = power_limit(
-                        sp if q == "p" else sq,
-                        x[sel],
-                        s_abs,
-                        i_dep[sel] / i_n[sel],
-                        n * v_n[sel] * i_n[sel],
-                        reactive=q == "q",
-                    )
+            else:
+                pd, qd = flat[lay.p_at[rows]], flat[lay.q_at[rows]]
+                s_abs = np.hypot(np.where(np.isnan(pd), 0.0, pd), np.where(np.isnan(qd), 0.0, qd))
+                n = np.ones(len(rows))
+                n[np.isin(rows, lay.total)] = 3.0
+                a[rows] = power_limit(
+                    spec, xs, s_abs, i_dep[rows] / i_n, n * lay.v_n[rows] * i_n, reactive=q == "q"
+                )
         out = np.sqrt((PER_READING_SHARE * a / SQRT3) ** 2 + (res / SQRT3) ** 2 + rep**2)
-        ang = qty >= _QUANTITIES.index("i_ang")
+        ang = lay.angle
         out[ang] = np.radians(np.hypot(u_deg[ang], rep[ang]))
-        return np.split(out, np.cumsum(counts)[:-1])
+        return np.split(out, lay.split)
+
+
+_SLOT_KEYS_NAN = (*_SLOT_KEYS, _NO_KEY)
+
+
+@functools.lru_cache(maxsize=16)
+def _angle_mask(keys: tuple[str, ...]) -> NDArray[np.bool_]:
+    return np.array([split_key(k)[0] in ("i_ang", "v_ang") for k in keys], bool)
 
 
 def capture_means(
@@ -224,22 +244,24 @@ def capture_means(
     about the first snapshot's value (no jump at ±180°).
     """
     nan, ok_q = math.nan, Quality.OK
-    ang = np.array([split_key(k)[0] in ("i_ang", "v_ang") for k in keys], bool)
+    ang = _angle_mask(tuple(keys))
     present = [m for m in meters if all(s.meters.get(m) is not None for s in snaps)]
     values: dict[str, dict[str, float]] = {m: {} for m in meters}
     reps: dict[str, dict[str, float]] = {m: {} for m in meters}
     if not present or not snaps:
         return values, reps
     rows = []
+    nans = [nan] * len(keys)
     for s in snaps:
         for m in present:
             b = s.meters[m]
             vals, qual = b.values, b.quality
-            rows.append([vals.get(k, nan) if qual.get(k) is ok_q else nan for k in keys])
+            row = list(map(vals.get, keys, nans))  # one C loop: this runs per reading
+            if not (vals.keys() <= qual.keys() and list(qual.values()).count(ok_q) == len(qual)):
+                row = [x if qual.get(k) is ok_q else nan for k, x in zip(keys, row, strict=True)]
+            rows.append(row)
     arr = np.array(rows, float).reshape(len(snaps), len(present), len(keys))
-    first = snaps[0].meters
-    known = np.array([[k in first[m].values for k in keys] for m in present], bool)
-    ok = ~np.isnan(arr).any(axis=0) & known
+    ok = ~np.isnan(arr).any(axis=0)  # absent from any snapshot, or not ok in one: NaN there
     if ang.any():
         ref = arr[0][:, ang]
         arr[:, :, ang] = ref + (np.mod(arr[:, :, ang] - ref + 180.0, 360.0) - 180.0)
