@@ -44,12 +44,13 @@ from .core import (
     TwoPortTerm,
     slot_keys,
 )
-from .weights import ANGLE_MIN_FRAC, ReadingStd, capture_means, gain_std, rated
+from .weights import ANGLE_MIN_FRAC, CaptureMeans, ReadingStd, capture_means, gain_std, rated
 
 KCL_SHARE = 1e-4  # Kirchhoff rows: sigma = this share of the bench's base current (our rule)
 SLOTS = slot_keys(3)
 SLOT_INDEX = {k: i for i, (k, _) in enumerate(SLOTS)}
-_ZEROS = [0.0] * len(SLOTS)
+_V_A = SLOT_INDEX["v_ln.A"]
+_I_ABC = tuple(SLOT_INDEX[f"i.{ph}"] for ph in "ABC")
 
 
 @dataclass(frozen=True)
@@ -73,7 +74,6 @@ class Problem:
     keys: list[list[list[str]]]  # step -> meter term -> reading keys (row order)
     meter_ids: list[list[str]]  # step -> meter term -> meter id
     unverified: list[Unverified] = field(default_factory=list)
-    readings: list[dict[str, dict[str, float]]] = field(default_factory=list)
     captures: list[int] = field(default_factory=list)  # step -> index of its capture
 
 
@@ -281,27 +281,28 @@ class Builder:
         return _Topology(model, node, on, where, free, at_bus)
 
     def _select(
-        self, m: Meter, vals: Mapping[str, float], drop_current: bool
+        self, m: Meter, ok: np.ndarray, row: np.ndarray, drop_current: bool
     ) -> tuple[np.ndarray, list[str], np.ndarray]:
         """Which of a meter's readings enter the fit: (slots, their keys, which are angles).
 
-        Angles only where the meter has an angle reference and enough voltage, a current's
-        angle only above ``ANGLE_MIN_FRAC`` of rated current. Memoized on what decides it:
-        every capture of a switch state asks the same question of every meter.
+        ``ok``: which slots have a reading, ``row``: their values (``capture_means``). Angles
+        only where the meter has an angle reference and enough voltage, a current's angle only
+        above ``ANGLE_MIN_FRAC`` of rated current. Memoized on what decides it: every capture
+        of a switch state asks the same question of every meter.
         """
         v_n, i_n = self._rated(m)
         gate = (
-            vals.get("v_ln.A", 0.0) >= 0.1 * v_n,
-            *(vals.get(f"i.{ph}", 0.0) >= ANGLE_MIN_FRAC * i_n for ph in "ABC"),
+            bool(row[_V_A] >= 0.1 * v_n),  # NaN (no reading) compares False
+            *(bool(row[k] >= ANGLE_MIN_FRAC * i_n) for k in _I_ABC),
         )
-        memo_key = (m.id, drop_current, tuple(vals), gate)
+        memo_key = (m.id, drop_current, ok.tobytes(), gate)
         hit = self._selected.get(memo_key)
         if hit is not None:
             return hit
-        has_ang_ref = "v_ang.B" in vals or "v_ang.C" in vals
+        has_ang_ref = bool(ok[SLOT_INDEX["v_ang.B"]] or ok[SLOT_INDEX["v_ang.C"]])
         slots, kk = [], []
         for key, si in SLOT_INDEX.items():
-            if key not in vals:
+            if not ok[si]:
                 continue
             q = key.split(".")[0]
             if (m.branch is None or drop_current) and q in ("i", "p", "q", "i_ang"):
@@ -336,8 +337,7 @@ class Builder:
     def step(
         self,
         states: Mapping[str, str],
-        values: Mapping[str, Mapping[str, float]],
-        reps: Mapping[str, Mapping[str, float]],
+        means: CaptureMeans,
         k: int,
         out_unverified: list[Unverified],
     ) -> tuple[StepModel | None, list[list[str]], list[str]]:
@@ -359,12 +359,13 @@ class Builder:
             return None, [], []
         node, on, where, free, at_bus = topo.node, topo.on, topo.where, topo.free, topo.at_bus
         meters: list[MeterTerm] = []
-        pending: list[tuple[Meter, Current, np.ndarray, np.ndarray, np.ndarray]] = []
+        pending: list[tuple[Meter, Current, np.ndarray, np.ndarray, int]] = []
         keys: list[list[str]] = []
         ids: list[str] = []
+        ok = ~np.isnan(means.mean)
         for m in prof.meters:
-            vals = values.get(m.id)
-            if not vals or m.bus not in node:
+            j = means.rows.get(m.id)
+            if j is None or not ok[j].any() or m.bus not in node:
                 continue
             current: Current = ()
             drop_current = ""
@@ -387,19 +388,23 @@ class Builder:
                         why = "has no model data" if br.model is None else "is a source"
                         current = tuple((kd, idx, end, -1.0) for kd, idx, end in at_bus[m.bus])
                         _ = why
-            slots, kk, ang = self._select(m, vals, bool(drop_current))
-            z = np.array(list(map(vals.__getitem__, kk)), float)
+            slots, kk, ang = self._select(m, ok[j], means.mean[j], bool(drop_current))
+            z = means.mean[j, slots]
             z[ang] = np.radians(z[ang])
             if drop_current:
                 out_unverified.append(Unverified(m.id, "i, p, q", drop_current, k))
             if not kk:
                 continue
-            rep = reps.get(m.id, {})
-            pending.append((m, current, slots, z, np.array(list(map(rep.get, kk, _ZEROS)))))
+            pending.append((m, current, slots, z, j))
             keys.append(list(kk))
             ids.append(m.id)
-        sigs = self.stds.many(
-            [(m, kk, values[m.id], r) for (m, *_, r), kk in zip(pending, keys, strict=True)]
+        at = [j for *_, j in pending]
+        sigs = self.stds.from_slots(
+            [(m, tuple(kk)) for (m, *_), kk in zip(pending, keys, strict=True)],
+            means.mean[at],
+            np.concatenate([means.rep[j, sl] for (_, _, sl, _, j) in pending])
+            if pending
+            else np.zeros(0),
         )
         for (m, current, slots, z, _), sig in zip(pending, sigs, strict=True):
             meters.append(
@@ -423,13 +428,12 @@ class Builder:
         for k, snaps in enumerate(captures):
             if not snaps:
                 continue
-            values, reps = capture_means([m.id for m in self.profile.meters], snaps)
-            st, keys, ids = self.step(dict(snaps[0].switches), values, reps, k, pr.unverified)
+            means = capture_means([m.id for m in self.profile.meters], snaps)
+            st, keys, ids = self.step(dict(snaps[0].switches), means, k, pr.unverified)
             if st is None or not st.meters:
                 continue
             pr.steps.append(st)
             pr.keys.append(keys)
             pr.meter_ids.append(ids)
-            pr.readings.append(values)
             pr.captures.append(k)
         return pr

@@ -15,6 +15,7 @@ one by profile order. A hypothesis with b̃ᵀΩ̃b̃ near 0 is undetectable (a 
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -24,7 +25,7 @@ from numpy.typing import NDArray
 from scipy import sparse
 
 from .core import CArray, FArray, IArray, StepModel
-from .measurement import measured
+from .measurement import measured_variants
 from .plan import plan_of
 from .solver import Fit, meter_phasors, omega_diag
 from .solver import cols_of as _cols
@@ -56,8 +57,16 @@ class Tests:
     q: FArray  # b̃ᵀΩ̃b̃ (H x H)
     bb: FArray  # b̃ᵀb̃ per hypothesis
     gain_index: dict[tuple[str, str], int]
-    b: sparse.csc_matrix | None = None  # the signatures b̃ (rows x H), for other causes' ρ
+    parts: tuple[IArray, IArray, FArray, int] | None = None  # (rows, columns, values, rows in all)
     u: FArray | None = None  # (Jᵀ b̃)ᵀ, (H x n)
+
+    @functools.cached_property
+    def b(self) -> sparse.csc_matrix | None:
+        """The signatures b̃ (rows x H), for other causes' ρ (built when first asked for)."""
+        if self.parts is None:
+            return None
+        rows, cols, vals, m = self.parts
+        return sparse.csc_matrix((vals, (rows, cols)), shape=(m, len(self.hyps)))
 
 
 def weighted_residuals(fit: Fit) -> tuple[FArray, FArray]:
@@ -110,85 +119,135 @@ def tests(
     return out
 
 
-def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], int]) -> Tests:
-    r, j = weighted_residuals(fit)
-    m = len(r)
-    shared = fit.x[: fit.lay.ns]
-    starts = np.cumsum([0] + [len(ev.r) for ev in fit.evals])
-    prior0 = int(starts[-1])
+@dataclass(frozen=True)
+class _Layout:
+    """The hypotheses of a set of meters: built once per set (every capture of a switch state
+    has the same), in the order the statistics are reported."""
+
+    hyps: list[Hypothesis]
+    ratio_h: IArray  # each ratio hypothesis ...
+    ratio_g: IArray  # ... and the shared index of its gain
+    flip0: dict[str, int]  # meter -> its first wiring hypothesis (the six are adjacent)
+    wiring: NDArray[np.bool_]
+
+
+_LAYOUTS: dict[tuple[object, ...], _Layout] = {}
+
+
+def _layout(steps: Sequence[StepModel], gains: dict[tuple[str, str], int]) -> _Layout:
     present = sorted({mt.name for st in steps for mt in st.meters})
     has_current = {mt.name for st in steps for mt in st.meters if mt.gi >= 0}
+    key = (
+        tuple(present),
+        tuple(m in has_current for m in present),
+        tuple(gains.get((m, g), -1) for m in present for g in "vi"),
+    )
+    hit = _LAYOUTS.get(key)
+    if hit is not None:
+        return hit
     hyps: list[Hypothesis] = []
-    col_of: dict[tuple[str, str, str], int] = {}
-    rows: list[IArray] = []
-    cols: list[IArray] = []
-    vals: list[FArray] = []
+    ratio_h, ratio_g = [], []
+    flip0: dict[str, int] = {}
     for mid in present:
         for kind, g in (("vt_ratio", "v"), ("ct_ratio", "i")):
             gi = gains.get((mid, g), -1)
             if gi < 0 or (g == "i" and mid not in has_current):
                 continue
-            rows.append(np.array([prior0 + gi]))
-            cols.append(np.array([len(hyps)]))
-            vals.append(np.ones(1))
+            ratio_h.append(len(hyps))
+            ratio_g.append(gi)
             hyps.append(Hypothesis(mid, kind, ""))
         if mid not in has_current:
             continue
-        for kind, arg in _FLIPS:
-            col_of[(mid, kind, arg)] = len(hyps)
-            hyps.append(Hypothesis(mid, kind, arg))
-    for k, st in enumerate(steps):
-        pl = plan_of(st)
-        with_current = [
-            mi
-            for mi, mt in enumerate(st.meters)
-            if mt.current and (mt.name, "ct_reversed", "A") in col_of
-        ]
-        if not with_current:
-            continue
-        v, i = meter_phasors(fit, steps, k)
-        base = measured(pl, v, i, shared)
-        keep = np.isin(pl.meter_of_row, with_current)
-        lo = int(starts[k])
-        rr = r[lo : lo + len(base)]
-        first = np.array([col_of.get((mt.name, *_FLIPS[0]), -1) for mt in st.meters])
-        for fk, (kind, arg) in enumerate(_FLIPS):
-            d = measured(pl, v, _flip(i, kind, arg), shared) - base
-            a = pl.angle
-            w = d[a] - 2 * math.pi * np.round(d[a] / (2 * math.pi))
-            half = np.abs(w) > 0.9 * math.pi  # a half turn: take the residual's side
-            w[half] = math.pi * np.where(rr[a][half] >= 0, 1.0, -1.0)
-            d[a] = w
-            idx = np.nonzero(keep)[0]
-            hcol = first[pl.meter_of_row[idx]] + fk  # a meter's six flips are adjacent
-            rows.append(lo + idx)
-            cols.append(hcol)
-            vals.append(d[idx] / pl.sigma[idx])
-    h_n = len(hyps)
-    bm = sparse.csc_matrix(
-        (
-            np.concatenate(vals) if vals else np.zeros(0),
-            (
-                np.concatenate(rows) if rows else np.zeros(0, np.int64),
-                np.concatenate(cols) if cols else np.zeros(0, np.int64),
-            ),
-        ),
-        shape=(m, h_n),
+        flip0[mid] = len(hyps)
+        hyps.extend(Hypothesis(mid, kind, arg) for kind, arg in _FLIPS)
+    out = _Layout(
+        hyps,
+        np.array(ratio_h, np.int64),
+        np.array(ratio_g, np.int64),
+        flip0,
+        np.array([hy.kind in ("ct_reversed", "phases_swapped") for hy in hyps], bool),
     )
-    bt = bm.T.tocsr()
-    ut = np.asarray(bt @ j)  # (H, n) = (Jᵀ B)ᵀ
-    q = np.asarray((bt @ bm).todense()) - ut @ fit.ginv @ ut.T
-    br = np.asarray(bt @ r).reshape(-1)
+    while len(_LAYOUTS) >= 64:  # oldest first: memory stays flat over a long day
+        _LAYOUTS.pop(next(iter(_LAYOUTS)))
+    _LAYOUTS[key] = out
+    return out
+
+
+def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], int]) -> Tests:
+    """The statistics as dense arrays: a signature lives on one meter's rows, so b̃ᵀb̃ is
+    block diagonal by meter and Jᵀb̃ a sum over those rows; nothing here needs the whole
+    Jacobian or a sparse matrix (``Tests.b`` is built only for the other causes)."""
+    lay = _layout(steps, gains)
+    hyps, h_n = lay.hyps, len(lay.hyps)
+    r = np.concatenate([ev.r for ev in fit.evals] + [fit.prior_r])
+    shared = fit.x[: fit.lay.ns]
+    starts = np.cumsum([0] + [len(ev.r) for ev in fit.evals])
+    prior0 = int(starts[-1])
+    ut = np.zeros((h_n, fit.lay.n))
+    btb = np.zeros((h_n, h_n))
+    br = np.zeros(h_n)
+    rh, rg = lay.ratio_h, lay.ratio_g
+    ut[rh, rg] = 1.0 / fit.prior_std[rg]  # a ratio's signature is its gain's prior row
+    btb[rh, rh] = 1.0
+    br[rh] = r[prior0 + rg]
+    rows: list[IArray] = [prior0 + rg]
+    cols: list[IArray] = [rh]
+    vals: list[FArray] = [np.ones(len(rh))]
+    six = np.arange(len(_FLIPS))
+    for k, st in enumerate(steps):
+        first = np.array([lay.flip0.get(mt.name, -1) if mt.current else -1 for mt in st.meters])
+        if not len(first) or not (first >= 0).any():
+            continue
+        pl = plan_of(st)
+        v, i = meter_phasors(fit, steps, k)
+        variants = np.stack([i] + [_flip(i, kind, arg) for kind, arg in _FLIPS])
+        model = measured_variants(pl, v, variants, shared)
+        d = model[1:] - model[0]  # (6, R)
+        lo = int(starts[k])
+        a = pl.angle
+        rr = r[lo : lo + model.shape[1]]
+        w = d[:, a] - 2 * math.pi * np.round(d[:, a] / (2 * math.pi))
+        # a half turn: take the residual's side
+        d[:, a] = np.where(np.abs(w) > 0.9 * math.pi, math.pi * np.where(rr[a] >= 0, 1.0, -1.0), w)
+        idx = np.nonzero(first[pl.meter_of_row] >= 0)[0]
+        if not len(idx):
+            continue
+        dv = d[:, idx] / pl.sigma[idx]  # (6, rows of meters with flips)
+        owner = first[pl.meter_of_row[idx]]
+        grp = np.r_[0, np.nonzero(np.diff(owner))[0] + 1]  # rows are meter by meter
+        h0 = owner[grp]  # each group's first flip hypothesis
+        hh = h0[None, :] + six[:, None]  # (6, G)
+        # Jᵀb̃ of every (flip, meter): one sparse product, a row per pair over its meter's rows
+        ev = fit.evals[k]
+        nr = len(idx)
+        ptr = np.r_[(six[:, None] * nr + grp[None, :]).reshape(-1), len(six) * nr]
+        c = sparse.csr_matrix(
+            (dv.reshape(-1), np.tile(idx, len(six)), ptr), (ptr.size - 1, len(ev.r))
+        )
+        ck = _cols(fit, k)[ev.cc]  # the compact columns' places in x
+        pairs = hh.reshape(-1)
+        ut[np.ix_(pairs, ck)] += c @ ev.jc
+        gm = ev.gains[pl.meter_of_row[idx[grp]]]  # each group's meter's two gain columns
+        for s in range(2):
+            has = gm[:, s] >= 0
+            by_gain = np.add.reduceat(dv * ev.gval[idx, s], grp, axis=1)  # (6, G)
+            ut[hh[:, has], gm[has, s]] += by_gain[:, has]
+        blocks = np.add.reduceat(dv[:, None, :] * dv[None, :, :], grp, axis=2)  # (6, 6, G)
+        btb[hh[:, None, :], hh[None, :, :]] += blocks
+        br[hh] += np.add.reduceat(dv * rr[idx], grp, axis=1)
+        rows.append(np.tile(lo + idx, len(six)))
+        cols.append((owner[None, :] + six[:, None]).reshape(-1))
+        vals.append(dv.reshape(-1))
+    q = btb - ut @ fit.ginv @ ut.T
     dq = np.maximum(np.diag(q).copy(), 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         t = np.where(dq > 0, np.abs(br) / np.sqrt(dq), 0.0)
         alpha = np.where(dq > 0, br / dq, 0.0)
-    wiring = np.array([hy.kind in ("ct_reversed", "phases_swapped") for hy in hyps], bool)
     if h_n:
         # the data do not move that way: a sign flip has amplitude one
-        t[wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
-    bb = np.asarray(bm.multiply(bm).sum(axis=0)).reshape(-1)
-    return Tests(hyps, t, alpha, q, bb, dict(gains), bm, ut)
+        t[lay.wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
+    parts = (np.concatenate(rows), np.concatenate(cols), np.concatenate(vals), len(r))
+    return Tests(list(hyps), t, alpha, q, np.diag(btb).copy(), dict(gains), parts, ut)
 
 
 def meters_tied(

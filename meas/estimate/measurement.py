@@ -173,6 +173,15 @@ def measured(pl: StepPlan, v: CArray, i: CArray, shared: FArray) -> FArray:
     return f.reshape(-1)[pl.rows] * gain
 
 
+def measured_variants(pl: StepPlan, v: CArray, variants: CArray, shared: FArray) -> FArray:
+    """``measured`` for several current variants at once: ``variants`` (K, M, p) -> (K, R)."""
+    k = variants.shape[0]
+    vv = np.broadcast_to(v, variants.shape).reshape(-1, pl.p)
+    f, _ = all_slots(pl, vv, None, variants.reshape(-1, pl.p), None)
+    gain, _, _ = _gains(pl, shared)
+    return f.reshape(k, -1)[:, pl.rows] * gain
+
+
 def phasors(
     step: StepModel, pl: StepPlan, tc: CArray, xs: FArray, shared: FArray
 ) -> tuple[CArray, CArray]:
@@ -184,12 +193,8 @@ def phasors(
 
 
 def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEval:
-    """Weighted residuals and Jacobian of one step (columns [shared | this step's state]).
-
-    The Jacobian is written into one array, row-weighted as it is filled: at 32 meters it is
-    a few hundred kilobytes, and the copies of the chain rule's intermediate arrays cost more
-    than the algebra.
-    """
+    """Weighted residuals and Jacobian of one step (columns [shared | this step's state]),
+    the Jacobian as its compact part and its gain part (see ``StepEval``)."""
     pl = plan_of(step)
     ns, p = len(shared), pl.p
     nc = ns + tc.shape[1]
@@ -204,7 +209,8 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
     at = k0 + 2 * p * nk
     r = np.empty(at)
     h = np.empty(at)
-    j = np.zeros((at, nc))
+    jc = np.empty((at, ncc))
+    gval = np.zeros((at, 2))
     if mm:
         vm = v[pl.v_idx]
         dvm = np.zeros((mm, p, ncc), complex)
@@ -219,19 +225,11 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
         fr = f.reshape(-1)[pl.rows]
         gain, gv, gi = _gains(pl, shared)
         hm = fr * gain
-        dr = df.reshape(-1, ncc)[pl.rows]
-        dr *= (gain / pl.sigma)[:, None]
-        j[:k0, pl.par_cols] = dr[:, :npar]
-        j[:k0, ns:] = dr[:, npar:]
-        rr = np.arange(k0)
-        sel = pl.gv >= 0
-        if sel.any():
-            cv = np.where(pl.kind == 0, 1.0, np.where(pl.kind == 2, gi, 0.0))
-            j[rr[sel], pl.gv[sel]] += (fr * cv / pl.sigma)[sel]
-        sel = pl.gi >= 0
-        if sel.any():
-            ci = np.where(pl.kind == 1, 1.0, np.where(pl.kind == 2, gv, 0.0))
-            j[rr[sel], pl.gi[sel]] += (fr * ci / pl.sigma)[sel]
+        np.multiply(df.reshape(-1, ncc)[pl.rows], (gain / pl.sigma)[:, None], out=jc[:k0])
+        cv = np.where(pl.kind == 0, 1.0, np.where(pl.kind == 2, gi, 0.0))
+        ci = np.where(pl.kind == 1, 1.0, np.where(pl.kind == 2, gv, 0.0))
+        gval[:k0, 0] = np.where(pl.gv >= 0, fr * cv / pl.sigma, 0.0)
+        gval[:k0, 1] = np.where(pl.gi >= 0, fr * ci / pl.sigma, 0.0)
         res = pl.z - hm
         a = pl.angle
         res[a] = np.mod(res[a] + math.pi, 2 * math.pi) - math.pi
@@ -242,9 +240,8 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
         dq = (pl.k_mat @ dcur).reshape(nk, 1, p, ncc)
         val = np.concatenate([q.real, q.imag], axis=1).reshape(-1)
         dval = np.concatenate([dq.real, dq.imag], axis=1).reshape(-1, ncc)
-        dval /= pl.k_sigma[:, None]
-        j[k0:, pl.par_cols] = dval[:, :npar]
-        j[k0:, ns:] = dval[:, npar:]
+        np.divide(dval, pl.k_sigma[:, None], out=jc[k0:])
         r[k0:] = -val / pl.k_sigma
         h[k0:] = val
-    return StepEval(r, j, h, list(pl.meter_rows), slice(k0, at))
+    cc = np.r_[pl.par_cols, ns + np.arange(tc.shape[1])]
+    return StepEval(r, h, list(pl.meter_rows), slice(k0, at), jc, cc, pl.meter_gains, gval, nc)

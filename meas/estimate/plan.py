@@ -70,6 +70,7 @@ class StepPlan:
     tp_dterm: IArray  # per two-port parameter: the term, its place in the term, its column
     tp_dparam: IArray
     tp_dcol: IArray
+    meter_gains: IArray  # (M, 2) each meter's voltage and current gain column, -1 none
 
 
 def _current_matrix(terms: list[tuple[Current, FArray | None]], p: int, base: list[int]) -> FArray:
@@ -146,6 +147,7 @@ def build_plan(step: StepModel) -> StepPlan:
         tp_dterm=np.array([k for k, t in enumerate(step.two_ports) for _ in t.params], np.int64),
         tp_dparam=np.array([j for t in step.two_ports for j in range(len(t.params))], np.int64),
         tp_dcol=np.array([par.index(c) for t in step.two_ports for c in t.params], np.int64),
+        meter_gains=np.array([(mt.gv, mt.gi) for mt in ms], np.int64).reshape(len(ms), 2),
     )
 
 

@@ -49,27 +49,47 @@ class Fit:
 
 
 def _assemble(
-    lay: _Layout, evals: list[StepEval], priors: Sequence[Prior], x: FArray
+    lay: _Layout, evals: list[StepEval], prior: tuple[FArray, FArray], x: FArray
 ) -> tuple[float, FArray, FArray, FArray]:
+    """The gain matrix JᵀJ and JᵀR̃ from each step's compact and gain parts (``StepEval``):
+    a meter's rows depend on its own two gains only, so the gain blocks are sums over each
+    meter's rows, and the dense Jacobian (mostly gain columns at 32 meters) is never formed.
+    ``prior``: the priors' means and standard deviations."""
     n, ns = lay.n, lay.ns
     g = np.zeros((n, n))
     b = np.zeros(n)
     cost = 0.0
     for ev, off in zip(evals, lay.offsets, strict=True):
-        jj = ev.j
-        a = jj.T @ jj
-        c = jj.T @ ev.r
-        e = off + jj.shape[1] - ns
-        g[:ns, :ns] += a[:ns, :ns]
-        g[:ns, off:e] += a[:ns, ns:]
-        g[off:e, :ns] += a[ns:, :ns]
-        g[off:e, off:e] += a[ns:, ns:]
-        b[:ns] += c[:ns]
-        b[off:e] += c[ns:]
-        cost += float(ev.r @ ev.r)
-    k = len(priors)
-    mean = np.fromiter((pp.mean for pp in priors), float, k)
-    std = np.fromiter((pp.std for pp in priors), float, k)
+        jc, r = ev.jc, ev.r
+        glob = np.where(ev.cc < ns, ev.cc, off + ev.cc - ns)
+        g[np.ix_(glob, glob)] += jc.T @ jc
+        b[glob] += jc.T @ r
+        cost += float(r @ r)
+        if not ev.meter_rows:
+            continue
+        m_end = ev.meter_rows[-1].stop
+        starts = ev.starts
+        gv = ev.gval[:m_end]
+        jm, rm = jc[:m_end], r[:m_end]
+        cross = np.zeros((ns, len(glob)))  # the gain rows against the compact columns
+        for s in range(2):
+            has = ev.gains[:, s] >= 0
+            if not has.any():
+                continue
+            col = ev.gains[has, s]
+            cross[col] += np.add.reduceat(gv[:, s, None] * jm, starts, axis=0)[has]
+            b[col] += np.add.reduceat(gv[:, s] * rm, starts)[has]
+            g[col, col] += np.add.reduceat(gv[:, s] ** 2, starts)[has]
+        g[:ns, glob] += cross
+        g[glob, :ns] += cross.T
+        both = (ev.gains >= 0).all(axis=1)
+        if both.any():
+            vi = np.add.reduceat(gv[:, 0] * gv[:, 1], starts)[both]
+            cv, ci = ev.gains[both, 0], ev.gains[both, 1]
+            g[cv, ci] += vi
+            g[ci, cv] += vi
+    mean, std = prior
+    k = len(mean)
     pr = (mean - x[:k]) / std
     g[np.arange(k), np.arange(k)] += 1.0 / std**2
     b[:k] += pr / std
@@ -189,13 +209,15 @@ def solve(
     else:
         x = x0.copy()
 
+    prior = (np.array([p.mean for p in priors], float), np.array([p.std for p in priors], float))
+
     def run(xx: FArray) -> tuple[list[StepEval], float, FArray, FArray, FArray]:
         shared = xx[: lay.ns]
         evals = [
             evaluate(st, tc, xx[off : off + tc.shape[1]], shared)
             for st, tc, off in zip(steps, lay.tcs, lay.offsets, strict=True)
         ]
-        cost, g, b, pr = _assemble(lay, evals, priors, xx)
+        cost, g, b, pr = _assemble(lay, evals, prior, xx)
         return evals, cost, g, b, pr
 
     evals, cost, g, b, pr = run(x)
@@ -279,7 +301,7 @@ def solve(
 def cols_of(fit: Fit, k: int) -> IArray:
     ns = fit.lay.ns
     off = fit.lay.offsets[k]
-    return np.r_[np.arange(ns), np.arange(off, off + fit.evals[k].j.shape[1] - ns)]
+    return np.r_[np.arange(ns), np.arange(off, off + fit.evals[k].ncols - ns)]
 
 
 def omega_diag(fit: Fit) -> tuple[list[FArray], FArray]:

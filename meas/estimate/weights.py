@@ -36,6 +36,7 @@ from ..tolerance import (
     power_limit,
     resolution_limit,
 )
+from .core import slot_keys
 
 FArray = NDArray[np.float64]
 IArray = NDArray[np.int64]
@@ -61,11 +62,9 @@ def gain_std(meter: Meter) -> tuple[float, float]:
     return v, i
 
 
-_SLOT_KEYS = (
-    "v_ln.A", "v_ln.B", "v_ln.C", "v_ll.AB", "v_ll.BC", "v_ll.CA", "i.A", "i.B", "i.C",
-    "p.A", "p.B", "p.C", "q.A", "q.B", "q.C", "p.T", "q.T",
-    "i_ang.A", "i_ang.B", "i_ang.C", "v_ang.B", "v_ang.C",
-)  # fmt: skip
+# the estimator's reading slots (one owner: ``core.slot_keys``); a capture's means are laid out
+# in this order, so a slot's index is its column
+_SLOT_KEYS = tuple(k for k, _ in slot_keys(3))
 _AT = {k: j for j, k in enumerate(_SLOT_KEYS)}
 
 
@@ -92,11 +91,10 @@ class _Layout:
     v_n: FArray
     i_n: FArray
     angle: NDArray[np.bool_]
-    groups: tuple[tuple[str, ClassSpec, IArray], ...]  # (quantity, its class, rows)
+    groups: tuple[tuple[str, ClassSpec, IArray, FArray], ...]  # quantity, class, rows, phases
 
 
 _NS = len(_SLOT_KEYS) + 1
-_NO_KEY = "\0"  # never a reading key: the NaN column
 
 
 class ReadingStd:
@@ -163,7 +161,10 @@ class ReadingStd:
             np.array(v_n, float),
             np.array(i_n, float),
             np.array([q in ("i_ang", "v_ang") for q in qty], bool),
-            tuple((q, sp, np.array(rows, np.int64)) for (q, sp), rows in groups.items()),
+            tuple(
+                (q, sp, np.array(rows, np.int64), np.where(np.isin(rows, tot), 3.0, 1.0))
+                for (q, sp), rows in groups.items()
+            ),
         )
         while len(self._layouts) >= self.MAX:  # oldest first: memory stays flat
             self._layouts.pop(next(iter(self._layouts)))
@@ -182,15 +183,27 @@ class ReadingStd:
         """``__call__`` for several meters: (meter, keys, values, repeatabilities) each."""
         if not items:
             return []
-        lay = self._layout([(m, tuple(k)) for m, k, _, _ in items])
-        nans = [math.nan] * _NS
-        slot = np.array([list(map(v.get, _SLOT_KEYS_NAN, nans)) for _, _, v, _ in items], float)
-        flat = slot.reshape(-1)
-        x = flat[lay.at]
+        nans = [math.nan] * len(_SLOT_KEYS)
+        slot = np.array([list(map(v.get, _SLOT_KEYS, nans)) for _, _, v, _ in items], float)
         rep = np.concatenate([np.asarray(r, float) for _, _, _, r in items])
+        return self.from_slots([(m, tuple(k)) for m, k, _, _ in items], slot, rep)
+
+    def from_slots(
+        self, items: Sequence[tuple[Meter, tuple[str, ...]]], slot: FArray, rep: FArray
+    ) -> list[FArray]:
+        """``many`` from a (meters, slots) array of values in ``_SLOT_KEYS`` order (NaN where a
+        meter has none) and the repeatabilities of the listed keys, concatenated."""
+        if not items:
+            return []
+        lay = self._layout(items)
+        full = np.empty((len(items), _NS))
+        full[:, :-1] = slot
+        full[:, -1] = math.nan
+        flat = full.reshape(-1)
+        x = flat[lay.at]
         i_dep = flat[lay.i_at]
         if len(lay.total):
-            abc = slot[:, 6:9]
+            abc = full[:, 6:9]
             ok = ~np.isnan(abc)
             with np.errstate(invalid="ignore", divide="ignore"):
                 i_tot = np.where(ok, abc, 0.0).sum(1) / ok.sum(1)
@@ -201,7 +214,7 @@ class ReadingStd:
             res[rr] = resolution_limit(lay.res_scale, x[rr], lay.res_float)
         a = np.zeros(len(x))
         u_deg = np.full(len(x), ANGLE_U_DEG)
-        for q, spec, rows in lay.groups:
+        for q, spec, rows, n in lay.groups:
             xs, i_n = x[rows], lay.i_n[rows]
             if q in ("v_ln", "v_ll", "i"):
                 a[rows] = magnitude_limit(spec, xs, lay.v_n[rows] if q != "i" else i_n)
@@ -215,8 +228,6 @@ class ReadingStd:
             else:
                 pd, qd = flat[lay.p_at[rows]], flat[lay.q_at[rows]]
                 s_abs = np.hypot(np.where(np.isnan(pd), 0.0, pd), np.where(np.isnan(qd), 0.0, qd))
-                n = np.ones(len(rows))
-                n[np.isin(rows, lay.total)] = 3.0
                 a[rows] = power_limit(
                     spec, xs, s_abs, i_dep[rows] / i_n, n * lay.v_n[rows] * i_n, reactive=q == "q"
                 )
@@ -226,30 +237,45 @@ class ReadingStd:
         return np.split(out, lay.split)
 
 
-_SLOT_KEYS_NAN = (*_SLOT_KEYS, _NO_KEY)
-
-
 @functools.lru_cache(maxsize=16)
 def _angle_mask(keys: tuple[str, ...]) -> NDArray[np.bool_]:
     return np.array([split_key(k)[0] in ("i_ang", "v_ang") for k in keys], bool)
 
 
+@dataclass(frozen=True)
+class CaptureMeans:
+    """One capture's readings per meter: the mean of each ok reading over the snapshots and
+    its repeatability (the standard deviation of the mean), NaN where a reading is missing or
+    not ok in some snapshot. Rows: the meters present in every snapshot; columns: ``keys``."""
+
+    rows: dict[str, int]
+    mean: FArray
+    rep: FArray
+    keys: tuple[str, ...]
+
+    def values(self, meter: str) -> dict[str, float]:
+        """The meter's ok means by key (empty for a meter not in every snapshot)."""
+        j = self.rows.get(meter)
+        if j is None:
+            return {}
+        return {k: v for k, v in zip(self.keys, self.mean[j].tolist(), strict=True) if v == v}
+
+
 def capture_means(
     meters: Sequence[str], snaps: Sequence[Snapshot], keys: Sequence[str] = _SLOT_KEYS
-) -> tuple[dict[str, dict[str, float]], dict[str, dict[str, float]]]:
+) -> CaptureMeans:
     """Per meter, the mean of every ok reading of ``keys`` over the capture and its
-    repeatability (the standard deviation of the mean); all meters at once.
+    repeatability, all meters at once (``CaptureMeans``).
 
     A reading counts only if it is ok in every snapshot of the capture; angles are averaged
     about the first snapshot's value (no jump at ±180°).
     """
     nan, ok_q = math.nan, Quality.OK
-    ang = _angle_mask(tuple(keys))
+    keys = tuple(keys)
+    ang = _angle_mask(keys)
     present = [m for m in meters if all(s.meters.get(m) is not None for s in snaps)]
-    values: dict[str, dict[str, float]] = {m: {} for m in meters}
-    reps: dict[str, dict[str, float]] = {m: {} for m in meters}
     if not present or not snaps:
-        return values, reps
+        return CaptureMeans({}, np.zeros((0, len(keys))), np.zeros((0, len(keys))), keys)
     rows = []
     nans = [nan] * len(keys)
     for s in snaps:
@@ -260,17 +286,12 @@ def capture_means(
             if not (vals.keys() <= qual.keys() and list(qual.values()).count(ok_q) == len(qual)):
                 row = [x if qual.get(k) is ok_q else nan for k, x in zip(keys, row, strict=True)]
             rows.append(row)
+    # absent from a snapshot or not ok in one: NaN there, and so NaN in the mean
     arr = np.array(rows, float).reshape(len(snaps), len(present), len(keys))
-    ok = ~np.isnan(arr).any(axis=0)  # absent from any snapshot, or not ok in one: NaN there
     if ang.any():
         ref = arr[0][:, ang]
         arr[:, :, ang] = ref + (np.mod(arr[:, :, ang] - ref + 180.0, 360.0) - 180.0)
     n = arr.shape[0]
     mean = arr.mean(axis=0)
-    rep = arr.std(axis=0, ddof=1) / math.sqrt(n) if n > 1 else np.zeros(mean.shape)
-    for j, m in enumerate(present):
-        idx: list[int] = np.nonzero(ok[j])[0].tolist()
-        mj, rj = mean[j].tolist(), rep[j].tolist()
-        values[m] = {keys[t]: mj[t] for t in idx}
-        reps[m] = {keys[t]: rj[t] for t in idx}
-    return values, reps
+    rep = arr.std(axis=0, ddof=1) / math.sqrt(n) if n > 1 else np.where(np.isnan(mean), nan, 0.0)
+    return CaptureMeans({m: j for j, m in enumerate(present)}, mean, rep, keys)
