@@ -11,12 +11,14 @@ class-consistent readings, no fault):
   loaded ones again), 8 meters, every step a 3-snapshot capture.
 Targets (issue 11): <= 20 ms per capture at 32 meters, <= 0.5 s per 15-step session.
 Per capture, the estimate is the one every capture gets in a session: the check family's
-(``Estimator(profile, exact=False)``: the fit, the bad-data statistics of every ratio and
-wiring hypothesis, the linearized identification and the coverage table), starting where the
-last capture of the same switch state ended (``meas.estimate.solver.Starts``). Beside it: the
-fit alone; the first capture of a state (no earlier optimum); and the exact estimate with every
-coverage kind, an offset per reading included, which the console's coverage view runs on
-demand. The joint session is the exact estimate written at export.
+(``Estimator(profile, exact=False, coverage=RATIO_KINDS)``: the fit, the bad-data statistics of
+every ratio and wiring hypothesis, the linearized identification and the coverage of the ratio
+kinds, which decide the unverified readings), starting where the last capture of the same
+switch state ended (``meas.estimate.solver.Starts``). Beside it: the fit alone; the first
+capture of a state (no earlier optimum); the linearized estimate with the coverage of every
+kind, which the console's coverage view runs on demand; and the exact estimate with every
+coverage kind, an offset per reading included. The joint session is the exact estimate
+written at export.
 Medians of N runs, each on a fresh capture, with the solver's iterations (``--cpu``: CPU time
 of this process instead of wall time). Sets OPENBLAS_NUM_THREADS=1 (BLAS threads
 oversubscribe a shared machine and slow small dense algebra many times; see bench_solver).
@@ -41,7 +43,7 @@ ROOT = pathlib.Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT / "tests"))
 from support.estimate_bench import as_built, capture, demo, meter_gains, sequence_states  # noqa: E402
 
-from meas.estimate import Estimator  # noqa: E402
+from meas.estimate import RATIO_KINDS, Estimator  # noqa: E402
 from meas.estimate.solver import Starts, solve  # noqa: E402
 from meas.model import Profile  # noqa: E402
 
@@ -105,7 +107,7 @@ def figures(repeat: int = 7, clock=time.perf_counter) -> list[tuple[str, float, 
             for k in range(repeat + 1)
         ]
         # per capture, the check family's estimator (as meas.checks.network.model_fit makes it)
-        est = Estimator(prof, exact=False)
+        est = Estimator(prof, exact=False, coverage=RATIO_KINDS)
         est.run([caps[-1]])  # warm the per-profile caches (topology, weights, last optimum)
         t, e = _time([lambda est=est, c=c: est.run([c]) for c in caps[:-1]], clock)
         rows.append((f"one capture, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
@@ -113,6 +115,10 @@ def figures(repeat: int = 7, clock=time.perf_counter) -> list[tuple[str, float, 
         rows.append((f"  the fit alone, {label}", t, 0.020, f.iterations))  # type: ignore[union-attr]
         t, e = _time([lambda est=est, c=c: _cold(est, [c]) for c in caps[:-1]], clock)
         rows.append((f"  first capture of a state, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
+        every = Estimator(prof, exact=False)
+        every.run([caps[-1]])
+        t, e = _time([lambda est=every, c=c: est.run([c]) for c in caps[:-1]], clock)
+        rows.append((f"  coverage of every kind, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
         full = Estimator(prof)
         full.run([caps[-1]])
         t, e = _time([lambda est=full, c=c: est.run([c]) for c in caps[:-1]], clock)

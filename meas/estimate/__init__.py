@@ -16,18 +16,21 @@ Public API (everything else is internal and may change):
   cannot resolve), ``coverage`` (``Coverage(meter, error_kind, detectable, min_factor,
   reason)``), ``unverified`` (``Unverified(meter, quantity, reason, step)``), ``meters``.
 - ``THRESHOLD``: the normalized statistic above which a finding is made.
+- ``RATIO_KINDS``: the coverage kinds that make readings unverified;
+  ``Estimator(profile, coverage=RATIO_KINDS)`` reports only those (the verdict's part).
 
 Method and defaults: docs/estimator.md. The engine (``core``) also runs textbook
 positive-sequence networks (one node per bus), which is how it is tested against
 Abur & Expósito's example.
 """
 
-from .api import Estimator, estimate
+from .api import RATIO_KINDS, Estimator, estimate
 from .build import Unverified
 from .diagnose import THRESHOLD
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 
 __all__ = [
+    "RATIO_KINDS",
     "THRESHOLD",
     "Coverage",
     "Estimate",

@@ -14,7 +14,7 @@ from scipy.special import chdtri
 from ..model import Profile
 from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
-from .core import StepModel
+from .core import IArray, StepModel
 from .diagnose import (
     CRITICAL,
     POWER_Z,
@@ -35,6 +35,7 @@ from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 from .solver import Fit, Starts, omega_prior, solve
 
 CHI2_P = 0.99
+RATIO_KINDS = frozenset({"vt_ratio", "ct_ratio"})  # the coverage kinds a verdict depends on
 # iterations of one fit: a clean capture takes 3 or 4. A fit with a gross error (a reversed
 # CT) may need many more, and given 100 it sometimes settles in a wrong local minimum whose
 # linear statistics then point at other meters (the meshed fault matrix caught one); at 40
@@ -56,6 +57,10 @@ def _dof(fit: Fit) -> int:
     return int(rows - (fit.lay.n - fit.lay.ns))
 
 
+def _kind(c: Coverage) -> str:
+    return c.error_kind.split(":")[0]
+
+
 def _label(kind: str, arg: str) -> str:
     return f"{kind}:{arg}" if arg else kind
 
@@ -63,15 +68,26 @@ def _label(kind: str, arg: str) -> str:
 class Estimator:
     """The estimator for one profile; build once, run on any list of captures."""
 
-    def __init__(self, profile: Profile, *, max_iter: int = MAX_ITER, exact: bool = True):
+    def __init__(
+        self,
+        profile: Profile,
+        *,
+        max_iter: int = MAX_ITER,
+        exact: bool = True,
+        coverage: frozenset[str] | None = None,
+    ):
         """``max_iter``: see MAX_ITER.
         ``exact=False`` names faults from the linearized statistics alone (one fit, no
         refits: what the per-snapshot check family can afford); a wiring fault is then named
-        on its meter as "wiring" and its kind left to the per-phase wiring checks."""
+        on its meter as "wiring" and its kind left to the per-phase wiring checks.
+        ``coverage``: the error kinds whose coverage the estimate reports (None: every kind).
+        Only the ratio kinds make readings unverified (``RATIO_KINDS``), so a caller that
+        wants the verdict alone, as the per-snapshot check family, asks for those."""
         self.profile = profile
         self.builder = Builder(profile)
         self.max_iter = max_iter
         self.exact = exact
+        self.coverage = coverage
         self.starts = Starts()  # where earlier solves ended, per step structure
 
     def run(self, captures: Sequence[Sequence[Snapshot]]) -> Estimate:
@@ -127,9 +143,11 @@ class Estimator:
         named = {m for f in findings for m in f.meters}
         if cov_fit is not fit0 or ts0 is None:
             ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
-        cov = _coverage(cov_fit, ts0, pr)
-        if self.exact:  # the linearized identification names no offset or frozen meter
-            cov += _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
+        cov = _coverage(cov_fit, ts0, pr, self.coverage)
+        # the linearized identification names no offset or frozen meter
+        if self.exact and (self.coverage is None or self.coverage & set(_MORE)):
+            more = _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
+            cov += tuple(c for c in more if self.coverage is None or _kind(c) in self.coverage)
         return Estimate(
             converged=True,
             why="",
@@ -294,29 +312,37 @@ def _parameters(fit: Fit, pr: Problem) -> tuple[ParameterEstimate, ...]:
     return tuple(out)
 
 
-def _ties(ts: Tests) -> list[list[str]]:
-    """Per hypothesis, the other meters with a hypothesis it cannot be told apart from."""
+def _ties(ts: Tests, rows: IArray) -> list[list[str]]:
+    """Per hypothesis of ``rows``, the other meters with a hypothesis it cannot be told apart
+    from."""
     if not ts.hyps:
         return []
     meters = sorted({hy.meter for hy in ts.hyps})
     mi = np.array([meters.index(hy.meter) for hy in ts.hyps])
-    dq = np.diag(ts.q)
-    close = np.abs(ts.q) >= TIE_RHO * np.sqrt(np.maximum(np.outer(dq, dq), 1e-300))
-    return meters_tied(close & (dq > CRITICAL * ts.bb)[None, :], mi, mi, meters)
+    dq = ts.qd
+    close = np.abs(ts.q_rows(rows)) >= TIE_RHO * np.sqrt(np.maximum(np.outer(dq[rows], dq), 1e-300))
+    return meters_tied(close & (dq > CRITICAL * ts.bb)[None, :], mi[rows], mi, meters)
 
 
-def _coverage(fit: Fit, ts: Tests, pr: Problem) -> tuple[Coverage, ...]:
+def _coverage(
+    fit: Fit, ts: Tests, pr: Problem, kinds: frozenset[str] | None = None
+) -> tuple[Coverage, ...]:
+    """Whether each hypothesis (of ``kinds``; None: all) could show, from what size, and why not."""
     # the array work once, then plain floats: a capture of 32 meters has 256 hypotheses
+    rows = np.array(
+        [h for h, hy in enumerate(ts.hyps) if kinds is None or hy.kind in kinds], np.int64
+    )
     om_prior = omega_prior(fit).tolist()
     prior_std = fit.prior_std.tolist()
-    ties = _ties(ts)
-    qd = np.diag(ts.q)
+    ties = dict(zip(rows.tolist(), _ties(ts, rows), strict=True)) if len(rows) else {}
+    qd = ts.qd
     strengths = np.sqrt(np.maximum(qd, 0.0)).tolist()
     critical = (qd <= CRITICAL * np.maximum(ts.bb, 1e-300)).tolist()
     bb = ts.bb.tolist()
     weak = THRESHOLD + POWER_Z
     out = []
-    for h, hy in enumerate(ts.hyps):
+    for h in rows.tolist():
+        hy = ts.hyps[h]
         label = _label(hy.kind, hy.arg)
         tied = ties[h]
         name = f"{hy.meter} {_NAMES[hy.kind]}" + (f" {hy.arg}" if hy.arg else "")

@@ -49,16 +49,39 @@ class Hypothesis:
 
 @dataclass
 class Tests:
-    """Every hypothesis with its statistic, amplitude and signature correlations."""
+    """Every hypothesis with its statistic, amplitude and signature correlations.
+
+    q = b̃ᵀΩ̃b̃ (H x H) = b̃ᵀb̃ - U G⁻¹ Uᵀ is formed when first asked for, or by the rows asked
+    for (``q_rows``): the per-capture check needs its diagonal and the ratio hypotheses' rows,
+    a quarter of it at 32 meters.
+    """
 
     hyps: list[Hypothesis]
     t: FArray  # statistic T
     alpha: FArray  # fitted amplitude (1 = the whole signature)
-    q: FArray  # b̃ᵀΩ̃b̃ (H x H)
+    qd: FArray  # the diagonal of q: b̃ᵀΩ̃b̃ of each hypothesis
     bb: FArray  # b̃ᵀb̃ per hypothesis
     gain_index: dict[tuple[str, str], int]
     parts: tuple[IArray, IArray, FArray, int] | None = None  # (rows, columns, values, rows in all)
     u: FArray | None = None  # (Jᵀ b̃)ᵀ, (H x n)
+    btb: FArray | None = None  # b̃ᵀb̃ (H x H)
+    uw: FArray | None = None  # U G⁻¹ (H x n)
+    q_whole: FArray | None = None  # q given whole (then the three above are not needed)
+
+    @functools.cached_property
+    def q(self) -> FArray:
+        """b̃ᵀΩ̃b̃ (H x H)."""
+        if self.q_whole is not None:
+            return self.q_whole
+        assert self.btb is not None and self.uw is not None and self.u is not None
+        return self.btb - self.uw @ self.u.T
+
+    def q_rows(self, rows: IArray) -> FArray:
+        """Rows of q, without forming the rest."""
+        if self.q_whole is not None or "q" in self.__dict__:
+            return self.q[rows]
+        assert self.btb is not None and self.uw is not None and self.u is not None
+        return self.btb[rows] - self.uw[rows] @ self.u.T
 
     @functools.cached_property
     def b(self) -> sparse.csc_matrix | None:
@@ -238,8 +261,9 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         rows.append(np.tile(lo + idx, len(six)))
         cols.append((owner[None, :] + six[:, None]).reshape(-1))
         vals.append(dv.reshape(-1))
-    q = btb - ut @ fit.ginv @ ut.T
-    dq = np.maximum(np.diag(q).copy(), 0.0)
+    uw = ut @ fit.ginv
+    qd = btb.diagonal() - np.einsum("ij,ij->i", uw, ut)
+    dq = np.maximum(qd, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         t = np.where(dq > 0, np.abs(br) / np.sqrt(dq), 0.0)
         alpha = np.where(dq > 0, br / dq, 0.0)
@@ -247,7 +271,7 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         # the data do not move that way: a sign flip has amplitude one
         t[lay.wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
     parts = (np.concatenate(rows), np.concatenate(cols), np.concatenate(vals), len(r))
-    return Tests(list(hyps), t, alpha, q, np.diag(btb).copy(), dict(gains), parts, ut)
+    return Tests(list(hyps), t, alpha, qd, np.diag(btb).copy(), dict(gains), parts, ut, btb, uw)
 
 
 def meters_tied(
@@ -270,11 +294,12 @@ def meters_tied(
 def rivals(ts: Tests, h: int) -> list[int]:
     """Hypotheses that explain the data as well as ``h`` (other meters only)."""
     out = []
-    qh = ts.q[h, h]
+    qh = ts.qd[h]
+    row = ts.q_rows(np.array([h]))[0]
     for g, hy in enumerate(ts.hyps):
         if g == h or hy.meter == ts.hyps[h].meter or ts.t[g] <= 0:
             continue
-        rho = abs(ts.q[h, g]) / math.sqrt(max(qh * ts.q[g, g], 1e-300))
+        rho = abs(row[g]) / math.sqrt(max(qh * ts.qd[g], 1e-300))
         if rho >= TIE_RHO or ts.t[g] >= TIE_T * ts.t[h]:
             out.append(g)
     return out

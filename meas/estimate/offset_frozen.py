@@ -67,7 +67,7 @@ class More:
     def rho(self, h: int, ts: Tests) -> tuple[FArray, FArray]:
         """|ρ| of hypothesis ``h`` with every other offset/frozen one and every one of ``ts``."""
         d2 = np.maximum(np.diag(self.q), 1e-300)
-        d1 = np.maximum(np.diag(ts.q), 1e-300) if len(ts.hyps) else np.zeros(0)
+        d1 = np.maximum(ts.qd, 1e-300) if len(ts.hyps) else np.zeros(0)
         own = np.abs(self.q[h]) / np.sqrt(d2[h] * d2)
         other = np.abs(self.cross[h]) / np.sqrt(d2[h] * d1) if len(d1) else np.zeros(0)
         return own, other

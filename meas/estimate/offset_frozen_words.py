@@ -152,7 +152,7 @@ def _tied_all(mo: More, ts: Tests) -> list[list[str]]:
     mine = np.array([at[g.meter] for g in mo.hyps])
     theirs = np.array([at[g.meter] for g in ts.hyps], dtype=np.int64)
     d2 = np.maximum(np.diag(mo.q), 1e-300)
-    d1 = np.maximum(np.diag(ts.q), 1e-300) if ts.hyps else np.zeros(0)
+    d1 = np.maximum(ts.qd, 1e-300) if ts.hyps else np.zeros(0)
     with np.errstate(invalid="ignore"):
         own = np.abs(mo.q) / np.sqrt(np.outer(d2, d2)) >= TIE_RHO
         other = np.abs(mo.cross) / np.sqrt(np.outer(d2, d1)) >= TIE_RHO

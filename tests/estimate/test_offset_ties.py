@@ -47,13 +47,15 @@ def test_ties_of_all_rows_at_once_are_those_of_each_row():
             np.ones(h2),
             {},
         )
+        q1 = (b1 @ b1.T).reshape(h1, h1)
         ts = HypothesisTests(
             [Hypothesis(meters[rng.integers(5)], "ct_ratio", "") for _ in range(h1)],
             np.zeros(h1),
             np.zeros(h1),
-            (b1 @ b1.T).reshape(h1, h1),
+            np.diag(q1).copy(),
             np.ones(h1),
             {},
+            q_whole=q1,
         )
         got = _tied_all(mo, ts)
         for h in range(h2):

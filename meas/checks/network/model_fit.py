@@ -23,7 +23,7 @@ import math
 from collections.abc import Sequence
 
 from ...errors import BenchwalkError
-from ...estimate import THRESHOLD, Estimate, Estimator
+from ...estimate import RATIO_KINDS, THRESHOLD, Estimate, Estimator
 from ...snapshot import Snapshot
 from ..base import FAIL, NA, PASS, WARN, Buckets, fmt, na, result
 from ..layout import Layout
@@ -44,8 +44,9 @@ class ModelFit:
             return
         try:
             # linearized identification: one fit per snapshot (the exact refits of a session
-            # estimate cost seconds per faulty snapshot)
-            self.est = Estimator(lay.profile, exact=False)
+            # estimate cost seconds per faulty snapshot); of the coverage, the ratio kinds
+            # alone: they decide which readings are unverified, the rest is the console's
+            self.est = Estimator(lay.profile, exact=False, coverage=RATIO_KINDS)
         except BenchwalkError as exc:
             self.why = f"the network model cannot be built: {exc}"
 
