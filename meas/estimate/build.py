@@ -34,23 +34,17 @@ from ..network.parameters import ModelParameter, model_parameters
 from ..network.topology import branch_conducts, energization
 from ..snapshot import Snapshot
 from .core import (
-    ANGLE_SLOTS,
     Current,
     KclTerm,
     LoadTerm,
-    MeterTerm,
     Prior,
     StepModel,
     TwoPortTerm,
-    slot_keys,
 )
-from .weights import ANGLE_MIN_FRAC, CaptureMeans, ReadingStd, capture_means, gain_std, rated
+from .meter_terms import MeterTerms, Wiring
+from .weights import CaptureMeans, capture_means, gain_std, rated
 
 KCL_SHARE = 1e-4  # Kirchhoff rows: sigma = this share of the bench's base current (our rule)
-SLOTS = slot_keys(3)
-SLOT_INDEX = {k: i for i, (k, _) in enumerate(SLOTS)}
-_V_A = SLOT_INDEX["v_ln.A"]
-_I_ABC = tuple(SLOT_INDEX[f"i.{ph}"] for ph in "ABC")
 
 
 @dataclass(frozen=True)
@@ -173,9 +167,8 @@ class Builder:
                 zp, zq = _zip_parts(br, self.v_nom[br.from_bus])
                 idx = {mp.key: k for k, mp in prm}
                 self.zip[br.id] = (zp, zq, idx.get("p_w", -1), idx.get("q_var", -1))
-        self.stds = ReadingStd(profile)
-        self._selected: dict[tuple[object, ...], tuple[np.ndarray, list[str], np.ndarray]] = {}
         self._rated_of: dict[str, tuple[float, float]] = {}
+        self.terms = MeterTerms(profile, self._rated)
         self._topo: dict[tuple[tuple[str, str], ...], _Topology | None] = {}
         self.gains: dict[tuple[str, str], int] = {}
         for m in profile.meters:
@@ -280,59 +273,42 @@ class Builder:
         )
         return _Topology(model, node, on, where, free, at_bus)
 
-    def _select(
-        self, m: Meter, ok: np.ndarray, row: np.ndarray, drop_current: bool
-    ) -> tuple[np.ndarray, list[str], np.ndarray]:
-        """Which of a meter's readings enter the fit: (slots, their keys, which are angles).
-
-        ``ok``: which slots have a reading, ``row``: their values (``capture_means``). Angles
-        only where the meter has an angle reference and enough voltage, a current's angle only
-        above ``ANGLE_MIN_FRAC`` of rated current. Memoized on what decides it: every capture
-        of a switch state asks the same question of every meter.
-        """
-        v_n, i_n = self._rated(m)
-        gate = (
-            bool(row[_V_A] >= 0.1 * v_n),  # NaN (no reading) compares False
-            *(bool(row[k] >= ANGLE_MIN_FRAC * i_n) for k in _I_ABC),
-        )
-        memo_key = (m.id, drop_current, ok.tobytes(), gate)
-        hit = self._selected.get(memo_key)
-        if hit is not None:
-            return hit
-        has_ang_ref = bool(ok[SLOT_INDEX["v_ang.B"]] or ok[SLOT_INDEX["v_ang.C"]])
-        slots, kk = [], []
-        for key, si in SLOT_INDEX.items():
-            if not ok[si]:
-                continue
-            q = key.split(".")[0]
-            if (m.branch is None or drop_current) and q in ("i", "p", "q", "i_ang"):
-                continue
-            if key in ANGLE_SLOTS:
-                if q == "v_ang" and not has_ang_ref:
-                    continue
-                if not gate[0]:
-                    continue
-                if q == "i_ang" and not gate[1 + "ABC".index(key[-1])]:
-                    continue
-            slots.append(si)
-            kk.append(key)
-        out = (
-            np.array(slots, np.int64),
-            kk,
-            np.array([k in ANGLE_SLOTS for k in kk], bool),
-        )
-        out[0].flags.writeable = False  # shared by every capture that selects the same
-        out[2].flags.writeable = False
-        if len(self._selected) >= 4096:  # oldest first: memory stays flat over a long day
-            self._selected.pop(next(iter(self._selected)))
-        self._selected[memo_key] = out
-        return out
-
     def _rated(self, m: Meter) -> tuple[float, float]:
         hit = self._rated_of.get(m.id)
         if hit is None:
             hit = self._rated_of[m.id] = rated(self.profile, m)
         return hit
+
+    def _wiring(self, topo: _Topology, m: Meter) -> Wiring | None:
+        """How meter ``m``'s current enters the fit in this topology (None: not live)."""
+        if m.bus not in topo.node:
+            return None
+        node, on, where, free, at_bus = topo.node, topo.on, topo.where, topo.free, topo.at_bus
+        current: Current = ()
+        drop = ""
+        if m.branch is not None:
+            br = self.profile.branch(m.branch)
+            if on[br.id] and br.id in where:
+                kd, idx = where[br.id]
+                end = 0 if kd == "l" or br.from_bus == m.bus else 1
+                current = ((kd, idx, end, 1.0),)
+            elif on[br.id]:
+                # a free injection: checked through Kirchhoff only as its bus's only one
+                others = [f for f in free[m.bus] if f != br.id]
+                if others:
+                    drop = (
+                        f"{m.bus} has another free injection ({', '.join(others)}) besides "
+                        f"{br.id}: no equation checks {m.id}'s current"
+                    )
+                elif not at_bus[m.bus]:
+                    drop = (
+                        f"nothing else at {m.bus} is modelled: no equation checks {m.id}'s current"
+                    )
+                else:
+                    current = tuple((kd, idx, end, -1.0) for kd, idx, end in at_bus[m.bus])
+        v_nodes = (node[m.bus] + np.arange(3)).astype(np.int64)
+        v_nodes.flags.writeable = False
+        return Wiring(current, drop, v_nodes)
 
     def step(
         self,
@@ -342,7 +318,7 @@ class Builder:
         out_unverified: list[Unverified],
     ) -> tuple[StepModel | None, list[list[str]], list[str]]:
         """One capture's terms: the topology of its switch state and a term per meter with
-        readings (the slots it measures, their values and uncertainties)."""
+        readings (``meas.estimate.meter_terms``)."""
         prof = self.profile
         # a switch without a reading is unknown, as for every other check (meas.network.topology)
         known = {s.id: states.get(s.id, "unknown") for s in prof.switches}
@@ -357,70 +333,15 @@ class Builder:
         topo = self._topology(known)
         if topo is None:
             return None, [], []
-        node, on, where, free, at_bus = topo.node, topo.on, topo.where, topo.free, topo.at_bus
-        meters: list[MeterTerm] = []
-        pending: list[tuple[Meter, Current, np.ndarray, np.ndarray, int]] = []
-        keys: list[list[str]] = []
-        ids: list[str] = []
-        ok = ~np.isnan(means.mean)
-        for m in prof.meters:
-            j = means.rows.get(m.id)
-            if j is None or not ok[j].any() or m.bus not in node:
-                continue
-            current: Current = ()
-            drop_current = ""
-            if m.branch is not None:
-                br = prof.branch(m.branch)
-                if on[br.id] and br.id in where:
-                    kd, idx = where[br.id]
-                    end = 0 if kd == "l" or br.from_bus == m.bus else 1
-                    current = ((kd, idx, end, 1.0),)
-                elif on[br.id]:
-                    others = [f for f in free[m.bus] if f != br.id]
-                    if others:
-                        drop_current = (
-                            f"{m.bus} has another free injection ({', '.join(others)}) besides "
-                            f"{br.id}: no equation checks {m.id}'s current"
-                        )
-                    elif not at_bus[m.bus]:
-                        drop_current = f"nothing else at {m.bus} is modelled: no equation checks {m.id}'s current"
-                    else:
-                        why = "has no model data" if br.model is None else "is a source"
-                        current = tuple((kd, idx, end, -1.0) for kd, idx, end in at_bus[m.bus])
-                        _ = why
-            slots, kk, ang = self._select(m, ok[j], means.mean[j], bool(drop_current))
-            z = means.mean[j, slots]
-            z[ang] = np.radians(z[ang])
-            if drop_current:
-                out_unverified.append(Unverified(m.id, "i, p, q", drop_current, k))
-            if not kk:
-                continue
-            pending.append((m, current, slots, z, j))
-            keys.append(list(kk))
-            ids.append(m.id)
-        at = [j for *_, j in pending]
-        sigs = self.stds.from_slots(
-            [(m, tuple(kk)) for (m, *_), kk in zip(pending, keys, strict=True)],
-            means.mean[at],
-            np.concatenate([means.rep[j, sl] for (_, _, sl, _, j) in pending])
-            if pending
-            else np.zeros(0),
+        t = self.terms.template(
+            tuple(sorted(known.items())),
+            means,
+            lambda m: self._wiring(topo, m),
+            lambda m: (self.gains.get((m.id, "v"), -1), self.gains.get((m.id, "i"), -1)),
         )
-        for (m, current, slots, z, _), sig in zip(pending, sigs, strict=True):
-            meters.append(
-                MeterTerm(
-                    m.id,
-                    (node[m.bus] + np.arange(3)).astype(np.int64),
-                    current,
-                    self.gains.get((m.id, "v"), -1),
-                    self.gains.get((m.id, "i"), -1),
-                    slots,
-                    z,
-                    sig,
-                )
-            )
-        model = replace(topo.model, meters=tuple(meters))
-        return model, keys, ids
+        out_unverified.extend(Unverified(mid, "i, p, q", why, k) for mid, why in t.dropped)
+        model = replace(topo.model, meters=self.terms.terms(t, means))
+        return model, [list(kk) for kk in t.keys], [m.id for m in t.meters]
 
     def problem(self, captures: Sequence[Sequence[Snapshot]]) -> Problem:
         """One step per capture (its snapshots share one switch state, the first one's)."""
