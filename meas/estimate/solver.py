@@ -126,6 +126,14 @@ GROSS_REL = 1e-7  # ... and stop once a step lowers the misfit by less than this
 START_REL = 1e-4  # passes that only find a start (the final pass converges to DECREMENT)
 
 
+@dataclass(frozen=True)
+class _Start:
+    two_ports: tuple[object, ...]  # held: its id, in the structure key, stays unique
+    x: FArray
+    ev: StepEval  # the step's evaluation at ``x``
+    sigma: FArray  # the reading uncertainties it was weighted with
+
+
 class Starts:
     """Where earlier solves of a step with the same structure ended: the next one starts there.
 
@@ -133,6 +141,8 @@ class Starts:
     two-ports tuple is the same object) and its meters with their measured slots. Consecutive
     captures of one switch state differ only by noise, so the previous optimum is a start a
     few Gauss-Newton steps from the next, where a flat start needs a first pass of its own.
+    The model values and Jacobian there are the previous solve's last evaluation, reweighted
+    by the new readings' uncertainties (``reweigh``): the first step costs no evaluation.
     The final pass converges to ``DECREMENT`` from any start, so the result does not depend
     on the start (tests/estimate/test_solver_starts.py). Oldest first out, as the other memos.
     """
@@ -140,19 +150,39 @@ class Starts:
     MAX = 64
 
     def __init__(self) -> None:
-        self._at: dict[tuple[object, ...], tuple[tuple[object, ...], FArray]] = {}
+        self._at: dict[tuple[object, ...], _Start] = {}
 
-    def get(self, step: StepModel, n: int) -> FArray | None:
+    def get(self, step: StepModel, n: int) -> tuple[FArray, StepEval] | None:
         hit = self._at.get(structure_key(step))
-        if hit is None or hit[0][0] is not step.two_ports or len(hit[1]) != n:
+        if hit is None or hit.two_ports[0] is not step.two_ports or len(hit.x) != n:
             return None
-        return hit[1].copy()
+        return hit.x.copy(), reweigh(hit.ev, hit.sigma, step)
 
-    def put(self, step: StepModel, x: FArray) -> None:
+    def put(self, step: StepModel, fit: Fit) -> None:
         while len(self._at) >= self.MAX:
             self._at.pop(next(iter(self._at)))
-        # the tuple itself is kept: its id stays unique while it is held here
-        self._at[structure_key(step)] = ((step.two_ports,), x.copy())
+        sigma = plan_of(step).sigma
+        self._at[structure_key(step)] = _Start((step.two_ports,), fit.x.copy(), fit.evals[0], sigma)
+
+
+def reweigh(ev: StepEval, sigma: FArray, step: StepModel) -> StepEval:
+    """``ev``, an evaluation at some point of a step with the same structure and readings
+    weighted by ``sigma``, as the evaluation of ``step`` at that point: the model values and
+    Kirchhoff rows are the same; the readings' residuals and rows take the new values and
+    uncertainties."""
+    pl = plan_of(step)
+    k0 = len(pl.rows)
+    scale = (sigma / pl.sigma)[:, None]
+    jc = ev.jc.copy()
+    jc[:k0] *= scale
+    gval = ev.gval.copy()
+    gval[:k0] *= scale
+    res = pl.z - ev.h[:k0]
+    a = pl.angle
+    res[a] = np.mod(res[a] + np.pi, 2 * np.pi) - np.pi
+    r = ev.r.copy()
+    r[:k0] = res / pl.sigma
+    return StepEval(r, ev.h, ev.meter_rows, ev.kcl_rows, jc, ev.cc, ev.gains, gval, ev.ncols)
 
 
 def _gross(cost: float, evals: Sequence[StepEval], priors: Sequence[Prior]) -> bool:
@@ -170,13 +200,15 @@ def solve(
     x0: FArray | None = None,
     rel: float = 1e-9,
     starts: Starts | None = None,
+    ev0: StepEval | None = None,
 ) -> Fit:
     """Minimise the weighted sum of squares; every shared unknown has a prior (index order).
 
     From a flat start, a first pass leaves out current magnitudes and angles (``_smooth``) and
     the full problem starts from its solution. ``rel``: converged once a step lowers the misfit
     by less than this share; the passes that only find a start use ``START_REL``. ``starts``:
-    a step solved before with the same structure starts where that solve ended (``Starts``).
+    a step solved before with the same structure starts where that solve ended (``Starts``);
+    ``ev0``: the one step's evaluation at ``x0``, when known.
     """
     lay = layout(len(priors), steps)
     reset_admittances()  # the result must not depend on what was solved before (re-checks)
@@ -186,13 +218,14 @@ def solve(
         # same result as a fresh estimator's, whatever was solved before)
         warm = starts.get(steps[0], lay.n)
         if warm is not None:
-            fit = solve(steps, priors, tol=tol, max_iter=max_iter, x0=warm, rel=rel)
+            x_w, ev_w = warm
+            fit = solve(steps, priors, tol=tol, max_iter=max_iter, x0=x_w, rel=rel, ev0=ev_w)
             if fit.converged and not _gross(fit.cost, fit.evals, priors):
-                starts.put(steps[0], fit.x)
+                starts.put(steps[0], fit)
                 return fit
         fit = solve(steps, priors, tol=tol, max_iter=max_iter, rel=rel)
         if fit.converged and not _gross(fit.cost, fit.evals, priors):
-            starts.put(steps[0], fit.x)
+            starts.put(steps[0], fit)
         return fit
     if x0 is None and len(steps) > 1:
         # several steps: start each step's state from its own fit (robust and cheap), the
@@ -230,7 +263,11 @@ def solve(
         cost, g, b, pr = _assemble(lay, evals, prior, xx)
         return evals, cost, g, b, pr
 
-    evals, cost, g, b, pr = run(x)
+    if ev0 is not None and len(steps) == 1:
+        evals = [ev0]
+        cost, g, b, pr = _assemble(lay, evals, prior, x)
+    else:
+        evals, cost, g, b, pr = run(x)
     # Levenberg-Marquardt with Nielsen's damping update (Madsen, Nielsen & Tingleff, Methods
     # for non-linear least squares problems, 2004, §3.2): the damping follows the ratio of the
     # actual to the predicted decrease, so a nearly flat direction (a freed gain against a load

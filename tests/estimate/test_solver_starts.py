@@ -105,3 +105,50 @@ def test_a_reused_plan_evaluates_exactly_as_a_fresh_one(problems):
     back = ev.r[:n] * fresh.sigma + ev.h[:n] - np.concatenate([mt.z for mt in b.meters])
     np.testing.assert_allclose(np.angle(np.exp(1j * back)), 0.0, atol=1e-9)
     assert not np.array_equal(reused.z, plan_of(a).z)
+
+
+def test_a_start_is_evaluated_as_a_fresh_evaluation_there(problems):
+    """A warm solve's first step uses the previous solve's last evaluation, reweighted by the
+    new capture's uncertainties (``solver.reweigh``): it must equal evaluating the new capture
+    at that point, to rounding, or the first step would go somewhere else."""
+    first, second = problems[0], problems[1]
+    starts = Starts()
+    fit = solve(first.steps, first.priors, starts=starts)
+    st = second.steps[0]
+    got = starts.get(st, fit.lay.n)
+    assert got is not None
+    x, ev = got
+    np.testing.assert_array_equal(x, fit.x)
+    lay = solver.layout(len(second.priors), [st])
+    core.reset_admittances()
+    fresh = evaluate(st, lay.tcs[0], x[lay.ns :], x[: lay.ns])
+    # the readings differ between the captures, so the reweighting does something
+    assert not np.allclose(plan_of(st).sigma, plan_of(first.steps[0]).sigma, rtol=1e-6)
+    np.testing.assert_allclose(ev.r, fresh.r, rtol=1e-9, atol=1e-9)
+    np.testing.assert_array_equal(ev.h, fresh.h)
+    # the state and gain columns exactly; the model parameters' columns carry dY/dθ from the
+    # solve's last refresh (within DY_REFRESH of the point, as every step of a solve does)
+    par = plan_of(st).par_cols
+    other = np.setdiff1d(np.arange(fresh.ncols), par)
+    np.testing.assert_allclose(ev.j[:, other], fresh.j[:, other], rtol=1e-9, atol=1e-12)
+    scale = np.abs(fresh.j[:, par]).max(axis=0)
+    assert np.all(np.abs(ev.j[:, par] - fresh.j[:, par]) <= 1e-3 * scale)
+
+
+def test_a_warm_solve_does_not_evaluate_at_its_start(problems, monkeypatch):
+    starts = Starts()
+    solve(problems[0].steps, problems[0].priors, starts=starts)
+    at = []
+    real = solver.evaluate
+
+    def recorded(step, tc, xs, shared):
+        at.append(np.r_[shared, xs])
+        return real(step, tc, xs, shared)
+
+    monkeypatch.setattr(solver, "evaluate", recorded)
+    x0 = starts._at[core.structure_key(problems[1].steps[0])].x.copy()
+    fit = solve(problems[1].steps, problems[1].priors, starts=starts)
+    # the start's model values and Jacobian come from the last solve: evaluations only at
+    # the points the steps reach
+    assert fit.converged and at
+    assert all(not np.array_equal(x, x0) for x in at)
