@@ -380,7 +380,7 @@ def _coverage(
 def _unverified_from(cov: Sequence[Coverage]) -> tuple[Unverified, ...]:
     out = []
     for c in cov:
-        if c.error_kind in ("vt_ratio", "ct_ratio") and not c.detectable:
+        if c.error_kind in RATIO_KINDS and not c.detectable:
             qty = "voltage" if c.error_kind == "vt_ratio" else "current and power"
             out.append(Unverified(c.meter, qty, c.reason))
     return tuple(out)
