@@ -19,7 +19,9 @@ capture of a state (no earlier optimum); the linearized estimate with the covera
 kind, which the console's coverage view runs on demand; and the exact estimate with every
 coverage kind, an offset per reading included. The joint session is the exact estimate
 written at export.
-Medians of N runs, each on a fresh capture, with the solver's iterations (``--cpu``: CPU time
+Each estimator first runs ``WARM`` captures untimed: the steady state of a session, whose
+captures follow one another (the first capture of a state is its own row). Medians of N runs,
+each on a fresh capture, with the solver's iterations (``--cpu``: CPU time
 of this process instead of wall time). Sets OPENBLAS_NUM_THREADS=1 (BLAS threads
 oversubscribe a shared machine and slow small dense algebra many times; see bench_solver).
 """
@@ -47,6 +49,7 @@ from meas.estimate import RATIO_KINDS, Estimator  # noqa: E402
 from meas.estimate.solver import Starts, solve  # noqa: E402
 from meas.model import Profile  # noqa: E402
 
+WARM = 3  # captures run before timing: a session's steady state, not its first moments
 STATE = {
     "CB1": "closed",
     "SW2": "closed",
@@ -104,24 +107,27 @@ def figures(repeat: int = 7, clock=time.perf_counter) -> list[tuple[str, float, 
         gains = meter_gains(prof, 11)
         caps = [
             capture(true, STATE, (), np.random.default_rng(11 + k), gains)
-            for k in range(repeat + 1)
+            for k in range(repeat + WARM)
         ]
         # per capture, the check family's estimator (as meas.checks.network.model_fit makes it)
         est = Estimator(prof, exact=False, coverage=RATIO_KINDS)
-        est.run([caps[-1]])  # warm the per-profile caches (topology, weights, last optimum)
-        t, e = _time([lambda est=est, c=c: est.run([c]) for c in caps[:-1]], clock)
+        for c in caps[repeat:]:  # warm the per-profile caches (topology, weights, last optimum)
+            est.run([c])
+        t, e = _time([lambda est=est, c=c: est.run([c]) for c in caps[:repeat]], clock)
         rows.append((f"one capture, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
-        t, f = _time([lambda est=est, c=c: _fit(est, [c]) for c in caps[:-1]], clock)
+        t, f = _time([lambda est=est, c=c: _fit(est, [c]) for c in caps[:repeat]], clock)
         rows.append((f"  the fit alone, {label}", t, 0.020, f.iterations))  # type: ignore[union-attr]
-        t, e = _time([lambda est=est, c=c: _cold(est, [c]) for c in caps[:-1]], clock)
+        t, e = _time([lambda est=est, c=c: _cold(est, [c]) for c in caps[:repeat]], clock)
         rows.append((f"  first capture of a state, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
         every = Estimator(prof, exact=False)
-        every.run([caps[-1]])
-        t, e = _time([lambda est=every, c=c: est.run([c]) for c in caps[:-1]], clock)
+        for c in caps[repeat:]:
+            every.run([c])
+        t, e = _time([lambda est=every, c=c: est.run([c]) for c in caps[:repeat]], clock)
         rows.append((f"  coverage of every kind, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
         full = Estimator(prof)
-        full.run([caps[-1]])
-        t, e = _time([lambda est=full, c=c: est.run([c]) for c in caps[:-1]], clock)
+        for c in caps[repeat:]:
+            full.run([c])
+        t, e = _time([lambda est=full, c=c: est.run([c]) for c in caps[:repeat]], clock)
         rows.append((f"  exact, every coverage kind, {label}", t, 0.020, e.iterations))  # type: ignore[union-attr]
     true = as_built(base, 11)
     gains = meter_gains(base, 11)
