@@ -166,15 +166,9 @@ def _gains(pl: StepPlan, shared: FArray) -> tuple[FArray, FArray, FArray]:
     return table[pl.kind, np.arange(len(pl.kind))], gv, gi
 
 
-def measured(pl: StepPlan, v: CArray, i: CArray, shared: FArray) -> FArray:
-    """The measured rows' model values for phasors ``v`` and ``i`` (M, p), gains applied."""
-    f, _ = all_slots(pl, v, None, i, None)
-    gain, _, _ = _gains(pl, shared)
-    return f.reshape(-1)[pl.rows] * gain
-
-
 def measured_variants(pl: StepPlan, v: CArray, variants: CArray, shared: FArray) -> FArray:
-    """``measured`` for several current variants at once: ``variants`` (K, M, p) -> (K, R)."""
+    """The measured rows' model values, gains applied, for the meters' voltages ``v`` (M, p)
+    and several variants of their currents at once: ``variants`` (K, M, p) -> (K, R)."""
     k = variants.shape[0]
     vv = np.broadcast_to(v, variants.shape).reshape(-1, pl.p)
     f, _ = all_slots(pl, vv, None, variants.reshape(-1, pl.p), None)

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import functools
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -171,28 +171,13 @@ class ReadingStd:
         self._layouts[memo] = hit
         return hit
 
-    def __call__(
-        self, meter: Meter, keys: Sequence[str], vals: Mapping[str, float], reps: FArray
-    ) -> FArray:
-        """The standard uncertainty of each of ``keys`` of one meter."""
-        return self.many([(meter, keys, vals, reps)])[0]
-
-    def many(
-        self, items: Sequence[tuple[Meter, Sequence[str], Mapping[str, float], FArray]]
-    ) -> list[FArray]:
-        """``__call__`` for several meters: (meter, keys, values, repeatabilities) each."""
-        if not items:
-            return []
-        nans = [math.nan] * len(_SLOT_KEYS)
-        slot = np.array([list(map(v.get, _SLOT_KEYS, nans)) for _, _, v, _ in items], float)
-        rep = np.concatenate([np.asarray(r, float) for _, _, _, r in items])
-        return self.from_slots([(m, tuple(k)) for m, k, _, _ in items], slot, rep)
-
     def from_slots(
         self, items: Sequence[tuple[Meter, tuple[str, ...]]], slot: FArray, rep: FArray
     ) -> list[FArray]:
-        """``many`` from a (meters, slots) array of values in ``_SLOT_KEYS`` order (NaN where a
-        meter has none) and the repeatabilities of the listed keys, concatenated."""
+        """The standard uncertainty of each listed reading of each meter: ``items`` are
+        (meter, keys), ``slot`` their (meters, slots) values in ``_SLOT_KEYS`` order (NaN
+        where a meter has none), ``rep`` the repeatabilities of the listed keys, concatenated.
+        Returns one array per meter."""
         if not items:
             return []
         lay = self._layout(items)
