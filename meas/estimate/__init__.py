@@ -24,8 +24,9 @@ positive-sequence networks (one node per bus), which is how it is tested against
 Abur & Expósito's example.
 """
 
-from .api import RATIO_KINDS, Estimator, estimate
+from .api import Estimator, estimate
 from .build import Unverified
+from .coverage import RATIO_KINDS
 from .diagnose import THRESHOLD
 from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
 

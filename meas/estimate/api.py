@@ -6,36 +6,24 @@ import math
 from collections.abc import Sequence
 from dataclasses import replace
 
-import numpy as np
-
 # chi2.ppf(p, k) = chdtri(k, 1 - p): scipy.stats costs a second to import
 from scipy.special import chdtri
 
 from ..model import Profile
 from ..snapshot import Snapshot
 from .build import Builder, Problem, Unverified
-from .core import IArray, StepModel
-from .diagnose import (
-    CRITICAL,
-    POWER_Z,
-    THRESHOLD,
-    TIE_RHO,
-    Tests,
-    gain_from_data,
-    meters_tied,
-    rivals,
-    tests,
-)
+from .core import StepModel
+from .coverage import NAMES, coverage, kind_of, label, unverified_from
+from .diagnose import THRESHOLD, Tests, gain_from_data, rivals, tests
 from .identify import TRIAL_ITER, Trial, best_trial, suspects, trials
 from .offset_frozen import NAMES as _MORE
 from .offset_frozen import peak
 from .offset_frozen_words import coverage as _more_coverage
 from .offset_frozen_words import sentence as _more_sentence
-from .results import Coverage, Estimate, Finding, MeterGain, ParameterEstimate
-from .solver import Fit, Starts, omega_prior, solve
+from .results import Estimate, Finding, MeterGain, ParameterEstimate
+from .solver import Fit, Starts, solve
 
 CHI2_P = 0.99
-RATIO_KINDS = frozenset({"vt_ratio", "ct_ratio"})  # the coverage kinds a verdict depends on
 # iterations of one fit: a clean capture takes 3 or 4. A fit with a gross error (a reversed
 # CT) may need many more, and given 100 it sometimes settles in a wrong local minimum whose
 # linear statistics then point at other meters (the meshed fault matrix caught one); at 40
@@ -43,26 +31,11 @@ RATIO_KINDS = frozenset({"vt_ratio", "ct_ratio"})  # the coverage kinds a verdic
 # meter instead, and the per-snapshot family says "not checked" rather than blame a meter
 MAX_ITER = 40
 MAX_FINDINGS = 1  # one fault named per estimate: a second could be the first one misread
-_NAMES = {
-    "vt_ratio": "VT ratio",
-    "ct_ratio": "CT ratio",
-    "ct_reversed": "reversed CT",
-    "phases_swapped": "swapped current inputs",
-    **_MORE,
-}
 
 
 def _dof(fit: Fit) -> int:
     rows = sum(len(ev.r) for ev in fit.evals)
     return int(rows - (fit.lay.n - fit.lay.ns))
-
-
-def _kind(c: Coverage) -> str:
-    return c.error_kind.split(":")[0]
-
-
-def _label(kind: str, arg: str) -> str:
-    return f"{kind}:{arg}" if arg else kind
 
 
 class Estimator:
@@ -143,11 +116,11 @@ class Estimator:
         named = {m for f in findings for m in f.meters}
         if cov_fit is not fit0 or ts0 is None:
             ts0 = tests(cov_fit, cov_steps, cov_keys, pr.gains)
-        cov = _coverage(cov_fit, ts0, pr, self.coverage)
+        cov = coverage(cov_fit, ts0, self.coverage)
         # the linearized identification names no offset or frozen meter
         if self.exact and (self.coverage is None or self.coverage & set(_MORE)):
             more = _more_coverage(cov_fit, cov_steps, cov_keys, ts0)
-            cov += tuple(c for c in more if self.coverage is None or _kind(c) in self.coverage)
+            cov += tuple(c for c in more if self.coverage is None or kind_of(c) in self.coverage)
         return Estimate(
             converged=True,
             why="",
@@ -160,7 +133,7 @@ class Estimator:
             parameters=_parameters(fit, pr),
             findings=tuple(findings),
             coverage=cov,
-            unverified=tuple(pr.unverified) + _unverified_from(cov),
+            unverified=tuple(pr.unverified) + unverified_from(cov),
             meters=tuple(sorted({mt.name for st in pr.steps for mt in st.meters})),
         )
 
@@ -178,16 +151,14 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
     if rv:
         meters = tuple(sorted({top.meter} | {t.meter for t in rv}))
         what = ", ".join(
-            f"{t.meter} ({_NAMES[t.kind]}{' ' + t.arg if t.arg else ''})" for t in [top, *rv]
+            f"{t.meter} ({NAMES[t.kind]}{' ' + t.arg if t.arg else ''})" for t in [top, *rv]
         )
         sentence = (
             f"{' or '.join(meters)}: cannot be told apart on this bench ({what} explain the "
             "readings equally well); another meter on the same flow, or a step that loads it "
             "differently, would tell"
         )
-        return Finding(
-            meters, "ambiguous:" + _label(top.kind, top.arg), sentence, figure, THRESHOLD
-        )
+        return Finding(meters, "ambiguous:" + label(top.kind, top.arg), sentence, figure, THRESHOLD)
     m = top.meter
     if top.kind in _MORE:
         cause, sentence = _more_sentence(top, pr)
@@ -199,7 +170,7 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
         cause = f"{top.kind}:{k:.3f}"
         sentence = (
             f"{m}: {what} {k:.3f} ± {sd:.3f} of what the network implies: the "
-            f"{_NAMES[top.kind]} looks set wrong by a factor {k:.2f}"
+            f"{NAMES[top.kind]} looks set wrong by a factor {k:.2f}"
         )
     elif top.kind == "ct_reversed":
         cause = f"ct_reversed:{top.arg}"
@@ -214,7 +185,7 @@ def _finding(base: Fit, top: Trial, rv: list[Trial], same: list[Trial], pr: Prob
             "should: the current inputs look swapped"
         )
     if same:
-        alt = " or ".join(sorted({_NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same}))
+        alt = " or ".join(sorted({NAMES[t.kind] + (f" {t.arg}" if t.arg else "") for t in same}))
         sentence += f" (a {alt} fits about as well)"
     return Finding((m,), cause, sentence, figure, THRESHOLD)
 
@@ -237,7 +208,7 @@ def _identify_linear(fit: Fit, ts: Tests, pr: Problem) -> Finding | None:
             "readings as well); another meter on the same flow, or a step that loads it "
             "differently, would tell"
         )
-        return Finding(meters, "ambiguous:" + _label(hy.kind, hy.arg), sentence, figure, THRESHOLD)
+        return Finding(meters, "ambiguous:" + label(hy.kind, hy.arg), sentence, figure, THRESHOLD)
     wiring = max(
         (
             float(ts.t[g])
@@ -256,7 +227,7 @@ def _identify_linear(fit: Fit, ts: Tests, pr: Problem) -> Finding | None:
                 (hy.meter,),
                 f"{hy.kind}:{k:.3f}",
                 f"{hy.meter}: {what} {k:.3f} ± {sd:.3f} of what the network implies: the "
-                f"{_NAMES[hy.kind]} looks set wrong by a factor {k:.2f}",
+                f"{NAMES[hy.kind]} looks set wrong by a factor {k:.2f}",
                 figure,
                 THRESHOLD,
             )
@@ -309,80 +280,6 @@ def _parameters(fit: Fit, pr: Problem) -> tuple[ParameterEstimate, ...]:
         x, s = float(fit.x[k]), math.sqrt(max(float(fit.ginv[k, k]), 0.0))
         scale = 1.0 if mp.scale == "absolute" else mp.nominal
         out.append(ParameterEstimate(mp.name, mp.nominal, x * scale, s * abs(scale), mp.std))
-    return tuple(out)
-
-
-def _ties(ts: Tests, rows: IArray) -> list[list[str]]:
-    """Per hypothesis of ``rows``, the other meters with a hypothesis it cannot be told apart
-    from."""
-    if not ts.hyps:
-        return []
-    meters = sorted({hy.meter for hy in ts.hyps})
-    mi = np.array([meters.index(hy.meter) for hy in ts.hyps])
-    dq = ts.qd
-    close = np.abs(ts.q_rows(rows)) >= TIE_RHO * np.sqrt(np.maximum(np.outer(dq[rows], dq), 1e-300))
-    return meters_tied(close & (dq > CRITICAL * ts.bb)[None, :], mi[rows], mi, meters)
-
-
-def _coverage(
-    fit: Fit, ts: Tests, pr: Problem, kinds: frozenset[str] | None = None
-) -> tuple[Coverage, ...]:
-    """Whether each hypothesis (of ``kinds``; None: all) could show, from what size, and why not."""
-    # the array work once, then plain floats: a capture of 32 meters has 256 hypotheses
-    rows = np.array(
-        [h for h, hy in enumerate(ts.hyps) if kinds is None or hy.kind in kinds], np.int64
-    )
-    om_prior = omega_prior(fit).tolist()
-    prior_std = fit.prior_std.tolist()
-    ties = dict(zip(rows.tolist(), _ties(ts, rows), strict=True)) if len(rows) else {}
-    qd = ts.qd
-    strengths = np.sqrt(np.maximum(qd, 0.0)).tolist()
-    critical = (qd <= CRITICAL * np.maximum(ts.bb, 1e-300)).tolist()
-    bb = ts.bb.tolist()
-    weak = THRESHOLD + POWER_Z
-    out = []
-    for h in rows.tolist():
-        hy = ts.hyps[h]
-        label = _label(hy.kind, hy.arg)
-        tied = ties[h]
-        name = f"{hy.meter} {_NAMES[hy.kind]}" + (f" {hy.arg}" if hy.arg else "")
-        cannot = f"{name}: cannot be told apart from {' or '.join(tied)} on this bench"
-        if hy.kind in ("vt_ratio", "ct_ratio"):
-            gi = ts.gain_index[(hy.meter, "v" if hy.kind == "vt_ratio" else "i")]
-            om = om_prior[gi]
-            if om < CRITICAL:
-                why = f"{name}: no other reading predicts it"
-                out.append(Coverage(hy.meter, label, False, math.nan, why))
-            elif tied:
-                delta = weak * prior_std[gi] / math.sqrt(om)
-                out.append(Coverage(hy.meter, label, False, delta, cannot))
-            else:
-                delta = weak * prior_std[gi] / math.sqrt(om)
-                why = f"{name}: detectable beyond ±{100 * delta:.1f} %"
-                out.append(Coverage(hy.meter, label, True, delta, why))
-            continue
-        strength = strengths[h]
-        if critical[h] or strength < weak:
-            why = (
-                "too little current in these steps"
-                if bb[h] < 1.0
-                else "no other reading predicts it"
-            )
-            out.append(Coverage(hy.meter, label, False, math.nan, f"{name}: {why}"))
-        elif tied:
-            out.append(Coverage(hy.meter, label, False, math.nan, cannot))
-        else:
-            why = f"{name}: detectable (strength {strength:.0f})"
-            out.append(Coverage(hy.meter, label, True, math.nan, why))
-    return tuple(out)
-
-
-def _unverified_from(cov: Sequence[Coverage]) -> tuple[Unverified, ...]:
-    out = []
-    for c in cov:
-        if c.error_kind in RATIO_KINDS and not c.detectable:
-            qty = "voltage" if c.error_kind == "vt_ratio" else "current and power"
-            out.append(Unverified(c.meter, qty, c.reason))
     return tuple(out)
 
 
