@@ -262,7 +262,8 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         cols.append((owner[None, :] + six[:, None]).reshape(-1))
         vals.append(dv.reshape(-1))
     uw = ut @ fit.ginv
-    qd = btb.diagonal() - np.einsum("ij,ij->i", uw, ut)
+    bb = btb.diagonal().copy()
+    qd = bb - np.einsum("ij,ij->i", uw, ut)
     dq = np.maximum(qd, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         t = np.where(dq > 0, np.abs(br) / np.sqrt(dq), 0.0)
@@ -271,7 +272,7 @@ def _tests(fit: Fit, steps: Sequence[StepModel], gains: dict[tuple[str, str], in
         # the data do not move that way: a sign flip has amplitude one
         t[lay.wiring & ~((alpha > 0.3) & (alpha < 2.0))] = 0.0
     parts = (np.concatenate(rows), np.concatenate(cols), np.concatenate(vals), len(r))
-    return Tests(list(hyps), t, alpha, qd, np.diag(btb).copy(), dict(gains), parts, ut, btb, uw)
+    return Tests(list(hyps), t, alpha, qd, bb, dict(gains), parts, ut, btb, uw)
 
 
 def meters_tied(

@@ -186,6 +186,14 @@ def phasors(
     return v[pl.v_idx], i.astype(complex)
 
 
+def reading_residuals(pl: StepPlan, h: FArray) -> FArray:
+    """(z - h) / σ of the measured rows, angles wrapped to ±π."""
+    res = pl.z - h
+    a = pl.angle
+    res[a] = np.mod(res[a] + math.pi, 2 * math.pi) - math.pi
+    return res / pl.sigma
+
+
 def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEval:
     """Weighted residuals and Jacobian of one step (columns [shared | this step's state]),
     the Jacobian as its compact part and its gain part (see ``StepEval``)."""
@@ -224,10 +232,7 @@ def evaluate(step: StepModel, tc: CArray, xs: FArray, shared: FArray) -> StepEva
         ci = np.where(pl.kind == 1, 1.0, np.where(pl.kind == 2, gv, 0.0))
         gval[:k0, 0] = np.where(pl.gv >= 0, fr * cv / pl.sigma, 0.0)
         gval[:k0, 1] = np.where(pl.gi >= 0, fr * ci / pl.sigma, 0.0)
-        res = pl.z - hm
-        a = pl.angle
-        res[a] = np.mod(res[a] + math.pi, 2 * math.pi) - math.pi
-        r[:k0] = res / pl.sigma
+        r[:k0] = reading_residuals(pl, hm)
         h[:k0] = hm
     if nk:
         q = (pl.k_mat @ cur).reshape(nk, 1, p)

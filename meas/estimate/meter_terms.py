@@ -22,11 +22,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..model import Meter, Profile
-from .core import ANGLE_SLOTS, Current, MeterTerm, slot_keys
-from .weights import ANGLE_MIN_FRAC, CaptureMeans, ReadingStd
+from .core import ANGLE_SLOTS, Current, MeterTerm
+from .weights import ANGLE_MIN_FRAC, SLOT_INDEX, SLOT_KEYS, CaptureMeans, ReadingStd
 
-SLOTS = tuple(k for k, _ in slot_keys(3))
-SLOT_INDEX = {k: i for i, k in enumerate(SLOTS)}
 _V_A = SLOT_INDEX["v_ln.A"]
 _I_ABC = [SLOT_INDEX[f"i.{ph}"] for ph in "ABC"]
 _CURRENT_QUANTITIES = ("i", "p", "q", "i_ang")
@@ -68,7 +66,7 @@ def select(m: Meter, ok: NDArray[np.bool_], gate: Sequence[bool], drop: bool) ->
     """
     has_ang_ref = bool(ok[_V_ANG_REF].any())
     out = []
-    for si, key in enumerate(SLOTS):
+    for si, key in enumerate(SLOT_KEYS):
         if not ok[si]:
             continue
         q = key.split(".")[0]
@@ -137,7 +135,7 @@ class MeterTerms:
             wires.append(w)
             gain.append(gains(m))
             slots.append(np.array(sl, np.int64))
-            keys.append(tuple(SLOTS[s] for s in sl))
+            keys.append(tuple(SLOT_KEYS[s] for s in sl))
         at = np.array([means.rows[m.id] for m in meters], np.int64)
         counts = [len(s) for s in slots]
         cols = np.concatenate(slots) if slots else np.zeros(0, np.int64)
@@ -149,7 +147,7 @@ class MeterTerms:
             tuple(keys),
             np.repeat(at, counts),
             cols,
-            np.array([SLOTS[c] in ANGLE_SLOTS for c in cols.tolist()], bool),
+            np.array([SLOT_KEYS[c] in ANGLE_SLOTS for c in cols.tolist()], bool),
             np.cumsum(counts)[:-1],
             at,
             tuple(dropped),

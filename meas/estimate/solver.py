@@ -29,7 +29,7 @@ from .core import (
     reset_admittances,
     structure_key,
 )
-from .measurement import evaluate, phasors
+from .measurement import evaluate, phasors, reading_residuals
 from .plan import SMOOTH_OK, plan_of
 
 
@@ -177,11 +177,8 @@ def reweigh(ev: StepEval, sigma: FArray, step: StepModel) -> StepEval:
     jc[:k0] *= scale
     gval = ev.gval.copy()
     gval[:k0] *= scale
-    res = pl.z - ev.h[:k0]
-    a = pl.angle
-    res[a] = np.mod(res[a] + np.pi, 2 * np.pi) - np.pi
     r = ev.r.copy()
-    r[:k0] = res / pl.sigma
+    r[:k0] = reading_residuals(pl, ev.h[:k0])
     return StepEval(r, ev.h, ev.meter_rows, ev.kcl_rows, jc, ev.cc, ev.gains, gval, ev.ncols)
 
 

@@ -64,11 +64,8 @@ def gain_std(meter: Meter) -> tuple[float, float]:
 
 # the estimator's reading slots (one owner: ``core.slot_keys``); a capture's means are laid out
 # in this order, so a slot's index is its column
-_SLOT_KEYS = tuple(k for k, _ in slot_keys(3))
-_AT = {k: j for j, k in enumerate(_SLOT_KEYS)}
-
-
-_QUANTITIES = ("v_ln", "v_ll", "i", "p", "q", "i_ang", "v_ang")
+SLOT_KEYS = tuple(k for k, _ in slot_keys(3))
+SLOT_INDEX = {k: j for j, k in enumerate(SLOT_KEYS)}
 
 
 @dataclass(frozen=True)
@@ -94,7 +91,7 @@ class _Layout:
     groups: tuple[tuple[str, ClassSpec, IArray, FArray], ...]  # quantity, class, rows, phases
 
 
-_NS = len(_SLOT_KEYS) + 1
+_NS = len(SLOT_KEYS) + 1
 
 
 class ReadingStd:
@@ -124,10 +121,10 @@ class ReadingStd:
             base = mi * _NS
             for key in keys:
                 q, ph = split_key(key)
-                at.append(base + _AT[key])
-                i_at.append(base + _AT.get(f"i.{ph}", _NS - 1))
-                p_at.append(base + _AT.get(f"p.{ph}", _NS - 1))
-                q_at.append(base + _AT.get(f"q.{ph}", _NS - 1))
+                at.append(base + SLOT_INDEX[key])
+                i_at.append(base + SLOT_INDEX.get(f"i.{ph}", _NS - 1))
+                p_at.append(base + SLOT_INDEX.get(f"p.{ph}", _NS - 1))
+                q_at.append(base + SLOT_INDEX.get(f"q.{ph}", _NS - 1))
                 if ph == "T":
                     tot.append(row)
                     tot_m.append(mi)
@@ -175,7 +172,7 @@ class ReadingStd:
         self, items: Sequence[tuple[Meter, tuple[str, ...]]], slot: FArray, rep: FArray
     ) -> list[FArray]:
         """The standard uncertainty of each listed reading of each meter: ``items`` are
-        (meter, keys), ``slot`` their (meters, slots) values in ``_SLOT_KEYS`` order (NaN
+        (meter, keys), ``slot`` their (meters, slots) values in ``SLOT_KEYS`` order (NaN
         where a meter has none), ``rep`` the repeatabilities of the listed keys, concatenated.
         Returns one array per meter."""
         if not items:
@@ -247,7 +244,7 @@ class CaptureMeans:
 
 
 def capture_means(
-    meters: Sequence[str], snaps: Sequence[Snapshot], keys: Sequence[str] = _SLOT_KEYS
+    meters: Sequence[str], snaps: Sequence[Snapshot], keys: Sequence[str] = SLOT_KEYS
 ) -> CaptureMeans:
     """Per meter, the mean of every ok reading of ``keys`` over the capture and its
     repeatability, all meters at once (``CaptureMeans``).

@@ -18,7 +18,7 @@ import math
 import numpy as np
 from support.estimate_bench import demo
 
-from meas.estimate.weights import _SLOT_KEYS, ReadingStd
+from meas.estimate.weights import SLOT_KEYS, ReadingStd
 
 S3 = math.sqrt(3.0)
 ULP = 2.0**-24
@@ -35,7 +35,7 @@ def test_the_uncertainty_of_each_reading_follows_the_stated_rules():
     vals = {"v_ln.A": 231.0, "i.A": 30.0, "p.A": 6000.0, "q.A": 2000.0}
     vals["i_ang.A"] = -math.degrees(math.atan2(2000.0, 6000.0))
     keys = tuple(vals)
-    slot = np.array([[vals.get(k, math.nan) for k in _SLOT_KEYS]])
+    slot = np.array([[vals.get(k, math.nan) for k in SLOT_KEYS]])
     rep = np.array([0.01, 0.02, 3.0, 4.0, 0.05])
     got = ReadingStd(prof).from_slots([(m2, keys)], slot, rep)[0]
 
@@ -56,7 +56,7 @@ def test_a_small_reading_is_held_at_the_class_floor():
     prof = demo()
     m2 = next(m for m in prof.meters if m.id == "M2")
     keys = ("v_ln.A", "i.A")
-    slot = np.array([[{"v_ln.A": 5.0, "i.A": 0.5}.get(k, math.nan) for k in _SLOT_KEYS]])
+    slot = np.array([[{"v_ln.A": 5.0, "i.A": 0.5}.get(k, math.nan) for k in SLOT_KEYS]])
     got = ReadingStd(prof).from_slots([(m2, keys)], slot, np.zeros(2))[0]
     # below 10 % of nominal voltage and 5 % of rated current the absolute error is held
     v_floor = 0.005 * 0.1 * 400 / S3
