@@ -20,7 +20,6 @@ import os
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # before numpy: see bench_estimate.py
 
 import argparse  # noqa: E402
-import dataclasses  # noqa: E402
 import importlib  # noqa: E402
 import pathlib  # noqa: E402
 import re  # noqa: E402
@@ -35,14 +34,9 @@ from typing import Any  # noqa: E402
 import numpy as np  # noqa: E402
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
-STATE = {
-    "CB1": "closed",
-    "SW2": "closed",
-    "SW3": "closed",
-    "TIE": "open",
-    "RX": "closed",
-    "LB2": "closed",
-}
+sys.path[:0] = [str(ROOT), str(ROOT / "tests")]
+# the cases' switch state and widened bench are bench_estimate's (imports this tree's meas)
+from bench_estimate import STATE, widened  # noqa: E402
 
 
 def _earlier(checkout: pathlib.Path, into: pathlib.Path) -> tuple[ModuleType, ModuleType]:
@@ -59,13 +53,6 @@ def _earlier(checkout: pathlib.Path, into: pathlib.Path) -> tuple[ModuleType, Mo
     )
 
 
-def _widened(profile: Any, times: int) -> Any:
-    meters = list(profile.meters)
-    for k in range(1, times):
-        meters += [dataclasses.replace(m, id=f"{m.id}{'bcdefgh'[k - 1]}") for m in profile.meters]
-    return dataclasses.replace(profile, meters=tuple(meters))
-
-
 def _case(est_mod: ModuleType, bench: ModuleType, case: str, n: int, this: bool) -> Any:
     if case == "session":
         base = bench.demo()
@@ -77,7 +64,7 @@ def _case(est_mod: ModuleType, bench: ModuleType, case: str, n: int, this: bool)
             rng = np.random.default_rng(12 + k)
             runs.append([bench.capture(true, st, (), rng, gains) for st in states])
         return est_mod.Estimator(base), runs
-    prof = _widened(bench.demo(), 4)
+    prof = widened(bench.demo(), 4)
     true, gains = bench.as_built(prof, 11), bench.meter_gains(prof, 11)
     runs = [
         [bench.capture(true, STATE, (), np.random.default_rng(11 + k), gains)] for k in range(n + 3)
@@ -93,7 +80,6 @@ def main() -> None:
     ap.add_argument("older", type=pathlib.Path, help="a checkout of an earlier benchwalk")
     ap.add_argument("--captures", type=int, default=30)
     args = ap.parse_args()
-    sys.path[:0] = [str(ROOT), str(ROOT / "tests")]
     from support import estimate_bench as this_bench
 
     import meas.estimate as this_est
